@@ -1,0 +1,8 @@
+"""Calibration: from the configuration (and, later, market data) to one parameter set that
+feeds both scenario sets."""
+
+from __future__ import annotations
+
+from pqflow.calibration.assemble import Calibration, assemble_calibration, build_model
+
+__all__ = ["Calibration", "assemble_calibration", "build_model"]

@@ -1,0 +1,166 @@
+"""The ``pqflow`` command.
+
+Exit codes: 0 run written and every check passed; 1 run written but a check failed (the files
+are kept so the failure can be studied); 2 bad input (configuration, output directory), nothing
+written.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+from typing import Annotated, Any, Optional
+
+import typer
+from rich.console import Console
+from rich.table import Table
+
+from pqflow import CAUTION, __version__
+from pqflow.errors import PqflowError
+
+__all__ = ["app", "main"]
+
+app = typer.Typer(
+    name="pqflow",
+    help=(
+        "Real-world and market-consistent economic scenarios from one calibration, with exact "
+        "density weights, deflators and martingale tests.\n\n" + CAUTION
+    ),
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+console = Console()
+err_console = Console(stderr=True)
+
+
+def _fail(exc: Exception) -> None:
+    err_console.print(f"[bold red]error:[/] {exc}", highlight=False, soft_wrap=True)
+    raise typer.Exit(code=2)
+
+
+def _caution() -> None:
+    console.print(f"\n[bold yellow]Caution:[/] {CAUTION}", highlight=False)
+
+
+def _summary_table(summary: dict[str, Any]) -> Table:
+    table = Table(title="Validation of the written files", show_lines=False)
+    table.add_column("check")
+    table.add_column("cells", justify="right")
+    table.add_column("failed", justify="right")
+    table.add_column("chance would give", justify="right")
+    table.add_column("verdict")
+    for name, check in summary["checks"].items():
+        levels = [(k, v) for k, v in check.items() if k.startswith("level_")]
+        rows = levels or [("", check)]
+        for level, body in rows:
+            label = name.replace("_", " ") + (f" at {level[6:]}%" if level else " (mean weight = 1 at 99%)")
+            verdict = body["verdict"]
+            colour = "green" if verdict == "pass" else "red"
+            table.add_row(
+                label,
+                str(body["cells"]),
+                str(body["failed"]),
+                f"{body['expected_by_chance']:.1f} (limit {body['chance_limit']})",
+                f"[{colour}]{verdict.upper()}[/]",
+            )
+    return table
+
+
+@app.command()
+def run(
+    config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
+    out: Annotated[Path, typer.Option("--out", help="Run directory to create.")],
+    scenarios: Annotated[Optional[int], typer.Option(help="Scenarios per set (overrides the file).")] = None,
+    seed: Annotated[Optional[int], typer.Option(help="Root seed (overrides the file).")] = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an earlier run in --out once this one succeeds.")] = False,
+    workers: Annotated[int, typer.Option(help="Worker threads generating parts.", min=1, max=64)] = 2,
+) -> None:
+    """Calibrate, generate the real-world and market-consistent sets, validate, write the manifest."""
+    from pqflow.calibration.assemble import assemble_calibration
+    from pqflow.config.loader import apply_overrides, load_config
+    from pqflow.storage.rundir import _check_target
+
+    started = time.perf_counter()
+    try:
+        cfg = load_config(config)
+        if scenarios is not None or seed is not None:
+            cfg = apply_overrides(cfg, scenarios=scenarios, seed=seed, source=str(config))
+        assemble_calibration(cfg)  # every input error surfaces here, before Prefect starts
+        _check_target(out.absolute(), overwrite)
+    except PqflowError as exc:
+        _fail(exc)
+    sim = cfg.simulation
+    console.print(
+        f"[bold]pqflow {__version__}[/] run [cyan]{cfg.run.name}[/] valuation date "
+        f"{cfg.run.valuation_date}: {sim.scenarios:,} scenarios per set, {sim.horizon_years:g} years, "
+        f"{sim.steps_per_year} steps a year, seed {sim.seed}",
+        highlight=False,
+    )
+    console.print("starting Prefect (local mode, temporary server)...", style="dim")
+    from pipeline import run_quarterly
+
+    try:
+        result = run_quarterly(
+            config, out, scenarios=scenarios, seed=seed, overwrite=overwrite, workers=workers,
+            show_progress=sys.stderr.isatty() or sys.stdout.isatty(),
+        )
+    except PqflowError as exc:
+        _fail(exc)
+    summary = result["summary"]
+    console.print(_summary_table(summary))
+    for check in summary["checks"].values():
+        for warning in check.get("warnings", []):
+            console.print(f"[yellow]warning:[/] {warning}", highlight=False)
+    colour = "green" if summary["verdict"] == "pass" else "red"
+    console.print(
+        f"overall verdict: [{colour}]{summary['verdict'].upper()}[/]; run written to "
+        f"{result['out_dir']} in {time.perf_counter() - started:.1f} s",
+        highlight=False,
+    )
+    _caution()
+    if summary["verdict"] != "pass":
+        raise typer.Exit(code=1)
+
+
+@app.command()
+def check(config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")]) -> None:
+    """Validate a configuration and show the parameters it gives, without simulating."""
+    from pqflow.calibration.assemble import assemble_calibration
+    from pqflow.config.loader import load_config
+
+    try:
+        cal = assemble_calibration(load_config(config))
+    except PqflowError as exc:
+        _fail(exc)
+    import json
+
+    console.print_json(json.dumps(cal.to_json()["parameters"]))
+    console.print(f"{config}: valid", style="green")
+
+
+@app.command()
+def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")]) -> None:
+    """Check every file of a run against its manifest (sizes and sha256)."""
+    from pqflow.storage.manifest import verify_run
+
+    try:
+        manifest = verify_run(run_dir)
+    except PqflowError as exc:
+        _fail(exc)
+    console.print(f"{run_dir}: {len(manifest['files'])} files match manifest.json", style="green")
+
+
+@app.command()
+def version() -> None:
+    """Print the version."""
+    console.print(__version__)
+
+
+def main() -> None:
+    app()
+
+
+if __name__ == "__main__":
+    main()

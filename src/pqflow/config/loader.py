@@ -1,0 +1,84 @@
+"""Reading a run configuration file, with errors that name the file and the key."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import tomllib
+from pathlib import Path
+from typing import Any
+
+from pydantic import ValidationError
+
+from pqflow.config.schema import RunConfig
+from pqflow.errors import ConfigError
+
+__all__ = ["load_config", "parse_config", "config_hash", "apply_overrides"]
+
+
+def _key_path(loc: tuple[Any, ...]) -> str:
+    parts: list[str] = []
+    for item in loc:
+        if isinstance(item, int):
+            parts[-1] = f"{parts[-1]}[{item}]" if parts else f"[{item}]"
+        else:
+            parts.append(str(item))
+    return ".".join(parts) or "(top level)"
+
+
+def _describe(err: dict[str, Any]) -> str:
+    kind = err.get("type", "")
+    msg = str(err.get("msg", "invalid value"))
+    if kind == "extra_forbidden":
+        return "unknown key (not part of the configuration schema; check its spelling)"
+    if kind == "missing":
+        return "missing key (required)"
+    if msg.startswith("Value error, "):
+        msg = msg[len("Value error, ") :]
+    if "input" in err and kind not in ("model_type", "dict_type"):
+        return f"{msg} (got {err['input']!r})"
+    return msg
+
+
+def parse_config(data: dict[str, Any], *, source: str) -> RunConfig:
+    """Validate ``data`` (the parsed TOML); ``source`` names it in every error message."""
+    try:
+        return RunConfig.model_validate(data)
+    except ValidationError as exc:
+        lines = [f"{source}: {_key_path(tuple(e['loc']))}: {_describe(e)}" for e in exc.errors()]
+        raise ConfigError("invalid run configuration\n  " + "\n  ".join(lines)) from None
+
+
+def load_config(path: str | Path) -> RunConfig:
+    """Read and validate a TOML run configuration."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: configuration file not found") from None
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot read the configuration ({exc.strerror})") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+    return parse_config(data, source=str(path))
+
+
+def apply_overrides(
+    config: RunConfig, *, scenarios: int | None = None, seed: int | None = None, source: str
+) -> RunConfig:
+    """The command line's ``--scenarios`` / ``--seed``, validated like the file itself."""
+    data = config.model_dump(mode="json")
+    if scenarios is not None:
+        data["simulation"]["scenarios"] = scenarios
+        data["simulation"]["batch_size"] = min(data["simulation"]["batch_size"], scenarios)
+    if seed is not None:
+        data["simulation"]["seed"] = seed
+    return parse_config(data, source=f"{source} (with command-line overrides)")
+
+
+def config_hash(config: RunConfig) -> str:
+    """sha256 of the validated configuration in canonical JSON: equal runs, equal hashes."""
+    canon = json.dumps(config.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(canon.encode("utf-8")).hexdigest()

@@ -1,0 +1,45 @@
+"""Every error pqflow raises on purpose.
+
+    PqflowError                      base: catch this to catch them all
+    ├── ConfigError                  a run configuration is invalid (names the file and the key)
+    ├── MarketDataError              a market-data input is invalid (names the file, row, column)
+    ├── MeasureError                 the real-world and market-consistent measures are not
+    │                                equivalent, so no density weights exist
+    ├── RunDirectoryError            an output directory is in the way, locked or not a run
+    └── IntegrityError               a written file does not match its manifest entry
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "PqflowError",
+    "ConfigError",
+    "MarketDataError",
+    "MeasureError",
+    "RunDirectoryError",
+    "IntegrityError",
+]
+
+
+class PqflowError(Exception):
+    """Base class of every error pqflow raises on purpose."""
+
+
+class ConfigError(PqflowError):
+    """A run configuration is invalid."""
+
+
+class MarketDataError(PqflowError):
+    """A market-data input is invalid."""
+
+
+class MeasureError(PqflowError):
+    """The two measures are not equivalent: density weights would mean nothing."""
+
+
+class RunDirectoryError(PqflowError):
+    """An output directory cannot be used as asked."""
+
+
+class IntegrityError(PqflowError):
+    """A file of a run does not match what the manifest recorded."""

@@ -1,0 +1,207 @@
+"""Steps of a run: plan, calibrate, generate each part, validate, write the manifest.
+
+Each step reads and writes through ``pqflow.storage`` and returns a small record, so a
+scheduler (the Prefect flow, or a plain loop in tests) can run the parts in any order and on
+any worker: the bytes of a part depend only on the configuration, the seed, the measure and
+the batch index.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import platform
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+
+from pqflow import CAUTION, __version__
+from pqflow.calibration.assemble import Calibration, build_model
+from pqflow.config.loader import config_hash
+from pqflow.config.schema import RunConfig
+from pqflow.market.curve import LogDiscountCurve
+from pqflow.simulation.engine import DENSITY_COLUMN, MEASURES, simulate_batch, time_grid
+from pqflow.simulation.plan import Batch, plan_batches
+from pqflow.simulation.streams import MEASURE_STREAM, batch_generator
+from pqflow.storage.jsonio import read_json, write_json_atomic
+from pqflow.storage.manifest import MANIFEST, build_manifest
+from pqflow.storage.parquet import batch_table, file_sha256, part_name, units_metadata, write_part
+from pqflow.validation.summary import validate_run
+
+__all__ = [
+    "RunPlan",
+    "PartRecord",
+    "plan_run",
+    "write_calibration",
+    "generate_part",
+    "validate_staged_run",
+    "write_run_manifest",
+]
+
+MEASURE_TEXT = {
+    "real_world": "real-world measure P (projection set); q_density = dQ/dP on the grid",
+    "market_consistent": "market-consistent measure Q, bank-account numeraire; p_density = dP/dQ",
+}
+
+
+@dataclass(frozen=True, kw_only=True)
+class RunPlan:
+    """Output grid and batches, shared by both sets."""
+
+    times: np.ndarray
+    batches: tuple[Batch, ...]
+    seed: int
+    antithetic: bool
+    bond_maturities: tuple[float, ...]
+
+    def tasks(self) -> list[tuple[str, Batch]]:
+        """Every (measure, batch) pair, interleaved so both sets advance together."""
+        return [(m, b) for b in self.batches for m in MEASURES]
+
+
+@dataclass(frozen=True, kw_only=True)
+class PartRecord:
+    """What a written part is: enough to check it against the manifest later."""
+
+    measure: str
+    batch: int
+    path: str
+    rows: int
+    sha256: str
+
+
+def plan_run(config: RunConfig) -> RunPlan:
+    sim = config.simulation
+    return RunPlan(
+        times=time_grid(sim.horizon_years, sim.steps_per_year),
+        batches=plan_batches(sim.scenarios, sim.batch_size, antithetic=sim.antithetic),
+        seed=sim.seed,
+        antithetic=sim.antithetic,
+        bond_maturities=tuple(config.outputs.bond_maturities),
+    )
+
+
+def write_calibration(run_dir: str | Path, calibration: Calibration) -> Path:
+    return write_json_atomic(Path(run_dir) / "calibration.json", calibration.to_json())
+
+
+def _part_metadata(calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, units: dict[str, str]) -> dict[str, str]:
+    return {
+        "pqflow.version": __version__,
+        "pqflow.measure": measure,
+        "pqflow.measure_description": MEASURE_TEXT[measure],
+        "pqflow.valuation_date": calibration.valuation_date,
+        "pqflow.time_unit": "years from the valuation date (output grid k / steps_per_year)",
+        "pqflow.compounding": "short_rate is continuously compounded per year; prices are not rates",
+        "pqflow.units": units_metadata(units),
+        "pqflow.density_column": DENSITY_COLUMN[measure],
+        "pqflow.antithetic": "true" if plan.antithetic else "false",
+        "pqflow.batch": str(batch.index),
+        "pqflow.first_scenario": str(batch.first),
+        "pqflow.calibration_sha256": calibration.inputs_hash,
+    }
+
+
+def generate_part(
+    calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, run_dir: str | Path
+) -> PartRecord:
+    """Simulate one batch of one measure and write it as a Parquet part."""
+    model = build_model(calibration, plan.bond_maturities)
+    rng = batch_generator(plan.seed, measure, batch.index)
+    cols = simulate_batch(
+        model, plan.times, measure=measure, n_paths=batch.size, rng=rng, antithetic=plan.antithetic
+    )
+    units = model.column_units()
+    units["deflator"] = (
+        "state-price deflator q_density / cash_account" if measure == "real_world" else "1 / cash_account"
+    )
+    units[DENSITY_COLUMN[measure]] = "density on the grid up to time (dimensionless, mean 1)"
+    order = ["short_rate", "cash_account", "deflator"]
+    order += [c for c in cols if c.startswith("zcb_")]
+    order += [c for c in cols if c.startswith("equity_")]
+    order += [DENSITY_COLUMN[measure]]
+    table = batch_table(
+        {c: cols[c] for c in order},
+        plan.times,
+        first_scenario=batch.first,
+        metadata=_part_metadata(calibration, plan, measure, batch, units),
+    )
+    path = write_part(table, Path(run_dir) / "scenarios" / measure / part_name(batch.index))
+    return PartRecord(
+        measure=measure,
+        batch=batch.index,
+        path=path.relative_to(Path(run_dir)).as_posix(),
+        rows=table.num_rows,
+        sha256=file_sha256(path),
+    )
+
+
+def curve_from_calibration_file(run_dir: str | Path) -> LogDiscountCurve:
+    """Today's curve as recorded in the run's ``calibration.json`` (an input, not the model)."""
+    data = read_json(Path(run_dir) / "calibration.json")["parameters"]["curve"]
+    return LogDiscountCurve(
+        maturities=np.array(data["maturities"]), discount_factors=np.array(data["discount_factors"])
+    )
+
+
+def validate_staged_run(run_dir: str | Path, config: RunConfig) -> dict[str, Any]:
+    """Martingale and density checks from the files; writes ``validation/``."""
+    run_dir = Path(run_dir)
+    curve = curve_from_calibration_file(run_dir)
+    mart, dens, summary = validate_run(
+        run_dir, curve.discount, ess_warning_share=config.validation.ess_warning_share
+    )
+    out = run_dir / "validation"
+    out.mkdir(parents=True, exist_ok=True)
+    for name, tables in (("martingale", mart), ("density", dens)):
+        frame = _stack(tables)
+        tmp = out / f".{name}.csv.tmp"
+        frame.to_csv(tmp, index=False, float_format="%.10g")
+        tmp.replace(out / f"{name}.csv")
+    summary = {"caution": CAUTION, **summary}
+    write_json_atomic(out / "summary.json", summary)
+    return summary
+
+
+def _stack(tables: dict[str, Any]):
+    import pandas as pd
+
+    return pd.concat([t.assign(measure=m)[["measure", *t.columns]] for m, t in tables.items()], ignore_index=True)
+
+
+def write_run_manifest(
+    run_dir: str | Path, config: RunConfig, plan: RunPlan, parts: list[PartRecord], *, run_id: str
+) -> dict[str, Any]:
+    """Write ``manifest.json`` and check it against the records the parts returned."""
+    run_dir = Path(run_dir)
+    header = {
+        "run_id": run_id,
+        "run_name": config.run.name,
+        "created_utc": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
+        "pqflow_version": __version__,
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "pyarrow": pa.__version__,
+        "valuation_date": config.run.valuation_date.isoformat(),
+        "config_sha256": config_hash(config),
+        "seeds": {
+            "root_seed": plan.seed,
+            "scheme": "numpy SeedSequence(root_seed, spawn_key=(measure_stream, batch)), PCG64",
+            "measure_streams": MEASURE_STREAM,
+            "batches": len(plan.batches),
+        },
+        "scenarios": int(sum(b.size for b in plan.batches)),
+        "output_times": int(plan.times.size),
+        "antithetic": plan.antithetic,
+        "caution": CAUTION,
+    }
+    manifest = build_manifest(run_dir, header=header)
+    by_path = {f["path"]: f for f in manifest["files"]}
+    for rec in parts:
+        entry = by_path.get(rec.path)
+        if entry is None or entry["sha256"] != rec.sha256 or entry["rows"] != rec.rows:
+            raise RuntimeError(f"{rec.path}: changed between writing and the manifest")
+    write_json_atomic(run_dir / MANIFEST, manifest)
+    return manifest

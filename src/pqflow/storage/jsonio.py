@@ -1,0 +1,29 @@
+"""JSON files written atomically (temporary name, then rename)."""
+
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+from typing import Any
+
+__all__ = ["write_json_atomic", "read_json"]
+
+
+def write_json_atomic(path: str | Path, obj: Any) -> Path:
+    """Write ``obj`` as indented JSON; readers never see a half-written file."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
+    with open(tmp, "w", encoding="utf-8") as fh:
+        json.dump(obj, fh, indent=2, sort_keys=False, allow_nan=False)
+        fh.write("\n")
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+    return path
+
+
+def read_json(path: str | Path) -> Any:
+    with open(path, encoding="utf-8") as fh:
+        return json.load(fh)

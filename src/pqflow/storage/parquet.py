@@ -1,0 +1,114 @@
+"""Scenario files: one Parquet part per batch, one row per (scenario, output time).
+
+Layout inside a run directory::
+
+    scenarios/<measure>/part-NNNNN.parquet
+
+Rows are ordered by scenario, then time. Columns: ``scenario`` (int32, 0..N-1 across the
+parts of a set), ``time`` (float64, years from the valuation date), then the model's float64
+columns in a fixed order. The file's key-value metadata names the measure, the valuation
+date, the units of each column and the compounding. Nothing time-dependent (no clock, no run
+id) enters a part, so the same configuration and seed give the same bytes.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+from collections.abc import Iterator, Sequence
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+__all__ = [
+    "PART_GLOB",
+    "part_name",
+    "batch_table",
+    "write_part",
+    "read_part",
+    "part_paths",
+    "iter_parts",
+    "file_sha256",
+]
+
+PART_GLOB = "part-*.parquet"
+_COMPRESSION = "zstd"
+_ROW_GROUP_ROWS = 262_144
+
+
+def part_name(batch_index: int) -> str:
+    return f"part-{batch_index:05d}.parquet"
+
+
+def batch_table(
+    columns: dict[str, np.ndarray],
+    times: np.ndarray,
+    *,
+    first_scenario: int,
+    metadata: dict[str, str],
+) -> pa.Table:
+    """Long-format table of one batch. ``columns`` values have shape ``(n_paths, n_times)``."""
+    first = next(iter(columns.values()))
+    n_paths, n_times = first.shape
+    if n_times != times.size:
+        raise ValueError("columns and times disagree on the number of output times")
+    scenario = np.repeat(np.arange(first_scenario, first_scenario + n_paths, dtype=np.int32), n_times)
+    arrays = {"scenario": scenario, "time": np.tile(times, n_paths)}
+    for name, values in columns.items():
+        if values.shape != (n_paths, n_times):
+            raise ValueError(f"column {name} has shape {values.shape}, expected {(n_paths, n_times)}")
+        arrays[name] = np.ascontiguousarray(values, dtype=np.float64).reshape(-1)
+    table = pa.table(arrays)
+    return table.replace_schema_metadata({k.encode(): v.encode() for k, v in metadata.items()})
+
+
+def write_part(table: pa.Table, path: str | Path) -> Path:
+    """Write a part under a temporary name, then rename it into place: a crash never leaves a
+    truncated file under a final name."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
+    pq.write_table(
+        table,
+        tmp,
+        compression=_COMPRESSION,
+        row_group_size=_ROW_GROUP_ROWS,
+        write_statistics=True,
+    )
+    os.replace(tmp, path)
+    return path
+
+
+def read_part(path: str | Path, columns: Sequence[str] | None = None) -> pa.Table:
+    return pq.read_table(path, columns=list(columns) if columns is not None else None)
+
+
+def part_paths(set_dir: str | Path) -> list[Path]:
+    """The parts of one scenario set, in batch order."""
+    return sorted(Path(set_dir).glob(PART_GLOB))
+
+
+def iter_parts(set_dir: str | Path, columns: Sequence[str] | None = None) -> Iterator[pa.Table]:
+    """Read a set part by part (memory bounded by one part)."""
+    for path in part_paths(set_dir):
+        yield read_part(path, columns)
+
+
+def part_metadata(path: str | Path) -> dict[str, str]:
+    meta = pq.read_schema(path).metadata or {}
+    return {k.decode(): v.decode() for k, v in meta.items()}
+
+
+def units_metadata(units: dict[str, str]) -> str:
+    return json.dumps(units, sort_keys=True)
+
+
+def file_sha256(path: str | Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
