@@ -45,26 +45,23 @@ def _caution() -> None:
 
 
 def _summary_table(summary: dict[str, Any]) -> Table:
-    table = Table(title="Validation of the written files", show_lines=False)
+    table = Table(title="Validation of the written files")
     table.add_column("check")
     table.add_column("cells", justify="right")
-    table.add_column("failed", justify="right")
-    table.add_column("chance would give", justify="right")
+    table.add_column("outside 95% / chance", justify="right")
+    table.add_column("outside 99% / chance", justify="right")
+    table.add_column("max |z| / limit", justify="right")
     table.add_column("verdict")
-    for name, check in summary["checks"].items():
-        levels = [(k, v) for k, v in check.items() if k.startswith("level_")]
-        rows = levels or [("", check)]
-        for level, body in rows:
-            label = name.replace("_", " ") + (f" at {level[6:]}%" if level else " (mean weight = 1 at 99%)")
-            verdict = body["verdict"]
-            colour = "green" if verdict == "pass" else "red"
-            table.add_row(
-                label,
-                str(body["cells"]),
-                str(body["failed"]),
-                f"{body['expected_by_chance']:.1f} (limit {body['chance_limit']})",
-                f"[{colour}]{verdict.upper()}[/]",
-            )
+    for name, c in summary["checks"].items():
+        colour = "green" if c["verdict"] == "pass" else "red"
+        table.add_row(
+            name.replace("_", " "),
+            str(c["cells"]),
+            f"{c['outside_95']} / {c['expected_outside_95_by_chance']:.1f}",
+            f"{c['outside_99']} / {c['expected_outside_99_by_chance']:.1f}",
+            f"{c['max_abs_z']:.2f} / {c['family_critical_z']:.2f}",
+            f"[{colour}]{c['verdict'].upper()}[/]",
+        )
     return table
 
 
@@ -110,6 +107,7 @@ def run(
         _fail(exc)
     summary = result["summary"]
     console.print(_summary_table(summary))
+    console.print(f"rule: {summary['rule']}", style="dim", highlight=False)
     for check in summary["checks"].values():
         for warning in check.get("warnings", []):
             console.print(f"[yellow]warning:[/] {warning}", highlight=False)

@@ -1,0 +1,66 @@
+"""Shared fixtures. Flow tests share one Prefect test harness per session (about 10 s to start)."""
+
+from __future__ import annotations
+
+import copy
+import tomllib
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+REPO = Path(__file__).resolve().parents[1]
+DEMO = REPO / "scenario_configs" / "demo.toml"
+
+
+@pytest.fixture(scope="session")
+def demo_config_dict() -> dict[str, Any]:
+    with open(DEMO, "rb") as fh:
+        return tomllib.load(fh)
+
+
+def write_toml(path: Path, data: dict[str, Any]) -> Path:
+    """Write a (flat two-level) configuration dict as TOML."""
+
+    def value(v: Any) -> str:
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, str):
+            return '"' + v.replace("\\", "\\\\").replace('"', '\\"') + '"'
+        if isinstance(v, list):
+            return "[" + ", ".join(value(x) for x in v) + "]"
+        return str(v) if not hasattr(v, "isoformat") else v.isoformat()
+
+    lines = []
+    for section, body in data.items():
+        lines.append(f"[{section}]")
+        for key, v in body.items():
+            lines.append(f"{key} = {value(v)}")
+        lines.append("")
+    path.write_text("\n".join(lines), encoding="utf-8")
+    return path
+
+
+@pytest.fixture
+def small_config(tmp_path: Path, demo_config_dict: dict[str, Any]):
+    """Factory: the demo configuration made small (and optionally edited), written to a file."""
+
+    def make(name: str = "small.toml", **edits: dict[str, Any]) -> Path:
+        data = copy.deepcopy(demo_config_dict)
+        data["simulation"].update({"scenarios": 400, "batch_size": 100, "horizon_years": 20})
+        data["real_world"]["target_year"] = 20
+        for section, body in edits.items():
+            data.setdefault(section, {}).update(body)
+        return write_toml(tmp_path / name, data)
+
+    return make
+
+
+@pytest.fixture(scope="session")
+def prefect_harness():
+    from prefect.testing.utilities import prefect_test_harness
+
+    import pipeline  # noqa: F401  (sets quiet Prefect defaults before the harness starts)
+
+    with prefect_test_harness(server_startup_timeout=90):
+        yield

@@ -1,0 +1,41 @@
+"""The command line: clear errors with exit code 2, nothing written, caution shown."""
+
+from __future__ import annotations
+
+from typer.testing import CliRunner
+
+from pqflow import CAUTION
+from pqflow.cli import app
+
+runner = CliRunner()
+
+
+def test_bad_configuration_exits_2_and_writes_nothing(small_config, tmp_path):
+    cfg = small_config(hull_white={"volatility": -0.01})
+    out = tmp_path / "never"
+    result = runner.invoke(app, ["run", str(cfg), "--out", str(out)])
+    assert result.exit_code == 2
+    assert "hull_white.volatility" in result.output and str(cfg.name) in result.output
+    assert not out.exists()
+
+
+def test_existing_directory_without_overwrite_is_refused(small_config, tmp_path):
+    out = tmp_path / "taken"
+    out.mkdir()
+    (out / "notes.txt").write_text("earlier work")
+    result = runner.invoke(app, ["run", str(small_config()), "--out", str(out)])
+    assert result.exit_code == 2
+    assert "--overwrite" in result.output
+    assert (out / "notes.txt").read_text() == "earlier work"
+    # Even with --overwrite, a directory that is not a pqflow run is not replaced.
+    result = runner.invoke(app, ["run", str(small_config()), "--out", str(out), "--overwrite"])
+    assert result.exit_code == 2 and "does not look like a pqflow run" in result.output
+
+
+def test_check_command_and_caution_in_help(small_config):
+    result = runner.invoke(app, ["check", str(small_config())])
+    assert result.exit_code == 0, result.output
+    assert "market_prices_of_risk" in result.output
+    help_text = runner.invoke(app, ["--help"]).output
+    assert "qualified" in help_text.replace("\n", " ")
+    assert "sign-off" in CAUTION
