@@ -149,6 +149,11 @@ def zero_bond_option(
     p_t = float(curve.discount(expiry))
     p_s = float(curve.discount(bond_maturity))
     sigma_p = s * np.sqrt(float(b_factor(2.0 * a, expiry))) * float(b_factor(a, bond_maturity - expiry))
+    if kind not in ("call", "put"):
+        raise ValueError(f"kind must be 'call' or 'put', not {kind!r}")
+    if sigma_p == 0.0:  # deterministic rates: the discounted intrinsic value
+        intrinsic = p_s - strike * p_t
+        return float(max(intrinsic, 0.0) if kind == "call" else max(-intrinsic, 0.0))
     h = np.log(p_s / (p_t * strike)) / sigma_p + 0.5 * sigma_p
     if kind == "call":
         return float(p_s * norm.cdf(h) - strike * p_t * norm.cdf(h - sigma_p))
