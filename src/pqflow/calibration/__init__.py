@@ -3,6 +3,11 @@ feeds both scenario sets."""
 
 from __future__ import annotations
 
-from pqflow.calibration.assemble import Calibration, assemble_calibration, build_model
+from pqflow.calibration.assemble import (
+    Calibration,
+    assemble_calibration,
+    build_model,
+    load_calibration,
+)
 
-__all__ = ["Calibration", "assemble_calibration", "build_model"]
+__all__ = ["Calibration", "assemble_calibration", "build_model", "load_calibration"]

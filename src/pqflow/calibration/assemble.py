@@ -10,6 +10,7 @@ from __future__ import annotations
 import hashlib
 import json
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -28,7 +29,7 @@ from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.hull_white_equity import HullWhiteEquityModel
 
-__all__ = ["Calibration", "assemble_calibration", "build_model"]
+__all__ = ["Calibration", "assemble_calibration", "build_model", "load_calibration"]
 
 _REL_TOL = 1e-12
 
@@ -89,6 +90,46 @@ class Calibration:
                 ).tolist(),
             },
         }
+
+
+def load_calibration(path: str | Path) -> Calibration:
+    """Read a stored ``calibration.json`` back into a :class:`Calibration` (no refitting)."""
+    from pqflow.errors import ConfigError
+    from pqflow.storage.jsonio import read_json
+
+    path = Path(path)
+    try:
+        data = read_json(path)
+        par = data["parameters"]
+        cal = Calibration(
+            valuation_date=data["valuation_date"],
+            curve=LogDiscountCurve(
+                maturities=np.array(par["curve"]["maturities"], dtype=float),
+                discount_factors=np.array(par["curve"]["discount_factors"], dtype=float),
+            ),
+            rates=HullWhiteParams(
+                mean_reversion=par["hull_white"]["mean_reversion"],
+                volatility=par["hull_white"]["volatility"],
+            ),
+            equity=EquityParams(
+                name=par["equity"]["name"],
+                level=par["equity"]["level"],
+                dividend_yield=par["equity"]["dividend_yield"],
+                volatility=par["equity"]["volatility"],
+                correlation=par["equity"]["correlation_with_rates"],
+            ),
+            prices_of_risk=PricesOfRisk(
+                rates=par["market_prices_of_risk"]["rates"],
+                equity=par["market_prices_of_risk"]["equity"],
+            ),
+            inputs=data["inputs"],
+            inputs_hash=data["inputs_sha256"],
+        )
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: calibration file not found") from None
+    except (KeyError, TypeError, ValueError) as exc:
+        raise ConfigError(f"{path}: not a pqflow calibration file ({exc!r})") from None
+    return cal
 
 
 def _check_equivalence(config: RunConfig) -> None:

@@ -47,6 +47,8 @@ __all__ = [
     "fixed_leg_schedule",
     "swap_annuity",
     "forward_swap_rate",
+    "JamshidianDecomposition",
+    "jamshidian_decomposition",
     "hull_white_swaption_price",
     "swaption_quote_price",
     "calibrate_hull_white_to_swaptions",
@@ -217,6 +219,52 @@ def _critical_factor(
     return float(brentq(excess, lo, hi, xtol=1e-15, rtol=4.0 * np.finfo(float).eps, maxiter=500))
 
 
+@dataclass(frozen=True, kw_only=True)
+class JamshidianDecomposition:
+    """The coupon bond of a swaption and its split into zero-bond options.
+
+    critical_factor: ``x*``, the Hull-White factor at expiry at which the coupon bond is worth
+    1. payment_times, coupons, bond_strikes: ``T_i``, ``c_i`` (the last including the notional)
+    and ``X_i = P(T0, T_i; x*)``, each shape ``(n,)``.
+    """
+
+    expiry: float
+    strike: float
+    critical_factor: float
+    payment_times: np.ndarray
+    coupons: np.ndarray
+    bond_strikes: np.ndarray
+
+
+def jamshidian_decomposition(
+    curve: DiscountCurve,
+    params: HullWhiteParams,
+    *,
+    expiry: float,
+    tenor: float,
+    strike: float | None = None,
+    frequency: int = 1,
+) -> JamshidianDecomposition:
+    """Jamshidian's split of the swaption on the swap ``(expiry, tenor)`` struck at ``strike``
+    (``None``: at the money). Needs ``sigma > 0`` and a final cash flow ``1 + K tau_n > 0``."""
+    if not params.volatility > 0.0:
+        raise ValueError("Jamshidian decomposition needs a positive Hull-White volatility")
+    times, accruals = fixed_leg_schedule(expiry, tenor, frequency=frequency)
+    k = forward_swap_rate(curve, expiry, tenor, frequency=frequency) if strike is None else strike
+    coupons = k * accruals
+    coupons[-1] += 1.0
+    if not coupons[-1] > 0.0:
+        raise ValueError("Jamshidian decomposition needs a final cash flow 1 + K tau_n > 0")
+    x_star = _critical_factor(curve, params, expiry, times, coupons)
+    strikes = zcb_price(curve, params, expiry, times - expiry, x_star)
+    for arr in (times, coupons, strikes):
+        arr.flags.writeable = False
+    return JamshidianDecomposition(
+        expiry=float(expiry), strike=float(k), critical_factor=x_star,
+        payment_times=times, coupons=coupons, bond_strikes=strikes,
+    )
+
+
 def hull_white_swaption_price(
     curve: DiscountCurve,
     params: HullWhiteParams,
@@ -228,29 +276,27 @@ def hull_white_swaption_price(
     frequency: int = 1,
 ) -> float:
     """Price per unit notional of a European swaption under Hull-White, by Jamshidian's
-    decomposition; ``strike=None`` means at the money (the forward swap rate)."""
+    decomposition; ``strike=None`` means at the money (the forward swap rate). With
+    ``sigma = 0`` the price is the floored forward value of the swap."""
     if kind not in ("payer", "receiver"):
         raise ValueError(f"kind must be 'payer' or 'receiver', not {kind!r}")
-    times, accruals = fixed_leg_schedule(expiry, tenor, frequency=frequency)
-    k = forward_swap_rate(curve, expiry, tenor, frequency=frequency) if strike is None else strike
-    coupons = k * accruals
-    coupons[-1] += 1.0
     if params.volatility == 0.0:
+        times, accruals = fixed_leg_schedule(expiry, tenor, frequency=frequency)
+        k = forward_swap_rate(curve, expiry, tenor, frequency=frequency) if strike is None else strike
         annuity = float(np.sum(accruals * curve.discount(times)))
         par = float(curve.discount(expiry) - curve.discount(times[-1]))
         swap = par - k * annuity
         return max(swap, 0.0) if kind == "payer" else max(-swap, 0.0)
-    if not coupons[-1] > 0.0:
-        raise ValueError("Jamshidian decomposition needs a final cash flow 1 + K tau_n > 0")
-    x_star = _critical_factor(curve, params, expiry, times, coupons)
-    strikes = zcb_price(curve, params, expiry, times - expiry, x_star)
+    split = jamshidian_decomposition(
+        curve, params, expiry=expiry, tenor=tenor, strike=strike, frequency=frequency
+    )
     option = "put" if kind == "payer" else "call"
     return float(
         sum(
             c * zero_bond_option(
                 curve, params, expiry=expiry, bond_maturity=float(t), strike=float(x), kind=option
             )
-            for c, t, x in zip(coupons, times, strikes)
+            for c, t, x in zip(split.coupons, split.payment_times, split.bond_strikes)
         )
     )
 
