@@ -166,8 +166,8 @@ def _invert(
     else:  # pragma: no cover - the price is unbounded (normal) or tends to the bound (Black)
         raise MarketDataError(f"{label}: no volatility bracket found for price {target:.10g}")
     return float(
-        brentq(lambda v: price_of_vol(v) - target, 0.0, hi, xtol=1e-300, rtol=4.0 * np.finfo(float).eps,
-               maxiter=500)
+        brentq(lambda v: price_of_vol(v) - target, 0.0, hi, xtol=1e-300,
+               rtol=4.0 * np.finfo(float).eps, maxiter=500)
     )
 
 

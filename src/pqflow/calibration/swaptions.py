@@ -10,13 +10,13 @@ the floating leg is worth ``1 - P(T0, Tn)`` per unit notional, so today it is wo
     forward swap rate    F = (P(0, T0) - P(0, Tn)) / A        (the at-the-money strike).
 
 Jamshidian's decomposition (Brigo and Mercurio, *Interest Rate Models - Theory and Practice*,
-2nd ed., 2006, ch. 3.11): with coupons ``c_i = K tau_i`` plus the notional at ``Tn``, a payer
-swaption is a put, struck at 1, on the coupon bond ``sum c_i P(T0, T_i)``. Each ``P(T0, T_i)`` is
-decreasing in the factor ``x_{T0}``, so there is one ``x*`` with ``sum c_i P(T0, T_i; x*) = 1``
-(for a negative strike the coupons before the last are negative; the coupon bond then has one
-sign change in its exponential sum, so by Descartes' rule it still equals 1 at exactly one
-``x*`` and is below 1 above it, which is all the decomposition needs); with
-``X_i = P(T0, T_i; x*)``,
+2nd ed., 2006, ch. 3, section 3.11 (section number from memory)): with coupons
+``c_i = K tau_i`` plus the notional at ``Tn``, a payer swaption is a put, struck at 1, on the
+coupon bond ``sum c_i P(T0, T_i)``. Each ``P(T0, T_i)`` is decreasing in the factor ``x_{T0}``,
+so there is one ``x*`` with ``sum c_i P(T0, T_i; x*) = 1`` (for a negative strike the coupons
+before the last are negative; the coupon bond then has one sign change in its exponential sum,
+so by Descartes' rule it still equals 1 at exactly one ``x*`` and is below 1 above it, which is
+all the decomposition needs); with ``X_i = P(T0, T_i; x*)``,
 
     payer    = sum_i c_i ZBP(0, T0, T_i, X_i),     receiver = sum_i c_i ZBC(0, T0, T_i, X_i).
 
@@ -135,8 +135,8 @@ class SwaptionFitReport:
     square (unweighted, over all quotes) of ``vol_difference_bp``. price_rmse_bp: the same of
     the price errors, in basis points of notional. objective: ``"implied_vol"`` or ``"price"``.
     fitted: names of the parameters that were fitted (``mean_reversion`` is absent when it was
-    held fixed). at_bound: names of the fitted parameters that ended on a bound. success, status, message:
-    those of ``scipy.optimize.least_squares``; n_function_evaluations and
+    held fixed). at_bound: names of the fitted parameters that ended on a bound. success,
+    status, message: those of ``scipy.optimize.least_squares``; n_function_evaluations and
     n_jacobian_evaluations count its work (one Jacobian per iteration).
     """
 
@@ -282,7 +282,9 @@ def hull_white_swaption_price(
         raise ValueError(f"kind must be 'payer' or 'receiver', not {kind!r}")
     if params.volatility == 0.0:
         times, accruals = fixed_leg_schedule(expiry, tenor, frequency=frequency)
-        k = forward_swap_rate(curve, expiry, tenor, frequency=frequency) if strike is None else strike
+        k = strike
+        if k is None:
+            k = forward_swap_rate(curve, expiry, tenor, frequency=frequency)
         annuity = float(np.sum(accruals * curve.discount(times)))
         par = float(curve.discount(expiry) - curve.discount(times[-1]))
         swap = par - k * annuity
@@ -301,7 +303,9 @@ def hull_white_swaption_price(
     )
 
 
-def swaption_quote_price(curve: DiscountCurve, quote: SwaptionQuote, *, frequency: int = 1) -> float:
+def swaption_quote_price(
+    curve: DiscountCurve, quote: SwaptionQuote, *, frequency: int = 1
+) -> float:
     """Market price per unit notional of an ATM quote, from its convention's formula."""
     fwd = forward_swap_rate(curve, quote.expiry, quote.tenor, frequency=frequency)
     ann = swap_annuity(curve, quote.expiry, quote.tenor, frequency=frequency)

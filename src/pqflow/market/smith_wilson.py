@@ -6,7 +6,7 @@ risk-free interest rate term structures*, Smith-Wilson chapter). With ``omega = 
 
     P(t) = e^{-omega t} + sum_j zeta_j W(t, u_j),
     W(t, u) = e^{-omega (t + u)} [alpha min(t,u)
-                                  - 1/2 e^{-alpha max(t,u)} (e^{alpha min(t,u)} - e^{-alpha min(t,u)})].
+                - 1/2 e^{-alpha max(t,u)} (e^{alpha min(t,u)} - e^{-alpha min(t,u)})].
 
 Calibration instruments ``i`` with market values ``m_i`` pay ``c_ij`` at the dates ``u_j``
 (cash-flow matrix ``C``, shape ``(n_instruments, n_dates)``). With ``mu_j = e^{-omega u_j}`` the
@@ -26,6 +26,9 @@ below ``alpha_min = 0.05`` for which ``|f(T) - omega| <= 1 bp`` at the convergen
 ``T = max(LLP + 40, 60)``. The search scans ``alpha`` upwards on a coarse grid until the
 criterion first holds, then bisects the last step to ``alpha_precision``; the ``alpha`` returned
 is the upper end of the final bracket, so the criterion holds exactly at the reported value.
+(Should the gap be non-monotone within one scan step, a smaller passing ``alpha`` inside that
+step could be missed; the scan step, 0.01 by default, bounds that.) The regulator publishes
+``alpha`` to six decimals; rounding the reported value up to six decimals reproduces it.
 
 The extrapolation method is pluggable: :data:`EXTRAPOLATION_METHODS` maps a method name to a
 callable following :class:`ExtrapolationMethod` (this module registers ``"smith_wilson"``);
@@ -111,7 +114,9 @@ class CurveInstruments:
         object.__setattr__(self, "last_liquid_point", float(self.last_liquid_point))
 
 
-def _check_rates(maturities: np.ndarray, rates: np.ndarray, what: str) -> tuple[np.ndarray, np.ndarray]:
+def _check_rates(
+    maturities: np.ndarray, rates: np.ndarray, what: str
+) -> tuple[np.ndarray, np.ndarray]:
     t = np.asarray(maturities, dtype=float)
     r = np.asarray(rates, dtype=float)
     if t.ndim != 1 or t.shape != r.shape or t.size == 0:
@@ -170,7 +175,7 @@ def par_swap_instruments(
     n_dates = int(years[-1])
     u = np.arange(1, n_dates + 1, dtype=float)
     c = np.zeros((t.size, n_dates))
-    for i, (n, rate) in enumerate(zip(years.astype(int), s)):
+    for i, (n, rate) in enumerate(zip(years.astype(int), s, strict=True)):
         c[i, :n] = rate
         c[i, n - 1] += 1.0
     return CurveInstruments(
@@ -189,7 +194,7 @@ def par_swap_instruments(
 
 
 def _heart(t: np.ndarray, u: np.ndarray, alpha: float) -> np.ndarray:
-    """``alpha min - 1/2 e^{-alpha max}(e^{alpha min} - e^{-alpha min})``, written without overflow."""
+    """``alpha min - 1/2 e^{-alpha max}(e^{alpha min} - e^{-alpha min})``, without overflow."""
     lo = np.minimum(t, u)
     hi = np.maximum(t, u)
     return alpha * lo - 0.5 * (np.exp(-alpha * (hi - lo)) - np.exp(-alpha * (hi + lo)))
@@ -202,8 +207,13 @@ def _heart_dt(t: np.ndarray, u: np.ndarray, alpha: float) -> np.ndarray:
     return np.where(t <= u, alpha - 0.5 * alpha * (near + far), 0.5 * alpha * (near - far))
 
 
-def wilson_function(t: np.ndarray | float, u: np.ndarray | float, *, omega: float, alpha: float) -> np.ndarray:
-    """``W(t_k, u_j)`` for ``t`` of shape ``(k,)`` and ``u`` of shape ``(n,)``: result ``(k, n)``."""
+def wilson_function(
+    t: np.ndarray | float, u: np.ndarray | float, *, omega: float, alpha: float
+) -> np.ndarray:
+    """``W(t_k, u_j)`` for ``t`` of shape ``(k,)`` and ``u`` of shape ``(n,)``; result ``(k, n)``.
+
+    ``u`` may be the kernel nodes or any dates; ``W`` is symmetric in its two arguments.
+    """
     t = np.atleast_1d(np.asarray(t, dtype=float))[:, None]
     u = np.atleast_1d(np.asarray(u, dtype=float))[None, :]
     return np.exp(-omega * (t + u)) * _heart(t, u, alpha)
@@ -237,7 +247,9 @@ class SmithWilsonCurve:
         if not self.ultimate_forward_rate > -1.0:
             raise ValueError("the ultimate forward rate must exceed -100%")
         if not self.long_end >= u[-1]:
-            raise ValueError(f"long_end {self.long_end:g} must not be shorter than the last node {u[-1]:g}")
+            raise ValueError(
+                f"long_end {self.long_end:g} must not be shorter than the last node {u[-1]:g}"
+            )
         object.__setattr__(self, "nodes", u)
         object.__setattr__(self, "weights", z)
 
@@ -259,13 +271,18 @@ class SmithWilsonCurve:
             )
         return t, t.reshape(-1)[:, None]
 
-    def _price_and_slope(self, t: np.ndarray | float) -> tuple[np.ndarray, np.ndarray, tuple[int, ...]]:
+    def _price_and_slope(
+        self, t: np.ndarray | float
+    ) -> tuple[np.ndarray, np.ndarray, tuple[int, ...]]:
         t, col = self._grid(t)
         w, a, u = self.omega, self.alpha, self.nodes[None, :]
         decay = np.exp(-w * (col + u))
         heart = _heart(col, u, a)
         price = np.exp(-w * col[:, 0]) + (decay * heart) @ self.weights
-        slope = -w * np.exp(-w * col[:, 0]) + (decay * (_heart_dt(col, u, a) - w * heart)) @ self.weights
+        slope = (
+            -w * np.exp(-w * col[:, 0])
+            + (decay * (_heart_dt(col, u, a) - w * heart)) @ self.weights
+        )
         return price, slope, t.shape
 
     def discount(self, t: np.ndarray | float) -> np.ndarray:
@@ -286,7 +303,7 @@ class SmithWilsonCurve:
         return np.where(tt > 0.0, -np.log(price) / safe, -slope / price).reshape(shape)
 
     def annual_zero_rate(self, t: np.ndarray | float) -> np.ndarray:
-        """Annually compounded zero rate ``P^{-1/t} - 1`` (the regulator's convention), ``t > 0``."""
+        """Annually compounded zero rate ``P^{-1/t} - 1`` (the regulator's convention), t > 0."""
         tt = np.asarray(t, dtype=float)
         if np.any(tt <= 0.0):
             raise ValueError("annually compounded zero rates need t > 0")
@@ -338,7 +355,9 @@ def convergence_point(last_liquid_point: float) -> float:
     return float(max(last_liquid_point + 40.0, 60.0))
 
 
-def _solve(instruments: CurveInstruments, ufr: float, alpha: float, long_end: float) -> SmithWilsonCurve:
+def _solve(
+    instruments: CurveInstruments, ufr: float, alpha: float, long_end: float
+) -> SmithWilsonCurve:
     omega = float(np.log1p(ufr))
     u, c, m = instruments.cash_flow_times, instruments.cash_flows, instruments.market_values
     kernel = wilson_function(u, u, omega=omega, alpha=alpha)
@@ -351,11 +370,17 @@ def _solve(instruments: CurveInstruments, ufr: float, alpha: float, long_end: fl
             "the Smith-Wilson system is singular: two instruments carry the same information"
         ) from exc
     return SmithWilsonCurve(
-        ultimate_forward_rate=float(ufr), alpha=float(alpha), nodes=u, weights=c.T @ eta, long_end=long_end
+        ultimate_forward_rate=float(ufr),
+        alpha=float(alpha),
+        nodes=u,
+        weights=c.T @ eta,
+        long_end=long_end,
     )
 
 
-def _gap(instruments: CurveInstruments, ufr: float, alpha: float, t_conv: float, long_end: float) -> float:
+def _gap(
+    instruments: CurveInstruments, ufr: float, alpha: float, t_conv: float, long_end: float
+) -> float:
     curve = _solve(instruments, ufr, alpha, max(long_end, t_conv))
     return float(curve.forward(t_conv)) - curve.omega
 
@@ -428,9 +453,15 @@ def fit_smith_wilson(
     if not alpha_min > 0.0:
         raise ValueError("alpha_min must be positive")
     llp = instruments.last_liquid_point
-    t_conv = convergence_point(llp) if convergence_point_years is None else float(convergence_point_years)
+    t_conv = (
+        convergence_point(llp)
+        if convergence_point_years is None
+        else float(convergence_point_years)
+    )
     if not t_conv > llp:
-        raise ValueError(f"the convergence point {t_conv:g} must lie beyond the last liquid point {llp:g}")
+        raise ValueError(
+            f"the convergence point {t_conv:g} must lie beyond the last liquid point {llp:g}"
+        )
     if long_end < instruments.cash_flow_times[-1]:
         raise ValueError(f"long_end {long_end:g} is shorter than the last input date")
     tolerance = tolerance_bp * BASIS_POINT
@@ -481,8 +512,13 @@ def smith_wilson_from_zero_rates(
     credit_risk_adjustment_bp: float = 0.0,
     **options: Any,
 ) -> tuple[SmithWilsonCurve, SmithWilsonReport]:
-    """:func:`fit_smith_wilson` on annually compounded zero rates ``(n,)`` at maturities ``(n,)``."""
-    inst = zero_coupon_instruments(maturities, zero_rates, credit_risk_adjustment_bp=credit_risk_adjustment_bp)
+    """:func:`fit_smith_wilson` on annually compounded zero rates ``(n,)`` at maturities ``(n,)``.
+
+    ``options`` are passed on to :func:`fit_smith_wilson`.
+    """
+    inst = zero_coupon_instruments(
+        maturities, zero_rates, credit_risk_adjustment_bp=credit_risk_adjustment_bp
+    )
     return fit_smith_wilson(inst, ufr=ufr, **options)
 
 
@@ -494,8 +530,13 @@ def smith_wilson_from_par_rates(
     credit_risk_adjustment_bp: float = 0.0,
     **options: Any,
 ) -> tuple[SmithWilsonCurve, SmithWilsonReport]:
-    """:func:`fit_smith_wilson` on annual-fixed-leg par swap rates ``(n,)`` at whole-year maturities."""
-    inst = par_swap_instruments(maturities, par_rates, credit_risk_adjustment_bp=credit_risk_adjustment_bp)
+    """:func:`fit_smith_wilson` on annual-fixed-leg par swap rates ``(n,)``, whole-year maturities.
+
+    ``options`` are passed on to :func:`fit_smith_wilson`.
+    """
+    inst = par_swap_instruments(
+        maturities, par_rates, credit_risk_adjustment_bp=credit_risk_adjustment_bp
+    )
     return fit_smith_wilson(inst, ufr=ufr, **options)
 
 
@@ -505,24 +546,31 @@ def smith_wilson_from_par_rates(
 
 
 class ExtrapolationMethod(Protocol):
-    """An extrapolation method: instruments and a UFR in, a curve and a fit report out."""
+    """An extrapolation method: instruments and a UFR in, a curve and a fit report out.
 
-    def __call__(self, instruments: CurveInstruments, *, ufr: float, **options: Any) -> tuple[DiscountCurve, Any]: ...
+    Method-specific settings (for Smith-Wilson: ``alpha``, ``tolerance_bp``, ...) come as
+    keyword options; the report is the method's own frozen dataclass.
+    """
+
+    def __call__(
+        self, instruments: CurveInstruments, *, ufr: float, **options: Any
+    ) -> tuple[DiscountCurve, Any]: ...
 
 
-_METHODS: dict[str, ExtrapolationMethod] = {"smith_wilson": fit_smith_wilson}
+_FitFunction = Callable[..., tuple[DiscountCurve, Any]]
+_METHODS: dict[str, _FitFunction] = {"smith_wilson": fit_smith_wilson}
 
-EXTRAPOLATION_METHODS: Mapping[str, ExtrapolationMethod] = MappingProxyType(_METHODS)
-"""Read-only view of the registered methods, keyed by name."""
+EXTRAPOLATION_METHODS: Mapping[str, _FitFunction] = MappingProxyType(_METHODS)
+"""Read-only view of the registered methods (each an :class:`ExtrapolationMethod`), by name."""
 
 
-def register_extrapolation_method(name: str, method: ExtrapolationMethod | Callable[..., Any]) -> None:
+def register_extrapolation_method(name: str, method: ExtrapolationMethod | _FitFunction) -> None:
     """Register ``method`` under ``name``; an existing name is an error (no silent replacement)."""
     if not name or not isinstance(name, str):
         raise ValueError("an extrapolation method needs a non-empty name")
     if name in _METHODS:
         raise ValueError(f"extrapolation method {name!r} is already registered")
-    _METHODS[name] = method  # type: ignore[assignment]
+    _METHODS[name] = method
 
 
 def extrapolate_curve(

@@ -1,0 +1,285 @@
+"""Readers for market-data CSV files, each checked in full before anything is fitted.
+
+Two formats (UTF-8, comma-separated, a header row first):
+
+**Curve inputs**::
+
+    maturity_years,par_rate          (or zero_rate, or discount_factor)
+    1,0.0312
+    2,0.0298
+    ...
+
+``maturity_years`` in years (positive, strictly increasing); exactly one value column:
+``par_rate`` (annual fixed leg, decimals; whole-year maturities), ``zero_rate`` (annually
+compounded, decimals, as the regulator publishes) or ``discount_factor`` (positive). Rates are
+decimals: ``0.035`` for 3.5%, and a rate of 1 or more in absolute value is refused as a likely
+percentage.
+
+**Correlation matrix**::
+
+    driver,rates,equity
+    rates,1,-0.2
+    equity,-0.2,1
+
+The first column holds the driver names and the header row the same names in the same order.
+Entries must be numbers in ``[-1, 1]``, with a unit diagonal and symmetric within ``1e-12``.
+Positive semi-definiteness is not required here: check it with
+:func:`pqflow.market.correlation.check_correlation_matrix` or repair it with
+:func:`pqflow.market.correlation.nearest_correlation_matrix`, as the run configuration says.
+
+Every problem raises :class:`pqflow.errors.MarketDataError` naming the file, the row and the
+column. Rows are counted as **data rows, 1-based, the header excluded**; the message also gives
+the line number in the file (the header is line 1), so either count finds the cell. Blank lines
+are skipped (they do not count as data rows, but line numbers stay true).
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from dataclasses import dataclass
+from os import PathLike
+from pathlib import Path
+
+import numpy as np
+
+from pqflow.errors import MarketDataError
+from pqflow.market.smith_wilson import (
+    CurveInstruments,
+    par_swap_instruments,
+    zero_coupon_instruments,
+)
+
+__all__ = [
+    "CurveInputFile",
+    "CorrelationFile",
+    "read_curve_inputs",
+    "read_correlation_matrix",
+]
+
+MATURITY_COLUMN = "maturity_years"
+VALUE_COLUMNS = ("par_rate", "zero_rate", "discount_factor")
+_NOT_AVAILABLE = {"nan", "+nan", "-nan", "na", "n/a", "#n/a", "null", "none"}
+_WHOLE_YEAR_TOL = 1e-9
+_UNIT_TOL = 1e-12
+
+
+@dataclass(frozen=True, kw_only=True)
+class CurveInputFile:
+    """A checked curve-input file.
+
+    source: the file path as given. quantity: ``"par_rate"``, ``"zero_rate"`` (annually
+    compounded) or ``"discount_factor"``. maturities, values: ``(n,)``.
+    """
+
+    source: str
+    quantity: str
+    maturities: np.ndarray
+    values: np.ndarray
+
+    def instruments(self, *, credit_risk_adjustment_bp: float = 0.0) -> CurveInstruments:
+        """The inputs as Smith-Wilson calibration instruments (zero-coupon bonds or par swaps)."""
+        if self.quantity == "par_rate":
+            return par_swap_instruments(
+                self.maturities, self.values, credit_risk_adjustment_bp=credit_risk_adjustment_bp
+            )
+        if self.quantity == "zero_rate":
+            rates = self.values
+        else:
+            rates = self.values ** (-1.0 / self.maturities) - 1.0
+        return zero_coupon_instruments(
+            self.maturities, rates, credit_risk_adjustment_bp=credit_risk_adjustment_bp
+        )
+
+
+@dataclass(frozen=True, kw_only=True)
+class CorrelationFile:
+    """A checked correlation-matrix file: driver ``names`` ``(n,)`` and ``matrix`` ``(n, n)``."""
+
+    source: str
+    names: tuple[str, ...]
+    matrix: np.ndarray
+
+
+@dataclass(frozen=True)
+class _Row:
+    number: int  # data row, 1-based, header excluded
+    line: int  # line in the file, header = line 1
+    cells: list[str]
+
+
+def _at(path: str, row: _Row | None = None, column: str | None = None) -> str:
+    parts = [f"{path}"]
+    if row is not None:
+        parts.append(f"data row {row.number} (line {row.line})")
+    if column is not None:
+        parts.append(f"column {column!r}")
+    return ", ".join(parts)
+
+
+def _read_rows(path: str | PathLike[str]) -> tuple[str, list[str], int, list[_Row]]:
+    name = str(path)
+    p = Path(path)
+    if not p.is_file():
+        raise MarketDataError(f"{name}: market-data file not found")
+    try:
+        with p.open(newline="", encoding="utf-8-sig") as handle:
+            reader = csv.reader(handle)
+            header: list[str] | None = None
+            header_line = 0
+            rows: list[_Row] = []
+            for cells in reader:
+                if not cells or all(not c.strip() for c in cells):
+                    continue
+                cells = [c.strip() for c in cells]
+                if header is None:
+                    header, header_line = cells, reader.line_num
+                else:
+                    rows.append(_Row(number=len(rows) + 1, line=reader.line_num, cells=cells))
+    except UnicodeDecodeError as exc:
+        raise MarketDataError(f"{name}: not a UTF-8 text file ({exc.reason})") from exc
+    except csv.Error as exc:
+        raise MarketDataError(f"{name}: not a readable CSV file ({exc})") from exc
+    if header is None:
+        raise MarketDataError(f"{name}: the file is empty (a header row is expected)")
+    if not rows:
+        raise MarketDataError(f"{name}: the file has a header but no data rows")
+    for row in rows:
+        if len(row.cells) != len(header):
+            raise MarketDataError(
+                f"{_at(name, row)}: {len(row.cells)} cells but the header (line {header_line}) has "
+                f"{len(header)} columns; every row needs a value in every column"
+            )
+    return name, header, header_line, rows
+
+
+def _number(cell: str, where: str) -> float:
+    if cell == "":
+        raise MarketDataError(f"{where}: missing value (empty cell)")
+    if cell.lower() in _NOT_AVAILABLE:
+        raise MarketDataError(
+            f"{where}: value is {cell!r} (NaN / not available); a number is needed"
+        )
+    try:
+        value = float(cell)
+    except ValueError:
+        raise MarketDataError(f"{where}: {cell!r} is not a number") from None
+    if math.isnan(value):
+        raise MarketDataError(f"{where}: value is NaN; a number is needed")
+    if not math.isfinite(value):
+        raise MarketDataError(f"{where}: value {cell!r} is not finite")
+    return value
+
+
+def read_curve_inputs(path: str | PathLike[str]) -> CurveInputFile:
+    """Read and check a curve-input CSV (see the module docstring for the format)."""
+    name, header, header_line, rows = _read_rows(path)
+    seen = set()
+    for col in header:
+        if col == "":
+            raise MarketDataError(f"{name}, line {header_line}: a header cell is empty")
+        if col in seen:
+            raise MarketDataError(f"{name}, line {header_line}: column {col!r} appears twice")
+        seen.add(col)
+    if MATURITY_COLUMN not in header:
+        raise MarketDataError(
+            f"{name}, line {header_line}: no {MATURITY_COLUMN!r} column (header is {header})"
+        )
+    value_cols = [c for c in header if c in VALUE_COLUMNS]
+    unknown = [c for c in header if c != MATURITY_COLUMN and c not in VALUE_COLUMNS]
+    if unknown:
+        raise MarketDataError(
+            f"{name}, line {header_line}: unknown column {unknown[0]!r}; expected "
+            f"{MATURITY_COLUMN!r} and one of {', '.join(VALUE_COLUMNS)}"
+        )
+    if len(value_cols) != 1:
+        raise MarketDataError(
+            f"{name}, line {header_line}: exactly one value column is needed, one of "
+            f"{', '.join(VALUE_COLUMNS)}; found {value_cols or 'none'}"
+        )
+    quantity = value_cols[0]
+    i_t, i_v = header.index(MATURITY_COLUMN), header.index(quantity)
+
+    maturities = np.empty(len(rows))
+    values = np.empty(len(rows))
+    previous: float | None = None
+    for k, row in enumerate(rows):
+        where_t = _at(name, row, MATURITY_COLUMN)
+        where_v = _at(name, row, quantity)
+        t = _number(row.cells[i_t], where_t)
+        v = _number(row.cells[i_v], where_v)
+        if t <= 0.0:
+            raise MarketDataError(f"{where_t}: maturity {t:g} must be positive")
+        if previous is not None and t <= previous:
+            raise MarketDataError(
+                f"{where_t}: maturity {t:g} is not greater than the previous row's {previous:g}; "
+                "maturities must be strictly increasing"
+            )
+        if quantity == "par_rate" and abs(t - round(t)) > _WHOLE_YEAR_TOL:
+            raise MarketDataError(
+                f"{where_t}: maturity {t:g} is not a whole number of years, which an annual "
+                "fixed leg needs"
+            )
+        if quantity == "discount_factor":
+            if v <= 0.0:
+                raise MarketDataError(f"{where_v}: discount factor {v:g} must be positive")
+        elif abs(v) >= 1.0:
+            raise MarketDataError(
+                f"{where_v}: rate {v:g} is 100% or more in size; rates are decimals "
+                "(0.035 for 3.5%)"
+            )
+        maturities[k], values[k] = t, v
+        previous = t
+    return CurveInputFile(source=name, quantity=quantity, maturities=maturities, values=values)
+
+
+def read_correlation_matrix(path: str | PathLike[str]) -> CorrelationFile:
+    """Read and check a correlation-matrix CSV (see the module docstring for the format)."""
+    name, header, header_line, rows = _read_rows(path)
+    names = header[1:]
+    if not names:
+        raise MarketDataError(f"{name}, line {header_line}: the header names no drivers")
+    seen: set[str] = set()
+    for j, driver in enumerate(names):
+        if driver == "":
+            raise MarketDataError(
+                f"{name}, line {header_line}: the name of column {j + 2} is empty"
+            )
+        if driver in seen:
+            raise MarketDataError(
+                f"{name}, line {header_line}: driver {driver!r} appears twice in the header"
+            )
+        seen.add(driver)
+    n = len(names)
+    if len(rows) != n:
+        raise MarketDataError(
+            f"{name}: {len(rows)} data rows but the header names {n} drivers; "
+            "the matrix must be square"
+        )
+    label = header[0] or "first column"
+    matrix = np.empty((n, n))
+    for i, row in enumerate(rows):
+        if row.cells[0] != names[i]:
+            raise MarketDataError(
+                f"{_at(name, row, label)}: driver {row.cells[0]!r} where the header order needs "
+                f"{names[i]!r}; rows and columns must list the drivers in the same order"
+            )
+        for j in range(n):
+            where = _at(name, row, names[j])
+            value = _number(row.cells[j + 1], where)
+            if abs(value) > 1.0:
+                raise MarketDataError(f"{where}: correlation {value:g} is outside [-1, 1]")
+            if i == j and abs(value - 1.0) > _UNIT_TOL:
+                raise MarketDataError(
+                    f"{where}: a driver's correlation with itself must be 1, not {value:g}"
+                )
+            matrix[i, j] = value
+    for i in range(n):
+        for j in range(i):
+            if abs(matrix[i, j] - matrix[j, i]) > _UNIT_TOL:
+                raise MarketDataError(
+                    f"{_at(name, rows[i], names[j])}: {matrix[i, j]:.12g} differs from its mirror "
+                    f"at {_at(name, rows[j], names[i]).split(', ', 1)[1]} ({matrix[j, i]:.12g}); "
+                    "the matrix must be symmetric"
+                )
+    return CorrelationFile(source=name, names=tuple(names), matrix=matrix)
