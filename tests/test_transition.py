@@ -129,7 +129,7 @@ def _exact_mean(t0: float, t1: float, state: np.ndarray, *, real_world: bool) ->
 @pytest.mark.parametrize("dt", [1.0 / 12.0, 1.0, 5.0])
 @pytest.mark.parametrize("rho", [RHO, 0.5])
 def test_step_covariance_matches_quad(dt: float, rho: float) -> None:
-    got = _model(rho).step_covariance(dt)
+    got = _model(rho).step_covariance(0.0, dt)
     assert np.allclose(got, _exact_cov(dt, rho), rtol=1e-10, atol=0.0)  # Ito isometry + quad
 
 

@@ -3,6 +3,7 @@
     PqflowError                      base: catch this to catch them all
     ├── ConfigError                  a run configuration is invalid (names the file and the key)
     ├── MarketDataError              a market-data input is invalid (names the file, row, column)
+    │   └── CalibrationError         the model cannot fit the quotes as given
     ├── MeasureError                 the real-world and market-consistent measures are not
     │                                equivalent, so no density weights exist
     ├── RunDirectoryError            an output directory is in the way, locked or not a run
@@ -15,6 +16,7 @@ __all__ = [
     "PqflowError",
     "ConfigError",
     "MarketDataError",
+    "CalibrationError",
     "MeasureError",
     "RunDirectoryError",
     "IntegrityError",
@@ -31,6 +33,10 @@ class ConfigError(PqflowError):
 
 class MarketDataError(PqflowError):
     """A market-data input is invalid."""
+
+
+class CalibrationError(MarketDataError):
+    """The model cannot fit the market quotes (e.g. a quote below the rates' own variance)."""
 
 
 class MeasureError(PqflowError):

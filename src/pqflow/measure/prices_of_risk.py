@@ -21,22 +21,33 @@ import numpy as np
 
 from pqflow.market.curve import DiscountCurve
 from pqflow.models.hull_white import HullWhiteParams, alpha, b_factor
+from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
 
 __all__ = [
     "PricesOfRisk",
     "rates_price_of_risk_for_target",
     "equity_price_of_risk",
     "expected_short_rate",
+    "real_world_factor_mean",
 ]
 
 
 @dataclass(frozen=True, kw_only=True)
 class PricesOfRisk:
-    """Constant market prices of risk, per square-root year, one per correlated driver:
-    ``rates`` on the short-rate shock ``W``, ``equity`` on the equity shock ``Z``."""
+    """Market prices of risk per square-root year, deterministic (a number, or piecewise
+    constant in time), one per correlated driver: ``rates`` on the short-rate shock ``W``,
+    ``equity`` on the equity shock ``Z``."""
 
-    rates: float
-    equity: float
+    rates: float | PiecewiseConstant
+    equity: float | PiecewiseConstant
+
+    @property
+    def rates_schedule(self) -> PiecewiseConstant:
+        return as_schedule(self.rates)
+
+    @property
+    def equity_schedule(self) -> PiecewiseConstant:
+        return as_schedule(self.equity)
 
 
 def rates_price_of_risk_for_target(
@@ -59,6 +70,22 @@ def equity_price_of_risk(equity_risk_premium: float, volatility: float) -> float
     return equity_risk_premium / volatility
 
 
+def real_world_factor_mean(
+    params: HullWhiteParams, rates_price_of_risk: PiecewiseConstant, t: np.ndarray | float
+) -> np.ndarray:
+    """``E_P[x_t] = sigma int_0^t lambda_r(s) e^{-a (t - s)} ds`` (``x_0 = 0``), any shape of ``t``."""
+    a, s = params.mean_reversion, params.volatility
+    t_arr = np.atleast_1d(np.asarray(t, dtype=float))
+    out = np.empty(t_arr.shape)
+    for i, ti in np.ndenumerate(t_arr):
+        total = 0.0
+        if ti > 0.0:
+            for u0, u1, (lam,) in segments(0.0, float(ti), rates_price_of_risk):
+                total += lam * float(b_factor(a, ti - u0) - b_factor(a, ti - u1))
+        out[i] = s * total
+    return out.reshape(np.shape(t))
+
+
 def expected_short_rate(
     curve: DiscountCurve,
     params: HullWhiteParams,
@@ -72,5 +99,5 @@ def expected_short_rate(
     if measure == "market_consistent":
         return base
     if measure == "real_world":
-        return base + params.volatility * prices_of_risk.rates * b_factor(params.mean_reversion, t)
+        return base + real_world_factor_mean(params, prices_of_risk.rates_schedule, t)
     raise ValueError(f"unknown measure {measure!r}")

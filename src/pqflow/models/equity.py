@@ -20,6 +20,7 @@ from scipy.stats import norm
 
 from pqflow.market.curve import DiscountCurve
 from pqflow.models.hull_white import HullWhiteParams, integrated_variance, phi2
+from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
 
 __all__ = ["EquityParams", "equity_total_variance", "equity_option_price"]
 
@@ -27,32 +28,41 @@ __all__ = ["EquityParams", "equity_total_variance", "equity_option_price"]
 @dataclass(frozen=True, kw_only=True)
 class EquityParams:
     """One total-return index: ``level`` at time 0, ``dividend_yield`` q (continuous),
-    ``volatility`` sigma_S and ``correlation`` rho with the short-rate shocks."""
+    ``volatility`` sigma_S (a number, or piecewise constant in time) and ``correlation`` rho
+    with the short-rate shocks."""
 
     name: str
     level: float
     dividend_yield: float
-    volatility: float
+    volatility: float | PiecewiseConstant
     correlation: float
 
     def __post_init__(self) -> None:
         if not self.level > 0.0:
             raise ValueError("equity level must be positive")
-        if not self.volatility > 0.0:
+        if not all(v > 0.0 for v in self.vol_schedule.values):
             raise ValueError("equity volatility must be positive")
         if not -1.0 < self.correlation < 1.0:
             raise ValueError("equity-rate correlation must lie strictly inside (-1, 1)")
 
+    @property
+    def vol_schedule(self) -> PiecewiseConstant:
+        return as_schedule(self.volatility)
+
 
 def equity_total_variance(rates: HullWhiteParams, equity: EquityParams, expiry: float) -> float:
-    """Variance of ``ln(S_T / P(T, T))`` under the T-forward measure:
-    ``sigma_S^2 T + 2 rho sigma_S sigma (T - B(T)) / a + V(T)``."""
-    s, e = rates.volatility, equity.volatility
-    return float(
-        e**2 * expiry
-        + 2.0 * equity.correlation * e * s * phi2(rates.mean_reversion, expiry)
-        + integrated_variance(rates, expiry)
-    )
+    """Variance of ``ln(S_T / P(T, T))`` under the T-forward measure,
+
+        int_0^T [sigma_S(u)^2 + 2 rho sigma_S(u) sigma B(T - u)] du + V(T),
+
+    which for constant sigma_S is ``sigma_S^2 T + 2 rho sigma_S sigma (T - B(T)) / a + V(T)``
+    (``int_u0^u1 B(T - u) du = phi2(T - u0) - phi2(T - u1)``)."""
+    a, s, rho = rates.mean_reversion, rates.volatility, equity.correlation
+    total = float(integrated_variance(rates, expiry))
+    for u0, u1, (vol,) in segments(0.0, expiry, equity.vol_schedule):
+        total += vol**2 * (u1 - u0)
+        total += 2.0 * rho * vol * s * float(phi2(a, expiry - u0) - phi2(a, expiry - u1))
+    return total
 
 
 def equity_option_price(

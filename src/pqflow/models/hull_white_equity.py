@@ -16,7 +16,8 @@ with ``int alpha = ln P(0,t0)/P(0,t1) + (V(t1) - V(t0))/2`` and the jointly Gaus
 
 Under the real-world measure the noises gain the means
 ``(sigma l_r B(D), sigma l_r (D - B(D))/a, ... + sigma_S l_S D)``: the integrals of each kernel
-against the constant prices of risk ``l_r`` (rates) and ``l_S`` (equity).
+against the prices of risk ``l_r`` (rates) and ``l_S`` (equity). Equity volatility and prices of
+risk may be piecewise constant in time; each step then integrates over the pieces it covers.
 """
 
 from __future__ import annotations
@@ -38,6 +39,7 @@ from pqflow.models.hull_white import (
     phi2,
     zcb_price,
 )
+from pqflow.models.schedule import segments
 
 __all__ = ["HullWhiteEquityModel", "bond_column", "equity_column"]
 
@@ -69,17 +71,24 @@ class HullWhiteEquityModel:
     def initial_state(self) -> np.ndarray:
         return np.array([0.0, 0.0, np.log(self.equity.level)])
 
-    def step_covariance(self, dt: float) -> np.ndarray:
-        """Covariance of ``(e1, e2, e2 + e3)``, the noise of ``(x, I, L)``, shape ``(3, 3)``."""
+    def step_covariance(self, t0: float, t1: float) -> np.ndarray:
+        """Covariance of ``(e1, e2, e2 + e3)``, the noise of ``(x, I, L)`` over ``[t0, t1]``,
+        shape ``(3, 3)``; the equity terms integrate a piecewise-constant ``sigma_S`` over the
+        pieces of the step: ``Cov(e1, e3) = rho sigma sum sigma_S,j [B(t1-u0) - B(t1-u1)]``,
+        ``Cov(e2, e3) = rho sigma sum sigma_S,j [phi2(t1-u0) - phi2(t1-u1)]``,
+        ``Var e3 = sum sigma_S,j^2 (u1 - u0)``."""
         a, s = self.rates.mean_reversion, self.rates.volatility
-        se, rho = self.equity.volatility, self.equity.correlation
+        rho = self.equity.correlation
+        dt = t1 - t0
         b = float(b_factor(a, dt))
         v11 = s**2 * float(b_factor(2.0 * a, dt))
         v12 = 0.5 * s**2 * b**2
         v22 = float(integrated_variance(self.rates, dt))
-        c13 = rho * s * se * b
-        c23 = rho * s * se * float(phi2(a, dt))
-        v33 = se**2 * dt
+        c13 = c23 = v33 = 0.0
+        for u0, u1, (vol,) in segments(t0, t1, self.equity.vol_schedule):
+            c13 += rho * s * vol * float(b_factor(a, t1 - u0) - b_factor(a, t1 - u1))
+            c23 += rho * s * vol * float(phi2(a, t1 - u0) - phi2(a, t1 - u1))
+            v33 += vol**2 * (u1 - u0)
         return np.array(
             [
                 [v11, v12, v12 + c13],
@@ -99,12 +108,20 @@ class HullWhiteEquityModel:
             + 0.5 * (integrated_variance(self.rates, t1) - integrated_variance(self.rates, t0))
         )
         transition = np.array([[np.exp(-a * dt), 0.0, 0.0], [b, 1.0, 0.0], [b, 0.0, 1.0]])
-        drift = np.array([0.0, 0.0, int_alpha - 0.5 * self.equity.volatility**2 * dt])
-        lam_r, lam_s = self.prices_of_risk.rates, self.prices_of_risk.equity
-        shift_x = s * lam_r * b
-        shift_i = s * lam_r * float(phi2(a, dt))
-        shift = np.array([shift_x, shift_i, shift_i + self.equity.volatility * lam_s * dt])
-        chol = np.linalg.cholesky(self.step_covariance(dt))
+        half_var = 0.0
+        shift_x = shift_i = shift_e = 0.0
+        pieces = segments(
+            t0, t1, self.equity.vol_schedule, self.prices_of_risk.rates_schedule,
+            self.prices_of_risk.equity_schedule,
+        )
+        for u0, u1, (vol, lam_r, lam_s) in pieces:
+            half_var += 0.5 * vol**2 * (u1 - u0)
+            shift_x += s * lam_r * float(b_factor(a, t1 - u0) - b_factor(a, t1 - u1))
+            shift_i += s * lam_r * float(phi2(a, t1 - u0) - phi2(a, t1 - u1))
+            shift_e += vol * lam_s * (u1 - u0)
+        drift = np.array([0.0, 0.0, int_alpha - half_var])
+        shift = np.array([shift_x, shift_i, shift_i + shift_e])
+        chol = np.linalg.cholesky(self.step_covariance(t0, t1))
         return StepLaw(transition=transition, drift=drift, chol=chol, real_world_shift=shift)
 
     def columns(self, times: np.ndarray, states: np.ndarray) -> dict[str, np.ndarray]:
