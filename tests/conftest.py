@@ -11,11 +11,12 @@ import pytest
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "scenario_configs" / "demo.toml"
+DEMO_TYPED = REPO / "scenario_configs" / "demo_typed.toml"
 
 
 @pytest.fixture(scope="session")
 def demo_config_dict() -> dict[str, Any]:
-    with open(DEMO, "rb") as fh:
+    with open(DEMO_TYPED, "rb") as fh:
         return tomllib.load(fh)
 
 

@@ -139,6 +139,63 @@ def check(config: Annotated[Path, typer.Argument(help="Run configuration (TOML).
 
 
 @app.command()
+def calibrate(
+    config: Annotated[Path, typer.Argument(help="Run configuration (TOML) naming the market-data files.")],
+    out: Annotated[Path, typer.Option("--out", help="calibration.json to write.")],
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an existing file.")] = False,
+) -> None:
+    """Fit the one shared calibration (curve, Hull-White, equity volatility, prices of risk) and
+    write it with its fit report, without simulating."""
+    from pqflow.calibration.assemble import assemble_calibration
+    from pqflow.config.loader import load_config
+    from pqflow.storage.jsonio import write_json_atomic
+
+    if out.exists() and not overwrite:
+        _fail(PqflowError(f"{out} exists; pass --overwrite to replace it"))
+    try:
+        cal = assemble_calibration(load_config(config))
+    except PqflowError as exc:
+        _fail(exc)
+    payload = cal.to_json()
+    write_json_atomic(out, payload)
+    _print_fit(payload)
+    console.print(f"calibration written to {out}", style="green")
+    _caution()
+
+
+def _print_fit(payload: dict[str, Any]) -> None:
+    fit, par = payload.get("fit", {}), payload["parameters"]
+    hw = par["hull_white"]
+    console.print(
+        f"Hull-White: a = {hw['mean_reversion']:.5f}, sigma = {hw['volatility']:.5f}"
+        + (f"  (swaption fit RMSE {fit['hull_white']['rmse_bp']:.2f} bp)" if "rmse_bp" in fit.get("hull_white", {}) else ""),
+        highlight=False,
+    )
+    curve = fit.get("curve", {})
+    if "alpha" in curve:
+        console.print(
+            f"Smith-Wilson: alpha = {curve['alpha']:.6f} (floor {curve['alpha_floor']:g}), forward at the "
+            f"convergence point {curve['convergence_point']:g}y = {curve['forward_at_convergence']:.6f} "
+            f"vs omega {curve['omega']:.6f} ({curve['gap_to_omega_bp']:+.3f} bp)",
+            highlight=False,
+        )
+    eq = fit.get("equity", {})
+    if "bucket_volatilities" in eq:
+        buckets = ", ".join(f"{v:.4f}" for v in eq["bucket_volatilities"])
+        console.print(f"equity volatility by bucket (ends {eq['bucket_ends']}): {buckets}", highlight=False)
+    corr = fit.get("correlation", {})
+    if corr.get("repaired"):
+        console.print(f"correlation matrix repaired (Higham 2002), Frobenius distance {corr['frobenius_distance']:.4g}", style="yellow")
+    if rows := fit.get("hull_white", {}).get("rows"):
+        table = Table(title="Swaption fit (normal vols in bp)")
+        for col in ("expiry", "tenor", "market", "model", "diff bp"):
+            table.add_column(col, justify="right")
+        for r in rows:
+            table.add_row(f"{r['expiry']:g}", f"{r['tenor']:g}", f"{r['market_vol']:.1f}", f"{r['model_vol']:.1f}", f"{r['vol_difference_bp']:+.2f}")
+        console.print(table)
+
+
+@app.command()
 def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")]) -> None:
     """Check every file of a run against its manifest (sizes and sha256)."""
     from pqflow.storage.manifest import verify_run

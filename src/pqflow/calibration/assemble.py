@@ -1,66 +1,132 @@
-"""One shared calibration, assembled from the run configuration.
+"""One shared calibration, from typed-in parameters or the quarter's market-data files.
 
-The volatility parameters are shared by both measures; the real-world set differs only in drift,
-through the market prices of risk. A configuration whose real-world volatilities differ from the
-market-consistent ones describes two singular measures: no density exists, and we refuse.
+Each quantity has one source (the configuration's schema makes sure): the curve is typed in as
+pillars or fitted from par/zero rates with Smith-Wilson extrapolation; Hull-White ``(a, sigma)``
+is typed in or fitted to swaptions (Jamshidian); the equity volatility is typed in or
+bootstrapped bucket by bucket from implied volatilities under Hull-White rates; the correlation
+is typed in or read from a checked (optionally Higham-repaired) matrix. The volatility
+parameters are shared by both measures; the real-world set differs only in drift, through the
+market prices of risk derived from the house view. A configuration whose real-world
+volatilities differ from the market-consistent ones describes two singular measures: no density
+exists, and we refuse.
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
 from pqflow import __version__
+from pqflow.calibration.equity_vol import EquityVolQuote, calibrate_equity_volatility
+from pqflow.calibration.swaptions import SwaptionQuote, calibrate_hull_white_to_swaptions
 from pqflow.config.schema import RunConfig
-from pqflow.errors import MeasureError
-from pqflow.market.curve import LogDiscountCurve
+from pqflow.errors import CalibrationError, ConfigError, MarketDataError, MeasureError
+from pqflow.market.correlation import check_correlation_matrix, nearest_correlation_matrix
+from pqflow.market.curve import DiscountCurve, LogDiscountCurve
+from pqflow.market.data_files import (
+    read_correlation_matrix,
+    read_curve_inputs,
+    read_equity_indices,
+    read_equity_vols,
+    read_swaption_quotes,
+)
+from pqflow.market.serialize import curve_from_json, curve_to_json
+from pqflow.market.smith_wilson import fit_smith_wilson
+from pqflow.measure.house_view import (
+    model_target_value,
+    rates_price_of_risk_for_path,
+    target_path,
+    today_value,
+)
 from pqflow.measure.prices_of_risk import (
     PricesOfRisk,
-    equity_price_of_risk,
     expected_short_rate,
     rates_price_of_risk_for_target,
+    real_world_factor_mean,
 )
 from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.hull_white_equity import HullWhiteEquityModel
+from pqflow.models.schedule import PiecewiseConstant, as_schedule
+from pqflow.storage.jsonio import read_json
+from pqflow.storage.parquet import file_sha256
 
-__all__ = ["Calibration", "assemble_calibration", "build_model", "load_calibration"]
+__all__ = ["Calibration", "assemble_calibration", "build_model", "load_calibration", "RATES_DRIVER"]
 
 _REL_TOL = 1e-12
+#: Name of the short-rate driver in a correlation-matrix file.
+RATES_DRIVER = "rates"
+
+
+def _schedule_json(value: float | PiecewiseConstant) -> float | dict[str, list[float]]:
+    return value.to_json() if isinstance(value, PiecewiseConstant) else float(value)
 
 
 @dataclass(frozen=True, kw_only=True)
 class Calibration:
-    """Every parameter both scenario sets use, with the inputs they came from."""
+    """Every parameter both scenario sets use, with the inputs they came from and how well
+    they fit. ``real_world_view`` describes the rate target (for the expected-path report)."""
 
     valuation_date: str
-    curve: LogDiscountCurve
+    curve: DiscountCurve
     rates: HullWhiteParams
     equity: EquityParams
     prices_of_risk: PricesOfRisk
     inputs: dict[str, Any]
     inputs_hash: str
+    horizon_years: float
+    fit: dict[str, Any] = field(default_factory=dict)
+    instruments: dict[str, list[dict[str, Any]]] = field(
+        default_factory=lambda: {"swaptions": [], "equity_options": []}
+    )
+    real_world_view: dict[str, Any] = field(default_factory=dict)
+
+    def expected_paths(self) -> dict[str, Any]:
+        """Expected short rate (and the house-view target) under both measures, yearly."""
+        top = min(self.horizon_years, self.curve.max_maturity)
+        times = np.arange(0.0, np.floor(top) + 1.0)
+        if times[-1] < top:
+            times = np.append(times, top)
+        out: dict[str, Any] = {
+            "time": times.tolist(),
+            "market_consistent": expected_short_rate(
+                self.curve, self.rates, self.prices_of_risk, times, measure="market_consistent"
+            ).tolist(),
+            "real_world": expected_short_rate(
+                self.curve, self.rates, self.prices_of_risk, times, measure="real_world"
+            ).tolist(),
+        }
+        view = self.real_world_view
+        if view.get("kind") == "path":
+            target, maturity = view["target"], view.get("target_maturity")
+            top_t = times if target == "short_rate" else times[times + maturity <= self.curve.max_maturity]
+            mean_p = real_world_factor_mean(self.rates, self.prices_of_risk.rates_schedule, top_t)
+            out["target"] = {
+                "quantity": target if target == "short_rate" else f"zero yield, {maturity:g} years (continuous)",
+                "time": top_t.tolist(),
+                "house_view": target_path(view["start"], view["long_run_level"], view["speed"], top_t).tolist(),
+                "real_world": model_target_value(self.curve, self.rates, top_t, mean_p, target=target, maturity=maturity).tolist(),
+                "market_consistent": model_target_value(
+                    self.curve, self.rates, top_t, np.zeros_like(top_t), target=target, maturity=maturity
+                ).tolist(),
+            }
+        return out
 
     def to_json(self) -> dict[str, Any]:
         """The content of ``calibration.json``."""
-        horizon = [1.0, 5.0, 10.0, 20.0, 30.0]
-        horizon = [t for t in horizon if t <= self.curve.max_maturity]
         return {
             "pqflow_version": __version__,
             "valuation_date": self.valuation_date,
+            "horizon_years": self.horizon_years,
             "inputs_sha256": self.inputs_hash,
             "inputs": self.inputs,
             "parameters": {
-                "curve": {
-                    "interpolation": "monotone cubic (PCHIP) on -ln P(0,t), node (0, 0)",
-                    "maturities": self.curve.maturities.tolist(),
-                    "discount_factors": self.curve.discount_factors.tolist(),
-                },
+                "curve": curve_to_json(self.curve),
                 "hull_white": {
                     "mean_reversion": self.rates.mean_reversion,
                     "volatility": self.rates.volatility,
@@ -69,44 +135,33 @@ class Calibration:
                     "name": self.equity.name,
                     "level": self.equity.level,
                     "dividend_yield": self.equity.dividend_yield,
-                    "volatility": self.equity.volatility,
+                    "volatility": _schedule_json(self.equity.volatility),
                     "correlation_with_rates": self.equity.correlation,
                 },
                 "market_prices_of_risk": {
-                    "rates": self.prices_of_risk.rates,
-                    "equity": self.prices_of_risk.equity,
-                    "note": "constant in time; W^Q = W^P + lambda t on each correlated driver",
+                    "rates": _schedule_json(self.prices_of_risk.rates),
+                    "equity": _schedule_json(self.prices_of_risk.equity),
+                    "note": "deterministic; W^Q = W^P + int lambda dt on each correlated driver; "
+                    "a schedule is {knots, values}: value i holds from knot i to knot i+1",
                 },
+                "real_world_view": self.real_world_view,
             },
-            "expected_short_rate": {
-                "time": horizon,
-                "market_consistent": expected_short_rate(
-                    self.curve, self.rates, self.prices_of_risk, np.array(horizon),
-                    measure="market_consistent",
-                ).tolist(),
-                "real_world": expected_short_rate(
-                    self.curve, self.rates, self.prices_of_risk, np.array(horizon),
-                    measure="real_world",
-                ).tolist(),
-            },
+            "fit": self.fit,
+            "instruments": self.instruments,
+            "expected_short_rate": self.expected_paths(),
         }
 
 
 def load_calibration(path: str | Path) -> Calibration:
     """Read a stored ``calibration.json`` back into a :class:`Calibration` (no refitting)."""
-    from pqflow.errors import ConfigError
-    from pqflow.storage.jsonio import read_json
-
     path = Path(path)
     try:
         data = read_json(path)
         par = data["parameters"]
-        cal = Calibration(
+        return Calibration(
             valuation_date=data["valuation_date"],
-            curve=LogDiscountCurve(
-                maturities=np.array(par["curve"]["maturities"], dtype=float),
-                discount_factors=np.array(par["curve"]["discount_factors"], dtype=float),
-            ),
+            horizon_years=float(data["horizon_years"]),
+            curve=curve_from_json(par["curve"]),
             rates=HullWhiteParams(
                 mean_reversion=par["hull_white"]["mean_reversion"],
                 volatility=par["hull_white"]["volatility"],
@@ -115,33 +170,72 @@ def load_calibration(path: str | Path) -> Calibration:
                 name=par["equity"]["name"],
                 level=par["equity"]["level"],
                 dividend_yield=par["equity"]["dividend_yield"],
-                volatility=par["equity"]["volatility"],
+                volatility=_load_schedule(par["equity"]["volatility"]),
                 correlation=par["equity"]["correlation_with_rates"],
             ),
             prices_of_risk=PricesOfRisk(
-                rates=par["market_prices_of_risk"]["rates"],
-                equity=par["market_prices_of_risk"]["equity"],
+                rates=_load_schedule(par["market_prices_of_risk"]["rates"]),
+                equity=_load_schedule(par["market_prices_of_risk"]["equity"]),
             ),
             inputs=data["inputs"],
             inputs_hash=data["inputs_sha256"],
+            fit=data.get("fit", {}),
+            instruments=data.get("instruments", {"swaptions": [], "equity_options": []}),
+            real_world_view=par.get("real_world_view", {}),
         )
     except FileNotFoundError:
         raise ConfigError(f"{path}: calibration file not found") from None
-    except (KeyError, TypeError, ValueError) as exc:
+    except (KeyError, TypeError, ValueError, json.JSONDecodeError) as exc:
         raise ConfigError(f"{path}: not a pqflow calibration file ({exc!r})") from None
-    return cal
+
+
+def _load_schedule(data: Any) -> float | PiecewiseConstant:
+    return float(data) if isinstance(data, (int, float)) else PiecewiseConstant.from_json(data)
+
+
+def check_calibration_fits(calibration: Calibration, config: RunConfig, *, source: str) -> None:
+    """A stored calibration must cover the run: same equity index, a curve long enough."""
+    if calibration.equity.name != config.equity.name:
+        raise ConfigError(
+            f"{source}: calibration is for equity index {calibration.equity.name!r} but the "
+            f"configuration names {config.equity.name!r}"
+        )
+    need = config.simulation.horizon_years + max(config.outputs.bond_maturities)
+    if need > calibration.curve.max_maturity + 1e-9:
+        raise ConfigError(
+            f"{source}: the calibrated curve ends at {calibration.curve.max_maturity:g} years but the "
+            f"run needs {need:g} (horizon plus longest bond)"
+        )
+    if calibration.valuation_date != config.run.valuation_date.isoformat():
+        raise ConfigError(
+            f"{source}: calibration valuation date {calibration.valuation_date} differs from "
+            f"run.valuation_date {config.run.valuation_date}"
+        )
+
+
+# --------------------------------------------------------------------------------------------
+# Fitting steps
+# --------------------------------------------------------------------------------------------
 
 
 def _check_equivalence(config: RunConfig) -> None:
     rw = config.real_world
     pairs = [
         ("real_world.rates_volatility", rw.rates_volatility, "hull_white.volatility",
-         config.hull_white.volatility),
+         config.hull_white.volatility if config.hull_white else None),
         ("real_world.equity_volatility", rw.equity_volatility, "equity.volatility",
          config.equity.volatility),
     ]
     for rw_key, rw_val, q_key, q_val in pairs:
-        if rw_val is not None and abs(rw_val - q_val) > _REL_TOL * max(abs(q_val), 1.0):
+        if rw_val is None:
+            continue
+        if q_val is None:
+            raise MeasureError(
+                f"{rw_key} is given but {q_key} is fitted to market quotes, and may be piecewise in "
+                "time: real-world volatilities are the market-consistent ones (Girsanov changes "
+                f"drifts only). Remove {rw_key}."
+            )
+        if abs(rw_val - q_val) > _REL_TOL * max(abs(q_val), 1.0):
             raise MeasureError(
                 f"{rw_key} = {rw_val:g} differs from {q_key} = {q_val:g}. Measures with different "
                 "volatilities are singular (Girsanov changes drifts only), so no density of one "
@@ -150,57 +244,291 @@ def _check_equivalence(config: RunConfig) -> None:
             )
 
 
-def assemble_calibration(config: RunConfig) -> Calibration:
-    """Check and assemble the parameters of a run from its configuration."""
-    _check_equivalence(config)
-    c = config.curve
-    if c.kind == "zero_rates":
-        curve = LogDiscountCurve.from_zero_rates(
-            np.array(c.maturities), np.array(c.values), compounding=c.compounding
-        )
-    else:
-        curve = LogDiscountCurve(
-            maturities=np.array(c.maturities), discount_factors=np.array(c.values)
-        )
-    rates = HullWhiteParams(
-        mean_reversion=config.hull_white.mean_reversion, volatility=config.hull_white.volatility
+def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
+    if config.curve is not None:
+        c = config.curve
+        if c.kind == "zero_rates":
+            curve = LogDiscountCurve.from_zero_rates(np.array(c.maturities), np.array(c.values), compounding=c.compounding)
+        else:
+            curve = LogDiscountCurve(maturities=np.array(c.maturities), discount_factors=np.array(c.values))
+        return curve, {"method": "typed-in pillars, monotone cubic on -ln P(0,t)"}
+    ext = config.curve_extrapolation
+    path = config.market_file("curve")
+    assert ext is not None and path is not None
+    data = read_curve_inputs(path)
+    llp = ext.last_liquid_point if ext.last_liquid_point is not None else float(data.maturities[-1])
+    keep = data.maturities <= llp + 1e-9
+    if not keep.any():
+        raise MarketDataError(f"{path}: no input maturity at or below the last liquid point {llp:g}")
+    dropped = data.maturities[~keep].tolist()
+    liquid = type(data)(source=data.source, quantity=data.quantity, maturities=data.maturities[keep], values=data.values[keep])
+    instruments = liquid.instruments(credit_risk_adjustment_bp=ext.credit_risk_adjustment_bp)
+    curve, report = fit_smith_wilson(
+        instruments,
+        ufr=ext.ultimate_forward_rate,
+        alpha_min=ext.alpha_floor,
+        tolerance_bp=ext.convergence_tolerance_bp,
+        convergence_point_years=ext.convergence_point_years,
+        long_end=ext.long_end_years,
     )
-    e = config.equity
-    equity = EquityParams(
-        name=e.name,
-        level=e.level,
-        dividend_yield=e.dividend_yield,
-        volatility=e.volatility,
-        correlation=e.correlation_with_rates,
-    )
-    rw = config.real_world
-    if rw.rates_market_price_of_risk is not None:
-        lam_r = rw.rates_market_price_of_risk
-    else:
-        assert rw.target_short_rate is not None
-        lam_r = rates_price_of_risk_for_target(
-            curve,
-            rates,
-            target_short_rate=rw.target_short_rate,
-            target_time=rw.target_year or config.simulation.horizon_years,
+    if not report.converged:
+        raise CalibrationError(
+            f"{path}: Smith-Wilson did not reach the UFR within {report.tolerance_bp:g} bp at the "
+            f"convergence point {report.convergence_point:g} (gap {report.gap_bp:.3f} bp)"
         )
-    lam_s = equity_price_of_risk(rw.equity_risk_premium, e.volatility)
-    inputs = {
-        "curve": c.model_dump(mode="json"),
-        "hull_white": config.hull_white.model_dump(mode="json"),
-        "equity": e.model_dump(mode="json"),
-        "real_world": rw.model_dump(mode="json"),
-        "simulation_horizon_years": config.simulation.horizon_years,
+    fit = {
+        "method": "Smith-Wilson (EIOPA technical documentation of the risk-free rate term structure)",
+        "input_kind": report.input_kind,
+        "inputs_used": int(keep.sum()),
+        "inputs_beyond_llp_ignored": dropped,
+        "ufr": report.ufr,
+        "omega": report.omega,
+        "last_liquid_point": report.llp,
+        "alpha": report.alpha,
+        "alpha_floor": report.alpha_min,
+        "alpha_searched": report.alpha_searched,
+        "convergence_point": report.convergence_point,
+        "forward_at_convergence": report.forward_at_convergence,
+        "gap_to_omega_bp": report.gap_bp,
+        "tolerance_bp": report.tolerance_bp,
+        "credit_risk_adjustment_bp": report.credit_risk_adjustment_bp,
+        "max_repricing_error": report.max_repricing_error,
     }
+    return curve, fit
+
+
+def _correlation(config: RunConfig) -> tuple[float, dict[str, Any]]:
+    if config.equity.correlation_with_rates is not None:
+        return config.equity.correlation_with_rates, {"method": "typed in"}
+    path = config.market_file("correlations")
+    assert path is not None
+    data = read_correlation_matrix(path)
+    for needed in (RATES_DRIVER, config.equity.name):
+        if needed not in data.names:
+            raise MarketDataError(
+                f"{path}: driver {needed!r} is not in the matrix (drivers: {', '.join(data.names)}); "
+                f"name the short-rate driver {RATES_DRIVER!r} and the equity index by its name"
+            )
+    matrix = data.matrix
+    fit: dict[str, Any] = {"method": "from file", "drivers": list(data.names), "repaired": False}
+    try:
+        check_correlation_matrix(matrix, names=data.names)
+    except MarketDataError as exc:
+        if config.calibration.correlation_repair != "higham":
+            raise MarketDataError(
+                f"{path}: {exc}. Set calibration.correlation_repair = \"higham\" to use the nearest "
+                "correlation matrix instead (Higham 2002), or correct the file."
+            ) from None
+        repair = nearest_correlation_matrix(matrix)
+        matrix = repair.matrix
+        fit.update(
+            repaired=True,
+            method="nearest correlation matrix (Higham 2002, alternating projections with Dykstra's correction)",
+            input_matrix=data.matrix.tolist(),
+            repaired_matrix=matrix.tolist(),
+            frobenius_distance=repair.distance,
+        )
+    i, j = data.names.index(RATES_DRIVER), data.names.index(config.equity.name)
+    rho = float(matrix[i, j])
+    if abs(rho) >= 1.0:
+        raise MarketDataError(f"{path}: correlation of {RATES_DRIVER!r} and {config.equity.name!r} must lie strictly inside (-1, 1)")
+    fit["correlation_with_rates"] = rho
+    return rho, fit
+
+
+def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams, dict[str, Any], list[dict[str, Any]]]:
+    if config.hull_white is not None:
+        hw = HullWhiteParams(mean_reversion=config.hull_white.mean_reversion, volatility=config.hull_white.volatility)
+        return hw, {"method": "typed in"}, []
+    path = config.market_file("swaptions")
+    assert path is not None
+    rows = read_swaption_quotes(path)
+    quotes = [SwaptionQuote(expiry=r.expiry, tenor=r.tenor, vol=r.vol, convention=r.convention, shift=r.shift, weight=r.weight) for r in rows]
+    opts = config.calibration.hull_white
+    report = calibrate_hull_white_to_swaptions(
+        curve,
+        quotes,
+        objective=opts.objective,
+        mean_reversion_bounds=opts.mean_reversion_bounds,
+        volatility_bounds=opts.volatility_bounds,
+        fix_mean_reversion=opts.fix_mean_reversion,
+    )
+    if not report.success:
+        raise CalibrationError(f"{path}: the Hull-White fit did not converge ({report.message})")
+    fit = {
+        "method": "Hull-White (a, sigma) to ATM swaptions, Jamshidian's decomposition, weighted least squares",
+        "objective": report.objective,
+        "fitted": list(report.fitted),
+        "at_bound": list(report.at_bound),
+        "rmse_bp": report.rmse_bp,
+        "price_rmse_bp": report.price_rmse_bp,
+        "rows": report.as_records(),
+    }
+    instruments = [
+        {
+            "expiry": r.expiry,
+            "tenor": r.tenor,
+            "strike": r.forward_rate,
+            "convention": r.convention,
+            "shift": r.shift,
+            "market_vol": r.market_vol / 1e4 if r.convention == "normal" else r.market_vol,
+            "market_price": r.market_price,
+            "model_price": r.model_price,
+            "weight": r.weight,
+        }
+        for r in report.rows
+    ]
+    return report.params, fit, instruments
+
+
+def _equity_spot(config: RunConfig) -> tuple[float, float]:
+    if config.equity.level is not None:
+        assert config.equity.dividend_yield is not None
+        return config.equity.level, config.equity.dividend_yield
+    path = config.market_file("equity_index")
+    assert path is not None
+    rows = read_equity_indices(path)
+    if config.equity.name not in rows:
+        raise MarketDataError(f"{path}: no row for equity index {config.equity.name!r} (has: {', '.join(rows)})")
+    row = rows[config.equity.name]
+    return row.spot_level, row.dividend_yield
+
+
+def _equity_vol(
+    config: RunConfig, curve: DiscountCurve, hw: HullWhiteParams, rho: float, level: float, q: float
+) -> tuple[float | PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
+    if config.equity.volatility is not None:
+        return config.equity.volatility, {"method": "typed in"}, []
+    path = config.market_file("equity_vols")
+    assert path is not None
+    rows = [r for r in read_equity_vols(path) if r.index == config.equity.name]
+    if not rows:
+        raise MarketDataError(f"{path}: no implied volatilities for equity index {config.equity.name!r}")
+    quotes = [EquityVolQuote(expiry=r.expiry, implied_vol=r.implied_vol, strike=r.strike) for r in rows]
+    try:
+        report = calibrate_equity_volatility(curve, hw, level=level, dividend_yield=q, correlation=rho, quotes=quotes)
+    except MarketDataError as exc:
+        raise CalibrationError(f"{path}: {exc}") from None
+    ends = np.asarray(report.bucket_ends, dtype=float)
+    vols = np.asarray(report.bucket_vols, dtype=float)
+    schedule = PiecewiseConstant(knots=(0.0, *ends[:-1].tolist()), values=tuple(vols.tolist()))
+    fit = {
+        "method": "piecewise-constant equity volatility, bootstrapped bucket by bucket to reprice each "
+        "implied volatility exactly under Hull-White rates (closed form)",
+        "bucket_ends": ends.tolist(),
+        "bucket_volatilities": vols.tolist(),
+        "max_abs_vol_error": report.max_abs_vol_error,
+        "rows": report.as_records(),
+    }
+    instruments = [
+        {
+            "index": config.equity.name,
+            "expiry": r.expiry,
+            "strike": r.strike,
+            "kind": "call",
+            "market_vol": r.market_vol,
+            "market_price": r.market_price,
+            "model_price": r.model_price,
+        }
+        for r in report.rows
+    ]
+    return schedule, fit, instruments
+
+
+def _real_world(
+    config: RunConfig, curve: DiscountCurve, hw: HullWhiteParams, vol: float | PiecewiseConstant
+) -> tuple[PricesOfRisk, dict[str, Any]]:
+    rw = config.real_world
+    horizon = config.simulation.horizon_years
+    view: dict[str, Any]
+    if rw.rates_market_price_of_risk is not None:
+        lam_r: float | PiecewiseConstant = rw.rates_market_price_of_risk
+        view = {"kind": "constant_price_of_risk", "value": lam_r}
+    elif rw.target_short_rate is not None:
+        target_time = rw.target_year or horizon
+        lam_r = rates_price_of_risk_for_target(curve, hw, target_short_rate=rw.target_short_rate, target_time=target_time)
+        view = {"kind": "short_rate_at_year", "target_short_rate": rw.target_short_rate, "target_year": target_time}
+    else:
+        assert rw.long_run_level is not None and rw.speed is not None
+        maturity = rw.target_maturity if rw.target == "zero_yield" else None
+        if maturity is not None and horizon + maturity > curve.max_maturity:
+            raise ConfigError(
+                f"real_world.target_maturity {maturity:g} plus the horizon {horizon:g} runs beyond the curve "
+                f"({curve.max_maturity:g} years)"
+            )
+        lam_r = rates_price_of_risk_for_path(
+            curve, hw, long_run_level=rw.long_run_level, speed=rw.speed, horizon=horizon,
+            target=rw.target, maturity=maturity,
+        )
+        view = {
+            "kind": "path",
+            "target": rw.target,
+            "target_maturity": maturity,
+            "start": today_value(curve, hw, target=rw.target, maturity=maturity),
+            "long_run_level": rw.long_run_level,
+            "speed": rw.speed,
+            "half_life_years": float(np.log(2.0) / rw.speed),
+        }
+    vol_schedule = as_schedule(vol)
+    lam_s: float | PiecewiseConstant
+    if vol_schedule.is_constant:
+        lam_s = rw.equity_risk_premium / vol_schedule.values[0]
+    else:
+        lam_s = PiecewiseConstant(knots=vol_schedule.knots, values=tuple(rw.equity_risk_premium / v for v in vol_schedule.values))
+    view["equity_risk_premium"] = rw.equity_risk_premium
+    return PricesOfRisk(rates=lam_r, equity=lam_s), view
+
+
+def _inputs(config: RunConfig) -> dict[str, Any]:
+    sections = ("curve", "hull_white", "equity", "real_world", "market_data", "curve_extrapolation", "calibration")
+    inputs: dict[str, Any] = {}
+    for name in sections:
+        value = getattr(config, name)
+        if value is not None:
+            inputs[name] = value.model_dump(mode="json")
+    inputs["simulation_horizon_years"] = config.simulation.horizon_years
+    files = {}
+    if config.market_data is not None:
+        for kind in ("curve", "swaptions", "equity_index", "equity_vols", "correlations"):
+            path = config.market_file(kind)
+            if path is not None:
+                if not path.is_file():
+                    raise MarketDataError(f"{path}: market-data file not found (market_data.{kind})")
+                files[kind] = {"path": getattr(config.market_data, kind), "sha256": file_sha256(path)}
+    inputs["files"] = files
+    return inputs
+
+
+def assemble_calibration(config: RunConfig) -> Calibration:
+    """Check every input, then fit (or assemble) the one parameter set of a run."""
+    _check_equivalence(config)
+    inputs = _inputs(config)  # also checks every market-data file exists, before any fitting
+    for kind, reader in (("curve", read_curve_inputs), ("swaptions", read_swaption_quotes),
+                         ("equity_index", read_equity_indices), ("equity_vols", read_equity_vols),
+                         ("correlations", read_correlation_matrix)):
+        path = config.market_file(kind)
+        if path is not None:
+            reader(path)  # every file checked in full before anything is fitted
+    curve, curve_fit = _curve(config)
+    rho, corr_fit = _correlation(config)
+    rates, rates_fit, swaptions = _rates(config, curve)
+    level, q = _equity_spot(config)
+    vol, equity_fit, equity_options = _equity_vol(config, curve, rates, rho, level, q)
+    prices_of_risk, view = _real_world(config, curve, rates, vol)
+    equity = EquityParams(name=config.equity.name, level=level, dividend_yield=q, volatility=vol, correlation=rho)
     canon = json.dumps(inputs, sort_keys=True, separators=(",", ":")).encode("utf-8")
     return Calibration(
         valuation_date=config.run.valuation_date.isoformat(),
+        horizon_years=config.simulation.horizon_years,
         curve=curve,
         rates=rates,
         equity=equity,
-        prices_of_risk=PricesOfRisk(rates=lam_r, equity=lam_s),
+        prices_of_risk=prices_of_risk,
         inputs=inputs,
         inputs_hash=hashlib.sha256(canon).hexdigest(),
+        fit={"curve": curve_fit, "correlation": corr_fit, "hull_white": rates_fit, "equity": equity_fit},
+        instruments={"swaptions": swaptions, "equity_options": equity_options},
+        real_world_view=view,
     )
 
 

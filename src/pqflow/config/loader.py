@@ -40,10 +40,13 @@ def _describe(err: dict[str, Any]) -> str:
     return msg
 
 
-def parse_config(data: dict[str, Any], *, source: str) -> RunConfig:
-    """Validate ``data`` (the parsed TOML); ``source`` names it in every error message."""
+def parse_config(data: dict[str, Any], *, source: str, base_dir: str | Path | None = None) -> RunConfig:
+    """Validate ``data`` (the parsed TOML); ``source`` names it in every error message;
+    ``base_dir`` is where relative market-data paths are read from."""
     try:
-        return RunConfig.model_validate(data)
+        config = RunConfig.model_validate(data)
+        config._base_dir = Path(base_dir) if base_dir is not None else Path(".")
+        return config
     except ValidationError as exc:
         lines = [f"{source}: {_key_path(tuple(e['loc']))}: {_describe(e)}" for e in exc.errors()]
         raise ConfigError("invalid run configuration\n  " + "\n  ".join(lines)) from None
@@ -62,20 +65,20 @@ def load_config(path: str | Path) -> RunConfig:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"{path}: not valid TOML: {exc}") from None
-    return parse_config(data, source=str(path))
+    return parse_config(data, source=str(path), base_dir=path.parent)
 
 
 def apply_overrides(
     config: RunConfig, *, scenarios: int | None = None, seed: int | None = None, source: str
 ) -> RunConfig:
     """The command line's ``--scenarios`` / ``--seed``, validated like the file itself."""
-    data = config.model_dump(mode="json")
+    data = config.model_dump(mode="json", exclude_none=True)
     if scenarios is not None:
         data["simulation"]["scenarios"] = scenarios
         data["simulation"]["batch_size"] = min(data["simulation"]["batch_size"], scenarios)
     if seed is not None:
         data["simulation"]["seed"] = seed
-    return parse_config(data, source=f"{source} (with command-line overrides)")
+    return parse_config(data, source=f"{source} (with command-line overrides)", base_dir=config.base_dir)
 
 
 def config_hash(config: RunConfig) -> str:

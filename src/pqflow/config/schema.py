@@ -10,11 +10,17 @@ from __future__ import annotations
 import datetime as dt
 from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pathlib import Path
+
+from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_validator, model_validator
 
 __all__ = [
     "RunSection",
     "CurveSection",
+    "MarketDataSection",
+    "CurveExtrapolationSection",
+    "HullWhiteFitSection",
+    "CalibrationSection",
     "HullWhiteSection",
     "EquitySection",
     "RealWorldSection",
@@ -71,18 +77,20 @@ class HullWhiteSection(_Section):
 
 
 class EquitySection(_Section):
-    """One equity total-return index."""
+    """One equity total-return index. With ``market_data.equity_index`` the level and dividend
+    yield come from that file; with ``market_data.equity_vols`` the volatility is fitted; with
+    ``market_data.correlations`` the correlation comes from the matrix."""
 
     name: str = Field(min_length=1, max_length=40, pattern=r"^[a-z][a-z0-9_]*$")
-    level: float = Field(gt=0.0)
-    dividend_yield: float = Field(ge=-0.2, le=0.5)
-    volatility: float = Field(gt=0.0, le=2.0)
-    correlation_with_rates: float = Field(ge=-1.0, le=1.0)
+    level: float | None = Field(default=None, gt=0.0)
+    dividend_yield: float | None = Field(default=None, ge=-0.2, le=0.5)
+    volatility: float | None = Field(default=None, gt=0.0, le=2.0)
+    correlation_with_rates: float | None = Field(default=None, ge=-1.0, le=1.0)
 
     @field_validator("correlation_with_rates")
     @classmethod
-    def _strict(cls, v: float) -> float:
-        if abs(v) >= 1.0:
+    def _strict(cls, v: float | None) -> float | None:
+        if v is not None and abs(v) >= 1.0:
             raise ValueError(
                 "must lie strictly inside (-1, 1): with |rho| = 1 the equity and rate shocks are "
                 "one shock and their prices of risk cannot be set apart"
@@ -90,34 +98,121 @@ class EquitySection(_Section):
         return v
 
 
-class RealWorldSection(_Section):
-    """The house view that moves the real-world drifts.
+class MarketDataSection(_Section):
+    """The quarter's market-data files (CSV, paths relative to the configuration file)."""
 
-    Rates: give either ``rates_market_price_of_risk`` directly, or ``target_short_rate`` (the
-    real-world expected short rate reached at ``target_year``, by default the horizon), from
-    which the price of risk is derived. Equity: ``equity_risk_premium`` over cash.
-    ``rates_volatility`` / ``equity_volatility`` may be stated to confirm the real-world
-    volatilities; if they differ from the market-consistent ones the two measures are not
-    equivalent and the run stops rather than write meaningless density weights.
+    curve: str | None = None
+    swaptions: str | None = None
+    equity_index: str | None = None
+    equity_vols: str | None = None
+    correlations: str | None = None
+
+
+class CurveExtrapolationSection(_Section):
+    """Extrapolation of the market curve beyond the last liquid point (Smith-Wilson, as the
+    European insurance regulator documents it). ``ultimate_forward_rate`` is annually
+    compounded; read the current value from the regulator's publication."""
+
+    method: Literal["smith_wilson"] = "smith_wilson"
+    ultimate_forward_rate: float = Field(ge=-0.05, le=0.2)
+    last_liquid_point: float | None = Field(default=None, gt=0.0)
+    convergence_tolerance_bp: float = Field(default=1.0, gt=0.0, le=100.0)
+    alpha_floor: float = Field(default=0.05, gt=0.0, le=1.0)
+    convergence_point_years: float | None = Field(default=None, gt=0.0)
+    credit_risk_adjustment_bp: float = Field(default=0.0, ge=-100.0, le=100.0)
+    long_end_years: float = Field(default=150.0, gt=0.0, le=300.0)
+
+
+class HullWhiteFitSection(_Section):
+    """How Hull-White ``(a, sigma)`` is fitted to the swaption quotes."""
+
+    objective: Literal["implied_vol", "price"] = "implied_vol"
+    mean_reversion_bounds: tuple[float, float] = (1e-3, 1.0)
+    volatility_bounds: tuple[float, float] = (1e-4, 0.1)
+    fix_mean_reversion: float | None = Field(default=None, gt=0.0, le=5.0)
+
+    @model_validator(mode="after")
+    def _bounds(self) -> HullWhiteFitSection:
+        for key, (lo, hi) in (("mean_reversion_bounds", self.mean_reversion_bounds),
+                              ("volatility_bounds", self.volatility_bounds)):
+            if not 0.0 < lo < hi:
+                raise ValueError(f"{key} must satisfy 0 < lower < upper, got [{lo:g}, {hi:g}]")
+        return self
+
+
+class CalibrationSection(_Section):
+    """Calibration choices."""
+
+    correlation_repair: Literal["reject", "higham"] = "reject"
+    hull_white: HullWhiteFitSection = HullWhiteFitSection()
+
+
+class RealWorldSection(_Section):
+    """The house view that moves the real-world drifts (volatilities stay shared).
+
+    Rates, one of three forms:
+
+    * ``rates_market_price_of_risk``: a constant price of risk;
+    * ``target_short_rate`` (+ ``target_year``, default the horizon): the real-world expected
+      short rate reached at that year, from a constant price of risk;
+    * ``long_run_level`` with ``half_life_years`` (or ``reversion_speed``): the real-world
+      expected ``target`` (the short rate, or the zero yield of ``target_maturity`` years) moves
+      from today's value towards the long-run level, ``m(t) = m0 + (L - m0)(1 - e^{-k t})``,
+      through a piecewise-constant (monthly) price of risk that meets the path exactly at every
+      month end.
+
+    Equity: ``equity_risk_premium`` over cash. ``rates_volatility`` / ``equity_volatility`` may be
+    stated to confirm the real-world volatilities; if they differ from the market-consistent ones
+    the two measures are not equivalent and the run stops rather than write meaningless weights.
     """
 
     rates_market_price_of_risk: float | None = Field(default=None, ge=-5.0, le=5.0)
     target_short_rate: float | None = Field(default=None, ge=-0.2, le=0.5)
     target_year: float | None = Field(default=None, gt=0.0)
+    long_run_level: float | None = Field(default=None, ge=-0.2, le=0.5)
+    half_life_years: float | None = Field(default=None, gt=0.0, le=200.0)
+    reversion_speed: float | None = Field(default=None, gt=0.0, le=50.0)
+    target: Literal["short_rate", "zero_yield"] = "short_rate"
+    target_maturity: float | None = Field(default=None, gt=0.0, le=100.0)
     equity_risk_premium: float = Field(ge=-0.2, le=0.3)
     rates_volatility: float | None = Field(default=None, gt=0.0)
     equity_volatility: float | None = Field(default=None, gt=0.0)
 
     @model_validator(mode="after")
     def _one_rate_view(self) -> RealWorldSection:
-        given = (self.rates_market_price_of_risk is not None) + (self.target_short_rate is not None)
+        given = (
+            (self.rates_market_price_of_risk is not None)
+            + (self.target_short_rate is not None)
+            + (self.long_run_level is not None)
+        )
         if given != 1:
             raise ValueError(
-                "give exactly one of rates_market_price_of_risk or target_short_rate"
+                "give exactly one of rates_market_price_of_risk, target_short_rate or long_run_level"
             )
         if self.target_year is not None and self.target_short_rate is None:
             raise ValueError("target_year goes with target_short_rate")
+        if self.long_run_level is not None:
+            if (self.half_life_years is None) == (self.reversion_speed is None):
+                raise ValueError("long_run_level needs exactly one of half_life_years or reversion_speed")
+            if self.target == "zero_yield" and self.target_maturity is None:
+                raise ValueError("target = 'zero_yield' needs target_maturity (years)")
+        else:
+            for key in ("half_life_years", "reversion_speed", "target_maturity"):
+                if getattr(self, key) is not None:
+                    raise ValueError(f"{key} goes with long_run_level")
+            if self.target != "short_rate":
+                raise ValueError("target goes with long_run_level")
         return self
+
+    @property
+    def speed(self) -> float | None:
+        if self.reversion_speed is not None:
+            return self.reversion_speed
+        if self.half_life_years is not None:
+            import math
+
+            return math.log(2.0) / self.half_life_years
+        return None
 
 
 class SimulationSection(_Section):
@@ -168,26 +263,71 @@ class ValidationSection(_Section):
 
 
 class RunConfig(_Section):
-    """A whole run configuration."""
+    """A whole run configuration.
+
+    Parameters are either typed in (``[curve]``, ``[hull_white]``, the equity volatility and
+    correlation) or fitted from the files of ``[market_data]``; each quantity has exactly one
+    source.
+    """
 
     run: RunSection
-    curve: CurveSection
-    hull_white: HullWhiteSection
+    curve: CurveSection | None = None
+    hull_white: HullWhiteSection | None = None
     equity: EquitySection
     real_world: RealWorldSection
     simulation: SimulationSection
     outputs: OutputsSection
+    market_data: MarketDataSection | None = None
+    curve_extrapolation: CurveExtrapolationSection | None = None
+    calibration: CalibrationSection = CalibrationSection()
     validation: ValidationSection = ValidationSection()
+
+    _base_dir: Path = PrivateAttr(default=Path("."))
+
+    @property
+    def base_dir(self) -> Path:
+        """Folder that relative market-data paths are read from (the configuration's folder)."""
+        return self._base_dir
+
+    def market_file(self, kind: str) -> Path | None:
+        md = self.market_data
+        rel = getattr(md, kind) if md is not None else None
+        return None if rel is None else (self._base_dir / rel)
+
+    @model_validator(mode="after")
+    def _sources(self) -> RunConfig:
+        md = self.market_data or MarketDataSection()
+        pairs = [
+            ("curve", self.curve is not None, "market_data.curve", md.curve is not None),
+            ("hull_white", self.hull_white is not None, "market_data.swaptions", md.swaptions is not None),
+            ("equity.volatility", self.equity.volatility is not None, "market_data.equity_vols", md.equity_vols is not None),
+            ("equity.correlation_with_rates", self.equity.correlation_with_rates is not None, "market_data.correlations", md.correlations is not None),
+            ("equity.level", self.equity.level is not None, "market_data.equity_index", md.equity_index is not None),
+            ("equity.dividend_yield", self.equity.dividend_yield is not None, "market_data.equity_index", md.equity_index is not None),
+        ]
+        for typed, has_typed, fitted, has_fitted in pairs:
+            if has_typed == has_fitted:
+                raise ValueError(
+                    f"give exactly one of {typed} (typed in) or {fitted} (from a market-data file)"
+                    + ("; both are given" if has_typed else "; neither is given")
+                )
+        if (md.curve is not None) != (self.curve_extrapolation is not None):
+            raise ValueError("market_data.curve and [curve_extrapolation] go together")
+        return self
 
     @model_validator(mode="after")
     def _curve_covers(self) -> RunConfig:
         need = self.simulation.horizon_years + max(self.outputs.bond_maturities)
-        have = self.curve.maturities[-1]
+        if self.curve is not None:
+            have, key = self.curve.maturities[-1], "curve.maturities ends at"
+        else:
+            assert self.curve_extrapolation is not None
+            have, key = self.curve_extrapolation.long_end_years, "curve_extrapolation.long_end_years is"
         if need > have + 1e-9:
             raise ValueError(
                 f"simulation.horizon_years ({self.simulation.horizon_years:g}) plus the longest "
                 f"outputs.bond_maturities ({max(self.outputs.bond_maturities):g}) needs the curve "
-                f"to {need:g} years, but curve.maturities ends at {have:g}"
+                f"to {need:g} years, but {key} {have:g}"
             )
         ty = self.real_world.target_year
         if ty is not None and ty > have:

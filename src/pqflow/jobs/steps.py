@@ -21,7 +21,8 @@ from pqflow import CAUTION, __version__
 from pqflow.calibration.assemble import Calibration, build_model
 from pqflow.config.loader import config_hash
 from pqflow.config.schema import RunConfig
-from pqflow.market.curve import LogDiscountCurve
+from pqflow.market.curve import DiscountCurve
+from pqflow.market.serialize import curve_from_json
 from pqflow.simulation.engine import DENSITY_COLUMN, MEASURES, simulate_batch, time_grid
 from pqflow.simulation.plan import Batch, plan_batches
 from pqflow.simulation.streams import MEASURE_STREAM, batch_generator
@@ -138,12 +139,9 @@ def generate_part(
     )
 
 
-def curve_from_calibration_file(run_dir: str | Path) -> LogDiscountCurve:
+def curve_from_calibration_file(run_dir: str | Path) -> DiscountCurve:
     """Today's curve as recorded in the run's ``calibration.json`` (an input, not the model)."""
-    data = read_json(Path(run_dir) / "calibration.json")["parameters"]["curve"]
-    return LogDiscountCurve(
-        maturities=np.array(data["maturities"]), discount_factors=np.array(data["discount_factors"])
-    )
+    return curve_from_json(read_json(Path(run_dir) / "calibration.json")["parameters"]["curve"])
 
 
 def validate_staged_run(run_dir: str | Path, config: RunConfig) -> dict[str, Any]:

@@ -27,6 +27,28 @@ Positive semi-definiteness is not required here: check it with
 :func:`pqflow.market.correlation.check_correlation_matrix` or repair it with
 :func:`pqflow.market.correlation.nearest_correlation_matrix`, as the run configuration says.
 
+**Swaption quotes** (ATM, payer, annual fixed leg)::
+
+    expiry_years,tenor_years,normal_vol_bp,weight
+    1,5,82.0,1
+    ...
+
+exactly one vol column: ``normal_vol_bp`` (Bachelier, basis points), ``lognormal_vol`` (Black,
+decimal) or ``shifted_lognormal_vol`` (decimal, with a ``shift`` column, a decimal rate);
+``weight`` optional (default 1, not negative).
+
+**Equity indices**::
+
+    index,spot_level,dividend_yield
+    veldmark_all_share,1000,0.028
+
+**Equity implied volatilities** (Black-Scholes, decimals)::
+
+    index,expiry_years,implied_vol,strike
+    veldmark_all_share,1,0.185,ATMF
+
+``strike`` is optional; ``ATMF`` (or the column left out) means at the money forward.
+
 Every problem raises :class:`pqflow.errors.MarketDataError` naming the file, the row and the
 column. Rows are counted as **data rows, 1-based, the header excluded**; the message also gives
 the line number in the file (the header is line 1), so either count finds the cell. Blank lines
@@ -53,8 +75,14 @@ from pqflow.market.smith_wilson import (
 __all__ = [
     "CurveInputFile",
     "CorrelationFile",
+    "SwaptionQuoteRow",
+    "EquityIndexRow",
+    "EquityVolRow",
     "read_curve_inputs",
     "read_correlation_matrix",
+    "read_swaption_quotes",
+    "read_equity_indices",
+    "read_equity_vols",
 ]
 
 MATURITY_COLUMN = "maturity_years"
@@ -283,3 +311,156 @@ def read_correlation_matrix(path: str | PathLike[str]) -> CorrelationFile:
                     "the matrix must be symmetric"
                 )
     return CorrelationFile(source=name, names=tuple(names), matrix=matrix)
+
+
+def _header_index(name: str, header: list[str], header_line: int, required: tuple[str, ...], optional: tuple[str, ...]) -> dict[str, int]:
+    seen: set[str] = set()
+    for col in header:
+        if col == "":
+            raise MarketDataError(f"{name}, line {header_line}: a header cell is empty")
+        if col in seen:
+            raise MarketDataError(f"{name}, line {header_line}: column {col!r} appears twice")
+        seen.add(col)
+    for col in required:
+        if col not in header:
+            raise MarketDataError(f"{name}, line {header_line}: no {col!r} column (header is {header})")
+    unknown = [c for c in header if c not in required and c not in optional]
+    if unknown:
+        raise MarketDataError(
+            f"{name}, line {header_line}: unknown column {unknown[0]!r}; expected "
+            f"{', '.join(required)} and optionally {', '.join(optional)}"
+        )
+    return {c: header.index(c) for c in header}
+
+
+@dataclass(frozen=True, kw_only=True)
+class SwaptionQuoteRow:
+    """One checked swaption quote: ``vol`` in the convention's market unit (bp for normal)."""
+
+    expiry: float
+    tenor: float
+    convention: str
+    vol: float
+    shift: float
+    weight: float
+    row: int
+
+
+_VOL_COLUMNS = {"normal_vol_bp": "normal", "lognormal_vol": "lognormal", "shifted_lognormal_vol": "shifted_lognormal"}
+
+
+def read_swaption_quotes(path: str | PathLike[str]) -> tuple[SwaptionQuoteRow, ...]:
+    """Read and check a swaption-quote CSV (see the module docstring for the format)."""
+    name, header, header_line, rows = _read_rows(path)
+    vol_cols = [c for c in header if c in _VOL_COLUMNS]
+    if len(vol_cols) != 1:
+        raise MarketDataError(
+            f"{name}, line {header_line}: exactly one volatility column is needed, one of "
+            f"{', '.join(_VOL_COLUMNS)}; found {vol_cols or 'none'}"
+        )
+    vol_col = vol_cols[0]
+    convention = _VOL_COLUMNS[vol_col]
+    required = ("expiry_years", "tenor_years", vol_col) + (("shift",) if convention == "shifted_lognormal" else ())
+    idx = _header_index(name, header, header_line, required, ("weight",))
+    out = []
+    seen: set[tuple[float, float]] = set()
+    for row in rows:
+        t = _number(row.cells[idx["expiry_years"]], _at(name, row, "expiry_years"))
+        n = _number(row.cells[idx["tenor_years"]], _at(name, row, "tenor_years"))
+        v = _number(row.cells[idx[vol_col]], _at(name, row, vol_col))
+        shift = _number(row.cells[idx["shift"]], _at(name, row, "shift")) if "shift" in idx else 0.0
+        w = _number(row.cells[idx["weight"]], _at(name, row, "weight")) if "weight" in idx else 1.0
+        if t <= 0.0:
+            raise MarketDataError(f"{_at(name, row, 'expiry_years')}: expiry {t:g} must be positive")
+        if n <= 0.0 or abs(n - round(n)) > _WHOLE_YEAR_TOL:
+            raise MarketDataError(
+                f"{_at(name, row, 'tenor_years')}: tenor {n:g} must be a positive whole number of "
+                "years (annual fixed leg)"
+            )
+        if v <= 0.0:
+            raise MarketDataError(f"{_at(name, row, vol_col)}: volatility {v:g} must be positive")
+        if convention == "normal" and v < 1.0:
+            raise MarketDataError(
+                f"{_at(name, row, vol_col)}: {v:g} bp is implausibly small; normal vols are in basis "
+                "points (85 bp is 85, not 0.0085)"
+            )
+        if convention != "normal" and v > 5.0:
+            raise MarketDataError(f"{_at(name, row, vol_col)}: lognormal vols are decimals (20% is 0.20)")
+        if w < 0.0:
+            raise MarketDataError(f"{_at(name, row, 'weight')}: weight {w:g} must not be negative")
+        if (t, n) in seen:
+            raise MarketDataError(f"{_at(name, row)}: expiry {t:g} x tenor {n:g} is quoted twice")
+        seen.add((t, n))
+        out.append(SwaptionQuoteRow(expiry=t, tenor=float(round(n)), convention=convention, vol=v,
+                                    shift=shift, weight=w, row=row.number))
+    return tuple(out)
+
+
+@dataclass(frozen=True, kw_only=True)
+class EquityIndexRow:
+    index: str
+    spot_level: float
+    dividend_yield: float
+
+
+def read_equity_indices(path: str | PathLike[str]) -> dict[str, EquityIndexRow]:
+    """Read and check an equity-index CSV: ``index,spot_level,dividend_yield``."""
+    name, header, header_line, rows = _read_rows(path)
+    idx = _header_index(name, header, header_line, ("index", "spot_level", "dividend_yield"), ())
+    out: dict[str, EquityIndexRow] = {}
+    for row in rows:
+        index = row.cells[idx["index"]]
+        if not index:
+            raise MarketDataError(f"{_at(name, row, 'index')}: missing index name")
+        if index in out:
+            raise MarketDataError(f"{_at(name, row, 'index')}: index {index!r} appears twice")
+        spot = _number(row.cells[idx["spot_level"]], _at(name, row, "spot_level"))
+        q = _number(row.cells[idx["dividend_yield"]], _at(name, row, "dividend_yield"))
+        if spot <= 0.0:
+            raise MarketDataError(f"{_at(name, row, 'spot_level')}: spot level {spot:g} must be positive")
+        if abs(q) >= 1.0:
+            raise MarketDataError(f"{_at(name, row, 'dividend_yield')}: dividend yields are decimals (0.03 for 3%)")
+        out[index] = EquityIndexRow(index=index, spot_level=spot, dividend_yield=q)
+    return out
+
+
+@dataclass(frozen=True, kw_only=True)
+class EquityVolRow:
+    index: str
+    expiry: float
+    implied_vol: float
+    strike: float | None  # None: at the money forward
+    row: int
+
+
+def read_equity_vols(path: str | PathLike[str]) -> tuple[EquityVolRow, ...]:
+    """Read and check an equity implied-volatility CSV (see the module docstring)."""
+    name, header, header_line, rows = _read_rows(path)
+    idx = _header_index(name, header, header_line, ("index", "expiry_years", "implied_vol"), ("strike",))
+    out = []
+    last: dict[str, float] = {}
+    for row in rows:
+        index = row.cells[idx["index"]]
+        if not index:
+            raise MarketDataError(f"{_at(name, row, 'index')}: missing index name")
+        t = _number(row.cells[idx["expiry_years"]], _at(name, row, "expiry_years"))
+        v = _number(row.cells[idx["implied_vol"]], _at(name, row, "implied_vol"))
+        strike = None
+        if "strike" in idx:
+            cell = row.cells[idx["strike"]]
+            if cell.upper() != "ATMF":
+                strike = _number(cell, _at(name, row, "strike"))
+                if strike <= 0.0:
+                    raise MarketDataError(f"{_at(name, row, 'strike')}: strike {strike:g} must be positive")
+        if t <= 0.0:
+            raise MarketDataError(f"{_at(name, row, 'expiry_years')}: expiry {t:g} must be positive")
+        if index in last and t <= last[index]:
+            raise MarketDataError(
+                f"{_at(name, row, 'expiry_years')}: expiry {t:g} is not greater than the previous "
+                f"{last[index]:g} for {index!r}; expiries must be strictly increasing per index"
+            )
+        if not 0.0 < v < 5.0:
+            raise MarketDataError(f"{_at(name, row, 'implied_vol')}: implied vol {v:g} must be a positive decimal (0.20 for 20%)")
+        last[index] = t
+        out.append(EquityVolRow(index=index, expiry=t, implied_vol=v, strike=strike, row=row.number))
+    return tuple(out)
