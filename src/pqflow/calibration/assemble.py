@@ -326,7 +326,7 @@ def _correlation(config: RunConfig) -> tuple[float, dict[str, Any]]:
             method="nearest correlation matrix (Higham 2002, alternating projections with Dykstra's correction)",
             input_matrix=data.matrix.tolist(),
             repaired_matrix=matrix.tolist(),
-            frobenius_distance=repair.distance,
+            frobenius_distance=repair.frobenius_distance,
         )
     i, j = data.names.index(RATES_DRIVER), data.names.index(config.equity.name)
     rho = float(matrix[i, j])
