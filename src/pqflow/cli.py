@@ -186,6 +186,28 @@ def _print_fit(payload: dict[str, Any]) -> None:
     corr = fit.get("correlation", {})
     if corr.get("repaired"):
         console.print(f"correlation matrix repaired (Higham 2002), Frobenius distance {corr['frobenius_distance']:.4g}", style="yellow")
+    paths = payload.get("expected_short_rate", {})
+    if paths:
+        target = paths.get("target")
+        table = Table(title="Expected short rate by measure (and the house-view target)")
+        table.add_column("year", justify="right")
+        table.add_column("market-consistent", justify="right")
+        table.add_column("real-world", justify="right")
+        if target:
+            table.add_column(f"house view: {target['quantity']}", justify="right")
+            table.add_column("real-world model", justify="right")
+        for year in (1.0, 5.0, 10.0, 20.0, 30.0, 50.0):
+            if year not in paths["time"]:
+                continue
+            i = paths["time"].index(year)
+            cells = [f"{year:g}", f"{paths['market_consistent'][i]:.4%}", f"{paths['real_world'][i]:.4%}"]
+            if target and year in target["time"]:
+                j = target["time"].index(year)
+                cells += [f"{target['house_view'][j]:.4%}", f"{target['real_world'][j]:.4%}"]
+            elif target:
+                cells += ["", ""]
+            table.add_row(*cells)
+        console.print(table)
     if rows := fit.get("hull_white", {}).get("rows"):
         table = Table(title="Swaption fit (normal vols in bp)")
         for col in ("expiry", "tenor", "market", "model", "diff bp"):
