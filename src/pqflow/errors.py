@@ -2,6 +2,7 @@
 
     PqflowError                      base: catch this to catch them all
     ├── ConfigError                  a run configuration is invalid (names the file and the key)
+    │   └── LiabilityDataError       a liability portfolio file is invalid (names the model point)
     ├── MarketDataError              a market-data input is invalid (names the file, row, column)
     │   └── CalibrationError         the model cannot fit the quotes as given
     ├── MeasureError                 the real-world and market-consistent measures are not
@@ -15,6 +16,7 @@ from __future__ import annotations
 __all__ = [
     "PqflowError",
     "ConfigError",
+    "LiabilityDataError",
     "MarketDataError",
     "CalibrationError",
     "MeasureError",
@@ -29,6 +31,10 @@ class PqflowError(Exception):
 
 class ConfigError(PqflowError):
     """A run configuration is invalid."""
+
+
+class LiabilityDataError(ConfigError):
+    """A liability portfolio file is invalid (names the file and the model point)."""
 
 
 class MarketDataError(PqflowError):

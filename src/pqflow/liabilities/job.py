@@ -1,0 +1,86 @@
+"""The valuation job as plain functions: what ``pqflow value`` and the Prefect flow call.
+
+    portfolio = load_portfolio(path)                     read and validate the file
+    mc = value_run(run_dir, portfolio, "market_consistent")
+    rw = value_run(run_dir, portfolio, "real_world")     independent of mc: may run in parallel
+    summary = publish_valuation(portfolio, info, mc, rw, out_dir)   tables + summary.json
+
+``value_liabilities_cli`` does all of it in one call.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from pqflow import __version__
+from pqflow.liabilities.portfolio import Portfolio, load_portfolio
+from pqflow.liabilities.tables import cash_flow_frame, results_frame, valuation_summary, valuation_table_rows
+from pqflow.liabilities.valuation import RunInfo, SetValuation, check_portfolio_against_run, inspect_run, value_run
+from pqflow.storage.jsonio import write_json_atomic
+from pqflow.storage.parquet import file_sha256
+from pqflow.storage.results import write_result_tables
+
+__all__ = [
+    "VALUATION_DIR",
+    "RESULT_TABLES",
+    "default_out_dir",
+    "publish_valuation",
+    "value_liabilities_cli",
+    "valuation_table_rows",
+]
+
+VALUATION_DIR = "valuation"
+RESULT_TABLES = ("liability_values", "liability_cash_flows")
+
+
+def default_out_dir(run_dir: str | Path) -> Path:
+    """``run_dir/valuation``: beside the run's files, outside its manifest (which it leaves as is)."""
+    return Path(run_dir) / VALUATION_DIR
+
+
+def publish_valuation(
+    portfolio: Portfolio, info: RunInfo, mc: SetValuation, rw: SetValuation, out_dir: str | Path
+) -> dict[str, Any]:
+    """Write ``liability_values`` and ``liability_cash_flows`` (Parquet and CSV) and
+    ``summary.json`` to ``out_dir``; return the summary (with the files written)."""
+    results = results_frame(mc, rw)
+    summary = valuation_summary(portfolio, info, mc, rw, results)
+    source = Path(portfolio.source)
+    summary["portfolio_sha256"] = file_sha256(source) if source.is_file() else None
+    summary["pqflow_version"] = __version__
+    metadata = {
+        "pqflow.version": __version__,
+        "pqflow.insurer": portfolio.insurer,
+        "pqflow.currency": portfolio.currency,
+        "pqflow.valuation_date": info.valuation_date,
+        "pqflow.run_id": info.run_id or "",
+        "pqflow.caution": summary["caution"],
+    }
+    files = write_result_tables(
+        out_dir,
+        {"liability_values": results, "liability_cash_flows": cash_flow_frame(mc, rw)},
+        metadata=metadata,
+    )
+    files["summary.json"] = str(Path(out_dir) / "summary.json")
+    summary["files"] = files
+    write_json_atomic(Path(out_dir) / "summary.json", summary)
+    return summary
+
+
+def value_liabilities_cli(
+    run_dir: str | Path, liabilities_path: str | Path, out_dir: str | Path | None = None
+) -> dict[str, Any]:
+    """Value the portfolio in ``liabilities_path`` on both sets of the run in ``run_dir``.
+
+    Writes to ``out_dir`` (default ``run_dir/valuation``) and returns the summary dict (see
+    :func:`pqflow.liabilities.tables.valuation_summary`; ``summary["files"]`` lists the files).
+    Raises ``LiabilityDataError`` (a ``PqflowError``) on a bad portfolio, before any file is
+    written.
+    """
+    portfolio = load_portfolio(liabilities_path)
+    info = inspect_run(run_dir)
+    check_portfolio_against_run(portfolio, info)
+    mc = value_run(run_dir, portfolio, "market_consistent")
+    rw = value_run(run_dir, portfolio, "real_world")
+    return publish_valuation(portfolio, info, mc, rw, out_dir if out_dir is not None else default_out_dir(run_dir))

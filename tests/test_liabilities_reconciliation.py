@@ -1,0 +1,126 @@
+"""Real-world values with deflators against market-consistent values, on the demo run.
+
+Reference: the state-price deflator identity ``E_P[sum_t D_t X_t] = E_Q[sum_t X_t / B_t]`` with
+``D_t = (dQ/dP)_t / B_t`` (change of numeraire and measure; e.g. Wüthrich and Merz, *Financial
+Modeling, Actuarial Valuation and Solvency in Insurance*, 2013, ch. 2, from memory; DOMAIN.md
+§2 and §5 "Reconciliation"). The two sets use independent random streams, so their difference
+has standard error ``sqrt(se_P^2 + se_Q^2)`` (common practice); we require every product and
+total line within 3 of them. Dropping the density from the real-world deflator (discounting
+real-world cash flows with the cash account only) must break the identity by many standard
+errors: otherwise the comparison would have no power.
+
+The run is the demo configuration itself (``scenario_configs/demo.toml``: 2,000 antithetic
+scenarios per set, 50 years) written without Prefect, valued with the demo portfolio
+(``scenario_configs/demo_liabilities.toml``).
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pyarrow.parquet as pq
+import pytest
+
+from conftest import DEMO, REPO
+from pqflow.calibration import assemble_calibration
+from pqflow.config import load_config
+from pqflow.jobs import generate_part, plan_run, write_calibration
+from pqflow.liabilities import (
+    load_portfolio,
+    results_frame,
+    value_liabilities_cli,
+    value_run,
+    valuation_table_rows,
+)
+
+__all__: list[str] = []
+
+DEMO_LIABILITIES = REPO / "scenario_configs" / "demo_liabilities.toml"
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("liab-demo") / "demo"
+    cfg = load_config(DEMO)
+    cal = assemble_calibration(cfg)
+    plan = plan_run(cfg)
+    out.mkdir()
+    write_calibration(out, cal)
+    for measure, batch in plan.tasks():
+        generate_part(cal, plan, measure, batch, out)
+    return out
+
+
+@pytest.fixture(scope="module")
+def demo_values(demo_run):
+    portfolio = load_portfolio(DEMO_LIABILITIES)
+    mc = value_run(demo_run, portfolio, "market_consistent")
+    rw = value_run(demo_run, portfolio, "real_world")
+    return mc, rw, results_frame(mc, rw)
+
+
+def test_deflated_real_world_agrees_with_market_consistent(demo_values):
+    mc, rw, table = demo_values
+    assert mc.antithetic and rw.antithetic  # pqflow.antithetic = true: pairs averaged first
+    assert mc.sampling_units == mc.scenarios // 2
+    lines = table[table.level != "model_point"]
+    assert len(lines) == 2 * 4  # three products and the total, two quantities each
+    # Deflator identity E_P[sum D X] = E_Q[sum X / B]: within 3 standard errors of the difference.
+    z = (lines.real_world_value - lines.market_consistent_value) / np.hypot(
+        lines.market_consistent_se, lines.real_world_se)
+    assert np.all(np.abs(z) <= 3.0), lines[["name", "quantity", "difference_in_se"]]
+    assert np.allclose(z, lines.difference_in_se)
+    # The check has power: without the density, real-world values are far from the
+    # market-consistent ones (equity earns its risk premium, rates drift to the house view).
+    best = lines[lines.quantity == "best_estimate"]
+    assert np.all(np.abs(best.undeflated_difference_in_se) > 10.0), best[
+        ["name", "undeflated_difference_in_se"]]
+
+
+def test_tvog_is_stochastic_minus_certainty_equivalent(demo_values):
+    mc, rw, table = demo_values
+    # Definition (DOMAIN.md §6; common practice): TVOG = stochastic value - CE value; the CE
+    # value is deterministic, so the TVOG's standard error is the stochastic value's.
+    assert np.allclose(table.tvog, table.market_consistent_value - table.certainty_equivalent_value)
+    assert np.array_equal(table.tvog_se, table.market_consistent_se)
+    # A guarantee is a long option for the policyholder: worth at least its intrinsic value on
+    # the forward scenario (Jensen's inequality for a convex payoff; common practice). Checked
+    # on the product and total lines, up to 3 standard errors.
+    g = table[(table.quantity == "guarantee") & (table.level != "model_point")]
+    assert np.all(g.tvog > -3.0 * g.tvog_se)
+    # Per product and total lines are sums of their model points (one scenario set, summed
+    # per scenario before averaging).
+    mps = table[(table.level == "model_point") & (table.quantity == "best_estimate")]
+    total = table[(table.level == "total") & (table.quantity == "best_estimate")].iloc[0]
+    assert total.market_consistent_value == pytest.approx(mps.market_consistent_value.sum(), rel=1e-12)
+
+
+def test_cli_helper_writes_parquet_csv_and_summary(demo_run, demo_values, tmp_path):
+    _, _, table = demo_values
+    out = tmp_path / "valuation"
+    summary = value_liabilities_cli(demo_run, DEMO_LIABILITIES, out)
+    for name in ("liability_values", "liability_cash_flows"):
+        parquet = pq.read_table(out / f"{name}.parquet").to_pandas()
+        csv = pd.read_csv(out / f"{name}.csv")
+        assert list(parquet.columns) == list(csv.columns)
+        num = parquet.select_dtypes("number").columns
+        assert np.allclose(parquet[num].to_numpy(), csv[num].to_numpy(), rtol=1e-9, atol=1e-6)
+    values = pq.read_table(out / "liability_values.parquet")
+    meta = {k.decode(): v.decode() for k, v in values.schema.metadata.items()}
+    assert meta["pqflow.insurer"] == "Larkspur Mutual Life (invented)"
+    assert "qualified professionals" in meta["pqflow.caution"]
+    # Same numbers as valuing directly; the summary is what the files say.
+    assert np.allclose(values.to_pandas().market_consistent_value, table.market_consistent_value)
+    on_disk = json.loads((out / "summary.json").read_text())
+    assert on_disk == json.loads(json.dumps(summary))
+    assert summary["reconciliation"]["verdict"] == "agree"
+    assert not [p for p in out.iterdir() if p.name.startswith(".")]  # no temporary files left
+    # The cash-flow profile sums over the years to the values (a decomposition by year).
+    flows = pd.read_csv(out / "liability_cash_flows.csv")
+    per_line = flows.groupby(["name", "quantity"]).market_consistent_pv.sum()
+    lines = table[table.level != "model_point"].set_index(["name", "quantity"]).market_consistent_value
+    assert np.allclose(per_line.loc[lines.index], lines, rtol=1e-8)  # CSV keeps 10 digits
+    headers, rows = valuation_table_rows(summary)
+    assert len(rows) == len(summary["lines"]) == 8 and all(len(r) == len(headers) for r in rows)
