@@ -29,7 +29,6 @@ from pqflow.simulation.streams import MEASURE_STREAM, batch_generator
 from pqflow.storage.jsonio import read_json, write_json_atomic
 from pqflow.storage.manifest import MANIFEST, build_manifest
 from pqflow.storage.parquet import batch_table, file_sha256, part_name, units_metadata, write_part
-from pqflow.validation.summary import validate_run
 
 __all__ = [
     "RunPlan",
@@ -145,25 +144,26 @@ def curve_from_calibration_file(run_dir: str | Path) -> DiscountCurve:
 
 
 def validate_staged_run(run_dir: str | Path, config: RunConfig) -> dict[str, Any]:
-    """Martingale and density checks from the files; writes ``validation/``."""
+    """Every check from the files (martingale, density, market consistency, real world,
+    reconciliation); writes ``validation/`` (one CSV per table and ``summary.json``)."""
+    from pqflow.validation.evidence import run_checks
+
     run_dir = Path(run_dir)
-    curve = curve_from_calibration_file(run_dir)
-    mart, dens, summary = validate_run(
-        run_dir, curve.discount, ess_warning_share=config.validation.ess_warning_share
-    )
+    result = run_checks(run_dir, ess_warning_share=config.validation.ess_warning_share)
     out = run_dir / "validation"
     out.mkdir(parents=True, exist_ok=True)
-    for name, tables in (("martingale", mart), ("density", dens)):
-        frame = _stack(tables)
+    tables = {"martingale": _stack(result.martingale), "density": _stack(result.density), **result.tables}
+    for name, frame in tables.items():
         tmp = out / f".{name}.csv.tmp"
         frame.to_csv(tmp, index=False, float_format="%.10g")
         tmp.replace(out / f"{name}.csv")
-    summary = {"caution": CAUTION, **summary}
+    summary = {"caution": CAUTION, **result.summary}
     write_json_atomic(out / "summary.json", summary)
     return summary
 
 
 def _stack(tables: dict[str, Any]):
+    """Tables by measure stacked into one, with the measure as the first column."""
     import pandas as pd
 
     return pd.concat([t.assign(measure=m)[["measure", *t.columns]] for m, t in tables.items()], ignore_index=True)

@@ -11,9 +11,13 @@ from pqflow.errors import IntegrityError
 from pqflow.storage.jsonio import read_json
 from pqflow.storage.parquet import file_sha256
 
-__all__ = ["build_manifest", "verify_run", "MANIFEST"]
+__all__ = ["build_manifest", "verify_run", "MANIFEST", "DERIVED_VIEWS"]
 
 MANIFEST = "manifest.json"
+# Derived views: pages rebuilt from the run's recorded files (``pqflow report``), which may be
+# written or rewritten after the manifest. They are not part of the audit trail, so the
+# manifest neither lists nor checks them; everything they show comes from files it does list.
+DERIVED_VIEWS = frozenset({"validation/report.html"})
 
 
 def _entry(root: Path, path: Path) -> dict[str, Any]:
@@ -25,14 +29,22 @@ def _entry(root: Path, path: Path) -> dict[str, Any]:
 
 
 def build_manifest(root: str | Path, *, header: dict[str, Any]) -> dict[str, Any]:
-    """Manifest of every file below ``root`` (the manifest itself excepted)."""
+    """Manifest of every file below ``root`` (the manifest itself and the derived views of
+    :data:`DERIVED_VIEWS` excepted)."""
     root = Path(root)
-    files = sorted(p for p in root.rglob("*") if p.is_file() and p.name != MANIFEST and not p.name.startswith("."))
+    files = sorted(
+        p for p in root.rglob("*")
+        if p.is_file() and p.name != MANIFEST and not p.name.startswith(".")
+        and p.relative_to(root).as_posix() not in DERIVED_VIEWS
+    )
     return {**header, "files": [_entry(root, p) for p in files]}
 
 
 def verify_run(root: str | Path) -> dict[str, Any]:
-    """Check every file against the manifest; raise ``IntegrityError`` naming what differs."""
+    """Check every file against the manifest; raise ``IntegrityError`` naming what differs.
+
+    Derived views (:data:`DERIVED_VIEWS`) are ignored even if an older manifest lists them.
+    """
     root = Path(root)
     mpath = root / MANIFEST
     if not mpath.exists():
@@ -40,6 +52,8 @@ def verify_run(root: str | Path) -> dict[str, Any]:
     manifest = read_json(mpath)
     problems = []
     for entry in manifest["files"]:
+        if entry["path"] in DERIVED_VIEWS:
+            continue
         path = root / entry["path"]
         if not path.exists():
             problems.append(f"{entry['path']}: missing")

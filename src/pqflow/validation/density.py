@@ -3,7 +3,9 @@
 For the density process ``Z_t`` stored in a set (``q_density`` = dQ/dP in the real-world set,
 ``p_density`` = dP/dQ in the market-consistent set), ``E[Z_t] = 1`` at every ``t``. The
 effective sample size ``ESS = (sum w)^2 / sum w^2`` (Kish's formula) and the largest single
-path's share of the total weight show how far the weights have degenerated.
+path's share of the total weight show how far the weights have degenerated. Each time's mean
+weight comes with its 99% interval ``mean +- z_{0.995} se`` (``lower_99``, ``upper_99``), which
+should contain 1.
 """
 
 from __future__ import annotations
@@ -47,6 +49,8 @@ def density_table(reader: ScenarioSetReader) -> pd.DataFrame:
             "mean_weight": acc.mean,
             "std_error": se,
             "z_score": z,
+            "lower_99": acc.mean - norm.ppf(0.995) * se,
+            "upper_99": acc.mean + norm.ppf(0.995) * se,
             "pass_99": np.abs(z) <= norm.ppf(0.995),
             "ess": ess,
             "ess_share": ess / n_paths,

@@ -21,7 +21,7 @@ from pqflow.validation.density import density_table
 from pqflow.validation.martingale import martingale_table
 from pqflow.validation.reader import ScenarioSetReader
 
-__all__ = ["summarise", "validate_run", "family_critical_z", "FAMILY_ALPHA"]
+__all__ = ["summarise", "validate_run", "cells_summary", "family_critical_z", "FAMILY_ALPHA"]
 
 FAMILY_ALPHA = 0.01
 
@@ -31,7 +31,8 @@ def family_critical_z(n_cells: int, alpha: float = FAMILY_ALPHA) -> float:
     return float(norm.ppf(1.0 - alpha / (2.0 * max(n_cells, 1))))
 
 
-def _cells_summary(table: pd.DataFrame, label_cols: list[str]) -> dict[str, Any]:
+def cells_summary(table: pd.DataFrame, label_cols: list[str]) -> dict[str, Any]:
+    """Cell counts, worst cell and family-wise verdict of a table with a ``z_score`` column."""
     n = int(len(table))
     z = table["z_score"].abs()
     crit = family_critical_z(n)
@@ -51,21 +52,33 @@ def _cells_summary(table: pd.DataFrame, label_cols: list[str]) -> dict[str, Any]
     return out
 
 
+_cells_summary = cells_summary  # the earlier private name
+
+
 def summarise(
     martingale: dict[str, pd.DataFrame], density: dict[str, pd.DataFrame], *, ess_warning_share: float
 ) -> dict[str, Any]:
     """Machine-readable verdicts per check and overall."""
     checks: dict[str, Any] = {}
     for measure, table in martingale.items():
-        checks[f"martingale_{measure}"] = _cells_summary(table, ["asset", "time", "ratio", "z_score"])
+        checks[f"martingale_{measure}"] = cells_summary(table, ["asset", "time", "ratio", "z_score"])
     for measure, table in density.items():
         body = table[table["time"] > 0].reset_index(drop=True)
-        entry = _cells_summary(body, ["time", "mean_weight", "z_score"])
+        entry = cells_summary(body, ["time", "mean_weight", "z_score"])
         low = body[body["ess_share"] < ess_warning_share]
         entry["min_ess_share"] = float(body["ess_share"].min()) if len(body) else 1.0
         entry["max_weight_share"] = float(body["max_weight_share"].max()) if len(body) else 0.0
         entry["ess_warning_share"] = ess_warning_share
         entry["ess_below_warning_from_time"] = float(low["time"].iloc[0]) if len(low) else None
+        if len(body):
+            last = body.iloc[-1]
+            entry["at_horizon"] = {
+                "time": float(last["time"]),
+                "mean_weight": float(last["mean_weight"]),
+                "std_error": float(last["std_error"]),
+                "ess_share": float(last["ess_share"]),
+                "max_weight_share": float(last["max_weight_share"]),
+            }
         entry["warnings"] = (
             [
                 f"{measure}: effective sample size of the density weights falls below "

@@ -1,0 +1,114 @@
+"""Every check of a run, computed from its written files, and the summary that judges them.
+
+Checks (keys of ``summary["checks"]``):
+
+* ``martingale_market_consistent``, ``martingale_real_world``: the "1 = 1" test
+  (:mod:`pqflow.validation.martingale`);
+* ``density_market_consistent``, ``density_real_world``: density weights
+  (:mod:`pqflow.validation.density`);
+* ``market_consistency``: calibration instruments repriced from the files
+  (:mod:`pqflow.validation.market_consistency`; ``not_applicable`` without instruments);
+* ``real_world``: the P set against its targets, with the wealth-ratio benchmark nested
+  (:mod:`pqflow.validation.real_world`);
+* ``reconciliation``: a guarantee valued three ways (:mod:`pqflow.validation.reconciliation`).
+
+The run's ``verdict`` is ``"fail"`` when any check that counts toward it fails; a check that is
+``not_applicable`` neither passes nor fails the run.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from pqflow.validation.market_consistency import market_consistency_check
+from pqflow.validation.real_world import real_world_check
+from pqflow.validation.reconciliation import reconciliation_check
+from pqflow.validation.run_files import json_safe, load_run_inputs
+from pqflow.validation.summary import FAMILY_ALPHA, validate_run
+
+__all__ = ["RunValidation", "run_checks", "overall_verdict", "RULE"]
+
+RULE = (
+    "a check passes when every cell lies within its Bonferroni-corrected interval at family "
+    f"level {1 - FAMILY_ALPHA:.0%} (market quotes: within their stated volatility tolerance "
+    "plus that interval); the run passes when no check that counts toward the verdict fails"
+)
+
+_KINDS = {
+    "martingale": ("deflated asset prices average to today's prices (1 = 1 test)",
+                   "Society of Actuaries, Economic Scenario Generators: A Practical Guide, 2016, s. 8.3"),
+    "density": ("density weights average to 1; effective sample size and largest weight share",
+                "E[Z_t] = 1 for a density process; Kish's effective sample size"),
+}
+
+
+@dataclass(frozen=True, kw_only=True)
+class RunValidation:
+    """Tables and summary of every check of a run.
+
+    martingale, density: measure -> table (as :func:`pqflow.validation.summary.validate_run`).
+    tables: file stem -> table for the other checks (``market_consistency``,
+    ``real_world_targets``, ``real_world_statistics``, ``real_world_percentiles``,
+    ``wealth_ratio_benchmark``, ``reconciliation``, ``expected_returns``; a check that did not
+    run has none). summary: the content of ``validation/summary.json`` (JSON-safe).
+    """
+
+    martingale: dict[str, pd.DataFrame]
+    density: dict[str, pd.DataFrame]
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    summary: dict[str, Any] = field(default_factory=dict)
+
+
+def overall_verdict(checks: dict[str, dict[str, Any]]) -> str:
+    """``"fail"`` if a check counting toward the verdict failed, else ``"pass"``."""
+    failed = [
+        name for name, c in checks.items()
+        if c.get("counts_toward_verdict", True) and c.get("verdict") == "fail"
+    ]
+    return "fail" if failed else "pass"
+
+
+def run_checks(
+    run_dir: str | Path,
+    *,
+    ess_warning_share: float,
+    vol_tolerance: dict[str, float] | None = None,
+    wealth_benchmark_gating: bool = False,
+    guarantee_maturity: float = 10.0,
+    guarantee: float | None = None,
+) -> RunValidation:
+    """Run every check on the files of ``run_dir`` (nothing is written here).
+
+    vol_tolerance: per quote convention, the volatility (decimal) by which a repriced market
+    quote may miss (default :data:`pqflow.validation.market_consistency.DEFAULT_VOL_TOLERANCE`).
+    wealth_benchmark_gating: let the 2005 wealth-ratio benchmark decide the real-world verdict.
+    guarantee_maturity, guarantee: the reconciled maturity guarantee (default strike: the index
+    level at time 0).
+    """
+    inputs = load_run_inputs(run_dir)
+    mart, dens, base = validate_run(run_dir, inputs.curve.discount, ess_warning_share=ess_warning_share)
+    checks: dict[str, dict[str, Any]] = {}
+    for name, entry in base["checks"].items():
+        family = name.split("_", 1)[0]
+        kind, source = _KINDS[family]
+        checks[name] = {**entry, "kind": kind, "source": source, "counts_toward_verdict": True,
+                        "warnings": list(entry.get("warnings", []))}
+    tables: dict[str, pd.DataFrame] = {}
+    results = [
+        market_consistency_check(inputs, vol_tolerance=vol_tolerance),
+        real_world_check(inputs, wealth_benchmark_gating=wealth_benchmark_gating),
+        reconciliation_check(inputs, maturity=guarantee_maturity, guarantee=guarantee),
+    ]
+    for result in results:
+        checks[result.name] = result.summary
+        tables.update(result.tables)
+    summary = {
+        "verdict": overall_verdict(checks),
+        "rule": RULE,
+        "checks": checks,
+    }
+    return RunValidation(martingale=mart, density=dens, tables=tables, summary=json_safe(summary))

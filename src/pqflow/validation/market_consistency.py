@@ -1,0 +1,339 @@
+"""Market consistency: the calibration instruments repriced by Monte Carlo from the files.
+
+The instruments are those recorded under ``calibration.json["instruments"]`` (swaptions and
+equity options, each with its market quote and the calibrated model's price). Each is valued
+from the scenario parts of both sets, as the mean of its deflated payoff,
+``E[D_T0 payoff]`` (``D = 1/B`` in the market-consistent set, ``q_density / B`` in the
+real-world set), and compared with the market (Society of Actuaries, *Economic Scenario
+Generators: A Practical Guide*, 2016, s. 8.3: Monte Carlo prices of the calibration
+instruments against market prices; Solvency II Delegated Regulation 2015/35, Art. 22).
+
+Payoffs at the expiry ``T0``, from the columns of the files:
+
+* payer swaption on an annual fixed leg of ``n`` years struck at ``K`` (receiver: ``-``):
+  ``A = sum_{k=1..n} zcb_{k}y``, ``S = (1 - zcb_{n}y) / A``, payoff ``A max(S - K, 0)``;
+* equity option on the price index ``S_T e^{-qT}``, with ``S`` the total-return column
+  ``equity_{index}`` and ``q`` the recorded dividend yield: ``max(+-(S_T e^{-qT} - K), 0)``.
+
+An instrument whose expiry is not an output time, or whose bonds or index are not in the
+files, is reported as not testable (with the reason) rather than guessed.
+
+Tolerance (stated): the calibrated model need not reprice the market exactly, so a quote
+passes when the Monte Carlo price lies within the market price plus a volatility tolerance,
+widened by the Monte Carlo error: ``|MC - market| <= vega * tol + z * SE``, with ``tol`` 5 bp
+of normal volatility, 0.5 volatility points (lognormal and shifted lognormal quotes, equity
+options) and ``z`` the Bonferroni-corrected critical value at family level 99% over every
+cell of the check. The cell's score is the excess over the tolerance in standard errors,
+``sign(d) max(|d| - vega tol, 0) / SE``. Where the calibration also records the model's own
+price, the Monte Carlo price must reproduce it within ``z * SE`` exactly (no tolerance): that
+cell tests the simulation, the first tests the calibration. Implied volatilities of the Monte
+Carlo prices are reported in the quote's own convention (Bachelier, Black, shifted Black),
+differences in basis points of the quoted volatility (for a lognormal quote one basis point
+is 0.01 volatility points).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_price
+from pqflow.errors import MarketDataError
+from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
+from pqflow.validation.run_files import RunInputs, stream_moments, time_index
+from pqflow.validation.summary import family_critical_z
+
+__all__ = [
+    "DEFAULT_VOL_TOLERANCE",
+    "InstrumentSpec",
+    "parse_instruments",
+    "market_consistency_table",
+    "market_consistency_check",
+]
+
+CHECK = "market_consistency"
+KIND = "calibration instruments repriced from the files against their market quotes"
+DEFAULT_VOL_TOLERANCE = {"normal": 5e-4, "lognormal": 5e-3, "shifted_lognormal": 5e-3}
+_BP = 1e-4
+_MEASURES = ("market_consistent", "real_world")
+
+
+@dataclass(frozen=True, kw_only=True)
+class InstrumentSpec:
+    """One calibration instrument, as the check reads it.
+
+    kind: ``"swaption"`` or ``"equity_option"``. option: ``payer``/``receiver`` or
+    ``call``/``put``. forward, annuity: today's forward (swap rate or index forward) and the
+    numeraire value the quote convention uses (swap annuity or ``P(0, T)``), ``None`` when the
+    curve does not reach the instrument. market_vol: decimal, ``None`` when only a price is
+    given. market_price: the quote's price (from ``market_vol`` when given: the volatility is
+    the quote). column_names: file columns the payoff needs. untestable: why it cannot be
+    repriced from the files (``None`` when it can).
+    """
+
+    label: str
+    kind: str
+    option: str
+    expiry: float
+    strike: float
+    convention: str
+    shift: float
+    tenor: float | None
+    index: str | None
+    forward: float | None
+    annuity: float | None
+    market_vol: float | None
+    market_price: float | None
+    stated_market_price: float | None
+    model_price: float | None
+    column_names: tuple[str, ...]
+    untestable: str | None
+    note: str | None = None
+
+
+def _num(x: Any) -> float | None:
+    return None if x is None else float(x)
+
+
+def _bond(k: float) -> str:
+    return f"zcb_{k:g}y"
+
+
+def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option, shift) -> tuple[float | None, str | None]:
+    """The quote's price from its volatility, and a note when a stated price disagrees."""
+    vol = _num(spec.get("market_vol"))
+    stated = _num(spec.get("market_price"))
+    if vol is None or forward is None:
+        return stated, None
+    price = float(option_price(convention, forward, spec["strike"], vol, spec["expiry"],
+                               annuity=annuity, kind=option, shift=shift))
+    note = None
+    if stated is not None and abs(stated - price) > 1e-6 * max(abs(price), 1e-12):
+        note = (f"stated market_price {stated:.8g} differs from the price of market_vol "
+                f"{vol:g} ({price:.8g}); the volatility (the quote) is used")
+    return price, note
+
+
+def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) -> list[InstrumentSpec]:
+    """Read ``calibration.json["instruments"]`` into specs, marking what the files cannot test."""
+    section = inputs.calibration.get("instruments") or {}
+    curve = inputs.curve
+    out: list[InstrumentSpec] = []
+    equity_par = inputs.parameters.get("equity", {})
+    for raw in section.get("swaptions", []) or []:
+        expiry, tenor = float(raw["expiry"]), float(raw["tenor"])
+        strike = float(raw["strike"])
+        convention = str(raw.get("convention", "normal"))
+        shift = float(raw.get("shift", 0.0) or 0.0)
+        option = str(raw.get("kind", "payer"))
+        label = f"swaption {expiry:g}y x {tenor:g}y K={strike:.4%} {option} ({convention})"
+        reason = None
+        n = int(round(tenor))
+        if convention not in VOL_CONVENTIONS:
+            reason = f"unknown vol convention {convention!r}"
+        elif abs(tenor - n) > 1e-9 or n < 1:
+            reason = "tenor is not a whole number of annual fixed periods"
+        needed = tuple(_bond(k) for k in range(1, max(n, 1) + 1))
+        missing = [c for c in needed if c not in columns]
+        if reason is None and missing:
+            reason = f"not testable from the files (missing {', '.join(missing)})"
+        if reason is None and time_index(times, expiry) is None:
+            reason = f"not testable from the files (expiry {expiry:g} is not an output time)"
+        forward = annuity = None
+        if expiry + n <= curve.max_maturity:
+            pay = expiry + np.arange(1, n + 1, dtype=float)
+            annuity = float(np.sum(curve.discount(pay)))
+            forward = float((curve.discount(expiry) - curve.discount(pay[-1])) / annuity)
+        market_price, note = _quote_price(raw, convention, forward, annuity, option, shift)
+        out.append(InstrumentSpec(
+            label=label, kind="swaption", option=option, expiry=expiry, strike=strike,
+            convention=convention, shift=shift, tenor=tenor, index=None, forward=forward,
+            annuity=annuity, market_vol=_num(raw.get("market_vol")), market_price=market_price,
+            stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
+            column_names=needed, untestable=reason, note=note,
+        ))
+    for raw in section.get("equity_options", []) or []:
+        expiry, strike = float(raw["expiry"]), float(raw["strike"])
+        index = str(raw.get("index", equity_par.get("name", "")))
+        option = str(raw.get("kind", "call"))
+        convention = str(raw.get("convention", "lognormal"))
+        label = f"equity {option} {index} {expiry:g}y K={strike:g}"
+        col = f"equity_{index}"
+        reason = None
+        if col not in columns:
+            reason = f"not testable from the files (missing {col})"
+        elif time_index(times, expiry) is None:
+            reason = f"not testable from the files (expiry {expiry:g} is not an output time)"
+        elif index != equity_par.get("name"):
+            reason = f"no dividend yield recorded for index {index!r}"
+        out.append(InstrumentSpec(
+            label=label, kind="equity_option", option=option, expiry=expiry, strike=strike,
+            convention=convention, shift=0.0, tenor=None, index=index, forward=None,
+            annuity=None, market_vol=_num(raw.get("market_vol")),
+            market_price=_num(raw.get("market_price")),
+            stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
+            column_names=(col,), untestable=reason,
+        ))
+    return out
+
+
+def _with_equity_forward(spec: InstrumentSpec, inputs: RunInputs, level: float) -> InstrumentSpec:
+    """Equity quotes need today's index level (from the files) for their forward."""
+    q = float(inputs.parameters.get("equity", {}).get("dividend_yield", 0.0))
+    if spec.expiry > inputs.curve.max_maturity:
+        return spec
+    df = float(inputs.curve.discount(spec.expiry))
+    forward = level * np.exp(-q * spec.expiry) / df
+    raw = {"market_vol": spec.market_vol, "market_price": spec.stated_market_price,
+           "strike": spec.strike, "expiry": spec.expiry}
+    price, note = _quote_price(raw, spec.convention, forward, df, spec.option, 0.0)
+    return InstrumentSpec(**{**vars(spec), "forward": forward, "annuity": df,
+                             "market_price": price, "note": note})
+
+
+def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.ndarray], q: float) -> np.ndarray:
+    """Deflated payoffs ``(n_paths, n_instruments)``."""
+    deflator = cols["deflator"]
+    out = np.empty((deflator.shape[0], len(specs)))
+    for j, s in enumerate(specs):
+        k = time_index(times, s.expiry)
+        assert k is not None
+        if s.kind == "swaption":
+            bonds = np.stack([cols[c][:, k] for c in s.column_names], axis=1)
+            annuity = bonds.sum(axis=1)
+            rate = (1.0 - bonds[:, -1]) / annuity
+            w = 1.0 if s.option in ("payer", "call") else -1.0
+            pay = annuity * np.maximum(w * (rate - s.strike), 0.0)
+        else:
+            price_index = cols[s.column_names[0]][:, k] * np.exp(-q * s.expiry)
+            w = 1.0 if s.option == "call" else -1.0
+            pay = np.maximum(w * (price_index - s.strike), 0.0)
+        out[:, j] = deflator[:, k] * pay
+    return out
+
+
+def _vega(s: InstrumentSpec) -> float | None:
+    if s.market_vol is None or s.forward is None or s.annuity is None:
+        return None
+    h = max(1e-6, 1e-4 * s.market_vol)
+    args = dict(annuity=s.annuity, kind=s.option, shift=s.shift)
+    lo = max(s.market_vol - h, 0.0)
+    up = float(option_price(s.convention, s.forward, s.strike, s.market_vol + h, s.expiry, **args))
+    dn = float(option_price(s.convention, s.forward, s.strike, lo, s.expiry, **args))
+    return (up - dn) / (s.market_vol + h - lo)
+
+
+def _implied(s: InstrumentSpec, price: float) -> float | None:
+    if s.forward is None or s.annuity is None:
+        return None
+    try:
+        return float(implied_vol(s.convention, price, s.forward, s.strike, s.expiry,
+                                 annuity=s.annuity, kind=s.option, shift=s.shift))
+    except (MarketDataError, ValueError):
+        return None
+
+
+def market_consistency_table(
+    inputs: RunInputs, *, vol_tolerance: dict[str, float] | None = None
+) -> tuple[pd.DataFrame, list[InstrumentSpec]]:
+    """One row per (testable instrument, set); and every instrument read (testable or not)."""
+    tol = {**DEFAULT_VOL_TOLERANCE, **(vol_tolerance or {})}
+    rows: list[dict[str, Any]] = []
+    specs_all: list[InstrumentSpec] = []
+    q = float(inputs.parameters.get("equity", {}).get("dividend_yield", 0.0))
+    for measure in _MEASURES:
+        reader = inputs.reader(measure)
+        columns = reader.column_names()
+        first_times, first_cols = next(reader.iter_arrays([c for c in columns if c.startswith("equity_")][:1] or ["deflator"]))
+        specs = parse_instruments(inputs, columns, first_times)
+        specs = [
+            _with_equity_forward(s, inputs, float(first_cols[s.column_names[0]][0, 0]))
+            if s.kind == "equity_option" and s.untestable is None else s
+            for s in specs
+        ]
+        if measure == _MEASURES[0]:
+            specs_all = specs
+        testable = [s for s in specs if s.untestable is None]
+        if not testable:
+            continue
+        needed = ["deflator", *dict.fromkeys(c for s in testable for c in s.column_names)]
+        _, acc = stream_moments(reader, needed, lambda t, c: {"v": _payoffs(testable, t, c, q)})
+        mean, se = acc["v"].mean, acc["v"].std_error
+        for j, s in enumerate(testable):
+            mc, err = float(mean[j]), float(se[j])
+            vega = _vega(s)
+            tol_vol = tol.get(s.convention, 0.0)
+            tol_price = abs(vega) * tol_vol if vega is not None else 0.0
+            mc_vol = _implied(s, mc)
+            row: dict[str, Any] = {
+                "instrument": s.label, "type": s.kind, "measure": measure,
+                "expiry": s.expiry, "tenor": s.tenor, "strike": s.strike,
+                "convention": s.convention, "mc_price": mc, "std_error": err,
+                "market_price": s.market_price, "model_price": s.model_price,
+                "market_vol": s.market_vol, "mc_implied_vol": mc_vol,
+                "vol_difference_bp": (mc_vol - s.market_vol) / _BP
+                if mc_vol is not None and s.market_vol is not None else None,
+                "vol_std_error_bp": err / abs(vega) / _BP if vega else None,
+                "vol_tolerance_bp": tol_vol / _BP,
+                "z_market": (mc - s.market_price) / err if s.market_price is not None and err > 0 else None,
+                "z_model": (mc - s.model_price) / err if s.model_price is not None and err > 0 else None,
+            }
+            if s.market_price is not None and err > 0:
+                d = mc - s.market_price
+                row["z_score"] = float(np.sign(d) * max(abs(d) - tol_price, 0.0) / err)
+            else:
+                row["z_score"] = None
+            row["note"] = s.note
+            rows.append(row)
+    return pd.DataFrame(rows), specs_all
+
+
+def market_consistency_check(
+    inputs: RunInputs, *, vol_tolerance: dict[str, float] | None = None
+) -> CheckResult:
+    """The check's table and its ``summary.json`` entry (``not_applicable`` without instruments)."""
+    section = inputs.calibration.get("instruments") or {}
+    if not (section.get("swaptions") or section.get("equity_options")):
+        return CheckResult(name=CHECK, summary=not_applicable_entry(
+            kind=KIND, reason="not applicable: no instruments in calibration.json"))
+    table, specs = market_consistency_table(inputs, vol_tolerance=vol_tolerance)
+    untestable = [{"instrument": s.label, "reason": s.untestable} for s in specs if s.untestable]
+    if table.empty:
+        entry = not_applicable_entry(kind=KIND, reason="no instrument is testable from the files")
+        entry["not_testable"] = untestable
+        return CheckResult(name=CHECK, summary=entry)
+    cells = []
+    for r in table.itertuples(index=False):
+        if r.z_score is not None and not pd.isna(r.z_score):
+            cells.append({"instrument": r.instrument, "measure": r.measure,
+                          "reference": "market quote within tolerance", "z_score": float(r.z_score)})
+        if r.z_model is not None and not pd.isna(r.z_model):
+            cells.append({"instrument": r.instrument, "measure": r.measure,
+                          "reference": "model price", "z_score": float(r.z_model)})
+    cell_table = pd.DataFrame(cells, columns=["instrument", "measure", "reference", "z_score"])
+    crit = family_critical_z(len(cell_table))
+    tol = {**DEFAULT_VOL_TOLERANCE, **(vol_tolerance or {})}
+    rule = (
+        "each quote: |MC - market| <= vega * tolerance + z * SE, tolerance "
+        f"{tol['normal'] / _BP:g} bp normal vol, {tol['lognormal'] * 100:g} vol points lognormal "
+        f"and shifted lognormal; each recorded model price: |MC - model| <= z * SE; z = {crit:.2f} "
+        "(Bonferroni, family level 99%); both sets, the real-world one with its deflators"
+    )
+    entry = cells_entry(cell_table, ["instrument", "measure", "reference", "z_score"], kind=KIND, rule=rule)
+    entry["instruments"] = len(specs)
+    entry["instruments_tested"] = len(specs) - len(untestable)
+    entry["not_testable"] = untestable
+    entry["vol_tolerance"] = tol
+    entry["rows"] = [
+        {k: r[k] for k in ("instrument", "measure", "mc_price", "std_error", "market_price",
+                           "model_price", "vol_difference_bp", "z_score", "z_model")}
+        for r in table.to_dict(orient="records")
+    ]
+    entry["warnings"] = [f"{u['instrument']}: {u['reason']}" for u in untestable] + [
+        f"{r['instrument']}: {r['note']}" for r in table.to_dict(orient="records")
+        if r.get("note") and r["measure"] == _MEASURES[0]
+    ]
+    return CheckResult(name=CHECK, summary=entry, tables={"market_consistency": table})

@@ -1,0 +1,235 @@
+"""Reconciliation of the two sets: one guarantee valued three ways, and expected returns.
+
+The guarantee is a unit-linked maturity guarantee: at maturity ``T`` the policy pays at least
+the guaranteed amount ``G`` on a fund invested in the equity total-return index, so the
+insurer is short the put ``max(G - S_T, 0)``. It is valued
+
+1. in closed form: Black's formula under Hull-White rates on the total-return index (dividend
+   yield 0; Brigo and Mercurio 2006; :func:`pqflow.models.equity.equity_option_price`), with
+   the parameters recorded in ``calibration.json`` (the only column that uses the model);
+2. from the market-consistent set: ``E_Q[max(G - S_T, 0) / B_T]``;
+3. from the real-world set with its deflators: ``E_P[D_T max(G - S_T, 0)]``,
+   ``D_T = q_density / B_T``.
+
+The real-world estimate is an importance-sampling estimate whose large weights sit where the
+put pays: a sample that misses them understates both its mean and its spread, so its sample
+standard error is too small just when the estimate is off. Its standard error is therefore the
+larger of the sample value (antithetic pairs averaged) and the value implied by the second
+moment estimated from the market-consistent set, ``E_P[(D_T X)^2] = E_Q[Z_T (X/B_T)^2]`` with
+``Z_T = dQ/dP = 1 / p_density`` (no credit taken for antithetic pairing: conservative).
+
+The three agree in expectation (DOMAIN.md s. 2: ``E_P[D_T X] = E_Q[X / B_T]``). Cells: each
+Monte Carlo value against the closed form in its own standard errors, and the two sets
+against each other (independent sets: ``se = sqrt(se_Q^2 + se_P^2)``); the family-wise rule
+of :mod:`pqflow.validation.checks` gives the verdict.
+
+Expected returns (reported): for each asset bought at time 0 and valued at horizon ``h``,
+``(1/h) ln(E[A_h] / A_0)`` under each measure with its standard error (delta method): the cash
+account (``A_0 = 1``), the equity index (``A_0 = S_0``), and for each bond column ``zcb_{m}y``
+the zero bond maturing at ``h + m`` (``A_0 = P(0, h + m)`` from today's curve). Under Q every
+asset earns, in expectation, what cash does only after deflating; the undeflated expected
+returns differ by measure through the prices of risk, which is what the table shows.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from pqflow.models.equity import EquityParams, equity_option_price
+from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.schedule import PiecewiseConstant
+from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
+from pqflow.validation.martingale import bond_maturity_of
+from pqflow.validation.run_files import RunInputs, stream_moments, time_index
+from pqflow.validation.summary import family_critical_z
+
+__all__ = [
+    "guarantee_closed_form",
+    "guarantee_values",
+    "expected_returns_table",
+    "reconciliation_check",
+    "RETURN_HORIZONS",
+]
+
+CHECK = "reconciliation"
+KIND = "maturity guarantee valued in closed form, from the Q set and from the P set with deflators"
+RETURN_HORIZONS = (1.0, 5.0, 10.0, 20.0)
+
+
+def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: float, level: float) -> float:
+    """Closed-form value of ``max(G - S_T, 0)`` on the total-return index (``q = 0``), from
+    the Hull-White and equity parameters recorded in ``calibration.json`` (the equity
+    volatility a number or a piecewise-constant schedule)."""
+    par = inputs.parameters
+    hw, eq = par["hull_white"], par["equity"]
+    rates = HullWhiteParams(mean_reversion=float(hw["mean_reversion"]), volatility=float(hw["volatility"]))
+    vol = eq["volatility"]
+    equity = EquityParams(
+        name=str(eq["name"]), level=level, dividend_yield=0.0,
+        volatility=float(vol) if isinstance(vol, (int, float)) else PiecewiseConstant.from_json(vol),
+        correlation=float(eq["correlation_with_rates"]),
+    )
+    return equity_option_price(inputs.curve, rates, equity, expiry=maturity, strike=guarantee, kind="put")
+
+
+def _equity_column(inputs: RunInputs, names: list[str]) -> str | None:
+    col = f"equity_{inputs.parameters.get('equity', {}).get('name')}"
+    return col if col in names else None
+
+
+def guarantee_values(
+    inputs: RunInputs, *, maturity: float = 10.0, guarantee: float | None = None
+) -> dict[str, Any] | None:
+    """Values of the guarantee three ways, or ``None`` when the files cannot value it.
+
+    maturity: years; when not an output time, the longest output time below it is used.
+    guarantee: the guaranteed amount in index units (default: the index level at time 0).
+    """
+    out: dict[str, Any] = {}
+    for measure in ("market_consistent", "real_world"):
+        reader = inputs.reader(measure)
+        col = _equity_column(inputs, reader.column_names())
+        if col is None:
+            return None
+        times0, first = next(reader.iter_arrays([col]))
+        level = float(first[col][0, 0])
+        k = time_index(times0, maturity)
+        if k is None:
+            below = np.flatnonzero(times0 <= maturity)
+            if below.size < 2:
+                return None
+            k = int(below[-1])
+        t = float(times0[k])
+        g = level if guarantee is None else float(guarantee)
+        density = "p_density" if measure == "market_consistent" else "q_density"
+
+        def derive(tt: np.ndarray, c: dict[str, np.ndarray], k: int = k, g: float = g,
+                   col: str = col, density: str = density) -> dict[str, np.ndarray]:
+            put = c["deflator"][:, k] * np.maximum(g - c[col][:, k], 0.0)
+            return {"put": put, "put_sq_over_density": put**2 / c[density][:, k]}
+
+        _, acc = stream_moments(reader, ["deflator", col, density], derive)
+        paths = acc["put"].count * (2 if reader.antithetic else 1)
+        out[measure] = (float(acc["put"].mean[0]), float(acc["put"].std_error[0]))
+        out[f"{measure}_paths"] = paths
+        if measure == "market_consistent":
+            # E_P[(D_T X)^2] = E_Q[Z_T (X / B_T)^2] with Z_T = dQ/dP = 1 / p_density: the
+            # real-world estimator's spread, estimated where its payoff is well sampled.
+            second = float(np.mean(acc["put_sq_over_density"].mean))
+            out["real_world_sd_from_market_consistent"] = float(
+                np.sqrt(max(second - out[measure][0] ** 2, 0.0)))
+        out.update(maturity=t, guarantee=g, level=level)
+    value, sample_se = out["real_world"]
+    cross_se = out["real_world_sd_from_market_consistent"] / np.sqrt(out["real_world_paths"])
+    out["real_world_sample_se"] = sample_se
+    out["real_world"] = (value, float(max(sample_se, cross_se)))
+    try:
+        out["closed_form"] = guarantee_closed_form(
+            inputs, maturity=out["maturity"], guarantee=out["guarantee"], level=out["level"])
+    except (KeyError, TypeError, ValueError):  # a model without the Hull-White + equity record
+        out["closed_form"] = None
+    return out
+
+
+def expected_returns_table(inputs: RunInputs, horizons: tuple[float, ...] = RETURN_HORIZONS) -> pd.DataFrame:
+    """Annualised expected returns by asset and horizon, both measures side by side."""
+    per: dict[str, dict[tuple[str, float], tuple[float, float]]] = {}
+    for measure in ("market_consistent", "real_world"):
+        reader = inputs.reader(measure)
+        names = reader.column_names()
+        bonds = [c for c in names if bond_maturity_of(c) is not None]
+        equity = [c for c in names if c.startswith("equity_")]
+        assets = ["cash_account", *equity, *bonds]
+        times, acc = stream_moments(
+            reader, assets,
+            lambda t, c: {a: c[a] / (c[a][:, :1] if a in equity else 1.0) for a in assets},
+        )
+        values: dict[tuple[str, float], tuple[float, float]] = {}
+        for h in horizons:
+            k = time_index(times, h)
+            if k is None or k == 0:
+                continue
+            for a in assets:
+                if a in bonds:
+                    m = bond_maturity_of(a)
+                    assert m is not None
+                    if h + m > inputs.curve.max_maturity:
+                        continue
+                    a0 = float(inputs.curve.discount(h + m))
+                else:
+                    a0 = 1.0
+                mean, se = float(acc[a].mean[k]), float(acc[a].std_error[k])
+                values[(a, h)] = (np.log(mean / a0) / h, se / mean / h)
+        per[measure] = values
+    rows = []
+    for key in per["market_consistent"]:
+        if key not in per["real_world"]:
+            continue
+        (q, q_se), (p, p_se) = per["market_consistent"][key], per["real_world"][key]
+        asset, h = key
+        m = bond_maturity_of(asset)
+        what = (
+            "cash account" if asset == "cash_account"
+            else f"zero bond maturing at {h + m:g}y" if m is not None else f"{asset} total return"
+        )
+        rows.append({
+            "asset": asset, "description": what, "horizon": h,
+            "market_consistent": q, "market_consistent_se": q_se,
+            "real_world": p, "real_world_se": p_se, "difference": p - q,
+        })
+    return pd.DataFrame(rows)
+
+
+def reconciliation_check(
+    inputs: RunInputs, *, maturity: float = 10.0, guarantee: float | None = None
+) -> CheckResult:
+    """The guarantee three ways (cells), and the expected-returns table."""
+    values = guarantee_values(inputs, maturity=maturity, guarantee=guarantee)
+    returns = expected_returns_table(inputs)
+    if values is None:
+        entry = not_applicable_entry(kind=KIND, reason="no equity index or maturity in the files")
+        return CheckResult(name=CHECK, summary=entry, tables={"expected_returns": returns})
+    cf = values["closed_form"]
+    (q, q_se), (p, p_se) = values["market_consistent"], values["real_world"]
+    rows = []
+    if cf is not None:
+        rows += [
+            {"comparison": "market-consistent set - closed form", "difference": q - cf,
+             "std_error": q_se, "z_score": (q - cf) / q_se if q_se > 0 else 0.0},
+            {"comparison": "real-world set with deflators - closed form", "difference": p - cf,
+             "std_error": p_se, "z_score": (p - cf) / p_se if p_se > 0 else 0.0},
+        ]
+    both = float(np.hypot(p_se, q_se))
+    rows.append({"comparison": "real-world set - market-consistent set", "difference": p - q,
+                 "std_error": both, "z_score": (p - q) / both if both > 0 else 0.0})
+    cells = pd.DataFrame(rows)
+    crit = family_critical_z(len(cells))
+    rule = f"each difference within |z| <= {crit:.2f} standard errors (Bonferroni, family level 99%)"
+    entry = cells_entry(cells, ["comparison", "difference", "z_score"], kind=KIND, rule=rule)
+    if cf is None:
+        entry["warnings"].append("no closed form: calibration.json has no Hull-White and equity parameters")
+    entry["guarantee"] = {
+        "product": "unit-linked maturity guarantee: put on the equity total-return index",
+        "maturity": values["maturity"], "guaranteed_amount": values["guarantee"],
+        "index_level": values["level"],
+    }
+    entry["values"] = {
+        "closed_form": cf,
+        "market_consistent": q, "market_consistent_se": q_se,
+        "real_world": p, "real_world_se": p_se,
+        "real_world_sample_se": values["real_world_sample_se"],
+    }
+    values_table = pd.DataFrame([
+        *([{"method": "closed form (Hull-White + Black)", "value": cf, "std_error": 0.0}] if cf is not None else []),
+        {"method": "market-consistent set", "value": q, "std_error": q_se},
+        {"method": "real-world set with deflators", "value": p, "std_error": p_se},
+    ])
+    return CheckResult(name=CHECK, summary=entry, tables={
+        "reconciliation": pd.concat(
+            [values_table.assign(kind="value"), cells.assign(kind="difference")], ignore_index=True
+        ),
+        "expected_returns": returns,
+    })

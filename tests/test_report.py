@@ -1,0 +1,141 @@
+"""The HTML evidence pack and the Prefect artifact builders.
+
+References used below:
+- HTML structure parsed with Python's standard ``html.parser`` (the page must be well formed
+  enough for it to find every section, chart and link).
+- "Self-contained, opens offline": no ``src``/``href`` to ``http(s)``, no ``url(`` in styles,
+  no script (common practice for archived reports).
+- Prefect's rule for artifact keys, lowercase letters, digits and dashes (Prefect 3
+  ``prefect.artifacts.create_table_artifact`` docstring).
+- Nice axis numbers 1, 2, 5 x 10^k (Heckbert, *Nice Numbers for Graph Labels*, Graphics Gems,
+  1990).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from html import escape
+from html.parser import HTMLParser
+from pathlib import Path
+
+import pytest
+
+from pqflow import CAUTION
+from pqflow.report import write_report
+from pqflow.report.html import SECTIONS
+from pqflow.report.svg import nice_ticks
+from pqflow.storage.manifest import verify_run
+from test_validation_checks import build_run
+
+__all__: list[str] = []
+
+
+class _Collect(HTMLParser):
+    def __init__(self) -> None:
+        super().__init__()
+        self.ids: list[str] = []
+        self.tags: dict[str, int] = {}
+        self.links: list[str] = []
+        self.text: list[str] = []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags[tag] = self.tags.get(tag, 0) + 1
+        for k, v in attrs:
+            if k == "id" and v:
+                self.ids.append(v)
+            if k in ("src", "href", "xlink:href", "action") and v:
+                self.links.append(v)
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+@pytest.fixture(scope="module")
+def finished_run(tmp_path_factory, demo_config_dict) -> Path:
+    return build_run(tmp_path_factory.mktemp("report"), demo_config_dict, scenarios=400, horizon=20)
+
+
+def _parse(path: Path) -> tuple[_Collect, str]:
+    html = path.read_text(encoding="utf-8")
+    p = _Collect()
+    p.feed(html)
+    p.close()
+    return p, html
+
+
+def test_report_has_every_section_and_plot_and_no_external_reference(finished_run):
+    path = write_report(finished_run)
+    assert path == finished_run / "validation" / "report.html"
+    parsed, html = _parse(path)
+    for sid, _ in SECTIONS:
+        assert sid in parsed.ids, sid
+    assert "caution-top" in parsed.ids and "caution-bottom" in parsed.ids
+    # 6 fan charts (3 quantities x 2 sets), 8 martingale charts (deflator, equity, shortest and
+    # longest bond per set), 2 density, 2 market-consistency, 2 real-world target charts.
+    assert parsed.tags.get("svg", 0) >= 20
+    assert parsed.tags.get("script", 0) == 0
+    assert not [u for u in parsed.links if re.match(r"(?i)\s*(https?:)?//", u)]
+    assert all(u.startswith("#") for u in parsed.links)  # in-page links only
+    assert "http://" not in html and "https://" not in html and "url(" not in html
+    assert html.count(escape(CAUTION)) == 2
+    text = " ".join(parsed.text)
+    for needle in ("2026-09-30", "root seed", "configuration sha256", "pqflow 0.1.0",
+                   "American Academy of Actuaries", "swaption 5y x 5y"):
+        assert needle in text, needle
+
+
+def test_report_is_outside_the_manifest_and_rewrites_atomically(finished_run):
+    write_report(finished_run)
+    verify_run(finished_run)  # the derived view does not break the audit trail
+    first = (finished_run / "validation" / "report.html").read_bytes()
+    write_report(finished_run)
+    verify_run(finished_run)
+    assert (finished_run / "validation" / "report.html").read_bytes() == first  # a pure view
+    assert not [p for p in (finished_run / "validation").iterdir() if p.name.startswith(".")]
+
+
+def test_report_before_the_manifest(tmp_path, demo_config_dict):
+    run = build_run(tmp_path, demo_config_dict, scenarios=200, horizon=10, manifest=False, instruments=False)
+    parsed, html = _parse(write_report(run))
+    assert "not written yet" in html
+    assert "no instruments in calibration.json" in html  # market consistency not applicable
+    assert parsed.tags.get("svg", 0) >= 16
+
+
+def test_nice_ticks_are_round_numbers():
+    # Heckbert (1990): steps of 1, 2 or 5 times a power of ten covering the range.
+    assert nice_ticks(0.0, 0.97) == [0.0, 0.2, 0.4, 0.6, 0.8, 1.0]
+    ticks = nice_ticks(-0.013, 0.081)
+    step = ticks[1] - ticks[0]
+    assert ticks[0] <= -0.013 and ticks[-1] >= 0.081
+    assert round(step / 10 ** math.floor(math.log10(step)), 9) in (1, 2, 5)
+
+
+# -- Prefect artifacts ------------------------------------------------------------------------
+
+def test_artifact_builders_and_publish(finished_run, monkeypatch):
+    import prefect.artifacts as artifacts
+
+    import pipeline.artifacts as mod
+    from pqflow.storage.jsonio import read_json
+
+    summary = read_json(finished_run / "validation" / "summary.json")
+    key_rule = re.compile(r"^[a-z0-9-]+$")  # Prefect: lowercase letters, numbers and dashes
+    table = mod.verdict_table(summary)
+    names = {r["check"] for r in table}
+    assert {"market-consistency", "real-world", "reconciliation", "real-world-wealth-ratio-benchmark"} <= names
+    for rows in (table, mod.instrument_table(summary), mod.reconciliation_table(summary)):
+        assert rows
+        assert all(key_rule.match(k) for r in rows for k in r)
+    md = mod.verdict_markdown(summary, "validation/report.html")
+    assert md.count(CAUTION) == 1 and "PASS" in md and "validation/report.html" in md
+
+    calls = []
+    monkeypatch.setattr(artifacts, "create_markdown_artifact",
+                        lambda markdown, key=None, description=None: calls.append(("md", key)) or "id-md")
+    monkeypatch.setattr(artifacts, "create_table_artifact",
+                        lambda table, key=None, description=None: calls.append(("table", key)) or f"id-{key}")
+    ids = mod.publish_artifacts(summary, "validation/report.html")
+    assert [c[0] for c in calls] == ["md", "table", "table", "table"]
+    assert all(key_rule.match(k) for k in ids)
