@@ -40,6 +40,7 @@ SECTIONS = (
     ("market-consistency", "Market consistency"),
     ("real-world", "Real-world checks"),
     ("reconciliation", "Reconciliation"),
+    ("liabilities", "Liability valuation"),
 )
 MEASURES = ("market_consistent", "real_world")
 _FAN_POINTS = 120  # at most this many output times per fan chart (a long monthly grid is thinned)
@@ -533,6 +534,32 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
     return "".join(html)
 
 
+def _liabilities(run_dir: Path) -> str:
+    path = run_dir / "valuation" / "summary.json"
+    if not path.is_file():
+        return ('<p class="note">No liability valuation in this run directory. Run '
+                "<code>pqflow value RUN_DIR --liabilities FILE</code> and then <code>pqflow report RUN_DIR</code>.</p>")
+    val = read_json(path)
+    rec = val.get("reconciliation", {})
+    verdict = {"agree": "pass", "differ": "fail"}.get(str(rec.get("verdict")), rec.get("verdict"))
+    html = [f"<h3>{escape(str(val.get('insurer', '')))}: best estimate and TVOG {_badge(verdict)}</h3>",
+            f'<p class="note">Portfolio {escape(str(val.get("portfolio_file", "")))}; values in '
+            f'{escape(str(val.get("currency", "")))} at {escape(str(val.get("valuation_date", "")))}. '
+            "Real-world values use the deflator (density over cash account); the difference from the "
+            "market-consistent value is shown in standard errors of the difference.</p>"]
+    lines = [line for line in val.get("lines", []) if line.get("level") in ("product", "total")]
+    html.append(_table(lines, [
+        ("name", "line"), ("quantity", "quantity"),
+        ("market_consistent_value", "market consistent"), ("market_consistent_se", "SE"),
+        ("certainty_equivalent_value", "certainty equivalent"), ("tvog", "TVOG"),
+        ("real_world_value", "real world, deflated"), ("real_world_se", "SE"),
+        ("difference_in_se", "difference / SE"),
+    ], fmt={k: (lambda x: _num(x, 0)) for k in ("market_consistent_value", "market_consistent_se",
+                                                  "certainty_equivalent_value", "tvog",
+                                                  "real_world_value", "real_world_se")}))
+    return "".join(html)
+
+
 # -- the page ---------------------------------------------------------------------------------
 
 def build_report_html(run_dir: str | Path) -> str:
@@ -558,6 +585,7 @@ def build_report_html(run_dir: str | Path) -> str:
         "market-consistency": _market_consistency(run_dir, summary),
         "real-world": _real_world(run_dir, summary),
         "reconciliation": _reconciliation(run_dir, summary),
+        "liabilities": _liabilities(run_dir),
     }
     nav = "<nav>" + "".join(f'<a href="#{sid}">{escape(title)}</a>' for sid, title in SECTIONS) + "</nav>"
     body = [f"<h1>pqflow evidence pack: {escape(str(name))}</h1>",
