@@ -1,21 +1,35 @@
 """The quarterly flow: calibrate -> generate both sets in batches -> validate -> manifest.
 
 Tasks pass small records and file paths, never large arrays; the Parquet parts are the real
-outputs. Work is built in a staging folder and published by rename only when every step has
-succeeded, so a failed run never replaces or damages an earlier one.
+outputs. Work is built in a staging folder (``.NAME.staging`` beside the target, under a lock
+file) and published by rename only when every step has succeeded, so a failed run never
+replaces or damages an earlier one. Each finished part is recorded in the staging folder's
+progress file; an interrupted run continues with ``resume=True`` (``pqflow run --resume``),
+keeping every recorded part whose sha256 still matches and regenerating the rest.
+
+Parts are scheduled on a thread pool (default) or on Dask (``runner="dask"``: a local cluster
+of worker processes, or an existing scheduler). The bytes do not depend on the runner: each
+part depends only on the configuration, the seed, the measure and the batch index.
 """
 
 from __future__ import annotations
 
-import uuid
+import os
+import tempfile
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+import pyarrow as pa
 from prefect import flow, task
 from prefect.cache_policies import NO_CACHE
 from prefect.futures import as_completed
 from prefect.task_runners import ThreadPoolTaskRunner
 
+from pqflow import __version__
 from pqflow.calibration.assemble import Calibration, assemble_calibration
 from pqflow.config.loader import apply_overrides, load_config
 from pqflow.config.schema import RunConfig
@@ -29,9 +43,32 @@ from pqflow.jobs.steps import (
     write_run_manifest,
 )
 from pqflow.simulation.plan import Batch
-from pqflow.storage.rundir import discard_staging, prepare_staging, publish_staging
+from pqflow.storage.filesystem import (
+    OutputTarget,
+    check_remote_target,
+    publish_to_filesystem,
+    remote_staging,
+    resolve_target,
+)
+from pqflow.storage.parquet import part_name
+from pqflow.storage.rundir import (
+    StagingState,
+    acquire_lock,
+    discard_staging,
+    fingerprint_of,
+    lock_path,
+    prepare_staging,
+    publish_staging,
+    record_part,
+    release_lock,
+)
 
-__all__ = ["quarterly_run", "run_quarterly"]
+__all__ = ["quarterly_run", "run_quarterly", "run_in_process", "task_runner_for"]
+
+RUNNERS = ("threads", "dask")
+
+
+# ------------------------------------------------------------------------------------ tasks
 
 
 @task(name="calibrate", cache_policy=NO_CACHE)
@@ -58,6 +95,89 @@ def manifest_task(staging: str, config: RunConfig, plan: RunPlan, parts: list[Pa
     return write_run_manifest(staging, config, plan, parts, run_id=run_id)
 
 
+# --------------------------------------------------------------------- one attempt at a run
+
+
+@dataclass(frozen=True, kw_only=True)
+class _Attempt:
+    target: OutputTarget
+    state: StagingState
+    kept: dict[tuple[str, int], PartRecord]
+
+    @property
+    def staging(self) -> str:
+        return str(self.state.path)
+
+    def todo(self, plan: RunPlan) -> list[tuple[str, Batch]]:
+        return [(m, b) for m, b in plan.tasks() if (m, b.index) not in self.kept]
+
+
+def _load(config_path: str | Path, scenarios: int | None, seed: int | None) -> RunConfig:
+    config = load_config(config_path)
+    if scenarios is not None or seed is not None:
+        config = apply_overrides(config, scenarios=scenarios, seed=seed, source=str(config_path))
+    return config
+
+
+def _fingerprint(config: RunConfig) -> str:
+    """What the parts' bytes depend on: the configuration (scheduling aside) and the versions."""
+    data = config.model_dump(mode="json")
+    data.pop("execution", None)
+    return fingerprint_of({"config": data, "pqflow": __version__, "numpy": np.__version__, "pyarrow": pa.__version__})
+
+
+@contextmanager
+def _attempt(
+    config: RunConfig, out_dir: str | Path, *, overwrite: bool, resume: bool, filesystem: Any = None
+) -> Iterator[_Attempt]:
+    """Lock the target, get the staging folder ready (resuming if asked), clean up on failure.
+
+    An exception deletes the staging folder; an interruption (Ctrl-C, SystemExit, or a kill,
+    which runs no code at all) leaves it for ``resume``.
+    """
+    target = resolve_target(out_dir, filesystem=filesystem)
+    if target.is_local:
+        lock, staging, where = lock_path(target.local), None, target.local
+    else:
+        check_remote_target(target, overwrite)
+        staging = remote_staging(target)
+        lock, where = staging.with_name(staging.name + ".lock"), staging
+    acquire_lock(lock, target=target.text)
+    try:
+        state = prepare_staging(
+            where, overwrite=overwrite, resume=resume, fingerprint=_fingerprint(config), staging=staging
+        )
+        kept = {
+            (r["measure"], int(r["batch"])): PartRecord(
+                measure=r["measure"], batch=int(r["batch"]), path=r["path"], rows=int(r["rows"]), sha256=r["sha256"]
+            )
+            for r in state.kept
+        }
+        try:
+            yield _Attempt(target=target, state=state, kept=kept)
+        except Exception:
+            discard_staging(state.path)
+            raise
+    finally:
+        release_lock(lock)
+
+
+def _record(attempt: _Attempt, rec: PartRecord) -> PartRecord:
+    expected = f"scenarios/{rec.measure}/{part_name(rec.batch)}"
+    if rec.path != expected:
+        raise RuntimeError(f"part written to {rec.path}, expected {expected}")
+    record_part(attempt.staging, asdict(rec))
+    return rec
+
+
+def _publish(attempt: _Attempt, overwrite: bool) -> str:
+    if attempt.target.is_local:
+        return str(publish_staging(attempt.staging, attempt.target.local, overwrite=overwrite))
+    published = publish_to_filesystem(attempt.staging, attempt.target, overwrite=overwrite)
+    discard_staging(attempt.staging)
+    return published
+
+
 def _progress(total: int, enabled: bool):
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
@@ -71,6 +191,9 @@ def _progress(total: int, enabled: bool):
     )
 
 
+# -------------------------------------------------------------------------------- the flow
+
+
 @flow(name="quarterly_run", log_prints=False, task_runner=ThreadPoolTaskRunner(max_workers=2))
 def quarterly_run(
     config_path: str,
@@ -79,37 +202,111 @@ def quarterly_run(
     seed: int | None = None,
     overwrite: bool = False,
     show_progress: bool = False,
+    resume: bool = False,
 ) -> dict[str, Any]:
     """One quarter's run: both scenario sets from one calibration, validated, with a manifest.
 
-    Returns ``{"out_dir", "run_id", "summary"}``; raises before any simulation if the
-    configuration or the output directory is unusable.
+    Returns ``{"out_dir", "run_id", "summary", "kept_parts", "regenerated_parts"}``; raises
+    before any simulation if the configuration or the output directory is unusable.
     """
-    config = load_config(config_path)
-    if scenarios is not None or seed is not None:
-        config = apply_overrides(config, scenarios=scenarios, seed=seed, source=config_path)
+    config = _load(config_path, scenarios, seed)
     plan = plan_run(config)
-    run_id = uuid.uuid4().hex
-    staging = str(prepare_staging(out_dir, overwrite=overwrite))
-    try:
-        calibration = calibrate_task(config, staging)
-        futures = [
-            generate_part_task.submit(calibration, plan, measure, batch, staging)
-            for measure, batch in plan.tasks()
-        ]
-        parts: list[PartRecord] = []
-        with _progress(len(futures), show_progress) as progress:
-            bar = progress.add_task("parts", total=len(futures))
+    with _attempt(config, out_dir, overwrite=overwrite, resume=resume) as att:
+        calibration = calibrate_task(config, att.staging)
+        todo = att.todo(plan)
+        futures = [generate_part_task.submit(calibration, plan, m, b, att.staging) for m, b in todo]
+        parts = list(att.kept.values())
+        with _progress(len(plan.tasks()), show_progress) as progress:
+            bar = progress.add_task("parts", total=len(plan.tasks()), completed=len(parts))
             for fut in as_completed(futures):
-                parts.append(fut.result())
+                parts.append(_record(att, fut.result()))
                 progress.advance(bar)
-        summary = validate_task(staging, config)
-        manifest_task(staging, config, plan, parts, run_id)
-        final = publish_staging(staging, out_dir, overwrite=overwrite)
-    except BaseException:
-        discard_staging(staging)
-        raise
-    return {"out_dir": str(final), "run_id": run_id, "summary": summary}
+        summary = validate_task(att.staging, config)
+        manifest_task(att.staging, config, plan, parts, att.state.run_id)
+        final = _publish(att, overwrite)
+    return {
+        "out_dir": final,
+        "run_id": att.state.run_id,
+        "summary": summary,
+        "kept_parts": len(att.kept),
+        "regenerated_parts": list(att.state.discarded),
+    }
+
+
+# ------------------------------------------------------------------------------ task runners
+
+
+def _dask_scratch() -> str:
+    uid = os.getuid() if hasattr(os, "getuid") else "user"
+    path = Path(tempfile.gettempdir()) / f"pqflow-dask-{uid}"
+    path.mkdir(parents=True, exist_ok=True)
+    return str(path)
+
+
+def task_runner_for(runner: str, *, workers: int, dask_address: str | None = None):
+    """The Prefect task runner for ``runner``: ``"threads"`` (``workers`` threads) or ``"dask"``
+    (a local cluster of ``workers`` single-threaded processes, or the scheduler at
+    ``dask_address``)."""
+    if runner == "threads":
+        if dask_address:
+            raise ValueError("a Dask address needs the dask runner")
+        return ThreadPoolTaskRunner(max_workers=max(1, int(workers)))
+    if runner != "dask":
+        raise ValueError(f"unknown task runner {runner!r}: use one of {RUNNERS}")
+    os.environ.setdefault("DASK_LOGGING__DISTRIBUTED", "warning")
+    try:
+        from prefect_dask import DaskTaskRunner
+    except ImportError:
+        raise ValueError("the dask runner needs prefect-dask: pip install 'pqflow[dask]'") from None
+    if dask_address:
+        return DaskTaskRunner(address=dask_address)
+    return DaskTaskRunner(
+        cluster_kwargs={
+            "n_workers": max(1, int(workers)),
+            "processes": True,
+            "threads_per_worker": 1,
+            "dashboard_address": None,
+            "local_directory": _dask_scratch(),
+        }
+    )
+
+
+@contextmanager
+def _shared_api(needed: bool) -> Iterator[None]:
+    """With worker processes and no Prefect API configured, start one temporary API server
+    and hand its URL to every process (otherwise each worker starts its own)."""
+    from prefect.settings import PREFECT_API_URL, get_current_settings, temporary_settings
+
+    if not needed or get_current_settings().api.url:
+        yield
+        return
+    from prefect.server.api.server import SubprocessASGIServer
+
+    server = SubprocessASGIServer()
+    server.start()
+    before = os.environ.get("PREFECT_API_URL")
+    os.environ["PREFECT_API_URL"] = server.api_url  # inherited by spawned local workers
+    try:
+        with temporary_settings(updates={PREFECT_API_URL: server.api_url}):
+            yield
+    finally:
+        _drain_prefect_clients()  # send what is queued while the server still listens
+        if before is None:
+            os.environ.pop("PREFECT_API_URL", None)
+        else:
+            os.environ["PREFECT_API_URL"] = before
+        server.stop()
+
+
+def _drain_prefect_clients() -> None:
+    try:
+        from prefect.events.worker import EventsWorker
+        from prefect.logging.handlers import APILogHandler
+
+        APILogHandler.flush()
+        EventsWorker.drain_all(timeout=5)
+    except Exception:  # noqa: BLE001 (best effort: the run itself has finished)
+        pass
 
 
 def run_quarterly(
@@ -119,16 +316,64 @@ def run_quarterly(
     scenarios: int | None = None,
     seed: int | None = None,
     overwrite: bool = False,
-    workers: int = 2,
+    workers: int | None = None,
     show_progress: bool = False,
+    resume: bool = False,
+    runner: str | None = None,
+    dask_address: str | None = None,
 ) -> dict[str, Any]:
-    """Run the flow with a thread pool of ``workers`` (the Python entry point of ``pqflow run``)."""
-    runner = ThreadPoolTaskRunner(max_workers=max(1, int(workers)))
-    return quarterly_run.with_options(task_runner=runner)(
-        config_path=str(config_path),
-        out_dir=str(out_dir),
-        scenarios=scenarios,
-        seed=seed,
-        overwrite=overwrite,
-        show_progress=show_progress,
-    )
+    """Run the flow (the Python entry point of ``pqflow run``).
+
+    ``runner``, ``workers`` and ``dask_address`` override the configuration's ``[execution]``
+    section (defaults: threads, 2 workers). ``out_dir`` is a local path or a URI that pyarrow
+    can open (``s3://bucket/prefix``).
+    """
+    execution = load_config(config_path).execution
+    kind = runner or ("dask" if dask_address else execution.runner)
+    address = dask_address if dask_address is not None else execution.dask_address
+    n = workers if workers is not None else execution.workers
+    task_runner = task_runner_for(kind, workers=n, dask_address=address if kind == "dask" else None)
+    with _shared_api(kind == "dask"):
+        return quarterly_run.with_options(task_runner=task_runner)(
+            config_path=str(config_path),
+            out_dir=str(out_dir),
+            scenarios=scenarios,
+            seed=seed,
+            overwrite=overwrite,
+            show_progress=show_progress,
+            resume=resume,
+        )
+
+
+def run_in_process(
+    config_path: str | Path,
+    out_dir: str | Path,
+    *,
+    scenarios: int | None = None,
+    seed: int | None = None,
+    overwrite: bool = False,
+    resume: bool = False,
+    filesystem: Any = None,
+) -> dict[str, Any]:
+    """The same run as the flow, one part after another in this process, without Prefect
+    (no API server, no task runner): for scripts, tests and benchmarks. Same files, same bytes.
+    ``filesystem``: a ``pyarrow.fs.FileSystem`` that ``out_dir`` is a path in (else a local path
+    or a URI)."""
+    config = _load(config_path, scenarios, seed)
+    plan = plan_run(config)
+    with _attempt(config, out_dir, overwrite=overwrite, resume=resume, filesystem=filesystem) as att:
+        calibration = assemble_calibration(config)
+        write_calibration(att.staging, calibration)
+        parts = list(att.kept.values())
+        for m, b in att.todo(plan):
+            parts.append(_record(att, generate_part(calibration, plan, m, b, att.staging)))
+        summary = validate_staged_run(att.staging, config)
+        write_run_manifest(att.staging, config, plan, parts, run_id=att.state.run_id)
+        final = _publish(att, overwrite)
+    return {
+        "out_dir": final,
+        "run_id": att.state.run_id,
+        "summary": summary,
+        "kept_parts": len(att.kept),
+        "regenerated_parts": list(att.state.discarded),
+    }

@@ -27,6 +27,7 @@ __all__ = [
     "SimulationSection",
     "OutputsSection",
     "ValidationSection",
+    "ExecutionSection",
     "RunConfig",
 ]
 
@@ -262,6 +263,25 @@ class ValidationSection(_Section):
     ess_warning_share: float = Field(default=0.1, gt=0.0, lt=1.0)
 
 
+class ExecutionSection(_Section):
+    """How the parts are scheduled; the bytes written never depend on it.
+
+    ``runner = "threads"`` (default): a thread pool of ``workers`` threads in the run's process.
+    ``runner = "dask"``: a local Dask cluster of ``workers`` single-threaded worker processes,
+    or, with ``dask_address``, an existing Dask scheduler (``"tcp://host:8786"``).
+    """
+
+    runner: Literal["threads", "dask"] = "threads"
+    workers: int = Field(default=2, ge=1, le=64)
+    dask_address: str | None = Field(default=None, min_length=1)
+
+    @model_validator(mode="after")
+    def _address_needs_dask(self) -> ExecutionSection:
+        if self.dask_address is not None and self.runner != "dask":
+            raise ValueError('dask_address goes with runner = "dask"')
+        return self
+
+
 class RunConfig(_Section):
     """A whole run configuration.
 
@@ -281,6 +301,7 @@ class RunConfig(_Section):
     curve_extrapolation: CurveExtrapolationSection | None = None
     calibration: CalibrationSection = CalibrationSection()
     validation: ValidationSection = ValidationSection()
+    execution: ExecutionSection = ExecutionSection()
 
     _base_dir: Path = PrivateAttr(default=Path("."))
 

@@ -124,16 +124,41 @@ class HullWhiteEquityModel:
         chol = np.linalg.cholesky(self.step_covariance(t0, t1))
         return StepLaw(transition=transition, drift=drift, chol=chol, real_world_shift=shift)
 
-    def columns(self, times: np.ndarray, states: np.ndarray) -> dict[str, np.ndarray]:
+    def columns(
+        self, times: np.ndarray, states: np.ndarray, names: tuple[str, ...] | None = None
+    ) -> dict[str, np.ndarray]:
+        """Output columns ``(n_paths, n_times)`` from states ``(n_paths, n_times, 3)``: all of
+        them, or only ``names``. Each column is one pass over the paths with the deterministic
+        factor of its closed form computed once per time: ``P(t, t+m) = A(t, m) e^{-B(m) x_t}``
+        with ``A(t, m) = P(t, t+m)`` at ``x = 0`` (all maturities in one broadcast) and
+        ``B_t = e^{I_t} B_t|_{I=0}``."""
+        times = np.asarray(times, dtype=float)
+        bonds = {bond_column(m): m for m in self.bond_maturities}
+        equity = equity_column(self.equity.name)
+        wanted = ("short_rate", "cash_account", *bonds, equity) if names is None else tuple(names)
+        unknown = [c for c in wanted if c not in ("short_rate", "cash_account", equity, *bonds)]
+        if unknown:
+            raise ValueError(f"unknown output columns {unknown}")
         x = states[:, :, 0]
-        out: dict[str, np.ndarray] = {
-            "short_rate": x + alpha(self.curve, self.rates, times)[None, :],
-            "cash_account": cash_account(self.curve, self.rates, times[None, :], states[:, :, 1]),
-        }
-        for m in self.bond_maturities:
-            out[bond_column(m)] = zcb_price(self.curve, self.rates, times[None, :], m, x)
-        out[equity_column(self.equity.name)] = np.exp(states[:, :, 2])
-        return out
+        out: dict[str, np.ndarray] = {}
+        if "short_rate" in wanted:
+            out["short_rate"] = np.add(x, alpha(self.curve, self.rates, times)[None, :])
+        if "cash_account" in wanted:
+            cash = np.exp(states[:, :, 1])
+            cash *= cash_account(self.curve, self.rates, times, 0.0)[None, :]
+            out["cash_account"] = cash
+        maturities = np.array([bonds[c] for c in wanted if c in bonds])
+        if maturities.size:
+            # (n_bonds, n_paths, n_times) in one broadcast; each bond column is a contiguous slab.
+            a_factor = zcb_price(self.curve, self.rates, times[None, :], maturities[:, None], 0.0)
+            prices = np.multiply(x[None, :, :], -b_factor(self.rates.mean_reversion, maturities)[:, None, None])
+            np.exp(prices, out=prices)
+            prices *= a_factor[:, None, :]
+            for i, c in enumerate(c for c in wanted if c in bonds):
+                out[c] = prices[i]
+        if equity in wanted:
+            out[equity] = np.exp(states[:, :, 2])
+        return {c: out[c] for c in wanted}
 
     def column_units(self) -> dict[str, str]:
         units = {

@@ -1,21 +1,57 @@
 """The batch engine: exact transitions on the output grid, under either measure.
 
-For each step the model gives the exact law ``s_1 = F s_0 + c + e`` (``pqflow.models.base``).
-The engine draws standard normals ``z`` of shape ``(n_paths, n_steps, d)``, sets ``e = L z``
-(plus the real-world mean shift ``m`` in the real-world set), runs the recursion and turns the
-states into columns. The same ``z`` give the density weights (``pqflow.measure.density``), and
-the deflator is the density over the cash account (real world) or one over the cash account
-(market consistent).
+For each step the model gives the exact law ``s_1 = F s_0 + c + e`` (``pqflow.models.base``),
+``e = L z`` with ``z`` standard normal, plus the real-world mean shift ``m`` in the real-world set.
+Because the recursion is linear, every path splits into a deterministic part and a noise part,
+
+    s_k = mu_k + y_k,    mu_{k+1} = F_k mu_k + c_k (+ m_k),  mu_0 = s_0,
+                         y_{k+1}  = F_k y_k + L_k z_k,       y_0 = 0,
+
+so the deterministic part is computed once per grid and the engine only runs the noise
+recursion, vectorised over paths (time-major buffers, one small matrix product per step). The
+same ``z`` give the density weights (``pqflow.measure.density``): ``log w_k = -/+ sum_j eta_j.z_j
+- sum_j |eta_j|^2 / 2``. The deflator is the density over the cash account (real world) or one
+over the cash account (market consistent).
+
+Antithetic pairs are paths ``(2j, 2j+1)`` driven by ``z`` and ``-z``. The noise part is linear in
+``z`` and IEEE arithmetic rounds symmetrically, so the partner's noise is exactly ``-y``: the
+engine runs the recursion for one path of each pair only. Outputs are the same bits as running
+both.
+
+The step laws of a grid depend only on the model and the grid, not on the batch, so they are
+computed once per process and reused (a small cache keyed on the model's pickled state and the
+grid's bytes); results never depend on whether the cache was warm.
+
+Random numbers: batch ``b`` of measure ``m`` draws ``z`` of shape ``(n_steps, d, n)`` in C order
+(``n = n_paths``, or ``n_paths / 2`` with antithetic sampling) from its own stream
+(``pqflow.simulation.streams``).
 """
 
 from __future__ import annotations
 
+import hashlib
+import pickle
+import threading
+from collections import OrderedDict
+from collections.abc import Sequence
+from dataclasses import dataclass
+
 import numpy as np
 
-from pqflow.measure.density import density_coefficients, log_density_increments
+from pqflow.measure.density import density_coefficients
 from pqflow.models.base import ScenarioModel
 
-__all__ = ["MEASURES", "time_grid", "simulate_batch"]
+__all__ = [
+    "MEASURES",
+    "DENSITY_COLUMN",
+    "GridLaws",
+    "SimulatedStates",
+    "Workspace",
+    "time_grid",
+    "grid_laws",
+    "simulate_states",
+    "simulate_batch",
+]
 
 MEASURES = ("real_world", "market_consistent")
 DENSITY_COLUMN = {"real_world": "q_density", "market_consistent": "p_density"}
@@ -27,16 +63,197 @@ def time_grid(horizon_years: float, steps_per_year: int) -> np.ndarray:
     return np.arange(n + 1, dtype=float) / steps_per_year
 
 
-def _draw(rng: np.random.Generator, n_paths: int, n_steps: int, d: int, antithetic: bool) -> np.ndarray:
-    if not antithetic:
-        return rng.standard_normal((n_paths, n_steps, d))
-    if n_paths % 2:
+@dataclass(frozen=True, kw_only=True)
+class GridLaws:
+    """The exact step laws of a model on one grid, stacked (``K`` steps, ``d`` factors).
+
+    transition: ``F_k``, ``(K, d, d)``; chol: ``L_k``, ``(K, d, d)``;
+    eta: density coefficients ``L_k^{-1} m_k``, ``(K, d)``;
+    half_sq_cum: ``sum_{j<k} |eta_j|^2 / 2``, ``(K + 1,)``;
+    mean: deterministic part ``mu_k`` per measure, ``{measure: (K + 1, d)}``.
+    """
+
+    transition: np.ndarray
+    chol: np.ndarray
+    eta: np.ndarray
+    half_sq_cum: np.ndarray
+    mean: dict[str, np.ndarray]
+
+
+@dataclass(frozen=True, kw_only=True)
+class SimulatedStates:
+    """States and density weights of one batch (the simulation core, before output columns).
+
+    states: ``(d, n_paths, n_times)``, each factor C-contiguous; ``path_states`` is the
+    ``(n_paths, n_times, d)`` view the models take. density: ``(n_paths, n_times)``.
+    """
+
+    states: np.ndarray
+    density: np.ndarray
+
+    @property
+    def path_states(self) -> np.ndarray:
+        return self.states.transpose(1, 2, 0)
+
+
+class Workspace:
+    """Buffers reused from one batch to the next by one worker (one thread at a time).
+
+    Passing a workspace saves allocating (and the operating system zeroing) fresh memory for
+    every batch. The arrays a call returns then live in the workspace: they are valid until the
+    next call that uses the same workspace.
+    """
+
+    def __init__(self) -> None:
+        self._arrays: dict[str, np.ndarray] = {}
+
+    def array(self, name: str, shape: tuple[int, ...]) -> np.ndarray:
+        """An uninitialised float64 array ``name`` of ``shape`` (reused when the shape matches)."""
+        buf = self._arrays.get(name)
+        if buf is None or buf.shape != shape:
+            buf = np.empty(shape)
+            self._arrays[name] = buf
+        return buf
+
+
+def _check_grid(times: np.ndarray) -> None:
+    if times.ndim != 1 or times.size < 1 or times[0] != 0.0 or np.any(np.diff(times) <= 0.0):
+        raise ValueError("times must be a 1-d array that starts at 0 and increases")
+
+
+def _compute_laws(model: ScenarioModel, times: np.ndarray) -> GridLaws:
+    k_steps = times.size - 1
+    d = len(model.state_names)
+    laws = [model.step_law(float(times[k]), float(times[k + 1])) for k in range(k_steps)]
+    transition = np.empty((k_steps, d, d))
+    chol = np.empty((k_steps, d, d))
+    eta = np.empty((k_steps, d))
+    mean_q = np.empty((k_steps + 1, d))
+    mean_p = np.empty((k_steps + 1, d))
+    mean_q[0] = mean_p[0] = model.initial_state()
+    for k, law in enumerate(laws):
+        transition[k] = law.transition
+        chol[k] = law.chol
+        eta[k] = density_coefficients(law)
+        mean_q[k + 1] = law.transition @ mean_q[k] + law.drift
+        mean_p[k + 1] = law.transition @ mean_p[k] + (law.drift + law.real_world_shift)
+    half_sq_cum = np.zeros(k_steps + 1)
+    np.cumsum(0.5 * np.einsum("kd,kd->k", eta, eta), out=half_sq_cum[1:])
+    for a in (transition, chol, eta, half_sq_cum, mean_q, mean_p):
+        a.flags.writeable = False
+    return GridLaws(
+        transition=transition,
+        chol=chol,
+        eta=eta,
+        half_sq_cum=half_sq_cum,
+        mean={"market_consistent": mean_q, "real_world": mean_p},
+    )
+
+
+_LAWS: OrderedDict[bytes, GridLaws] = OrderedDict()
+_LAWS_LOCK = threading.Lock()
+_LAWS_KEEP = 8
+_BLOCK = 32  # time steps per block of the noise recursion (any value gives the same bits)
+
+
+def grid_laws(model: ScenarioModel, times: np.ndarray) -> GridLaws:
+    """Step laws of ``model`` on ``times`` (computed once per process for each model and grid)."""
+    times = np.ascontiguousarray(times, dtype=float)
+    _check_grid(times)
+    key = hashlib.sha256(pickle.dumps(model, protocol=5) + times.tobytes()).digest()
+    with _LAWS_LOCK:  # computing laws is Python-bound: serialising it costs nothing
+        laws = _LAWS.get(key)
+        if laws is None:
+            laws = _compute_laws(model, times)
+            _LAWS[key] = laws
+            while len(_LAWS) > _LAWS_KEEP:
+                _LAWS.popitem(last=False)
+        else:
+            _LAWS.move_to_end(key)
+    return laws
+
+
+def simulate_states(
+    model: ScenarioModel,
+    times: np.ndarray,
+    *,
+    measure: str,
+    n_paths: int,
+    rng: np.random.Generator,
+    antithetic: bool,
+    workspace: Workspace | None = None,
+) -> SimulatedStates:
+    """The simulation core: states and density weights of ``n_paths`` paths under ``measure``.
+
+    Shapes: ``states`` ``(d, n_paths, n_times)``, ``density`` ``(n_paths, n_times)``; the density
+    is ``q_density = dQ/dP`` in the real-world set and ``p_density = dP/dQ`` in the
+    market-consistent set, on the information up to each output time. With a ``workspace`` the
+    returned arrays are its buffers (valid until its next use).
+    """
+    if measure not in MEASURES:
+        raise ValueError(f"unknown measure {measure!r}: use one of {MEASURES}")
+    if n_paths <= 0:
+        raise ValueError("n_paths must be positive")
+    if antithetic and n_paths % 2:
         raise ValueError("antithetic sampling needs an even number of paths")
-    half = rng.standard_normal((n_paths // 2, n_steps, d))
-    z = np.empty((n_paths, n_steps, d))
-    z[0::2] = half
-    np.negative(half, out=z[1::2])
-    return z
+    times = np.ascontiguousarray(times, dtype=float)
+    laws = grid_laws(model, times)
+    k_steps, n_times = times.size - 1, times.size
+    d = laws.mean[measure].shape[1]
+    n = n_paths // 2 if antithetic else n_paths
+    signed_eta = laws.eta if measure == "market_consistent" else -laws.eta
+    mean = laws.mean[measure]  # (n_times, d)
+    half_sq = laws.half_sq_cum  # (n_times,)
+
+    # Outputs: fresh arrays, or the caller's reused buffers; scratch: block-sized, reused.
+    ws = workspace if workspace is not None else Workspace()
+    if workspace is None:
+        states, density = np.empty((d, n_paths, n_times)), np.empty((n_paths, n_times))
+    else:
+        states, density = ws.array("states", (d, n_paths, n_times)), ws.array("density", (n_paths, n_times))
+    states[:, :, 0] = mean[0][:, None]
+    density[:, 0] = 1.0
+    even = slice(0, None, 2) if antithetic else slice(None)
+    # The noise recursion runs time-major over blocks of _BLOCK steps. A block's normals, noise
+    # and density sums stay in cache while the deterministic parts are added and the results
+    # are copied into the path-major outputs (plain strided copies, numpy's fastest transfer).
+    # Drawing block by block gives exactly the numbers of one (K, d, n) draw.
+    z = ws.array("z", (_BLOCK, d, n))
+    y = ws.array("y", (_BLOCK + 1, d, n))  # y[0]: noise at the block's first time
+    lin = ws.array("lin", (_BLOCK + 1, n))  # running sum of -/+ eta_j . z_j
+    out_s = ws.array("out_s", (_BLOCK, d, n))
+    out_w = ws.array("out_w", (_BLOCK, n))
+    tmp = ws.array("tmp", (d, n))
+    y[0] = 0.0
+    lin[0] = 0.0
+    for k0 in range(0, k_steps, _BLOCK):
+        b = min(_BLOCK, k_steps - k0)
+        zb, yb, lb, sb, wb = z[:b], y[: b + 1], lin[: b + 1], out_s[:b], out_w[:b]
+        rng.standard_normal(out=zb)
+        np.matmul(signed_eta[k0 : k0 + b, None, :], zb, out=lb[1:, None, :])
+        np.matmul(laws.chol[k0 : k0 + b], zb, out=yb[1:])
+        for j in range(b):
+            np.matmul(laws.transition[k0 + j], yb[j], out=tmp)
+            yb[j + 1] += tmp
+            lb[j + 1] += lb[j]
+        cols = slice(k0 + 1, k0 + b + 1)
+        m_blk = mean[cols][:, :, None]
+        h_blk = half_sq[cols][:, None]
+        np.add(m_blk, yb[1:], out=sb)  # states = mean + noise
+        states[:, even, cols] = sb.transpose(1, 2, 0)
+        np.subtract(lb[1:], h_blk, out=wb)  # log density = sum - sum |eta|^2 / 2
+        np.exp(wb, out=wb)
+        density[even, cols] = wb.T
+        if antithetic:  # partner paths: noise -y, log-density sum -l
+            np.subtract(m_blk, yb[1:], out=sb)
+            states[:, 1::2, cols] = sb.transpose(1, 2, 0)
+            np.subtract(-h_blk, lb[1:], out=wb)
+            np.exp(wb, out=wb)
+            density[1::2, cols] = wb.T
+        y[0] = yb[b]
+        lin[0] = lb[b]
+    log_w = density
+    return SimulatedStates(states=states, density=log_w)
 
 
 def simulate_batch(
@@ -47,38 +264,32 @@ def simulate_batch(
     n_paths: int,
     rng: np.random.Generator,
     antithetic: bool,
+    columns: Sequence[str] | None = None,
+    workspace: Workspace | None = None,
 ) -> dict[str, np.ndarray]:
     """Simulate ``n_paths`` paths on ``times`` under ``measure``.
 
-    Returns the model's columns plus ``deflator`` and the density column (``q_density`` =
-    dQ/dP in the real-world set, ``p_density`` = dP/dQ in the market-consistent set), each of
-    shape ``(n_paths, n_times)``; antithetic pairs are paths ``(2j, 2j+1)``.
+    Returns the model's columns (all of them, or only ``columns``; ``cash_account`` is always
+    computed) plus ``deflator`` and the density column (``q_density`` = dQ/dP in the
+    real-world set, ``p_density`` = dP/dQ in the market-consistent set), each of shape
+    ``(n_paths, n_times)``; antithetic pairs are paths ``(2j, 2j+1)``.
     """
-    if measure not in MEASURES:
-        raise ValueError(f"unknown measure {measure!r}: use one of {MEASURES}")
-    if times[0] != 0.0 or np.any(np.diff(times) <= 0.0):
-        raise ValueError("times must start at 0 and increase")
-    n_steps = times.size - 1
-    d = len(model.state_names)
-    laws = [model.step_law(float(times[k]), float(times[k + 1])) for k in range(n_steps)]
-    z = _draw(rng, n_paths, n_steps, d, antithetic)
-
-    states = np.empty((n_paths, n_steps + 1, d))
-    states[:, 0, :] = model.initial_state()
-    real_world = measure == "real_world"
-    for k, law in enumerate(laws):
-        inc = z[:, k, :] @ law.chol.T
-        inc += law.drift + law.real_world_shift if real_world else law.drift
-        np.matmul(states[:, k, :], law.transition.T, out=states[:, k + 1, :])
-        states[:, k + 1, :] += inc
-
-    eta = np.stack([density_coefficients(law) for law in laws]) if n_steps else np.zeros((0, d))
-    log_w = np.zeros((n_paths, n_steps + 1))
-    np.cumsum(log_density_increments(z, eta, measure=measure), axis=1, out=log_w[:, 1:])
-    density = np.exp(log_w)
-
-    out = model.columns(times, states)
+    core = simulate_states(
+        model, times, measure=measure, n_paths=n_paths, rng=rng, antithetic=antithetic, workspace=workspace
+    )
+    times = np.asarray(times, dtype=float)
+    if columns is None:
+        out = model.columns(times, core.path_states)
+    else:
+        names = tuple(dict.fromkeys(("cash_account", *columns)))
+        out = model.columns(times, core.path_states, names=names)  # type: ignore[call-arg]
     cash = out["cash_account"]
-    out["deflator"] = density / cash if real_world else 1.0 / cash
+    density = core.density
+    deflator = np.empty(cash.shape) if workspace is None else workspace.array("deflator", cash.shape)
+    if measure == "real_world":
+        np.divide(density, cash, out=deflator)
+    else:
+        np.divide(1.0, cash, out=deflator)
+    out["deflator"] = deflator
     out[DENSITY_COLUMN[measure]] = density
     return out

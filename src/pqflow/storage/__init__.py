@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pqflow.storage.export import export_slice
+from pqflow.storage.filesystem import OutputTarget, resolve_target, verify_target
 from pqflow.storage.jsonio import read_json, write_json_atomic
 from pqflow.storage.manifest import build_manifest, verify_run
 from pqflow.storage.parquet import (
@@ -13,12 +15,14 @@ from pqflow.storage.parquet import (
     read_part,
     write_part,
 )
-from pqflow.storage.rundir import discard_staging, prepare_staging, publish_staging
+from pqflow.storage.rundir import discard_staging, prepare_staging, publish_staging, run_lock
 
 __all__ = [
+    "OutputTarget",
     "batch_table",
     "build_manifest",
     "discard_staging",
+    "export_slice",
     "file_sha256",
     "iter_parts",
     "part_name",
@@ -27,7 +31,10 @@ __all__ = [
     "publish_staging",
     "read_json",
     "read_part",
+    "resolve_target",
+    "run_lock",
     "verify_run",
+    "verify_target",
     "write_json_atomic",
     "write_part",
 ]

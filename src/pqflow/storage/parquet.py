@@ -16,15 +16,20 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import threading
 from collections.abc import Iterator, Sequence
 from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.fs as pafs
 import pyarrow.parquet as pq
 
 __all__ = [
     "PART_GLOB",
+    "KEY_COLUMNS",
+    "WRITE_OPTIONS",
+    "parquet_write_kwargs",
     "part_name",
     "batch_table",
     "write_part",
@@ -35,8 +40,18 @@ __all__ = [
 ]
 
 PART_GLOB = "part-*.parquet"
-_COMPRESSION = "zstd"
-_ROW_GROUP_ROWS = 262_144
+KEY_COLUMNS = ("scenario", "time")
+
+#: How parts are encoded (chosen by ``benchmarks/run.py``, see its Parquet table): zstd at level 1
+#: over byte-stream-split doubles compresses simulated floats best at little cost; dictionary
+#: encoding and statistics only for the two key columns (a dictionary of random doubles is
+#: built and then thrown away, which made writing five times slower). Changing any of these
+#: changes the bytes of every part.
+WRITE_OPTIONS = {
+    "compression": "zstd",
+    "compression_level": 1,
+    "row_group_size": 262_144,
+}
 
 
 def part_name(batch_index: int) -> str:
@@ -65,21 +80,46 @@ def batch_table(
     return table.replace_schema_metadata({k.encode(): v.encode() for k, v in metadata.items()})
 
 
-def write_part(table: pa.Table, path: str | Path) -> Path:
+def parquet_write_kwargs(table: pa.Table | pa.Schema) -> dict:
+    """Keyword arguments of ``pyarrow.parquet.write_table`` for a part with this schema."""
+    schema = table if isinstance(table, pa.Schema) else table.schema
+    floats = [f.name for f in schema if pa.types.is_float64(f.type) and f.name not in KEY_COLUMNS]
+    keys = [c for c in KEY_COLUMNS if c in schema.names]
+    return {
+        **WRITE_OPTIONS,
+        "use_dictionary": keys,
+        "write_statistics": keys,
+        "use_byte_stream_split": floats,
+    }
+
+
+def write_part(table: pa.Table, path: str | Path, *, filesystem: pafs.FileSystem | None = None) -> Path:
     """Write a part under a temporary name, then rename it into place: a crash never leaves a
-    truncated file under a final name."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
-    pq.write_table(
-        table,
-        tmp,
-        compression=_COMPRESSION,
-        row_group_size=_ROW_GROUP_ROWS,
-        write_statistics=True,
-    )
-    os.replace(tmp, path)
-    return path
+    truncated file under a final name.
+
+    ``filesystem``: any ``pyarrow.fs.FileSystem`` (``path`` is then a path inside it); by default
+    the local disk. On object stores the final "rename" is a copy (no atomic rename exists
+    there): a run's readers trust only files listed in its manifest, which is written last.
+    """
+    kwargs = parquet_write_kwargs(table)
+    if filesystem is None:
+        path = Path(path)
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}-{threading.get_ident()}")
+        try:
+            pq.write_table(table, tmp, **kwargs)
+            os.replace(tmp, path)
+        except BaseException:
+            tmp.unlink(missing_ok=True)
+            raise
+        return path
+    target = str(path)
+    parent, _, name = target.rpartition("/")
+    tmp = f"{parent}/.{name}.tmp-{os.getpid()}-{threading.get_ident()}"
+    filesystem.create_dir(parent, recursive=True)
+    pq.write_table(table, tmp, filesystem=filesystem, **kwargs)
+    filesystem.move(tmp, target)
+    return Path(target)
 
 
 def read_part(path: str | Path, columns: Sequence[str] | None = None) -> pa.Table:
@@ -106,9 +146,15 @@ def units_metadata(units: dict[str, str]) -> str:
     return json.dumps(units, sort_keys=True)
 
 
-def file_sha256(path: str | Path) -> str:
+def file_sha256(path: str | Path, *, filesystem: pafs.FileSystem | None = None) -> str:
+    """sha256 of a file's bytes (local, or a path inside ``filesystem``), read in 1 MiB chunks."""
     h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
+    if filesystem is None:
+        with open(path, "rb") as fh:
+            for chunk in iter(lambda: fh.read(1 << 20), b""):
+                h.update(chunk)
+    else:
+        with filesystem.open_input_stream(str(path)) as fh:
+            for chunk in iter(lambda: fh.read(1 << 20), b""):
+                h.update(chunk)
     return h.hexdigest()
