@@ -44,6 +44,12 @@ def _caution() -> None:
     console.print(f"\n[bold yellow]Caution:[/] {CAUTION}", highlight=False)
 
 
+def _verdict_cell(verdict: str, counts: bool) -> str:
+    colour = {"pass": "green", "fail": "red"}.get(verdict, "grey50")
+    label = verdict.replace("_", " ").upper()
+    return f"[{colour}]{label}[/]" + ("" if counts else " [dim](info)[/]")
+
+
 def _summary_table(summary: dict[str, Any]) -> Table:
     table = Table(title="Validation of the written files")
     table.add_column("check")
@@ -53,31 +59,47 @@ def _summary_table(summary: dict[str, Any]) -> Table:
     table.add_column("max |z| / limit", justify="right")
     table.add_column("verdict")
     for name, c in summary["checks"].items():
-        colour = "green" if c["verdict"] == "pass" else "red"
+        counts = bool(c.get("counts_toward_verdict", True))
+        if "cells" not in c:
+            table.add_row(name.replace("_", " "), "", "", "", "", _verdict_cell(c["verdict"], counts))
+            continue
         table.add_row(
             name.replace("_", " "),
             str(c["cells"]),
             f"{c['outside_95']} / {c['expected_outside_95_by_chance']:.1f}",
             f"{c['outside_99']} / {c['expected_outside_99_by_chance']:.1f}",
             f"{c['max_abs_z']:.2f} / {c['family_critical_z']:.2f}",
-            f"[{colour}]{c['verdict'].upper()}[/]",
+            _verdict_cell(c["verdict"], counts),
         )
+        bench = c.get("wealth_ratio_benchmark")
+        if isinstance(bench, dict) and "verdict" in bench:
+            table.add_row(
+                "  equity wealth ratios vs AAA (2005)",
+                str(bench.get("comparisons", "")),
+                "", "", f"{bench.get('failed', 0)} missed",
+                _verdict_cell(bench["verdict"], bool(bench.get("counts_toward_verdict", False))),
+            )
     return table
 
 
 @app.command()
 def run(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
-    out: Annotated[Path, typer.Option("--out", help="Run directory to create.")],
+    out: Annotated[str, typer.Option("--out", help="Run directory to create: a local path, or a URI pyarrow can open (s3://bucket/prefix).")],
     scenarios: Annotated[Optional[int], typer.Option(help="Scenarios per set (overrides the file).")] = None,
     seed: Annotated[Optional[int], typer.Option(help="Root seed (overrides the file).")] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an earlier run in --out once this one succeeds.")] = False,
-    workers: Annotated[int, typer.Option(help="Worker threads generating parts.", min=1, max=64)] = 2,
+    workers: Annotated[Optional[int], typer.Option(help="Worker threads generating parts (default: [execution] workers, 2).", min=1, max=64)] = None,
+    resume: Annotated[bool, typer.Option("--resume", help="Continue an interrupted run into the same --out: keep its parts whose checksums match, regenerate the rest.")] = False,
+    runner: Annotated[Optional[str], typer.Option("--runner", help="Task runner: threads or dask (default: [execution] runner, threads).")] = None,
+    dask_address: Annotated[Optional[str], typer.Option("--dask-address", help="Address of a running Dask scheduler (implies --runner dask).")] = None,
+    dask_workers: Annotated[Optional[int], typer.Option("--dask-workers", help="Worker processes of the local Dask cluster (default: --workers).", min=1, max=64)] = None,
 ) -> None:
     """Calibrate, generate the real-world and market-consistent sets, validate, write the manifest."""
     from pqflow.calibration.assemble import assemble_calibration
     from pqflow.config.loader import apply_overrides, load_config
-    from pqflow.storage.rundir import _check_target
+    from pqflow.storage.filesystem import check_remote_target, resolve_target
+    from pqflow.storage.rundir import check_target
 
     started = time.perf_counter()
     try:
@@ -85,7 +107,16 @@ def run(
         if scenarios is not None or seed is not None:
             cfg = apply_overrides(cfg, scenarios=scenarios, seed=seed, source=str(config))
         assemble_calibration(cfg)  # every input error surfaces here, before Prefect starts
-        _check_target(out.absolute(), overwrite)
+        target = resolve_target(out)
+        if target.is_local:
+            check_target(target.local, overwrite)
+        else:
+            check_remote_target(target, overwrite)
+        if runner is not None and runner not in ("threads", "dask"):
+            raise PqflowError(f"--runner must be threads or dask, not {runner!r}")
+        kind = runner or ("dask" if dask_address else cfg.execution.runner)
+        if kind != "dask" and (dask_address or dask_workers):
+            raise PqflowError("--dask-address and --dask-workers go with --runner dask")
     except PqflowError as exc:
         _fail(exc)
     sim = cfg.simulation
@@ -95,16 +126,24 @@ def run(
         f"{sim.steps_per_year} steps a year, seed {sim.seed}",
         highlight=False,
     )
-    console.print("starting Prefect (local mode, temporary server)...", style="dim")
+    console.print(f"starting Prefect (local mode, temporary server), {kind} runner...", style="dim")
     from pipeline import run_quarterly
 
     try:
         result = run_quarterly(
-            config, out, scenarios=scenarios, seed=seed, overwrite=overwrite, workers=workers,
+            config, out, scenarios=scenarios, seed=seed, overwrite=overwrite,
+            workers=(dask_workers or workers) if kind == "dask" else workers,
             show_progress=sys.stderr.isatty() or sys.stdout.isatty(),
+            resume=resume, runner=kind, dask_address=dask_address,
         )
     except PqflowError as exc:
         _fail(exc)
+    if resume:
+        console.print(
+            f"resumed: kept {result['kept_parts']} finished parts, regenerated "
+            f"{len(result['regenerated_parts'])} damaged or unrecorded ones",
+            highlight=False,
+        )
     summary = result["summary"]
     console.print(_summary_table(summary))
     console.print(f"rule: {summary['rule']}", style="dim", highlight=False)
@@ -217,6 +256,109 @@ def _print_fit(payload: dict[str, Any]) -> None:
         console.print(table)
 
 
+_LINE_LABEL = {"unit_linked_gmmb": "unit-linked", "participating": "with-profits", "deferred_annuity_gao": "annuity+GAO"}
+
+
+@app.command()
+def value(
+    run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
+    liabilities: Annotated[Path, typer.Option("--liabilities", help="Liability portfolio file (TOML).")],
+    out: Annotated[Optional[Path], typer.Option("--out", help="Folder for the results (default RUN_DIR/valuation).")] = None,
+) -> None:
+    """Value liabilities with guarantees on both scenario sets: best estimate, certainty
+    equivalent, TVOG, and the real-world set with deflators beside the market-consistent one."""
+    from pqflow.liabilities import value_liabilities_cli
+
+    try:
+        summary = value_liabilities_cli(run_dir, liabilities, out)
+    except PqflowError as exc:
+        _fail(exc)
+    currency = summary.get("currency", "")
+    table = Table(title=f"Liability values, {currency} thousands (real world discounted with deflators)")
+    for col in ("line", "", "market consistent", "cert. equiv.", "TVOG", "real world", "diff/SE"):
+        table.add_column(col, justify="left" if col in ("line", "quantity") else "right")
+
+    def k(value: float, se: float | None = None) -> str:
+        return f"{value / 1e3:,.0f}" + ("" if se is None else f" ± {se / 1e3:,.0f}")
+
+    for line in summary["lines"]:
+        if line.get("level") not in ("product", "total"):
+            continue
+        table.add_row(
+            _LINE_LABEL.get(line["name"], line["name"]),
+            {"best_estimate": "BE"}.get(line["quantity"], line["quantity"]),
+            k(line["market_consistent_value"], line["market_consistent_se"]),
+            k(line["certainty_equivalent_value"]), k(line["tvog"]),
+            k(line["real_world_value"], line["real_world_se"]),
+            f"{line['difference_in_se']:+.2f}",
+        )
+    console.print(table)
+    verdict = summary.get("reconciliation", {}).get("verdict")
+    if verdict:
+        colour = "green" if verdict == "agree" else "red"
+        console.print(f"reconciliation of the two sets: [{colour}]{verdict.upper()}[/]", highlight=False)
+    for path in summary.get("files", []):
+        console.print(f"written: {path}", style="dim", highlight=False)
+    if out is None and (run_dir / "validation" / "summary.json").is_file():
+        from pqflow.report import write_report
+
+        console.print(f"report updated: {write_report(run_dir)}", style="dim", highlight=False)
+    _caution()
+    if verdict == "differ":
+        raise typer.Exit(code=1)
+
+
+@app.command()
+def report(run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")]) -> None:
+    """Write validation/report.html: one self-contained page with every check and plot."""
+    from pqflow.report import write_report
+
+    try:
+        path = write_report(run_dir)
+    except PqflowError as exc:
+        _fail(exc)
+    console.print(f"report written to {path}", style="green", highlight=False)
+    _caution()
+
+
+def _short(cell: str) -> str:
+    """Hashes and run ids shown by their first 12 characters, as git does."""
+    text = str(cell)
+    if len(text) >= 32 and all(ch in "0123456789abcdef" for ch in text):
+        return text[:12]
+    return text
+
+
+@app.command()
+def compare(
+    run_a: Annotated[Path, typer.Argument(help="The earlier run (e.g. last quarter).")],
+    run_b: Annotated[Path, typer.Argument(help="The later run.")],
+    html: Annotated[Optional[Path], typer.Option("--html", help="Also write the comparison as an HTML page.")] = None,
+    all_rows: Annotated[bool, typer.Option("--all", help="Show unchanged items too.")] = False,
+) -> None:
+    """What moved between two runs: inputs, parameters, check results, reconciliation values."""
+    from pqflow.report import compare_runs, render_compare_text, write_compare_html
+    from pqflow.report.compare import COMPARE_COLUMNS
+
+    try:
+        comparison = compare_runs(run_a, run_b)
+    except PqflowError as exc:
+        _fail(exc)
+    table = Table(title=f"{run_a} -> {run_b}")
+    for col in COMPARE_COLUMNS:
+        table.add_column(col, overflow="fold")
+    shown = 0
+    for row in render_compare_text(comparison):
+        if all_rows or (row[-1] not in ("", "unchanged", "=")):
+            table.add_row(*(_short(cell) for cell in row))
+            shown += 1
+    console.print(table if shown else "no differences in inputs, parameters, checks or reconciliation")
+    if html is not None:
+        path = write_compare_html(comparison, html)
+        console.print(f"comparison page written to {path}", style="green", highlight=False)
+    _caution()
+
+
 @app.command()
 def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")]) -> None:
     """Check every file of a run against its manifest (sizes and sha256)."""
@@ -233,6 +375,31 @@ def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run director
 def version() -> None:
     """Print the version."""
     console.print(__version__)
+
+
+@app.command()
+def export(
+    run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
+    measure: Annotated[str, typer.Option("--measure", help="real_world or market_consistent.")],
+    fmt: Annotated[str, typer.Option("--format", help="csv or parquet.")] = "csv",
+    columns: Annotated[Optional[str], typer.Option("--columns", help="Comma-separated columns (default: all); scenario and time always come first.")] = None,
+    scenarios: Annotated[Optional[str], typer.Option("--scenarios", help="Scenarios FIRST:STOP (FIRST to STOP-1, e.g. 0:100); default all.")] = None,
+    out: Annotated[Optional[Path], typer.Option("--out", help="File to write (default: CSV on standard output).")] = None,
+) -> None:
+    """Stream a slice of one scenario set to CSV or Parquet, checking each part read against the manifest."""
+    from pqflow.storage.export import export_slice
+
+    cols = [c.strip() for c in columns.split(",") if c.strip()] if columns else None
+    try:
+        result = export_slice(run_dir, measure=measure, fmt=fmt, columns=cols, scenarios=scenarios, out=out)
+    except PqflowError as exc:
+        _fail(exc)
+    if out is not None:
+        console.print(
+            f"{result.rows:,} rows of scenarios {result.first_scenario}..{result.stop_scenario - 1} "
+            f"({', '.join(result.columns)}) written to {out}; units in {out}.meta.json",
+            highlight=False,
+        )
 
 
 def main() -> None:
