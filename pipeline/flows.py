@@ -30,18 +30,20 @@ from prefect.futures import as_completed
 from prefect.task_runners import ThreadPoolTaskRunner
 
 from pqflow import __version__
-from pqflow.calibration.assemble import Calibration, assemble_calibration
+from pqflow.calibration.assemble import Calibration
+from pqflow.storage.parquet import file_sha256
 from pqflow.config.loader import apply_overrides, load_config
 from pqflow.config.schema import RunConfig
 from pqflow.jobs.steps import (
     PartRecord,
     RunPlan,
+    calibrate_step,
     generate_part,
     plan_run,
     validate_staged_run,
-    write_calibration,
     write_run_manifest,
 )
+from pqflow.report import write_report
 from pqflow.simulation.plan import Batch
 from pqflow.storage.filesystem import (
     OutputTarget,
@@ -72,10 +74,8 @@ RUNNERS = ("threads", "dask")
 
 
 @task(name="calibrate", cache_policy=NO_CACHE)
-def calibrate_task(config: RunConfig, staging: str) -> Calibration:
-    calibration = assemble_calibration(config)
-    write_calibration(staging, calibration)
-    return calibration
+def calibrate_task(config: RunConfig, staging: str, calibration_file: str | None = None) -> Calibration:
+    return calibrate_step(config, staging, calibration_file)
 
 
 @task(name="generate-part", cache_policy=NO_CACHE, retries=2, retry_delay_seconds=1)
@@ -88,6 +88,11 @@ def generate_part_task(
 @task(name="validate", cache_policy=NO_CACHE)
 def validate_task(staging: str, config: RunConfig) -> dict[str, Any]:
     return validate_staged_run(staging, config)
+
+
+@task(name="report", cache_policy=NO_CACHE)
+def report_task(staging: str) -> str:
+    return str(write_report(staging))
 
 
 @task(name="write-manifest", cache_policy=NO_CACHE)
@@ -119,16 +124,20 @@ def _load(config_path: str | Path, scenarios: int | None, seed: int | None) -> R
     return config
 
 
-def _fingerprint(config: RunConfig) -> str:
-    """What the parts' bytes depend on: the configuration (scheduling aside) and the versions."""
+def _fingerprint(config: RunConfig, calibration_file: str | Path | None = None) -> str:
+    """What the parts' bytes depend on: the configuration (scheduling aside), a stored
+    calibration if one is used, and the versions."""
     data = config.model_dump(mode="json")
     data.pop("execution", None)
-    return fingerprint_of({"config": data, "pqflow": __version__, "numpy": np.__version__, "pyarrow": pa.__version__})
+    stored = file_sha256(calibration_file) if calibration_file is not None else None
+    return fingerprint_of({"config": data, "calibration_file": stored, "pqflow": __version__,
+                           "numpy": np.__version__, "pyarrow": pa.__version__})
 
 
 @contextmanager
 def _attempt(
-    config: RunConfig, out_dir: str | Path, *, overwrite: bool, resume: bool, filesystem: Any = None
+    config: RunConfig, out_dir: str | Path, *, overwrite: bool, resume: bool, filesystem: Any = None,
+    calibration_file: str | Path | None = None,
 ) -> Iterator[_Attempt]:
     """Lock the target, get the staging folder ready (resuming if asked), clean up on failure.
 
@@ -145,7 +154,7 @@ def _attempt(
     acquire_lock(lock, target=target.text)
     try:
         state = prepare_staging(
-            where, overwrite=overwrite, resume=resume, fingerprint=_fingerprint(config), staging=staging
+            where, overwrite=overwrite, resume=resume, fingerprint=_fingerprint(config, calibration_file), staging=staging
         )
         kept = {
             (r["measure"], int(r["batch"])): PartRecord(
@@ -203,16 +212,18 @@ def quarterly_run(
     overwrite: bool = False,
     show_progress: bool = False,
     resume: bool = False,
+    calibration_file: str | None = None,
 ) -> dict[str, Any]:
-    """One quarter's run: both scenario sets from one calibration, validated, with a manifest.
+    """One quarter's run: both scenario sets from one calibration, validated, with a manifest
+    and the report; ``calibration_file`` uses a stored calibration instead of fitting.
 
     Returns ``{"out_dir", "run_id", "summary", "kept_parts", "regenerated_parts"}``; raises
     before any simulation if the configuration or the output directory is unusable.
     """
     config = _load(config_path, scenarios, seed)
     plan = plan_run(config)
-    with _attempt(config, out_dir, overwrite=overwrite, resume=resume) as att:
-        calibration = calibrate_task(config, att.staging)
+    with _attempt(config, out_dir, overwrite=overwrite, resume=resume, calibration_file=calibration_file) as att:
+        calibration = calibrate_task(config, att.staging, calibration_file)
         todo = att.todo(plan)
         futures = [generate_part_task.submit(calibration, plan, m, b, att.staging) for m, b in todo]
         parts = list(att.kept.values())
@@ -223,7 +234,9 @@ def quarterly_run(
                 progress.advance(bar)
         summary = validate_task(att.staging, config)
         manifest_task(att.staging, config, plan, parts, att.state.run_id)
+        report_task(att.staging)
         final = _publish(att, overwrite)
+    _artifacts(summary, final)
     return {
         "out_dir": final,
         "run_id": att.state.run_id,
@@ -231,6 +244,13 @@ def quarterly_run(
         "kept_parts": len(att.kept),
         "regenerated_parts": list(att.state.discarded),
     }
+
+
+def _artifacts(summary: dict[str, Any], out_dir: str) -> None:
+    """The verdicts as Prefect artifacts, so the run's result shows in Prefect's UI."""
+    from pipeline.artifacts import publish_artifacts
+
+    publish_artifacts(summary, str(Path(out_dir) / "validation" / "report.html"))
 
 
 # ------------------------------------------------------------------------------ task runners
@@ -321,6 +341,7 @@ def run_quarterly(
     resume: bool = False,
     runner: str | None = None,
     dask_address: str | None = None,
+    calibration_file: str | Path | None = None,
 ) -> dict[str, Any]:
     """Run the flow (the Python entry point of ``pqflow run``).
 
@@ -342,6 +363,7 @@ def run_quarterly(
             overwrite=overwrite,
             show_progress=show_progress,
             resume=resume,
+            calibration_file=str(calibration_file) if calibration_file is not None else None,
         )
 
 
@@ -354,6 +376,7 @@ def run_in_process(
     overwrite: bool = False,
     resume: bool = False,
     filesystem: Any = None,
+    calibration_file: str | Path | None = None,
 ) -> dict[str, Any]:
     """The same run as the flow, one part after another in this process, without Prefect
     (no API server, no task runner): for scripts, tests and benchmarks. Same files, same bytes.
@@ -361,14 +384,15 @@ def run_in_process(
     or a URI)."""
     config = _load(config_path, scenarios, seed)
     plan = plan_run(config)
-    with _attempt(config, out_dir, overwrite=overwrite, resume=resume, filesystem=filesystem) as att:
-        calibration = assemble_calibration(config)
-        write_calibration(att.staging, calibration)
+    with _attempt(config, out_dir, overwrite=overwrite, resume=resume, filesystem=filesystem,
+                  calibration_file=calibration_file) as att:
+        calibration = calibrate_step(config, att.staging, calibration_file)
         parts = list(att.kept.values())
         for m, b in att.todo(plan):
             parts.append(_record(att, generate_part(calibration, plan, m, b, att.staging)))
         summary = validate_staged_run(att.staging, config)
         write_run_manifest(att.staging, config, plan, parts, run_id=att.state.run_id)
+        write_report(att.staging)
         final = _publish(att, overwrite)
     return {
         "out_dir": final,

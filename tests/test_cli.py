@@ -39,3 +39,17 @@ def test_check_command_and_caution_in_help(small_config):
     help_text = runner.invoke(app, ["--help"]).output
     assert "qualified" in help_text.replace("\n", " ")
     assert "sign-off" in CAUTION
+
+
+def test_reading_commands_check_the_manifest_first(small_config, tmp_path):
+    from pipeline import run_in_process
+
+    out = tmp_path / "run"
+    run_in_process(small_config(), out)
+    part = out / "scenarios" / "real_world" / "part-00002.parquet"
+    part.write_bytes(part.read_bytes()[:-10])  # truncated
+    for args in (["report", str(out)], ["value", str(out), "--liabilities", "x.toml"],
+                 ["compare", str(out), str(out)]):
+        result = runner.invoke(app, args)
+        assert result.exit_code == 2, (args, result.output)
+        assert "part-00002.parquet" in result.output

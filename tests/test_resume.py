@@ -10,6 +10,8 @@ sha256 digests (FIPS 180-4, via hashlib) of every file.
 from __future__ import annotations
 
 import hashlib
+
+from pqflow.storage.manifest import DERIVED_VIEWS
 import json
 import os
 import signal
@@ -34,7 +36,10 @@ def _digests(run_dir: Path) -> dict[str, str]:
     return {
         p.relative_to(run_dir).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
         for p in sorted(run_dir.rglob("*"))
+        # The report is a derived view that shows the creation time: outside the comparison,
+        # as it is outside the manifest.
         if p.is_file() and p.name != "manifest.json"
+        and p.relative_to(run_dir).as_posix() not in DERIVED_VIEWS
     }
 
 

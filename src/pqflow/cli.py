@@ -40,6 +40,13 @@ def _fail(exc: Exception) -> None:
     raise typer.Exit(code=2)
 
 
+def _verified(run_dir: Path) -> None:
+    """Reading a finished run starts with its manifest: a changed or truncated file is named."""
+    from pqflow.storage.manifest import verify_run
+
+    verify_run(run_dir)
+
+
 def _caution() -> None:
     console.print(f"\n[bold yellow]Caution:[/] {CAUTION}", highlight=False)
 
@@ -94,11 +101,16 @@ def run(
     runner: Annotated[Optional[str], typer.Option("--runner", help="Task runner: threads or dask (default: [execution] runner, threads).")] = None,
     dask_address: Annotated[Optional[str], typer.Option("--dask-address", help="Address of a running Dask scheduler (implies --runner dask).")] = None,
     dask_workers: Annotated[Optional[int], typer.Option("--dask-workers", help="Worker processes of the local Dask cluster (default: --workers).", min=1, max=64)] = None,
+    calibration: Annotated[Optional[Path], typer.Option("--calibration", help="Use this stored calibration.json (from 'pqflow calibrate') instead of fitting.")] = None,
 ) -> None:
     """Calibrate, generate the real-world and market-consistent sets, validate, write the manifest."""
-    from pqflow.calibration.assemble import assemble_calibration
+    import shutil
+    import tempfile
+
+    from pqflow.calibration.assemble import assemble_calibration, check_calibration_fits, load_calibration
     from pqflow.config.loader import apply_overrides, load_config
     from pqflow.storage.filesystem import check_remote_target, resolve_target
+    from pqflow.storage.jsonio import write_json_atomic
     from pqflow.storage.rundir import check_target
 
     started = time.perf_counter()
@@ -106,7 +118,16 @@ def run(
         cfg = load_config(config)
         if scenarios is not None or seed is not None:
             cfg = apply_overrides(cfg, scenarios=scenarios, seed=seed, source=str(config))
-        assemble_calibration(cfg)  # every input error surfaces here, before Prefect starts
+        # Every input error surfaces here, before Prefect starts; the fitted calibration is then
+        # handed to the flow as a file, so it is fitted once.
+        if calibration is not None:
+            cal = load_calibration(calibration)
+            check_calibration_fits(cal, cfg, source=str(calibration))
+            calibration_file = calibration
+        else:
+            cal = assemble_calibration(cfg)
+            scratch = Path(tempfile.mkdtemp(prefix="pqflow-calibration-"))
+            calibration_file = write_json_atomic(scratch / "calibration.json", cal.to_json())
         target = resolve_target(out)
         if target.is_local:
             check_target(target.local, overwrite)
@@ -134,10 +155,13 @@ def run(
             config, out, scenarios=scenarios, seed=seed, overwrite=overwrite,
             workers=(dask_workers or workers) if kind == "dask" else workers,
             show_progress=sys.stderr.isatty() or sys.stdout.isatty(),
-            resume=resume, runner=kind, dask_address=dask_address,
+            resume=resume, runner=kind, dask_address=dask_address, calibration_file=calibration_file,
         )
     except PqflowError as exc:
         _fail(exc)
+    finally:
+        if calibration is None:
+            shutil.rmtree(calibration_file.parent, ignore_errors=True)
     if resume:
         console.print(
             f"resumed: kept {result['kept_parts']} finished parts, regenerated "
@@ -270,6 +294,7 @@ def value(
     from pqflow.liabilities import value_liabilities_cli
 
     try:
+        _verified(run_dir)
         summary = value_liabilities_cli(run_dir, liabilities, out)
     except PqflowError as exc:
         _fail(exc)
@@ -314,6 +339,7 @@ def report(run_dir: Annotated[Path, typer.Argument(help="A finished run director
     from pqflow.report import write_report
 
     try:
+        _verified(run_dir)
         path = write_report(run_dir)
     except PqflowError as exc:
         _fail(exc)
@@ -341,6 +367,8 @@ def compare(
     from pqflow.report.compare import COMPARE_COLUMNS
 
     try:
+        _verified(run_a)
+        _verified(run_b)
         comparison = compare_runs(run_a, run_b)
     except PqflowError as exc:
         _fail(exc)

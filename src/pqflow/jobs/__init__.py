@@ -5,6 +5,7 @@ from __future__ import annotations
 from pqflow.jobs.steps import (
     PartRecord,
     RunPlan,
+    calibrate_step,
     generate_part,
     plan_run,
     validate_staged_run,
@@ -15,6 +16,7 @@ from pqflow.jobs.steps import (
 __all__ = [
     "PartRecord",
     "RunPlan",
+    "calibrate_step",
     "generate_part",
     "plan_run",
     "validate_staged_run",

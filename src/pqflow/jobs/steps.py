@@ -34,6 +34,7 @@ __all__ = [
     "RunPlan",
     "PartRecord",
     "plan_run",
+    "calibrate_step",
     "write_calibration",
     "generate_part",
     "validate_staged_run",
@@ -85,6 +86,19 @@ def plan_run(config: RunConfig) -> RunPlan:
 
 def write_calibration(run_dir: str | Path, calibration: Calibration) -> Path:
     return write_json_atomic(Path(run_dir) / "calibration.json", calibration.to_json())
+
+
+def calibrate_step(config: RunConfig, run_dir: str | Path, calibration_file: str | Path | None = None) -> Calibration:
+    """Fit the calibration (or read a stored one, without refitting) and write it to the run."""
+    from pqflow.calibration.assemble import assemble_calibration, check_calibration_fits, load_calibration
+
+    if calibration_file is None:
+        calibration = assemble_calibration(config)
+    else:
+        calibration = load_calibration(calibration_file)
+        check_calibration_fits(calibration, config, source=str(calibration_file))
+    write_calibration(run_dir, calibration)
+    return calibration
 
 
 def _part_metadata(calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, units: dict[str, str]) -> dict[str, str]:
