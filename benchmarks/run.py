@@ -210,7 +210,7 @@ def bench_parquet(tmp: Path) -> dict[str, Any]:
 
     cfg, cal, _ = _model(make_config(tmp / "pq.toml", scenarios=1000, batch_size=1000, horizon_years=50, steps_per_year=12))
     plan = plan_run(cfg)
-    rec = generate_part(cal, plan, "real_world", plan.batches[0], tmp / "pqsrc")
+    rec = generate_part(cal, plan, "real_world", plan.batches_for("real_world")[0], tmp / "pqsrc")
     table = read_part(tmp / "pqsrc" / rec.path)
     raw = table.nbytes
     floats = [f.name for f in table.schema if f.name not in KEY_COLUMNS and str(f.type) == "double"]
@@ -379,7 +379,7 @@ def scaling_child(scenarios: int, steps_per_year: int, workdir: str) -> None:
     cal = assemble_calibration(cfg)
     plan = plan_run(cfg)
     t0 = time.perf_counter()
-    for b in plan.batches:
+    for b in plan.batches_for("real_world"):
         generate_part(cal, plan, "real_world", b, work)
     t1 = time.perf_counter()
     reader = ScenarioSetReader(run_dir=work, measure="real_world")
@@ -390,7 +390,7 @@ def scaling_child(scenarios: int, steps_per_year: int, workdir: str) -> None:
     shutil.rmtree(work)
     print(json.dumps({"generate_seconds": t1 - t0, "validate_seconds": t2 - t1, "bytes": size,
                       "vmhwm_mb": _vmhwm_mb(),
-                      "path_steps": scenarios * (plan.times.size - 1), "parts": len(plan.batches)}))
+                      "path_steps": scenarios * (plan.times_for("real_world").size - 1), "parts": len(plan.batches_for("real_world"))}))
 
 
 def _vmhwm_mb() -> float:

@@ -14,6 +14,20 @@ DEMO = REPO / "scenario_configs" / "demo.toml"
 DEMO_TYPED = REPO / "scenario_configs" / "demo_typed.toml"
 
 
+def run_digests(run_dir: Path) -> dict[str, str]:
+    """sha256 of every file of a run except the manifest (it records the creation time) and the
+    derived views (the report shows it too)."""
+    import hashlib
+
+    from pqflow.storage.manifest import DERIVED_VIEWS
+
+    return {
+        p.relative_to(run_dir).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
+        for p in sorted(run_dir.rglob("*"))
+        if p.is_file() and p.name != "manifest.json" and p.relative_to(run_dir).as_posix() not in DERIVED_VIEWS
+    }
+
+
 @pytest.fixture(scope="session")
 def demo_config_dict() -> dict[str, Any]:
     with open(DEMO_TYPED, "rb") as fh:

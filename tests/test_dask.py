@@ -7,22 +7,19 @@ the run without Prefect (``run_in_process``), compared by sha256 (FIPS 180-4, vi
 
 from __future__ import annotations
 
-import hashlib
 import json
 import logging
 from pathlib import Path
 
 import pytest
 
+from conftest import run_digests
+
 pytestmark = pytest.mark.flow
 
 
 def _digests(run_dir: Path) -> dict[str, str]:
-    return {
-        p.relative_to(run_dir).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
-        for p in sorted(run_dir.rglob("*"))
-        if p.is_file() and p.name != "manifest.json"
-    }
+    return run_digests(run_dir)
 
 
 def _laws_cached() -> int:

@@ -9,9 +9,7 @@ sha256 digests (FIPS 180-4, via hashlib) of every file.
 
 from __future__ import annotations
 
-import hashlib
 
-from pqflow.storage.manifest import DERIVED_VIEWS
 import json
 import os
 import signal
@@ -24,6 +22,8 @@ from pathlib import Path
 
 import pytest
 
+from conftest import run_digests
+
 from pqflow.errors import RunDirectoryError
 from pqflow.storage.manifest import verify_run
 from pqflow.storage.rundir import PROGRESS, acquire_lock, lock_path, release_lock, staging_path
@@ -33,14 +33,7 @@ STOP_AFTER = 5  # parts finished before the run hangs and is killed (of 8)
 
 
 def _digests(run_dir: Path) -> dict[str, str]:
-    return {
-        p.relative_to(run_dir).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
-        for p in sorted(run_dir.rglob("*"))
-        # The report is a derived view that shows the creation time: outside the comparison,
-        # as it is outside the manifest.
-        if p.is_file() and p.name != "manifest.json"
-        and p.relative_to(run_dir).as_posix() not in DERIVED_VIEWS
-    }
+    return run_digests(run_dir)
 
 
 def _manifest_files(run_dir: Path) -> list[dict]:

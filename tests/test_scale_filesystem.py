@@ -8,22 +8,19 @@ inspected; the reference is the same run written to a local path, compared by sh
 
 from __future__ import annotations
 
-import hashlib
 import json
 
 import pyarrow.fs as pafs
 import pytest
+
+from conftest import run_digests
 
 from pqflow.errors import IntegrityError, RunDirectoryError
 from pqflow.storage.filesystem import remote_staging, resolve_target, verify_target
 
 
 def _local_digests(run_dir):
-    return {
-        p.relative_to(run_dir).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
-        for p in sorted(run_dir.rglob("*"))
-        if p.is_file() and p.name != "manifest.json"
-    }
+    return run_digests(run_dir)
 
 
 def test_run_to_a_non_local_filesystem_matches_the_local_run(small_config, tmp_path, monkeypatch):

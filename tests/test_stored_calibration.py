@@ -56,3 +56,31 @@ def test_stored_calibration_must_fit_the_run(small_config, tmp_path):
     broken.write_text("{}")
     with pytest.raises(ConfigError, match="not a pqflow calibration file"):
         run_in_process(cfg, tmp_path / "c", calibration_file=broken)
+
+
+def test_each_set_may_have_its_own_grid(small_config, tmp_path, demo_config_dict):
+    # A standard quarter (common practice): a monthly real-world set for projections and a
+    # longer annual market-consistent set for valuation, from one calibration.
+    import pyarrow.parquet as pq
+
+    from conftest import write_toml
+    from pqflow.config import load_config
+    from pqflow.jobs import plan_run
+
+    import copy
+
+    data = copy.deepcopy(demo_config_dict)
+    data["simulation"].update({"scenarios": 200, "batch_size": 100, "horizon_years": 20})
+    data["real_world"]["target_year"] = 10
+    data["simulation.real_world"] = {"horizon_years": 5, "steps_per_year": 12}
+    data["simulation.market_consistent"] = {"scenarios": 400}
+    cfg = write_toml(tmp_path / "grids.toml", data)
+    plan = plan_run(load_config(cfg))
+    assert plan.times_for("real_world").size == 61 and plan.times_for("market_consistent").size == 21
+    result = run_in_process(cfg, tmp_path / "run")
+    assert result["summary"]["verdict"] == "pass", result["summary"]
+    rw = pq.read_table(tmp_path / "run/scenarios/real_world/part-00001.parquet")
+    mc = pq.read_table(tmp_path / "run/scenarios/market_consistent/part-00003.parquet")
+    assert rw.column("time").to_numpy().max() == 5.0 and mc.column("scenario").to_numpy().max() == 399
+    manifest = json.loads((tmp_path / "run/manifest.json").read_text())
+    assert manifest["scenarios"] == {"real_world": 200, "market_consistent": 400}

@@ -200,7 +200,7 @@ def check_calibration_fits(calibration: Calibration, config: RunConfig, *, sourc
             f"{source}: calibration is for equity index {calibration.equity.name!r} but the "
             f"configuration names {config.equity.name!r}"
         )
-    need = config.simulation.horizon_years + max(config.outputs.bond_maturities)
+    need = config.simulation.max_horizon_years + max(config.outputs.bond_maturities)
     if need > calibration.curve.max_maturity + 1e-9:
         raise ConfigError(
             f"{source}: the calibrated curve ends at {calibration.curve.max_maturity:g} years but the "
@@ -439,7 +439,7 @@ def _real_world(
     config: RunConfig, curve: DiscountCurve, hw: HullWhiteParams, vol: float | PiecewiseConstant
 ) -> tuple[PricesOfRisk, dict[str, Any]]:
     rw = config.real_world
-    horizon = config.simulation.horizon_years
+    horizon = config.simulation.max_horizon_years
     view: dict[str, Any]
     if rw.rates_market_price_of_risk is not None:
         lam_r: float | PiecewiseConstant = rw.rates_market_price_of_risk
@@ -486,7 +486,7 @@ def _inputs(config: RunConfig) -> dict[str, Any]:
         value = getattr(config, name)
         if value is not None:
             inputs[name] = value.model_dump(mode="json")
-    inputs["simulation_horizon_years"] = config.simulation.horizon_years
+    inputs["simulation_horizon_years"] = config.simulation.max_horizon_years
     files = {}
     if config.market_data is not None:
         for kind in ("curve", "swaptions", "equity_index", "equity_vols", "correlations"):
@@ -519,7 +519,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     canon = json.dumps(inputs, sort_keys=True, separators=(",", ":")).encode("utf-8")
     return Calibration(
         valuation_date=config.run.valuation_date.isoformat(),
-        horizon_years=config.simulation.horizon_years,
+        horizon_years=config.simulation.max_horizon_years,
         curve=curve,
         rates=rates,
         equity=equity,

@@ -24,6 +24,7 @@ __all__ = [
     "HullWhiteSection",
     "EquitySection",
     "RealWorldSection",
+    "SetGridSection",
     "SimulationSection",
     "OutputsSection",
     "ValidationSection",
@@ -216,8 +217,19 @@ class RealWorldSection(_Section):
         return None
 
 
+class SetGridSection(_Section):
+    """Per-set overrides of the grid: a standard quarter often wants a monthly real-world set
+    and an annual, longer market-consistent one."""
+
+    scenarios: int | None = Field(default=None, gt=0, le=10_000_000)
+    horizon_years: float | None = Field(default=None, gt=0.0, le=150.0)
+    steps_per_year: int | None = Field(default=None, gt=0, le=365)
+
+
 class SimulationSection(_Section):
-    """Size and randomness of both scenario sets."""
+    """Size and randomness of both scenario sets; ``[simulation.real_world]`` and
+    ``[simulation.market_consistent]`` may override ``scenarios``, ``horizon_years`` and
+    ``steps_per_year`` for one set."""
 
     scenarios: int = Field(gt=0, le=10_000_000)
     horizon_years: float = Field(gt=0.0, le=150.0)
@@ -225,16 +237,34 @@ class SimulationSection(_Section):
     seed: int = Field(ge=0, lt=2**63)
     batch_size: int = Field(gt=0, le=1_000_000)
     antithetic: bool
+    real_world: SetGridSection | None = None
+    market_consistent: SetGridSection | None = None
+
+    def grid(self, measure: str) -> tuple[int, float, int]:
+        """``(scenarios, horizon_years, steps_per_year)`` of one set."""
+        over = getattr(self, measure) or SetGridSection()
+        return (
+            over.scenarios if over.scenarios is not None else self.scenarios,
+            over.horizon_years if over.horizon_years is not None else self.horizon_years,
+            over.steps_per_year if over.steps_per_year is not None else self.steps_per_year,
+        )
+
+    @property
+    def max_horizon_years(self) -> float:
+        return max(self.grid(m)[1] for m in ("real_world", "market_consistent"))
 
     @model_validator(mode="after")
     def _grid(self) -> SimulationSection:
-        steps = self.horizon_years * self.steps_per_year
-        if abs(steps - round(steps)) > 1e-9:
-            raise ValueError(
-                f"horizon_years x steps_per_year = {steps:g} is not a whole number of steps"
-            )
-        if self.antithetic and (self.scenarios % 2 or self.batch_size % 2):
-            raise ValueError("with antithetic = true, scenarios and batch_size must be even")
+        for measure in ("real_world", "market_consistent"):
+            scenarios, horizon, spy = self.grid(measure)
+            where = "" if getattr(self, measure) is None else f" (simulation.{measure})"
+            steps = horizon * spy
+            if abs(steps - round(steps)) > 1e-9:
+                raise ValueError(
+                    f"horizon_years x steps_per_year = {steps:g} is not a whole number of steps{where}"
+                )
+            if self.antithetic and (scenarios % 2 or self.batch_size % 2):
+                raise ValueError(f"with antithetic = true, scenarios and batch_size must be even{where}")
         return self
 
     @property
@@ -338,7 +368,7 @@ class RunConfig(_Section):
 
     @model_validator(mode="after")
     def _curve_covers(self) -> RunConfig:
-        need = self.simulation.horizon_years + max(self.outputs.bond_maturities)
+        need = self.simulation.max_horizon_years + max(self.outputs.bond_maturities)
         if self.curve is not None:
             have, key = self.curve.maturities[-1], "curve.maturities ends at"
         else:
@@ -346,7 +376,7 @@ class RunConfig(_Section):
             have, key = self.curve_extrapolation.long_end_years, "curve_extrapolation.long_end_years is"
         if need > have + 1e-9:
             raise ValueError(
-                f"simulation.horizon_years ({self.simulation.horizon_years:g}) plus the longest "
+                f"simulation.horizon_years ({self.simulation.max_horizon_years:g}) plus the longest "
                 f"outputs.bond_maturities ({max(self.outputs.bond_maturities):g}) needs the curve "
                 f"to {need:g} years, but {key} {have:g}"
             )

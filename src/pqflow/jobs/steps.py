@@ -32,6 +32,7 @@ from pqflow.storage.parquet import batch_table, file_sha256, part_name, units_me
 
 __all__ = [
     "RunPlan",
+    "SetPlan",
     "PartRecord",
     "plan_run",
     "calibrate_step",
@@ -48,18 +49,37 @@ MEASURE_TEXT = {
 
 
 @dataclass(frozen=True, kw_only=True)
-class RunPlan:
-    """Output grid and batches, shared by both sets."""
+class SetPlan:
+    """Output grid and batches of one scenario set."""
 
     times: np.ndarray
     batches: tuple[Batch, ...]
+
+
+@dataclass(frozen=True, kw_only=True)
+class RunPlan:
+    """Output grids and batches of both sets (they may differ per set)."""
+
+    sets: dict[str, SetPlan]
     seed: int
     antithetic: bool
     bond_maturities: tuple[float, ...]
 
+    def times_for(self, measure: str) -> np.ndarray:
+        return self.sets[measure].times
+
+    def batches_for(self, measure: str) -> tuple[Batch, ...]:
+        return self.sets[measure].batches
+
     def tasks(self) -> list[tuple[str, Batch]]:
         """Every (measure, batch) pair, interleaved so both sets advance together."""
-        return [(m, b) for b in self.batches for m in MEASURES]
+        out = []
+        longest = max(len(p.batches) for p in self.sets.values())
+        for i in range(longest):
+            for m in MEASURES:
+                if i < len(self.sets[m].batches):
+                    out.append((m, self.sets[m].batches[i]))
+        return out
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -75,9 +95,15 @@ class PartRecord:
 
 def plan_run(config: RunConfig) -> RunPlan:
     sim = config.simulation
+    sets = {}
+    for measure in MEASURES:
+        scenarios, horizon, spy = sim.grid(measure)
+        sets[measure] = SetPlan(
+            times=time_grid(horizon, spy),
+            batches=plan_batches(scenarios, sim.batch_size, antithetic=sim.antithetic),
+        )
     return RunPlan(
-        times=time_grid(sim.horizon_years, sim.steps_per_year),
-        batches=plan_batches(sim.scenarios, sim.batch_size, antithetic=sim.antithetic),
+        sets=sets,
         seed=sim.seed,
         antithetic=sim.antithetic,
         bond_maturities=tuple(config.outputs.bond_maturities),
@@ -125,7 +151,7 @@ def generate_part(
     model = build_model(calibration, plan.bond_maturities)
     rng = batch_generator(plan.seed, measure, batch.index)
     cols = simulate_batch(
-        model, plan.times, measure=measure, n_paths=batch.size, rng=rng, antithetic=plan.antithetic
+        model, plan.times_for(measure), measure=measure, n_paths=batch.size, rng=rng, antithetic=plan.antithetic
     )
     units = model.column_units()
     units["deflator"] = (
@@ -138,7 +164,7 @@ def generate_part(
     order += [DENSITY_COLUMN[measure]]
     table = batch_table(
         {c: cols[c] for c in order},
-        plan.times,
+        plan.times_for(measure),
         first_scenario=batch.first,
         metadata=_part_metadata(calibration, plan, measure, batch, units),
     )
@@ -202,10 +228,11 @@ def write_run_manifest(
             "root_seed": plan.seed,
             "scheme": "numpy SeedSequence(root_seed, spawn_key=(measure_stream, batch)), PCG64",
             "measure_streams": MEASURE_STREAM,
-            "batches": len(plan.batches),
+            "batches": {m: len(p.batches) for m, p in plan.sets.items()},
         },
-        "scenarios": int(sum(b.size for b in plan.batches)),
-        "output_times": int(plan.times.size),
+        "scenarios": {m: int(sum(b.size for b in p.batches)) for m, p in plan.sets.items()},
+        "output_times": {m: int(p.times.size) for m, p in plan.sets.items()},
+        "horizon_years": {m: float(p.times[-1]) for m, p in plan.sets.items()},
         "antithetic": plan.antithetic,
         "caution": CAUTION,
     }

@@ -72,6 +72,12 @@ class Comparison:
                 "checks": self.checks, "reconciliation": self.reconciliation}
 
 
+def _per_set_text(value: Any) -> Any:
+    if isinstance(value, dict):
+        return ", ".join(f"{m}: {v}" for m, v in value.items())
+    return value
+
+
 def _is_num(v: Any) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(float(v))
 
@@ -188,7 +194,7 @@ def _identity(cal: dict[str, Any], manifest: dict[str, Any]) -> dict[str, Any]:
         "configuration sha256": manifest.get("config_sha256"),
         "calibration inputs sha256": cal.get("inputs_sha256"),
         "root seed": (manifest.get("seeds") or {}).get("root_seed"),
-        "scenarios per set": manifest.get("scenarios"),
+        "scenarios per set": _per_set_text(manifest.get("scenarios")),
         "pqflow version": manifest.get("pqflow_version", cal.get("pqflow_version")),
     }
 

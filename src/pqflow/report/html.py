@@ -164,6 +164,14 @@ def write_html_atomic(path: str | Path, html: str) -> Path:
 
 # -- sections -------------------------------------------------------------------------------
 
+def _per_set(value: Any) -> str:
+    """``{"real_world": 2000, ...}`` as "real world 2,000 · market consistent 2,000"."""
+    if isinstance(value, dict):
+        return " · ".join(f"{m.replace('_', ' ')} {v:,}" if isinstance(v, int) else f"{m.replace('_', ' ')} {v:g}"
+                          for m, v in value.items())
+    return "–" if value is None else f"{value:,}" if isinstance(value, int) else str(value)
+
+
 def _identity(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any]) -> str:
     if manifest is None:
         pairs: list[tuple[str, Any]] = [
@@ -180,8 +188,9 @@ def _identity(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any
             ("configuration sha256", manifest.get("config_sha256", "–")),
             ("root seed", str(seeds.get("root_seed", "–"))),
             ("seed scheme", seeds.get("scheme", "–")),
-            ("scenarios per set", manifest.get("scenarios")),
-            ("output times", manifest.get("output_times")),
+            ("scenarios per set", _per_set(manifest.get("scenarios"))),
+            ("output times", _per_set(manifest.get("output_times"))),
+            ("horizon (years)", _per_set(manifest.get("horizon_years"))),
             ("antithetic", "yes" if manifest.get("antithetic") else "no"),
             ("versions", f"pqflow {manifest.get('pqflow_version', '?')}, Python {manifest.get('python', '?')}, "
                          f"numpy {manifest.get('numpy', '?')}, pyarrow {manifest.get('pyarrow', '?')}"),
