@@ -22,7 +22,6 @@ fixed (``fixed={"rho": -0.7}``), a common practice when it is poorly identified.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
 from typing import Any, Literal
 
 import numpy as np
@@ -30,6 +29,7 @@ from scipy.optimize import least_squares
 
 from pqflow.calibration.formulas import implied_vol
 from pqflow.calibration.swaptions import (
+    SwaptionFitReport,
     SwaptionFitRow,
     SwaptionQuote,
     fixed_leg_schedule,
@@ -53,35 +53,9 @@ _BP = 1e-4
 _DEFAULT_START = G2PlusPlusParams(a=0.5, sigma=0.01, b=0.05, eta=0.008, rho=-0.5)
 
 
-@dataclass(frozen=True, kw_only=True)
-class G2SwaptionFitReport:
-    """Result of a G2++ fit to swaption quotes.
-
-    params: the fitted parameters (``a >= b``). rows: one per quote, in input order (as in the
-    Hull-White fit). rmse_bp: root mean square (unweighted, over all quotes) of
-    ``vol_difference_bp``. price_rmse_bp: the same of the price errors, in basis points of
-    notional. objective: ``"implied_vol"`` or ``"price"``. fitted: names of the parameters
-    that were fitted (those held fixed are absent). at_bound: fitted parameters that ended on a
-    bound. success, status, message: those of ``scipy.optimize.least_squares``;
-    n_function_evaluations and n_jacobian_evaluations count its work.
-    """
-
-    params: G2PlusPlusParams
-    rows: tuple[SwaptionFitRow, ...]
-    rmse_bp: float
-    price_rmse_bp: float
-    objective: str
-    fitted: tuple[str, ...]
-    at_bound: tuple[str, ...]
-    success: bool
-    status: int
-    message: str
-    n_function_evaluations: int
-    n_jacobian_evaluations: int
-
-    def as_records(self) -> list[dict[str, Any]]:
-        """The rows as plain dictionaries (for tables and JSON)."""
-        return [dict(vars(r)) for r in self.rows]
+#: The G2++ fit reports exactly what the Hull-White fit reports (``params`` holds
+#: :class:`G2PlusPlusParams`, with ``a >= b``; ``fitted`` omits parameters held fixed).
+G2SwaptionFitReport = SwaptionFitReport
 
 
 def g2pp_swaption_price(

@@ -140,7 +140,7 @@ class SwaptionFitReport:
     n_jacobian_evaluations count its work (one Jacobian per iteration).
     """
 
-    params: HullWhiteParams
+    params: Any  # HullWhiteParams here; G2PlusPlusParams for the G2++ fit
     rows: tuple[SwaptionFitRow, ...]
     rmse_bp: float
     price_rmse_bp: float
