@@ -53,3 +53,19 @@ def test_reading_commands_check_the_manifest_first(small_config, tmp_path):
         result = runner.invoke(app, args)
         assert result.exit_code == 2, (args, result.output)
         assert "part-00002.parquet" in result.output
+
+
+def test_value_then_report_shows_the_liability_section(tmp_path):
+    from conftest import REPO
+    from pipeline import run_in_process
+
+    out = tmp_path / "run"
+    run_in_process(REPO / "scenario_configs" / "demo_typed.toml", out, scenarios=200)
+    result = runner.invoke(
+        app, ["value", str(out), "--liabilities", str(REPO / "scenario_configs" / "demo_liabilities.toml")]
+    )
+    assert result.exit_code in (0, 1), result.output  # 1 only if the two sets disagree
+    assert (out / "valuation" / "liability_values.csv").is_file()
+    html = (out / "validation" / "report.html").read_text(encoding="utf-8")
+    assert 'id="liabilities"' in html and "Larkspur Mutual Life (invented)" in html
+    assert runner.invoke(app, ["verify", str(out)]).exit_code == 0

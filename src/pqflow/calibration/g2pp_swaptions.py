@@ -22,7 +22,7 @@ fixed (``fixed={"rho": -0.7}``), a common practice when it is poorly identified.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from typing import Any, Literal
+from typing import Literal
 
 import numpy as np
 from scipy.optimize import least_squares
