@@ -10,8 +10,9 @@ STAMP  := $(VENV)/.installed-stamp
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
-	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e ".[test,dask]"
+	@echo "installing pqflow and its dependencies into $(VENV) (log: $(VENV)/install.log)"
+	@$(BIN)/python -m pip install --upgrade pip > $(VENV)/install.log 2>&1 || (cat $(VENV)/install.log; exit 1)
+	@$(BIN)/python -m pip install -e ".[test,dask]" >> $(VENV)/install.log 2>&1 || (cat $(VENV)/install.log; exit 1)
 	@touch $(STAMP)
 
 venv: $(STAMP)

@@ -144,7 +144,7 @@ def run(
     console.print(
         f"[bold]pqflow {__version__}[/] run [cyan]{cfg.run.name}[/] valuation date "
         f"{cfg.run.valuation_date}: {sim.scenarios:,} scenarios per set, {sim.horizon_years:g} years, "
-        f"{sim.steps_per_year} steps a year, seed {sim.seed}",
+        f"{sim.steps_per_year} step{'s' if sim.steps_per_year != 1 else ''} a year, seed {sim.seed}",
         highlight=False,
     )
     console.print(f"starting Prefect (local mode, temporary server), {kind} runner...", style="dim")
@@ -179,6 +179,11 @@ def run(
         f"overall verdict: [{colour}]{summary['verdict'].upper()}[/]; run written to "
         f"{result['out_dir']} in {time.perf_counter() - started:.1f} s",
         highlight=False,
+    )
+    console.print(
+        f"evidence pack: {Path(result['out_dir']) / 'validation' / 'report.html'} (open in a browser)\n"
+        f"next: pqflow value {out} --liabilities FILE   (e.g. scenario_configs/demo_liabilities.toml)",
+        style="dim", highlight=False,
     )
     _caution()
     if summary["verdict"] != "pass":
