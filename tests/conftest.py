@@ -7,6 +7,7 @@ import tomllib
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pytest
 
 REPO = Path(__file__).resolve().parents[1]
@@ -79,3 +80,17 @@ def prefect_harness():
 
     with prefect_test_harness(server_startup_timeout=90):
         yield
+
+
+def assert_gaussian_moments(sample: np.ndarray, mean: np.ndarray, cov: np.ndarray) -> None:
+    """Sample mean and covariance of ``sample`` ``(n, d)`` within 4 standard errors of the exact
+    Gaussian ``mean`` and ``cov`` (the SE of a sample covariance of Gaussian data:
+    ``sqrt((S_ii S_jj + S_ij^2) / n)``, Anderson, An Introduction to Multivariate Statistical
+    Analysis, from memory)."""
+    n = sample.shape[0]
+    se_mean = np.sqrt(np.diag(cov) / n)
+    assert np.all(np.abs(sample.mean(axis=0) - mean) < 4.0 * se_mean)  # 4 standard errors
+    sample_cov = np.cov(sample, rowvar=False)
+    d = np.sqrt(np.diag(cov))
+    se_cov = np.sqrt((np.outer(d, d) ** 2 + cov**2) / n)
+    assert np.all(np.abs(sample_cov - cov) < 4.0 * se_cov)  # 4 standard errors

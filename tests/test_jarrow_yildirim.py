@@ -34,6 +34,8 @@ import math
 
 import numpy as np
 import pytest
+
+from conftest import assert_gaussian_moments
 import QuantLib as ql
 from scipy.integrate import quad
 
@@ -248,16 +250,6 @@ def _states_from_columns(model: JarrowYildirimModel, t: float, out: dict, k: int
     return np.stack([x, y, integral, np.log(out["cpi"][:, k])], axis=1)
 
 
-def _assert_moments(sample: np.ndarray, mean: np.ndarray, cov: np.ndarray) -> None:
-    n = sample.shape[0]
-    se_mean = np.sqrt(np.diag(cov) / n)
-    assert np.all(np.abs(sample.mean(axis=0) - mean) < 4.0 * se_mean)  # 4 standard errors
-    sample_cov = np.cov(sample, rowvar=False)
-    d = np.sqrt(np.diag(cov))
-    se_cov = np.sqrt((np.outer(d, d) ** 2 + cov**2) / n)
-    assert np.all(np.abs(sample_cov - cov) < 4.0 * se_cov)  # 4 standard errors
-
-
 @pytest.mark.parametrize("measure", ["market_consistent", "real_world"])
 @pytest.mark.parametrize("times", [(0.0, 1.0), (0.0, 2.0, 4.0)], ids=["one-step", "two-steps"])
 def test_moments_by_simulation(measure, times):
@@ -270,7 +262,7 @@ def test_moments_by_simulation(measure, times):
     sample = _states_from_columns(model, float(grid[-1]), out)
     s0 = np.array([0.0, 0.0, 0.0, math.log(CPI0)])
     mean = _exact_mean(0.0, float(grid[-1]), s0, real_world=measure == "real_world")
-    _assert_moments(sample, mean, _exact_cov(0.0, float(grid[-1])))
+    assert_gaussian_moments(sample, mean, _exact_cov(0.0, float(grid[-1])))
 
 
 def _within(sample: np.ndarray, target: np.ndarray, n_se: float = 4.0) -> bool:

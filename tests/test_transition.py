@@ -30,6 +30,8 @@ import math
 
 import numpy as np
 import pytest
+
+from conftest import assert_gaussian_moments
 from scipy.integrate import quad
 
 from pqflow.market.curve import LogDiscountCurve
@@ -178,16 +180,6 @@ def _states_from_columns(model: HullWhiteEquityModel, times: np.ndarray, out: di
     return np.stack([x, integral, log_s], axis=1)
 
 
-def _assert_moments(sample: np.ndarray, mean: np.ndarray, cov: np.ndarray) -> None:
-    n = sample.shape[0]
-    se_mean = np.sqrt(np.diag(cov) / n)
-    assert np.all(np.abs(sample.mean(axis=0) - mean) < 4.0 * se_mean)  # 4 standard errors
-    sample_cov = np.cov(sample, rowvar=False)
-    d = np.sqrt(np.diag(cov))
-    se_cov = np.sqrt((np.outer(d, d) ** 2 + cov**2) / n)
-    assert np.all(np.abs(sample_cov - cov) < 4.0 * se_cov)  # 4 standard errors
-
-
 @pytest.mark.parametrize("measure", ["market_consistent", "real_world"])
 @pytest.mark.parametrize("dt", [1.0, 1.0 / 12.0])
 def test_one_step_moments_by_simulation(measure: str, dt: float) -> None:
@@ -200,7 +192,7 @@ def test_one_step_moments_by_simulation(measure: str, dt: float) -> None:
     sample = _states_from_columns(model, times, out)
     s0 = np.array([0.0, 0.0, math.log(S0)])
     mean = _exact_mean(0.0, dt, s0, real_world=measure == "real_world")
-    _assert_moments(sample, mean, _exact_cov(dt))
+    assert_gaussian_moments(sample, mean, _exact_cov(dt))
 
 
 @pytest.mark.parametrize("measure", ["market_consistent", "real_world"])
@@ -216,7 +208,7 @@ def test_two_steps_compose_to_the_exact_law(measure: str) -> None:
     sample = _states_from_columns(model, times, out)
     s0 = np.array([0.0, 0.0, math.log(S0)])
     mean = _exact_mean(0.0, 6.0, s0, real_world=measure == "real_world")
-    _assert_moments(sample, mean, _exact_cov(6.0))
+    assert_gaussian_moments(sample, mean, _exact_cov(6.0))
 
 
 def test_martingale_facts_under_q() -> None:

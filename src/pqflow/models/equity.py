@@ -22,7 +22,7 @@ from pqflow.market.curve import DiscountCurve
 from pqflow.models.hull_white import HullWhiteParams, integrated_variance, phi2
 from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
 
-__all__ = ["EquityParams", "equity_total_variance", "equity_option_price"]
+__all__ = ["EquityParams", "black_on_forward", "equity_total_variance", "equity_option_price"]
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -79,7 +79,13 @@ def equity_option_price(
         raise ValueError("expiry and strike must be positive")
     df = float(curve.discount(expiry))
     forward = equity.level * np.exp(-equity.dividend_yield * expiry) / df
-    sd = np.sqrt(equity_total_variance(rates, equity, expiry))
+    return black_on_forward(df, forward, strike, equity_total_variance(rates, equity, expiry), kind)
+
+
+def black_on_forward(df: float, forward: float, strike: float, total_variance: float, kind: str) -> float:
+    """Black's formula ``df [F N(d1) - K N(d2)]`` (call) or its put, from the total variance of
+    ``ln F_T`` under the T-forward measure (Black 1976)."""
+    sd = float(np.sqrt(total_variance))
     d1 = np.log(forward / strike) / sd + 0.5 * sd
     d2 = d1 - sd
     if kind == "call":

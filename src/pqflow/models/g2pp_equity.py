@@ -41,7 +41,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import norm
 
 from pqflow.market.curve import DiscountCurve
 from pqflow.models.base import StepLaw
@@ -54,7 +53,8 @@ from pqflow.models.g2pp import (
     zcb_price,
 )
 from pqflow.models.hull_white import b_factor, phi2
-from pqflow.models.hull_white_equity import bond_column, equity_column
+from pqflow.models.equity import black_on_forward
+from pqflow.models.hull_white_equity import bond_column, equity_column, rates_equity_units
 from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
 
 __all__ = [
@@ -265,14 +265,7 @@ class G2PlusPlusEquityModel:
         return {c: out[c] for c in wanted}
 
     def column_units(self) -> dict[str, str]:
-        units = {
-            "short_rate": "per year, continuously compounded",
-            "cash_account": "currency units per unit invested at time 0",
-        }
-        for m in self.bond_maturities:
-            units[bond_column(m)] = f"price of a zero-coupon bond paying 1 at time + {m:g} years"
-        units[equity_column(self.equity.name)] = "total-return index level (dividends reinvested)"
-        return units
+        return rates_equity_units(self.bond_maturities, self.equity.name)
 
 
 def real_world_factor_means(
@@ -347,11 +340,4 @@ def equity_option_price(
         raise ValueError("expiry and strike must be positive")
     df = float(curve.discount(expiry))
     forward = equity.level * np.exp(-equity.dividend_yield * expiry) / df
-    sd = np.sqrt(equity_total_variance(rates, equity, expiry))
-    d1 = np.log(forward / strike) / sd + 0.5 * sd
-    d2 = d1 - sd
-    if kind == "call":
-        return float(df * (forward * norm.cdf(d1) - strike * norm.cdf(d2)))
-    if kind == "put":
-        return float(df * (strike * norm.cdf(-d2) - forward * norm.cdf(-d1)))
-    raise ValueError(f"kind must be 'call' or 'put', not {kind!r}")
+    return black_on_forward(df, forward, strike, equity_total_variance(rates, equity, expiry), kind)

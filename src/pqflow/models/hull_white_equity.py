@@ -41,12 +41,24 @@ from pqflow.models.hull_white import (
 )
 from pqflow.models.schedule import segments
 
-__all__ = ["HullWhiteEquityModel", "bond_column", "equity_column"]
+__all__ = ["HullWhiteEquityModel", "bond_column", "equity_column", "rates_equity_units"]
 
 
 def bond_column(maturity: float) -> str:
     """Column name of the zero-coupon bond with ``maturity`` years to run: ``zcb_10y``."""
     return f"zcb_{maturity:g}y"
+
+
+def rates_equity_units(bond_maturities: tuple[float, ...], equity_name: str) -> dict[str, str]:
+    """Units of the columns every rates-plus-equity model writes."""
+    units = {
+        "short_rate": "per year, continuously compounded",
+        "cash_account": "currency units per unit invested at time 0",
+    }
+    for m in bond_maturities:
+        units[bond_column(m)] = f"price of a zero-coupon bond paying 1 at time + {m:g} years"
+    units[equity_column(equity_name)] = "total-return index level (dividends reinvested)"
+    return units
 
 
 def equity_column(name: str) -> str:
@@ -161,11 +173,4 @@ class HullWhiteEquityModel:
         return {c: out[c] for c in wanted}
 
     def column_units(self) -> dict[str, str]:
-        units = {
-            "short_rate": "per year, continuously compounded",
-            "cash_account": "currency units per unit invested at time 0",
-        }
-        for m in self.bond_maturities:
-            units[bond_column(m)] = f"price of a zero-coupon bond paying 1 at time + {m:g} years"
-        units[equity_column(self.equity.name)] = "total-return index level (dividends reinvested)"
-        return units
+        return rates_equity_units(self.bond_maturities, self.equity.name)
