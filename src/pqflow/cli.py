@@ -212,8 +212,10 @@ def calibrate(
     out: Annotated[Path, typer.Option("--out", help="calibration.json to write.")],
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an existing file.")] = False,
 ) -> None:
-    """Fit the one shared calibration (curve, Hull-White, equity volatility, prices of risk) and
-    write it with its fit report, without simulating."""
+    """Fit the one shared calibration and write it with its fit report, without simulating.
+
+    Curve (Smith-Wilson), Hull-White to swaptions, equity volatility, market prices of risk.
+    """
     from pqflow.calibration.assemble import assemble_calibration
     from pqflow.config.loader import load_config
     from pqflow.storage.jsonio import write_json_atomic
@@ -294,8 +296,11 @@ def value(
     liabilities: Annotated[Path, typer.Option("--liabilities", help="Liability portfolio file (TOML).")],
     out: Annotated[Optional[Path], typer.Option("--out", help="Folder for the results (default RUN_DIR/valuation).")] = None,
 ) -> None:
-    """Value liabilities with guarantees on both scenario sets: best estimate, certainty
-    equivalent, TVOG, and the real-world set with deflators beside the market-consistent one."""
+    """Value liabilities with guarantees on both sets: best estimate, TVOG, reconciliation.
+
+    Certainty-equivalent value and TVOG from the market-consistent set, the real-world set with
+    deflators beside it, and their difference in standard errors.
+    """
     from pqflow.liabilities import value_liabilities_cli
 
     try:
