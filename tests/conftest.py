@@ -94,3 +94,10 @@ def assert_gaussian_moments(sample: np.ndarray, mean: np.ndarray, cov: np.ndarra
     d = np.sqrt(np.diag(cov))
     se_cov = np.sqrt((np.outer(d, d) ** 2 + cov**2) / n)
     assert np.all(np.abs(sample_cov - cov) < 4.0 * se_cov)  # 4 standard errors
+
+
+def mean_within_se(sample: np.ndarray, target: np.ndarray, n_se: float = 4.0) -> bool:
+    """Column means of ``sample`` ``(n, k)`` within ``n_se`` standard errors of ``target``."""
+    n = sample.shape[0]
+    se = sample.std(axis=0, ddof=1) / np.sqrt(n)
+    return bool(np.all(np.abs(sample.mean(axis=0) - target) < n_se * se))

@@ -32,7 +32,7 @@ import math
 import numpy as np
 import pytest
 
-from conftest import assert_gaussian_moments
+from conftest import assert_gaussian_moments, mean_within_se
 from scipy.integrate import quad
 
 from pqflow.market.curve import LogDiscountCurve
@@ -237,12 +237,6 @@ def test_moments_by_simulation(measure, times):
     assert_gaussian_moments(sample, mean, _exact_cov(0.0, float(grid[-1])))
 
 
-def _within(sample: np.ndarray, target: np.ndarray, n_se: float = 4.0) -> bool:
-    n = sample.shape[0]
-    se = sample.std(axis=0, ddof=1) / np.sqrt(n)
-    return bool(np.all(np.abs(sample.mean(axis=0) - target) < n_se * se))
-
-
 def test_martingale_facts_under_q():
     # Under Q with the bank account as numeraire: E[1/B_t] = P(0,t), E[S_t/B_t] = S_0 for a
     # total-return index, E[P(t,t+m)/B_t] = P(0,t+m) (Brigo and Mercurio 2006, ch. 2; the
@@ -253,12 +247,12 @@ def test_martingale_facts_under_q():
                          rng=np.random.default_rng(2025), antithetic=False)
     t = times[1:]
     inv_b = 1.0 / out["cash_account"][:, 1:]
-    assert _within(inv_b, np.exp(-_ns_log_discount(t)))
-    assert _within(out["equity_eq"][:, 1:] * inv_b, np.full(t.size, S0))
+    assert mean_within_se(inv_b, np.exp(-_ns_log_discount(t)))
+    assert mean_within_se(out["equity_eq"][:, 1:] * inv_b, np.full(t.size, S0))
     for m in (1.0, 10.0):
-        assert _within(out[f"zcb_{m:g}y"][:, 1:] * inv_b, np.exp(-_ns_log_discount(t + m)))
+        assert mean_within_se(out[f"zcb_{m:g}y"][:, 1:] * inv_b, np.exp(-_ns_log_discount(t + m)))
     phi_t = np.array([float(model.curve.forward(ti)) + _phi_convexity(ti) for ti in t])
-    assert _within(out["short_rate"][:, 1:], phi_t)
+    assert mean_within_se(out["short_rate"][:, 1:], phi_t)
 
 
 def test_real_world_set_reweighted_by_q_density_gives_q_expectations():
@@ -273,19 +267,19 @@ def test_real_world_set_reweighted_by_q_density_gives_q_expectations():
     w = out["q_density"][:, 1:]
     inv_b = 1.0 / out["cash_account"][:, 1:]
     disc_s = out["equity_eq"][:, 1:] * inv_b
-    assert _within(w, np.ones(t.size))
-    assert _within(w * inv_b, np.exp(-_ns_log_discount(t)))
-    assert _within(w * disc_s, np.full(t.size, S0))
-    assert _within(w * out["zcb_10y"][:, 1:] * inv_b, np.exp(-_ns_log_discount(t + 10.0)))
+    assert mean_within_se(w, np.ones(t.size))
+    assert mean_within_se(w * inv_b, np.exp(-_ns_log_discount(t)))
+    assert mean_within_se(w * disc_s, np.full(t.size, S0))
+    assert mean_within_se(w * out["zcb_10y"][:, 1:] * inv_b, np.exp(-_ns_log_discount(t + 10.0)))
     phi_t = np.array([float(model.curve.forward(ti)) + _phi_convexity(ti) for ti in t])
-    assert _within(w * out["short_rate"][:, 1:], phi_t)
+    assert mean_within_se(w * out["short_rate"][:, 1:], phi_t)
     # the real-world set itself: expected short rate with the factor means, and an equity
     # drift that a martingale test would reject.
     p_rate = phi_t + np.array([_q(lambda s: SIGMA * float(LAM_X(s)) * math.exp(-A * (ti - s)), 0.0, ti)
                                + _q(lambda s: ETA * float(LAM_Y(s)) * math.exp(-B * (ti - s)), 0.0, ti)
                                for ti in t])
-    assert _within(out["short_rate"][:, 1:], p_rate)
-    assert not _within(disc_s[:, -1:], np.array([S0]), n_se=10.0)
+    assert mean_within_se(out["short_rate"][:, 1:], p_rate)
+    assert not mean_within_se(disc_s[:, -1:], np.array([S0]), n_se=10.0)
 
 
 def test_equity_option_closed_form_against_simulation():

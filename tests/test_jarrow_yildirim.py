@@ -35,7 +35,7 @@ import math
 import numpy as np
 import pytest
 
-from conftest import assert_gaussian_moments
+from conftest import assert_gaussian_moments, mean_within_se
 import QuantLib as ql
 from scipy.integrate import quad
 
@@ -265,12 +265,6 @@ def test_moments_by_simulation(measure, times):
     assert_gaussian_moments(sample, mean, _exact_cov(0.0, float(grid[-1])))
 
 
-def _within(sample: np.ndarray, target: np.ndarray, n_se: float = 4.0) -> bool:
-    n = sample.shape[0]
-    se = sample.std(axis=0, ddof=1) / np.sqrt(n)
-    return bool(np.all(np.abs(sample.mean(axis=0) - target) < n_se * se))
-
-
 def test_martingale_facts_under_q():
     # Under Q with the nominal cash account as numeraire every traded asset in currency over B
     # is a martingale (Brigo and Mercurio 2006, ch. 2 and ch. 15.1; the "1 = 1" test, SOA ESG
@@ -284,11 +278,11 @@ def test_martingale_facts_under_q():
     t = times[1:]
     inv_b = 1.0 / out["cash_account"][:, 1:]
     cpi = out["cpi"][:, 1:]
-    assert _within(inv_b, _pn(t))
-    assert _within(out["zcb_10y"][:, 1:] * inv_b, _pn(t + 10.0))
-    assert _within(cpi * inv_b, CPI0 * _pr(t))
+    assert mean_within_se(inv_b, _pn(t))
+    assert mean_within_se(out["zcb_10y"][:, 1:] * inv_b, _pn(t + 10.0))
+    assert mean_within_se(cpi * inv_b, CPI0 * _pr(t))
     for m in (5.0, 10.0):
-        assert _within(cpi * out[f"real_zcb_{m:g}y"][:, 1:] * inv_b, CPI0 * _pr(t + m))
+        assert mean_within_se(cpi * out[f"real_zcb_{m:g}y"][:, 1:] * inv_b, CPI0 * _pr(t + m))
 
 
 def test_real_world_set_reweighted_by_q_density_gives_q_expectations():
@@ -304,11 +298,11 @@ def test_real_world_set_reweighted_by_q_density_gives_q_expectations():
     inv_b = 1.0 / out["cash_account"][:, 1:]
     disc_cpi = out["cpi"][:, 1:] * inv_b
     linker = disc_cpi * out["real_zcb_10y"][:, 1:]
-    assert _within(w, np.ones(t.size))
-    assert _within(w * inv_b, _pn(t))
-    assert _within(w * disc_cpi, CPI0 * _pr(t))
-    assert _within(w * linker, CPI0 * _pr(t + 10.0))
-    assert not _within(disc_cpi[:, -1:], CPI0 * _pr(t[-1:]), n_se=10.0)
+    assert mean_within_se(w, np.ones(t.size))
+    assert mean_within_se(w * inv_b, _pn(t))
+    assert mean_within_se(w * disc_cpi, CPI0 * _pr(t))
+    assert mean_within_se(w * linker, CPI0 * _pr(t + 10.0))
+    assert not mean_within_se(disc_cpi[:, -1:], CPI0 * _pr(t[-1:]), n_se=10.0)
 
 
 # --------------------------------------------------------------------------------------------
