@@ -60,8 +60,8 @@ def test_bad_configuration_names_file_and_key(demo_config_dict, section, key, va
 
 def test_unknown_section_is_refused(demo_config_dict):
     data = copy.deepcopy(demo_config_dict)
-    data["inflation"] = {"rate": 0.02}
-    with pytest.raises(ConfigError, match="inflation: unknown key"):
+    data["stochastic_mortality"] = {"rate": 0.02}
+    with pytest.raises(ConfigError, match="stochastic_mortality: unknown key"):
         parse_config(data, source="q.toml")
 
 

@@ -23,16 +23,33 @@ import numpy as np
 
 from pqflow import __version__
 from pqflow.calibration.equity_vol import EquityVolQuote, calibrate_equity_volatility
+from pqflow.calibration.parts import (
+    RATES_DRIVER,
+    DriverCorrelation,
+    calibrate_credit_part,
+    calibrate_index,
+    calibrate_inflation,
+    credit_from_json,
+    credit_to_json,
+    driver_correlation,
+    index_from_json,
+    index_to_json,
+    inflation_from_json,
+    inflation_to_json,
+    load_schedule,
+    schedule_json,
+)
 from pqflow.calibration.swaptions import SwaptionQuote, calibrate_hull_white_to_swaptions
 from pqflow.config.schema import RunConfig
 from pqflow.errors import CalibrationError, ConfigError, MarketDataError, MeasureError
-from pqflow.market.correlation import check_correlation_matrix, nearest_correlation_matrix
 from pqflow.market.curve import DiscountCurve, LogDiscountCurve
 from pqflow.market.data_files import (
     read_correlation_matrix,
+    read_credit_spreads,
     read_curve_inputs,
     read_equity_indices,
     read_equity_vols,
+    read_inflation_swaps,
     read_swaption_quotes,
 )
 from pqflow.market.serialize import curve_from_json, curve_to_json
@@ -51,7 +68,8 @@ from pqflow.measure.prices_of_risk import (
 )
 from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams
-from pqflow.models.hull_white_equity import HullWhiteEquityModel
+from pqflow.models.cir_credit import CirCreditModel
+from pqflow.models.economy import EconomyModel, InflationPart, TotalReturnIndex
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.jsonio import read_json
 from pqflow.storage.parquet import file_sha256
@@ -59,12 +77,8 @@ from pqflow.storage.parquet import file_sha256
 __all__ = ["Calibration", "assemble_calibration", "build_model", "load_calibration", "RATES_DRIVER"]
 
 _REL_TOL = 1e-12
-#: Name of the short-rate driver in a correlation-matrix file.
-RATES_DRIVER = "rates"
-
-
-def _schedule_json(value: float | PiecewiseConstant) -> float | dict[str, list[float]]:
-    return value.to_json() if isinstance(value, PiecewiseConstant) else float(value)
+_schedule_json = schedule_json
+_load_schedule = load_schedule
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -85,6 +99,25 @@ class Calibration:
         default_factory=lambda: {"swaptions": [], "equity_options": []}
     )
     real_world_view: dict[str, Any] = field(default_factory=dict)
+    #: Further total-return indices beside ``equity``, with their real-world prices of risk and
+    #: risk premia (by index name).
+    indices: tuple[TotalReturnIndex, ...] = ()
+    #: Real-world prices of risk of the drivers beyond rates and the core equity (indices,
+    #: ``real_rate``, ``inflation``), by driver name.
+    extra_prices_of_risk: dict[str, float | PiecewiseConstant] = field(default_factory=dict)
+    index_risk_premia: dict[str, float] = field(default_factory=dict)
+    #: Correlation of every driver (``None``: only rates and the core equity, ``equity.correlation``).
+    correlation: DriverCorrelation | None = None
+    inflation: InflationPart | None = None
+    credit: CirCreditModel | None = None
+    credit_substeps_per_year: int = 12
+
+    @property
+    def driver_correlation(self) -> DriverCorrelation:
+        if self.correlation is not None:
+            return self.correlation
+        rho = self.equity.correlation
+        return DriverCorrelation(names=(RATES_DRIVER, self.equity.name), matrix=np.array([[1.0, rho], [rho, 1.0]]))
 
     def expected_paths(self) -> dict[str, Any]:
         """Expected short rate (and the house-view target) under both measures, yearly."""
@@ -145,11 +178,52 @@ class Calibration:
                     "a schedule is {knots, values}: value i holds from knot i to knot i+1",
                 },
                 "real_world_view": self.real_world_view,
+                **self._parts_json(),
             },
             "fit": self.fit,
             "instruments": self.instruments,
             "expected_short_rate": self.expected_paths(),
         }
+
+
+    def _parts_json(self) -> dict[str, Any]:
+        out: dict[str, Any] = {}
+        if self.correlation is not None:
+            out["driver_correlation"] = self.correlation.to_json()
+        if self.indices:
+            out["indices"] = [
+                index_to_json(i, self.extra_prices_of_risk[i.name], self.index_risk_premia[i.name]) for i in self.indices
+            ]
+        if self.inflation is not None:
+            out["inflation"] = {
+                **inflation_to_json(self.inflation),
+                "market_prices_of_risk": {
+                    k: _schedule_json(self.extra_prices_of_risk.get(k, 0.0)) for k in ("real_rate", "inflation")
+                },
+            }
+        if self.credit is not None:
+            out["credit"] = credit_to_json(self.credit, self.credit_substeps_per_year)
+        return out
+
+
+def _parts_from_json(par: dict[str, Any]) -> dict[str, Any]:
+    out: dict[str, Any] = {"extra_prices_of_risk": {}, "index_risk_premia": {}}
+    if "driver_correlation" in par:
+        out["correlation"] = DriverCorrelation.from_json(par["driver_correlation"])
+    indices = []
+    for item in par.get("indices", []):
+        index, lam, premium = index_from_json(item)
+        indices.append(index)
+        out["extra_prices_of_risk"][index.name] = lam
+        out["index_risk_premia"][index.name] = premium
+    out["indices"] = tuple(indices)
+    if "inflation" in par:
+        out["inflation"] = inflation_from_json(par["inflation"])
+        for k, v in par["inflation"]["market_prices_of_risk"].items():
+            out["extra_prices_of_risk"][k] = _load_schedule(v)
+    if "credit" in par:
+        out["credit"], out["credit_substeps_per_year"] = credit_from_json(par["credit"])
+    return out
 
 
 def load_calibration(path: str | Path) -> Calibration:
@@ -182,15 +256,12 @@ def load_calibration(path: str | Path) -> Calibration:
             fit=data.get("fit", {}),
             instruments=data.get("instruments", {"swaptions": [], "equity_options": []}),
             real_world_view=par.get("real_world_view", {}),
+            **_parts_from_json(par),
         )
     except FileNotFoundError:
         raise ConfigError(f"{path}: calibration file not found") from None
     except (KeyError, TypeError, ValueError, json.JSONDecodeError) as exc:
         raise ConfigError(f"{path}: not a pqflow calibration file ({exc!r})") from None
-
-
-def _load_schedule(data: Any) -> float | PiecewiseConstant:
-    return float(data) if isinstance(data, (int, float)) else PiecewiseConstant.from_json(data)
 
 
 def check_calibration_fits(calibration: Calibration, config: RunConfig, *, source: str) -> None:
@@ -200,7 +271,29 @@ def check_calibration_fits(calibration: Calibration, config: RunConfig, *, sourc
             f"{source}: calibration is for equity index {calibration.equity.name!r} but the "
             f"configuration names {config.equity.name!r}"
         )
-    need = config.simulation.max_horizon_years + max(config.outputs.bond_maturities)
+    have = [i.name for i in calibration.indices]
+    want = [i.name for i in config.indices]
+    if have != want:
+        raise ConfigError(f"{source}: calibration has indices {have} but the configuration names {want}")
+    for label, has, wants in (
+        ("[inflation]", calibration.inflation is not None, config.inflation is not None),
+        ("[credit]", calibration.credit is not None, config.credit is not None),
+    ):
+        if has != wants:
+            raise ConfigError(
+                f"{source}: the calibration {'has' if has else 'has no'} {label} part but the configuration "
+                f"{'configures' if wants else 'does not configure'} it"
+            )
+    if config.inflation is not None and calibration.inflation is not None:
+        if tuple(sorted(config.inflation.real_bond_maturities)) != calibration.inflation.real_bond_maturities:
+            raise ConfigError(f"{source}: calibration real bond maturities differ from inflation.real_bond_maturities")
+    if config.credit is not None and calibration.credit is not None:
+        if [r.name for r in config.credit.ratings] != list(calibration.credit.names) or tuple(
+            sorted(config.credit.bond_maturities)
+        ) != calibration.credit.bond_maturities:
+            raise ConfigError(f"{source}: calibration credit ratings or bond maturities differ from [credit]")
+    longest = max([*config.outputs.bond_maturities, *(config.inflation.real_bond_maturities if config.inflation else [])])
+    need = config.simulation.max_horizon_years + longest
     if need > calibration.curve.max_maturity + 1e-9:
         raise ConfigError(
             f"{source}: the calibrated curve ends at {calibration.curve.max_maturity:g} years but the "
@@ -295,45 +388,6 @@ def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
         "max_repricing_error": report.max_repricing_error,
     }
     return curve, fit
-
-
-def _correlation(config: RunConfig) -> tuple[float, dict[str, Any]]:
-    if config.equity.correlation_with_rates is not None:
-        return config.equity.correlation_with_rates, {"method": "typed in"}
-    path = config.market_file("correlations")
-    assert path is not None
-    data = read_correlation_matrix(path)
-    for needed in (RATES_DRIVER, config.equity.name):
-        if needed not in data.names:
-            raise MarketDataError(
-                f"{path}: driver {needed!r} is not in the matrix (drivers: {', '.join(data.names)}); "
-                f"name the short-rate driver {RATES_DRIVER!r} and the equity index by its name"
-            )
-    matrix = data.matrix
-    fit: dict[str, Any] = {"method": "from file", "drivers": list(data.names), "repaired": False}
-    try:
-        check_correlation_matrix(matrix, names=data.names)
-    except MarketDataError as exc:
-        if config.calibration.correlation_repair != "higham":
-            raise MarketDataError(
-                f"{path}: {exc}. Set calibration.correlation_repair = \"higham\" to use the nearest "
-                "correlation matrix instead (Higham 2002), or correct the file."
-            ) from None
-        repair = nearest_correlation_matrix(matrix)
-        matrix = repair.matrix
-        fit.update(
-            repaired=True,
-            method="nearest correlation matrix (Higham 2002, alternating projections with Dykstra's correction)",
-            input_matrix=data.matrix.tolist(),
-            repaired_matrix=matrix.tolist(),
-            frobenius_distance=repair.frobenius_distance,
-        )
-    i, j = data.names.index(RATES_DRIVER), data.names.index(config.equity.name)
-    rho = float(matrix[i, j])
-    if abs(rho) >= 1.0:
-        raise MarketDataError(f"{path}: correlation of {RATES_DRIVER!r} and {config.equity.name!r} must lie strictly inside (-1, 1)")
-    fit["correlation_with_rates"] = rho
-    return rho, fit
 
 
 def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams, dict[str, Any], list[dict[str, Any]]]:
@@ -480,16 +534,19 @@ def _real_world(
 
 
 def _inputs(config: RunConfig) -> dict[str, Any]:
-    sections = ("curve", "hull_white", "equity", "real_world", "market_data", "curve_extrapolation", "calibration")
+    sections = ("curve", "hull_white", "equity", "real_world", "market_data", "curve_extrapolation", "calibration",
+                "correlations", "inflation", "credit")
     inputs: dict[str, Any] = {}
     for name in sections:
         value = getattr(config, name)
         if value is not None:
             inputs[name] = value.model_dump(mode="json")
+    if config.indices:
+        inputs["indices"] = [i.model_dump(mode="json") for i in config.indices]
     inputs["simulation_horizon_years"] = config.simulation.max_horizon_years
     files = {}
     if config.market_data is not None:
-        for kind in ("curve", "swaptions", "equity_index", "equity_vols", "correlations"):
+        for kind in ("curve", "swaptions", "equity_index", "equity_vols", "correlations", "inflation_swaps", "credit_spreads"):
             path = config.market_file(kind)
             if path is not None:
                 if not path.is_file():
@@ -505,17 +562,37 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     inputs = _inputs(config)  # also checks every market-data file exists, before any fitting
     for kind, reader in (("curve", read_curve_inputs), ("swaptions", read_swaption_quotes),
                          ("equity_index", read_equity_indices), ("equity_vols", read_equity_vols),
-                         ("correlations", read_correlation_matrix)):
+                         ("correlations", read_correlation_matrix), ("inflation_swaps", read_inflation_swaps),
+                         ("credit_spreads", read_credit_spreads)):
         path = config.market_file(kind)
         if path is not None:
             reader(path)  # every file checked in full before anything is fitted
     curve, curve_fit = _curve(config)
-    rho, corr_fit = _correlation(config)
+    correlation, corr_fit = driver_correlation(config)
+    rho = correlation.pair(RATES_DRIVER, config.equity.name)
     rates, rates_fit, swaptions = _rates(config, curve)
     level, q = _equity_spot(config)
     vol, equity_fit, equity_options = _equity_vol(config, curve, rates, rho, level, q)
     prices_of_risk, view = _real_world(config, curve, rates, vol)
     equity = EquityParams(name=config.equity.name, level=level, dividend_yield=q, volatility=vol, correlation=rho)
+    fit = {"curve": curve_fit, "correlation": corr_fit, "hull_white": rates_fit, "equity": equity_fit}
+    indices, extra_lams, premia, index_fits = [], {}, {}, {}
+    for section in config.indices:
+        index, lam, index_fit, options = calibrate_index(config, section, curve, rates, correlation.pair(RATES_DRIVER, section.name))
+        indices.append(index)
+        extra_lams[section.name] = lam
+        premia[section.name] = section.risk_premium
+        index_fits[section.name] = index_fit
+        equity_options = [*equity_options, *options]
+    if index_fits:
+        fit["indices"] = index_fits
+    inflation = None
+    if config.inflation is not None:
+        inflation, inflation_lams, fit["inflation"] = calibrate_inflation(config, curve)
+        extra_lams.update(inflation_lams)
+    credit = None
+    if config.credit is not None:
+        credit, fit["credit"] = calibrate_credit_part(config)
     canon = json.dumps(inputs, sort_keys=True, separators=(",", ":")).encode("utf-8")
     return Calibration(
         valuation_date=config.run.valuation_date.isoformat(),
@@ -526,18 +603,34 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         prices_of_risk=prices_of_risk,
         inputs=inputs,
         inputs_hash=hashlib.sha256(canon).hexdigest(),
-        fit={"curve": curve_fit, "correlation": corr_fit, "hull_white": rates_fit, "equity": equity_fit},
+        fit=fit,
         instruments={"swaptions": swaptions, "equity_options": equity_options},
         real_world_view=view,
+        indices=tuple(indices),
+        extra_prices_of_risk=extra_lams,
+        index_risk_premia=premia,
+        correlation=correlation if correlation.names != (RATES_DRIVER, config.equity.name) else None,
+        inflation=inflation,
+        credit=credit,
+        credit_substeps_per_year=config.credit.substeps_per_year if config.credit is not None else 12,
     )
 
 
-def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) -> HullWhiteEquityModel:
-    """The scenario model both sets are simulated from."""
-    return HullWhiteEquityModel(
+def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) -> EconomyModel:
+    """The Gaussian scenario model both sets are simulated from (credit is simulated beside it,
+    :mod:`pqflow.simulation.credit`)."""
+    eq = calibration.equity
+    core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield, volatility=eq.volatility)
+    return EconomyModel(
         curve=calibration.curve,
         rates=calibration.rates,
-        equity=calibration.equity,
-        prices_of_risk=calibration.prices_of_risk,
+        indices=(core, *calibration.indices),
+        correlation=calibration.driver_correlation.matrix,
+        prices_of_risk={
+            RATES_DRIVER: calibration.prices_of_risk.rates,
+            eq.name: calibration.prices_of_risk.equity,
+            **calibration.extra_prices_of_risk,
+        },
         bond_maturities=tuple(bond_maturities),
+        inflation=calibration.inflation,
     )

@@ -29,8 +29,16 @@ __all__ = [
     "OutputsSection",
     "ValidationSection",
     "ExecutionSection",
+    "IndexSection",
+    "CorrelationsSection",
+    "InflationSection",
+    "CreditRatingSection",
+    "CreditSection",
     "RunConfig",
 ]
+
+#: Driver names the rates and inflation parts use in a correlation matrix.
+RESERVED_DRIVERS = ("rates", "rates_x", "rates_y", "real_rate", "inflation")
 
 
 class _Section(BaseModel):
@@ -101,13 +109,140 @@ class EquitySection(_Section):
 
 
 class MarketDataSection(_Section):
-    """The quarter's market-data files (CSV, paths relative to the configuration file)."""
+    """The quarter's market-data files (CSV, paths relative to the configuration file).
+    ``equity_index`` and ``equity_vols`` also serve the ``[[indices]]`` (property rows carry the
+    rental yield in ``dividend_yield``)."""
 
     curve: str | None = None
     swaptions: str | None = None
     equity_index: str | None = None
     equity_vols: str | None = None
     correlations: str | None = None
+    inflation_swaps: str | None = None
+    credit_spreads: str | None = None
+
+
+class IndexSection(_Section):
+    """A further total-return index beside ``[equity]``: another equity market or property.
+    ``level`` and ``income_yield`` (dividend or rental yield) are typed in, or read from the
+    row of ``market_data.equity_index`` with this name; ``volatility`` is typed in, or
+    bootstrapped from the rows of ``market_data.equity_vols`` with this name (one source each).
+    ``risk_premium``: the real-world expected return over cash, per year."""
+
+    name: str = Field(min_length=1, max_length=40, pattern=r"^[a-z][a-z0-9_]*$")
+    kind: Literal["equity", "property"]
+    level: float | None = Field(default=None, gt=0.0)
+    income_yield: float | None = Field(default=None, ge=-0.2, le=0.5)
+    volatility: float | None = Field(default=None, gt=0.0, le=2.0)
+    risk_premium: float = Field(ge=-0.2, le=0.3)
+
+    @model_validator(mode="after")
+    def _pair(self) -> IndexSection:
+        if (self.level is None) != (self.income_yield is None):
+            raise ValueError("level and income_yield go together (both typed in, or both from market_data.equity_index)")
+        if self.name in RESERVED_DRIVERS:
+            raise ValueError(f"{self.name!r} names a rates or inflation driver; choose another index name")
+        return self
+
+
+class CorrelationsSection(_Section):
+    """A typed-in correlation matrix of the drivers (instead of ``market_data.correlations``):
+    ``drivers`` names the rows and columns in order (``rates``, each index by name,
+    ``real_rate`` and ``inflation`` with ``[inflation]``)."""
+
+    drivers: list[str] = Field(min_length=2)
+    matrix: list[list[float]]
+
+    @model_validator(mode="after")
+    def _square(self) -> CorrelationsSection:
+        n = len(self.drivers)
+        if len(set(self.drivers)) != n:
+            raise ValueError("drivers must not repeat")
+        if len(self.matrix) != n or any(len(r) != n for r in self.matrix):
+            raise ValueError(f"matrix must be {n} x {n}, one row and column per driver")
+        return self
+
+
+class InflationSection(_Section):
+    """Jarrow-Yildirim inflation: a Hull-White real short rate and a lognormal consumer price
+    index. The real curve comes from zero-coupon inflation swap rates (``market_data.
+    inflation_swaps``, or typed in as ``swap_maturities`` / ``swap_rates``), with the breakeven
+    rate held flat beyond the last quote. Real world: ``real_rate_price_of_risk`` moves the real
+    short rate's drift, ``inflation_drift_adjustment`` adds to the expected growth rate of the
+    CPI per year (its price of risk is the adjustment over the inflation volatility)."""
+
+    real_mean_reversion: float = Field(gt=0.0, le=5.0)
+    real_volatility: float = Field(gt=0.0, le=0.2)
+    inflation_volatility: float = Field(gt=0.0, le=0.5)
+    cpi_base: float = Field(default=100.0, gt=0.0)
+    real_bond_maturities: list[float] = Field(default_factory=list, max_length=60)
+    swap_maturities: list[float] | None = None
+    swap_rates: list[float] | None = None
+    real_rate_price_of_risk: float = Field(default=0.0, ge=-5.0, le=5.0)
+    inflation_drift_adjustment: float = Field(default=0.0, ge=-0.1, le=0.1)
+
+    @model_validator(mode="after")
+    def _swaps(self) -> InflationSection:
+        if (self.swap_maturities is None) != (self.swap_rates is None):
+            raise ValueError("swap_maturities and swap_rates go together")
+        if self.swap_maturities is not None:
+            assert self.swap_rates is not None
+            if len(self.swap_maturities) != len(self.swap_rates) or not self.swap_maturities:
+                raise ValueError("swap_maturities and swap_rates need the same, non-zero number of entries")
+        if any(m <= 0 for m in self.real_bond_maturities) or len(set(self.real_bond_maturities)) != len(self.real_bond_maturities):
+            raise ValueError("real_bond_maturities must be positive and distinct")
+        return self
+
+
+class CreditRatingSection(_Section):
+    """One rating's CIR++ default intensity. The spread curve (zero-coupon spreads over the
+    risk-free zero rates, bp) comes from ``market_data.credit_spreads`` or is typed in as
+    ``spread_maturities`` / ``spreads_bp``. The CIR parameters are given; those named in
+    ``fit`` are starting values, fitted so the CIR part carries the curve's shape (the shift
+    reprices every spread exactly either way). ``price_of_risk``: theta of the real-world
+    intensity (``lambda^P = theta sqrt(y)``; positive values make real-world defaults rarer)."""
+
+    name: str = Field(min_length=1, max_length=20, pattern=r"^[A-Za-z][A-Za-z0-9_]*$")
+    recovery: float = Field(ge=0.0, lt=1.0)
+    mean_reversion: float = Field(gt=0.0, le=5.0)
+    long_run_mean: float = Field(ge=0.0, le=1.0)
+    volatility: float = Field(ge=0.0, le=2.0)
+    initial: float = Field(ge=0.0, le=1.0)
+    fit: list[Literal["mean_reversion", "long_run_mean", "volatility", "initial"]] = Field(default_factory=list)
+    price_of_risk: float = Field(default=0.0, ge=-5.0, le=5.0)
+    spread_maturities: list[float] | None = None
+    spreads_bp: list[float] | None = None
+
+    @model_validator(mode="after")
+    def _spreads(self) -> CreditRatingSection:
+        if (self.spread_maturities is None) != (self.spreads_bp is None):
+            raise ValueError("spread_maturities and spreads_bp go together")
+        if self.spread_maturities is not None:
+            assert self.spreads_bp is not None
+            if len(self.spread_maturities) != len(self.spreads_bp) or not self.spread_maturities:
+                raise ValueError("spread_maturities and spreads_bp need the same, non-zero number of entries")
+        return self
+
+
+class CreditSection(_Section):
+    """Credit spreads by rating (CIR++ intensities, independent of rates and indices in this
+    version; recovery of market value). ``bond_maturities``: the defaultable zero-coupon bonds
+    to write (each must also be an ``outputs.bond_maturities`` entry). The square-root process
+    is simulated with full-truncation Euler on ``substeps_per_year`` substeps a year (rounded up
+    to whole substeps per output step; the bias is stated in the README)."""
+
+    bond_maturities: list[float] = Field(min_length=1, max_length=30)
+    substeps_per_year: int = Field(default=12, ge=1, le=365)
+    ratings: list[CreditRatingSection] = Field(min_length=1, max_length=20)
+
+    @model_validator(mode="after")
+    def _unique(self) -> CreditSection:
+        names = [r.name for r in self.ratings]
+        if len(set(names)) != len(names):
+            raise ValueError(f"rating names must not repeat: {names}")
+        if any(m <= 0 for m in self.bond_maturities) or len(set(self.bond_maturities)) != len(self.bond_maturities):
+            raise ValueError("bond_maturities must be positive and distinct")
+        return self
 
 
 class CurveExtrapolationSection(_Section):
@@ -329,6 +464,10 @@ class RunConfig(_Section):
     outputs: OutputsSection
     market_data: MarketDataSection | None = None
     curve_extrapolation: CurveExtrapolationSection | None = None
+    indices: list[IndexSection] = Field(default_factory=list, max_length=20)
+    correlations: CorrelationsSection | None = None
+    inflation: InflationSection | None = None
+    credit: CreditSection | None = None
     calibration: CalibrationSection = CalibrationSection()
     validation: ValidationSection = ValidationSection()
     execution: ExecutionSection = ExecutionSection()
@@ -352,7 +491,7 @@ class RunConfig(_Section):
             ("curve", self.curve is not None, "market_data.curve", md.curve is not None),
             ("hull_white", self.hull_white is not None, "market_data.swaptions", md.swaptions is not None),
             ("equity.volatility", self.equity.volatility is not None, "market_data.equity_vols", md.equity_vols is not None),
-            ("equity.correlation_with_rates", self.equity.correlation_with_rates is not None, "market_data.correlations", md.correlations is not None),
+            ("equity.correlation_with_rates or [correlations]", self.equity.correlation_with_rates is not None or self.correlations is not None, "market_data.correlations", md.correlations is not None),
             ("equity.level", self.equity.level is not None, "market_data.equity_index", md.equity_index is not None),
             ("equity.dividend_yield", self.equity.dividend_yield is not None, "market_data.equity_index", md.equity_index is not None),
         ]
@@ -364,11 +503,62 @@ class RunConfig(_Section):
                 )
         if (md.curve is not None) != (self.curve_extrapolation is not None):
             raise ValueError("market_data.curve and [curve_extrapolation] go together")
+        if self.equity.correlation_with_rates is not None and self.correlations is not None:
+            raise ValueError("give the correlations once: equity.correlation_with_rates or [correlations], not both")
+        if (self.indices or self.inflation is not None) and self.equity.correlation_with_rates is not None:
+            raise ValueError(
+                "with [[indices]] or [inflation] every pair of drivers needs a correlation: give the "
+                "full matrix in market_data.correlations or [correlations] instead of "
+                "equity.correlation_with_rates"
+            )
+        names = [self.equity.name, *(i.name for i in self.indices)]
+        if len(set(names)) != len(names):
+            raise ValueError(f"index names must not repeat ([equity] and [[indices]]): {names}")
+        if self.equity.name in RESERVED_DRIVERS:
+            raise ValueError(f"equity.name {self.equity.name!r} names a rates or inflation driver; choose another name")
+        # data for a model that is not configured, and models without their data
+        if md.inflation_swaps is not None and self.inflation is None:
+            raise ValueError("market_data.inflation_swaps is given but [inflation] is not configured")
+        if md.credit_spreads is not None and self.credit is None:
+            raise ValueError("market_data.credit_spreads is given but [credit] is not configured")
+        if self.inflation is not None:
+            typed = self.inflation.swap_maturities is not None
+            if typed == (md.inflation_swaps is not None):
+                raise ValueError(
+                    "give exactly one of inflation.swap_maturities/swap_rates (typed in) or "
+                    "market_data.inflation_swaps (from a market-data file)"
+                    + ("; both are given" if typed else "; neither is given")
+                )
+        if self.credit is not None:
+            for r in self.credit.ratings:
+                typed = r.spread_maturities is not None
+                if typed == (md.credit_spreads is not None):
+                    raise ValueError(
+                        f"credit rating {r.name}: give exactly one of spread_maturities/spreads_bp "
+                        "(typed in) or market_data.credit_spreads (from a market-data file)"
+                        + ("; both are given" if typed else "; neither is given")
+                    )
+            missing = [m for m in self.credit.bond_maturities if m not in self.outputs.bond_maturities]
+            if missing:
+                raise ValueError(
+                    f"credit.bond_maturities {missing} are not in outputs.bond_maturities: each "
+                    "defaultable bond needs the risk-free bond of the same maturity"
+                )
+        for idx in self.indices:
+            if idx.level is None and md.equity_index is None:
+                raise ValueError(
+                    f"index {idx.name}: give level and income_yield, or market_data.equity_index with a row for it"
+                )
+            if idx.volatility is None and md.equity_vols is None:
+                raise ValueError(
+                    f"index {idx.name}: give volatility, or market_data.equity_vols with its implied volatilities"
+                )
         return self
 
     @model_validator(mode="after")
     def _curve_covers(self) -> RunConfig:
-        need = self.simulation.max_horizon_years + max(self.outputs.bond_maturities)
+        longest = max([*self.outputs.bond_maturities, *(self.inflation.real_bond_maturities if self.inflation else [])])
+        need = self.simulation.max_horizon_years + longest
         if self.curve is not None:
             have, key = self.curve.maturities[-1], "curve.maturities ends at"
         else:
@@ -377,7 +567,7 @@ class RunConfig(_Section):
         if need > have + 1e-9:
             raise ValueError(
                 f"simulation.horizon_years ({self.simulation.max_horizon_years:g}) plus the longest "
-                f"outputs.bond_maturities ({max(self.outputs.bond_maturities):g}) needs the curve "
+                f"bond maturity ({longest:g}, outputs or inflation.real_bond_maturities) needs the curve "
                 f"to {need:g} years, but {key} {have:g}"
             )
         ty = self.real_world.target_year

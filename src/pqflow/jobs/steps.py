@@ -23,9 +23,10 @@ from pqflow.config.loader import config_hash
 from pqflow.config.schema import RunConfig
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.serialize import curve_from_json
-from pqflow.simulation.engine import DENSITY_COLUMN, MEASURES, simulate_batch, time_grid
+from pqflow.simulation.engine import DENSITY_COLUMN, MEASURES, time_grid
 from pqflow.simulation.plan import Batch, plan_batches
-from pqflow.simulation.streams import MEASURE_STREAM, batch_generator
+from pqflow.simulation.scenarios import simulate_part
+from pqflow.simulation.streams import MEASURE_STREAM
 from pqflow.storage.jsonio import read_json, write_json_atomic
 from pqflow.storage.manifest import MANIFEST, build_manifest
 from pqflow.storage.parquet import batch_table, file_sha256, part_name, units_metadata, write_part
@@ -149,18 +150,21 @@ def generate_part(
 ) -> PartRecord:
     """Simulate one batch of one measure and write it as a Parquet part."""
     model = build_model(calibration, plan.bond_maturities)
-    rng = batch_generator(plan.seed, measure, batch.index)
-    cols = simulate_batch(
-        model, plan.times_for(measure), measure=measure, n_paths=batch.size, rng=rng, antithetic=plan.antithetic
+    credit = calibration.credit
+    cols = simulate_part(
+        model, plan.times_for(measure), measure=measure, n_paths=batch.size, seed=plan.seed, batch=batch.index,
+        antithetic=plan.antithetic, credit=credit, credit_substeps_per_year=calibration.credit_substeps_per_year,
     )
     units = model.column_units()
+    if credit is not None:
+        units.update(credit.column_units())
     units["deflator"] = (
         "state-price deflator q_density / cash_account" if measure == "real_world" else "1 / cash_account"
     )
     units[DENSITY_COLUMN[measure]] = "density on the grid up to time (dimensionless, mean 1)"
     order = ["short_rate", "cash_account", "deflator"]
-    order += [c for c in cols if c.startswith("zcb_")]
-    order += [c for c in cols if c.startswith("equity_")]
+    order += [c for c in model.known_columns() if c not in order]
+    order += list(credit.column_names()) if credit is not None else []
     order += [DENSITY_COLUMN[measure]]
     table = batch_table(
         {c: cols[c] for c in order},

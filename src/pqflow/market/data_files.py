@@ -47,7 +47,18 @@ decimal) or ``shifted_lognormal_vol`` (decimal, with a ``shift`` column, a decim
     index,expiry_years,implied_vol,strike
     veldmark_all_share,1,0.185,ATMF
 
-``strike`` is optional; ``ATMF`` (or the column left out) means at the money forward.
+``strike`` is optional; ``ATMF`` (or the column left out) means at the money forward. The
+equity-index file also carries property indices (``dividend_yield`` is then the rental yield).
+
+**Zero-coupon inflation swaps** (fair fixed rate, annually compounded, decimals)::
+
+    maturity_years,zc_rate
+    1,0.0231
+
+**Credit spreads** (zero-coupon spread over the risk-free zero rate, continuous, basis points)::
+
+    rating,maturity_years,spread_bp
+    A,1,62
 
 Every problem raises :class:`pqflow.errors.MarketDataError` naming the file, the row and the
 column. Rows are counted as **data rows, 1-based, the header excluded**; the message also gives
@@ -83,6 +94,10 @@ __all__ = [
     "read_swaption_quotes",
     "read_equity_indices",
     "read_equity_vols",
+    "InflationSwapRow",
+    "CreditSpreadCurve",
+    "read_inflation_swaps",
+    "read_credit_spreads",
 ]
 
 MATURITY_COLUMN = "maturity_years"
@@ -464,3 +479,69 @@ def read_equity_vols(path: str | PathLike[str]) -> tuple[EquityVolRow, ...]:
         last[index] = t
         out.append(EquityVolRow(index=index, expiry=t, implied_vol=v, strike=strike, row=row.number))
     return tuple(out)
+
+
+@dataclass(frozen=True, kw_only=True)
+class InflationSwapRow:
+    maturity: float
+    rate: float
+    row: int
+
+
+def read_inflation_swaps(path: str | PathLike[str]) -> tuple[InflationSwapRow, ...]:
+    """Read and check a zero-coupon inflation swap CSV: ``maturity_years,zc_rate`` (the fair
+    fixed rate, annually compounded, decimals; maturities strictly increasing)."""
+    name, header, header_line, rows = _read_rows(path)
+    idx = _header_index(name, header, header_line, ("maturity_years", "zc_rate"), ())
+    out: list[InflationSwapRow] = []
+    for row in rows:
+        t = _number(row.cells[idx["maturity_years"]], _at(name, row, "maturity_years"))
+        k = _number(row.cells[idx["zc_rate"]], _at(name, row, "zc_rate"))
+        if t <= 0.0:
+            raise MarketDataError(f"{_at(name, row, 'maturity_years')}: maturity {t:g} must be positive")
+        if out and t <= out[-1].maturity:
+            raise MarketDataError(
+                f"{_at(name, row, 'maturity_years')}: maturity {t:g} is not greater than the previous "
+                f"{out[-1].maturity:g}; maturities must be strictly increasing"
+            )
+        if abs(k) >= 0.5:
+            raise MarketDataError(f"{_at(name, row, 'zc_rate')}: {k:g} is not a plausible decimal rate (0.025 for 2.5%)")
+        out.append(InflationSwapRow(maturity=t, rate=k, row=row.number))
+    return tuple(out)
+
+
+@dataclass(frozen=True, kw_only=True)
+class CreditSpreadCurve:
+    rating: str
+    maturities: np.ndarray
+    spreads: np.ndarray  # decimals
+
+
+def read_credit_spreads(path: str | PathLike[str]) -> dict[str, CreditSpreadCurve]:
+    """Read and check a credit-spread CSV: ``rating,maturity_years,spread_bp`` (zero-coupon
+    spreads over the risk-free zero rate, continuously compounded, in basis points; maturities
+    strictly increasing within each rating)."""
+    name, header, header_line, rows = _read_rows(path)
+    idx = _header_index(name, header, header_line, ("rating", "maturity_years", "spread_bp"), ())
+    points: dict[str, list[tuple[float, float]]] = {}
+    for row in rows:
+        rating = row.cells[idx["rating"]]
+        if not rating:
+            raise MarketDataError(f"{_at(name, row, 'rating')}: missing rating name")
+        t = _number(row.cells[idx["maturity_years"]], _at(name, row, "maturity_years"))
+        s = _number(row.cells[idx["spread_bp"]], _at(name, row, "spread_bp"))
+        if t <= 0.0:
+            raise MarketDataError(f"{_at(name, row, 'maturity_years')}: maturity {t:g} must be positive")
+        prev = points.setdefault(rating, [])
+        if prev and t <= prev[-1][0]:
+            raise MarketDataError(
+                f"{_at(name, row, 'maturity_years')}: maturity {t:g} is not greater than the previous "
+                f"{prev[-1][0]:g} for rating {rating!r}; maturities must be strictly increasing per rating"
+            )
+        if not 0.0 <= s < 5000.0:
+            raise MarketDataError(f"{_at(name, row, 'spread_bp')}: spread {s:g} bp must lie in [0, 5000) basis points")
+        prev.append((t, s * 1e-4))
+    return {
+        r: CreditSpreadCurve(rating=r, maturities=np.array([p[0] for p in v]), spreads=np.array([p[1] for p in v]))
+        for r, v in points.items()
+    }

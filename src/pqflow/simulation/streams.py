@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["MEASURE_STREAM", "batch_seed_sequence", "batch_generator"]
+__all__ = ["MEASURE_STREAM", "batch_seed_sequence", "batch_generator", "credit_generator"]
 
 #: Fixed stream index of each measure in the seed tree (never renumber: it would change outputs).
 MEASURE_STREAM = {"market_consistent": 0, "real_world": 1}
@@ -28,3 +28,11 @@ def batch_seed_sequence(root_seed: int, measure: str, batch: int) -> np.random.S
 def batch_generator(root_seed: int, measure: str, batch: int) -> np.random.Generator:
     """A PCG64 generator for one batch of one measure."""
     return np.random.Generator(np.random.PCG64(batch_seed_sequence(root_seed, measure, batch)))
+
+
+def credit_generator(root_seed: int, measure: str, batch: int) -> np.random.Generator:
+    """A PCG64 generator for the credit intensities of one batch of one measure: the first
+    child of that batch's seed sequence (``spawn_key = (measure_stream, batch, 0)``), so the
+    Gaussian drivers' numbers are the same with or without credit."""
+    parent = batch_seed_sequence(root_seed, measure, batch)
+    return np.random.Generator(np.random.PCG64(np.random.SeedSequence(root_seed, spawn_key=(*parent.spawn_key, 0))))

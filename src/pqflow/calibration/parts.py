@@ -1,0 +1,400 @@
+"""Calibration of the parts beside the core rates and equity: further indices, the full driver
+correlation, inflation and credit; and their form in ``calibration.json``.
+
+* **Indices** (``[[indices]]``): level and income yield typed in or from the index file; the
+  volatility typed in or bootstrapped from the index's implied volatilities under Hull-White
+  rates (:func:`pqflow.calibration.equity_vol.calibrate_equity_volatility`, the same fit as the
+  core equity); real-world price of risk ``risk_premium / sigma(t)``.
+* **Correlation**: one matrix over every driver (``rates``, each index, ``real_rate``,
+  ``inflation``), typed in or from the file, checked positive definite (or Higham-repaired on
+  request), the sub-matrix of the configured drivers taken in model order.
+* **Inflation**: the real curve from zero-coupon inflation swaps,
+  ``P_r(0, T) = P_n(0, T) (1 + k(T))^T`` at each quote (exact; Brigo and Mercurio 2006,
+  ch. 15.2), the breakeven rate held flat beyond the last quote (common practice), pillars every
+  year to the end of the nominal curve; volatilities typed in.
+* **Credit**: per rating a hazard curve bootstrapped from the spreads and the CIR++ parameters
+  (:mod:`pqflow.calibration.credit`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from pqflow.calibration.credit import ZeroSpreadCurve, calibrate_credit
+from pqflow.calibration.equity_vol import EquityVolQuote, calibrate_equity_volatility
+from pqflow.calibration.inflation import ZeroCouponInflationSwapQuote, real_curve_from_zc_inflation_swaps
+from pqflow.config.schema import IndexSection, RunConfig
+from pqflow.errors import CalibrationError, MarketDataError
+from pqflow.market.correlation import check_correlation_matrix, nearest_correlation_matrix
+from pqflow.market.curve import DiscountCurve, LogDiscountCurve
+from pqflow.market.data_files import (
+    read_correlation_matrix,
+    read_credit_spreads,
+    read_equity_indices,
+    read_equity_vols,
+    read_inflation_swaps,
+)
+from pqflow.market.serialize import curve_from_json, curve_to_json
+from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve
+from pqflow.models.economy import INFLATION_DRIVER, REAL_RATE_DRIVER, InflationPart, TotalReturnIndex
+from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.schedule import PiecewiseConstant, as_schedule
+
+__all__ = [
+    "RATES_DRIVER",
+    "DriverCorrelation",
+    "driver_names",
+    "driver_correlation",
+    "calibrate_index",
+    "calibrate_inflation",
+    "calibrate_credit_part",
+    "schedule_json",
+    "load_schedule",
+    "index_to_json",
+    "index_from_json",
+    "inflation_to_json",
+    "inflation_from_json",
+    "credit_to_json",
+    "credit_from_json",
+]
+
+#: Name of the short-rate driver in a correlation matrix.
+RATES_DRIVER = "rates"
+
+
+def schedule_json(value: float | PiecewiseConstant) -> float | dict[str, list[float]]:
+    return value.to_json() if isinstance(value, PiecewiseConstant) else float(value)
+
+
+def load_schedule(data: Any) -> float | PiecewiseConstant:
+    return float(data) if isinstance(data, (int, float)) else PiecewiseConstant.from_json(data)
+
+
+# ------------------------------------------------------------------------------- correlation
+
+
+@dataclass(frozen=True, kw_only=True)
+class DriverCorrelation:
+    """The correlation of the configured drivers, in model order."""
+
+    names: tuple[str, ...]
+    matrix: np.ndarray
+
+    def pair(self, a: str, b: str) -> float:
+        return float(self.matrix[self.names.index(a), self.names.index(b)])
+
+    def to_json(self) -> dict[str, Any]:
+        return {"drivers": list(self.names), "matrix": self.matrix.tolist()}
+
+    @classmethod
+    def from_json(cls, data: dict[str, Any]) -> DriverCorrelation:
+        return cls(names=tuple(data["drivers"]), matrix=np.array(data["matrix"], dtype=float))
+
+
+def driver_names(config: RunConfig) -> tuple[str, ...]:
+    """Drivers of the configured Gaussian parts, in model order."""
+    out = [RATES_DRIVER, config.equity.name, *(i.name for i in config.indices)]
+    if config.inflation is not None:
+        out += [REAL_RATE_DRIVER, INFLATION_DRIVER]
+    return tuple(out)
+
+
+def driver_correlation(config: RunConfig) -> tuple[DriverCorrelation, dict[str, Any]]:
+    """The correlation of every configured driver, from its one source, checked."""
+    needed = driver_names(config)
+    if config.equity.correlation_with_rates is not None:
+        rho = config.equity.correlation_with_rates
+        return DriverCorrelation(names=needed, matrix=np.array([[1.0, rho], [rho, 1.0]])), {"method": "typed in"}
+    if config.correlations is not None:
+        names = tuple(config.correlations.drivers)
+        matrix = np.array(config.correlations.matrix, dtype=float)
+        where = "[correlations]"
+        fit: dict[str, Any] = {"method": "typed in ([correlations])", "drivers": list(names), "repaired": False}
+        if np.any(np.abs(matrix - matrix.T) > 1e-12) or np.any(np.diag(matrix) != 1.0) or np.any(np.abs(matrix) > 1.0):
+            raise MarketDataError(f"{where}: the matrix must be symmetric, within [-1, 1], with a unit diagonal")
+    else:
+        path = config.market_file("correlations")
+        assert path is not None
+        data = read_correlation_matrix(path)
+        names, matrix, where = data.names, data.matrix, str(path)
+        fit = {"method": "from file", "drivers": list(names), "repaired": False}
+    missing = [n for n in needed if n not in names]
+    if missing:
+        raise MarketDataError(
+            f"{where}: driver(s) {', '.join(repr(m) for m in missing)} not in the matrix (drivers: "
+            f"{', '.join(names)}); name the short-rate driver {RATES_DRIVER!r}, each index by its "
+            f"name and, with [inflation], {REAL_RATE_DRIVER!r} and {INFLATION_DRIVER!r}"
+        )
+    try:
+        check_correlation_matrix(matrix, names=names)
+    except MarketDataError as exc:
+        if config.calibration.correlation_repair != "higham":
+            raise MarketDataError(
+                f"{where}: {exc}. Set calibration.correlation_repair = \"higham\" to use the nearest "
+                "correlation matrix instead (Higham 2002), or correct the matrix."
+            ) from None
+        repair = nearest_correlation_matrix(matrix)
+        fit.update(
+            repaired=True,
+            method="nearest correlation matrix (Higham 2002, alternating projections with Dykstra's correction)",
+            input_matrix=matrix.tolist(),
+            repaired_matrix=repair.matrix.tolist(),
+            frobenius_distance=repair.frobenius_distance,
+        )
+        matrix = repair.matrix
+    pick = [names.index(n) for n in needed]
+    sub = np.array(matrix[np.ix_(pick, pick)], dtype=float)
+    sub = 0.5 * (sub + sub.T)
+    np.fill_diagonal(sub, 1.0)
+    if np.linalg.eigvalsh(sub)[0] <= 1e-10:
+        raise MarketDataError(
+            f"{where}: the correlations of the configured drivers {list(needed)} are singular (a pair or "
+            "group moves as one); the scenario density needs a positive definite matrix"
+        )
+    fit["correlation_with_rates"] = float(sub[0, 1])
+    fit["used_drivers"] = list(needed)
+    return DriverCorrelation(names=needed, matrix=sub), fit
+
+
+# ------------------------------------------------------------------------------- indices
+
+
+def calibrate_index(
+    config: RunConfig, section: IndexSection, curve: DiscountCurve, hw: HullWhiteParams, rho_rates: float
+) -> tuple[TotalReturnIndex, float | PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
+    """One further index: its parameters, real-world price of risk, fit report and option quotes."""
+    if section.level is not None:
+        assert section.income_yield is not None
+        level, q = section.level, section.income_yield
+    else:
+        path = config.market_file("equity_index")
+        assert path is not None
+        rows = read_equity_indices(path)
+        if section.name not in rows:
+            raise MarketDataError(f"{path}: no row for index {section.name!r} (has: {', '.join(rows)})")
+        level, q = rows[section.name].spot_level, rows[section.name].dividend_yield
+    vol_path = config.market_file("equity_vols")
+    quotes = [] if vol_path is None else [r for r in read_equity_vols(vol_path) if r.index == section.name]
+    fit: dict[str, Any]
+    instruments: list[dict[str, Any]] = []
+    if section.volatility is not None:
+        if quotes:
+            raise MarketDataError(
+                f"{vol_path}: has implied volatilities for {section.name!r} and indices.volatility is typed "
+                "in as well; give the volatility once"
+            )
+        vol: float | PiecewiseConstant = section.volatility
+        fit = {"method": "typed in"}
+    else:
+        if not quotes:
+            raise MarketDataError(f"{vol_path}: no implied volatilities for index {section.name!r}")
+        try:
+            report = calibrate_equity_volatility(
+                curve, hw, level=level, dividend_yield=q, correlation=rho_rates,
+                quotes=[EquityVolQuote(expiry=r.expiry, implied_vol=r.implied_vol, strike=r.strike) for r in quotes],
+            )
+        except MarketDataError as exc:
+            raise CalibrationError(f"{vol_path}: {exc}") from None
+        ends = np.asarray(report.bucket_ends, dtype=float)
+        vols = np.asarray(report.bucket_vols, dtype=float)
+        vol = PiecewiseConstant(knots=(0.0, *ends[:-1].tolist()), values=tuple(vols.tolist()))
+        fit = {
+            "method": "piecewise-constant volatility bootstrapped to each implied volatility under Hull-White rates",
+            "bucket_ends": ends.tolist(),
+            "bucket_volatilities": vols.tolist(),
+            "max_abs_vol_error": report.max_abs_vol_error,
+            "rows": report.as_records(),
+        }
+        instruments = [
+            {"index": section.name, "column_kind": section.kind, "expiry": r.expiry, "strike": r.strike,
+             "kind": "call", "market_vol": r.market_vol, "market_price": r.market_price, "model_price": r.model_price}
+            for r in report.rows
+        ]
+    index = TotalReturnIndex(name=section.name, kind=section.kind, level=level, income_yield=q, volatility=vol)
+    sched = as_schedule(vol)
+    lam: float | PiecewiseConstant
+    if sched.is_constant:
+        lam = section.risk_premium / sched.values[0]
+    else:
+        lam = PiecewiseConstant(knots=sched.knots, values=tuple(section.risk_premium / v for v in sched.values))
+    fit["risk_premium"] = section.risk_premium
+    fit["correlation_with_rates"] = rho_rates
+    return index, lam, fit, instruments
+
+
+def index_to_json(index: TotalReturnIndex, price_of_risk: float | PiecewiseConstant, risk_premium: float) -> dict[str, Any]:
+    return {
+        "name": index.name,
+        "kind": index.kind,
+        "level": index.level,
+        "income_yield": index.income_yield,
+        "volatility": schedule_json(index.volatility),
+        "risk_premium": risk_premium,
+        "market_price_of_risk": schedule_json(price_of_risk),
+    }
+
+
+def index_from_json(data: dict[str, Any]) -> tuple[TotalReturnIndex, float | PiecewiseConstant, float]:
+    index = TotalReturnIndex(
+        name=data["name"], kind=data["kind"], level=float(data["level"]),
+        income_yield=float(data["income_yield"]), volatility=load_schedule(data["volatility"]),
+    )
+    return index, load_schedule(data["market_price_of_risk"]), float(data["risk_premium"])
+
+
+# ------------------------------------------------------------------------------- inflation
+
+
+def _flat_breakeven_curve(nominal: DiscountCurve, maturities: np.ndarray, rates: np.ndarray) -> LogDiscountCurve:
+    """Real curve through the quotes, and beyond the last one with its breakeven held flat,
+    yearly pillars to the end of the nominal curve."""
+    last = float(maturities[-1])
+    extra = np.arange(np.floor(last) + 1.0, np.floor(nominal.max_maturity) + 1.0)
+    if extra.size and extra[-1] < nominal.max_maturity:
+        extra = np.append(extra, nominal.max_maturity)
+    t = np.concatenate([maturities, extra])
+    k = np.concatenate([rates, np.full(extra.size, rates[-1])])
+    return LogDiscountCurve(maturities=t, discount_factors=np.asarray(nominal.discount(t)) * (1.0 + k) ** t)
+
+
+def calibrate_inflation(config: RunConfig, curve: DiscountCurve) -> tuple[InflationPart, dict[str, float], dict[str, Any]]:
+    """The inflation part, its prices of risk (by driver) and the fit report."""
+    sec = config.inflation
+    assert sec is not None
+    if sec.swap_maturities is not None:
+        assert sec.swap_rates is not None
+        mats, rates, source = np.array(sec.swap_maturities, float), np.array(sec.swap_rates, float), "typed in"
+    else:
+        path = config.market_file("inflation_swaps")
+        assert path is not None
+        rows = read_inflation_swaps(path)
+        mats, rates, source = np.array([r.maturity for r in rows]), np.array([r.rate for r in rows]), str(path)
+    try:
+        quoted = real_curve_from_zc_inflation_swaps(
+            curve, [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k)) for t, k in zip(mats, rates)]
+        )
+    except MarketDataError as exc:
+        raise MarketDataError(f"{source}: {exc}") from None
+    real_curve = _flat_breakeven_curve(curve, mats, rates)
+    part = InflationPart(
+        real_curve=real_curve,
+        real=HullWhiteParams(mean_reversion=sec.real_mean_reversion, volatility=sec.real_volatility),
+        inflation_volatility=sec.inflation_volatility,
+        cpi_base=sec.cpi_base,
+        real_bond_maturities=tuple(sorted(sec.real_bond_maturities)),
+    )
+    lams = {REAL_RATE_DRIVER: sec.real_rate_price_of_risk, INFLATION_DRIVER: sec.inflation_drift_adjustment / sec.inflation_volatility}
+    fit = {
+        "method": "real curve P_r(0,T) = P_n(0,T) (1 + k(T))^T at each zero-coupon inflation swap; breakeven "
+        "flat beyond the last quote; Jarrow-Yildirim volatilities typed in",
+        "source": source,
+        "max_abs_difference_bp": quoted.max_abs_difference_bp,
+        "rows": quoted.as_records(),
+        "inflation_drift_adjustment": sec.inflation_drift_adjustment,
+    }
+    return part, lams, fit
+
+
+def inflation_to_json(part: InflationPart) -> dict[str, Any]:
+    return {
+        "real_curve": curve_to_json(part.real_curve),
+        "real_mean_reversion": part.real.mean_reversion,
+        "real_volatility": part.real.volatility,
+        "inflation_volatility": part.inflation_volatility,
+        "cpi_base": part.cpi_base,
+        "real_bond_maturities": list(part.real_bond_maturities),
+    }
+
+
+def inflation_from_json(data: dict[str, Any]) -> InflationPart:
+    return InflationPart(
+        real_curve=curve_from_json(data["real_curve"]),
+        real=HullWhiteParams(mean_reversion=float(data["real_mean_reversion"]), volatility=float(data["real_volatility"])),
+        inflation_volatility=float(data["inflation_volatility"]),
+        cpi_base=float(data["cpi_base"]),
+        real_bond_maturities=tuple(float(m) for m in data["real_bond_maturities"]),
+    )
+
+
+# ------------------------------------------------------------------------------- credit
+
+
+def calibrate_credit_part(config: RunConfig) -> tuple[CirCreditModel, dict[str, Any]]:
+    """The credit model (ratings independent of each other and of the Gaussian drivers)."""
+    sec = config.credit
+    assert sec is not None
+    path = config.market_file("credit_spreads")
+    from_file = read_credit_spreads(path) if path is not None else {}
+    curves = []
+    for r in sec.ratings:
+        if r.spread_maturities is not None:
+            assert r.spreads_bp is not None
+            mats, spreads = np.array(r.spread_maturities, float), np.array(r.spreads_bp, float) * 1e-4
+        else:
+            if r.name not in from_file:
+                raise MarketDataError(f"{path}: no spreads for rating {r.name!r} (has: {', '.join(from_file) or 'none'})")
+            mats, spreads = from_file[r.name].maturities, from_file[r.name].spreads
+        curves.append(ZeroSpreadCurve(rating=r.name, maturities=mats, spreads=spreads, recovery=r.recovery))
+    unused = sorted(set(from_file) - {r.name for r in sec.ratings})
+    fits = {r.name: tuple(r.fit) for r in sec.ratings}
+    reports = []
+    ratings = []
+    for r, c in zip(sec.ratings, curves):
+        cal = calibrate_credit(
+            [c],
+            cir={r.name: CirParams(mean_reversion=r.mean_reversion, long_run_mean=r.long_run_mean,
+                                   volatility=r.volatility, initial=r.initial)},
+            bond_maturities=sec.bond_maturities, fit=fits[r.name],
+            prices_of_risk={r.name: r.price_of_risk},
+        )
+        ratings.append(cal.model.ratings[0])
+        rep = cal.reports[0]
+        reports.append({
+            "rating": r.name, "fitted": list(rep.fitted), "max_abs_error_bp": rep.max_abs_error_bp,
+            "min_shift": rep.min_shift, "max_shift": rep.max_shift, "feller_ratio": rep.feller_ratio,
+            "optimizer_success": rep.optimizer_success,
+            "rows": [dict(vars(row)) for row in rep.rows],
+        })
+    model = CirCreditModel(ratings=tuple(ratings), bond_maturities=tuple(sorted(sec.bond_maturities)))
+    fit = {
+        "method": "hazard bootstrapped from zero-coupon spreads (recovery of market value); CIR++ shift "
+        "reprices every spread exactly; CIR parameters given or loosely fitted",
+        "ratings": reports,
+        "spread_curves_not_used": unused,
+        "substeps_per_year": sec.substeps_per_year,
+    }
+    return model, fit
+
+
+def credit_to_json(model: CirCreditModel, substeps_per_year: int) -> dict[str, Any]:
+    return {
+        "bond_maturities": list(model.bond_maturities),
+        "substeps_per_year": substeps_per_year,
+        "ratings": [
+            {
+                "name": r.name,
+                "recovery": r.recovery,
+                "price_of_risk": r.price_of_risk,
+                "cir": {"mean_reversion": r.cir.mean_reversion, "long_run_mean": r.cir.long_run_mean,
+                        "volatility": r.cir.volatility, "initial": r.cir.initial},
+                "hazard": {"knots": r.hazard.knots.tolist(), "hazards": r.hazard.hazards.tolist()},
+            }
+            for r in model.ratings
+        ],
+    }
+
+
+def credit_from_json(data: dict[str, Any]) -> tuple[CirCreditModel, int]:
+    ratings = tuple(
+        CreditRating(
+            name=r["name"], recovery=float(r["recovery"]), price_of_risk=float(r["price_of_risk"]),
+            cir=CirParams(**{k: float(v) for k, v in r["cir"].items()}),
+            hazard=HazardCurve(knots=np.array(r["hazard"]["knots"], float), hazards=np.array(r["hazard"]["hazards"], float)),
+        )
+        for r in data["ratings"]
+    )
+    model = CirCreditModel(ratings=ratings, bond_maturities=tuple(float(m) for m in data["bond_maturities"]))
+    return model, int(data["substeps_per_year"])
