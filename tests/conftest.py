@@ -36,7 +36,8 @@ def demo_config_dict() -> dict[str, Any]:
 
 
 def write_toml(path: Path, data: dict[str, Any]) -> Path:
-    """Write a (flat two-level) configuration dict as TOML."""
+    """Write a configuration dict as TOML: tables, sub-tables (nested dicts, or keys already
+    dotted like ``"calibration.hull_white"``) and arrays of tables (lists of dicts)."""
 
     def value(v: Any) -> str:
         if isinstance(v, bool):
@@ -47,12 +48,30 @@ def write_toml(path: Path, data: dict[str, Any]) -> Path:
             return "[" + ", ".join(value(x) for x in v) + "]"
         return str(v) if not hasattr(v, "isoformat") else v.isoformat()
 
-    lines = []
-    for section, body in data.items():
-        lines.append(f"[{section}]")
+    def is_tables(v: Any) -> bool:
+        return isinstance(v, list) and bool(v) and all(isinstance(x, dict) for x in v)
+
+    lines: list[str] = []
+
+    def table(name: str, body: dict[str, Any], header: str) -> None:
+        lines.append(header)
         for key, v in body.items():
-            lines.append(f"{key} = {value(v)}")
+            if not isinstance(v, dict) and not is_tables(v):
+                lines.append(f"{key} = {value(v)}")
         lines.append("")
+        for key, v in body.items():
+            if isinstance(v, dict):
+                table(f"{name}.{key}", v, f"[{name}.{key}]")
+            elif is_tables(v):
+                for item in v:
+                    table(f"{name}.{key}", item, f"[[{name}.{key}]]")
+
+    for section, body in data.items():
+        if is_tables(body):
+            for item in body:
+                table(section, item, f"[[{section}]]")
+        else:
+            table(section, body, f"[{section}]")
     path.write_text("\n".join(lines), encoding="utf-8")
     return path
 

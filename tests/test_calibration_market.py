@@ -20,7 +20,7 @@ from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.jobs import write_calibration
 from pqflow.market.bootstrap import par_rates_from_curve
 from pqflow.market.data_files import read_curve_inputs
-from pqflow.models.equity import equity_option_price
+from pqflow.models.equity import EquityParams, equity_option_price
 from pqflow.simulation import batch_generator, simulate_batch, time_grid
 
 
@@ -68,14 +68,25 @@ def test_swaption_fit_reports_every_instrument(demo_calibration):
 def test_equity_volatility_reprices_each_implied_vol(demo_calibration):
     # Each ATM-forward quote must be repriced exactly by the closed form under Hull-White rates
     # with the bucketed volatility; compare with Black's formula at the quoted vol.
+    # The further index (world_equity) is bootstrapped the same way, with its own correlation.
     cal = demo_calibration
+    params = {cal.equity.name: cal.equity}
+    for idx in cal.indices:
+        params[idx.name] = EquityParams(
+            name=idx.name, level=idx.level, dividend_yield=idx.income_yield, volatility=idx.volatility,
+            correlation=cal.driver_correlation.pair("rates", idx.name),
+        )
+    seen = set()
     for inst in cal.instruments["equity_options"]:
+        eq = params[inst.get("index", cal.equity.name)]
+        seen.add(eq.name)
         t, k = inst["expiry"], inst["strike"]
         df = float(cal.curve.discount(t))
-        fwd = cal.equity.level * np.exp(-cal.equity.dividend_yield * t) / df
+        fwd = eq.level * np.exp(-eq.dividend_yield * t) / df
         assert k == pytest.approx(fwd, rel=1e-12)  # ATM forward
-        model = equity_option_price(cal.curve, cal.rates, cal.equity, expiry=t, strike=k, kind="call")
+        model = equity_option_price(cal.curve, cal.rates, eq, expiry=t, strike=k, kind="call")
         assert model == pytest.approx(_bs_call(fwd, k, inst["market_vol"], t, df), rel=1e-10)
+    assert seen == {"veldmark_all_share", "world_equity"}
 
 
 def test_real_world_expected_short_rate_meets_the_house_view(demo_calibration):
@@ -140,24 +151,23 @@ def _typed_rates(data: dict) -> dict:
     return data
 
 
+def _core_only(data: dict) -> dict:
+    """The demo with rates and the core equity only (no further indices, inflation or credit)."""
+    data = copy.deepcopy(data)
+    for key in ("indices", "inflation", "credit"):
+        data.pop(key, None)
+    for key in ("inflation_swaps", "credit_spreads"):
+        data["market_data"].pop(key, None)
+    return data
+
+
 def _copy_demo(tmp_path: Path, data: dict, replace: dict[str, str] | None = None) -> Path:
     src = DEMO.parent / "market_data" / "veldmark_2026q3"
     dst = tmp_path / "market_data" / "veldmark_2026q3"
     shutil.copytree(src, dst)
     for name, text in (replace or {}).items():
         (dst / name).write_text(text)
-    return write_toml(tmp_path / "quarter.toml", _flatten(data))
-
-
-def _flatten(data: dict) -> dict:
-    out = {}
-    for k, v in data.items():
-        sub = {kk: vv for kk, vv in v.items() if not isinstance(vv, dict)}
-        out[k] = sub
-        for kk, vv in v.items():
-            if isinstance(vv, dict):
-                out[f"{k}.{kk}"] = vv
-    return out
+    return write_toml(tmp_path / "quarter.toml", data)
 
 
 _BAD_FILES = [
@@ -190,7 +200,7 @@ _NOT_PSD = (
 
 
 def test_non_psd_correlation_rejected_or_repaired(tmp_path):
-    data = _typed_rates(tomllib.loads(DEMO.read_text()))
+    data = _core_only(_typed_rates(tomllib.loads(DEMO.read_text())))
     cfg = _copy_demo(tmp_path / "a", copy.deepcopy(data), {"correlations.csv": _NOT_PSD})
     with pytest.raises(MarketDataError, match="higham"):
         assemble_calibration(load_config(cfg))

@@ -1,0 +1,219 @@
+"""Configuring the further parts (indices, inflation, credit): clear errors for a model without
+its data or data without its model, exact repricing of the inputs, and the calibration record
+rebuilt without refitting."""
+
+from __future__ import annotations
+
+import copy
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from conftest import write_toml
+from pqflow.calibration.assemble import assemble_calibration, build_model, load_calibration
+from pqflow.config.loader import load_config
+from pqflow.errors import ConfigError, MarketDataError
+from pqflow.models.cir_credit import zero_spread
+from pqflow.models.jarrow_yildirim import zciis_rate
+
+INDICES = [
+    {"name": "world_equity", "kind": "equity", "level": 850.0, "income_yield": 0.019, "volatility": 0.18, "risk_premium": 0.04},
+    {"name": "veldmark_property", "kind": "property", "level": 500.0, "income_yield": 0.042, "volatility": 0.11, "risk_premium": 0.025},
+]
+DRIVERS = ["rates", "veldmark_all_share", "world_equity", "veldmark_property", "real_rate", "inflation"]
+MATRIX = [  # invented, positive definite (eigenvalues 0.22 .. 2.21)
+    [1, -0.15, -0.10, -0.20, 0.55, 0.15],
+    [-0.15, 1, 0.75, 0.45, -0.10, -0.05],
+    [-0.10, 0.75, 1, 0.35, -0.05, 0.00],
+    [-0.20, 0.45, 0.35, 1, -0.15, 0.25],
+    [0.55, -0.10, -0.05, -0.15, 1, -0.30],
+    [0.15, -0.05, 0.00, 0.25, -0.30, 1],
+]
+INFLATION = {
+    "real_mean_reversion": 0.08, "real_volatility": 0.007, "inflation_volatility": 0.012,
+    "cpi_base": 100.0, "real_bond_maturities": [5, 10],
+    "swap_maturities": [1, 2, 5, 10, 20, 30], "swap_rates": [0.0231, 0.0224, 0.0214, 0.0211, 0.0215, 0.0218],
+}
+CREDIT = {
+    "bond_maturities": [1, 5, 10],
+    "substeps_per_year": 12,
+    "ratings": [
+        {"name": "AA", "recovery": 0.4, "mean_reversion": 0.4, "long_run_mean": 0.01, "volatility": 0.05,
+         "initial": 0.004, "fit": ["long_run_mean", "initial"], "spread_maturities": [1, 3, 5, 10], "spreads_bp": [28, 36, 43, 56]},
+        {"name": "BBB", "recovery": 0.4, "mean_reversion": 0.3, "long_run_mean": 0.03, "volatility": 0.08,
+         "initial": 0.012, "fit": ["long_run_mean", "initial"], "price_of_risk": 0.5,
+         "spread_maturities": [1, 3, 5, 10], "spreads_bp": [95, 119, 136, 162]},
+    ],
+}
+
+
+@pytest.fixture
+def full(demo_config_dict):
+    """The typed demo with the whole invented balance sheet typed in."""
+    data = copy.deepcopy(demo_config_dict)
+    del data["equity"]["correlation_with_rates"]
+    data["indices"] = copy.deepcopy(INDICES)
+    data["correlations"] = {"drivers": DRIVERS, "matrix": MATRIX}
+    data["inflation"] = copy.deepcopy(INFLATION)
+    data["credit"] = copy.deepcopy(CREDIT)
+    data["simulation"].update({"scenarios": 400, "batch_size": 200, "horizon_years": 10})
+    data["real_world"]["target_year"] = 10
+    return data
+
+
+def _load(tmp_path: Path, data: dict):
+    return load_config(write_toml(tmp_path / "q.toml", data))
+
+
+def test_full_balance_sheet_calibrates_and_reprices_its_inputs(tmp_path, full):
+    cal = assemble_calibration(_load(tmp_path, full))
+    # ZCIIS: k(T) = (P_r / P_n)^{1/T} - 1 reprices every quote (Brigo and Mercurio 2006, ch. 15.2)
+    t = np.array(INFLATION["swap_maturities"], float)
+    k = zciis_rate(cal.curve, cal.inflation.real_curve, t)
+    assert np.max(np.abs(k - np.array(INFLATION["swap_rates"]))) < 1e-12
+    # beyond the last quote the breakeven is held flat (common practice)
+    assert zciis_rate(cal.curve, cal.inflation.real_curve, np.array([45.0, 80.0])) == pytest.approx([0.0218] * 2, abs=1e-12)
+    # every spread repriced by the CIR++ shift (Brigo and Mercurio 2006, ch. 3.9; exact fit)
+    for rating, spec in zip(cal.credit.ratings, CREDIT["ratings"]):
+        mats = np.array(spec["spread_maturities"], float)
+        model = zero_spread(rating, 0.0, mats, rating.cir.initial)
+        assert np.max(np.abs(model - np.array(spec["spreads_bp"]) * 1e-4)) < 1e-12
+    assert cal.credit.ratings[1].price_of_risk == 0.5
+    # prices of risk: risk premium over volatility per index; inflation drift adjustment / vol
+    assert cal.extra_prices_of_risk["world_equity"] == pytest.approx(0.04 / 0.18)
+    assert cal.extra_prices_of_risk["inflation"] == 0.0
+    model = build_model(cal, (1.0, 5.0, 10.0))
+    assert model.driver_names == tuple(DRIVERS)
+    assert np.array_equal(model.correlation, np.array(MATRIX, float))
+    assert "property_veldmark_property" in model.known_columns() and "real_zcb_10y" in model.known_columns()
+
+
+def test_the_calibration_record_rebuilds_every_part(tmp_path, full):
+    cal = assemble_calibration(_load(tmp_path, full))
+    from pqflow.jobs.steps import write_calibration
+
+    path = write_calibration(tmp_path, cal)
+    again = load_calibration(path)
+    assert again.to_json() == cal.to_json()
+    times = np.linspace(0.0, 10.0, 11)
+    a, b = build_model(cal, (5.0,)), build_model(again, (5.0,))
+    for t0, t1 in zip(times[:-1], times[1:]):
+        la, lb = a.step_law(t0, t1), b.step_law(t0, t1)
+        assert np.array_equal(la.chol, lb.chol) and np.array_equal(la.drift, lb.drift)
+        assert np.array_equal(la.real_world_shift, lb.real_world_shift)
+
+
+@pytest.mark.parametrize(
+    ("edit", "fragment"),
+    [
+        (lambda d: d.setdefault("market_data", {}).update(inflation_swaps="x.csv") or d.pop("inflation"),
+         "market_data.inflation_swaps is given but [inflation] is not configured"),
+        (lambda d: d.setdefault("market_data", {}).update(credit_spreads="x.csv") or d.pop("credit"),
+         "market_data.credit_spreads is given but [credit] is not configured"),
+        (lambda d: [d["inflation"].pop(k) for k in ("swap_maturities", "swap_rates")],
+         "inflation.swap_maturities/swap_rates (typed in) or market_data.inflation_swaps"),
+        (lambda d: [d["credit"]["ratings"][0].pop(k) for k in ("spread_maturities", "spreads_bp")],
+         "credit rating AA: give exactly one of spread_maturities/spreads_bp"),
+        (lambda d: [d["indices"][0].pop(k) for k in ("level", "income_yield")],
+         "index world_equity: give level and income_yield, or market_data.equity_index"),
+        (lambda d: d["indices"][1].pop("volatility"),
+         "index veldmark_property: give volatility, or market_data.equity_vols"),
+        (lambda d: d["credit"].update(bond_maturities=[1, 11]), "credit.bond_maturities [11.0] are not in outputs.bond_maturities"),
+        (lambda d: d.pop("correlations") and d["equity"].update(correlation_with_rates=-0.1),
+         "every pair of drivers needs a correlation"),
+        (lambda d: d["indices"][0].update(name="veldmark_all_share"), "index names must not repeat"),
+        (lambda d: d["indices"][0].update(name="inflation"), "names a rates or inflation driver"),
+    ],
+)
+def test_a_model_without_its_data_or_data_without_its_model_is_refused(tmp_path, full, edit, fragment):
+    data = copy.deepcopy(full)
+    edit(data)
+    with pytest.raises(ConfigError) as info:
+        _load(tmp_path, data)
+    assert fragment in " ".join(str(info.value).split())
+
+
+def test_a_correlation_matrix_missing_a_driver_names_it(tmp_path, full):
+    data = copy.deepcopy(full)
+    data["correlations"] = {"drivers": DRIVERS[:-1], "matrix": [row[:-1] for row in MATRIX[:-1]]}
+    with pytest.raises(MarketDataError, match="'inflation' not in the matrix"):
+        assemble_calibration(_load(tmp_path, data))
+
+
+def test_a_stored_calibration_must_match_the_configured_parts(tmp_path, full):
+    from pqflow.calibration.assemble import check_calibration_fits
+
+    cal = assemble_calibration(_load(tmp_path, full))
+    data = copy.deepcopy(full)
+    data.pop("credit")
+    with pytest.raises(ConfigError, match=r"has \[credit\] part but the configuration does not configure it"):
+        check_calibration_fits(cal, _load(tmp_path, data), source="cal.json")
+    data = copy.deepcopy(full)
+    data["indices"] = data["indices"][:1]
+    with pytest.raises(ConfigError, match="calibration has indices"):
+        check_calibration_fits(cal, _load(tmp_path, data), source="cal.json")
+
+
+@pytest.fixture(scope="module")
+def full_run(tmp_path_factory, demo_config_dict):
+    """A small run of the whole typed balance sheet, without Prefect (same files as the flow)."""
+    from pipeline import run_in_process
+
+    root = tmp_path_factory.mktemp("full")
+    data = copy.deepcopy(demo_config_dict)
+    del data["equity"]["correlation_with_rates"]
+    data.update(indices=copy.deepcopy(INDICES), correlations={"drivers": DRIVERS, "matrix": MATRIX},
+                inflation=copy.deepcopy(INFLATION), credit=copy.deepcopy(CREDIT))
+    data["simulation"].update({"scenarios": 2000, "batch_size": 1000, "horizon_years": 10})
+    data["real_world"]["target_year"] = 10
+    cfg = write_toml(root / "full.toml", data)
+    out = root / "run"
+    result = run_in_process(cfg, out)
+    return out, result
+
+
+def _read(run: Path, measure: str):
+    import pandas as pd
+
+    return pd.concat([pd.read_parquet(p) for p in sorted((run / "scenarios" / measure).glob("part-*.parquet"))])
+
+
+def test_every_part_writes_its_columns_to_both_sets(full_run):
+    run, _ = full_run
+    expected = {"equity_veldmark_all_share", "equity_world_equity", "property_veldmark_property", "cpi",
+                "real_short_rate", "real_zcb_5y", "real_zcb_10y", "intensity_AA", "cumulative_intensity_BBB",
+                "spread_BBB_10y", "dzcb_AA_1y", "dzcb_BBB_10y"}
+    for measure in ("real_world", "market_consistent"):
+        cols = set(_read(run, measure).columns)
+        assert expected <= cols, expected - cols
+
+
+def test_columns_of_parts_not_configured_are_absent(tmp_path, small_config):
+    from pipeline import run_in_process
+
+    out = tmp_path / "core"
+    run_in_process(small_config(), out, scenarios=200)
+    cols = set(_read(out, "market_consistent").columns)
+    assert not {c for c in cols if c.startswith(("property_", "cpi", "real_", "intensity_", "spread_", "dzcb_"))}
+
+
+def test_reweighted_real_world_expectations_match_market_consistent_ones(full_run):
+    """E_P[q_density X_t] = E_Q[X_t] for the new assets (Girsanov; the density of the whole set is
+    the product of the Gaussian and the credit parts). Both sides are estimates: their difference
+    is judged against the combined standard error, 4 SE (common practice)."""
+    run, _ = full_run
+    p, q = _read(run, "real_world"), _read(run, "market_consistent")
+    t = 10.0
+    p, q = p[p.time == t], q[q.time == t]
+    for col in ("cpi", "real_zcb_10y", "property_veldmark_property", "equity_world_equity", "intensity_BBB", "dzcb_BBB_10y"):
+        wp = (p["q_density"] * p[col]).to_numpy()
+        xq = q[col].to_numpy()
+        wp = wp.reshape(-1, 2).mean(axis=1)  # antithetic pairs are the sampling units
+        xq = xq.reshape(-1, 2).mean(axis=1)
+        se = np.sqrt(wp.var(ddof=1) / wp.size + xq.var(ddof=1) / xq.size)
+        assert abs(wp.mean() - xq.mean()) <= 4 * se, (col, wp.mean(), xq.mean(), se)
+    # the BBB price of risk (0.5) makes real-world intensities differ from market-consistent ones
+    gap = p["intensity_BBB"].mean() - q["intensity_BBB"].mean()
+    se = np.sqrt(p["intensity_BBB"].var() / len(p) + q["intensity_BBB"].var() / len(q))
+    assert abs(gap) > 4 * se
