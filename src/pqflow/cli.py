@@ -214,7 +214,8 @@ def calibrate(
 ) -> None:
     """Fit the one shared calibration and write it with its fit report, without simulating.
 
-    Curve (Smith-Wilson), Hull-White to swaptions, equity volatility, market prices of risk.
+    Curve (Smith-Wilson), Hull-White to swaptions, index volatilities, inflation and credit
+    curves, correlations, market prices of risk.
     """
     from pqflow.calibration.assemble import assemble_calibration
     from pqflow.config.loader import load_config
@@ -253,6 +254,30 @@ def _print_fit(payload: dict[str, Any]) -> None:
     if "bucket_volatilities" in eq:
         buckets = ", ".join(f"{v:.4f}" for v in eq["bucket_volatilities"])
         console.print(f"equity volatility by bucket (ends {eq['bucket_ends']}): {buckets}", highlight=False)
+    for item in par.get("indices", []):
+        vol = item["volatility"]
+        vol_text = f"{vol:.4f}" if isinstance(vol, (int, float)) else ", ".join(f"{v:.4f}" for v in vol["values"])
+        console.print(
+            f"{item['kind']} index {item['name']}: level {item['level']:g}, income yield {item['income_yield']:.4f}, "
+            f"volatility {vol_text}, risk premium {item['risk_premium']:.4f}",
+            highlight=False,
+        )
+    inf = fit.get("inflation")
+    if inf:
+        p_inf = par["inflation"]
+        console.print(
+            f"inflation (Jarrow-Yildirim): real curve from {len(inf['rows'])} zero-coupon inflation swaps, "
+            f"max repricing error {inf['max_abs_difference_bp']:.2g} bp; a_r = {p_inf['real_mean_reversion']:g}, "
+            f"sigma_r = {p_inf['real_volatility']:g}, sigma_I = {p_inf['inflation_volatility']:g}",
+            highlight=False,
+        )
+    for r in fit.get("credit", {}).get("ratings", []):
+        console.print(
+            f"credit {r['rating']}: spreads repriced to {r['max_abs_error_bp']:.2g} bp; CIR++ shift in "
+            f"[{r['min_shift']:.4f}, {r['max_shift']:.4f}]; Feller ratio {r['feller_ratio']:.2f}"
+            + (f"; fitted {', '.join(r['fitted'])}" if r["fitted"] else ""),
+            highlight=False,
+        )
     corr = fit.get("correlation", {})
     if corr.get("repaired"):
         console.print(f"correlation matrix repaired (Higham 2002), Frobenius distance {corr['frobenius_distance']:.4g}", style="yellow")
