@@ -236,12 +236,19 @@ def calibrate(
 
 def _print_fit(payload: dict[str, Any]) -> None:
     fit, par = payload.get("fit", {}), payload["parameters"]
-    hw = par["hull_white"]
-    console.print(
-        f"Hull-White: a = {hw['mean_reversion']:.5f}, sigma = {hw['volatility']:.5f}"
-        + (f"  (swaption fit RMSE {fit['hull_white']['rmse_bp']:.2f} bp)" if "rmse_bp" in fit.get("hull_white", {}) else ""),
-        highlight=False,
-    )
+    model = par.get("rates_model", "hull_white")
+    rates_fit = fit.get(model, {})
+    rmse = f"  (swaption fit RMSE {rates_fit['rmse_bp']:.2f} bp)" if "rmse_bp" in rates_fit else ""
+    if model == "g2pp":
+        g = par["g2pp"]
+        console.print(
+            f"G2++: a = {g['a']:.5f}, sigma = {g['sigma']:.5f}, b = {g['b']:.5f}, eta = {g['eta']:.5f}, "
+            f"rho = {g['rho']:.4f}{rmse}",
+            highlight=False,
+        )
+    else:
+        hw = par["hull_white"]
+        console.print(f"Hull-White: a = {hw['mean_reversion']:.5f}, sigma = {hw['volatility']:.5f}{rmse}", highlight=False)
     curve = fit.get("curve", {})
     if "alpha" in curve:
         console.print(
@@ -303,7 +310,7 @@ def _print_fit(payload: dict[str, Any]) -> None:
                 cells += ["", ""]
             table.add_row(*cells)
         console.print(table)
-    if rows := fit.get("hull_white", {}).get("rows"):
+    if rows := rates_fit.get("rows"):
         table = Table(title="Swaption fit (normal vols in bp)")
         for col in ("expiry", "tenor", "market", "model", "diff bp"):
             table.add_column(col, justify="right")

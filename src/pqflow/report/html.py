@@ -245,10 +245,16 @@ def _calibration(cal: dict[str, Any]) -> tuple[str, list[str]]:
     hw, eq = par.get("hull_white", {}), par.get("equity", {})
     mpr = par.get("market_prices_of_risk", {})
     curve = par.get("curve", {})
+    if "g2pp" in par:
+        g = par["g2pp"]
+        rates_pairs = [("rates model", "G2++ (two factors)"), ("G2++ a, sigma (rates_x)", f"{g['a']:.6g}, {g['sigma']:.6g}"),
+                       ("G2++ b, eta (rates_y)", f"{g['b']:.6g}, {g['eta']:.6g}"), ("G2++ rho", g["rho"])]
+    else:
+        rates_pairs = [("Hull-White mean reversion a", hw.get("mean_reversion")),
+                       ("Hull-White volatility sigma", hw.get("volatility"))]
     pairs = [
         ("curve", curve.get("description", curve.get("interpolation", curve.get("kind", "–")))),
-        ("Hull-White mean reversion a", hw.get("mean_reversion")),
-        ("Hull-White volatility sigma", hw.get("volatility")),
+        *rates_pairs,
         ("equity index", eq.get("name", "–")),
         ("equity level", eq.get("level")),
         ("dividend yield", eq.get("dividend_yield")),
@@ -260,9 +266,35 @@ def _calibration(cal: dict[str, Any]) -> tuple[str, list[str]]:
     rw = cal.get("inputs", {}).get("real_world", {})
     if "equity_risk_premium" in rw:
         pairs.append(("equity risk premium (input)", rw.get("equity_risk_premium")))
+    for item in par.get("indices", []):
+        pairs.append((f"{item['kind']} index {item['name']}: level, income yield, risk premium",
+                      f"{item['level']:g}, {item['income_yield']:.4g}, {item['risk_premium']:.4g}"))
+        pairs.append((f"{item['name']} volatility", _schedule_text(item.get("volatility"))))
+    if "inflation" in par:
+        inf = par["inflation"]
+        pairs.append(("inflation (Jarrow-Yildirim): a_r, sigma_r, sigma_I",
+                      f"{inf['real_mean_reversion']:g}, {inf['real_volatility']:g}, {inf['inflation_volatility']:g}"))
+        pairs.append(("CPI at time 0; real bonds written", f"{inf['cpi_base']:g}; {inf['real_bond_maturities']}"))
+    for r in (par.get("credit") or {}).get("ratings", []):
+        c = r["cir"]
+        pairs.append((f"credit {r['name']}: recovery, CIR (kappa, mu, nu, y0), theta",
+                      f"{r['recovery']:g}, ({c['mean_reversion']:.4g}, {c['long_run_mean']:.4g}, {c['volatility']:.4g}, "
+                      f"{c['initial']:.4g}), {r['price_of_risk']:g}"))
+    if "driver_correlation" in par:
+        dc = par["driver_correlation"]
+        pairs.append(("drivers (correlation matrix in calibration.json)", ", ".join(dc["drivers"])))
     html = ["<h3>Parameters</h3>", _kv(pairs)]
     charts: list[str] = []
+    fits: list[tuple[str, Any]] = []
     for name, fit in (cal.get("fit") or {}).items():
+        if name == "indices" and isinstance(fit, dict):
+            fits += [(f"index {k}", v) for k, v in fit.items()]
+        elif name == "credit" and isinstance(fit, dict):
+            fits.append(("credit", {k: v for k, v in fit.items() if k != "ratings"}))
+            fits += [(f"credit {r.get('rating')}", r) for r in fit.get("ratings", [])]
+        else:
+            fits.append((name, fit))
+    for name, fit in fits:
         if not isinstance(fit, dict):
             continue
         html.append(f"<h3>Fit: {escape(name.replace('_', ' '))}</h3>")
