@@ -39,6 +39,7 @@ from pqflow.calibration.parts import (
     load_schedule,
     schedule_json,
 )
+from pqflow.calibration.g2pp_swaptions import calibrate_g2pp_to_swaptions
 from pqflow.calibration.swaptions import SwaptionQuote, calibrate_hull_white_to_swaptions
 from pqflow.config.schema import RunConfig
 from pqflow.errors import CalibrationError, ConfigError, MarketDataError, MeasureError
@@ -67,9 +68,10 @@ from pqflow.measure.prices_of_risk import (
     real_world_factor_mean,
 )
 from pqflow.models.equity import EquityParams
+from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.cir_credit import CirCreditModel
-from pqflow.models.economy import EconomyModel, InflationPart, TotalReturnIndex
+from pqflow.models.economy import RATES_DRIVERS, EconomyModel, InflationPart, TotalReturnIndex
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.jsonio import read_json
 from pqflow.storage.parquet import file_sha256
@@ -111,6 +113,18 @@ class Calibration:
     inflation: InflationPart | None = None
     credit: CirCreditModel | None = None
     credit_substeps_per_year: int = 12
+    #: Under G2++: the core equity's correlation with ``(rates_x, rates_y)`` (``equity.correlation``
+    #: is then its correlation with the short-rate shock, for display).
+    rates_correlation: tuple[float, float] | None = None
+
+    @property
+    def rates_model(self) -> str:
+        return "g2pp" if isinstance(self.rates, G2PlusPlusParams) else "hull_white"
+
+    @property
+    def equity_rates_correlation(self) -> float | tuple[float, float]:
+        """The core equity's correlation with the rate driver(s)."""
+        return self.rates_correlation if self.rates_correlation is not None else self.equity.correlation
 
     @property
     def driver_correlation(self) -> DriverCorrelation:
@@ -160,16 +174,15 @@ class Calibration:
             "inputs": self.inputs,
             "parameters": {
                 "curve": curve_to_json(self.curve),
-                "hull_white": {
-                    "mean_reversion": self.rates.mean_reversion,
-                    "volatility": self.rates.volatility,
-                },
+                "rates_model": self.rates_model,
+                **_rates_json(self.rates),
                 "equity": {
                     "name": self.equity.name,
                     "level": self.equity.level,
                     "dividend_yield": self.equity.dividend_yield,
                     "volatility": _schedule_json(self.equity.volatility),
                     "correlation_with_rates": self.equity.correlation,
+                    **({"correlation_with_rate_factors": list(self.rates_correlation)} if self.rates_correlation else {}),
                 },
                 "market_prices_of_risk": {
                     "rates": _schedule_json(self.prices_of_risk.rates),
@@ -206,8 +219,34 @@ class Calibration:
         return out
 
 
+def short_rate_correlation(rates: HullWhiteParams | G2PlusPlusParams, rho: float | tuple[float, float]) -> float:
+    """Correlation of an index's shock with the short-rate shock: ``rho`` under Hull-White; under
+    G2++ ``(rho_x sigma + rho_y eta) / sqrt(sigma^2 + eta^2 + 2 rho sigma eta)`` (``dr`` loads
+    ``sigma dW1 + eta dW2``)."""
+    if isinstance(rates, HullWhiteParams):
+        assert not isinstance(rho, tuple)
+        return float(rho)
+    assert isinstance(rho, tuple)
+    s, e = rates.sigma, rates.eta
+    return float((rho[0] * s + rho[1] * e) / np.sqrt(s * s + e * e + 2.0 * rates.rho * s * e))
+
+
+def _rates_json(rates: HullWhiteParams | G2PlusPlusParams) -> dict[str, Any]:
+    if isinstance(rates, G2PlusPlusParams):
+        return {"g2pp": {"a": rates.a, "sigma": rates.sigma, "b": rates.b, "eta": rates.eta, "rho": rates.rho}}
+    return {"hull_white": {"mean_reversion": rates.mean_reversion, "volatility": rates.volatility}}
+
+
+def _rates_from_json(par: dict[str, Any]) -> HullWhiteParams | G2PlusPlusParams:
+    if "g2pp" in par:
+        return G2PlusPlusParams(**{k: float(v) for k, v in par["g2pp"].items()})
+    return HullWhiteParams(mean_reversion=par["hull_white"]["mean_reversion"], volatility=par["hull_white"]["volatility"])
+
+
 def _parts_from_json(par: dict[str, Any]) -> dict[str, Any]:
     out: dict[str, Any] = {"extra_prices_of_risk": {}, "index_risk_premia": {}}
+    if "correlation_with_rate_factors" in par["equity"]:
+        out["rates_correlation"] = tuple(float(v) for v in par["equity"]["correlation_with_rate_factors"])
     if "driver_correlation" in par:
         out["correlation"] = DriverCorrelation.from_json(par["driver_correlation"])
     indices = []
@@ -236,10 +275,7 @@ def load_calibration(path: str | Path) -> Calibration:
             valuation_date=data["valuation_date"],
             horizon_years=float(data["horizon_years"]),
             curve=curve_from_json(par["curve"]),
-            rates=HullWhiteParams(
-                mean_reversion=par["hull_white"]["mean_reversion"],
-                volatility=par["hull_white"]["volatility"],
-            ),
+            rates=_rates_from_json(par),
             equity=EquityParams(
                 name=par["equity"]["name"],
                 level=par["equity"]["level"],
@@ -390,27 +426,45 @@ def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
     return curve, fit
 
 
-def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams, dict[str, Any], list[dict[str, Any]]]:
+def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G2PlusPlusParams, dict[str, Any], list[dict[str, Any]]]:
+    g2 = config.rates.model == "g2pp"
     if config.hull_white is not None:
         hw = HullWhiteParams(mean_reversion=config.hull_white.mean_reversion, volatility=config.hull_white.volatility)
         return hw, {"method": "typed in"}, []
+    if config.g2pp is not None:
+        return G2PlusPlusParams(**config.g2pp.model_dump()), {"method": "typed in"}, []
     path = config.market_file("swaptions")
     assert path is not None
     rows = read_swaption_quotes(path)
     quotes = [SwaptionQuote(expiry=r.expiry, tenor=r.tenor, vol=r.vol, convention=r.convention, shift=r.shift, weight=r.weight) for r in rows]
-    opts = config.calibration.hull_white
-    report = calibrate_hull_white_to_swaptions(
-        curve,
-        quotes,
-        objective=opts.objective,
-        mean_reversion_bounds=opts.mean_reversion_bounds,
-        volatility_bounds=opts.volatility_bounds,
-        fix_mean_reversion=opts.fix_mean_reversion,
-    )
+    report: Any
+    if g2:
+        g2_opts = config.calibration.g2pp
+        report = calibrate_g2pp_to_swaptions(
+            curve,
+            quotes,
+            objective=g2_opts.objective,
+            initial=G2PlusPlusParams(**g2_opts.initial.model_dump()) if g2_opts.initial is not None else None,
+            mean_reversion_bounds=g2_opts.mean_reversion_bounds,
+            volatility_bounds=g2_opts.volatility_bounds,
+        )
+        method = ("G2++ (a, sigma, b, eta, rho) to ATM swaptions, one-dimensional integral (Brigo and "
+                  "Mercurio 2006, ch. 4.2), weighted least squares; rates_x is the factor with a >= b")
+    else:
+        opts = config.calibration.hull_white
+        report = calibrate_hull_white_to_swaptions(
+            curve,
+            quotes,
+            objective=opts.objective,
+            mean_reversion_bounds=opts.mean_reversion_bounds,
+            volatility_bounds=opts.volatility_bounds,
+            fix_mean_reversion=opts.fix_mean_reversion,
+        )
+        method = "Hull-White (a, sigma) to ATM swaptions, Jamshidian's decomposition, weighted least squares"
     if not report.success:
-        raise CalibrationError(f"{path}: the Hull-White fit did not converge ({report.message})")
+        raise CalibrationError(f"{path}: the {'G2++' if g2 else 'Hull-White'} fit did not converge ({report.message})")
     fit = {
-        "method": "Hull-White (a, sigma) to ATM swaptions, Jamshidian's decomposition, weighted least squares",
+        "method": method,
         "objective": report.objective,
         "fitted": list(report.fitted),
         "at_bound": list(report.at_bound),
@@ -449,7 +503,8 @@ def _equity_spot(config: RunConfig) -> tuple[float, float]:
 
 
 def _equity_vol(
-    config: RunConfig, curve: DiscountCurve, hw: HullWhiteParams, rho: float, level: float, q: float
+    config: RunConfig, curve: DiscountCurve, hw: HullWhiteParams | G2PlusPlusParams, rho: float | tuple[float, float],
+    level: float, q: float
 ) -> tuple[float | PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
     if config.equity.volatility is not None:
         return config.equity.volatility, {"method": "typed in"}, []
@@ -568,17 +623,18 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         if path is not None:
             reader(path)  # every file checked in full before anything is fitted
     curve, curve_fit = _curve(config)
-    correlation, corr_fit = driver_correlation(config)
-    rho = correlation.pair(RATES_DRIVER, config.equity.name)
     rates, rates_fit, swaptions = _rates(config, curve)
+    correlation, corr_fit = driver_correlation(config, rates)
+    rho = correlation.with_rates(config.equity.name)
     level, q = _equity_spot(config)
     vol, equity_fit, equity_options = _equity_vol(config, curve, rates, rho, level, q)
     prices_of_risk, view = _real_world(config, curve, rates, vol)
-    equity = EquityParams(name=config.equity.name, level=level, dividend_yield=q, volatility=vol, correlation=rho)
-    fit = {"curve": curve_fit, "correlation": corr_fit, "hull_white": rates_fit, "equity": equity_fit}
+    equity = EquityParams(name=config.equity.name, level=level, dividend_yield=q, volatility=vol,
+                          correlation=short_rate_correlation(rates, rho))
+    fit = {"curve": curve_fit, "correlation": corr_fit, config.rates.model: rates_fit, "equity": equity_fit}
     indices, extra_lams, premia, index_fits = [], {}, {}, {}
     for section in config.indices:
-        index, lam, index_fit, options = calibrate_index(config, section, curve, rates, correlation.pair(RATES_DRIVER, section.name))
+        index, lam, index_fit, options = calibrate_index(config, section, curve, rates, correlation.with_rates(section.name))
         indices.append(index)
         extra_lams[section.name] = lam
         premia[section.name] = section.risk_premium
@@ -610,6 +666,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         extra_prices_of_risk=extra_lams,
         index_risk_premia=premia,
         correlation=correlation if correlation.names != (RATES_DRIVER, config.equity.name) else None,
+        rates_correlation=rho if isinstance(rho, tuple) else None,
         inflation=inflation,
         credit=credit,
         credit_substeps_per_year=config.credit.substeps_per_year if config.credit is not None else 12,
@@ -620,6 +677,7 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
     """The Gaussian scenario model both sets are simulated from (credit is simulated beside it,
     :mod:`pqflow.simulation.credit`)."""
     eq = calibration.equity
+    model_name = "g2pp" if isinstance(calibration.rates, G2PlusPlusParams) else "hull_white"
     core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield, volatility=eq.volatility)
     return EconomyModel(
         curve=calibration.curve,
@@ -627,7 +685,7 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
         indices=(core, *calibration.indices),
         correlation=calibration.driver_correlation.matrix,
         prices_of_risk={
-            RATES_DRIVER: calibration.prices_of_risk.rates,
+            **{d: calibration.prices_of_risk.rates for d in RATES_DRIVERS[model_name]},
             eq.name: calibration.prices_of_risk.equity,
             **calibration.extra_prices_of_risk,
         },

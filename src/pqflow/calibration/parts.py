@@ -39,7 +39,8 @@ from pqflow.market.data_files import (
 )
 from pqflow.market.serialize import curve_from_json, curve_to_json
 from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve
-from pqflow.models.economy import INFLATION_DRIVER, REAL_RATE_DRIVER, InflationPart, TotalReturnIndex
+from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER, InflationPart, TotalReturnIndex
+from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 
@@ -61,7 +62,8 @@ __all__ = [
     "credit_from_json",
 ]
 
-#: Name of the short-rate driver in a correlation matrix.
+#: Name of the short-rate driver in a correlation matrix (Hull-White; G2++ has ``rates_x`` and
+#: ``rates_y``, :data:`pqflow.models.economy.RATES_DRIVERS`).
 RATES_DRIVER = "rates"
 
 
@@ -86,6 +88,13 @@ class DriverCorrelation:
     def pair(self, a: str, b: str) -> float:
         return float(self.matrix[self.names.index(a), self.names.index(b)])
 
+    def with_rates(self, name: str) -> float | tuple[float, float]:
+        """Correlation of driver ``name`` with the rate driver(s): a number under Hull-White,
+        ``(with rates_x, with rates_y)`` under G2++."""
+        if RATES_DRIVER in self.names:
+            return self.pair(RATES_DRIVER, name)
+        return (self.pair("rates_x", name), self.pair("rates_y", name))
+
     def to_json(self) -> dict[str, Any]:
         return {"drivers": list(self.names), "matrix": self.matrix.tolist()}
 
@@ -96,14 +105,16 @@ class DriverCorrelation:
 
 def driver_names(config: RunConfig) -> tuple[str, ...]:
     """Drivers of the configured Gaussian parts, in model order."""
-    out = [RATES_DRIVER, config.equity.name, *(i.name for i in config.indices)]
+    out = [*RATES_DRIVERS[config.rates.model], config.equity.name, *(i.name for i in config.indices)]
     if config.inflation is not None:
         out += [REAL_RATE_DRIVER, INFLATION_DRIVER]
     return tuple(out)
 
 
-def driver_correlation(config: RunConfig) -> tuple[DriverCorrelation, dict[str, Any]]:
-    """The correlation of every configured driver, from its one source, checked."""
+def driver_correlation(config: RunConfig, rates: HullWhiteParams | G2PlusPlusParams | None = None) -> tuple[DriverCorrelation, dict[str, Any]]:
+    """The correlation of every configured driver, from its one source, checked. Under G2++
+    the ``(rates_x, rates_y)`` entry is the model's ``rho`` (typed in or fitted to swaptions),
+    whatever the matrix says."""
     needed = driver_names(config)
     if config.equity.correlation_with_rates is not None:
         rho = config.equity.correlation_with_rates
@@ -149,12 +160,17 @@ def driver_correlation(config: RunConfig) -> tuple[DriverCorrelation, dict[str, 
     sub = np.array(matrix[np.ix_(pick, pick)], dtype=float)
     sub = 0.5 * (sub + sub.T)
     np.fill_diagonal(sub, 1.0)
+    if isinstance(rates, G2PlusPlusParams):
+        fit["rates_x_rates_y"] = {"from_matrix": float(sub[0, 1]), "used": rates.rho,
+                                  "note": "the G2++ rho of the rates fit replaces the matrix entry"}
+        sub[0, 1] = sub[1, 0] = rates.rho
     if np.linalg.eigvalsh(sub)[0] <= 1e-10:
         raise MarketDataError(
             f"{where}: the correlations of the configured drivers {list(needed)} are singular (a pair or "
             "group moves as one); the scenario density needs a positive definite matrix"
         )
-    fit["correlation_with_rates"] = float(sub[0, 1])
+    n_rates = len(RATES_DRIVERS[config.rates.model])
+    fit["correlation_with_rates"] = float(sub[0, n_rates]) if n_rates == 1 else sub[:n_rates, n_rates].tolist()
     fit["used_drivers"] = list(needed)
     return DriverCorrelation(names=needed, matrix=sub), fit
 
@@ -163,7 +179,8 @@ def driver_correlation(config: RunConfig) -> tuple[DriverCorrelation, dict[str, 
 
 
 def calibrate_index(
-    config: RunConfig, section: IndexSection, curve: DiscountCurve, hw: HullWhiteParams, rho_rates: float
+    config: RunConfig, section: IndexSection, curve: DiscountCurve, hw: HullWhiteParams | G2PlusPlusParams,
+    rho_rates: float | tuple[float, float],
 ) -> tuple[TotalReturnIndex, float | PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
     """One further index: its parameters, real-world price of risk, fit report and option quotes."""
     if section.level is not None:
@@ -221,7 +238,7 @@ def calibrate_index(
     else:
         lam = PiecewiseConstant(knots=sched.knots, values=tuple(section.risk_premium / v for v in sched.values))
     fit["risk_premium"] = section.risk_premium
-    fit["correlation_with_rates"] = rho_rates
+    fit["correlation_with_rates"] = list(rho_rates) if isinstance(rho_rates, tuple) else rho_rates
     return index, lam, fit, instruments
 
 

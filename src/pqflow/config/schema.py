@@ -29,6 +29,9 @@ __all__ = [
     "OutputsSection",
     "ValidationSection",
     "ExecutionSection",
+    "RatesSection",
+    "G2ppSection",
+    "G2ppFitSection",
     "IndexSection",
     "CorrelationsSection",
     "InflationSection",
@@ -84,6 +87,25 @@ class HullWhiteSection(_Section):
 
     mean_reversion: float = Field(gt=0.0, le=5.0)
     volatility: float = Field(gt=0.0, le=0.2)
+
+
+class RatesSection(_Section):
+    """Which short-rate model drives the nominal rates: ``hull_white`` (one factor, driver
+    ``rates``) or ``g2pp`` (two correlated Gaussian factors, drivers ``rates_x`` and ``rates_y``;
+    ``rates_x`` is the factor with the larger mean reversion when fitted)."""
+
+    model: Literal["hull_white", "g2pp"] = "hull_white"
+
+
+class G2ppSection(_Section):
+    """G2++ parameters under the market-consistent measure: mean reversions ``a``, ``b``,
+    volatilities ``sigma``, ``eta`` and the correlation ``rho`` of the two factor shocks."""
+
+    a: float = Field(gt=0.0, le=5.0)
+    sigma: float = Field(gt=0.0, le=0.2)
+    b: float = Field(gt=0.0, le=5.0)
+    eta: float = Field(gt=0.0, le=0.2)
+    rho: float = Field(gt=-1.0, lt=1.0)
 
 
 class EquitySection(_Section):
@@ -277,11 +299,31 @@ class HullWhiteFitSection(_Section):
         return self
 
 
+class G2ppFitSection(_Section):
+    """How G2++ ``(a, sigma, b, eta, rho)`` is fitted to the swaption quotes (weighted least
+    squares on the whole grid, Brigo and Mercurio's one-dimensional integral per swaption).
+    ``initial``: the starting point (e.g. last quarter's parameters; the problem is not convex)."""
+
+    objective: Literal["implied_vol", "price"] = "implied_vol"
+    initial: G2ppSection | None = None
+    mean_reversion_bounds: tuple[float, float] = (1e-4, 3.0)
+    volatility_bounds: tuple[float, float] = (1e-5, 0.2)
+
+    @model_validator(mode="after")
+    def _bounds(self) -> G2ppFitSection:
+        for key, (lo, hi) in (("mean_reversion_bounds", self.mean_reversion_bounds),
+                              ("volatility_bounds", self.volatility_bounds)):
+            if not 0.0 < lo < hi:
+                raise ValueError(f"{key} must satisfy 0 < lower < upper, got [{lo:g}, {hi:g}]")
+        return self
+
+
 class CalibrationSection(_Section):
     """Calibration choices."""
 
     correlation_repair: Literal["reject", "higham"] = "reject"
     hull_white: HullWhiteFitSection = HullWhiteFitSection()
+    g2pp: G2ppFitSection = G2ppFitSection()
 
 
 class RealWorldSection(_Section):
@@ -457,7 +499,9 @@ class RunConfig(_Section):
 
     run: RunSection
     curve: CurveSection | None = None
+    rates: RatesSection = RatesSection()
     hull_white: HullWhiteSection | None = None
+    g2pp: G2ppSection | None = None
     equity: EquitySection
     real_world: RealWorldSection
     simulation: SimulationSection
@@ -489,7 +533,8 @@ class RunConfig(_Section):
         md = self.market_data or MarketDataSection()
         pairs = [
             ("curve", self.curve is not None, "market_data.curve", md.curve is not None),
-            ("hull_white", self.hull_white is not None, "market_data.swaptions", md.swaptions is not None),
+            (self.rates.model, (self.hull_white if self.rates.model == "hull_white" else self.g2pp) is not None,
+             "market_data.swaptions", md.swaptions is not None),
             ("equity.volatility", self.equity.volatility is not None, "market_data.equity_vols", md.equity_vols is not None),
             ("equity.correlation_with_rates or [correlations]", self.equity.correlation_with_rates is not None or self.correlations is not None, "market_data.correlations", md.correlations is not None),
             ("equity.level", self.equity.level is not None, "market_data.equity_index", md.equity_index is not None),
@@ -503,6 +548,15 @@ class RunConfig(_Section):
                 )
         if (md.curve is not None) != (self.curve_extrapolation is not None):
             raise ValueError("market_data.curve and [curve_extrapolation] go together")
+        other = "g2pp" if self.rates.model == "hull_white" else "hull_white"
+        if getattr(self, other) is not None:
+            raise ValueError(f"[{other}] is given but rates.model is {self.rates.model!r}")
+        if self.rates.model == "g2pp" and self.equity.correlation_with_rates is not None:
+            raise ValueError(
+                "with rates.model = \"g2pp\" the equity correlates with two rate drivers (rates_x, "
+                "rates_y): give the matrix in market_data.correlations or [correlations] instead of "
+                "equity.correlation_with_rates"
+            )
         if self.equity.correlation_with_rates is not None and self.correlations is not None:
             raise ValueError("give the correlations once: equity.correlation_with_rates or [correlations], not both")
         if (self.indices or self.inflation is not None) and self.equity.correlation_with_rates is not None:
