@@ -217,3 +217,22 @@ def test_reweighted_real_world_expectations_match_market_consistent_ones(full_ru
     gap = p["intensity_BBB"].mean() - q["intensity_BBB"].mean()
     se = np.sqrt(p["intensity_BBB"].var() / len(p) + q["intensity_BBB"].var() / len(q))
     assert abs(gap) > 4 * se
+
+
+def test_outputs_columns_selects_what_is_written(tmp_path, small_config):
+    from pipeline import run_in_process
+
+    cfg = small_config(outputs={"columns": ["zcb_10y", "equity_*"]})
+    run_in_process(cfg, tmp_path / "sel", scenarios=200)
+    cols = list(_read(tmp_path / "sel", "real_world").columns)
+    assert cols == ["scenario", "time", "short_rate", "cash_account", "deflator", "zcb_10y",
+                    "equity_veldmark_all_share", "q_density"]
+
+
+def test_outputs_columns_naming_nothing_is_refused_before_anything_is_written(tmp_path, small_config):
+    from pipeline import run_in_process
+
+    cfg = small_config(outputs={"columns": ["zcb_10y", "cpi"]})
+    with pytest.raises(ConfigError, match="'cpi' matches no column of the configured models"):
+        run_in_process(cfg, tmp_path / "bad", scenarios=200)
+    assert not (tmp_path / "bad").exists()

@@ -349,6 +349,11 @@ def check_calibration_fits(calibration: Calibration, config: RunConfig, *, sourc
 
 def _check_equivalence(config: RunConfig) -> None:
     rw = config.real_world
+    if config.rates.model == "g2pp" and rw.rates_volatility is not None:
+        raise MeasureError(
+            "real_world.rates_volatility confirms a Hull-White volatility; with rates.model = \"g2pp\" "
+            "the real-world volatilities are the G2++ ones (Girsanov changes drifts only). Remove it."
+        )
     pairs = [
         ("real_world.rates_volatility", rw.rates_volatility, "hull_white.volatility",
          config.hull_white.volatility if config.hull_white else None),

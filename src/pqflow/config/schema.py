@@ -450,9 +450,13 @@ class SimulationSection(_Section):
 
 
 class OutputsSection(_Section):
-    """What the scenario files carry."""
+    """What the scenario files carry. ``columns``: optional list of the columns to write (names
+    or shell-style patterns such as ``"zcb_*"``, ``"spread_*"``); ``short_rate``,
+    ``cash_account``, ``deflator`` and the density are always written. Without it, every
+    column of the configured models is written."""
 
     bond_maturities: list[float] = Field(min_length=1, max_length=60)
+    columns: list[str] | None = Field(default=None, min_length=1)
 
     @field_validator("bond_maturities")
     @classmethod

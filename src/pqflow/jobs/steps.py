@@ -9,6 +9,7 @@ the batch index.
 from __future__ import annotations
 
 import datetime as dt
+import fnmatch
 import platform
 from dataclasses import dataclass
 from pathlib import Path
@@ -21,6 +22,7 @@ from pqflow import CAUTION, __version__
 from pqflow.calibration.assemble import Calibration, build_model
 from pqflow.config.loader import config_hash
 from pqflow.config.schema import RunConfig
+from pqflow.errors import ConfigError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.serialize import curve_from_json
 from pqflow.simulation.engine import DENSITY_COLUMN, MEASURES, time_grid
@@ -41,6 +43,8 @@ __all__ = [
     "generate_part",
     "validate_staged_run",
     "write_run_manifest",
+    "written_columns",
+    "REQUIRED_COLUMNS",
 ]
 
 MEASURE_TEXT = {
@@ -65,6 +69,8 @@ class RunPlan:
     seed: int
     antithetic: bool
     bond_maturities: tuple[float, ...]
+    #: ``outputs.columns``: names or patterns of the columns to write (``None``: all).
+    column_patterns: tuple[str, ...] | None = None
 
     def times_for(self, measure: str) -> np.ndarray:
         return self.sets[measure].times
@@ -108,7 +114,30 @@ def plan_run(config: RunConfig) -> RunPlan:
         seed=sim.seed,
         antithetic=sim.antithetic,
         bond_maturities=tuple(config.outputs.bond_maturities),
+        column_patterns=tuple(config.outputs.columns) if config.outputs.columns is not None else None,
     )
+
+
+#: Columns every part carries whatever ``outputs.columns`` says (the density is added by measure).
+REQUIRED_COLUMNS = ("short_rate", "cash_account", "deflator")
+
+
+def written_columns(calibration: Calibration, plan: RunPlan) -> list[str]:
+    """The columns a part carries, in file order (before the density column): the required
+    ones, then every column of the configured models that ``outputs.columns`` selects."""
+    model = build_model(calibration, plan.bond_maturities)
+    known = [c for c in model.known_columns() if c not in REQUIRED_COLUMNS]
+    if calibration.credit is not None:
+        known += list(calibration.credit.column_names())
+    if plan.column_patterns is None:
+        return [*REQUIRED_COLUMNS, *known]
+    unmatched = [p for p in plan.column_patterns if not any(fnmatch.fnmatchcase(c, p) for c in (*REQUIRED_COLUMNS, *known))]
+    if unmatched:
+        raise ConfigError(
+            f"outputs.columns: {', '.join(repr(p) for p in unmatched)} matches no column of the configured "
+            f"models; the columns are: {', '.join(known)}"
+        )
+    return [*REQUIRED_COLUMNS, *(c for c in known if any(fnmatch.fnmatchcase(c, p) for p in plan.column_patterns))]
 
 
 def write_calibration(run_dir: str | Path, calibration: Calibration) -> Path:
@@ -124,6 +153,7 @@ def calibrate_step(config: RunConfig, run_dir: str | Path, calibration_file: str
     else:
         calibration = load_calibration(calibration_file)
         check_calibration_fits(calibration, config, source=str(calibration_file))
+    written_columns(calibration, plan_run(config))  # outputs.columns checked before any simulation
     write_calibration(run_dir, calibration)
     return calibration
 
@@ -162,9 +192,7 @@ def generate_part(
         "state-price deflator q_density / cash_account" if measure == "real_world" else "1 / cash_account"
     )
     units[DENSITY_COLUMN[measure]] = "density on the grid up to time (dimensionless, mean 1)"
-    order = ["short_rate", "cash_account", "deflator"]
-    order += [c for c in model.known_columns() if c not in order]
-    order += list(credit.column_names()) if credit is not None else []
+    order = written_columns(calibration, plan)
     order += [DENSITY_COLUMN[measure]]
     table = batch_table(
         {c: cols[c] for c in order},
