@@ -452,6 +452,7 @@ def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G
             initial=G2PlusPlusParams(**g2_opts.initial.model_dump()) if g2_opts.initial is not None else None,
             mean_reversion_bounds=g2_opts.mean_reversion_bounds,
             volatility_bounds=g2_opts.volatility_bounds,
+            fixed=dict(g2_opts.fixed),
         )
         method = ("G2++ (a, sigma, b, eta, rho) to ATM swaptions, one-dimensional integral (Brigo and "
                   "Mercurio 2006, ch. 4.2), weighted least squares; rates_x is the factor with a >= b")

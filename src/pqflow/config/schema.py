@@ -302,10 +302,13 @@ class HullWhiteFitSection(_Section):
 class G2ppFitSection(_Section):
     """How G2++ ``(a, sigma, b, eta, rho)`` is fitted to the swaption quotes (weighted least
     squares on the whole grid, Brigo and Mercurio's one-dimensional integral per swaption).
-    ``initial``: the starting point (e.g. last quarter's parameters; the problem is not convex)."""
+    ``initial``: the starting point (e.g. last quarter's parameters; the problem is not convex);
+    ``fixed``: parameters held at given values (e.g. ``{ rho = -0.7 }`` when the quotes cannot
+    separate the factors' correlation)."""
 
     objective: Literal["implied_vol", "price"] = "implied_vol"
     initial: G2ppSection | None = None
+    fixed: dict[Literal["a", "sigma", "b", "eta", "rho"], float] = Field(default_factory=dict)
     mean_reversion_bounds: tuple[float, float] = (1e-4, 3.0)
     volatility_bounds: tuple[float, float] = (1e-5, 0.2)
 
