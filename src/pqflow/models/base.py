@@ -23,7 +23,7 @@ from typing import Protocol, runtime_checkable
 
 import numpy as np
 
-__all__ = ["StepLaw", "ScenarioModel"]
+__all__ = ["StepLaw", "StepLaws", "ScenarioModel"]
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -39,6 +39,22 @@ class StepLaw:
     drift: np.ndarray
     chol: np.ndarray
     real_world_shift: np.ndarray
+
+
+@dataclass(frozen=True, kw_only=True)
+class StepLaws:
+    """The laws of ``K`` consecutive steps stacked: ``(K, d, d)`` matrices, ``(K, d)`` vectors.
+    A model may offer ``step_laws(times) -> StepLaws`` to compute a whole grid at once; the
+    engine then uses it instead of calling ``step_law`` step by step."""
+
+    transition: np.ndarray
+    drift: np.ndarray
+    chol: np.ndarray
+    real_world_shift: np.ndarray
+
+    def law(self, k: int) -> StepLaw:
+        return StepLaw(transition=self.transition[k], drift=self.drift[k], chol=self.chol[k],
+                       real_world_shift=self.real_world_shift[k])
 
 
 @runtime_checkable

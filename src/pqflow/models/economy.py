@@ -44,13 +44,13 @@ import numpy as np
 
 from pqflow.market.curve import DiscountCurve
 from pqflow.models import g2pp, hull_white
-from pqflow.models.base import StepLaw
+from pqflow.models.base import StepLaw, StepLaws
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams, b_factor, phi2
 from pqflow.models.hull_white_equity import bond_column
 from pqflow.models.jarrow_yildirim import CPI_COLUMN, REAL_SHORT_RATE_COLUMN, real_bond_column
-from pqflow.models.kernels import Exposure, step_moments
-from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
+from pqflow.models.kernels import Exposure, grid_moments, grid_pieces
+from pqflow.models.schedule import PiecewiseConstant, as_schedule
 
 __all__ = [
     "INDEX_KINDS",
@@ -224,59 +224,70 @@ class EconomyModel:
 
     # ---------------------------------------------------------------- dynamics
 
-    def _integrated_variance(self, u: float) -> float:
+    def _integrated_variance(self, u: np.ndarray | float) -> np.ndarray:
         if isinstance(self.rates, G2PlusPlusParams):
-            return float(g2pp.integrated_variance(self.rates, u))
-        return float(hull_white.integrated_variance(self.rates, u))
-
-    def _int_phi(self, t0: float, t1: float) -> float:
-        return float(
-            np.log(self.curve.discount(t0) / self.curve.discount(t1))
-            + 0.5 * (self._integrated_variance(t1) - self._integrated_variance(t0))
-        )
+            return np.asarray(g2pp.integrated_variance(self.rates, u), dtype=float)
+        return np.asarray(hull_white.integrated_variance(self.rates, u), dtype=float)
 
     def step_covariance(self, t0: float, t1: float) -> np.ndarray:
-        cov, _ = step_moments(t0, t1, self._exposures, self.correlation, self.driver_names, self.prices_of_risk)
-        return cov
+        cov, _ = grid_moments(np.array([t0, t1]), self._exposures, self.correlation, self.driver_names, self.prices_of_risk)
+        return cov[0]
 
     def step_law(self, t0: float, t1: float) -> StepLaw:
-        dt = t1 - t0
-        if not dt > 0.0:
+        if not t1 - t0 > 0.0:
             raise ValueError("a step must have positive length")
-        cov, shift = step_moments(t0, t1, self._exposures, self.correlation, self.driver_names, self.prices_of_risk)
+        return self.step_laws(np.array([t0, t1], dtype=float)).law(0)
+
+    def step_laws(self, times: np.ndarray) -> StepLaws:
+        """The exact law of every step of ``times`` at once (vectorised over the steps)."""
+        times = np.asarray(times, dtype=float)
+        if times.ndim != 1 or times.size < 2 or np.any(np.diff(times) <= 0.0):
+            raise ValueError("times must be a 1-d increasing array of at least two points")
+        t0, t1 = times[:-1], times[1:]
+        dt = t1 - t0
+        n_steps = dt.size
+        cov, shift = grid_moments(times, self._exposures, self.correlation, self.driver_names, self.prices_of_risk)
         factors = self._factor_rates()
         n_f = len(factors)
         d = len(self._exposures)
-        transition = np.eye(d)
-        drift = np.zeros(d)
-        b_rows = np.array([float(b_factor(k, dt)) for k, _, _ in factors])
+        transition = np.tile(np.eye(d), (n_steps, 1, 1))
+        drift = np.zeros((n_steps, d))
+        b_rows = np.stack([b_factor(k, dt) for k, _, _ in factors], axis=1)  # (K, n_f)
         for f, (k, _, _) in enumerate(factors):
-            transition[f, f] = np.exp(-k * dt)
-        int_phi = self._int_phi(t0, t1)
-        transition[n_f, :n_f] = b_rows
+            transition[:, f, f] = np.exp(-k * dt)
+        int_phi = np.log(self.curve.discount(t0) / self.curve.discount(t1)) + 0.5 * (
+            self._integrated_variance(t1) - self._integrated_variance(t0)
+        )
+        transition[:, n_f, :n_f] = b_rows
         for j, idx in enumerate(self.indices):
             row = n_f + 1 + j
-            transition[row, :n_f] = b_rows
-            half_var = sum(0.5 * v**2 * (u1 - u0) for u0, u1, (v,) in segments(t0, t1, idx.vol_schedule))
-            drift[row] = int_phi - half_var
+            transition[:, row, :n_f] = b_rows
+            pieces = grid_pieces(times, idx.vol_schedule)
+            half_var = pieces.per_step(0.5 * pieces.values(idx.vol_schedule) ** 2 * pieces.length, n_steps)
+            drift[:, row] = int_phi - half_var
         if self.inflation is not None:
             inf = self.inflation
             y_row, c_row = d - 2, d - 1
             ar, sr, si = inf.real.mean_reversion, inf.real.volatility, inf.inflation_volatility
             names = self.driver_names
             c = self.correlation[names.index(REAL_RATE_DRIVER), names.index(INFLATION_DRIVER)] * si * sr
-            br = float(b_factor(ar, dt))
-            transition[y_row, y_row] = np.exp(-ar * dt)
-            drift[y_row] = -c * br
-            transition[c_row, :n_f] = b_rows
-            transition[c_row, y_row] = -br
-            int_alpha_r = float(
-                np.log(inf.real_curve.discount(t0) / inf.real_curve.discount(t1))
-                + 0.5 * (hull_white.integrated_variance(inf.real, t1) - hull_white.integrated_variance(inf.real, t0))
+            br = b_factor(ar, dt)
+            transition[:, y_row, y_row] = np.exp(-ar * dt)
+            drift[:, y_row] = -c * br
+            transition[:, c_row, :n_f] = b_rows
+            transition[:, c_row, y_row] = -br
+            int_alpha_r = np.log(inf.real_curve.discount(t0) / inf.real_curve.discount(t1)) + 0.5 * (
+                hull_white.integrated_variance(inf.real, t1) - hull_white.integrated_variance(inf.real, t0)
             )
-            drift[c_row] = int_phi - int_alpha_r - 0.5 * si**2 * dt + c * float(phi2(ar, dt))
-        chol = np.linalg.cholesky(cov)
-        return StepLaw(transition=transition, drift=drift, chol=chol, real_world_shift=shift)
+            drift[:, c_row] = int_phi - int_alpha_r - 0.5 * si**2 * dt + c * phi2(ar, dt)
+        try:
+            chol = np.linalg.cholesky(cov)
+        except np.linalg.LinAlgError:
+            raise ValueError(
+                "a step covariance is not positive definite: the driver correlations (or a zero "
+                "volatility) make two states move as one"
+            ) from None
+        return StepLaws(transition=transition, drift=drift, chol=chol, real_world_shift=shift)
 
     # ---------------------------------------------------------------- outputs
 
@@ -320,7 +331,7 @@ class EconomyModel:
             out["short_rate"] = rate
         if "cash_account" in wanted:
             cash = np.exp(states[:, :, n_f])
-            cash *= (np.exp(0.5 * np.array([self._integrated_variance(t) for t in times])) / self.curve.discount(times))[None, :]
+            cash *= (np.exp(0.5 * self._integrated_variance(times)) / self.curve.discount(times))[None, :]
             out["cash_account"] = cash
         chosen = [(bond_column(m), m) for m in self.bond_maturities if bond_column(m) in wanted]
         if chosen:

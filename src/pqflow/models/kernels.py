@@ -27,9 +27,9 @@ import numpy as np
 
 from pqflow.models.g2pp import b_b_integral, exp_b_integral
 from pqflow.models.hull_white import b_factor, phi2
-from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
+from pqflow.models.schedule import PiecewiseConstant, as_schedule
 
-__all__ = ["Exposure", "single_integral", "pair_integral", "step_moments"]
+__all__ = ["Exposure", "Pieces", "grid_pieces", "single_integral", "pair_integral", "grid_moments"]
 
 _KINDS = ("exp", "b", "one")
 
@@ -76,48 +76,82 @@ def pair_integral(e: Exposure, f: Exposure, u: np.ndarray) -> np.ndarray:
     return exp_b_integral(ex.rate, bb.rate, u)
 
 
-def step_moments(
-    t0: float,
-    t1: float,
+@dataclass(frozen=True, kw_only=True)
+class Pieces:
+    """The pieces of every step of a grid on which given schedules are constant.
+
+    step: index ``k`` of the step each piece lies in, ``(P,)``; start, end: the piece in calendar
+    time, ``(P,)``; u_hi, u_lo: time from the piece's start and end to the end of its step.
+    """
+
+    step: np.ndarray
+    start: np.ndarray
+    end: np.ndarray
+    u_hi: np.ndarray
+    u_lo: np.ndarray
+
+    @property
+    def length(self) -> np.ndarray:
+        return self.end - self.start
+
+    def values(self, schedule: PiecewiseConstant) -> np.ndarray:
+        """The schedule's value on each piece, ``(P,)``."""
+        return np.asarray(schedule(0.5 * (self.start + self.end)), dtype=float)
+
+    def per_step(self, weights: np.ndarray, n_steps: int) -> np.ndarray:
+        """Sum of ``weights`` ``(P,)`` over the pieces of each step, ``(n_steps,)``."""
+        return np.bincount(self.step, weights=weights, minlength=n_steps)
+
+
+def grid_pieces(times: np.ndarray, *schedules: PiecewiseConstant) -> Pieces:
+    """Cut each step ``[times[k], times[k+1]]`` at every knot of ``schedules``."""
+    times = np.asarray(times, dtype=float)
+    knots = [k for sched in schedules for k in sched.knots if times[0] < k < times[-1]]
+    edges = np.unique(np.concatenate([times, np.asarray(knots, dtype=float)]))
+    start, end = edges[:-1], edges[1:]
+    step = np.searchsorted(times, start, side="right") - 1
+    step_end = times[step + 1]
+    return Pieces(step=step, start=start, end=end, u_hi=step_end - start, u_lo=step_end - end)
+
+
+def grid_moments(
+    times: np.ndarray,
     exposures: Sequence[Sequence[Exposure]],
     correlation: np.ndarray,
     drivers: Sequence[str],
     prices_of_risk: Mapping[str, PiecewiseConstant],
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Covariance ``(d, d)`` of the step noise of ``d`` states and the shift of its mean ``(d,)``
-    under the real-world measure, over ``[t0, t1]``.
+    """Covariance ``(K, d, d)`` of the step noise of ``d`` states over each of the ``K`` steps of
+    ``times``, and the shift of its mean ``(K, d)`` under the real-world measure.
 
     exposures[i]: the loadings of state ``i``; correlation: of ``drivers`` (in that order);
     prices_of_risk: by driver (a missing driver has none).
     """
+    times = np.asarray(times, dtype=float)
+    n_steps = times.size - 1
     index = {name: k for k, name in enumerate(drivers)}
     flat = [(i, e) for i, row in enumerate(exposures) for e in row]
     lam = {name: as_schedule(prices_of_risk[name]) for name in drivers if name in prices_of_risk}
-    schedules = [e.scale for _, e in flat] + list(lam.values())
-    pieces = segments(t0, t1, *schedules)
-    s0 = np.array([p[0] for p in pieces])
-    s1 = np.array([p[1] for p in pieces])
-    values = np.array([p[2] for p in pieces]).reshape(len(pieces), len(schedules))
-    u_hi, u_lo = t1 - s0, t1 - s1
-    scale = values[:, : len(flat)]  # (pieces, exposures)
-    lam_values = dict(zip(lam, values[:, len(flat):].T))
+    pieces = grid_pieces(times, *(e.scale for _, e in flat), *lam.values())
+    scale = [pieces.values(e.scale) for _, e in flat]
+    lam_values = {name: pieces.values(sched) for name, sched in lam.items()}
     d = len(exposures)
-    cov = np.zeros((d, d))
-    shift = np.zeros(d)
+    cov = np.zeros((n_steps, d, d))
+    shift = np.zeros((n_steps, d))
     for a, (i, e) in enumerate(flat):
         if e.driver in lam_values:
-            inc = single_integral(e, u_hi) - single_integral(e, u_lo)
-            shift[i] += float(np.sum(scale[:, a] * lam_values[e.driver] * inc))
+            inc = single_integral(e, pieces.u_hi) - single_integral(e, pieces.u_lo)
+            shift[:, i] += pieces.per_step(scale[a] * lam_values[e.driver] * inc, n_steps)
         for b in range(a, len(flat)):
             j, f = flat[b]
             rho = correlation[index[e.driver], index[f.driver]]
             if rho == 0.0:
                 continue
-            inc = pair_integral(e, f, u_hi) - pair_integral(e, f, u_lo)
-            c = rho * float(np.sum(scale[:, a] * scale[:, b] * inc))
+            inc = pair_integral(e, f, pieces.u_hi) - pair_integral(e, f, pieces.u_lo)
+            c = rho * pieces.per_step(scale[a] * scale[b] * inc, n_steps)
             if a == b:
-                cov[i, i] += c
+                cov[:, i, i] += c
             else:
-                cov[i, j] += c
-                cov[j, i] += c
+                cov[:, i, j] += c
+                cov[:, j, i] += c
     return cov, shift

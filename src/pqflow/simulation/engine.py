@@ -124,7 +124,12 @@ def _check_grid(times: np.ndarray) -> None:
 def _compute_laws(model: ScenarioModel, times: np.ndarray) -> GridLaws:
     k_steps = times.size - 1
     d = len(model.state_names)
-    laws = [model.step_law(float(times[k]), float(times[k + 1])) for k in range(k_steps)]
+    whole_grid = getattr(model, "step_laws", None)  # optional: every step at once
+    if callable(whole_grid) and k_steps:
+        stacked = whole_grid(times)
+        laws = [stacked.law(k) for k in range(k_steps)]
+    else:
+        laws = [model.step_law(float(times[k]), float(times[k + 1])) for k in range(k_steps)]
     transition = np.empty((k_steps, d, d))
     chol = np.empty((k_steps, d, d))
     eta = np.empty((k_steps, d))
