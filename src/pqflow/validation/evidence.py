@@ -3,7 +3,8 @@
 Checks (keys of ``summary["checks"]``):
 
 * ``martingale_market_consistent``, ``martingale_real_world``: the "1 = 1" test
-  (:mod:`pqflow.validation.martingale`);
+  (:mod:`pqflow.validation.martingale`), on bonds, indices and the configured parts' claims
+  (CPI, real and defaultable bonds: :mod:`pqflow.validation.assets`);
 * ``density_market_consistent``, ``density_real_world``: density weights
   (:mod:`pqflow.validation.density`);
 * ``market_consistency``: calibration instruments repriced from the files
@@ -19,11 +20,13 @@ The run's ``verdict`` is ``"fail"`` when any check that counts toward it fails; 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import partial
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
+from pqflow.validation.assets import martingale_assets
 from pqflow.validation.market_consistency import market_consistency_check
 from pqflow.validation.real_world import real_world_check
 from pqflow.validation.reconciliation import reconciliation_check
@@ -40,7 +43,10 @@ RULE = (
 
 _KINDS = {
     "martingale": ("deflated asset prices average to today's prices (1 = 1 test)",
-                   "Society of Actuaries, Economic Scenario Generators: A Practical Guide, 2016, s. 8.3"),
+                   "Society of Actuaries, Economic Scenario Generators: A Practical Guide, 2016, s. 8.3; "
+                   "CPI and real bonds: Brigo and Mercurio, Interest Rate Models, 2006, ch. 15; "
+                   "defaultable bonds (recovery of market value): Duffie and Singleton, Rev. Financ. "
+                   "Stud. 12 (1999)"),
     "density": ("density weights average to 1; effective sample size and largest weight share",
                 "E[Z_t] = 1 for a density process; Kish's effective sample size"),
 }
@@ -90,7 +96,8 @@ def run_checks(
     level at time 0).
     """
     inputs = load_run_inputs(run_dir)
-    mart, dens, base = validate_run(run_dir, inputs.curve.discount, ess_warning_share=ess_warning_share)
+    mart, dens, base = validate_run(run_dir, inputs.curve.discount, ess_warning_share=ess_warning_share,
+                                    extra_assets=partial(martingale_assets, inputs))
     checks: dict[str, dict[str, Any]] = {}
     for name, entry in base["checks"].items():
         family = name.split("_", 1)[0]

@@ -13,7 +13,10 @@ Payoffs at the expiry ``T0``, from the columns of the files:
 * payer swaption on an annual fixed leg of ``n`` years struck at ``K`` (receiver: ``-``):
   ``A = sum_{k=1..n} zcb_{k}y``, ``S = (1 - zcb_{n}y) / A``, payoff ``A max(S - K, 0)``;
 * equity option on the price index ``S_T e^{-qT}``, with ``S`` the total-return column
-  ``equity_{index}`` and ``q`` the recorded dividend yield: ``max(+-(S_T e^{-qT} - K), 0)``.
+  ``equity_{index}`` (or ``property_{index}``, as the instrument's ``column_kind`` says) and
+  ``q`` the recorded income yield: the core equity's ``dividend_yield``
+  (``parameters["equity"]``) or a further index's ``income_yield`` (``parameters["indices"]``):
+  ``max(+-(S_T e^{-qT} - K), 0)``.
 
 An instrument whose expiry is not an output time, or whose bonds or index are not in the
 files, is reported as not testable (with the reason) rather than guessed.
@@ -43,6 +46,7 @@ import pandas as pd
 from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_price
 from pqflow.errors import MarketDataError
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
+from pqflow.validation.martingale import index_columns
 from pqflow.validation.run_files import RunInputs, stream_moments, time_index
 from pqflow.validation.summary import family_critical_z
 
@@ -71,7 +75,8 @@ class InstrumentSpec:
     curve does not reach the instrument. market_vol: decimal, ``None`` when only a price is
     given. market_price: the quote's price (from ``market_vol`` when given: the volatility is
     the quote). column_names: file columns the payoff needs. untestable: why it cannot be
-    repriced from the files (``None`` when it can).
+    repriced from the files (``None`` when it can). income_yield: ``q`` of an equity option's
+    index (dividend or rental yield), ``None`` for a swaption or when not recorded.
     """
 
     label: str
@@ -92,6 +97,7 @@ class InstrumentSpec:
     column_names: tuple[str, ...]
     untestable: str | None
     note: str | None = None
+    income_yield: float | None = None
 
 
 def _num(x: Any) -> float | None:
@@ -117,12 +123,27 @@ def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option
     return price, note
 
 
+def _income_yields(inputs: RunInputs) -> dict[str, float]:
+    """Index name -> recorded income yield: the core equity's dividend yield and each further
+    index's income yield."""
+    par = inputs.parameters
+    out: dict[str, float] = {}
+    for idx in par.get("indices", []) or []:
+        if isinstance(idx, dict) and "name" in idx and idx.get("income_yield") is not None:
+            out[str(idx["name"])] = float(idx["income_yield"])
+    equity = par.get("equity", {}) or {}
+    if equity.get("name") is not None:  # as before: no recorded dividend yield reads as 0
+        out[str(equity["name"])] = float(equity.get("dividend_yield", 0.0) or 0.0)
+    return out
+
+
 def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) -> list[InstrumentSpec]:
     """Read ``calibration.json["instruments"]`` into specs, marking what the files cannot test."""
     section = inputs.calibration.get("instruments") or {}
     curve = inputs.curve
     out: list[InstrumentSpec] = []
     equity_par = inputs.parameters.get("equity", {})
+    yields = _income_yields(inputs)
     for raw in section.get("swaptions", []) or []:
         expiry, tenor = float(raw["expiry"]), float(raw["tenor"])
         strike = float(raw["strike"])
@@ -160,29 +181,33 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
         index = str(raw.get("index", equity_par.get("name", "")))
         option = str(raw.get("kind", "call"))
         convention = str(raw.get("convention", "lognormal"))
-        label = f"equity {option} {index} {expiry:g}y K={strike:g}"
-        col = f"equity_{index}"
+        column_kind = str(raw.get("column_kind", "equity"))
+        label = f"{column_kind} {option} {index} {expiry:g}y K={strike:g}"
+        col = f"{column_kind}_{index}"
+        q = yields.get(index)
         reason = None
-        if col not in columns:
+        if column_kind not in ("equity", "property"):
+            reason = f"unknown column_kind {column_kind!r} (equity or property)"
+        elif col not in columns:
             reason = f"not testable from the files (missing {col})"
         elif time_index(times, expiry) is None:
             reason = f"not testable from the files (expiry {expiry:g} is not an output time)"
-        elif index != equity_par.get("name"):
-            reason = f"no dividend yield recorded for index {index!r}"
+        elif q is None:
+            reason = f"no income yield recorded for index {index!r}"
         out.append(InstrumentSpec(
             label=label, kind="equity_option", option=option, expiry=expiry, strike=strike,
             convention=convention, shift=0.0, tenor=None, index=index, forward=None,
             annuity=None, market_vol=_num(raw.get("market_vol")),
             market_price=_num(raw.get("market_price")),
             stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
-            column_names=(col,), untestable=reason,
+            column_names=(col,), untestable=reason, income_yield=q,
         ))
     return out
 
 
 def _with_equity_forward(spec: InstrumentSpec, inputs: RunInputs, level: float) -> InstrumentSpec:
     """Equity quotes need today's index level (from the files) for their forward."""
-    q = float(inputs.parameters.get("equity", {}).get("dividend_yield", 0.0))
+    q = float(spec.income_yield or 0.0)
     if spec.expiry > inputs.curve.max_maturity:
         return spec
     df = float(inputs.curve.discount(spec.expiry))
@@ -194,7 +219,7 @@ def _with_equity_forward(spec: InstrumentSpec, inputs: RunInputs, level: float) 
                              "market_price": price, "note": note})
 
 
-def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.ndarray], q: float) -> np.ndarray:
+def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.ndarray]) -> np.ndarray:
     """Deflated payoffs ``(n_paths, n_instruments)``."""
     deflator = cols["deflator"]
     out = np.empty((deflator.shape[0], len(specs)))
@@ -208,7 +233,7 @@ def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.
             w = 1.0 if s.option in ("payer", "call") else -1.0
             pay = annuity * np.maximum(w * (rate - s.strike), 0.0)
         else:
-            price_index = cols[s.column_names[0]][:, k] * np.exp(-q * s.expiry)
+            price_index = cols[s.column_names[0]][:, k] * np.exp(-float(s.income_yield or 0.0) * s.expiry)
             w = 1.0 if s.option == "call" else -1.0
             pay = np.maximum(w * (price_index - s.strike), 0.0)
         out[:, j] = deflator[:, k] * pay
@@ -243,11 +268,10 @@ def market_consistency_table(
     tol = {**DEFAULT_VOL_TOLERANCE, **(vol_tolerance or {})}
     rows: list[dict[str, Any]] = []
     specs_all: list[InstrumentSpec] = []
-    q = float(inputs.parameters.get("equity", {}).get("dividend_yield", 0.0))
     for measure in _MEASURES:
         reader = inputs.reader(measure)
         columns = reader.column_names()
-        first_times, first_cols = next(reader.iter_arrays([c for c in columns if c.startswith("equity_")][:1] or ["deflator"]))
+        first_times, first_cols = next(reader.iter_arrays(["deflator", *index_columns(columns)]))
         specs = parse_instruments(inputs, columns, first_times)
         specs = [
             _with_equity_forward(s, inputs, float(first_cols[s.column_names[0]][0, 0]))
@@ -260,7 +284,7 @@ def market_consistency_table(
         if not testable:
             continue
         needed = ["deflator", *dict.fromkeys(c for s in testable for c in s.column_names)]
-        _, acc = stream_moments(reader, needed, lambda t, c: {"v": _payoffs(testable, t, c, q)})
+        _, acc = stream_moments(reader, needed, lambda t, c: {"v": _payoffs(testable, t, c)})
         mean, se = acc["v"].mean, acc["v"].std_error
         for j, s in enumerate(testable):
             mc, err = float(mean[j]), float(se[j])

@@ -7,8 +7,11 @@ as the ``deflator`` column. Assets tested (Society of Actuaries, *Economic Scena
 A Practical Guide*, 2016, section 8.3):
 
 * each zero-coupon bond column ``zcb_{m}y``: ``E[D_t P(t, t+m)] = P(0, t+m)``;
-* each equity total-return index: ``E[D_t S_t] = S_0``;
-* the deflator itself, the bond maturing at ``t``: ``E[D_t] = P(0, t)``.
+* each total-return index, ``equity_{name}`` and ``property_{name}``: ``E[D_t S_t] = S_0``
+  (``S_0`` read from the files);
+* the deflator itself, the bond maturing at ``t``: ``E[D_t] = P(0, t)``;
+* any further assets passed in (:class:`pqflow.validation.assets.MartingaleAsset`: the CPI, real
+  and defaultable bonds, built by :func:`pqflow.validation.assets.martingale_assets`).
 
 Standard errors come from independent sampling units (antithetic pairs averaged first). A cell
 passes at level ``1 - alpha`` when ``|ratio - 1| <= z_{1-alpha/2} * se``.
@@ -17,18 +20,21 @@ passes at level ``1 - alpha`` when ``|ratio - 1| <= z_{1-alpha/2} * se``.
 from __future__ import annotations
 
 import re
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 
 import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
+from pqflow.errors import IntegrityError
+from pqflow.validation.assets import MartingaleAsset
 from pqflow.validation.moments import Moments, sampling_units
 from pqflow.validation.reader import ScenarioSetReader
 
-__all__ = ["martingale_table", "bond_maturity_of", "LEVELS"]
+__all__ = ["martingale_table", "bond_maturity_of", "index_columns", "INDEX_PREFIXES", "LEVELS"]
 
 LEVELS = (0.95, 0.99)
+INDEX_PREFIXES = ("equity_", "property_")
 _BOND = re.compile(r"^zcb_(?P<m>[0-9.eE+-]+)y$")
 
 
@@ -38,51 +44,82 @@ def bond_maturity_of(column: str) -> float | None:
     return float(match.group("m")) if match else None
 
 
+def index_columns(names: Sequence[str]) -> list[str]:
+    """The total-return index columns (``equity_*``, ``property_*``) among ``names``, in order."""
+    return [c for c in names if c.startswith(INDEX_PREFIXES)]
+
+
+def _builtin_assets(names: list[str], discount: Callable[[np.ndarray], np.ndarray],
+                    start: dict[str, float]) -> list[MartingaleAsset]:
+    """The deflator, each nominal bond and each index; an index's ``S_0`` is read into ``start``
+    from the first path of the first part."""
+    assets = [MartingaleAsset(
+        name="deflator", description="zero bond maturing at t (deflator)", columns=(),
+        value=lambda cols: np.ones_like(cols["deflator"]), reference=lambda t: np.asarray(discount(t)),
+    )]
+    for c in names:
+        m = bond_maturity_of(c)
+        if m is None:
+            continue
+        assets.append(MartingaleAsset(
+            name=c, description=f"zero bond, {m:g} years to run", columns=(c,),
+            value=lambda cols, c=c: cols[c],
+            reference=lambda t, m=m: np.asarray(discount(np.asarray(t) + m)),
+        ))
+    for c in index_columns(names):
+        kind = c.split("_", 1)[0]
+        assets.append(MartingaleAsset(
+            name=c, description=f"{kind} total-return index", columns=(c,),
+            value=lambda cols, c=c: cols[c],
+            reference=lambda t, c=c: np.full(np.shape(t), start[c]),
+        ))
+    return assets
+
+
 def martingale_table(
-    reader: ScenarioSetReader, discount: Callable[[np.ndarray], np.ndarray]
+    reader: ScenarioSetReader,
+    discount: Callable[[np.ndarray], np.ndarray],
+    extra: Sequence[MartingaleAsset] = (),
 ) -> pd.DataFrame:
-    """One row per (asset, time > 0). ``discount`` is today's curve ``t -> P(0, t)``."""
+    """One row per (asset, time > 0). ``discount`` is today's curve ``t -> P(0, t)``; ``extra``
+    are further assets (their columns must be in the files, their names new)."""
     names = reader.column_names()
-    bonds = [c for c in names if bond_maturity_of(c) is not None]
-    equities = [c for c in names if c.startswith("equity_")]
-    assets = ["deflator", *bonds, *equities]
+    start: dict[str, float] = {}
+    assets = [*_builtin_assets(names, discount, start), *extra]
+    seen = [a.name for a in assets]
+    if len(set(seen)) != len(seen):
+        raise ValueError(f"martingale asset names must be unique, got {seen}")
+    missing = sorted({c for a in extra for c in a.columns} - set(names))
+    if missing:
+        raise IntegrityError(f"{reader.set_dir}: columns {', '.join(missing)} are not in the files")
+    indices = index_columns(names)
+    needed = list(dict.fromkeys(["deflator", *(c for a in assets for c in a.columns)]))
     antithetic = reader.antithetic
 
-    acc: dict[str, Moments | None] = {a: None for a in assets}
+    acc: dict[str, Moments | None] = {a.name: None for a in assets}
     times = None
-    equity_start: dict[str, float] = {}
-    for times, cols in reader.iter_arrays(["deflator", *bonds, *equities]):
+    for times, cols in reader.iter_arrays(needed):
         deflator = cols["deflator"]
         for a in assets:
-            values = deflator if a == "deflator" else cols[a] * deflator
+            values = deflator * a.value(cols)
             m = Moments.of(sampling_units(values, antithetic))
-            acc[a] = m if acc[a] is None else acc[a].merge(m)
-        for e in equities:
-            equity_start.setdefault(e, float(cols[e][0, 0]))
+            acc[a.name] = m if acc[a.name] is None else acc[a.name].merge(m)
+        for e in indices:
+            start.setdefault(e, float(cols[e][0, 0]))
     assert times is not None
 
     rows = []
     for a in assets:
-        moments = acc[a]
+        moments = acc[a.name]
         assert moments is not None
-        if a == "deflator":
-            ref = discount(times)
-            kind = "zero bond maturing at t (deflator)"
-        elif a in equities:
-            ref = np.full(times.shape, equity_start[a])
-            kind = "equity total-return index"
-        else:
-            m = bond_maturity_of(a)
-            assert m is not None
-            ref = discount(times + m)
-            kind = f"zero bond, {m:g} years to run"
+        ref = np.asarray(a.reference(times), dtype=float)
         ratio = moments.mean / ref
         se = moments.std_error / ref
         for k in range(1, times.size):
             z = (ratio[k] - 1.0) / se[k] if se[k] > 0 else 0.0
             row = {
-                "asset": a,
-                "description": kind,
+                "asset": a.name,
+                "description": a.description,
                 "time": float(times[k]),
                 "expected": float(ref[k]),
                 "estimate": float(moments.mean[k]),

@@ -20,6 +20,9 @@ Tested (cells with z-scores, family-wise verdict of :mod:`pqflow.validation.chec
   the log-mean is the delta method's ``se / mean / t``. The ratio of expectations
   ``(1/t) ln(E[S_t/S_0] / E[B_t])`` is reported beside it: it differs from the ERP by the
   covariance of equity and cash.
+* **risk premium of each further index** (``parameters["indices"]``, equity or property): the
+  same estimate on its column ``{kind}_{name}`` against its recorded ``risk_premium`` (its
+  price of risk is ``risk_premium / sigma(t)``, so the same identity holds exactly).
 
 Reported (no verdict): pooled annual equity log-returns and short-rate changes (mean,
 volatility, correlation) and percentiles of the short rate, the longest bond's yield and the
@@ -203,6 +206,35 @@ def _erp_input(inputs: RunInputs) -> float | None:
     return float(value) if isinstance(value, (int, float)) and not isinstance(value, bool) else None
 
 
+def _index_premia(inputs: RunInputs, names: list[str], core: str | None) -> list[tuple[str, float]]:
+    """``(column, risk_premium)`` of each further index recorded in ``parameters["indices"]``
+    whose column is in the files (the core equity's column left out)."""
+    out = []
+    for idx in inputs.parameters.get("indices", []) or []:
+        try:
+            col = f"{idx['kind']}_{idx['name']}"
+            premium = float(idx["risk_premium"])
+        except (KeyError, TypeError, ValueError):
+            continue
+        if col in names and col != core:
+            out.append((col, premium))
+    return out
+
+
+def _premium_row(label: str, t: float, expected: float, excess, total, cash, k: int) -> dict[str, Any]:
+    """Risk-premium target cell at output time index ``k``: ``(1/t) ln E[S_t/(S_0 B_t)]``
+    with its delta-method standard error, and the ratio of expectations beside it."""
+    m, se = float(excess.mean[k]), float(excess.std_error[k])
+    est = np.log(m) / t
+    est_se = se / m / t
+    ratio = np.log(float(total.mean[k]) / float(cash.mean[k])) / t
+    return {
+        "target": label, "time": t, "expected": expected, "estimate": float(est),
+        "std_error": float(est_se), "z_score": _z(float(est - expected), float(est_se), expected),
+        "ratio_of_expectations": float(ratio),
+    }
+
+
 def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False) -> CheckResult:
     """Targets (z-score cells), benchmark and report tables of the real-world set."""
     reader = inputs.reader("real_world")
@@ -210,16 +242,18 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
     equity = [c for c in names if c.startswith("equity_")]
     eq_name = inputs.parameters.get("equity", {}).get("name")
     e_col = f"equity_{eq_name}" if f"equity_{eq_name}" in equity else (equity[0] if equity else None)
+    premia = _index_premia(inputs, names, e_col)
+    premium_cols = [*([e_col] if e_col else []), *(c for c, _ in premia)]
 
     def derive(times: np.ndarray, cols: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
         out = {"short_rate": cols["short_rate"], "cash": cols["cash_account"]}
-        if e_col is not None:
-            s = cols[e_col] / cols[e_col][:, :1]
-            out["excess"] = s / cols["cash_account"]
-            out["equity"] = s
+        for c in premium_cols:
+            s = cols[c] / cols[c][:, :1]
+            out[f"excess:{c}"] = s / cols["cash_account"]
+            out[f"total:{c}"] = s
         return out
 
-    times, acc = stream_moments(reader, ["short_rate", "cash_account", *([e_col] if e_col else [])], derive)
+    times, acc = stream_moments(reader, ["short_rate", "cash_account", *premium_cols], derive)
 
     target_rows = []
     esr = inputs.calibration.get("expected_short_rate") or {}
@@ -261,17 +295,14 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
     erp = _erp_input(inputs)
     if erp is not None and e_col is not None:
         for k in range(1, times.size):
-            t = float(times[k])
-            m, se = float(acc["excess"].mean[k]), float(acc["excess"].std_error[k])
-            est = np.log(m) / t
-            est_se = se / m / t
-            ratio = np.log(float(acc["equity"].mean[k]) / float(acc["cash"].mean[k])) / t
-            target_rows.append({
-                "target": "equity risk premium: (1/t) ln E[S_t/(S_0 B_t)]", "time": t,
-                "expected": erp, "estimate": float(est), "std_error": float(est_se),
-                "z_score": _z(float(est - erp), float(est_se), erp),
-                "ratio_of_expectations": float(ratio),
-            })
+            target_rows.append(_premium_row(
+                "equity risk premium: (1/t) ln E[S_t/(S_0 B_t)]", float(times[k]), erp,
+                acc[f"excess:{e_col}"], acc[f"total:{e_col}"], acc["cash"], k))
+    for col, premium in premia:
+        for k in range(1, times.size):
+            target_rows.append(_premium_row(
+                f"risk premium of {col}: (1/t) ln E[S_t/(S_0 B_t)]", float(times[k]), premium,
+                acc[f"excess:{col}"], acc[f"total:{col}"], acc["cash"], k))
     targets = pd.DataFrame(target_rows)
     stats, pct = real_world_statistics(inputs)
     tables = {"real_world_targets": targets, "real_world_statistics": stats,
@@ -294,8 +325,8 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
     else:
         crit = family_critical_z(len(targets))
         rule = (
-            "mean short rate at each target time and the equity risk premium at each output "
-            f"time within |z| <= {crit:.2f} (Bonferroni, family level 99%)"
+            "mean short rate at each target time and the risk premium of each index at each "
+            f"output time within |z| <= {crit:.2f} (Bonferroni, family level 99%)"
         )
         entry = cells_entry(targets, ["target", "time", "estimate", "expected", "z_score"],
                             kind=KIND, rule=rule)

@@ -25,8 +25,10 @@ of :mod:`pqflow.validation.checks` gives the verdict.
 
 Expected returns (reported): for each asset bought at time 0 and valued at horizon ``h``,
 ``(1/h) ln(E[A_h] / A_0)`` under each measure with its standard error (delta method): the cash
-account (``A_0 = 1``), the equity index (``A_0 = S_0``), and for each bond column ``zcb_{m}y``
-the zero bond maturing at ``h + m`` (``A_0 = P(0, h + m)`` from today's curve). Under Q every
+account (``A_0 = 1``), each total-return index ``equity_*`` and ``property_*`` (``A_0 = S_0``,
+path by path from the files), and for each bond column ``zcb_{m}y`` the zero bond maturing at
+``h + m`` (``A_0 = P(0, h + m)`` from today's curve); beside them, when the files carry it, the
+consumer price index ``cpi`` (``A_0 = I_0``: expected inflation, not a traded asset). Under Q every
 asset earns, in expectation, what cash does only after deflating; the undeflated expected
 returns differ by measure through the prices of risk, which is what the table shows.
 """
@@ -40,9 +42,10 @@ import pandas as pd
 
 from pqflow.models.equity import EquityParams, equity_option_price
 from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.jarrow_yildirim import CPI_COLUMN
 from pqflow.models.schedule import PiecewiseConstant
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
-from pqflow.validation.martingale import bond_maturity_of
+from pqflow.validation.martingale import bond_maturity_of, index_columns
 from pqflow.validation.run_files import RunInputs, stream_moments, time_index
 from pqflow.validation.summary import family_critical_z
 
@@ -57,6 +60,7 @@ __all__ = [
 CHECK = "reconciliation"
 KIND = "maturity guarantee valued in closed form, from the Q set and from the P set with deflators"
 RETURN_HORIZONS = (1.0, 5.0, 10.0, 20.0)
+_CPI = CPI_COLUMN
 
 
 def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: float, level: float) -> float:
@@ -141,11 +145,11 @@ def expected_returns_table(inputs: RunInputs, horizons: tuple[float, ...] = RETU
         reader = inputs.reader(measure)
         names = reader.column_names()
         bonds = [c for c in names if bond_maturity_of(c) is not None]
-        equity = [c for c in names if c.startswith("equity_")]
-        assets = ["cash_account", *equity, *bonds]
+        relative = [*index_columns(names), *([_CPI] if _CPI in names else [])]  # A_h / A_0 per path
+        assets = ["cash_account", *relative, *bonds]
         times, acc = stream_moments(
             reader, assets,
-            lambda t, c: {a: c[a] / (c[a][:, :1] if a in equity else 1.0) for a in assets},
+            lambda t, c: {a: c[a] / (c[a][:, :1] if a in relative else 1.0) for a in assets},
         )
         values: dict[tuple[str, float], tuple[float, float]] = {}
         for h in horizons:
@@ -173,7 +177,9 @@ def expected_returns_table(inputs: RunInputs, horizons: tuple[float, ...] = RETU
         m = bond_maturity_of(asset)
         what = (
             "cash account" if asset == "cash_account"
-            else f"zero bond maturing at {h + m:g}y" if m is not None else f"{asset} total return"
+            else f"zero bond maturing at {h + m:g}y" if m is not None
+            else "consumer price index (cpi): expected inflation, not a traded asset" if asset == _CPI
+            else f"{asset} total return"
         )
         rows.append({
             "asset": asset, "description": what, "horizon": h,

@@ -11,12 +11,14 @@ reported beside what chance alone would give, for the reader's judgement.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 from scipy.stats import norm
 
+from pqflow.validation.assets import MartingaleAsset
 from pqflow.validation.density import density_table
 from pqflow.validation.martingale import martingale_table
 from pqflow.validation.reader import ScenarioSetReader
@@ -100,14 +102,24 @@ def summarise(
 
 
 def validate_run(
-    run_dir: str | Path, discount, *, ess_warning_share: float
+    run_dir: str | Path,
+    discount,
+    *,
+    ess_warning_share: float,
+    extra_assets: Callable[[list[str]], Sequence[MartingaleAsset]] | None = None,
 ) -> tuple[dict[str, pd.DataFrame], dict[str, pd.DataFrame], dict[str, Any]]:
-    """Compute every table and the summary for a run directory (nothing is written here)."""
+    """Compute every table and the summary for a run directory (nothing is written here).
+
+    extra_assets: from a set's column names, the further assets of its martingale test (e.g.
+    ``functools.partial(pqflow.validation.assets.martingale_assets, inputs)``); the same
+    references serve both sets, the real-world deflator carrying the density.
+    """
     run_dir = Path(run_dir)
     mart, dens = {}, {}
     for measure in ("market_consistent", "real_world"):
         reader = ScenarioSetReader(run_dir=run_dir, measure=measure)
-        mart[measure] = martingale_table(reader, discount)
+        extra = extra_assets(reader.column_names()) if extra_assets is not None else ()
+        mart[measure] = martingale_table(reader, discount, extra)
         dens[measure] = density_table(reader)
     summary = summarise(mart, dens, ess_warning_share=ess_warning_share)
     return mart, dens, summary
