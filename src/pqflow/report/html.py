@@ -387,8 +387,14 @@ def _martingale(run_dir: Path, summary: dict[str, Any]) -> str:
         t = table[table["measure"] == measure]
         assets = list(dict.fromkeys(t["asset"]))
         bonds = sorted((bond_maturity_of(a), a) for a in assets if bond_maturity_of(a) is not None)
-        chosen = ["deflator", *[a for a in assets if a.startswith("equity_")]]
+        chosen = ["deflator", *[a for a in assets if a.startswith(("equity_", "property_"))]]
         chosen += [b for _, b in bonds[:1]] + ([b for _, b in bonds[-1:]] if len(bonds) > 1 else [])
+        chosen += [a for a in assets if a == "cpi"] + [a for a in assets if a.startswith("real_zcb_")][-1:]
+        longest_by_rating: dict[str, str] = {}
+        for a in assets:  # dzcb_{rating}_{m}y, in maturity order: keep the longest per rating
+            if a.startswith("dzcb_"):
+                longest_by_rating[a[len("dzcb_"):].rsplit("_", 1)[0]] = a
+        chosen += list(longest_by_rating.values())
         z = float(c.get("family_critical_z", 2.58) or 2.58)
         charts = []
         for a in chosen:
