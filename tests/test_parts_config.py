@@ -236,3 +236,53 @@ def test_outputs_columns_naming_nothing_is_refused_before_anything_is_written(tm
     with pytest.raises(ConfigError, match="'cpi' matches no column of the configured models"):
         run_in_process(cfg, tmp_path / "bad", scenarios=200)
     assert not (tmp_path / "bad").exists()
+
+
+G2_DRIVERS = ["rates_x", "rates_y", *DRIVERS[1:]]
+
+
+def _g2_matrix() -> list[list[float]]:
+    """MATRIX with the rates row split into two factors (invented, positive definite): rates_y
+    carries the one-factor correlations, rates_x -0.6 times them, and rho(x, y) = -0.7."""
+    m = np.array(MATRIX, float)
+    ry = m[0, 1:]
+    out = np.eye(len(G2_DRIVERS))
+    out[2:, 2:] = m[1:, 1:]
+    out[1, 2:] = out[2:, 1] = ry
+    out[0, 2:] = out[2:, 0] = np.round(-0.6 * ry, 2)
+    out[0, 1] = out[1, 0] = -0.7
+    assert np.linalg.eigvalsh(out)[0] > 0.05
+    return out.tolist()
+
+
+def test_g2pp_runs_the_whole_balance_sheet_and_reconciles_in_closed_form(tmp_path, demo_config_dict):
+    """G2++ selected in the configuration: every check passes, the reconciliation's closed form
+    is the G2++ one (Brigo and Mercurio 2006, ch. 4.2 and the equity extension of
+    pqflow.models.g2pp_equity, checked against quadrature in tests/test_g2pp_transition.py), and
+    the real-world expected short rate meets the target year's rate (house view)."""
+    from pipeline import run_in_process
+    from pqflow.storage.jsonio import read_json
+
+    data = copy.deepcopy(demo_config_dict)
+    del data["equity"]["correlation_with_rates"]
+    del data["hull_white"]
+    data.update(rates={"model": "g2pp"}, g2pp={"a": 0.6, "sigma": 0.006, "b": 0.04, "eta": 0.008, "rho": -0.7},
+                indices=copy.deepcopy(INDICES), correlations={"drivers": G2_DRIVERS, "matrix": _g2_matrix()},
+                inflation=copy.deepcopy(INFLATION), credit=copy.deepcopy(CREDIT))
+    data["simulation"].update({"scenarios": 2000, "batch_size": 1000, "horizon_years": 10})
+    data["real_world"]["target_year"] = 10
+    cfg = write_toml(tmp_path / "g2.toml", data)
+    result = run_in_process(cfg, tmp_path / "run")
+    summary = result["summary"]
+    assert summary["verdict"] == "pass", {k: v["verdict"] for k, v in summary["checks"].items()}
+    cal = read_json(tmp_path / "run" / "calibration.json")
+    assert cal["parameters"]["rates_model"] == "g2pp" and "hull_white" not in cal["parameters"]
+    rec = read_json(tmp_path / "run" / "validation" / "summary.json")["checks"]["reconciliation"]
+    assert not rec["warnings"]  # the closed form was found
+    import pandas as pd
+
+    table = pd.read_csv(tmp_path / "run" / "validation" / "reconciliation.csv")
+    assert "closed form (G2++ + Black)" in set(table["method"])
+    esr = cal["expected_short_rate"]
+    k = esr["time"].index(10.0)
+    assert esr["real_world"][k] == pytest.approx(data["real_world"]["target_short_rate"], abs=1e-12)

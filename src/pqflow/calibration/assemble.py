@@ -63,6 +63,7 @@ from pqflow.measure.house_view import (
 )
 from pqflow.measure.prices_of_risk import (
     PricesOfRisk,
+    g2_driver_weights,
     expected_short_rate,
     rates_price_of_risk_for_target,
     real_world_factor_mean,
@@ -133,6 +134,12 @@ class Calibration:
         rho = self.equity.correlation
         return DriverCorrelation(names=(RATES_DRIVER, self.equity.name), matrix=np.array([[1.0, rho], [rho, 1.0]]))
 
+    def _zero_factor_mean(self, t: np.ndarray) -> np.ndarray | tuple[np.ndarray, np.ndarray]:
+        """The market-consistent mean of the rate factor(s) (zero), in the form the house-view
+        functions take: one array (Hull-White) or a pair (G2++)."""
+        z = np.zeros_like(t)
+        return (z, z.copy()) if isinstance(self.rates, G2PlusPlusParams) else z
+
     def expected_paths(self) -> dict[str, Any]:
         """Expected short rate (and the house-view target) under both measures, yearly."""
         top = min(self.horizon_years, self.curve.max_maturity)
@@ -159,7 +166,7 @@ class Calibration:
                 "house_view": target_path(view["start"], view["long_run_level"], view["speed"], top_t).tolist(),
                 "real_world": model_target_value(self.curve, self.rates, top_t, mean_p, target=target, maturity=maturity).tolist(),
                 "market_consistent": model_target_value(
-                    self.curve, self.rates, top_t, np.zeros_like(top_t), target=target, maturity=maturity
+                    self.curve, self.rates, top_t, self._zero_factor_mean(top_t), target=target, maturity=maturity
                 ).tolist(),
             }
         return out
@@ -529,7 +536,7 @@ def _equity_vol(
     schedule = PiecewiseConstant(knots=(0.0, *ends[:-1].tolist()), values=tuple(vols.tolist()))
     fit = {
         "method": "piecewise-constant equity volatility, bootstrapped bucket by bucket to reprice each "
-        "implied volatility exactly under Hull-White rates (closed form)",
+        f"implied volatility exactly under {'G2++' if isinstance(hw, G2PlusPlusParams) else 'Hull-White'} rates (closed form)",
         "bucket_ends": ends.tolist(),
         "bucket_volatilities": vols.tolist(),
         "max_abs_vol_error": report.max_abs_vol_error,
@@ -679,11 +686,25 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     )
 
 
+def _rates_prices_of_risk(
+    rates: HullWhiteParams | G2PlusPlusParams, lam: float | PiecewiseConstant
+) -> dict[str, float | PiecewiseConstant]:
+    """The rates price of risk by driver: on ``rates`` (Hull-White), or split between ``rates_x``
+    and ``rates_y`` as the price of the short-rate shock (G2++, :func:`g2_driver_weights`)."""
+    if isinstance(rates, HullWhiteParams):
+        return {RATES_DRIVER: lam}
+    w = g2_driver_weights(rates)
+    sched = as_schedule(lam)
+    return {
+        name: PiecewiseConstant(knots=sched.knots, values=tuple(wi * v for v in sched.values))
+        for name, wi in zip(RATES_DRIVERS["g2pp"], w)
+    }
+
+
 def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) -> EconomyModel:
     """The Gaussian scenario model both sets are simulated from (credit is simulated beside it,
     :mod:`pqflow.simulation.credit`)."""
     eq = calibration.equity
-    model_name = "g2pp" if isinstance(calibration.rates, G2PlusPlusParams) else "hull_white"
     core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield, volatility=eq.volatility)
     return EconomyModel(
         curve=calibration.curve,
@@ -691,7 +712,7 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
         indices=(core, *calibration.indices),
         correlation=calibration.driver_correlation.matrix,
         prices_of_risk={
-            **{d: calibration.prices_of_risk.rates for d in RATES_DRIVERS[model_name]},
+            **_rates_prices_of_risk(calibration.rates, calibration.prices_of_risk.rates),
             eq.name: calibration.prices_of_risk.equity,
             **calibration.extra_prices_of_risk,
         },

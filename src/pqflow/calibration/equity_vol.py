@@ -1,5 +1,5 @@
 """Piecewise-constant equity volatility that reprices the market's implied vols under
-Hull-White rates.
+Hull-White or G2++ rates.
 
 Model (as in :mod:`pqflow.models.equity`, with a time-dependent equity volatility):
 
@@ -28,6 +28,24 @@ by ``P(0,T)``. On bucket ``j`` with vol ``s_j`` the three terms integrate to
 with ``lo_j = min(T_{j-1}, T)``, ``hi_j = min(T_j, T)`` (the last bucket runs to ``T``). With one
 bucket this is :func:`pqflow.models.equity.equity_total_variance`.
 
+G2++ rates (:mod:`pqflow.models.g2pp`, ``r = x + y + phi``, ``dx = -a x dt + sigma dW1``,
+``dy = -b y dt + eta dW2``). Pass ``rates`` as :class:`pqflow.models.g2pp.G2PlusPlusParams` and
+``correlation`` as the pair ``(rho_xS, rho_yS)``: the correlations of the equity shock ``Z``
+with ``W1`` and ``W2``. Then ``dP(t,T)/P(t,T) = r dt - sigma B_a(T-t) dW1 - eta B_b(T-t) dW2``
+(Brigo and Mercurio 2006, ch. 4.2), the martingale part of ``d ln F_t`` is
+``sigma_S dZ + sigma B_a(T-t) dW1 + eta B_b(T-t) dW2`` and
+
+    v(T) = int_0^T sigma_S^2 du + 2 int_0^T sigma_S(u) [rho_xS sigma B_a(T-u) + rho_yS eta B_b(T-u)] du
+           + V_G2(T),
+
+``V_G2`` the variance of ``int_0^T (x + y)`` (:func:`pqflow.models.g2pp.integrated_variance`).
+Bucket ``j`` contributes the cross term
+``2 s_j {rho_xS sigma [phi2(a; T - lo_j) - phi2(a; T - hi_j)] + rho_yS eta [phi2(b; T - lo_j) -
+phi2(b; T - hi_j)]}``: the same structure as under Hull-White, so everything below holds with
+``rho sigma phi2(.)`` read as that sum. The correlation matrix of ``(W1, W2, Z)`` must be
+positive semi-definite (positive definite to calibrate, as the simulation needs). Passing a
+single number with G2++ parameters, or a pair with Hull-White ones, is a ``ValueError``.
+
 Calibration. The market quotes a Black-Scholes implied vol ``sigma_imp`` with deterministic
 rates: its price is Black's formula on the same forward ``F_0`` with total variance
 ``sigma_imp^2 T``. The model reprices the quote exactly when ``v(T) = sigma_imp^2 T``, whatever
@@ -39,7 +57,7 @@ Bootstrapping by increasing maturity, bucket ``j`` solves the quadratic
     c0 = (known buckets' equity and cross terms at T_j) + V(T_j) - sigma_imp^2 T_j,
 
 for the root ``s = (-c1 + sqrt(c1^2 - c2 c0)) / c2``: the only positive root when ``c0 < 0``,
-the larger of two when ``c0 > 0`` and ``rho < 0``, and in every case the root continuous in the
+the larger of two when ``c0 > 0`` and ``c1 < 0``, and in every case the root continuous in the
 quote. No positive root means the rate volatility (with this correlation) alone gives at least
 the market's variance, or that the market variance is below the minimum the model can reach:
 the quote is inconsistent with the rates, and we raise :class:`pqflow.errors.MarketDataError`.
@@ -55,6 +73,8 @@ import numpy as np
 from pqflow.calibration.formulas import black_implied_vol, black_price
 from pqflow.errors import MarketDataError
 from pqflow.market.curve import DiscountCurve
+from pqflow.models import g2pp
+from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams, integrated_variance, phi2
 
 __all__ = [
@@ -66,6 +86,11 @@ __all__ = [
     "equity_option_price_piecewise",
     "calibrate_equity_volatility",
 ]
+
+#: The rate models the bootstrap supports, and the matching equity-rate correlation: one number
+#: (with the short-rate shock) under Hull-White, the pair ``(rho_xS, rho_yS)`` under G2++.
+RateParams = HullWhiteParams | G2PlusPlusParams
+EquityRateCorrelation = float | tuple[float, float]
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -122,18 +147,110 @@ def _bucket_terms(
     return length, cross
 
 
+def _checked_correlation(
+    rates: RateParams, correlation: EquityRateCorrelation, *, strict: bool
+) -> EquityRateCorrelation:
+    """The correlation in the form ``rates`` needs: one number (Hull-White) or the pair
+    ``(rho_xS, rho_yS)`` (G2++). With ``strict`` each must lie strictly inside (-1, 1) and the
+    correlation matrix of ``(W1, W2, Z)`` be positive definite, else inside [-1, 1] and positive
+    semi-definite. Hull-White numbers are returned as given (their range is checked by the
+    callers, as before)."""
+    if isinstance(rates, G2PlusPlusParams):
+        if np.ndim(correlation) != 1 or len(correlation) != 2:  # type: ignore[arg-type]
+            raise ValueError(
+                "under G2++ rates the equity correlation must be the pair (rho_xS, rho_yS) of "
+                f"correlations with the factor shocks W1 and W2, not {correlation!r}"
+            )
+        rx, ry = (float(c) for c in correlation)  # type: ignore[union-attr]
+        for label, c in (("rho_xS", rx), ("rho_yS", ry)):
+            ok = -1.0 < c < 1.0 if strict else -1.0 <= c <= 1.0
+            if not ok:
+                where = "strictly inside (-1, 1)" if strict else "in [-1, 1]"
+                raise ValueError(f"equity-rate correlation {label} = {c!r} must lie {where}")
+        matrix = np.array([[1.0, rates.rho, rx], [rates.rho, 1.0, ry], [rx, ry, 1.0]])
+        least = float(np.linalg.eigvalsh(matrix)[0])
+        if (strict and least <= 1e-12) or (not strict and least < -1e-12):
+            kind = "positive definite" if strict else "positive semi-definite"
+            raise ValueError(
+                f"the correlations of (W1, W2, Z) = (rho {rates.rho:g}, rho_xS {rx:g}, rho_yS "
+                f"{ry:g}) do not form a {kind} matrix"
+            )
+        return (rx, ry)
+    if np.ndim(correlation) != 0:
+        raise ValueError(
+            "under Hull-White rates the equity correlation is one number (with the short-rate "
+            f"shock), not {correlation!r}; a pair (rho_xS, rho_yS) goes with G2++ parameters"
+        )
+    return correlation
+
+
+def _rate_terms(
+    rates: RateParams,
+    correlation: EquityRateCorrelation,
+    ends: np.ndarray,
+    expiry: np.ndarray,
+) -> tuple[np.ndarray, list[tuple[float, np.ndarray]]]:
+    """Per bucket, for each expiry: the overlap length with ``[0, T]`` and the cross-term
+    kernels with their weights, ``[(w, k)]``, such that the cross variance is
+    ``2 sum_(w, k) w sum_j s_j k_j``: ``[(rho sigma, phi2(a; .) increments)]`` under Hull-White,
+    ``[(rho_xS sigma, phi2(a; .) incr.), (rho_yS eta, phi2(b; .) incr.)]`` under G2++.
+    Arrays of shape ``expiry.shape + (n,)``."""
+    if isinstance(rates, G2PlusPlusParams):
+        rx, ry = correlation  # type: ignore[misc]
+        length, cross_a = _bucket_terms(ends, rates.a, expiry)
+        _, cross_b = _bucket_terms(ends, rates.b, expiry)
+        return length, [(rx * rates.sigma, cross_a), (ry * rates.eta, cross_b)]
+    length, cross = _bucket_terms(ends, rates.mean_reversion, expiry)
+    return length, [(correlation * rates.volatility, cross)]  # type: ignore[operator]
+
+
+def _cross_variance(
+    terms: list[tuple[float, np.ndarray]], vols: np.ndarray, n: int | None = None
+) -> np.ndarray:
+    """``2 sum_(w, k) w sum_{j < n} s_j k_j`` (all buckets when ``n`` is None)."""
+    cut = slice(None) if n is None else slice(0, n)
+    return 2.0 * sum(w * np.sum(vols[cut] * k[..., cut], axis=-1) for w, k in terms)
+
+
+def _rate_variance(rates: RateParams, t: np.ndarray | float) -> np.ndarray:
+    """Variance of ``int_0^T (r - E r)``: ``V(T)`` of the rate model."""
+    if isinstance(rates, G2PlusPlusParams):
+        return g2pp.integrated_variance(rates, t)
+    return integrated_variance(rates, t)
+
+
+def _describe_rates(rates: RateParams, correlation: EquityRateCorrelation) -> str:
+    if isinstance(rates, G2PlusPlusParams):
+        rx, ry = correlation  # type: ignore[misc]
+        return (
+            f"G2++ a {rates.a:g}, sigma {rates.sigma:g}, b {rates.b:g}, eta {rates.eta:g}, rho "
+            f"{rates.rho:g}, equity correlations rho_xS {rx:g} and rho_yS {ry:g}"
+        )
+    return (
+        f"Hull-White sigma {rates.volatility:g}, a {rates.mean_reversion:g}, correlation "
+        f"{correlation:g}"
+    )
+
+
 def piecewise_equity_total_variance(
-    rates: HullWhiteParams,
+    rates: HullWhiteParams | G2PlusPlusParams,
     volatility: PiecewiseEquityVolatility,
-    correlation: float,
+    correlation: float | tuple[float, float],
     expiry: np.ndarray | float,
 ) -> np.ndarray:
     """``v(T)``: variance of ``ln(S_T e^{-qT} / P(T,T))`` under the ``T``-forward measure, for
-    each expiry (any shape; the result has that shape)."""
+    each expiry (any shape; the result has that shape). ``correlation``: one number with
+    Hull-White ``rates``, the pair ``(rho_xS, rho_yS)`` with G2++ ``rates``."""
     t = np.asarray(expiry, dtype=float)
     if np.any(~np.isfinite(t)) or np.any(t < 0.0):
         raise ValueError("expiries must be finite and not negative")
-    if not -1.0 <= correlation <= 1.0:
+    correlation = _checked_correlation(rates, correlation, strict=False)
+    if isinstance(rates, G2PlusPlusParams):
+        length, terms = _rate_terms(rates, correlation, volatility.bucket_ends, t)
+        s = volatility.volatilities
+        equity = np.sum(s**2 * length, axis=-1)
+        return equity + _cross_variance(terms, s) + _rate_variance(rates, t)
+    if not -1.0 <= correlation <= 1.0:  # type: ignore[operator]
         raise ValueError("correlation must lie in [-1, 1]")
     length, cross = _bucket_terms(volatility.bucket_ends, rates.mean_reversion, t)
     s = volatility.volatilities
@@ -144,18 +261,19 @@ def piecewise_equity_total_variance(
 
 def equity_option_price_piecewise(
     curve: DiscountCurve,
-    rates: HullWhiteParams,
+    rates: HullWhiteParams | G2PlusPlusParams,
     *,
     level: float,
     dividend_yield: float,
-    correlation: float,
+    correlation: float | tuple[float, float],
     volatility: PiecewiseEquityVolatility,
     expiry: np.ndarray | float,
     strike: np.ndarray | float,
     kind: str = "call",
 ) -> np.ndarray:
     """European option on the price index ``S_T e^{-qT}`` paid at ``T``, with piecewise-constant
-    equity vol under Hull-White rates: Black on ``S_0 e^{-qT}/P(0,T)`` with variance ``v(T)``.
+    equity vol under Hull-White or G2++ rates: Black on ``S_0 e^{-qT}/P(0,T)`` with variance
+    ``v(T)`` (:func:`piecewise_equity_total_variance`; ``correlation`` as there).
 
     expiry and strike broadcast together (any shapes); the result has the broadcast shape.
     """
@@ -214,12 +332,13 @@ class EquityVolFitReport:
     """The bootstrapped equity volatility and how each quote reprices.
 
     volatility: per-bucket vols, buckets ending at the quoted expiries. rows: one per quote, by
-    increasing expiry. max_abs_vol_error: largest ``|vol_error|``.
+    increasing expiry. max_abs_vol_error: largest ``|vol_error|``. correlation and rates as
+    given: one number with Hull-White parameters, ``(rho_xS, rho_yS)`` with G2++ parameters.
     """
 
     volatility: PiecewiseEquityVolatility
-    correlation: float
-    rates: HullWhiteParams
+    correlation: float | tuple[float, float]
+    rates: HullWhiteParams | G2PlusPlusParams
     rows: tuple[EquityVolFitRow, ...]
     max_abs_vol_error: float
 
@@ -249,22 +368,25 @@ def _positive_root(c2: float, c1: float, c0: float) -> float | None:
 
 def calibrate_equity_volatility(
     curve: DiscountCurve,
-    rates: HullWhiteParams,
+    rates: HullWhiteParams | G2PlusPlusParams,
     *,
     level: float,
     dividend_yield: float,
-    correlation: float,
+    correlation: float | tuple[float, float],
     quotes: Sequence[EquityVolQuote],
 ) -> EquityVolFitReport:
     """Bootstrap ``sigma_S(t)``, one bucket per quote, so that every quote reprices exactly.
 
-    quotes: any order; their expiries must be distinct. The reported model vol is the
-    Black-Scholes implied vol of the model's closed-form price, so ``vol_error`` checks the
-    whole chain, not only the variance equation.
+    rates: Hull-White parameters with ``correlation`` one number (equity vs short-rate shock),
+    or G2++ parameters with ``correlation`` the pair ``(rho_xS, rho_yS)`` (equity vs ``W1``,
+    ``W2``); a mismatch is a ``ValueError``. quotes: any order; their expiries must be distinct.
+    The reported model vol is the Black-Scholes implied vol of the model's closed-form price, so
+    ``vol_error`` checks the whole chain, not only the variance equation.
     """
     if not quotes:
         raise MarketDataError("no equity vol quotes to calibrate to")
-    if not -1.0 < correlation < 1.0:
+    correlation = _checked_correlation(rates, correlation, strict=True)
+    if not isinstance(rates, G2PlusPlusParams) and not -1.0 < correlation < 1.0:  # type: ignore[operator]
         raise ValueError("equity-rate correlation must lie strictly inside (-1, 1)")
     ordered = sorted(quotes, key=lambda q: q.expiry)
     ends = np.array([q.expiry for q in ordered])
@@ -277,18 +399,16 @@ def calibrate_equity_volatility(
             f"equity vol quotes run to {ends[-1]:g} years but the curve ends at "
             f"{curve.max_maturity:g}"
         )
-    a, sig = rates.mean_reversion, rates.volatility
     vols = np.zeros(ends.size)
     starts = np.concatenate(([0.0], ends[:-1]))
     for j, q in enumerate(ordered):
         t = q.expiry
-        length, cross = _bucket_terms(ends[: j + 1], a, np.asarray(t))
-        known = float(np.sum(vols[:j] ** 2 * length[:j])
-                      + 2.0 * correlation * sig * np.sum(vols[:j] * cross[:j]))
-        rate_var = float(integrated_variance(rates, t))
+        length, terms = _rate_terms(rates, correlation, ends[: j + 1], np.asarray(t))
+        known = float(np.sum(vols[:j] ** 2 * length[:j]) + _cross_variance(terms, vols[:j], j))
+        rate_var = float(_rate_variance(rates, t))
         market_var = q.implied_vol**2 * t
         c2 = float(length[j])
-        c1 = correlation * sig * float(cross[j])
+        c1 = float(sum(w * float(k[j]) for w, k in terms))
         c0 = known + rate_var - market_var
         s = _positive_root(c2, c1, c0)
         if s is None:
@@ -297,8 +417,8 @@ def calibrate_equity_volatility(
                 f"equity vol quote {t:g}y ({q.implied_vol:.4%}): no positive equity volatility "
                 f"on ({starts[j]:g}, {t:g}] reprices it. The market total variance "
                 f"{market_var:.6g} is at or below {floor:.6g}, the least the model reaches with "
-                f"Hull-White sigma {sig:g}, a {a:g}, correlation {correlation:g} and the earlier "
-                "buckets: the quote is inconsistent with the rate volatility"
+                f"{_describe_rates(rates, correlation)} and the earlier buckets: the quote is "
+                "inconsistent with the rate volatility"
             )
         vols[j] = s
     volatility = PiecewiseEquityVolatility(bucket_ends=ends, volatilities=vols)
@@ -316,14 +436,14 @@ def calibrate_equity_volatility(
             volatility=volatility, expiry=t, strike=k, kind=kind,
         ))
         model_vol = float(black_implied_vol(model_price, fwd, k, t, annuity=df, kind=kind))
-        length, cross = _bucket_terms(ends, a, np.asarray(t))
+        length, terms = _rate_terms(rates, correlation, ends, np.asarray(t))
         rows.append(EquityVolFitRow(
             expiry=t, strike=float(k), market_vol=q.implied_vol, model_vol=model_vol,
             vol_error=model_vol - q.implied_vol, market_price=market_price,
             model_price=model_price,
             equity_variance=float(np.sum(vols**2 * length)),
-            cross_variance=float(2.0 * correlation * sig * np.sum(vols * cross)),
-            rate_variance=float(integrated_variance(rates, t)),
+            cross_variance=float(_cross_variance(terms, vols)),
+            rate_variance=float(_rate_variance(rates, t)),
         ))
     return EquityVolFitReport(
         volatility=volatility,

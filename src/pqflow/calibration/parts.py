@@ -219,7 +219,8 @@ def calibrate_index(
         vols = np.asarray(report.bucket_vols, dtype=float)
         vol = PiecewiseConstant(knots=(0.0, *ends[:-1].tolist()), values=tuple(vols.tolist()))
         fit = {
-            "method": "piecewise-constant volatility bootstrapped to each implied volatility under Hull-White rates",
+            "method": "piecewise-constant volatility bootstrapped to each implied volatility under "
+            f"{'G2++' if isinstance(hw, G2PlusPlusParams) else 'Hull-White'} rates",
             "bucket_ends": ends.tolist(),
             "bucket_volatilities": vols.tolist(),
             "max_abs_vol_error": report.max_abs_vol_error,

@@ -41,6 +41,9 @@ import numpy as np
 import pandas as pd
 
 from pqflow.models.equity import EquityParams, equity_option_price
+from pqflow.models.g2pp import G2PlusPlusParams
+from pqflow.models.g2pp_equity import G2EquityParams
+from pqflow.models.g2pp_equity import equity_option_price as g2_equity_option_price
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.jarrow_yildirim import CPI_COLUMN
 from pqflow.models.schedule import PiecewiseConstant
@@ -65,15 +68,25 @@ _CPI = CPI_COLUMN
 
 def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: float, level: float) -> float:
     """Closed-form value of ``max(G - S_T, 0)`` on the total-return index (``q = 0``), from
-    the Hull-White and equity parameters recorded in ``calibration.json`` (the equity
-    volatility a number or a piecewise-constant schedule)."""
+    the rates (Hull-White or G2++) and equity parameters recorded in ``calibration.json`` (the
+    equity volatility a number or a piecewise-constant schedule): Black on the forward with the
+    T-forward variance of :func:`pqflow.models.equity.equity_total_variance` or, under G2++,
+    :func:`pqflow.models.g2pp_equity.equity_total_variance`."""
     par = inputs.parameters
-    hw, eq = par["hull_white"], par["equity"]
-    rates = HullWhiteParams(mean_reversion=float(hw["mean_reversion"]), volatility=float(hw["volatility"]))
+    eq = par["equity"]
     vol = eq["volatility"]
+    volatility = float(vol) if isinstance(vol, (int, float)) else PiecewiseConstant.from_json(vol)
+    if "g2pp" in par:
+        g = par["g2pp"]
+        rx, ry = (float(v) for v in eq["correlation_with_rate_factors"])
+        g2 = G2PlusPlusParams(**{k: float(g[k]) for k in ("a", "sigma", "b", "eta", "rho")})
+        g2_equity = G2EquityParams(name=str(eq["name"]), level=level, dividend_yield=0.0, volatility=volatility,
+                                   correlation_x=rx, correlation_y=ry)
+        return g2_equity_option_price(inputs.curve, g2, g2_equity, expiry=maturity, strike=guarantee, kind="put")
+    hw = par["hull_white"]
+    rates = HullWhiteParams(mean_reversion=float(hw["mean_reversion"]), volatility=float(hw["volatility"]))
     equity = EquityParams(
-        name=str(eq["name"]), level=level, dividend_yield=0.0,
-        volatility=float(vol) if isinstance(vol, (int, float)) else PiecewiseConstant.from_json(vol),
+        name=str(eq["name"]), level=level, dividend_yield=0.0, volatility=volatility,
         correlation=float(eq["correlation_with_rates"]),
     )
     return equity_option_price(inputs.curve, rates, equity, expiry=maturity, strike=guarantee, kind="put")
@@ -133,7 +146,7 @@ def guarantee_values(
     try:
         out["closed_form"] = guarantee_closed_form(
             inputs, maturity=out["maturity"], guarantee=out["guarantee"], level=out["level"])
-    except (KeyError, TypeError, ValueError):  # a model without the Hull-White + equity record
+    except (KeyError, TypeError, ValueError):  # a model without a rates + equity record
         out["closed_form"] = None
     return out
 
@@ -216,7 +229,7 @@ def reconciliation_check(
     rule = f"each difference within |z| <= {crit:.2f} standard errors (Bonferroni, family level 99%)"
     entry = cells_entry(cells, ["comparison", "difference", "z_score"], kind=KIND, rule=rule)
     if cf is None:
-        entry["warnings"].append("no closed form: calibration.json has no Hull-White and equity parameters")
+        entry["warnings"].append("no closed form: calibration.json has no rates (Hull-White or G2++) and equity parameters")
     entry["guarantee"] = {
         "product": "unit-linked maturity guarantee: put on the equity total-return index",
         "maturity": values["maturity"], "guaranteed_amount": values["guarantee"],
@@ -229,7 +242,7 @@ def reconciliation_check(
         "real_world_sample_se": values["real_world_sample_se"],
     }
     values_table = pd.DataFrame([
-        *([{"method": "closed form (Hull-White + Black)", "value": cf, "std_error": 0.0}] if cf is not None else []),
+        *([{"method": f"closed form ({'G2++' if 'g2pp' in inputs.parameters else 'Hull-White'} + Black)", "value": cf, "std_error": 0.0}] if cf is not None else []),
         {"method": "market-consistent set", "value": q, "std_error": q_se},
         {"method": "real-world set with deflators", "value": p, "std_error": p_se},
     ])
