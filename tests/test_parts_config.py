@@ -286,3 +286,87 @@ def test_g2pp_runs_the_whole_balance_sheet_and_reconciles_in_closed_form(tmp_pat
     esr = cal["expected_short_rate"]
     k = esr["time"].index(10.0)
     assert esr["real_world"][k] == pytest.approx(data["real_world"]["target_short_rate"], abs=1e-12)
+
+
+def _cap_quotes(path: Path, cal, sigma_i: float, bump: float = 1.0) -> Path:
+    """Year-on-year cap/floor premiums priced by the Jarrow-Yildirim closed form (checked
+    against QuantLib's YoY inflation cap engine in tests/test_jarrow_yildirim.py)."""
+    from pqflow.models.jarrow_yildirim import JarrowYildirimParams, yoy_cap_price
+
+    c = cal.driver_correlation
+    p = JarrowYildirimParams(nominal=cal.rates, real=cal.inflation.real, inflation_volatility=sigma_i,
+                             correlation_nominal_real=c.pair("rates", "real_rate"),
+                             correlation_nominal_inflation=c.pair("rates", "inflation"),
+                             correlation_real_inflation=c.pair("real_rate", "inflation"))
+    rows = ["maturity_years,strike,kind,premium_bp"]
+    for n in (2, 5, 8):
+        for k, kind in ((0.03, "cap"), (0.01, "floor")):
+            price = yoy_cap_price(cal.curve, cal.inflation.real_curve, p, maturity=n, strike=k, kind=kind)
+            rows.append(f"{n},{k},{kind},{price * 1e4 * bump!r}")
+    path.write_text("\n".join(rows) + "\n")
+    return path
+
+
+def test_inflation_volatility_is_recovered_from_year_on_year_caps(tmp_path, full):
+    """Quotes priced at sigma_I = 1.35%: the fit from a 1% start recovers it (parameter
+    recovery, to 1e-8), and the written run reprices every cap from its cpi column within the
+    Monte Carlo interval (the market-consistency check)."""
+    from pipeline import run_in_process
+
+    cal = assemble_calibration(_load(tmp_path, full))
+    data = copy.deepcopy(full)
+    data.setdefault("market_data", {})["inflation_caps"] = str(_cap_quotes(tmp_path / "caps.csv", cal, 0.0135))
+    data["inflation"].update(inflation_volatility=0.01, fit=["inflation_volatility"])
+    fitted = assemble_calibration(_load(tmp_path, data))
+    assert fitted.inflation.inflation_volatility == pytest.approx(0.0135, rel=1e-8)
+    assert fitted.fit["inflation"]["caps"]["price_rmse_bp"] < 1e-6
+    assert len(fitted.instruments["inflation_caps"]) == 6
+    result = run_in_process(write_toml(tmp_path / "caps.toml", data), tmp_path / "run")
+    mc = result["summary"]["checks"]["market_consistency"]
+    assert mc["verdict"] == "pass"
+    import pandas as pd
+
+    table = pd.read_csv(tmp_path / "run" / "validation" / "market_consistency.csv")
+    assert (table["type"] == "yoy_option").sum() == 12  # 6 quotes x 2 sets
+
+
+def test_a_mispriced_cap_quote_fails_market_consistency(tmp_path, full):
+    """A recorded premium 25% above what the scenarios give: a planted defect the check exists
+    to catch (the other quotes still pass)."""
+    import json
+
+    from pqflow.validation.market_consistency import market_consistency_check
+    from pqflow.validation.run_files import load_run_inputs
+    from pipeline import run_in_process
+
+    cal = assemble_calibration(_load(tmp_path, full))
+    data = copy.deepcopy(full)
+    data.setdefault("market_data", {})["inflation_caps"] = str(_cap_quotes(tmp_path / "caps.csv", cal, 0.012))
+    data["inflation"].update(fit=["inflation_volatility"])
+    run_in_process(write_toml(tmp_path / "q.toml", data), tmp_path / "run")
+    path = tmp_path / "run" / "calibration.json"
+    record = json.loads(path.read_text())
+    record["instruments"]["inflation_caps"][2]["market_price"] *= 1.25  # the 5-year cap
+    path.write_text(json.dumps(record))
+    check = market_consistency_check(load_run_inputs(tmp_path / "run"))
+    assert check.summary["verdict"] == "fail"
+    table = check.tables["market_consistency"]
+    worst = table.loc[table["z_score"].abs().idxmax(), "instrument"]
+    assert worst == "year-on-year inflation cap 5y K=3.00%"
+
+
+@pytest.mark.parametrize(
+    ("edit", "fragment"),
+    [
+        (lambda d: d.setdefault("market_data", {}).update(inflation_caps="caps.csv"),
+         "market_data.inflation_caps is given but nothing is fitted to it"),
+        (lambda d: d["inflation"].update(fit=["inflation_volatility"]),
+         "inflation.fit needs year-on-year cap or floor quotes"),
+    ],
+)
+def test_cap_quotes_and_the_fit_go_together(tmp_path, full, edit, fragment):
+    data = copy.deepcopy(full)
+    edit(data)
+    with pytest.raises(ConfigError) as info:
+        _load(tmp_path, data)
+    assert fragment in " ".join(str(info.value).split())

@@ -278,6 +278,12 @@ def _print_fit(payload: dict[str, Any]) -> None:
             f"sigma_r = {p_inf['real_volatility']:g}, sigma_I = {p_inf['inflation_volatility']:g}",
             highlight=False,
         )
+        if caps := inf.get("caps"):
+            console.print(
+                f"  fitted {', '.join(caps['fitted'])} to {len(caps['rows'])} year-on-year caps/floors: "
+                f"price RMSE {caps['price_rmse_bp']:.2f} bp of notional",
+                highlight=False,
+            )
     for r in fit.get("credit", {}).get("ratings", []):
         console.print(
             f"credit {r['rating']}: spreads repriced to {r['max_abs_error_bp']:.2g} bp; CIR++ shift in "

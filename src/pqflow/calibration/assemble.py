@@ -50,6 +50,7 @@ from pqflow.market.data_files import (
     read_curve_inputs,
     read_equity_indices,
     read_equity_vols,
+    read_inflation_caps,
     read_inflation_swaps,
     read_swaption_quotes,
 )
@@ -614,7 +615,8 @@ def _inputs(config: RunConfig) -> dict[str, Any]:
     inputs["simulation_horizon_years"] = config.simulation.max_horizon_years
     files = {}
     if config.market_data is not None:
-        for kind in ("curve", "swaptions", "equity_index", "equity_vols", "correlations", "inflation_swaps", "credit_spreads"):
+        for kind in ("curve", "swaptions", "equity_index", "equity_vols", "correlations", "inflation_swaps",
+                     "inflation_caps", "credit_spreads"):
             path = config.market_file(kind)
             if path is not None:
                 if not path.is_file():
@@ -631,6 +633,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     for kind, reader in (("curve", read_curve_inputs), ("swaptions", read_swaption_quotes),
                          ("equity_index", read_equity_indices), ("equity_vols", read_equity_vols),
                          ("correlations", read_correlation_matrix), ("inflation_swaps", read_inflation_swaps),
+                         ("inflation_caps", read_inflation_caps),
                          ("credit_spreads", read_credit_spreads)):
         path = config.market_file(kind)
         if path is not None:
@@ -655,9 +658,9 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         equity_options = [*equity_options, *options]
     if index_fits:
         fit["indices"] = index_fits
-    inflation = None
+    inflation, inflation_caps = None, []
     if config.inflation is not None:
-        inflation, inflation_lams, fit["inflation"] = calibrate_inflation(config, curve)
+        inflation, inflation_lams, fit["inflation"], inflation_caps = calibrate_inflation(config, curve, rates, correlation)
         extra_lams.update(inflation_lams)
     credit = None
     if config.credit is not None:
@@ -673,7 +676,8 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         inputs=inputs,
         inputs_hash=hashlib.sha256(canon).hexdigest(),
         fit=fit,
-        instruments={"swaptions": swaptions, "equity_options": equity_options},
+        instruments={"swaptions": swaptions, "equity_options": equity_options,
+                     **({"inflation_caps": inflation_caps} if inflation_caps else {})},
         real_world_view=view,
         indices=tuple(indices),
         extra_prices_of_risk=extra_lams,

@@ -11,7 +11,8 @@ correlation, inflation and credit; and their form in ``calibration.json``.
 * **Inflation**: the real curve from zero-coupon inflation swaps,
   ``P_r(0, T) = P_n(0, T) (1 + k(T))^T`` at each quote (exact; Brigo and Mercurio 2006,
   ch. 15.2), the breakeven rate held flat beyond the last quote (common practice), pillars every
-  year to the end of the nominal curve; volatilities typed in.
+  year to the end of the nominal curve; volatilities typed in, or fitted to year-on-year caps
+  and floors in closed form (:func:`pqflow.calibration.inflation.calibrate_jarrow_yildirim`).
 * **Credit**: per rating a hazard curve bootstrapped from the spreads and the CIR++ parameters
   (:mod:`pqflow.calibration.credit`).
 """
@@ -25,7 +26,12 @@ import numpy as np
 
 from pqflow.calibration.credit import ZeroSpreadCurve, calibrate_credit
 from pqflow.calibration.equity_vol import EquityVolQuote, calibrate_equity_volatility
-from pqflow.calibration.inflation import ZeroCouponInflationSwapQuote, real_curve_from_zc_inflation_swaps
+from pqflow.calibration.inflation import (
+    YoYCapFloorQuote,
+    ZeroCouponInflationSwapQuote,
+    calibrate_jarrow_yildirim,
+    real_curve_from_zc_inflation_swaps,
+)
 from pqflow.config.schema import IndexSection, RunConfig
 from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.market.correlation import check_correlation_matrix, nearest_correlation_matrix
@@ -35,6 +41,7 @@ from pqflow.market.data_files import (
     read_credit_spreads,
     read_equity_indices,
     read_equity_vols,
+    read_inflation_caps,
     read_inflation_swaps,
 )
 from pqflow.market.serialize import curve_from_json, curve_to_json
@@ -42,6 +49,7 @@ from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, Ha
 from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER, InflationPart, TotalReturnIndex
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.jarrow_yildirim import JarrowYildirimParams
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 
 __all__ = [
@@ -278,42 +286,84 @@ def _flat_breakeven_curve(nominal: DiscountCurve, maturities: np.ndarray, rates:
     return LogDiscountCurve(maturities=t, discount_factors=np.asarray(nominal.discount(t)) * (1.0 + k) ** t)
 
 
-def calibrate_inflation(config: RunConfig, curve: DiscountCurve) -> tuple[InflationPart, dict[str, float], dict[str, Any]]:
-    """The inflation part, its prices of risk (by driver) and the fit report."""
+def calibrate_inflation(
+    config: RunConfig,
+    curve: DiscountCurve,
+    rates: HullWhiteParams | G2PlusPlusParams,
+    correlation: DriverCorrelation,
+) -> tuple[InflationPart, dict[str, float], dict[str, Any], list[dict[str, Any]]]:
+    """The inflation part, its prices of risk (by driver), the fit report and the year-on-year
+    cap/floor instruments (empty when the volatilities are typed in)."""
     sec = config.inflation
     assert sec is not None
     if sec.swap_maturities is not None:
         assert sec.swap_rates is not None
-        mats, rates, source = np.array(sec.swap_maturities, float), np.array(sec.swap_rates, float), "typed in"
+        mats, zc, source = np.array(sec.swap_maturities, float), np.array(sec.swap_rates, float), "typed in"
     else:
         path = config.market_file("inflation_swaps")
         assert path is not None
         rows = read_inflation_swaps(path)
-        mats, rates, source = np.array([r.maturity for r in rows]), np.array([r.rate for r in rows]), str(path)
+        mats, zc, source = np.array([r.maturity for r in rows]), np.array([r.rate for r in rows]), str(path)
     try:
         quoted = real_curve_from_zc_inflation_swaps(
-            curve, [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k)) for t, k in zip(mats, rates)]
+            curve, [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k)) for t, k in zip(mats, zc)]
         )
     except MarketDataError as exc:
         raise MarketDataError(f"{source}: {exc}") from None
-    real_curve = _flat_breakeven_curve(curve, mats, rates)
-    part = InflationPart(
-        real_curve=real_curve,
-        real=HullWhiteParams(mean_reversion=sec.real_mean_reversion, volatility=sec.real_volatility),
-        inflation_volatility=sec.inflation_volatility,
-        cpi_base=sec.cpi_base,
-        real_bond_maturities=tuple(sorted(sec.real_bond_maturities)),
-    )
-    lams = {REAL_RATE_DRIVER: sec.real_rate_price_of_risk, INFLATION_DRIVER: sec.inflation_drift_adjustment / sec.inflation_volatility}
-    fit = {
+    real_curve = _flat_breakeven_curve(curve, mats, zc)
+    real = HullWhiteParams(mean_reversion=sec.real_mean_reversion, volatility=sec.real_volatility)
+    sigma_i = sec.inflation_volatility
+    fit: dict[str, Any] = {
         "method": "real curve P_r(0,T) = P_n(0,T) (1 + k(T))^T at each zero-coupon inflation swap; breakeven "
-        "flat beyond the last quote; Jarrow-Yildirim volatilities typed in",
+        "flat beyond the last quote; Jarrow-Yildirim volatilities "
+        + (f"{', '.join(sec.fit)} fitted to year-on-year caps and floors (closed form), the rest typed in" if sec.fit else "typed in"),
         "source": source,
         "max_abs_difference_bp": quoted.max_abs_difference_bp,
         "rows": quoted.as_records(),
         "inflation_drift_adjustment": sec.inflation_drift_adjustment,
     }
-    return part, lams, fit
+    instruments: list[dict[str, Any]] = []
+    if sec.fit:
+        assert isinstance(rates, HullWhiteParams)  # the schema refuses a fit under G2++
+        cap_path = config.market_file("inflation_caps")
+        assert cap_path is not None
+        caps = read_inflation_caps(cap_path)
+        initial = JarrowYildirimParams(
+            nominal=rates, real=real, inflation_volatility=sigma_i,
+            correlation_nominal_real=correlation.pair(RATES_DRIVER, REAL_RATE_DRIVER),
+            correlation_nominal_inflation=correlation.pair(RATES_DRIVER, INFLATION_DRIVER),
+            correlation_real_inflation=correlation.pair(REAL_RATE_DRIVER, INFLATION_DRIVER),
+        )
+        try:
+            report = calibrate_jarrow_yildirim(
+                curve, real_curve,
+                [YoYCapFloorQuote(maturity=c.maturity, strike=c.strike, kind=c.kind, price=c.premium, weight=c.weight) for c in caps],
+                initial=initial, fit=tuple(sec.fit),
+            )
+        except (MarketDataError, CalibrationError) as exc:
+            raise CalibrationError(f"{cap_path}: {exc}") from None
+        if not report.success:
+            raise CalibrationError(f"{cap_path}: the inflation volatility fit did not converge ({report.message})")
+        real, sigma_i = report.params.real, report.params.inflation_volatility
+        fit["caps"] = {
+            "fitted": list(report.fitted), "at_bound": list(report.at_bound), "price_rmse_bp": report.price_rmse_bp,
+            "inflation_volatility": sigma_i, "real_mean_reversion": real.mean_reversion,
+            "real_volatility": real.volatility, "rows": [dict(vars(r)) for r in report.rows],
+        }
+        instruments = [
+            {"maturity": r.maturity, "strike": r.strike, "kind": r.kind, "market_price": r.market_price,
+             "model_price": r.model_price}
+            for r in report.rows
+        ]
+    part = InflationPart(
+        real_curve=real_curve,
+        real=real,
+        inflation_volatility=sigma_i,
+        cpi_base=sec.cpi_base,
+        real_bond_maturities=tuple(sorted(sec.real_bond_maturities)),
+    )
+    lams = {REAL_RATE_DRIVER: sec.real_rate_price_of_risk, INFLATION_DRIVER: sec.inflation_drift_adjustment / sigma_i}
+    return part, lams, fit, instruments
 
 
 def inflation_to_json(part: InflationPart) -> dict[str, Any]:

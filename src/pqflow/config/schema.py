@@ -141,6 +141,7 @@ class MarketDataSection(_Section):
     equity_vols: str | None = None
     correlations: str | None = None
     inflation_swaps: str | None = None
+    inflation_caps: str | None = None
     credit_spreads: str | None = None
 
 
@@ -191,7 +192,9 @@ class InflationSection(_Section):
     inflation_swaps``, or typed in as ``swap_maturities`` / ``swap_rates``), with the breakeven
     rate held flat beyond the last quote. Real world: ``real_rate_price_of_risk`` moves the real
     short rate's drift, ``inflation_drift_adjustment`` adds to the expected growth rate of the
-    CPI per year (its price of risk is the adjustment over the inflation volatility)."""
+    CPI per year (its price of risk is the adjustment over the inflation volatility). ``fit``
+    names the volatility parameters fitted to year-on-year caps and floors
+    (``market_data.inflation_caps``); the typed values are then starting points."""
 
     real_mean_reversion: float = Field(gt=0.0, le=5.0)
     real_volatility: float = Field(gt=0.0, le=0.2)
@@ -202,6 +205,7 @@ class InflationSection(_Section):
     swap_rates: list[float] | None = None
     real_rate_price_of_risk: float = Field(default=0.0, ge=-5.0, le=5.0)
     inflation_drift_adjustment: float = Field(default=0.0, ge=-0.1, le=0.1)
+    fit: list[Literal["inflation_volatility", "real_mean_reversion", "real_volatility"]] = Field(default_factory=list)
 
     @model_validator(mode="after")
     def _swaps(self) -> InflationSection:
@@ -580,6 +584,19 @@ class RunConfig(_Section):
         # data for a model that is not configured, and models without their data
         if md.inflation_swaps is not None and self.inflation is None:
             raise ValueError("market_data.inflation_swaps is given but [inflation] is not configured")
+        if md.inflation_caps is not None and (self.inflation is None or not self.inflation.fit):
+            raise ValueError(
+                "market_data.inflation_caps is given but nothing is fitted to it: configure [inflation] "
+                "with fit = [...] (inflation_volatility, real_mean_reversion, real_volatility)"
+            )
+        if self.inflation is not None and self.inflation.fit:
+            if md.inflation_caps is None:
+                raise ValueError("inflation.fit needs year-on-year cap or floor quotes in market_data.inflation_caps")
+            if self.rates.model != "hull_white":
+                raise ValueError(
+                    "inflation.fit prices year-on-year caps in the Jarrow-Yildirim closed form with "
+                    "Hull-White nominal rates; under G2++ type the inflation volatilities in"
+                )
         if md.credit_spreads is not None and self.credit is None:
             raise ValueError("market_data.credit_spreads is given but [credit] is not configured")
         if self.inflation is not None:

@@ -55,6 +55,12 @@ equity-index file also carries property indices (``dividend_yield`` is then the 
     maturity_years,zc_rate
     1,0.0231
 
+**Year-on-year inflation caps and floors** (annual caplets on ``I_i / I_{i-1} - 1``; premium per
+unit notional in basis points; ``weight`` optional)::
+
+    maturity_years,strike,kind,premium_bp
+    5,0.03,cap,160.9
+
 **Credit spreads** (zero-coupon spread over the risk-free zero rate, continuous, basis points)::
 
     rating,maturity_years,spread_bp
@@ -98,6 +104,8 @@ __all__ = [
     "CreditSpreadCurve",
     "read_inflation_swaps",
     "read_credit_spreads",
+    "InflationCapRow",
+    "read_inflation_caps",
 ]
 
 MATURITY_COLUMN = "maturity_years"
@@ -545,3 +553,40 @@ def read_credit_spreads(path: str | PathLike[str]) -> dict[str, CreditSpreadCurv
         r: CreditSpreadCurve(rating=r, maturities=np.array([p[0] for p in v]), spreads=np.array([p[1] for p in v]))
         for r, v in points.items()
     }
+
+
+@dataclass(frozen=True, kw_only=True)
+class InflationCapRow:
+    maturity: float
+    strike: float
+    kind: str
+    premium: float  # per unit notional
+    weight: float
+    row: int
+
+
+def read_inflation_caps(path: str | PathLike[str]) -> tuple[InflationCapRow, ...]:
+    """Read and check a year-on-year inflation cap/floor CSV:
+    ``maturity_years,strike,kind,premium_bp[,weight]`` (whole-year maturities, annual caplets;
+    ``kind`` cap or floor; the premium per unit notional in basis points)."""
+    name, header, header_line, rows = _read_rows(path)
+    idx = _header_index(name, header, header_line, ("maturity_years", "strike", "kind", "premium_bp"), ("weight",))
+    out: list[InflationCapRow] = []
+    for row in rows:
+        t = _number(row.cells[idx["maturity_years"]], _at(name, row, "maturity_years"))
+        k = _number(row.cells[idx["strike"]], _at(name, row, "strike"))
+        kind = row.cells[idx["kind"]].lower()
+        p = _number(row.cells[idx["premium_bp"]], _at(name, row, "premium_bp"))
+        w = _number(row.cells[idx["weight"]], _at(name, row, "weight")) if "weight" in idx else 1.0
+        if t < 1.0 or abs(t - round(t)) > _WHOLE_YEAR_TOL:
+            raise MarketDataError(f"{_at(name, row, 'maturity_years')}: maturity {t:g} must be a whole number of years (at least 1)")
+        if kind not in ("cap", "floor"):
+            raise MarketDataError(f"{_at(name, row, 'kind')}: kind {row.cells[idx['kind']]!r} must be cap or floor")
+        if abs(k) >= 0.5:
+            raise MarketDataError(f"{_at(name, row, 'strike')}: strike {k:g} is not a plausible decimal rate (0.03 for 3%)")
+        if not p > 0.0:
+            raise MarketDataError(f"{_at(name, row, 'premium_bp')}: premium {p:g} bp must be positive")
+        if w < 0.0:
+            raise MarketDataError(f"{_at(name, row, 'weight')}: weight {w:g} must not be negative")
+        out.append(InflationCapRow(maturity=float(round(t)), strike=k, kind=kind, premium=p * 1e-4, weight=w, row=row.number))
+    return tuple(out)

@@ -12,6 +12,10 @@ Payoffs at the expiry ``T0``, from the columns of the files:
 
 * payer swaption on an annual fixed leg of ``n`` years struck at ``K`` (receiver: ``-``):
   ``A = sum_{k=1..n} zcb_{k}y``, ``S = (1 - zcb_{n}y) / A``, payoff ``A max(S - K, 0)``;
+* year-on-year inflation cap (floor) of ``N`` years struck at ``K``: annual caplets
+  ``(+-(cpi_i / cpi_{i-1} - 1 - K))^+`` paid at each year ``i = 1..N``, each deflated at its
+  payment time (the quotes are premiums; stated tolerance the larger of 5 bp of notional and 3%
+  of the premium, plus the Monte Carlo interval);
 * equity option on the price index ``S_T e^{-qT}``, with ``S`` the total-return column
   ``equity_{index}`` (or ``property_{index}``, as the instrument's ``column_kind`` says) and
   ``q`` the recorded income yield: the core equity's ``dividend_yield``
@@ -52,6 +56,7 @@ from pqflow.validation.summary import family_critical_z
 
 __all__ = [
     "DEFAULT_VOL_TOLERANCE",
+    "PREMIUM_TOLERANCE",
     "InstrumentSpec",
     "parse_instruments",
     "market_consistency_table",
@@ -61,6 +66,9 @@ __all__ = [
 CHECK = "market_consistency"
 KIND = "calibration instruments repriced from the files against their market quotes"
 DEFAULT_VOL_TOLERANCE = {"normal": 5e-4, "lognormal": 5e-3, "shifted_lognormal": 5e-3}
+#: Stated tolerance of quotes given as premiums (year-on-year inflation caps and floors): the
+#: larger of 5 bp of notional and 3% of the premium.
+PREMIUM_TOLERANCE = {"absolute": 5e-4, "relative": 0.03}
 _BP = 1e-4
 _MEASURES = ("market_consistent", "real_world")
 
@@ -202,6 +210,23 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
             stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
             column_names=(col,), untestable=reason, income_yield=q,
         ))
+    for raw in section.get("inflation_caps", []) or []:
+        n, strike, option = int(round(float(raw["maturity"]))), float(raw["strike"]), str(raw["kind"])
+        label = f"year-on-year inflation {option} {n}y K={strike:.2%}"
+        reason = None
+        if "cpi" not in columns:
+            reason = "not testable from the files (missing cpi)"
+        else:
+            missing = [i for i in range(n + 1) if time_index(times, float(i)) is None]
+            if missing:
+                reason = f"not testable from the files (years {missing[:3]} are not output times)"
+        out.append(InstrumentSpec(
+            label=label, kind="yoy_option", option=option, expiry=float(n), strike=strike,
+            convention="premium", shift=0.0, tenor=None, index=None, forward=None, annuity=None,
+            market_vol=None, market_price=_num(raw.get("market_price")),
+            stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
+            column_names=("cpi",), untestable=reason,
+        ))
     return out
 
 
@@ -226,6 +251,16 @@ def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.
     for j, s in enumerate(specs):
         k = time_index(times, s.expiry)
         assert k is not None
+        if s.kind == "yoy_option":  # annual caplets tau (I_i / I_{i-1} - 1 - K)^+ paid at i, tau = 1
+            cpi = cols["cpi"]
+            w = 1.0 if s.option == "cap" else -1.0
+            ks = [time_index(times, float(i)) for i in range(int(round(s.expiry)) + 1)]
+            total = np.zeros(deflator.shape[0])
+            for k0, k1 in zip(ks[:-1], ks[1:]):
+                assert k0 is not None and k1 is not None
+                total += deflator[:, k1] * np.maximum(w * (cpi[:, k1] / cpi[:, k0] - 1.0 - s.strike), 0.0)
+            out[:, j] = total
+            continue
         if s.kind == "swaption":
             bonds = np.stack([cols[c][:, k] for c in s.column_names], axis=1)
             annuity = bonds.sum(axis=1)
@@ -291,6 +326,8 @@ def market_consistency_table(
             vega = _vega(s)
             tol_vol = tol.get(s.convention, 0.0)
             tol_price = abs(vega) * tol_vol if vega is not None else 0.0
+            if s.kind == "yoy_option" and s.market_price is not None:
+                tol_price = max(PREMIUM_TOLERANCE["absolute"], PREMIUM_TOLERANCE["relative"] * s.market_price)
             mc_vol = _implied(s, mc)
             row: dict[str, Any] = {
                 "instrument": s.label, "type": s.kind, "measure": measure,
@@ -320,7 +357,7 @@ def market_consistency_check(
 ) -> CheckResult:
     """The check's table and its ``summary.json`` entry (``not_applicable`` without instruments)."""
     section = inputs.calibration.get("instruments") or {}
-    if not (section.get("swaptions") or section.get("equity_options")):
+    if not (section.get("swaptions") or section.get("equity_options") or section.get("inflation_caps")):
         return CheckResult(name=CHECK, summary=not_applicable_entry(
             kind=KIND, reason="not applicable: no instruments in calibration.json"))
     table, specs = market_consistency_table(inputs, vol_tolerance=vol_tolerance)
