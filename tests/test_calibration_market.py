@@ -156,7 +156,7 @@ def _core_only(data: dict) -> dict:
     data = copy.deepcopy(data)
     for key in ("indices", "inflation", "credit"):
         data.pop(key, None)
-    for key in ("inflation_swaps", "credit_spreads"):
+    for key in ("inflation_swaps", "inflation_caps", "credit_spreads"):
         data["market_data"].pop(key, None)
     return data
 

@@ -93,6 +93,7 @@ def plain_run(tmp_path_factory) -> Path:
     data.pop("inflation")
     data.pop("credit")
     data["market_data"].pop("inflation_swaps")
+    data["market_data"].pop("inflation_caps")
     data["market_data"].pop("credit_spreads")
     return _build(tmp_path_factory.mktemp("parts") / "plain", data)
 
