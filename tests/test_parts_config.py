@@ -370,3 +370,21 @@ def test_cap_quotes_and_the_fit_go_together(tmp_path, full, edit, fragment):
     with pytest.raises(ConfigError) as info:
         _load(tmp_path, data)
     assert fragment in " ".join(str(info.value).split())
+
+
+def test_a_real_world_long_run_intensity_sets_the_price_of_risk(tmp_path, full):
+    """kappa^P = kappa mu / mu^P and theta = (kappa - kappa^P) / nu (the CIR drift under the
+    change of measure W^Q = W^P + int theta sqrt(y) ds; Brigo and Mercurio 2006, ch. 3.2)."""
+    from pqflow.models.cir_credit import real_world_cir
+
+    data = copy.deepcopy(full)
+    data["credit"]["ratings"][1].pop("price_of_risk")
+    data["credit"]["ratings"][1]["real_world_long_run_mean"] = 0.02
+    cal = assemble_calibration(_load(tmp_path, data))
+    bbb = cal.credit.ratings[1]
+    q = bbb.cir
+    assert real_world_cir(bbb).long_run_mean == pytest.approx(0.02, rel=1e-12)
+    assert bbb.price_of_risk == pytest.approx((q.mean_reversion - q.mean_reversion * q.long_run_mean / 0.02) / q.volatility, rel=1e-12)
+    data["credit"]["ratings"][1]["price_of_risk"] = 0.3
+    with pytest.raises(ConfigError, match="at most one of price_of_risk and real_world_long_run_mean"):
+        _load(tmp_path, data)

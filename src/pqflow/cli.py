@@ -288,7 +288,9 @@ def _print_fit(payload: dict[str, Any]) -> None:
         console.print(
             f"credit {r['rating']}: spreads repriced to {r['max_abs_error_bp']:.2g} bp; CIR++ shift in "
             f"[{r['min_shift']:.4f}, {r['max_shift']:.4f}]; Feller ratio {r['feller_ratio']:.2f}"
-            + (f"; fitted {', '.join(r['fitted'])}" if r["fitted"] else ""),
+            + (f"; fitted {', '.join(r['fitted'])}" if r["fitted"] else "")
+            + (f"; real world: theta {r['price_of_risk']:.4g}, long-run level {r['real_world_long_run_mean']:.4g} "
+               f"(market consistent {r['market_consistent_long_run_mean']:.4g})" if r.get("price_of_risk") else ""),
             highlight=False,
         )
     corr = fit.get("correlation", {})

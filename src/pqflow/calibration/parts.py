@@ -19,7 +19,7 @@ correlation, inflation and credit; and their form in ``calibration.json``.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -45,7 +45,8 @@ from pqflow.market.data_files import (
     read_inflation_swaps,
 )
 from pqflow.market.serialize import curve_from_json, curve_to_json
-from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve
+from pqflow.measure.cir_density import price_of_risk_for_long_run_mean
+from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve, real_world_cir
 from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER, InflationPart, TotalReturnIndex
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
@@ -418,12 +419,25 @@ def calibrate_credit_part(config: RunConfig) -> tuple[CirCreditModel, dict[str, 
             bond_maturities=sec.bond_maturities, fit=fits[r.name],
             prices_of_risk={r.name: r.price_of_risk},
         )
-        ratings.append(cal.model.ratings[0])
+        rating = cal.model.ratings[0]
         rep = cal.reports[0]
+        if r.real_world_long_run_mean is not None:
+            try:
+                theta = price_of_risk_for_long_run_mean(
+                    rating.cir.mean_reversion, rating.cir.long_run_mean, rating.cir.volatility,
+                    real_world_mean=r.real_world_long_run_mean,
+                )
+                rating = replace(rating, price_of_risk=theta)
+            except ValueError as exc:
+                raise CalibrationError(f"credit rating {r.name}: real_world_long_run_mean: {exc}") from None
+        ratings.append(rating)
         reports.append({
             "rating": r.name, "fitted": list(rep.fitted), "max_abs_error_bp": rep.max_abs_error_bp,
             "min_shift": rep.min_shift, "max_shift": rep.max_shift, "feller_ratio": rep.feller_ratio,
             "optimizer_success": rep.optimizer_success,
+            "price_of_risk": rating.price_of_risk,
+            "real_world_long_run_mean": real_world_cir(rating).long_run_mean,
+            "market_consistent_long_run_mean": rating.cir.long_run_mean,
             "rows": [dict(vars(row)) for row in rep.rows],
         })
     model = CirCreditModel(ratings=tuple(ratings), bond_maturities=tuple(sorted(sec.bond_maturities)))

@@ -225,8 +225,11 @@ class CreditRatingSection(_Section):
     risk-free zero rates, bp) comes from ``market_data.credit_spreads`` or is typed in as
     ``spread_maturities`` / ``spreads_bp``. The CIR parameters are given; those named in
     ``fit`` are starting values, fitted so the CIR part carries the curve's shape (the shift
-    reprices every spread exactly either way). ``price_of_risk``: theta of the real-world
-    intensity (``lambda^P = theta sqrt(y)``; positive values make real-world defaults rarer)."""
+    reprices every spread exactly either way). Real world, at most one of: ``price_of_risk``
+    theta (``W^Q = W^P + int theta sqrt(y) ds``, so ``kappa^P = kappa - nu theta``: negative
+    values make real-world intensities lower, the usual credit risk premium), or
+    ``real_world_long_run_mean``, the real-world long-run level of the CIR factor (e.g. from
+    historical default rates), from which theta follows after the fit."""
 
     name: str = Field(min_length=1, max_length=20, pattern=r"^[A-Za-z][A-Za-z0-9_]*$")
     recovery: float = Field(ge=0.0, lt=1.0)
@@ -235,12 +238,17 @@ class CreditRatingSection(_Section):
     volatility: float = Field(ge=0.0, le=2.0)
     initial: float = Field(ge=0.0, le=1.0)
     fit: list[Literal["mean_reversion", "long_run_mean", "volatility", "initial"]] = Field(default_factory=list)
-    price_of_risk: float = Field(default=0.0, ge=-5.0, le=5.0)
+    price_of_risk: float = Field(default=0.0, ge=-50.0, le=50.0)
+    real_world_long_run_mean: float | None = Field(default=None, gt=0.0, le=1.0)
     spread_maturities: list[float] | None = None
     spreads_bp: list[float] | None = None
 
     @model_validator(mode="after")
     def _spreads(self) -> CreditRatingSection:
+        if self.real_world_long_run_mean is not None and self.price_of_risk != 0.0:
+            raise ValueError("give at most one of price_of_risk and real_world_long_run_mean")
+        if self.real_world_long_run_mean is not None and self.volatility == 0.0:
+            raise ValueError("real_world_long_run_mean needs a positive volatility (with nu = 0 the measures agree)")
         if (self.spread_maturities is None) != (self.spreads_bp is None):
             raise ValueError("spread_maturities and spreads_bp go together")
         if self.spread_maturities is not None:
