@@ -22,7 +22,6 @@ from typing import Any
 import numpy as np
 
 from pqflow import __version__
-from pqflow.calibration.equity_vol import EquityVolQuote, calibrate_equity_volatility
 from pqflow.calibration.parts import (
     RATES_DRIVER,
     DriverCorrelation,
@@ -32,6 +31,7 @@ from pqflow.calibration.parts import (
     credit_from_json,
     credit_to_json,
     driver_correlation,
+    fit_index_volatility,
     index_from_json,
     index_to_json,
     inflation_from_json,
@@ -64,6 +64,7 @@ from pqflow.measure.house_view import (
 )
 from pqflow.measure.prices_of_risk import (
     PricesOfRisk,
+    equity_price_of_risk,
     g2_driver_weights,
     expected_short_rate,
     rates_price_of_risk_for_target,
@@ -525,37 +526,7 @@ def _equity_vol(
     path = config.market_file("equity_vols")
     assert path is not None
     rows = [r for r in read_equity_vols(path) if r.index == config.equity.name]
-    if not rows:
-        raise MarketDataError(f"{path}: no implied volatilities for equity index {config.equity.name!r}")
-    quotes = [EquityVolQuote(expiry=r.expiry, implied_vol=r.implied_vol, strike=r.strike) for r in rows]
-    try:
-        report = calibrate_equity_volatility(curve, hw, level=level, dividend_yield=q, correlation=rho, quotes=quotes)
-    except MarketDataError as exc:
-        raise CalibrationError(f"{path}: {exc}") from None
-    ends = np.asarray(report.bucket_ends, dtype=float)
-    vols = np.asarray(report.bucket_vols, dtype=float)
-    schedule = PiecewiseConstant(knots=(0.0, *ends[:-1].tolist()), values=tuple(vols.tolist()))
-    fit = {
-        "method": "piecewise-constant equity volatility, bootstrapped bucket by bucket to reprice each "
-        f"implied volatility exactly under {'G2++' if isinstance(hw, G2PlusPlusParams) else 'Hull-White'} rates (closed form)",
-        "bucket_ends": ends.tolist(),
-        "bucket_volatilities": vols.tolist(),
-        "max_abs_vol_error": report.max_abs_vol_error,
-        "rows": report.as_records(),
-    }
-    instruments = [
-        {
-            "index": config.equity.name,
-            "expiry": r.expiry,
-            "strike": r.strike,
-            "kind": "call",
-            "market_vol": r.market_vol,
-            "market_price": r.market_price,
-            "model_price": r.model_price,
-        }
-        for r in report.rows
-    ]
-    return schedule, fit, instruments
+    return fit_index_volatility(path, config.equity.name, "equity", rows, curve, hw, rho, level, q)
 
 
 def _real_world(
@@ -592,12 +563,7 @@ def _real_world(
             "speed": rw.speed,
             "half_life_years": float(np.log(2.0) / rw.speed),
         }
-    vol_schedule = as_schedule(vol)
-    lam_s: float | PiecewiseConstant
-    if vol_schedule.is_constant:
-        lam_s = rw.equity_risk_premium / vol_schedule.values[0]
-    else:
-        lam_s = PiecewiseConstant(knots=vol_schedule.knots, values=tuple(rw.equity_risk_premium / v for v in vol_schedule.values))
+    lam_s = equity_price_of_risk(rw.equity_risk_premium, vol)
     view["equity_risk_premium"] = rw.equity_risk_premium
     return PricesOfRisk(rates=lam_r, equity=lam_s), view
 

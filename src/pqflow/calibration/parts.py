@@ -39,6 +39,7 @@ from pqflow.market.curve import DiscountCurve, LogDiscountCurve
 from pqflow.market.data_files import (
     read_correlation_matrix,
     read_credit_spreads,
+    EquityVolRow,
     read_equity_indices,
     read_equity_vols,
     read_inflation_caps,
@@ -46,12 +47,13 @@ from pqflow.market.data_files import (
 )
 from pqflow.market.serialize import curve_from_json, curve_to_json
 from pqflow.measure.cir_density import price_of_risk_for_long_run_mean
+from pqflow.measure.prices_of_risk import equity_price_of_risk
 from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve, real_world_cir
 from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER, InflationPart, TotalReturnIndex
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.jarrow_yildirim import JarrowYildirimParams
-from pqflow.models.schedule import PiecewiseConstant, as_schedule
+from pqflow.models.schedule import PiecewiseConstant
 
 __all__ = [
     "RATES_DRIVER",
@@ -59,6 +61,7 @@ __all__ = [
     "driver_names",
     "driver_correlation",
     "calibrate_index",
+    "fit_index_volatility",
     "calibrate_inflation",
     "calibrate_credit_part",
     "schedule_json",
@@ -187,6 +190,48 @@ def driver_correlation(config: RunConfig, rates: HullWhiteParams | G2PlusPlusPar
 # ------------------------------------------------------------------------------- indices
 
 
+def fit_index_volatility(
+    path: Any,
+    name: str,
+    kind: str,
+    rows: list[EquityVolRow],
+    curve: DiscountCurve,
+    rates: HullWhiteParams | G2PlusPlusParams,
+    rho_rates: float | tuple[float, float],
+    level: float,
+    q: float,
+) -> tuple[PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
+    """A piecewise-constant volatility bootstrapped to the index's implied volatilities (one
+    bucket per quote, each repriced exactly in closed form under the rates model), its fit
+    report and the option instruments the market-consistency check reprices."""
+    if not rows:
+        raise MarketDataError(f"{path}: no implied volatilities for index {name!r}")
+    try:
+        report = calibrate_equity_volatility(
+            curve, rates, level=level, dividend_yield=q, correlation=rho_rates,
+            quotes=[EquityVolQuote(expiry=r.expiry, implied_vol=r.implied_vol, strike=r.strike) for r in rows],
+        )
+    except MarketDataError as exc:
+        raise CalibrationError(f"{path}: {exc}") from None
+    ends = np.asarray(report.bucket_ends, dtype=float)
+    vols = np.asarray(report.bucket_vols, dtype=float)
+    schedule = PiecewiseConstant(knots=(0.0, *ends[:-1].tolist()), values=tuple(vols.tolist()))
+    fit = {
+        "method": "piecewise-constant volatility, bootstrapped bucket by bucket to reprice each implied "
+        f"volatility exactly under {'G2++' if isinstance(rates, G2PlusPlusParams) else 'Hull-White'} rates (closed form)",
+        "bucket_ends": ends.tolist(),
+        "bucket_volatilities": vols.tolist(),
+        "max_abs_vol_error": report.max_abs_vol_error,
+        "rows": report.as_records(),
+    }
+    instruments = [
+        {"index": name, "column_kind": kind, "expiry": r.expiry, "strike": r.strike, "kind": "call",
+         "market_vol": r.market_vol, "market_price": r.market_price, "model_price": r.model_price}
+        for r in report.rows
+    ]
+    return schedule, fit, instruments
+
+
 def calibrate_index(
     config: RunConfig, section: IndexSection, curve: DiscountCurve, hw: HullWhiteParams | G2PlusPlusParams,
     rho_rates: float | tuple[float, float],
@@ -215,38 +260,12 @@ def calibrate_index(
         vol: float | PiecewiseConstant = section.volatility
         fit = {"method": "typed in"}
     else:
-        if not quotes:
-            raise MarketDataError(f"{vol_path}: no implied volatilities for index {section.name!r}")
-        try:
-            report = calibrate_equity_volatility(
-                curve, hw, level=level, dividend_yield=q, correlation=rho_rates,
-                quotes=[EquityVolQuote(expiry=r.expiry, implied_vol=r.implied_vol, strike=r.strike) for r in quotes],
-            )
-        except MarketDataError as exc:
-            raise CalibrationError(f"{vol_path}: {exc}") from None
-        ends = np.asarray(report.bucket_ends, dtype=float)
-        vols = np.asarray(report.bucket_vols, dtype=float)
-        vol = PiecewiseConstant(knots=(0.0, *ends[:-1].tolist()), values=tuple(vols.tolist()))
-        fit = {
-            "method": "piecewise-constant volatility bootstrapped to each implied volatility under "
-            f"{'G2++' if isinstance(hw, G2PlusPlusParams) else 'Hull-White'} rates",
-            "bucket_ends": ends.tolist(),
-            "bucket_volatilities": vols.tolist(),
-            "max_abs_vol_error": report.max_abs_vol_error,
-            "rows": report.as_records(),
-        }
-        instruments = [
-            {"index": section.name, "column_kind": section.kind, "expiry": r.expiry, "strike": r.strike,
-             "kind": "call", "market_vol": r.market_vol, "market_price": r.market_price, "model_price": r.model_price}
-            for r in report.rows
-        ]
+        assert vol_path is not None
+        vol, fit, instruments = fit_index_volatility(
+            vol_path, section.name, section.kind, quotes, curve, hw, rho_rates, level, q
+        )
     index = TotalReturnIndex(name=section.name, kind=section.kind, level=level, income_yield=q, volatility=vol)
-    sched = as_schedule(vol)
-    lam: float | PiecewiseConstant
-    if sched.is_constant:
-        lam = section.risk_premium / sched.values[0]
-    else:
-        lam = PiecewiseConstant(knots=sched.knots, values=tuple(section.risk_premium / v for v in sched.values))
+    lam = equity_price_of_risk(section.risk_premium, vol)
     fit["risk_premium"] = section.risk_premium
     fit["correlation_with_rates"] = list(rho_rates) if isinstance(rho_rates, tuple) else rho_rates
     return index, lam, fit, instruments

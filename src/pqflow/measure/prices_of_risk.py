@@ -109,11 +109,17 @@ def g2_driver_weights(params: G2PlusPlusParams) -> tuple[float, float]:
     return (s + rho * e) / s_r, (rho * s + e) / s_r
 
 
-def equity_price_of_risk(equity_risk_premium: float, volatility: float) -> float:
-    """``lambda_S = ERP / sigma_S``."""
-    if not volatility > 0.0:
-        raise ValueError("equity volatility must be positive")
-    return equity_risk_premium / volatility
+def equity_price_of_risk(
+    equity_risk_premium: float, volatility: float | PiecewiseConstant
+) -> float | PiecewiseConstant:
+    """``lambda_S = ERP / sigma_S`` (piece by piece for a piecewise-constant volatility), so that
+    the expected excess return of a total-return index over cash is its risk premium."""
+    sched = as_schedule(volatility)
+    if not all(v > 0.0 for v in sched.values):
+        raise ValueError("index volatility must be positive")
+    if sched.is_constant:
+        return equity_risk_premium / sched.values[0]
+    return PiecewiseConstant(knots=sched.knots, values=tuple(equity_risk_premium / v for v in sched.values))
 
 
 def _ou_mean(a: float, s: float, rates_price_of_risk: PiecewiseConstant, t: np.ndarray | float) -> np.ndarray:
