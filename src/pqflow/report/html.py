@@ -197,7 +197,6 @@ def _identity(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any
             ("files in manifest", len(manifest.get("files", []))),
         ]
     pairs.append(("calibration inputs sha256", cal.get("inputs_sha256", "–")))
-    pairs.append(("run directory", str(run_dir)))
     return _kv(pairs)
 
 
