@@ -14,7 +14,9 @@ correlation, inflation and credit; and their form in ``calibration.json``.
   year to the end of the nominal curve; volatilities typed in, or fitted to year-on-year caps
   and floors in closed form (:func:`pqflow.calibration.inflation.calibrate_jarrow_yildirim`).
 * **Credit**: per rating a hazard curve bootstrapped from the spreads and the CIR++ parameters
-  (:mod:`pqflow.calibration.credit`).
+  (:mod:`pqflow.calibration.credit`); the ratings' drivers (``credit_<rating>``) may be
+  correlated with each other through the same matrix, not (in this version) with the market
+  drivers.
 """
 
 from __future__ import annotations
@@ -64,6 +66,8 @@ __all__ = [
     "fit_index_volatility",
     "calibrate_inflation",
     "calibrate_credit_part",
+    "credit_driver",
+    "credit_correlation",
     "schedule_json",
     "load_schedule",
     "index_to_json",
@@ -123,14 +127,13 @@ def driver_names(config: RunConfig) -> tuple[str, ...]:
     return tuple(out)
 
 
-def driver_correlation(config: RunConfig, rates: HullWhiteParams | G2PlusPlusParams | None = None) -> tuple[DriverCorrelation, dict[str, Any]]:
-    """The correlation of every configured driver, from its one source, checked. Under G2++
-    the ``(rates_x, rates_y)`` entry is the model's ``rho`` (typed in or fitted to swaptions),
-    whatever the matrix says."""
-    needed = driver_names(config)
-    if config.equity.correlation_with_rates is not None:
-        rho = config.equity.correlation_with_rates
-        return DriverCorrelation(names=needed, matrix=np.array([[1.0, rho], [rho, 1.0]])), {"method": "typed in"}
+def credit_driver(rating: str) -> str:
+    """Name of a rating's intensity driver in a correlation matrix: ``credit_{rating}``."""
+    return f"credit_{rating}"
+
+
+def _checked_matrix(config: RunConfig) -> tuple[tuple[str, ...], np.ndarray, str, dict[str, Any]]:
+    """The whole matrix of the configured source (typed or file), checked or repaired."""
     if config.correlations is not None:
         names = tuple(config.correlations.drivers)
         matrix = np.array(config.correlations.matrix, dtype=float)
@@ -144,13 +147,6 @@ def driver_correlation(config: RunConfig, rates: HullWhiteParams | G2PlusPlusPar
         data = read_correlation_matrix(path)
         names, matrix, where = data.names, data.matrix, str(path)
         fit = {"method": "from file", "drivers": list(names), "repaired": False}
-    missing = [n for n in needed if n not in names]
-    if missing:
-        raise MarketDataError(
-            f"{where}: driver(s) {', '.join(repr(m) for m in missing)} not in the matrix (drivers: "
-            f"{', '.join(names)}); name the short-rate driver {RATES_DRIVER!r}, each index by its "
-            f"name and, with [inflation], {REAL_RATE_DRIVER!r} and {INFLATION_DRIVER!r}"
-        )
     try:
         check_correlation_matrix(matrix, names=names)
     except MarketDataError as exc:
@@ -168,6 +164,25 @@ def driver_correlation(config: RunConfig, rates: HullWhiteParams | G2PlusPlusPar
             frobenius_distance=repair.frobenius_distance,
         )
         matrix = repair.matrix
+    return tuple(names), np.asarray(matrix, dtype=float), where, fit
+
+
+def driver_correlation(config: RunConfig, rates: HullWhiteParams | G2PlusPlusParams | None = None) -> tuple[DriverCorrelation, dict[str, Any]]:
+    """The correlation of every configured driver, from its one source, checked. Under G2++
+    the ``(rates_x, rates_y)`` entry is the model's ``rho`` (typed in or fitted to swaptions),
+    whatever the matrix says."""
+    needed = driver_names(config)
+    if config.equity.correlation_with_rates is not None:
+        rho = config.equity.correlation_with_rates
+        return DriverCorrelation(names=needed, matrix=np.array([[1.0, rho], [rho, 1.0]])), {"method": "typed in"}
+    names, matrix, where, fit = _checked_matrix(config)
+    missing = [n for n in needed if n not in names]
+    if missing:
+        raise MarketDataError(
+            f"{where}: driver(s) {', '.join(repr(m) for m in missing)} not in the matrix (drivers: "
+            f"{', '.join(names)}); name the short-rate driver {RATES_DRIVER!r}, each index by its "
+            f"name and, with [inflation], {REAL_RATE_DRIVER!r} and {INFLATION_DRIVER!r}"
+        )
     pick = [names.index(n) for n in needed]
     sub = np.array(matrix[np.ix_(pick, pick)], dtype=float)
     sub = 0.5 * (sub + sub.T)
@@ -185,6 +200,42 @@ def driver_correlation(config: RunConfig, rates: HullWhiteParams | G2PlusPlusPar
     fit["correlation_with_rates"] = float(sub[0, n_rates]) if n_rates == 1 else sub[:n_rates, n_rates].tolist()
     fit["used_drivers"] = list(needed)
     return DriverCorrelation(names=needed, matrix=sub), fit
+
+
+def credit_correlation(config: RunConfig) -> tuple[np.ndarray | None, dict[str, Any]]:
+    """Correlation of the ratings' intensity drivers (``credit_{rating}`` in the matrix), or
+    ``None`` (independent ratings) when the matrix names none of them. Credit is independent of
+    the market drivers in this version: non-zero entries between a credit driver and a
+    configured market driver are refused rather than ignored."""
+    sec = config.credit
+    assert sec is not None
+    independent: dict[str, Any] = {"method": "independent ratings (no credit_<rating> drivers in the matrix)"}
+    if config.correlations is None and config.market_file("correlations") is None:
+        return None, independent
+    names, matrix, where, _ = _checked_matrix(config)
+    wanted = [credit_driver(r.name) for r in sec.ratings]
+    present = [w for w in wanted if w in names]
+    if not present:
+        return None, independent
+    missing = [w for w in wanted if w not in names]
+    if missing:
+        raise MarketDataError(
+            f"{where}: the matrix names {', '.join(present)} but not {', '.join(missing)}; name every "
+            "rating's driver (credit_<rating>) or none"
+        )
+    idx = [names.index(w) for w in wanted]
+    market = [names.index(n) for n in driver_names(config) if n in names]
+    cross = matrix[np.ix_(idx, market)]
+    if np.any(np.abs(cross) > 1e-12):
+        i, j = np.unravel_index(int(np.argmax(np.abs(cross))), cross.shape)
+        raise MarketDataError(
+            f"{where}: {wanted[i]} correlates with {names[market[j]]} ({cross[i, j]:g}); credit intensities "
+            "are independent of rates, indices and inflation in this version: set those entries to 0"
+        )
+    sub = np.array(matrix[np.ix_(idx, idx)], dtype=float)
+    if len(idx) > 1 and np.linalg.eigvalsh(sub)[0] <= 1e-10:
+        raise MarketDataError(f"{where}: the credit drivers' correlations are singular; the density needs them positive definite")
+    return sub, {"method": "from the correlation matrix (credit_<rating> drivers)", "drivers": wanted, "matrix": sub.tolist()}
 
 
 # ------------------------------------------------------------------------------- indices
@@ -459,12 +510,14 @@ def calibrate_credit_part(config: RunConfig) -> tuple[CirCreditModel, dict[str, 
             "market_consistent_long_run_mean": rating.cir.long_run_mean,
             "rows": [dict(vars(row)) for row in rep.rows],
         })
-    model = CirCreditModel(ratings=tuple(ratings), bond_maturities=tuple(sorted(sec.bond_maturities)))
+    corr, corr_fit = credit_correlation(config)
+    model = CirCreditModel(ratings=tuple(ratings), bond_maturities=tuple(sorted(sec.bond_maturities)), correlation=corr)
     fit = {
         "method": "hazard bootstrapped from zero-coupon spreads (recovery of market value); CIR++ shift "
         "reprices every spread exactly; CIR parameters given or loosely fitted",
         "ratings": reports,
         "spread_curves_not_used": unused,
+        "correlation": corr_fit,
         "substeps_per_year": sec.substeps_per_year,
     }
     return model, fit
@@ -474,6 +527,7 @@ def credit_to_json(model: CirCreditModel, substeps_per_year: int) -> dict[str, A
     return {
         "bond_maturities": list(model.bond_maturities),
         "substeps_per_year": substeps_per_year,
+        "correlation": None if model.correlation is None else np.asarray(model.correlation).tolist(),
         "ratings": [
             {
                 "name": r.name,
@@ -497,5 +551,7 @@ def credit_from_json(data: dict[str, Any]) -> tuple[CirCreditModel, int]:
         )
         for r in data["ratings"]
     )
-    model = CirCreditModel(ratings=ratings, bond_maturities=tuple(float(m) for m in data["bond_maturities"]))
+    corr = data.get("correlation")
+    model = CirCreditModel(ratings=ratings, bond_maturities=tuple(float(m) for m in data["bond_maturities"]),
+                           correlation=None if corr is None else np.array(corr, dtype=float))
     return model, int(data["substeps_per_year"])
