@@ -35,6 +35,9 @@ def test_existing_directory_without_overwrite_is_refused(small_config, tmp_path)
 def test_check_command_and_caution_in_help(small_config):
     result = runner.invoke(app, ["check", str(small_config())])
     assert result.exit_code == 0, result.output
+    assert "columns (" in result.output and "zcb_10y" in result.output
+    result = runner.invoke(app, ["check", str(small_config()), "--json"])
+    assert result.exit_code == 0, result.output
     assert "market_prices_of_risk" in result.output
     help_text = runner.invoke(app, ["--help"]).output
     assert "qualified" in help_text.replace("\n", " ")

@@ -191,18 +191,40 @@ def run(
 
 
 @app.command()
-def check(config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")]) -> None:
-    """Validate a configuration and show the parameters it gives, without simulating."""
+def check(
+    config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
+    as_json: Annotated[bool, typer.Option("--json", help="Print every parameter as JSON instead of the summary.")] = False,
+) -> None:
+    """Validate a configuration and show the parameters and columns it gives, without simulating."""
     from pqflow.calibration.assemble import assemble_calibration
     from pqflow.config.loader import load_config
+    from pqflow.jobs.steps import plan_run, written_columns
 
     try:
-        cal = assemble_calibration(load_config(config))
+        cfg = load_config(config)
+        cal = assemble_calibration(cfg)
+        plan = plan_run(cfg)
+        columns = written_columns(cal, plan)
     except PqflowError as exc:
         _fail(exc)
     import json
 
-    console.print_json(json.dumps(cal.to_json()["parameters"]))
+    payload = cal.to_json()
+    if as_json:
+        console.print_json(json.dumps(payload["parameters"]))
+    else:
+        _print_fit(payload)
+        drivers = cal.driver_correlation.names
+        console.print(f"drivers ({len(drivers)}): {', '.join(drivers)}", highlight=False)
+        for measure in ("real_world", "market_consistent"):
+            times, batches = plan.times_for(measure), plan.batches_for(measure)
+            console.print(
+                f"{measure}: {sum(b.size for b in batches):,} scenarios in {len(batches)} parts, "
+                f"{times.size - 1} steps to {times[-1]:g} years",
+                highlight=False,
+            )
+        console.print(f"columns ({len(columns) + 1}, with the density): {', '.join(columns)}", highlight=False)
+        console.print("(pqflow check --json prints every parameter)", style="dim")
     console.print(f"{config}: valid", style="green")
 
 
