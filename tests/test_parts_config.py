@@ -427,3 +427,16 @@ def norm_ppf(p: float) -> float:
     from scipy.stats import norm
 
     return float(norm.ppf(p))
+
+
+def test_a_stored_calibration_must_be_for_the_configured_rates_model(tmp_path, full):
+    from pqflow.calibration.assemble import check_calibration_fits
+
+    cal = assemble_calibration(_load(tmp_path, full))
+    data = copy.deepcopy(full)
+    del data["hull_white"]
+    data.update(rates={"model": "g2pp"}, g2pp={"a": 0.6, "sigma": 0.006, "b": 0.04, "eta": 0.008, "rho": -0.7},
+                correlations={"drivers": G2_DRIVERS, "matrix": _g2_matrix()})
+    with pytest.raises(ConfigError, match="calibration is for rates model 'hull_white' but the configuration names 'g2pp'"):
+        check_calibration_fits(cal, _load(tmp_path, data), source="cal.json")
+    assert assemble_calibration(_load(tmp_path, data)).inputs_hash != cal.inputs_hash

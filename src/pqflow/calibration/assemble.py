@@ -316,6 +316,11 @@ def check_calibration_fits(calibration: Calibration, config: RunConfig, *, sourc
             f"{source}: calibration is for equity index {calibration.equity.name!r} but the "
             f"configuration names {config.equity.name!r}"
         )
+    if calibration.rates_model != config.rates.model:
+        raise ConfigError(
+            f"{source}: calibration is for rates model {calibration.rates_model!r} but the configuration "
+            f"names {config.rates.model!r}"
+        )
     have = [i.name for i in calibration.indices]
     want = [i.name for i in config.indices]
     if have != want:
@@ -569,8 +574,8 @@ def _real_world(
 
 
 def _inputs(config: RunConfig) -> dict[str, Any]:
-    sections = ("curve", "hull_white", "equity", "real_world", "market_data", "curve_extrapolation", "calibration",
-                "correlations", "inflation", "credit")
+    sections = ("curve", "rates", "hull_white", "g2pp", "equity", "real_world", "market_data", "curve_extrapolation",
+                "calibration", "correlations", "inflation", "credit")
     inputs: dict[str, Any] = {}
     for name in sections:
         value = getattr(config, name)
