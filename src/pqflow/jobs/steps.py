@@ -198,7 +198,7 @@ def generate_part(
         {c: cols[c] for c in order},
         plan.times_for(measure),
         first_scenario=batch.first,
-        metadata=_part_metadata(calibration, plan, measure, batch, units),
+        metadata=_part_metadata(calibration, plan, measure, batch, {c: units[c] for c in order}),
     )
     path = write_part(table, Path(run_dir) / "scenarios" / measure / part_name(batch.index))
     return PartRecord(
