@@ -62,7 +62,7 @@ def test_hull_white_with_one_index_is_the_hull_white_equity_model():
     )
     econ = EconomyModel(
         curve=NOMINAL, rates=HW,
-        indices=(TotalReturnIndex(name="eq", kind="equity", level=100.0, income_yield=0.02, volatility=VOL),),
+        parts=(TotalReturnIndex(name="eq", kind="equity", level=100.0, income_yield=0.02, volatility=VOL),),
         correlation=np.array([[1.0, rho], [rho, 1.0]]),
         prices_of_risk={"rates": LAM_R, "eq": LAM_S}, bond_maturities=(1.0, 10.0),
     )
@@ -88,7 +88,7 @@ def test_g2pp_with_one_index_is_the_g2pp_equity_model():
     )
     econ = EconomyModel(
         curve=NOMINAL, rates=g2,
-        indices=(TotalReturnIndex(name="eq", kind="equity", level=50.0, income_yield=0.01, volatility=VOL),),
+        parts=(TotalReturnIndex(name="eq", kind="equity", level=50.0, income_yield=0.01, volatility=VOL),),
         correlation=np.array([[1.0, -0.6, rx], [-0.6, 1.0, ry], [rx, ry, 1.0]]),
         prices_of_risk={"rates_x": lx, "rates_y": ly, "eq": LAM_S}, bond_maturities=(2.0, 10.0),
     )
@@ -113,11 +113,11 @@ def test_hull_white_with_inflation_is_the_jarrow_yildirim_model():
         bond_maturities=(10.0,), real_bond_maturities=(5.0, 10.0), cpi_base=104.0,
     )
     econ = EconomyModel(
-        curve=NOMINAL, rates=HW, indices=(),
+        curve=NOMINAL, rates=HW,
+        parts=(InflationPart(real_curve=REAL, real=real, inflation_volatility=0.012, cpi_base=104.0,
+                             real_bond_maturities=(5.0, 10.0)),),
         correlation=np.array([[1.0, nr, ni], [nr, 1.0, ri], [ni, ri, 1.0]]),
         prices_of_risk={"rates": LAM_R, "real_rate": 0.15, "inflation": lam_i}, bond_maturities=(10.0,),
-        inflation=InflationPart(real_curve=REAL, real=real, inflation_volatility=0.012, cpi_base=104.0,
-                                real_bond_maturities=(5.0, 10.0)),
     )
     # state orders differ: economy (x, X, y, C), Jarrow-Yildirim (x, y, X, C)
     perm = [0, 2, 1, 3]
@@ -148,16 +148,16 @@ def _balance_sheet_model() -> EconomyModel:
     assert np.linalg.eigvalsh(corr)[0] > 0.1
     return EconomyModel(
         curve=NOMINAL, rates=HW,
-        indices=(
+        parts=(
             TotalReturnIndex(name="eq_home", kind="equity", level=100.0, income_yield=0.03, volatility=VOL),
             TotalReturnIndex(name="eq_world", kind="equity", level=80.0, income_yield=0.02, volatility=0.17),
             TotalReturnIndex(name="prop", kind="property", level=60.0, income_yield=0.045, volatility=0.10),
+            InflationPart(real_curve=REAL, real=HullWhiteParams(mean_reversion=0.1, volatility=0.006),
+                          inflation_volatility=0.012, real_bond_maturities=(10.0,)),
         ),
         correlation=corr,
         prices_of_risk={"rates": LAM_R, "eq_home": 0.2, "eq_world": 0.25, "prop": 0.3, "inflation": 0.1},
         bond_maturities=(5.0,),
-        inflation=InflationPart(real_curve=REAL, real=HullWhiteParams(mean_reversion=0.1, volatility=0.006),
-                                inflation_volatility=0.012, real_bond_maturities=(10.0,)),
     ), names
 
 
@@ -214,16 +214,20 @@ def test_several_indices_each_price_and_reweight_consistently():
 def test_bad_parts_are_refused():
     model, _ = _balance_sheet_model()
     with pytest.raises(ValueError, match="unknown drivers"):
-        EconomyModel(curve=NOMINAL, rates=HW, indices=model.indices, correlation=model.correlation,
-                     prices_of_risk={"nope": 0.1}, bond_maturities=(5.0,), inflation=model.inflation)
+        EconomyModel(curve=NOMINAL, rates=HW, parts=model.parts, correlation=model.correlation,
+                     prices_of_risk={"nope": 0.1}, bond_maturities=(5.0,))
     with pytest.raises(ValueError, match="6 x 6"):
-        EconomyModel(curve=NOMINAL, rates=HW, indices=model.indices, correlation=np.eye(5),
-                     prices_of_risk={}, bond_maturities=(5.0,), inflation=model.inflation)
+        EconomyModel(curve=NOMINAL, rates=HW, parts=model.parts, correlation=np.eye(5),
+                     prices_of_risk={}, bond_maturities=(5.0,))
     bad = model.correlation.copy()
     bad[1, 2] = bad[2, 1] = -0.99
     with pytest.raises(ValueError, match="positive definite"):
-        EconomyModel(curve=NOMINAL, rates=HW, indices=model.indices, correlation=bad,
-                     prices_of_risk={}, bond_maturities=(5.0,), inflation=model.inflation)
+        EconomyModel(curve=NOMINAL, rates=HW, parts=model.parts, correlation=bad,
+                     prices_of_risk={}, bond_maturities=(5.0,))
+    clash = TotalReturnIndex(name="inflation", kind="property", level=1.0, income_yield=0.0, volatility=0.1)
+    with pytest.raises(ValueError, match="repeated: \\['inflation'\\]"):
+        EconomyModel(curve=NOMINAL, rates=HW, parts=(*model.parts, clash), correlation=np.eye(7),
+                     prices_of_risk={}, bond_maturities=(5.0,))
 
 
 def test_whole_grid_laws_equal_the_laws_step_by_step():
@@ -235,3 +239,58 @@ def test_whole_grid_laws_equal_the_laws_step_by_step():
         one = model.step_law(times[k], times[k + 1])
         for name in ("transition", "drift", "chol", "real_world_shift"):
             _close(getattr(stacked, name)[k], getattr(one, name), rel=1e-13)
+
+
+def test_a_new_gaussian_part_plugs_in_without_touching_the_economy():
+    """A part written here, outside the package: an Ornstein-Uhlenbeck spread factor
+    ``dz = -k z dt + s dW_z`` with its own driver. The economy simulates it with the exact OU
+    transition (mean e^{-kD} z_0, variance s^2 (1 - e^{-2kD}) / (2k); Uhlenbeck and Ornstein
+    1930, common practice) and correlates it with the other drivers as configured."""
+    from dataclasses import dataclass
+
+    from pqflow.models.economy import GaussianPart
+    from pqflow.models.kernels import Exposure
+
+    @dataclass(frozen=True)
+    class SpreadFactor:
+        k: float = 0.7
+        s: float = 0.004
+        drivers: tuple = ("spread",)
+        state_names: tuple = ("z",)
+
+        def initial_state(self):
+            return np.array([0.002])
+
+        def exposures(self, integral):
+            return ((Exposure(driver="spread", kind="exp", rate=self.k, scale=self.s),),)
+
+        def step_rows(self, times, rates, correlation):
+            dt = np.diff(times)
+            return np.zeros((dt.size, 1, rates.b_rows.shape[1])), np.exp(-self.k * dt)[:, None, None], np.zeros((dt.size, 1))
+
+        def known_columns(self):
+            return ("spread_factor",)
+
+        def columns(self, times, states, wanted):
+            return {"spread_factor": states[:, :, 0].copy()} if "spread_factor" in wanted else {}
+
+        def column_units(self):
+            return {"spread_factor": "decimal"}
+
+    part = SpreadFactor()
+    assert isinstance(part, GaussianPart)
+    rho = 0.3
+    econ = EconomyModel(
+        curve=NOMINAL, rates=HW,
+        parts=(TotalReturnIndex(name="eq", kind="equity", level=1.0, income_yield=0.0, volatility=0.2), part),
+        correlation=np.array([[1.0, 0.0, 0.0], [0.0, 1.0, rho], [0.0, rho, 1.0]]),
+        prices_of_risk={}, bond_maturities=(5.0,),
+    )
+    law = econ.step_law(2.0, 3.0)
+    k, s = part.k, part.s
+    assert law.transition[3, 3] == pytest.approx(np.exp(-k))
+    cov = law.chol @ law.chol.T
+    assert cov[3, 3] == pytest.approx(s**2 * (1 - np.exp(-2 * k)) / (2 * k), rel=1e-12)
+    # covariance with the equity's own noise: rho s sigma int_0^1 e^{-k u} du
+    assert cov[3, 2] - cov[3, 1] == pytest.approx(rho * s * 0.2 * (1 - np.exp(-k)) / k, rel=1e-12)
+    assert "spread_factor" in econ.known_columns()

@@ -684,7 +684,7 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
     return EconomyModel(
         curve=calibration.curve,
         rates=calibration.rates,
-        indices=(core, *calibration.indices),
+        parts=(core, *calibration.indices, *((calibration.inflation,) if calibration.inflation is not None else ())),
         correlation=calibration.driver_correlation.matrix,
         prices_of_risk={
             **_rates_prices_of_risk(calibration.rates, calibration.prices_of_risk.rates),
@@ -692,5 +692,4 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
             **calibration.extra_prices_of_risk,
         },
         bond_maturities=tuple(bond_maturities),
-        inflation=calibration.inflation,
     )

@@ -31,14 +31,16 @@ with ``c = rho(real_rate, inflation) sigma_I sigma_r`` and ``int phi = ln P(0,t0
 :mod:`pqflow.models.hull_white_equity`, :mod:`pqflow.models.g2pp_equity` and
 :mod:`pqflow.models.jarrow_yildirim` (tested to rounding); those are checked against QuantLib.
 
-A new Gaussian part is a new set of states with their exposures, transition rows and drift;
-the engine, the density weights and the storage need no change.
+A new Gaussian part is a new file with a class satisfying :class:`GaussianPart` (its states,
+their exposures, transition rows, drift and columns; :mod:`pqflow.models.total_return` and
+:mod:`pqflow.models.inflation` are the examples): the engine, the density weights and the
+storage need no change.
 """
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass, field
+from typing import Callable, Protocol, runtime_checkable
 
 import numpy as np
 
@@ -46,11 +48,12 @@ from pqflow.market.curve import DiscountCurve
 from pqflow.models import g2pp, hull_white
 from pqflow.models.base import StepLaw, StepLaws
 from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.hull_white import HullWhiteParams, b_factor, phi2
+from pqflow.models.hull_white import HullWhiteParams, b_factor
 from pqflow.models.hull_white_equity import bond_column
-from pqflow.models.jarrow_yildirim import CPI_COLUMN, REAL_SHORT_RATE_COLUMN, real_bond_column
-from pqflow.models.kernels import Exposure, grid_moments, grid_pieces
+from pqflow.models.inflation import INFLATION_DRIVER, REAL_RATE_DRIVER, InflationPart
+from pqflow.models.kernels import Exposure, grid_moments
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
+from pqflow.models.total_return import INDEX_KINDS, TotalReturnIndex, index_column
 
 __all__ = [
     "INDEX_KINDS",
@@ -58,101 +61,93 @@ __all__ = [
     "REAL_RATE_DRIVER",
     "INFLATION_DRIVER",
     "index_column",
+    "RatesStep",
+    "GaussianPart",
     "TotalReturnIndex",
     "InflationPart",
     "EconomyModel",
 ]
 
-INDEX_KINDS = ("equity", "property")
 RATES_DRIVERS = {"hull_white": ("rates",), "g2pp": ("rates_x", "rates_y")}
-REAL_RATE_DRIVER = "real_rate"
-INFLATION_DRIVER = "inflation"
-_NAME = re.compile(r"^[a-z][a-z0-9_]*$")
-
-
-def index_column(kind: str, name: str) -> str:
-    """Column of a total-return index: ``equity_{name}`` or ``property_{name}``."""
-    if kind not in INDEX_KINDS:
-        raise ValueError(f"index kind must be one of {INDEX_KINDS}, not {kind!r}")
-    return f"{kind}_{name}"
 
 
 @dataclass(frozen=True, kw_only=True)
-class TotalReturnIndex:
-    """A total-return index (income reinvested): ``kind`` equity or property, ``level`` at time
-    0, ``income_yield`` (dividend or rental, continuous; used for options on the price index),
-    ``volatility`` (a number or piecewise constant). Its driver is named ``name``."""
+class RatesStep:
+    """What the rates give every other part over the ``K`` steps of a grid: ``b_rows``
+    ``(K, n_f)``, the loading ``B_f(D)`` of the time integral of the short rate on each rate
+    factor at the step's start; ``int_phi`` ``(K,)``, ``int_{t0}^{t1} phi``, the deterministic
+    part of that integral."""
 
-    name: str
-    kind: str
-    level: float
-    income_yield: float
-    volatility: float | PiecewiseConstant
+    b_rows: np.ndarray
+    int_phi: np.ndarray
 
-    def __post_init__(self) -> None:
-        if not _NAME.match(self.name) or self.name in (*RATES_DRIVERS["hull_white"], *RATES_DRIVERS["g2pp"], REAL_RATE_DRIVER, INFLATION_DRIVER):
-            raise ValueError(f"index name {self.name!r} must be lower-case letters, digits, _ and not a rates/inflation driver name")
-        if self.kind not in INDEX_KINDS:
-            raise ValueError(f"index kind must be one of {INDEX_KINDS}, not {self.kind!r}")
-        if not self.level > 0.0:
-            raise ValueError(f"index {self.name}: level must be positive")
-        if not all(v > 0.0 for v in self.vol_schedule.values):
-            raise ValueError(f"index {self.name}: volatility must be positive")
 
-    @property
-    def vol_schedule(self) -> PiecewiseConstant:
-        return as_schedule(self.volatility)
+@runtime_checkable
+class GaussianPart(Protocol):
+    """A block of states beside the rates, linear-Gaussian over each step.
+
+    Its noise loads on the drivers through :class:`pqflow.models.kernels.Exposure` s (plus, for
+    anything priced in currency, the loadings ``integral`` of the short rate's time integral);
+    its transition couples its states to the rate factors and to themselves. Every array is
+    stacked over the ``K`` steps of ``times``.
+    """
 
     @property
-    def column(self) -> str:
-        return index_column(self.kind, self.name)
+    def drivers(self) -> tuple[str, ...]: ...
 
+    @property
+    def state_names(self) -> tuple[str, ...]: ...
 
-@dataclass(frozen=True, kw_only=True)
-class InflationPart:
-    """Jarrow-Yildirim real rate and CPI: ``real_curve`` today's real discount curve (CPI units),
-    ``real`` the real rate's Hull-White ``(a_r, sigma_r)``, ``inflation_volatility`` sigma_I,
-    ``cpi_base`` the index at time 0 and the real bonds to publish."""
+    def initial_state(self) -> np.ndarray: ...
 
-    real_curve: DiscountCurve
-    real: HullWhiteParams
-    inflation_volatility: float
-    cpi_base: float = 1.0
-    real_bond_maturities: tuple[float, ...] = ()
+    def exposures(self, integral: tuple[Exposure, ...]) -> tuple[tuple[Exposure, ...], ...]:
+        """One row of loadings per state."""
+        ...
 
-    def __post_init__(self) -> None:
-        if not self.inflation_volatility > 0.0:
-            raise ValueError("inflation volatility must be positive")
-        if not self.cpi_base > 0.0:
-            raise ValueError("cpi_base must be positive")
-        if any(not m > 0.0 for m in self.real_bond_maturities):
-            raise ValueError("real bond maturities must be positive")
+    def step_rows(
+        self, times: np.ndarray, rates: RatesStep, correlation: Callable[[str, str], float]
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``(to_factors (K, m, n_f), own (K, m, m), drift (K, m))`` for its ``m`` states:
+        ``s_1 = to_factors f_0 + own s_0 + drift + noise``."""
+        ...
+
+    def known_columns(self) -> tuple[str, ...]: ...
+
+    def columns(self, times: np.ndarray, states: np.ndarray, wanted: tuple[str, ...]) -> dict[str, np.ndarray]:
+        """Its output columns among ``wanted`` from its states ``(n_paths, n_times, m)``."""
+        ...
+
+    def column_units(self) -> dict[str, str]: ...
 
 
 @dataclass(frozen=True, kw_only=True)
 class EconomyModel:
-    """Rates (Hull-White or G2++), total-return indices and optional inflation, correlated.
+    """Rates (Hull-White or G2++) and any Gaussian parts beside them (total-return indices,
+    inflation, ...), correlated through one matrix; a ``ScenarioModel``.
 
-    correlation: ``(n, n)`` over ``drivers`` (see :meth:`driver_names`; for G2++ the
+    parts: the parts in state order after the rates. correlation: ``(n, n)`` over
+    :attr:`driver_names` (the rates' drivers, then each part's; for G2++ the
     ``(rates_x, rates_y)`` entry must equal ``rates.rho``). prices_of_risk: per driver name, a
     number or a schedule (missing: zero).
     """
 
     curve: DiscountCurve
     rates: HullWhiteParams | G2PlusPlusParams
-    indices: tuple[TotalReturnIndex, ...]
+    parts: tuple[GaussianPart, ...]
     correlation: np.ndarray
     prices_of_risk: dict[str, float | PiecewiseConstant]
     bond_maturities: tuple[float, ...]
-    inflation: InflationPart | None = None
     _exposures: tuple[tuple[Exposure, ...], ...] = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "indices", tuple(self.indices))
-        names = [i.name for i in self.indices]
-        if len(set(names)) != len(names):
-            raise ValueError(f"index names must be unique, got {names}")
+        object.__setattr__(self, "parts", tuple(self.parts))
+        for part in self.parts:
+            if not isinstance(part, GaussianPart):
+                raise TypeError(f"{type(part).__name__} is not a GaussianPart")
         drivers = self.driver_names
+        repeated = sorted({d for d in drivers if drivers.count(d) > 1})
+        if repeated:
+            raise ValueError(f"driver names must be unique across the parts; repeated: {repeated}")
         corr = np.array(self.correlation, dtype=float)
         if corr.shape != (len(drivers), len(drivers)):
             raise ValueError(f"correlation must be {len(drivers)} x {len(drivers)} over drivers {drivers}")
@@ -177,11 +172,16 @@ class EconomyModel:
         return "g2pp" if isinstance(self.rates, G2PlusPlusParams) else "hull_white"
 
     @property
+    def indices(self) -> tuple[TotalReturnIndex, ...]:
+        return tuple(p for p in self.parts if isinstance(p, TotalReturnIndex))
+
+    @property
+    def inflation(self) -> InflationPart | None:
+        return next((p for p in self.parts if isinstance(p, InflationPart)), None)
+
+    @property
     def driver_names(self) -> tuple[str, ...]:
-        out = [*RATES_DRIVERS[self.rates_model], *(i.name for i in self.indices)]
-        if self.inflation is not None:
-            out += [REAL_RATE_DRIVER, INFLATION_DRIVER]
-        return tuple(out)
+        return (*RATES_DRIVERS[self.rates_model], *(d for p in self.parts for d in p.drivers))
 
     def _factor_rates(self) -> tuple[tuple[float, float, str], ...]:
         """(mean reversion, volatility, driver) of each rate factor."""
@@ -191,36 +191,34 @@ class EconomyModel:
         return ((r.mean_reversion, r.volatility, "rates"),)
 
     @property
+    def _n_rates_states(self) -> int:
+        return len(self._factor_rates()) + 1
+
+    def _part_slices(self) -> list[slice]:
+        out, start = [], self._n_rates_states
+        for part in self.parts:
+            m = len(part.state_names)
+            out.append(slice(start, start + m))
+            start += m
+        return out
+
+    @property
     def state_names(self) -> tuple[str, ...]:
         factors = ("x",) if self.rates_model == "hull_white" else ("x", "y")
-        out = [*factors, "integral_x", *(f"log_{i.column}" for i in self.indices)]
-        if self.inflation is not None:
-            out += ["x_real", "log_cpi"]
-        return tuple(out)
+        return (*factors, "integral_x", *(n for p in self.parts for n in p.state_names))
 
     def _build_exposures(self) -> tuple[tuple[Exposure, ...], ...]:
         factors = self._factor_rates()
         integral = tuple(Exposure(driver=d, kind="b", rate=k, scale=s) for k, s, d in factors)
         rows: list[tuple[Exposure, ...]] = [(Exposure(driver=d, kind="exp", rate=k, scale=s),) for k, s, d in factors]
         rows.append(integral)
-        for idx in self.indices:
-            rows.append((*integral, Exposure(driver=idx.name, kind="one", scale=idx.vol_schedule)))
-        if self.inflation is not None:
-            ar, sr = self.inflation.real.mean_reversion, self.inflation.real.volatility
-            rows.append((Exposure(driver=REAL_RATE_DRIVER, kind="exp", rate=ar, scale=sr),))
-            rows.append((
-                *integral,
-                Exposure(driver=REAL_RATE_DRIVER, kind="b", rate=ar, scale=-sr),
-                Exposure(driver=INFLATION_DRIVER, kind="one", scale=self.inflation.inflation_volatility),
-            ))
+        for part in self.parts:
+            rows.extend(part.exposures(integral))
         return tuple(rows)
 
     def initial_state(self) -> np.ndarray:
-        n_f = len(self._factor_rates())
-        out = [0.0] * n_f + [0.0] + [float(np.log(i.level)) for i in self.indices]
-        if self.inflation is not None:
-            out += [0.0, float(np.log(self.inflation.cpi_base))]
-        return np.array(out)
+        rates = [0.0] * self._n_rates_states
+        return np.concatenate([np.array(rates), *(p.initial_state() for p in self.parts)])
 
     # ---------------------------------------------------------------- dynamics
 
@@ -228,6 +226,10 @@ class EconomyModel:
         if isinstance(self.rates, G2PlusPlusParams):
             return np.asarray(g2pp.integrated_variance(self.rates, u), dtype=float)
         return np.asarray(hull_white.integrated_variance(self.rates, u), dtype=float)
+
+    def _pair(self, a: str, b: str) -> float:
+        names = self.driver_names
+        return float(self.correlation[names.index(a), names.index(b)])
 
     def step_covariance(self, t0: float, t1: float) -> np.ndarray:
         cov, _ = grid_moments(np.array([t0, t1]), self._exposures, self.correlation, self.driver_names, self.prices_of_risk)
@@ -250,36 +252,22 @@ class EconomyModel:
         factors = self._factor_rates()
         n_f = len(factors)
         d = len(self._exposures)
-        transition = np.tile(np.eye(d), (n_steps, 1, 1))
+        transition = np.zeros((n_steps, d, d))
         drift = np.zeros((n_steps, d))
         b_rows = np.stack([b_factor(k, dt) for k, _, _ in factors], axis=1)  # (K, n_f)
         for f, (k, _, _) in enumerate(factors):
             transition[:, f, f] = np.exp(-k * dt)
+        transition[:, n_f, :n_f] = b_rows
+        transition[:, n_f, n_f] = 1.0
         int_phi = np.log(self.curve.discount(t0) / self.curve.discount(t1)) + 0.5 * (
             self._integrated_variance(t1) - self._integrated_variance(t0)
         )
-        transition[:, n_f, :n_f] = b_rows
-        for j, idx in enumerate(self.indices):
-            row = n_f + 1 + j
-            transition[:, row, :n_f] = b_rows
-            pieces = grid_pieces(times, idx.vol_schedule)
-            half_var = pieces.per_step(0.5 * pieces.values(idx.vol_schedule) ** 2 * pieces.length, n_steps)
-            drift[:, row] = int_phi - half_var
-        if self.inflation is not None:
-            inf = self.inflation
-            y_row, c_row = d - 2, d - 1
-            ar, sr, si = inf.real.mean_reversion, inf.real.volatility, inf.inflation_volatility
-            names = self.driver_names
-            c = self.correlation[names.index(REAL_RATE_DRIVER), names.index(INFLATION_DRIVER)] * si * sr
-            br = b_factor(ar, dt)
-            transition[:, y_row, y_row] = np.exp(-ar * dt)
-            drift[:, y_row] = -c * br
-            transition[:, c_row, :n_f] = b_rows
-            transition[:, c_row, y_row] = -br
-            int_alpha_r = np.log(inf.real_curve.discount(t0) / inf.real_curve.discount(t1)) + 0.5 * (
-                hull_white.integrated_variance(inf.real, t1) - hull_white.integrated_variance(inf.real, t0)
-            )
-            drift[:, c_row] = int_phi - int_alpha_r - 0.5 * si**2 * dt + c * phi2(ar, dt)
+        rates_step = RatesStep(b_rows=b_rows, int_phi=int_phi)
+        for part, rows in zip(self.parts, self._part_slices()):
+            to_factors, own, part_drift = part.step_rows(times, rates_step, self._pair)
+            transition[:, rows, :n_f] = to_factors
+            transition[:, rows, rows] = own
+            drift[:, rows] = part_drift
         try:
             chol = np.linalg.cholesky(cov)
         except np.linalg.LinAlgError:
@@ -293,9 +281,8 @@ class EconomyModel:
 
     def known_columns(self) -> tuple[str, ...]:
         out = ["short_rate", "cash_account", *(bond_column(m) for m in self.bond_maturities)]
-        out += [i.column for i in self.indices]
-        if self.inflation is not None:
-            out += [CPI_COLUMN, REAL_SHORT_RATE_COLUMN, *(real_bond_column(m) for m in self.inflation.real_bond_maturities)]
+        for part in self.parts:
+            out += part.known_columns()
         return tuple(out)
 
     def _bond_exponents(self, times: np.ndarray, maturities: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -344,23 +331,8 @@ class EconomyModel:
             np.exp(prices, out=prices)
             for i, (name, _) in enumerate(chosen):
                 out[name] = prices[i]
-        for j, idx in enumerate(self.indices):
-            if idx.column in wanted:
-                out[idx.column] = np.exp(states[:, :, n_f + 1 + j])
-        if self.inflation is not None:
-            inf = self.inflation
-            y = states[:, :, -2]
-            if CPI_COLUMN in wanted:
-                out[CPI_COLUMN] = np.exp(states[:, :, -1])
-            if REAL_SHORT_RATE_COLUMN in wanted:
-                out[REAL_SHORT_RATE_COLUMN] = y + hull_white.alpha(inf.real_curve, inf.real, times)[None, :]
-            real = [(real_bond_column(m), m) for m in inf.real_bond_maturities if real_bond_column(m) in wanted]
-            if real:
-                mats = np.array([m for _, m in real])
-                a_factor = hull_white.zcb_price(inf.real_curve, inf.real, times[None, :], mats[:, None], 0.0)
-                b = b_factor(inf.real.mean_reversion, mats)
-                for i, (name, _) in enumerate(real):
-                    out[name] = np.exp(-b[i] * y) * a_factor[i][None, :]
+        for part, rows in zip(self.parts, self._part_slices()):
+            out.update(part.columns(times, states[:, :, rows], wanted))
         return {c: out[c] for c in wanted}
 
     def column_units(self) -> dict[str, str]:
@@ -370,15 +342,6 @@ class EconomyModel:
         }
         for m in self.bond_maturities:
             units[bond_column(m)] = f"price of a zero-coupon bond paying 1 at time + {m:g} years"
-        for idx in self.indices:
-            income = "dividends" if idx.kind == "equity" else "rental income"
-            units[idx.column] = f"{idx.kind} total-return index level ({income} reinvested)"
-        if self.inflation is not None:
-            units[CPI_COLUMN] = f"consumer price index level ({self.inflation.cpi_base:g} at time 0)"
-            units[REAL_SHORT_RATE_COLUMN] = "real, per year, continuously compounded"
-            for m in self.inflation.real_bond_maturities:
-                units[real_bond_column(m)] = (
-                    f"price in index units of a real zero-coupon bond paying cpi(time + {m:g} years) "
-                    "currency units then; its currency price is cpi times this value"
-                )
+        for part in self.parts:
+            units.update(part.column_units())
         return units
