@@ -64,7 +64,7 @@ def make_config(path: Path, **simulation: Any) -> Path:
     text = DEMO.read_text(encoding="utf-8")
     # drop every table of the further parts, and their market-data files
     text = re.sub(r"^\[\[?(indices|inflation|credit|credit\.ratings)\]\]?\n.*?(?=^\[|\Z)", "", text, flags=re.S | re.M)
-    text = re.sub(r"^(inflation_swaps|credit_spreads)\s*=.*\n", "", text, flags=re.M)
+    text = re.sub(r"^(inflation_swaps|inflation_caps|credit_spreads)\s*=.*\n", "", text, flags=re.M)
     # market-data paths are relative to the configuration file: make them absolute
     text = re.sub(r'"(market_data/[^"]+)"', lambda m: json.dumps(str(DEMO.parent / m.group(1))), text)
 

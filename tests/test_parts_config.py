@@ -440,3 +440,19 @@ def test_a_stored_calibration_must_be_for_the_configured_rates_model(tmp_path, f
     with pytest.raises(ConfigError, match="calibration is for rates model 'hull_white' but the configuration names 'g2pp'"):
         check_calibration_fits(cal, _load(tmp_path, data), source="cal.json")
     assert assemble_calibration(_load(tmp_path, data)).inputs_hash != cal.inputs_hash
+
+
+def test_the_benchmark_configuration_is_the_standard_two_driver_model(tmp_path):
+    """make bench measures the issue's standard model (Hull-White + one equity) on the demo's
+    market data; the demo's further parts must be cut out cleanly (common practice: benchmark
+    what the target names)."""
+    import importlib.util
+
+    from conftest import REPO
+
+    spec = importlib.util.spec_from_file_location("bench_run", REPO / "benchmarks" / "run.py")
+    bench = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(bench)
+    cfg = load_config(bench.make_config(tmp_path / "b.toml", scenarios=1000))
+    assert cfg.indices == [] and cfg.inflation is None and cfg.credit is None
+    assert cfg.simulation.scenarios == 1000
