@@ -301,8 +301,8 @@ def monitored(cmd: list[str], *, env: dict[str, str] | None = None) -> dict[str,
 
 
 def quarter_child(runner: str, workdir: str) -> None:
-    """A standard quarter through the flow's tasks; one grid per set (the configuration has one
-    simulation section, so the two sets come from two configurations sharing one calibration)."""
+    """A standard quarter through the flow's tasks: one configuration, one calibration, each set
+    on its own grid (``[simulation.market_consistent]``)."""
     import uuid
 
     import pipeline  # noqa: F401  (quiet Prefect defaults, set before Prefect is imported)
@@ -315,22 +315,23 @@ def quarter_child(runner: str, workdir: str) -> None:
     from pqflow.jobs.steps import plan_run
 
     work = Path(workdir)
-    rw = load_config(make_config(work / "rw.toml", scenarios=10_000, batch_size=1000, horizon_years=50, steps_per_year=12))
-    mc = load_config(make_config(work / "mc.toml", scenarios=10_000, batch_size=2500, horizon_years=60, steps_per_year=1))
-    plans = {"real_world": plan_run(rw), "market_consistent": plan_run(mc)}
+    path = make_config(work / "quarter.toml", scenarios=10_000, batch_size=1000, horizon_years=50, steps_per_year=12)
+    with path.open("a", encoding="utf-8") as fh:  # the market-consistent set's own grid
+        fh.write("\n[simulation.market_consistent]\nhorizon_years = 60\nsteps_per_year = 1\n")
+    cfg = load_config(path)
+    plan = plan_run(cfg)
     marks: dict[str, float] = {}
 
     @flow(name="standard-quarter-benchmark")
     def standard_quarter(staging: str) -> dict[str, Any]:
-        calibration = calibrate_task(rw, staging)
-        tasks = [(m, b) for m in ("real_world", "market_consistent") for b in plans[m].batches]
+        calibration = calibrate_task(cfg, staging)
         marks["generation_start"] = time.time()
-        futures = [generate_part_task.submit(calibration, plans[m], m, b, staging) for m, b in tasks]
+        futures = [generate_part_task.submit(calibration, plan, m, b, staging) for m, b in plan.tasks()]
         parts = [f.result() for f in as_completed(futures)]
         marks["generation_end"] = time.time()
-        summary = validate_task(staging, rw)
+        summary = validate_task(staging, cfg)
         marks["validation_end"] = time.time()
-        manifest_task(staging, rw, plans["real_world"], parts, uuid.uuid4().hex)
+        manifest_task(staging, cfg, plan, parts, uuid.uuid4().hex)
         return {"verdict": summary["verdict"], "parts": len(parts)}
 
     staging = work / f"quarter-{runner}"
