@@ -438,7 +438,7 @@ def bench_scaling(tmp: Path) -> dict[str, Any]:
     _table(f"4. Scaling, real-world set only (library loop, one subprocess per size, batches of {SCALING_BATCH:,})",
            ["size", "M path-steps", "generate s", "validate s", "ns / path-step", "peak RSS MB", "GB written"], rows)
     print(f"  log-log exponent of time in scenarios x steps: {slope:.3f} over all sizes, {slope_large:.3f} over "
-          f"sizes >= 2M path-steps (1 = linear; fixed costs such as the step laws, ~0.5 s per grid, weigh on "
+          f"sizes >= 2M path-steps (1 = linear; fixed costs such as calibration reading and process start weigh on "
           f"small runs); peak RSS of the three monthly sizes varies by {spread:.1%} (target within 20%)")
     return {"cases": res, "batch_size": SCALING_BATCH, "loglog_exponent_all": slope,
             "loglog_exponent_large": slope_large, "peak_rss_spread_monthly": spread}
