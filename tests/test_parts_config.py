@@ -443,3 +443,20 @@ def test_the_benchmark_configuration_is_the_standard_two_driver_model(tmp_path):
     cfg = load_config(bench.make_config(tmp_path / "b.toml", scenarios=1000))
     assert cfg.indices == [] and cfg.inflation is None and cfg.credit is None
     assert cfg.simulation.scenarios == 1000
+
+
+def test_outputs_columns_keep_what_the_claims_need(tmp_path, full):
+    """Real bonds are tested in currency (cpi x real bond) and defaultable bonds with their
+    default losses exp(-L Lambda): choosing one without the other is refused up front."""
+    from pqflow.jobs.steps import plan_run, written_columns
+
+    cal = assemble_calibration(_load(tmp_path, full))
+    for columns, fragment in ((["real_zcb_*"], "real bonds need 'cpi'"),
+                              (["dzcb_AA_*"], "needs 'cumulative_intensity_AA'")):
+        data = copy.deepcopy(full)
+        data["outputs"]["columns"] = columns
+        with pytest.raises(ConfigError, match=fragment):
+            written_columns(cal, plan_run(_load(tmp_path, data)))
+    data = copy.deepcopy(full)
+    data["outputs"]["columns"] = ["cpi", "real_zcb_*", "dzcb_AA_*", "cumulative_intensity_AA"]
+    assert "dzcb_AA_10y" in written_columns(cal, plan_run(_load(tmp_path, data)))

@@ -137,7 +137,18 @@ def written_columns(calibration: Calibration, plan: RunPlan) -> list[str]:
             f"outputs.columns: {', '.join(repr(p) for p in unmatched)} matches no column of the configured "
             f"models; the columns are: {', '.join(known)}"
         )
-    return [*REQUIRED_COLUMNS, *(c for c in known if any(fnmatch.fnmatchcase(c, p) for p in plan.column_patterns))]
+    chosen = [c for c in known if any(fnmatch.fnmatchcase(c, p) for p in plan.column_patterns)]
+    needs = []  # a claim's martingale test needs the columns that make its currency value
+    if any(c.startswith("real_zcb_") for c in chosen) and "cpi" not in chosen:
+        needs.append("real bonds need 'cpi' (their currency price is cpi times the real bond)")
+    for c in chosen:
+        if c.startswith("dzcb_"):
+            rating = c[len("dzcb_"):].rsplit("_", 1)[0]
+            if f"cumulative_intensity_{rating}" not in chosen:
+                needs.append(f"{c} needs 'cumulative_intensity_{rating}' (its default losses)")
+    if needs:
+        raise ConfigError("outputs.columns: " + "; ".join(dict.fromkeys(needs)))
+    return [*REQUIRED_COLUMNS, *chosen]
 
 
 def write_calibration(run_dir: str | Path, calibration: Calibration) -> Path:
