@@ -216,6 +216,13 @@ def check(
         _print_fit(payload)
         drivers = cal.driver_correlation.names
         console.print(f"drivers ({len(drivers)}): {', '.join(drivers)}", highlight=False)
+        if cal.credit is not None:
+            corr = "correlated with each other" if cal.credit.correlation is not None else "independent"
+            console.print(
+                f"credit drivers: {', '.join('credit_' + r for r in cal.credit.names)} ({corr}; independent of the "
+                f"drivers above), Euler substeps of at most 1/{cal.credit_substeps_per_year} year",
+                highlight=False,
+            )
         for measure in ("real_world", "market_consistent"):
             times, batches = plan.times_for(measure), plan.batches_for(measure)
             console.print(
