@@ -361,7 +361,8 @@ def test_a_mispriced_cap_quote_fails_market_consistency(tmp_path, full):
 
 def test_a_real_world_long_run_intensity_sets_the_price_of_risk(tmp_path, full):
     """kappa^P = kappa mu / mu^P and theta = (kappa - kappa^P) / nu (the CIR drift under the
-    change of measure W^Q = W^P + int theta sqrt(y) ds; Brigo and Mercurio 2006, ch. 3.2)."""
+    change of measure W^Q = W^P + int theta sqrt(y) ds; Brigo and Mercurio 2006, ch. 3.2, chapter
+    from memory)."""
     from pqflow.models.cir_credit import real_world_cir
 
     data = copy.deepcopy(full)

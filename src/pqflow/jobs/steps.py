@@ -25,6 +25,7 @@ from pqflow.config.schema import RunConfig
 from pqflow.errors import ConfigError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.serialize import curve_from_json
+from pqflow.models.economy import EconomyModel
 from pqflow.simulation.engine import DENSITY_COLUMN, MEASURES, time_grid
 from pqflow.simulation.plan import Batch, plan_batches
 from pqflow.simulation.scenarios import simulate_part
@@ -122,10 +123,12 @@ def plan_run(config: RunConfig) -> RunPlan:
 REQUIRED_COLUMNS = ("short_rate", "cash_account", "deflator")
 
 
-def written_columns(calibration: Calibration, plan: RunPlan) -> list[str]:
+def written_columns(calibration: Calibration, plan: RunPlan, model: EconomyModel | None = None) -> list[str]:
     """The columns a part carries, in file order (before the density column): the required
-    ones, then every column of the configured models that ``outputs.columns`` selects."""
-    model = build_model(calibration, plan.bond_maturities)
+    ones, then every column of the configured models that ``outputs.columns`` selects.
+    ``model``: the run's model when the caller has built it already."""
+    if model is None:
+        model = build_model(calibration, plan.bond_maturities)
     known = [c for c in model.known_columns() if c not in REQUIRED_COLUMNS]
     if calibration.credit is not None:
         known += list(calibration.credit.column_names())
@@ -203,7 +206,7 @@ def generate_part(
         "state-price deflator q_density / cash_account" if measure == "real_world" else "1 / cash_account"
     )
     units[DENSITY_COLUMN[measure]] = "density on the grid up to time (dimensionless, mean 1)"
-    order = written_columns(calibration, plan)
+    order = written_columns(calibration, plan, model)
     order += [DENSITY_COLUMN[measure]]
     table = batch_table(
         {c: cols[c] for c in order},
