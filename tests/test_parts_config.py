@@ -229,8 +229,12 @@ def test_outputs_columns_selects_what_is_written(tmp_path, small_config):
     cfg = small_config(outputs={"columns": ["zcb_10y", "equity_*"]})
     run_in_process(cfg, tmp_path / "sel", scenarios=200)
     cols = list(_read(tmp_path / "sel", "real_world").columns)
-    assert cols == ["scenario", "time", "short_rate", "cash_account", "deflator", "zcb_10y",
-                    "equity_veldmark_all_share", "q_density"]
+    head = ["scenario", "time", "short_rate", "cash_account", "deflator", "zcb_10y",
+            "equity_veldmark_all_share", "q_density"]
+    assert cols[: len(head)] == head, cols
+    # the restricted densities follow the full one, whatever outputs.columns selects
+    assert cols[len(head):] and all(c.startswith("q_density_") for c in cols[len(head):]), cols
+    assert "q_density_rates" in cols and "q_density_rates_veldmark_all_share" in cols
 
 
 def test_outputs_columns_naming_nothing_is_refused_before_anything_is_written(tmp_path, small_config):

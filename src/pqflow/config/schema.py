@@ -8,6 +8,7 @@ bond, antithetic pairs that fit the batches) live in the model validators below.
 from __future__ import annotations
 
 import datetime as dt
+import re
 from typing import Literal
 
 from pathlib import Path
@@ -534,8 +535,25 @@ class RunConfig(_Section):
     calibration: CalibrationSection = CalibrationSection()
     validation: ValidationSection = ValidationSection()
     execution: ExecutionSection = ExecutionSection()
+    #: ``[density_blocks]``: block name -> the drivers whose states carry a restricted density
+    #: (``q_density_<name>`` / ``p_density_<name>``). Absent: ``rates``, ``rates_<index>`` per
+    #: index, ``rates_inflation`` and ``credit_<rating>``; an empty table writes none. Under
+    #: G2++ the driver name ``rates`` stands for both rate drivers.
+    density_blocks: dict[str, list[str]] | None = None
 
     _base_dir: Path = PrivateAttr(default=Path("."))
+
+    @field_validator("density_blocks")
+    @classmethod
+    def _block_names(cls, v: dict[str, list[str]] | None) -> dict[str, list[str]] | None:
+        for name, drivers in (v or {}).items():
+            if not re.match(r"^[A-Za-z][A-Za-z0-9_]*$", name):
+                raise ValueError(f"block name {name!r} must be letters, digits and _, starting with a letter")
+            if not drivers:
+                raise ValueError(f"block {name!r} lists no drivers")
+            if len(set(drivers)) != len(drivers):
+                raise ValueError(f"block {name!r} repeats a driver")
+        return v
 
     @property
     def base_dir(self) -> Path:

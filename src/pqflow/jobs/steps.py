@@ -9,6 +9,7 @@ the batch index.
 from __future__ import annotations
 
 import datetime as dt
+import json
 import fnmatch
 import platform
 from dataclasses import dataclass
@@ -25,6 +26,7 @@ from pqflow.config.schema import RunConfig
 from pqflow.errors import ConfigError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.serialize import curve_from_json
+from pqflow.measure.blocks import DensityBlock, check_blocks, default_blocks, density_block_column, economy_structure
 from pqflow.models.economy import EconomyModel
 from pqflow.simulation.engine import DENSITY_COLUMN, MEASURES, time_grid
 from pqflow.simulation.plan import Batch, plan_batches
@@ -46,6 +48,7 @@ __all__ = [
     "write_run_manifest",
     "written_columns",
     "REQUIRED_COLUMNS",
+    "run_density_blocks",
 ]
 
 MEASURE_TEXT = {
@@ -72,6 +75,8 @@ class RunPlan:
     bond_maturities: tuple[float, ...]
     #: ``outputs.columns``: names or patterns of the columns to write (``None``: all).
     column_patterns: tuple[str, ...] | None = None
+    #: blocks whose restricted densities each set carries (``[density_blocks]``)
+    density_blocks: tuple[DensityBlock, ...] = ()
 
     def times_for(self, measure: str) -> np.ndarray:
         return self.sets[measure].times
@@ -101,6 +106,33 @@ class PartRecord:
     sha256: str
 
 
+def run_density_blocks(config: RunConfig) -> tuple[DensityBlock, ...]:
+    """The run's density blocks (``[density_blocks]``, or the defaults), each checked to be
+    autonomous from the configured models' structure: nothing needs fitting for that."""
+    from pqflow.calibration.parts import credit_driver
+    from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER
+
+    rates = RATES_DRIVERS[config.rates.model]
+    indices = [(config.equity.name, f"equity_{config.equity.name}")]
+    indices += [(i.name, f"{i.kind}_{i.name}") for i in config.indices]
+    inflation = (REAL_RATE_DRIVER, INFLATION_DRIVER) if config.inflation is not None else None
+    ratings = {r.name: credit_driver(r.name) for r in (config.credit.ratings if config.credit is not None else ())}
+    structure = economy_structure(rates, indices, inflation, ratings)
+    if config.density_blocks is None:
+        blocks = default_blocks(rates, [d for d, _ in indices], inflation, ratings)
+    else:
+        blocks = tuple(
+            DensityBlock(name=name, drivers=tuple(dict.fromkeys(
+                x for d in drivers for x in (rates if d == "rates" else (d,)))))
+            for name, drivers in config.density_blocks.items()
+        )
+    try:
+        check_blocks(blocks, structure)
+    except ValueError as exc:
+        raise ConfigError(f"density_blocks: {exc}") from None
+    return blocks
+
+
 def plan_run(config: RunConfig) -> RunPlan:
     sim = config.simulation
     sets = {}
@@ -116,6 +148,7 @@ def plan_run(config: RunConfig) -> RunPlan:
         antithetic=sim.antithetic,
         bond_maturities=tuple(config.outputs.bond_maturities),
         column_patterns=tuple(config.outputs.columns) if config.outputs.columns is not None else None,
+        density_blocks=run_density_blocks(config),
     )
 
 
@@ -186,6 +219,7 @@ def _part_metadata(calibration: Calibration, plan: RunPlan, measure: str, batch:
         "pqflow.batch": str(batch.index),
         "pqflow.first_scenario": str(batch.first),
         "pqflow.calibration_sha256": calibration.inputs_hash,
+        "pqflow.density_blocks": json.dumps({b.name: list(b.drivers) for b in plan.density_blocks}),
     }
 
 
@@ -198,6 +232,7 @@ def generate_part(
     cols = simulate_part(
         model, plan.times_for(measure), measure=measure, n_paths=batch.size, seed=plan.seed, batch=batch.index,
         antithetic=plan.antithetic, credit=credit, credit_substeps_per_year=calibration.credit_substeps_per_year,
+        density_blocks=plan.density_blocks,
     )
     units = model.column_units()
     if credit is not None:
@@ -206,8 +241,14 @@ def generate_part(
         "state-price deflator q_density / cash_account" if measure == "real_world" else "1 / cash_account"
     )
     units[DENSITY_COLUMN[measure]] = "density on the grid up to time (dimensionless, mean 1)"
+    blocks = [density_block_column(measure, b.name) for b in plan.density_blocks]
+    for b, column in zip(plan.density_blocks, blocks):
+        units[column] = (
+            f"density restricted to the states of drivers {', '.join(b.drivers)}, on the grid up to time "
+            "(dimensionless, mean 1)"
+        )
     order = written_columns(calibration, plan, model)
-    order += [DENSITY_COLUMN[measure]]
+    order += [DENSITY_COLUMN[measure], *blocks]
     table = batch_table(
         {c: cols[c] for c in order},
         plan.times_for(measure),

@@ -56,6 +56,7 @@ __all__ = [
     "price_of_risk_for_long_run_mean",
     "cir_density_coefficients",
     "cir_log_density_increment",
+    "cir_marginal_log_density_increment",
 ]
 
 
@@ -120,4 +121,26 @@ def cir_log_density_increment(z: np.ndarray, eta: np.ndarray, *, measure: str) -
         return -linear - half_sq
     if measure == "market_consistent":
         return linear - half_sq
+    raise ValueError(f"unknown measure {measure!r}")
+
+
+def cir_marginal_log_density_increment(
+    noise: np.ndarray, price_of_risk: np.ndarray, factor_plus: np.ndarray, substep: float, *, measure: str
+) -> np.ndarray:
+    """Each rating's own log density increment over one substep, ``(d, n_paths)``: the
+    likelihood ratio of that rating's marginal Euler chain alone (its drift reads only itself,
+    so one rating is an autonomous block, :mod:`pqflow.measure.blocks`).
+
+    noise: the rating's correlated unit-variance normal ``w = (L z)_r`` that moved it,
+    ``(d, n_paths)``; its shift between the measures is ``lambda_r = theta_r sqrt(y_r^+ h)``, so
+    ``log dQ/dP = -lambda_r w_r - lambda_r^2 / 2`` in the real-world set and the mirror image in
+    the market-consistent set. With independent ratings the sum over ratings is
+    :func:`cir_log_density_increment`.
+    """
+    lam = np.asarray(price_of_risk, dtype=float)[:, None] * np.sqrt(np.maximum(factor_plus, 0.0) * substep)
+    half_sq = 0.5 * lam * lam
+    if measure == "real_world":
+        return -lam * noise - half_sq
+    if measure == "market_consistent":
+        return lam * noise - half_sq
     raise ValueError(f"unknown measure {measure!r}")

@@ -103,6 +103,7 @@ from pqflow.market.curve import DiscountCurve
 from pqflow.measure.cir_density import (
     cir_density_coefficients,
     cir_log_density_increment,
+    cir_marginal_log_density_increment,
     real_world_square_root_drift,
 )
 from pqflow.models.hull_white_equity import bond_column
@@ -573,7 +574,10 @@ class CreditPaths:
     log_density_increments: per output step, ``(n, n_times - 1)`` (``log dQ/dP`` in the
     real-world set, ``log dP/dQ`` in the market-consistent set);
     density: ``exp`` of their running sums, ``(n, n_times)``, 1 at time 0;
-    columns: :meth:`CirCreditModel.columns`, each ``(n, n_times)``.
+    columns: :meth:`CirCreditModel.columns`, each ``(n, n_times)``;
+    rating_density: each rating's own density (its marginal chain's likelihood ratio,
+    :func:`pqflow.measure.cir_density.cir_marginal_log_density_increment`), ``(d, n, n_times)``;
+    equal to ``density`` for a single rating.
     """
 
     measure: str
@@ -583,6 +587,7 @@ class CreditPaths:
     log_density_increments: np.ndarray
     density: np.ndarray
     columns: dict[str, np.ndarray]
+    rating_density: np.ndarray | None = None
 
 
 def simulate_credit(
@@ -645,6 +650,7 @@ def simulate_credit(
     factor = np.empty((n, n_times, d))
     integrated = np.empty((n, n_times, d))
     log_inc = np.zeros((n, n_steps))
+    rating_inc = np.zeros((d, n, n_steps)) if with_density else None
     factor[:, 0, :] = yp.T
     integrated[:, 0, :] = 0.0
     sq = np.empty((d, n))
@@ -657,6 +663,7 @@ def simulate_credit(
         else:
             block = normals[k * substeps : (k + 1) * substeps]
         step_log = np.zeros(n)
+        rating_log = np.zeros((d, n)) if rating_inc is not None else None
         for j in range(substeps):
             z = block[j]
             np.sqrt(yp, out=sq)
@@ -667,6 +674,8 @@ def simulate_credit(
             if with_density:
                 eta = cir_density_coefficients(theta, yp, h, chol)
                 step_log += cir_log_density_increment(z, eta, measure=measure)
+                if rating_log is not None:
+                    rating_log += cir_marginal_log_density_increment(dw, theta, yp, h, measure=measure)
             # x += (kappa mu - kappa_m y^+) h + nu sqrt(y^+) sqrt(h) dw
             x += (kappa_mu - kappa_m * yp) * h + (nu * sqrt_h) * sq * dw
             y_new = np.maximum(x, 0.0)
@@ -675,9 +684,14 @@ def simulate_credit(
         factor[:, k + 1, :] = yp.T
         integrated[:, k + 1, :] = integ.T
         log_inc[:, k] = step_log
+        if rating_inc is not None:
+            rating_inc[:, :, k] = rating_log
     density = np.ones((n, n_times))
     if n_steps:
         density[:, 1:] = np.exp(np.cumsum(log_inc, axis=1))
+    rating_density = np.ones((d, n, n_times))
+    if rating_inc is not None and n_steps:
+        rating_density[:, :, 1:] = np.exp(np.cumsum(rating_inc, axis=2))
     cols = params.columns(times, factor, integrated, risk_free=risk_free)
     return CreditPaths(
         measure=measure,
@@ -687,4 +701,5 @@ def simulate_credit(
         log_density_increments=log_inc,
         density=density,
         columns=cols,
+        rating_density=rating_density,
     )

@@ -216,6 +216,10 @@ class EconomyModel:
             rows.extend(part.exposures(integral))
         return tuple(rows)
 
+    def state_drivers(self) -> tuple[tuple[str, ...], ...]:
+        """The drivers each state's noise loads on, in state order."""
+        return tuple(tuple(dict.fromkeys(e.driver for e in row)) for row in self._exposures)
+
     def initial_state(self) -> np.ndarray:
         rates = [0.0] * self._n_rates_states
         return np.concatenate([np.array(rates), *(p.initial_state() for p in self.parts)])

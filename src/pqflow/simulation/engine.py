@@ -33,11 +33,12 @@ import hashlib
 import pickle
 import threading
 from collections import OrderedDict
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
 
+from pqflow.measure.blocks import gaussian_block_coefficients
 from pqflow.measure.density import density_coefficients
 from pqflow.models.base import ScenarioModel
 
@@ -49,6 +50,8 @@ __all__ = [
     "Workspace",
     "time_grid",
     "grid_laws",
+    "BlockLaws",
+    "block_laws",
     "simulate_states",
     "simulate_batch",
 ]
@@ -90,6 +93,8 @@ class SimulatedStates:
 
     states: np.ndarray
     density: np.ndarray
+    #: densities restricted to blocks of states, ``(n_blocks, n_paths, n_times)`` (``None``: none asked)
+    block_density: np.ndarray | None = None
 
     @property
     def path_states(self) -> np.ndarray:
@@ -178,6 +183,48 @@ def grid_laws(model: ScenarioModel, times: np.ndarray) -> GridLaws:
     return laws
 
 
+@dataclass(frozen=True, kw_only=True)
+class BlockLaws:
+    """Coefficients of the densities restricted to blocks of states
+    (:func:`pqflow.measure.blocks.gaussian_block_coefficients`): ``coef`` ``(K, n_blocks, d)``,
+    ``half_sq_cum`` ``(K + 1, n_blocks)``, the running sum of ``|g|^2 / 2``."""
+
+    coef: np.ndarray
+    half_sq_cum: np.ndarray
+
+
+_BLOCK_LAWS: OrderedDict[bytes, BlockLaws] = OrderedDict()
+
+
+def block_laws(model: ScenarioModel, times: np.ndarray, block_rows: Sequence[Sequence[int]]) -> BlockLaws:
+    """Restricted-density coefficients of each block (state indices ``block_rows``) on ``times``,
+    computed once per process for each model, grid and set of blocks."""
+    times = np.ascontiguousarray(times, dtype=float)
+    laws = grid_laws(model, times)
+    rows = tuple(tuple(int(i) for i in r) for r in block_rows)
+    key = hashlib.sha256(pickle.dumps((model, rows), protocol=5) + times.tobytes()).digest()
+    with _LAWS_LOCK:
+        found = _BLOCK_LAWS.get(key)
+        if found is not None:
+            _BLOCK_LAWS.move_to_end(key)
+            return found
+    shift = np.einsum("kij,kj->ki", laws.chol, laws.eta)  # m = L eta
+    k_steps = times.size - 1
+    coef = np.empty((k_steps, len(rows), laws.eta.shape[1]))
+    for b, r in enumerate(rows):
+        coef[:, b, :] = gaussian_block_coefficients(laws.chol, shift, r) if k_steps else 0.0
+    half_sq_cum = np.zeros((k_steps + 1, len(rows)))
+    np.cumsum(0.5 * np.einsum("kbd,kbd->kb", coef, coef), axis=0, out=half_sq_cum[1:])
+    coef.flags.writeable = False
+    half_sq_cum.flags.writeable = False
+    found = BlockLaws(coef=coef, half_sq_cum=half_sq_cum)
+    with _LAWS_LOCK:
+        _BLOCK_LAWS[key] = found
+        while len(_BLOCK_LAWS) > _LAWS_KEEP:
+            _BLOCK_LAWS.popitem(last=False)
+    return found
+
+
 def simulate_states(
     model: ScenarioModel,
     times: np.ndarray,
@@ -187,13 +234,16 @@ def simulate_states(
     rng: np.random.Generator,
     antithetic: bool,
     workspace: Workspace | None = None,
+    block_rows: Sequence[Sequence[int]] = (),
 ) -> SimulatedStates:
     """The simulation core: states and density weights of ``n_paths`` paths under ``measure``.
 
     Shapes: ``states`` ``(d, n_paths, n_times)``, ``density`` ``(n_paths, n_times)``; the density
     is ``q_density = dQ/dP`` in the real-world set and ``p_density = dP/dQ`` in the
-    market-consistent set, on the information up to each output time. With a ``workspace`` the
-    returned arrays are its buffers (valid until its next use).
+    market-consistent set, on the information up to each output time. ``block_rows``: state
+    indices of autonomous blocks whose restricted densities (:mod:`pqflow.measure.blocks`) are
+    wanted too, from the same normals: ``block_density`` ``(n_blocks, n_paths, n_times)``. With a
+    ``workspace`` the returned arrays are its buffers (valid until its next use).
     """
     if measure not in MEASURES:
         raise ValueError(f"unknown measure {measure!r}: use one of {MEASURES}")
@@ -209,6 +259,11 @@ def simulate_states(
     signed_eta = laws.eta if measure == "market_consistent" else -laws.eta
     mean = laws.mean[measure]  # (n_times, d)
     half_sq = laws.half_sq_cum  # (n_times,)
+    nb = len(block_rows)
+    if nb:
+        blaws = block_laws(model, times, block_rows)
+        signed_g = blaws.coef if measure == "market_consistent" else -blaws.coef  # (K, nb, d)
+        half_sq_b = blaws.half_sq_cum  # (n_times, nb)
 
     # Outputs: fresh arrays, or the caller's reused buffers; scratch: block-sized, reused.
     ws = workspace if workspace is not None else Workspace()
@@ -218,6 +273,15 @@ def simulate_states(
         states, density = ws.array("states", (d, n_paths, n_times)), ws.array("density", (n_paths, n_times))
     states[:, :, 0] = mean[0][:, None]
     density[:, 0] = 1.0
+    block_density = None
+    if nb:
+        block_density = (
+            np.empty((nb, n_paths, n_times)) if workspace is None else ws.array("block_density", (nb, n_paths, n_times))
+        )
+        block_density[:, :, 0] = 1.0
+        lin_b = ws.array("lin_b", (_BLOCK + 1, nb, n))  # running sums of -/+ g_j . z_j per block
+        out_wb = ws.array("out_wb", (_BLOCK, nb, n))
+        lin_b[0] = 0.0
     even = slice(0, None, 2) if antithetic else slice(None)
     # The noise recursion runs time-major over blocks of _BLOCK steps. A block's normals, noise
     # and density sums stay in cache while the deterministic parts are added and the results
@@ -255,10 +319,22 @@ def simulate_states(
             np.subtract(-h_blk, lb[1:], out=wb)
             np.exp(wb, out=wb)
             density[1::2, cols] = wb.T
+        if nb:  # restricted densities: the same accumulation with the blocks' coefficients
+            lbb, wbb = lin_b[: b + 1], out_wb[:b]
+            np.matmul(signed_g[k0 : k0 + b], zb, out=lbb[1:])
+            np.add.accumulate(lbb, axis=0, out=lbb)
+            hb_blk = half_sq_b[cols][:, :, None]
+            np.subtract(lbb[1:], hb_blk, out=wbb)
+            np.exp(wbb, out=wbb)
+            block_density[:, even, cols] = wbb.transpose(1, 2, 0)
+            if antithetic:
+                np.subtract(-hb_blk, lbb[1:], out=wbb)
+                np.exp(wbb, out=wbb)
+                block_density[:, 1::2, cols] = wbb.transpose(1, 2, 0)
+            lin_b[0] = lbb[b]
         y[0] = yb[b]
         lin[0] = lb[b]
-    log_w = density
-    return SimulatedStates(states=states, density=log_w)
+    return SimulatedStates(states=states, density=density, block_density=block_density)
 
 
 def simulate_batch(
@@ -271,16 +347,24 @@ def simulate_batch(
     antithetic: bool,
     columns: Sequence[str] | None = None,
     workspace: Workspace | None = None,
+    density_blocks: Mapping[str, Sequence[int]] | None = None,
 ) -> dict[str, np.ndarray]:
     """Simulate ``n_paths`` paths on ``times`` under ``measure``.
 
     Returns the model's columns (all of them, or only ``columns``; ``cash_account`` is always
     computed) plus ``deflator`` and the density column (``q_density`` = dQ/dP in the
     real-world set, ``p_density`` = dP/dQ in the market-consistent set), each of shape
-    ``(n_paths, n_times)``; antithetic pairs are paths ``(2j, 2j+1)``.
+    ``(n_paths, n_times)``; antithetic pairs are paths ``(2j, 2j+1)``. ``density_blocks``: block
+    name -> its state indices; each adds the restricted density ``<density column>_<name>``
+    (a block of every state has the full density, which is reused).
     """
+    blocks = dict(density_blocks or {})
+    d = len(model.state_names)
+    whole = [name for name, rows in blocks.items() if sorted(rows) == list(range(d))]
+    partial = {name: rows for name, rows in blocks.items() if name not in whole}
     core = simulate_states(
-        model, times, measure=measure, n_paths=n_paths, rng=rng, antithetic=antithetic, workspace=workspace
+        model, times, measure=measure, n_paths=n_paths, rng=rng, antithetic=antithetic, workspace=workspace,
+        block_rows=tuple(partial.values()),
     )
     times = np.asarray(times, dtype=float)
     if columns is None:
@@ -297,4 +381,9 @@ def simulate_batch(
         np.divide(1.0, cash, out=deflator)
     out["deflator"] = deflator
     out[DENSITY_COLUMN[measure]] = density
+    for name in whole:
+        out[f"{DENSITY_COLUMN[measure]}_{name}"] = density
+    for i, name in enumerate(partial):
+        assert core.block_density is not None
+        out[f"{DENSITY_COLUMN[measure]}_{name}"] = core.block_density[i]
     return out

@@ -13,16 +13,18 @@ cash account.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 
 import numpy as np
 
+from pqflow.measure.blocks import DensityBlock, block_states, density_block_column, model_structure
 from pqflow.models.base import ScenarioModel
 from pqflow.models.cir_credit import CirCreditModel, simulate_credit
 from pqflow.models.hull_white_equity import bond_column
 from pqflow.simulation.engine import DENSITY_COLUMN, Workspace, simulate_batch
 from pqflow.simulation.streams import batch_generator, credit_generator
 
-__all__ = ["credit_substeps", "simulate_part"]
+__all__ = ["credit_substeps", "simulate_part", "block_layout"]
 
 
 def credit_substeps(times: np.ndarray, substeps_per_year: int) -> int:
@@ -30,6 +32,29 @@ def credit_substeps(times: np.ndarray, substeps_per_year: int) -> int:
     ``1 / substeps_per_year`` years (the grid's longest step decides)."""
     longest = float(np.max(np.diff(times))) if times.size > 1 else 1.0
     return max(1, math.ceil(substeps_per_year * longest - 1e-9))
+
+
+def block_layout(
+    model: ScenarioModel, credit: CirCreditModel | None, blocks: Sequence[DensityBlock]
+) -> dict[str, tuple[tuple[int, ...], tuple[int, ...]]]:
+    """For each block: the indices of its Gaussian states in ``model`` and of its ratings in
+    ``credit`` (``ValueError`` naming the state that ties a block to the outside)."""
+    ratings = {r: f"credit_{r}" for r in (credit.names if credit is not None else ())}
+    drivers = getattr(model, "state_drivers", None)
+    if not callable(drivers):
+        raise ValueError("density blocks need a model that names the drivers of its states")
+    transition = model.step_laws(np.array([0.0, 1.0])).transition  # type: ignore[attr-defined]
+    structure = model_structure(model.state_names, drivers(), transition, ratings)
+    names = list(model.state_names)
+    rating_names = list(ratings)
+    out = {}
+    for block in blocks:
+        states = block_states(block, structure)
+        out[block.name] = (
+            tuple(names.index(s) for s in states if s in names),
+            tuple(rating_names.index(s[len("intensity_"):]) for s in states if s not in names),
+        )
+    return out
 
 
 def simulate_part(
@@ -44,12 +69,21 @@ def simulate_part(
     credit: CirCreditModel | None = None,
     credit_substeps_per_year: int = 12,
     workspace: Workspace | None = None,
+    density_blocks: Sequence[DensityBlock] = (),
 ) -> dict[str, np.ndarray]:
-    """Every column of batch ``batch`` of ``measure`` (``(n_paths, n_times)`` each)."""
+    """Every column of batch ``batch`` of ``measure`` (``(n_paths, n_times)`` each), with the
+    restricted density of each of ``density_blocks`` (``q_density_<block>`` /
+    ``p_density_<block>``): its Gaussian states' density from the engine times its ratings'
+    own densities (credit is independent of the Gaussian drivers)."""
+    layout = block_layout(model, credit, density_blocks) if density_blocks else {}
+    gaussian = {name: rows for name, (rows, _) in layout.items() if rows}
     cols = simulate_batch(
         model, times, measure=measure, n_paths=n_paths, rng=batch_generator(seed, measure, batch),
-        antithetic=antithetic, workspace=workspace,
+        antithetic=antithetic, workspace=workspace, density_blocks=gaussian,
     )
+    for name, (rows, _) in layout.items():
+        if not rows:
+            cols[density_block_column(measure, name)] = np.ones_like(cols[DENSITY_COLUMN[measure]])
     if credit is None:
         return cols
     missing = [m for m in credit.bond_maturities if bond_column(m) not in cols]
@@ -62,6 +96,10 @@ def simulate_part(
     )
     cols.update(paths.columns)
     density = DENSITY_COLUMN[measure]
+    for name, (_, ratings) in layout.items():
+        if ratings:
+            column = density_block_column(measure, name)
+            cols[column] = cols[column] * np.prod(paths.rating_density[list(ratings)], axis=0)
     cols[density] = cols[density] * paths.density
     if measure == "real_world":
         cols["deflator"] = cols[density] / cols["cash_account"]
