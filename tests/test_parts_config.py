@@ -465,3 +465,37 @@ def test_outputs_columns_keep_what_the_claims_need(tmp_path, full):
     data = copy.deepcopy(full)
     data["outputs"]["columns"] = ["cpi", "real_zcb_*", "dzcb_AA_*", "cumulative_intensity_AA"]
     assert "dzcb_AA_10y" in written_columns(cal, plan_run(_load(tmp_path, data)))
+
+
+def test_whole_balance_sheet_writes_every_default_density_block(full_run):
+    """Default blocks (rates, rates_<index>, rates_inflation, credit_<rating>) in both sets;
+    the structure checked before fitting equals the built model's (inflation and credit
+    included); every block's weights average to 1 within 4 SE (common practice) and are less
+    spread than the full density (conditioning: Jensen)."""
+    from pqflow.calibration.assemble import load_calibration
+    from pqflow.config.loader import load_config
+    from pqflow.jobs.steps import plan_run
+    from pqflow.calibration.assemble import build_model
+    from pqflow.measure.blocks import economy_structure, model_structure
+    from pqflow.simulation.scenarios import block_layout
+
+    run, _ = full_run
+    cfg = load_config(run.parent / "full.toml")
+    plan = plan_run(cfg)
+    names = [b.name for b in plan.density_blocks]
+    assert names[0] == "rates" and "rates_inflation" in names and any(n.startswith("credit_") for n in names)
+    cal = load_calibration(run / "calibration.json")
+    model = build_model(cal, plan.bond_maturities)
+    ratings = {r: f"credit_{r}" for r in cal.credit.names}
+    built = model_structure(model.state_names, model.state_drivers(), model.step_laws(np.array([0.0, 1.0])).transition, ratings)
+    indices = [(p.name, p.column) for p in model.indices]
+    assert built == economy_structure(("rates",), indices, ("real_rate", "inflation"), ratings)
+    assert set(block_layout(model, cal.credit, plan.density_blocks)) == set(names)
+    for measure, full in (("real_world", "q_density"), ("market_consistent", "p_density")):
+        df = _read(run, measure)
+        last = df[df.time == df.time.max()]
+        for b in names:
+            w = last[f"{full}_{b}"].to_numpy()
+            pairs = w.reshape(-1, 2).mean(axis=1)
+            assert abs(pairs.mean() - 1.0) <= 4 * pairs.std(ddof=1) / np.sqrt(pairs.size), (measure, b)
+            assert np.log(w).var() <= np.log(last[full].to_numpy()).var() + 1e-12, (measure, b)

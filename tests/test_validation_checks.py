@@ -318,14 +318,23 @@ def test_reconciliation_three_ways_agree_and_catch_a_bad_deflator(good_run, tmp_
     v = entry["values"]
     assert abs(v["market_consistent"] - v["closed_form"]) <= 4 * v["market_consistent_se"]
     assert abs(v["real_world"] - v["closed_form"]) <= 4 * v["real_world_se"]
+    # The reconciliation weights the real-world put with the smallest block carrying the rates
+    # and the index, and controls its estimate with known martingales.
+    assert v["real_world_density"] == "q_density_rates_veldmark_all_share"
+    assert v["real_world_se"] < v["real_world_se_without_controls"]
     # The classic slip: real-world cash flows discounted with the bank account alone
-    # (deflator 1 / B instead of q_density / B); E_P[D X] = E_Q[X / B] then breaks.
+    # (deflator 1 / B instead of q_density / B, every density 1); E_P[D X] = E_Q[X / B] breaks.
     bad = _copy(good_run, tmp_path)
     for part in sorted((bad / "scenarios" / "real_world").glob("part-*.parquet")):
         table = pq.read_table(part)
         i = table.schema.get_field_index("deflator")
         plain = 1.0 / table.column("cash_account").to_numpy()
-        pq.write_table(table.set_column(i, table.schema.field(i), pa.array(plain)), part)
+        table = table.set_column(i, table.schema.field(i), pa.array(plain))
+        for name in table.column_names:
+            if name.startswith("q_density"):
+                j = table.schema.get_field_index(name)
+                table = table.set_column(j, table.schema.field(j), pa.array(np.ones(table.num_rows)))
+        pq.write_table(table, part)
     entry = _checks(bad)["reconciliation"]
     assert entry["verdict"] == "fail"
     assert entry["worst_cell"]["comparison"].startswith("real-world")

@@ -397,6 +397,15 @@ def value(
             f"{line['difference_in_se']:+.2f}",
         )
     console.print(table)
+    products: dict[str, list[str]] = {}
+    for line in summary["lines"]:
+        if line.get("level") == "product" and line.get("quantity") == "best_estimate":
+            products.setdefault(str(line.get("real_world_density", "q_density")), []).append(line["name"])
+    for density, names in products.items():
+        console.print(f"real-world deflators of {', '.join(names)}: {density} / cash_account", highlight=False,
+                      markup=False)
+    console.print("values and standard errors use control variates from known martingales "
+                  "(plain means in the CSV as *_without_controls)", style="dim", highlight=False)
     verdict = summary.get("reconciliation", {}).get("verdict")
     if verdict:
         colour = "green" if verdict == "agree" else "red"

@@ -60,6 +60,13 @@ def _check_pair(mc: SetValuation, rw: SetValuation) -> None:
         raise ValueError("the two valuations are of different portfolios")
 
 
+def _densities_of(rw: SetValuation, group) -> str:
+    """The density columns the real-world deflators of a line's model points carry."""
+    if not rw.densities:
+        return "q_density"
+    return ", ".join(dict.fromkeys(str(rw.densities[i]) for i in group.members))
+
+
 def results_frame(mc: SetValuation, rw: SetValuation) -> pd.DataFrame:
     """One row per (line, quantity); see the module docstring for the columns."""
     _check_pair(mc, rw)
@@ -88,6 +95,11 @@ def results_frame(mc: SetValuation, rw: SetValuation) -> pd.DataFrame:
                 "difference_se": diff_se,
                 "difference_in_se": (v_rw - v_mc) / diff_se if diff_se > 0 else 0.0,
             }
+            for v, tag in ((mc, "market_consistent"), (rw, "real_world")):
+                if v.plain_value is not None and v.plain_std_error is not None:
+                    row[f"{tag}_value_without_controls"] = float(v.plain_value[g, q])
+                    row[f"{tag}_se_without_controls"] = float(v.plain_std_error[g, q])
+            row["real_world_density"] = _densities_of(rw, group)
             if rw.undeflated_value is not None and rw.undeflated_std_error is not None:
                 u, su = float(rw.undeflated_value[g, q]), float(rw.undeflated_std_error[g, q])
                 und_se = float(np.hypot(s_mc, su))
@@ -100,7 +112,8 @@ def results_frame(mc: SetValuation, rw: SetValuation) -> pd.DataFrame:
 
 def cash_flow_frame(mc: SetValuation, rw: SetValuation) -> pd.DataFrame:
     """Expected deflated cash flow by year, per product and in total, from each set and on the
-    certainty-equivalent scenario (their sums over the years are the values)."""
+    certainty-equivalent scenario: plain means, whose sums over the years are the values
+    without control variates (``*_value_without_controls``)."""
     _check_pair(mc, rw)
     rows = []
     for k, g in enumerate(mc.profile_groups):
@@ -152,6 +165,16 @@ def valuation_summary(
             }
             for v in (mc, rw)
         },
+        "densities": {
+            mp.id: d for mp, d in zip(portfolio.model_points, rw.densities or ("q_density",) * len(portfolio.model_points))
+        },
+        "control_variates": (
+            "values and standard errors use control variates from known martingales (deflated "
+            "certainty-equivalent cash flows, the same scaled by the index's performance, and in the "
+            "real-world set the density), with coefficients cross-fitted on two halves of the "
+            "sampling units (Glasserman 2003, section 4.1); the plain means are kept as "
+            "*_without_controls"
+        ),
         "lines": [{k: _clean(v) for k, v in row.items()} for row in lines.to_dict(orient="records")],
         "reconciliation": {
             "rule": (

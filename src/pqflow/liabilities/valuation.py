@@ -38,9 +38,12 @@ from pqflow.liabilities.scenarios import (
     BondInterpolation,
     annual_scenarios,
     certainty_equivalent_scenario,
+    whole_year_indices,
 )
 from pqflow.market.curve import DiscountCurve
+from pqflow.measure.blocks import column_drivers, smallest_block
 from pqflow.storage.jsonio import read_json
+from pqflow.validation.control_variates import controlled_mean, summed
 from pqflow.validation.martingale import bond_maturity_of
 from pqflow.validation.moments import Moments, sampling_units
 from pqflow.validation.reader import ScenarioSetReader
@@ -224,6 +227,13 @@ class SetValuation:
     profile_groups: tuple[int, ...]
     profile: np.ndarray
     profile_ce: np.ndarray
+    #: the plain sample means and their standard errors (``value`` / ``std_error`` use control variates)
+    plain_value: np.ndarray | None = None
+    plain_std_error: np.ndarray | None = None
+    #: controls used per group (0: none: too few sampling units or nothing varies)
+    controls: tuple[int, ...] = ()
+    #: per model point, the density column its deflator carries (real world; ``None``: none)
+    densities: tuple[str | None, ...] = ()
 
     @property
     def tvog(self) -> np.ndarray:
@@ -239,10 +249,38 @@ def _membership(groups: tuple[Group, ...], n_mp: int) -> np.ndarray:
 
 
 def _discounted(portfolio: Portfolio, scen, discount: np.ndarray) -> np.ndarray:
-    """Deflated cash flows of every model point: ``(n_paths, n_mp, 2, J + 1)``."""
+    """Deflated cash flows of every model point: ``(n_paths, n_mp, 2, J + 1)``; ``discount``
+    is ``(n_paths, J + 1)`` for all model points or ``(n_paths, n_mp, J + 1)`` one each."""
     flows = [project_model_point(mp, scen) for mp in portfolio.model_points]
     arr = np.stack([np.stack(f, axis=1) for f in flows], axis=1)
-    return arr * discount[:, None, None, :]
+    if discount.ndim == 2:
+        return arr * discount[:, None, None, :]
+    return arr * discount[:, :, None, :]
+
+
+def _rates_drivers(run_dir: Path) -> tuple[str, ...]:
+    par = read_json(run_dir / "calibration.json").get("parameters", {})
+    return ("rates_x", "rates_y") if "g2pp" in par else ("rates",)
+
+
+def model_point_densities(
+    portfolio: Portfolio, reader: ScenarioSetReader, equity_col: str | None, rates: tuple[str, ...]
+) -> tuple[str | None, ...]:
+    """For each model point of a real-world set, the density its deflator carries: the smallest
+    restricted block written that contains every driver the product reads (rates for the cash
+    account and bonds, and the index it invests in), else the full ``q_density``. ``None`` for
+    a market-consistent set (its deflator is ``1 / B_t``)."""
+    if reader.measure != "real_world":
+        return tuple(None for _ in portfolio.model_points)
+    blocks = reader.density_blocks()
+    out = []
+    for mp in portfolio.model_points:
+        needed = set(rates)
+        if "equity" in needed_columns(mp) and equity_col is not None:
+            needed |= column_drivers(equity_col, rates)
+        block = smallest_block(frozenset(needed), blocks)
+        out.append("q_density" if block is None else f"q_density_{block}")
+    return tuple(out)
 
 
 def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: str) -> SetValuation:
@@ -270,19 +308,35 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
             bond_cols = [info.bond_columns[m] for m in info.bond_maturities]
             read_bonds = [c for c, u in zip(bond_cols, used) if u]
     real_world = measure == "real_world"
+    reader = ScenarioSetReader(run_dir=Path(run_dir), measure=measure)
+    densities = model_point_densities(portfolio, reader, equity_col, _rates_drivers(Path(run_dir)))
+    density_cols = sorted({d for d in densities if d is not None})
     columns = ["deflator"]
     if "cash_account" in kinds or real_world:
         columns.append("cash_account")
     if equity_col is not None:
         columns.append(equity_col)
     columns += read_bonds
+    columns += density_cols
+
+    # Certainty-equivalent cash flows: the TVOG's other leg, and the timing weights of the
+    # control variates (deflated CE cash flows have a known expectation: the CE value).
+    ce_scen = certainty_equivalent_scenario(
+        info.curve, last_year=last, interpolation=interp, equity_level=info.equity_level
+    )
+    p0 = ce_scen.deflator[0]  # P(0, j)
+    ce_raw = np.stack([np.stack(f, axis=1) for f in (project_model_point(mp, ce_scen) for mp in portfolio.model_points)],
+                      axis=1)[0]  # (n_mp, 2, J + 1), undiscounted
+    timing = np.abs(ce_raw[:, 0, :]) * p0[None, :]  # a_mp(j) P(0, j): CE present value by year
+    reads_equity = np.array(["equity" in needed_columns(mp) and equity_col is not None for mp in portfolio.model_points])
 
     groups = _groups(portfolio)
     member = _membership(groups, len(portfolio.model_points))
     profile_idx = tuple(i for i, g in enumerate(groups) if g.level != "model_point")
-    reader = ScenarioSetReader(run_dir=Path(run_dir), measure=measure)
     antithetic = reader.antithetic
     acc: dict[str, Moments | None] = {"value": None, "undeflated": None, "profile": None}
+    units_value: list[np.ndarray] = []
+    units_controls: list[np.ndarray] = []
     n_paths = 0
     for times, cols in reader.iter_arrays(columns):
         scen = annual_scenarios(
@@ -291,8 +345,26 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
         )
         n_paths += scen.n_paths
         stats = {}
-        flows = _discounted(portfolio, scen, scen.deflator)  # (n, n_mp, 2, J+1)
+        idx = whole_year_indices(times, last)
+        if real_world and density_cols:
+            cash = cols["cash_account"][:, idx]
+            weight = np.stack([cols[d][:, idx] if d is not None else scen.deflator * cash for d in densities], axis=1)
+            deflator = weight / cash[:, None, :]  # (n, n_mp, J+1): each model point's own deflator
+        else:
+            deflator = np.broadcast_to(scen.deflator[:, None, :], (scen.n_paths, len(densities), idx.size))
+            weight = None
+        flows = _discounted(portfolio, scen, deflator)  # (n, n_mp, 2, J+1)
         by_group = np.einsum("gm,nmqt->ngqt", member, flows)
+        # controls per model point, summed over each group's members: deflated CE cash flows,
+        # the same scaled by the index's performance, and (real world) the density itself
+        ctrl = [np.einsum("nmj,mj->nm", deflator, timing / p0[None, :])]
+        if np.any(reads_equity):
+            growth = scen.equity / info.equity_level * p0[None, :]  # S_j P(0, j) / S_0
+            ctrl.append(np.einsum("nmj,mj->nm", deflator * growth[:, None, :], timing / p0[None, :]) * reads_equity)
+        if weight is not None:
+            ctrl.append(np.einsum("nmj,mj->nm", weight, timing))
+        units_value.append(sampling_units(flows.sum(axis=-1).reshape(scen.n_paths, -1), antithetic))
+        units_controls.append(sampling_units(np.stack(ctrl, axis=-1).reshape(scen.n_paths, -1), antithetic))
         stats["value"] = by_group.sum(axis=-1).reshape(scen.n_paths, -1)
         stats["profile"] = by_group[:, profile_idx].reshape(scen.n_paths, -1)
         if real_world:
@@ -303,22 +375,43 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
         for key, values in stats.items():
             m = Moments.of(sampling_units(values, antithetic))
             acc[key] = m if acc[key] is None else acc[key].merge(m)
-    assert acc["value"] is not None and acc["profile"] is not None
+    if acc["value"] is None or acc["profile"] is None:
+        raise RunDirectoryError(f"{run_dir}: the {measure} set has no scenarios")
 
-    ce_scen = certainty_equivalent_scenario(
-        info.curve, last_year=last, interpolation=interp, equity_level=info.equity_level
-    )
     ce_flows = np.einsum("gm,nmqt->ngqt", member, _discounted(portfolio, ce_scen, ce_scen.deflator))[0]
     shape = (len(groups), len(QUANTITIES))
     und = acc["undeflated"]
+    # Control variates per model point (cross-fitted regression, validation.control_variates);
+    # a line's value is the sum of its model points' and its standard error that of the summed
+    # residuals, so product and total lines stay exact sums of their model points.
+    n_mp = len(portfolio.model_points)
+    y_all = np.concatenate(units_value).reshape(-1, n_mp, len(QUANTITIES))
+    c_all = np.concatenate(units_controls).reshape(y_all.shape[0], n_mp, -1)
+    ce_value = timing.sum(axis=1)  # each control's expectation: the model point's CE value
+    residuals = np.empty_like(y_all)
+    used = []
+    for i in range(n_mp):
+        k = c_all.shape[2]
+        known = np.full(k, ce_value[i])
+        if np.any(reads_equity) and not reads_equity[i]:
+            known[1] = 0.0  # its index control is identically 0 (dropped as not varying)
+        est = controlled_mean(y_all[:, i, :], c_all[:, i, :], known)
+        residuals[:, i, :] = est.residuals
+        used.append(est.n_controls)
+    value, se = summed(residuals, member)
+    controls = [max((used[i] for i in g.members), default=0) for g in groups]
     return SetValuation(
         measure=measure,
         scenarios=n_paths,
         sampling_units=acc["value"].count,
         antithetic=antithetic,
         groups=groups,
-        value=acc["value"].mean.reshape(shape),
-        std_error=acc["value"].std_error.reshape(shape),
+        value=value,
+        std_error=se,
+        plain_value=acc["value"].mean.reshape(shape),
+        plain_std_error=acc["value"].std_error.reshape(shape),
+        controls=tuple(controls),
+        densities=densities,
         certainty_equivalent=ce_flows.sum(axis=-1),
         undeflated_value=und.mean.reshape(shape) if und is not None else None,
         undeflated_std_error=und.std_error.reshape(shape) if und is not None else None,

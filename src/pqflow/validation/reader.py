@@ -47,6 +47,20 @@ class ScenarioSetReader:
     def units(self) -> dict[str, str]:
         return json.loads(self.metadata().get("pqflow.units", "{}"))
 
+    def density_blocks(self) -> dict[str, tuple[str, ...]]:
+        """The restricted densities the set carries: block name -> its drivers (empty for runs
+        written before blocks existed). Only blocks whose column is in the files are listed."""
+        raw = self.metadata().get("pqflow.density_blocks")
+        if not raw:
+            return {}
+        try:
+            blocks = {str(k): tuple(str(d) for d in v) for k, v in json.loads(raw).items()}
+        except (ValueError, AttributeError, TypeError):
+            raise IntegrityError(f"{self.set_dir}: unreadable pqflow.density_blocks metadata") from None
+        prefix = "q_density_" if self.measure == "real_world" else "p_density_"
+        names = set(self.column_names())
+        return {k: v for k, v in blocks.items() if prefix + k in names}
+
     def iter_arrays(self, columns: Sequence[str]) -> Iterator[tuple[np.ndarray, dict[str, np.ndarray]]]:
         """Yield ``(times, {column: (n_paths, n_times)})`` for each part, in batch order."""
         for path in self.parts():

@@ -35,11 +35,13 @@ returns differ by measure through the prices of risk, which is what the table sh
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from pqflow.measure.blocks import column_drivers, smallest_block
 from pqflow.models.equity import EquityParams, equity_option_price
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.g2pp_equity import G2EquityParams
@@ -48,7 +50,10 @@ from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.jarrow_yildirim import CPI_COLUMN
 from pqflow.models.schedule import PiecewiseConstant
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
+from pqflow.validation.control_variates import controlled_mean
 from pqflow.validation.martingale import bond_maturity_of, index_columns
+from pqflow.validation.moments import sampling_units
+from pqflow.validation.reader import ScenarioSetReader
 from pqflow.validation.run_files import RunInputs, stream_moments, time_index
 from pqflow.validation.summary import family_critical_z
 
@@ -97,6 +102,20 @@ def _equity_column(inputs: RunInputs, names: list[str]) -> str | None:
     return col if col in names else None
 
 
+def _rates_drivers(inputs: RunInputs) -> tuple[str, ...]:
+    return ("rates_x", "rates_y") if "g2pp" in inputs.parameters else ("rates",)
+
+
+def density_for(reader: ScenarioSetReader, columns: Sequence[str], rates_drivers: Sequence[str]) -> tuple[str, str | None]:
+    """The density column to weight quantities built from ``columns`` with: the smallest
+    restricted block the set carries that contains every driver they depend on
+    (:mod:`pqflow.measure.blocks`), or the full density. Returns ``(column, block or None)``."""
+    full = "q_density" if reader.measure == "real_world" else "p_density"
+    needed = frozenset().union(*(column_drivers(c, rates_drivers) for c in columns))
+    block = smallest_block(needed, reader.density_blocks())
+    return (full if block is None else f"{full}_{block}"), block
+
+
 def guarantee_values(
     inputs: RunInputs, *, maturity: float = 10.0, guarantee: float | None = None
 ) -> dict[str, Any] | None:
@@ -104,8 +123,15 @@ def guarantee_values(
 
     maturity: years; when not an output time, the longest output time below it is used.
     guarantee: the guaranteed amount in index units (default: the index level at time 0).
+
+    The real-world value uses the density of the smallest block that carries the rates and the
+    index (the put depends on nothing else), and both sets' values use control variates from
+    known martingales (:mod:`pqflow.validation.control_variates`): the deflator
+    (``E[D_T] = P(0, T)``), the deflated index (``E[D_T S_T] = S_0``) and, in the real-world
+    set, the density itself (``E[w_T] = 1``). The plain estimates are kept beside them.
     """
     out: dict[str, Any] = {}
+    rates = _rates_drivers(inputs)
     for measure in ("market_consistent", "real_world"):
         reader = inputs.reader(measure)
         col = _equity_column(inputs, reader.column_names())
@@ -121,28 +147,43 @@ def guarantee_values(
             k = int(below[-1])
         t = float(times0[k])
         g = level if guarantee is None else float(guarantee)
-        density = "p_density" if measure == "market_consistent" else "q_density"
-
-        def derive(tt: np.ndarray, c: dict[str, np.ndarray], k: int = k, g: float = g,
-                   col: str = col, density: str = density) -> dict[str, np.ndarray]:
-            put = c["deflator"][:, k] * np.maximum(g - c[col][:, k], 0.0)
-            return {"put": put, "put_sq_over_density": put**2 / c[density][:, k]}
-
-        _, acc = stream_moments(reader, ["deflator", col, density], derive)
-        paths = acc["put"].count * (2 if reader.antithetic else 1)
-        out[measure] = (float(acc["put"].mean[0]), float(acc["put"].std_error[0]))
+        density, block = density_for(reader, [col, "cash_account"], rates)
+        units: list[np.ndarray] = []
+        for _, c in reader.iter_arrays(["cash_account", col, density]):
+            w = c[density][:, k]
+            deflator = (w if measure == "real_world" else 1.0) / c["cash_account"][:, k]
+            s_t = c[col][:, k]
+            put = deflator * np.maximum(g - s_t, 0.0)
+            cols = [put, put**2 / w, deflator, deflator * s_t]
+            if measure == "real_world":
+                cols.append(w)
+            units.append(sampling_units(np.stack(cols, axis=1), reader.antithetic))
+        data = np.concatenate(units)
+        known = [float(inputs.curve.discount(t)), level] + ([1.0] if measure == "real_world" else [])
+        est = controlled_mean(data[:, :1], data[:, 2:], np.array(known))
+        paths = data.shape[0] * (2 if reader.antithetic else 1)
+        out[measure] = (float(est.value[0]), float(est.std_error[0]))
+        out[f"{measure}_plain"] = (float(est.plain_value[0]), float(est.plain_std_error[0]))
+        out[f"{measure}_density"] = density
+        out[f"{measure}_block"] = block
+        out[f"{measure}_controls"] = est.n_controls
         out[f"{measure}_paths"] = paths
         if measure == "market_consistent":
-            # E_P[(D_T X)^2] = E_Q[Z_T (X / B_T)^2] with Z_T = dQ/dP = 1 / p_density: the
-            # real-world estimator's spread, estimated where its payoff is well sampled.
-            second = float(np.mean(acc["put_sq_over_density"].mean))
+            # E_P[(D_T X)^2] = E_Q[Z_T (X / B_T)^2] with Z_T = 1 / p_density (of the same block):
+            # the real-world estimator's spread, estimated where its payoff is well sampled.
+            second = float(np.mean(data[:, 1]))
             out["real_world_sd_from_market_consistent"] = float(
-                np.sqrt(max(second - out[measure][0] ** 2, 0.0)))
+                np.sqrt(max(second - out["market_consistent_plain"][0] ** 2, 0.0)))
         out.update(maturity=t, guarantee=g, level=level)
     value, sample_se = out["real_world"]
+    plain_value, plain_se = out["real_world_plain"]
     cross_se = out["real_world_sd_from_market_consistent"] / np.sqrt(out["real_world_paths"])
+    # A sample that misses the large weights understates its spread: inflate both standard
+    # errors by the factor the market-consistent set's second moment implies for the plain one.
+    inflate = max(1.0, cross_se / plain_se) if plain_se > 0 else 1.0
     out["real_world_sample_se"] = sample_se
-    out["real_world"] = (value, float(max(sample_se, cross_se)))
+    out["real_world"] = (value, float(sample_se * inflate))
+    out["real_world_plain"] = (plain_value, float(plain_se * inflate))
     try:
         out["closed_form"] = guarantee_closed_form(
             inputs, maturity=out["maturity"], guarantee=out["guarantee"], level=out["level"])
@@ -240,11 +281,23 @@ def reconciliation_check(
         "market_consistent": q, "market_consistent_se": q_se,
         "real_world": p, "real_world_se": p_se,
         "real_world_sample_se": values["real_world_sample_se"],
+        "market_consistent_without_controls": values["market_consistent_plain"][0],
+        "market_consistent_se_without_controls": values["market_consistent_plain"][1],
+        "real_world_without_controls": values["real_world_plain"][0],
+        "real_world_se_without_controls": values["real_world_plain"][1],
+        "real_world_density": values["real_world_density"],
+        "control_variates": {m: values[f"{m}_controls"] for m in ("market_consistent", "real_world")},
     }
     values_table = pd.DataFrame([
         *([{"method": f"closed form ({'G2++' if 'g2pp' in inputs.parameters else 'Hull-White'} + Black)", "value": cf, "std_error": 0.0}] if cf is not None else []),
-        {"method": "market-consistent set", "value": q, "std_error": q_se},
-        {"method": "real-world set with deflators", "value": p, "std_error": p_se},
+        {"method": "market-consistent set (control variates)", "value": q, "std_error": q_se},
+        {"method": f"real-world set with deflators ({values['real_world_density']}, control variates)",
+         "value": p, "std_error": p_se},
+        {"method": "market-consistent set (plain mean)", "value": values["market_consistent_plain"][0],
+         "std_error": values["market_consistent_plain"][1]},
+        {"method": "real-world set with deflators (q_density, plain mean)" if values["real_world_block"] is None
+         else f"real-world set with deflators ({values['real_world_density']}, plain mean)",
+         "value": values["real_world_plain"][0], "std_error": values["real_world_plain"][1]},
     ])
     return CheckResult(name=CHECK, summary=entry, tables={
         "reconciliation": pd.concat(
