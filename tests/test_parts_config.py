@@ -499,3 +499,40 @@ def test_whole_balance_sheet_writes_every_default_density_block(full_run):
             pairs = w.reshape(-1, 2).mean(axis=1)
             assert abs(pairs.mean() - 1.0) <= 4 * pairs.std(ddof=1) / np.sqrt(pairs.size), (measure, b)
             assert np.log(w).var() <= np.log(last[full].to_numpy()).var() + 1e-12, (measure, b)
+
+
+def test_density_blocks_are_configured_by_name_and_drivers(tmp_path, small_config):
+    """[density_blocks] replaces the default blocks; a block that is not autonomous, or names an
+    unknown driver, is refused before anything is fitted, naming the state or the driver."""
+    from pipeline import run_in_process
+
+    from pqflow.calibration import assemble
+    from pqflow.config.loader import load_config
+    from pqflow.jobs.steps import plan_run
+
+    cfg = small_config(density_blocks={"core": ["rates", "veldmark_all_share"], "curve": ["rates"]})
+    assert [(b.name, b.drivers) for b in plan_run(load_config(cfg)).density_blocks] == [
+        ("core", ("rates", "veldmark_all_share")), ("curve", ("rates",))]
+    run_in_process(cfg, tmp_path / "blocks", scenarios=200)
+    cols = list(_read(tmp_path / "blocks", "market_consistent").columns)
+    assert cols[-3:] == ["p_density", "p_density_core", "p_density_curve"]
+
+    def fitting_is_forbidden(*a, **k):
+        raise AssertionError("fitted before the blocks were checked")
+
+    for blocks, message in (
+        ({"eq": ["veldmark_all_share"]}, r"density_blocks: density block 'eq' is not autonomous: state "
+                                         r"'log_equity_veldmark_all_share' of driver 'veldmark_all_share' also moves"),
+        ({"x": ["rates", "gold"]}, r"density_blocks: density block 'x': unknown driver\(s\) 'gold'"),
+        ({"Bad-name": ["rates"]}, r"block name 'Bad-name'"),
+    ):
+        with pytest.raises(ConfigError, match=message):
+            cfg = small_config(name="bad.toml", density_blocks=blocks)
+            original = assemble.assemble_calibration
+            assemble.assemble_calibration = fitting_is_forbidden
+            try:
+                plan_run(load_config(cfg))
+            finally:
+                assemble.assemble_calibration = original
+    empty = small_config(name="none.toml", density_blocks={})
+    assert plan_run(load_config(empty)).density_blocks == ()

@@ -118,6 +118,9 @@ def run(
         cfg = load_config(config)
         if scenarios is not None or seed is not None:
             cfg = apply_overrides(cfg, scenarios=scenarios, seed=seed, source=str(config))
+        from pqflow.jobs.steps import plan_run
+
+        plan_run(cfg)  # grids, batches and density blocks checked before anything is fitted
         # Every input error surfaces here, before Prefect starts; the fitted calibration is then
         # handed to the flow as a file, so it is fitted once.
         if calibration is not None:
@@ -202,8 +205,8 @@ def check(
 
     try:
         cfg = load_config(config)
-        cal = assemble_calibration(cfg)
         plan = plan_run(cfg)
+        cal = assemble_calibration(cfg)
         columns = written_columns(cal, plan)
     except PqflowError as exc:
         _fail(exc)
@@ -231,6 +234,9 @@ def check(
                 highlight=False,
             )
         console.print(f"columns ({len(columns) + 1}, with the density): {', '.join(columns)}", highlight=False)
+        for b in plan.density_blocks:
+            console.print(f"density block {b.name}: drivers {', '.join(b.drivers)} "
+                          f"(q_density_{b.name} / p_density_{b.name})", highlight=False, markup=False)
         console.print("(pqflow check --json prints every parameter)", style="dim")
     console.print(f"{config}: valid", style="green")
 

@@ -20,7 +20,7 @@ from scipy.linalg import solve_triangular
 
 from pqflow.models.base import StepLaw
 
-__all__ = ["density_coefficients", "log_density_increments"]
+__all__ = ["density_coefficients", "log_density_increments", "signed_coefficients", "accumulate_exponent", "deflator"]
 
 
 def density_coefficients(law: StepLaw) -> np.ndarray:
@@ -42,4 +42,39 @@ def log_density_increments(z: np.ndarray, eta: np.ndarray, *, measure: str) -> n
         return -linear - half_sq
     if measure == "market_consistent":
         return linear - half_sq
+    raise ValueError(f"unknown measure {measure!r}")
+
+
+def signed_coefficients(coef: np.ndarray, measure: str) -> np.ndarray:
+    """The coefficients as they enter the exponent of ``measure``'s set: ``-eta`` in the
+    real-world set (``log dQ/dP = -eta.z - ...``), ``+eta`` in the market-consistent set."""
+    if measure == "real_world":
+        return -coef
+    if measure == "market_consistent":
+        return coef
+    raise ValueError(f"unknown measure {measure!r}")
+
+
+def accumulate_exponent(signed: np.ndarray, z: np.ndarray, running: np.ndarray) -> None:
+    """Running sums of the exponent's linear part over a block of ``b`` steps, in place.
+
+    signed: signed coefficients of the block's steps, ``(b, k, d)`` for ``k`` densities at
+    once (the full one, or several restricted blocks); z: the steps' normals ``(b, d, n)``;
+    running: ``(b + 1, k, n)`` with the sum up to the block's start in ``running[0]``; on return
+    ``running[j]`` holds the sum up to step ``j`` of the block. The log density at a grid time
+    is the running sum minus the running sum of ``|coef|^2 / 2``.
+    """
+    np.matmul(signed, z, out=running[1:])
+    np.add.accumulate(running, axis=0, out=running)
+
+
+def deflator(measure: str, density: np.ndarray, cash_account: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+    """The state-price deflator of a set: ``density / cash_account`` in the real-world set
+    (``q_density = dQ/dP``), ``1 / cash_account`` in the market-consistent set."""
+    if out is None:
+        out = np.empty(np.shape(cash_account))
+    if measure == "real_world":
+        return np.divide(density, cash_account, out=out)
+    if measure == "market_consistent":
+        return np.divide(1.0, cash_account, out=out)
     raise ValueError(f"unknown measure {measure!r}")

@@ -39,7 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from pqflow.measure.blocks import gaussian_block_coefficients
-from pqflow.measure.density import density_coefficients
+from pqflow.measure.density import accumulate_exponent, deflator, density_coefficients, signed_coefficients
 from pqflow.models.base import ScenarioModel
 
 __all__ = [
@@ -256,13 +256,13 @@ def simulate_states(
     k_steps, n_times = times.size - 1, times.size
     d = laws.mean[measure].shape[1]
     n = n_paths // 2 if antithetic else n_paths
-    signed_eta = laws.eta if measure == "market_consistent" else -laws.eta
+    signed_eta = signed_coefficients(laws.eta, measure)[:, None, :]  # (K, 1, d)
     mean = laws.mean[measure]  # (n_times, d)
     half_sq = laws.half_sq_cum  # (n_times,)
     nb = len(block_rows)
     if nb:
         blaws = block_laws(model, times, block_rows)
-        signed_g = blaws.coef if measure == "market_consistent" else -blaws.coef  # (K, nb, d)
+        signed_g = signed_coefficients(blaws.coef, measure)  # (K, nb, d)
         half_sq_b = blaws.half_sq_cum  # (n_times, nb)
 
     # Outputs: fresh arrays, or the caller's reused buffers; scratch: block-sized, reused.
@@ -299,12 +299,11 @@ def simulate_states(
         b = min(_BLOCK, k_steps - k0)
         zb, yb, lb, sb, wb = z[:b], y[: b + 1], lin[: b + 1], out_s[:b], out_w[:b]
         rng.standard_normal(out=zb)
-        np.matmul(signed_eta[k0 : k0 + b, None, :], zb, out=lb[1:, None, :])
+        accumulate_exponent(signed_eta[k0 : k0 + b], zb, lb[:, None, :])  # density: measure.density
         np.matmul(laws.chol[k0 : k0 + b], zb, out=yb[1:])
         for j in range(b):
             np.matmul(laws.transition[k0 + j], yb[j], out=tmp)
             yb[j + 1] += tmp
-            lb[j + 1] += lb[j]
         cols = slice(k0 + 1, k0 + b + 1)
         m_blk = mean[cols][:, :, None]
         h_blk = half_sq[cols][:, None]
@@ -321,8 +320,7 @@ def simulate_states(
             density[1::2, cols] = wb.T
         if nb:  # restricted densities: the same accumulation with the blocks' coefficients
             lbb, wbb = lin_b[: b + 1], out_wb[:b]
-            np.matmul(signed_g[k0 : k0 + b], zb, out=lbb[1:])
-            np.add.accumulate(lbb, axis=0, out=lbb)
+            accumulate_exponent(signed_g[k0 : k0 + b], zb, lbb)
             hb_blk = half_sq_b[cols][:, :, None]
             np.subtract(lbb[1:], hb_blk, out=wbb)
             np.exp(wbb, out=wbb)
@@ -374,12 +372,8 @@ def simulate_batch(
         out = model.columns(times, core.path_states, names=names)  # type: ignore[call-arg]
     cash = out["cash_account"]
     density = core.density
-    deflator = np.empty(cash.shape) if workspace is None else workspace.array("deflator", cash.shape)
-    if measure == "real_world":
-        np.divide(density, cash, out=deflator)
-    else:
-        np.divide(1.0, cash, out=deflator)
-    out["deflator"] = deflator
+    buffer = None if workspace is None else workspace.array("deflator", cash.shape)
+    out["deflator"] = deflator(measure, density, cash, out=buffer)
     out[DENSITY_COLUMN[measure]] = density
     for name in whole:
         out[f"{DENSITY_COLUMN[measure]}_{name}"] = density

@@ -18,6 +18,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from pqflow.measure.blocks import DensityBlock, block_states, density_block_column, model_structure
+from pqflow.measure.density import deflator
 from pqflow.models.base import ScenarioModel
 from pqflow.models.cir_credit import CirCreditModel, simulate_credit
 from pqflow.models.hull_white_equity import bond_column
@@ -101,6 +102,5 @@ def simulate_part(
             column = density_block_column(measure, name)
             cols[column] = cols[column] * np.prod(paths.rating_density[list(ratings)], axis=0)
     cols[density] = cols[density] * paths.density
-    if measure == "real_world":
-        cols["deflator"] = cols[density] / cols["cash_account"]
+    cols["deflator"] = deflator(measure, cols[density], cols["cash_account"])
     return cols
