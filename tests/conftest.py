@@ -120,3 +120,29 @@ def mean_within_se(sample: np.ndarray, target: np.ndarray, n_se: float = 4.0) ->
     n = sample.shape[0]
     se = sample.std(axis=0, ddof=1) / np.sqrt(n)
     return bool(np.all(np.abs(sample.mean(axis=0) - target) < n_se * se))
+
+
+# -- measured sizes and powers, printed at the end of every test run -----------------------------
+
+STATISTICS_KEY = pytest.StashKey[list]()
+
+
+@pytest.fixture
+def report_statistic(request):
+    """``report_statistic(line)``: a measured size or power, printed in the terminal summary of
+    the run (so a plain ``make test`` shows it) and returned for use in an assertion message."""
+    lines = request.config.stash.setdefault(STATISTICS_KEY, [])
+
+    def add(line: str) -> str:
+        lines.append(f"{request.node.name}: {line}")
+        return line
+
+    return add
+
+
+def pytest_terminal_summary(terminalreporter, exitstatus, config):
+    lines = config.stash.get(STATISTICS_KEY, [])
+    if lines:
+        terminalreporter.section("measured sizes and powers of the verdict rules")
+        for line in lines:
+            terminalreporter.write_line(line)

@@ -282,7 +282,9 @@ def test_g2pp_runs_the_whole_balance_sheet_and_reconciles_in_closed_form(tmp_pat
     cfg = write_toml(tmp_path / "g2.toml", data)
     result = run_in_process(cfg, tmp_path / "run")
     summary = result["summary"]
-    assert summary["verdict"] == "pass", {k: v["verdict"] for k, v in summary["checks"].items()}
+    # no check fails (cells without the power to see a material deviation are inconclusive)
+    assert summary["verdict"] in ("pass", "inconclusive"), {k: v["verdict"] for k, v in summary["checks"].items()}
+    assert all(v["verdict"] != "fail" for v in summary["checks"].values())
     cal = read_json(tmp_path / "run" / "calibration.json")
     assert cal["parameters"]["rates_model"] == "g2pp" and "hull_white" not in cal["parameters"]
     rec = read_json(tmp_path / "run" / "validation" / "summary.json")["checks"]["reconciliation"]

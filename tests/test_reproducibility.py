@@ -60,15 +60,20 @@ def test_seed_tree_matches_numpy_spawning():
 
 def test_demo_sized_run_passes_martingale_test_at_99(demo_config_dict, tmp_path):
     # Demo size: 2,000 scenarios per set over 50 years. The martingale test (Society of
-    # Actuaries, Economic Scenario Generators: A Practical Guide, 2016, s. 8.3) must pass.
+    # Actuaries, Economic Scenario Generators: A Practical Guide, 2016, s. 8.3) must not fail:
+    # every cell within its family interval. Cells that cannot see a 5% deviation (10% for a
+    # density mean) with 50% power are inconclusive, and the check says so (validation.summary).
     from conftest import DEMO
 
     _, _, summary = _run(DEMO, tmp_path / "demo")
     for measure in ("market_consistent", "real_world"):
         check = summary["checks"][f"martingale_{measure}"]
-        assert check["verdict"] == "pass", check
+        assert check["verdict"] in ("pass", "inconclusive"), check
+        assert check["max_abs_z"] <= check["family_critical_z"], check
+        assert check["verdict"] == ("inconclusive" if check["inconclusive_cells"] else "pass")
         assert check["outside_99"] <= 0.03 * check["cells"]
-        assert summary["checks"][f"density_{measure}"]["verdict"] == "pass"
+        density = summary["checks"][f"density_{measure}"]
+        assert density["verdict"] in ("pass", "inconclusive") and density["max_abs_z"] <= density["family_critical_z"]
     verify_run(tmp_path / "demo")
 
 

@@ -48,7 +48,8 @@ def test_flow_writes_both_sets_and_is_reproducible(prefect_harness, small_config
     manifest = verify_run(first)
     assert manifest["seeds"]["root_seed"] == 20260930
     assert all(len(f["sha256"]) == 64 for f in manifest["files"])
-    assert read_json(first / "validation/summary.json")["verdict"] == "pass"
+    # no check fails; cells without the power to see a 5% deviation make it "inconclusive"
+    assert read_json(first / "validation/summary.json")["verdict"] in ("pass", "inconclusive")
 
     # A different worker count gives the same bytes (seed tree per measure and batch).
     second = tmp_path / "run-b"

@@ -78,7 +78,7 @@ def test_each_set_may_have_its_own_grid(small_config, tmp_path, demo_config_dict
     plan = plan_run(load_config(cfg))
     assert plan.times_for("real_world").size == 61 and plan.times_for("market_consistent").size == 21
     result = run_in_process(cfg, tmp_path / "run")
-    assert result["summary"]["verdict"] == "pass", result["summary"]
+    assert result["summary"]["verdict"] in ("pass", "inconclusive"), result["summary"]  # no check fails
     rw = pq.read_table(tmp_path / "run/scenarios/real_world/part-00001.parquet")
     mc = pq.read_table(tmp_path / "run/scenarios/market_consistent/part-00003.parquet")
     assert rw.column("time").to_numpy().max() == 5.0 and mc.column("scenario").to_numpy().max() == 399

@@ -184,10 +184,28 @@ def _checks(run: Path) -> dict[str, Any]:
 # -- a correct run passes every check ----------------------------------------------------------
 
 def test_correct_run_passes_every_check(good_run):
+    # A correct run fails no check. With 1,000 scenarios some cells cannot see a 5% deviation
+    # (10% for a density mean) with 50% power at the family level: those checks are
+    # "inconclusive", never "pass" (the rule of validation.summary); every cell that has the
+    # power passes, and the inconclusive count is exactly the cells without it.
     summary = read_json(good_run / "validation" / "summary.json")
-    assert summary["verdict"] == "pass"
+    assert summary["verdict"] in ("pass", "inconclusive")
     for name in GATING:
-        assert summary["checks"][name]["verdict"] == "pass", (name, summary["checks"][name])
+        entry = summary["checks"][name]
+        assert entry["verdict"] in ("pass", "inconclusive"), (name, entry)
+        assert entry["max_abs_z"] <= entry["family_critical_z"], name
+        assert entry["verdict"] == ("inconclusive" if entry["inconclusive_cells"] else "pass"), name
+    for name in ("market_consistency", "reconciliation"):  # no power rule: pass or fail
+        assert summary["checks"][name]["verdict"] == "pass"
+    martingale = run_checks(good_run, ess_warning_share=0.10).martingale
+    for measure, table in martingale.items():
+        entry = summary["checks"][f"martingale_{measure}"]
+        weak = table["material_effect"] / table["statistic_se"] < entry["family_critical_z"]
+        assert int(weak.sum()) == entry["inconclusive_cells"], measure
+        assert entry["inconclusive_from_time"] == (float(table.loc[weak, "time"].min()) if weak.any() else None)
+    totals = summary["inconclusive"]
+    assert totals["cells"] == sum(summary["checks"][n]["inconclusive_cells"] for n in totals["checks"])
+    assert summary["verdict"] == ("inconclusive" if totals["cells"] else "pass")
     mc = summary["checks"]["market_consistency"]
     assert mc["instruments_tested"] == 6 and mc["cells"] == 6 * 2 * 2  # vs market and model, both sets
     for stem in ("martingale", "density", "market_consistency", "real_world_targets", "real_world_statistics",
@@ -216,7 +234,7 @@ def test_martingale_catches_an_equity_drift(good_run, tmp_path):
     checks = _checks(bad)
     assert checks["martingale_market_consistent"]["verdict"] == "fail"
     assert checks["martingale_market_consistent"]["worst_cell"]["asset"] == col
-    assert checks["martingale_real_world"]["verdict"] == "pass"  # the other set is untouched
+    assert checks["martingale_real_world"]["verdict"] != "fail"  # the other set is untouched
 
 
 def test_real_world_check_catches_a_wrong_equity_premium(good_run, tmp_path):
@@ -235,7 +253,7 @@ def test_density_catches_scaled_weights(good_run, tmp_path):
     _rewrite_parts(bad, "real_world", "q_density", lambda v, t: np.where(t > 0, 1.05 * v, v))
     checks = _checks(bad)
     assert checks["density_real_world"]["verdict"] == "fail"
-    assert checks["density_market_consistent"]["verdict"] == "pass"
+    assert checks["density_market_consistent"]["verdict"] != "fail"  # untouched (pass or inconclusive)
 
 
 def test_density_warns_where_the_effective_sample_size_falls(good_run):
@@ -379,6 +397,6 @@ def test_wealth_benchmark_is_reported_and_can_be_made_to_count(good_run):
     reported = read_json(good_run / "validation" / "summary.json")["checks"]["real_world"]
     assert reported["wealth_ratio_benchmark"]["verdict"] == "fail"
     assert reported["wealth_ratio_benchmark"]["counts_toward_verdict"] is False
-    assert reported["verdict"] == "pass"
+    assert reported["verdict"] in ("pass", "inconclusive")  # the benchmark's miss does not fail it
     gated = run_checks(good_run, ess_warning_share=0.1, wealth_benchmark_gating=True).summary
     assert gated["checks"]["real_world"]["verdict"] == "fail" and gated["verdict"] == "fail"

@@ -119,8 +119,9 @@ def test_every_new_asset_is_in_both_martingale_tables_and_passes(full_checks):
     for measure, table in full_checks.martingale.items():
         entry = checks[f"martingale_{measure}"]
         # SOA 2016 s. 8.3: each asset within its interval at every date; family-wise
-        # (Bonferroni, 99%) over every cell of the set.
-        assert entry["verdict"] == "pass", (measure, entry["worst_cell"])
+        # (Bonferroni, 99%) over every cell of the set. With 500 antithetic pairs the cells
+        # that cannot see a 5% deviation are inconclusive, not passed (validation.summary).
+        assert entry["verdict"] in ("pass", "inconclusive"), (measure, entry["worst_cell"])
         crit = family_critical_z(len(table))
         assert crit == pytest.approx(entry["family_critical_z"])
         for asset in _new_assets():
@@ -176,7 +177,7 @@ def test_martingale_catches_a_drift_in_the_cpi(full_run, tmp_path):
     crit = entry["family_critical_z"]
     assert (table[table["asset"] == "cpi"]["z_score"].abs() > crit).any()
     assert (table[table["asset"].isin(["deflator", "zcb_10y"])]["z_score"].abs() <= crit).all()  # only the CPI's claims fail
-    assert result.summary["checks"]["martingale_real_world"]["verdict"] == "pass"  # the P set is untouched
+    assert result.summary["checks"]["martingale_real_world"]["verdict"] != "fail"  # the P set is untouched
     assert result.summary["verdict"] == "fail"
 
 
@@ -247,7 +248,7 @@ def test_risk_premium_rows_for_each_further_index(full_checks, full_run, tmp_pat
     with open(DEMO, "rb") as fh:
         indices = {i["name"]: i for i in tomllib.load(fh)["indices"]}
     entry = full_checks.summary["checks"]["real_world"]
-    assert entry["verdict"] == "pass"
+    assert entry["verdict"] in ("pass", "inconclusive")  # no cell fails (checked per row below)
     targets = full_checks.tables["real_world_targets"]
     for column, name in (("equity_world_equity", "world_equity"), ("property_veldmark_property", "veldmark_property")):
         rows = _premium_rows(targets, column)
@@ -287,7 +288,8 @@ def test_expected_returns_include_property_and_cpi(full_checks):
 
 def test_a_run_without_inflation_or_credit_has_no_such_rows(plain_run):
     result = run_checks(plain_run, ess_warning_share=0.10)
-    assert result.summary["verdict"] == "pass"
+    assert result.summary["verdict"] in ("pass", "inconclusive")
+    assert all(c["verdict"] != "fail" for c in result.summary["checks"].values())
     for measure, table in result.martingale.items():
         assets = set(table["asset"])
         assert not {a for a in assets if a == "cpi" or a.startswith(("real_zcb_", "dzcb_", "cumulative_intensity_"))}

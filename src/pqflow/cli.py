@@ -1,8 +1,9 @@
 """The ``pqflow`` command.
 
-Exit codes: 0 run written and every check passed; 1 run written but a check failed (the files
-are kept so the failure can be studied); 2 bad input (configuration, output directory), nothing
-written.
+Exit codes: 0 run written and no check failed (checks that are inconclusive, i.e. lack the
+power to see a material deviation, are counted and printed, not failed); 1 run written but a
+check failed (the files are kept so the failure can be studied); 2 bad input (configuration,
+output directory), nothing written.
 """
 
 from __future__ import annotations
@@ -14,6 +15,7 @@ from typing import Annotated, Any, Optional
 
 import typer
 from rich.console import Console
+from rich.markup import escape
 from rich.table import Table
 
 from pqflow import CAUTION, __version__
@@ -52,7 +54,7 @@ def _caution() -> None:
 
 
 def _verdict_cell(verdict: str, counts: bool) -> str:
-    colour = {"pass": "green", "fail": "red"}.get(verdict, "grey50")
+    colour = {"pass": "green", "fail": "red", "inconclusive": "yellow"}.get(verdict, "grey50")
     label = verdict.replace("_", " ").upper()
     return f"[{colour}]{label}[/]" + ("" if counts else " [dim](info)[/]")
 
@@ -64,11 +66,12 @@ def _summary_table(summary: dict[str, Any]) -> Table:
     table.add_column("outside 95% / chance", justify="right")
     table.add_column("outside 99% / chance", justify="right")
     table.add_column("max |z| / limit", justify="right")
+    table.add_column("inconclusive", justify="right")
     table.add_column("verdict")
     for name, c in summary["checks"].items():
         counts = bool(c.get("counts_toward_verdict", True))
         if "cells" not in c:
-            table.add_row(name.replace("_", " "), "", "", "", "", _verdict_cell(c["verdict"], counts))
+            table.add_row(name.replace("_", " "), "", "", "", "", "", _verdict_cell(c["verdict"], counts))
             continue
         table.add_row(
             name.replace("_", " "),
@@ -76,6 +79,7 @@ def _summary_table(summary: dict[str, Any]) -> Table:
             f"{c['outside_95']} / {c['expected_outside_95_by_chance']:.1f}",
             f"{c['outside_99']} / {c['expected_outside_99_by_chance']:.1f}",
             f"{c['max_abs_z']:.2f} / {c['family_critical_z']:.2f}",
+            _inconclusive_cell(c),
             _verdict_cell(c["verdict"], counts),
         )
         bench = c.get("wealth_ratio_benchmark")
@@ -83,10 +87,58 @@ def _summary_table(summary: dict[str, Any]) -> Table:
             table.add_row(
                 "  equity wealth ratios vs AAA (2005)",
                 str(bench.get("comparisons", "")),
-                "", "", f"{bench.get('failed', 0)} missed",
+                "", "", f"{bench.get('failed', 0)} missed", "",
                 _verdict_cell(bench["verdict"], bool(bench.get("counts_toward_verdict", False))),
             )
     return table
+
+
+def _inconclusive_cell(c: dict[str, Any]) -> str:
+    n = int(c.get("inconclusive_cells", 0) or 0)
+    if not n:
+        return ""
+    start = c.get("inconclusive_from_time")
+    return f"{n}" + (f" from {start:g}y" if start is not None else "")
+
+
+def _print_validation(summary: dict[str, Any]) -> None:
+    """The verdict table, the rule, each density's usable horizon, the density budget at the
+    horizon, the warnings and the inconclusive cells (values escaped: rich would take text in
+    brackets for markup)."""
+    console.print(_summary_table(summary))
+    console.print(f"rule: {escape(str(summary['rule']))}", style="dim", highlight=False)
+    for d in summary.get("densities", []) or []:
+        horizon = d.get("usable_horizon")
+        label = d["column"] + (f" (block {d['block']})" if d.get("block") else "")
+        text = (f"usable to {horizon:g} years" if horizon is not None else "usable to the horizon")
+        console.print(
+            f"density {escape(label)}, {escape(d['measure'])}: {text}; at the horizon ESS share "
+            f"{d['ess_share_at_horizon']:.3f}, largest weight {d['max_weight_share_at_horizon']:.1%}",
+            highlight=False,
+        )
+    for measure, shares in (summary.get("density_budget") or {}).items():
+        if shares:
+            parts = ", ".join(f"{escape(k)} {v:.0%}" for k, v in sorted(shares.items(), key=lambda kv: -abs(kv[1])))
+            console.print(f"density budget at the horizon, {escape(measure)} (share of log-density variance): {parts}",
+                          highlight=False)
+    for check in summary["checks"].values():
+        for warning in check.get("warnings", []):
+            console.print(f"[yellow]warning:[/] {escape(str(warning))}", highlight=False)
+    inc = summary.get("inconclusive") or {}
+    if inc.get("cells"):
+        start = inc.get("from_time")
+        console.print(
+            f"[yellow]inconclusive:[/] {inc['cells']} cells in {', '.join(escape(c) for c in inc.get('checks', []))} "
+            + (f"from t = {start:g} years " if start is not None else "")
+            + "could not detect a material deviation with 50% power (more scenarios or a restricted "
+            "density would make them conclusive)",
+            highlight=False,
+        )
+
+
+def _verdict_line(verdict: str) -> str:
+    colour = {"pass": "green", "inconclusive": "yellow"}.get(verdict, "red")
+    return f"[{colour}]{verdict.upper()}[/]"
 
 
 @app.command()
@@ -172,15 +224,10 @@ def run(
             highlight=False,
         )
     summary = result["summary"]
-    console.print(_summary_table(summary))
-    console.print(f"rule: {summary['rule']}", style="dim", highlight=False)
-    for check in summary["checks"].values():
-        for warning in check.get("warnings", []):
-            console.print(f"[yellow]warning:[/] {warning}", highlight=False)
-    colour = "green" if summary["verdict"] == "pass" else "red"
+    _print_validation(summary)
     console.print(
-        f"overall verdict: [{colour}]{summary['verdict'].upper()}[/]; run written to "
-        f"{result['out_dir']} in {time.perf_counter() - started:.1f} s",
+        f"overall verdict: {_verdict_line(summary['verdict'])}; run written to "
+        f"{escape(str(result['out_dir']))} in {time.perf_counter() - started:.1f} s",
         highlight=False,
     )
     console.print(
@@ -189,7 +236,35 @@ def run(
         style="dim", highlight=False,
     )
     _caution()
-    if summary["verdict"] != "pass":
+    if summary["verdict"] == "fail":
+        raise typer.Exit(code=1)
+
+
+@app.command()
+def validate(
+    run_dir: Annotated[Path, typer.Argument(help="A finished run directory (e.g. copied or exported).")],
+    ess_warning_share: Annotated[Optional[float], typer.Option("--ess-warning-share", help="Effective sample size share below which a density is past its usable horizon (default: the run's own, else 0.10).", min=0.0, max=1.0)] = None,
+) -> None:
+    """Re-run every check from the files: manifest first, then the checks, then a fresh validation/.
+
+    The earlier validation/ stays whole if anything fails; the report, if present, is rendered
+    again. Exit code 0 when no check fails (inconclusive cells are printed), 1 when one fails.
+    """
+    from pqflow.jobs.steps import revalidate_run
+
+    try:
+        summary = revalidate_run(run_dir, ess_warning_share=ess_warning_share)
+    except PqflowError as exc:
+        _fail(exc)
+    _print_validation(summary)
+    if (run_dir / "validation" / "report.html").is_file():
+        from pqflow.report import write_report
+
+        console.print(f"report updated: {escape(str(write_report(run_dir)))}", style="dim", highlight=False)
+    console.print(f"overall verdict: {_verdict_line(summary['verdict'])}; validation/ rewritten in "
+                  f"{escape(str(run_dir))}", highlight=False)
+    _caution()
+    if summary["verdict"] == "fail":
         raise typer.Exit(code=1)
 
 

@@ -45,6 +45,8 @@ __all__ = [
     "write_calibration",
     "generate_part",
     "validate_staged_run",
+    "write_validation",
+    "revalidate_run",
     "write_run_manifest",
     "written_columns",
     "REQUIRED_COLUMNS",
@@ -273,19 +275,64 @@ def curve_from_calibration_file(run_dir: str | Path) -> DiscountCurve:
 def validate_staged_run(run_dir: str | Path, config: RunConfig) -> dict[str, Any]:
     """Every check from the files (martingale, density, market consistency, real world,
     reconciliation); writes ``validation/`` (one CSV per table and ``summary.json``)."""
+    return write_validation(run_dir, ess_warning_share=config.validation.ess_warning_share)
+
+
+def write_validation(run_dir: str | Path, *, ess_warning_share: float) -> dict[str, Any]:
+    """Run every check on the files of ``run_dir`` and put a fresh ``validation/`` in place:
+    the tables and ``summary.json`` are written to a sibling folder first, which then replaces
+    the old one (:func:`pqflow.storage.results.replace_directory`), so a failed check run leaves
+    the earlier ``validation/`` whole. An existing ``report.html`` is carried over (the caller
+    re-renders it)."""
+    import shutil
+    import uuid
+
+    from pqflow.storage.results import replace_directory, write_csv_atomic
     from pqflow.validation.evidence import run_checks
 
     run_dir = Path(run_dir)
-    result = run_checks(run_dir, ess_warning_share=config.validation.ess_warning_share)
+    result = run_checks(run_dir, ess_warning_share=ess_warning_share)
     out = run_dir / "validation"
-    out.mkdir(parents=True, exist_ok=True)
-    tables = {"martingale": _stack(result.martingale), "density": _stack(result.density), **result.tables}
-    for name, frame in tables.items():
-        tmp = out / f".{name}.csv.tmp"
-        frame.to_csv(tmp, index=False, float_format="%.10g")
-        tmp.replace(out / f"{name}.csv")
-    summary = {"caution": CAUTION, **result.summary}
-    write_json_atomic(out / "summary.json", summary)
+    fresh = run_dir / f".validation.new-{uuid.uuid4().hex[:12]}"
+    try:
+        fresh.mkdir(parents=True)
+        tables = {"martingale": _stack(result.martingale), "density": _stack(result.density), **result.tables}
+        for name, frame in tables.items():
+            write_csv_atomic(frame, fresh / f"{name}.csv")
+        summary = {"caution": CAUTION, **result.summary}
+        write_json_atomic(fresh / "summary.json", summary)
+        if (out / "report.html").is_file():
+            shutil.copy2(out / "report.html", fresh / "report.html")
+        replace_directory(fresh, out)
+    finally:
+        if fresh.exists():
+            shutil.rmtree(fresh, ignore_errors=True)
+    return summary
+
+
+def revalidate_run(run_dir: str | Path, *, ess_warning_share: float | None = None) -> dict[str, Any]:
+    """``pqflow validate``: check every file against ``manifest.json`` first, re-run every check
+    from the files and ``calibration.json``, put a fresh ``validation/`` in place and record its
+    files in the manifest again (the scenario files are unchanged; the header gains
+    ``revalidated_utc``). ``ess_warning_share``: default the one the run's earlier summary
+    records, else 0.10."""
+    from pqflow.storage.manifest import verify_run
+
+    run_dir = Path(run_dir)
+    manifest = verify_run(run_dir)
+    if ess_warning_share is None:
+        ess_warning_share = 0.10
+        earlier = run_dir / "validation" / "summary.json"
+        if earlier.is_file():
+            try:
+                recorded = read_json(earlier)["checks"]["density_real_world"]["ess_warning_share"]
+                ess_warning_share = float(recorded)
+            except (KeyError, TypeError, ValueError):
+                pass
+    summary = write_validation(run_dir, ess_warning_share=ess_warning_share)
+    header = {k: v for k, v in manifest.items() if k != "files"}
+    header["revalidated_utc"] = dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
+    write_json_atomic(run_dir / MANIFEST, build_manifest(run_dir, header=header))
     return summary
 
 

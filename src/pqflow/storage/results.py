@@ -4,6 +4,8 @@
 from __future__ import annotations
 
 import os
+import shutil
+import uuid
 from pathlib import Path
 from typing import Any
 
@@ -13,7 +15,7 @@ import pyarrow.parquet as pq
 
 from pqflow.storage.jsonio import write_json_atomic
 
-__all__ = ["write_parquet_atomic", "write_csv_atomic", "write_result_tables"]
+__all__ = ["write_parquet_atomic", "write_csv_atomic", "write_result_tables", "replace_directory"]
 
 
 def _tmp(path: Path) -> Path:
@@ -70,3 +72,23 @@ def write_result_tables(
     if summary is not None:
         written["summary.json"] = str(write_json_atomic(out / "summary.json", summary))
     return written
+
+
+def replace_directory(fresh: str | Path, target: str | Path) -> Path:
+    """Put the finished folder ``fresh`` in place of ``target`` (same parent) by renames: the
+    old folder is moved aside, the new one moved in, the old one removed. A failure before the
+    second rename leaves ``target`` as it was; ``fresh`` is never half-copied into it."""
+    fresh, target = Path(fresh), Path(target)
+    old = None
+    if target.exists():
+        old = target.with_name(f".{target.name}.old-{uuid.uuid4().hex[:12]}")
+        os.replace(target, old)
+    try:
+        os.replace(fresh, target)
+    except OSError:
+        if old is not None:
+            os.replace(old, target)
+        raise
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+    return target

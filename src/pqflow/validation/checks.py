@@ -1,14 +1,15 @@
 """The common shape of a check's result, and the family-wise verdict rule for its cells.
 
 A check produces tables (written as CSV beside ``summary.json``) and one machine-readable entry
-of ``summary.json["checks"]``. Every entry carries ``verdict`` (``"pass"``, ``"fail"`` or
-``"not_applicable"``), ``kind`` (what the check is about), ``rule`` (the tolerance in words),
+of ``summary.json["checks"]``. Every entry carries ``verdict`` (``"pass"``, ``"inconclusive"``,
+``"fail"`` or ``"not_applicable"``), ``kind`` (what the check is about), ``rule`` (the tolerance in words),
 ``counts_toward_verdict`` (whether the run's overall verdict depends on it) and ``warnings``.
 A check whose statistic is a set of z-scores also carries the cell summary of
 :mod:`pqflow.validation.summary` (``cells``, ``outside_95``, ``max_abs_z``,
 ``family_critical_z``, ...): it passes when every cell lies within its Bonferroni-corrected
 interval at family level 99%, whatever the correlation between the cells (Bonferroni's
-inequality; common practice in multiple testing).
+inequality; common practice in multiple testing), and is inconclusive when it does not fail but
+a cell lacks the power to see a material deviation (:mod:`pqflow.validation.summary`).
 """
 
 from __future__ import annotations
@@ -20,7 +21,7 @@ import pandas as pd
 
 __all__ = ["CheckResult", "VERDICTS", "cells_entry", "not_applicable_entry"]
 
-VERDICTS = ("pass", "fail", "not_applicable")
+VERDICTS = ("pass", "inconclusive", "fail", "not_applicable")
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -40,11 +41,13 @@ def cells_entry(
     kind: str,
     rule: str,
     counts_toward_verdict: bool = True,
+    deviation: float | None = None,
 ) -> dict[str, Any]:
-    """Summary entry of a check whose cells carry a ``z_score`` column."""
+    """Summary entry of a check whose cells carry a ``z_score`` column (and, with
+    ``deviation``, the power rule's ``material_effect`` and ``statistic_se``)."""
     from pqflow.validation.summary import cells_summary
 
-    entry = cells_summary(cells.reset_index(drop=True), label_cols)
+    entry = cells_summary(cells.reset_index(drop=True), label_cols, deviation=deviation)
     if len(cells) == 0:
         entry["verdict"] = "not_applicable"
     entry.update(kind=kind, rule=rule, counts_toward_verdict=counts_toward_verdict)

@@ -13,8 +13,13 @@ Checks (keys of ``summary["checks"]``):
   (:mod:`pqflow.validation.real_world`);
 * ``reconciliation``: a guarantee valued three ways (:mod:`pqflow.validation.reconciliation`).
 
-The run's ``verdict`` is ``"fail"`` when any check that counts toward it fails; a check that is
-``not_applicable`` neither passes nor fails the run.
+The run's ``verdict`` is ``"fail"`` when any check that counts toward it fails, else
+``"inconclusive"`` when any such check is inconclusive (a cell without the power to see a
+material deviation), else ``"pass"``; a check that is ``not_applicable`` neither passes nor
+fails the run. ``summary["inconclusive"]`` counts the inconclusive cells and gives the earliest
+time of one; ``summary["densities"]`` gives each density column's usable horizon and
+``summary["density_budget"]`` each price of risk's share of the log-density variance at the
+horizon (:mod:`pqflow.measure.budget`; the full table is ``density_budget.csv``).
 """
 
 from __future__ import annotations
@@ -31,15 +36,12 @@ from pqflow.validation.market_consistency import market_consistency_check
 from pqflow.validation.real_world import real_world_check
 from pqflow.validation.reconciliation import reconciliation_check
 from pqflow.validation.run_files import json_safe, load_run_inputs
-from pqflow.validation.summary import FAMILY_ALPHA, validate_run
+from pqflow.validation.mean_tests import credit_in_density
+from pqflow.validation.summary import VERDICT_RULE, combine_verdicts, inconclusive_totals, validate_run
 
 __all__ = ["RunValidation", "run_checks", "overall_verdict", "RULE"]
 
-RULE = (
-    "a check passes when every cell lies within its Bonferroni-corrected interval at family "
-    f"level {1 - FAMILY_ALPHA:.0%} (market quotes: within their stated volatility tolerance "
-    "plus that interval); the run passes when no check that counts toward the verdict fails"
-)
+RULE = VERDICT_RULE + " (market quotes: within their stated volatility tolerance plus that interval)"
 
 _KINDS = {
     "martingale": ("deflated asset prices average to today's prices (1 = 1 test)",
@@ -48,7 +50,7 @@ _KINDS = {
                    "defaultable bonds (recovery of market value): Duffie and Singleton, Rev. Financ. "
                    "Stud. 12 (1999)"),
     "density": ("density weights average to 1; effective sample size and largest weight share",
-                "E[Z_t] = 1 for a density process; Kish's effective sample size"),
+                "E[Z_t] = 1 for a density process; effective sample size as Kong (1992) defines it"),
 }
 
 
@@ -70,12 +72,34 @@ class RunValidation:
 
 
 def overall_verdict(checks: dict[str, dict[str, Any]]) -> str:
-    """``"fail"`` if a check counting toward the verdict failed, else ``"pass"``."""
-    failed = [
-        name for name, c in checks.items()
-        if c.get("counts_toward_verdict", True) and c.get("verdict") == "fail"
-    ]
-    return "fail" if failed else "pass"
+    """``"fail"`` if a check counting toward the verdict failed, else ``"inconclusive"`` if one
+    is inconclusive, else ``"pass"``."""
+    return combine_verdicts([c.get("verdict", "") for c in checks.values() if c.get("counts_toward_verdict", True)])
+
+
+def density_budget_for_run(inputs) -> tuple[pd.DataFrame | None, dict[str, dict[str, float]]]:
+    """The density budget of a run (:func:`pqflow.measure.budget.density_budget`) from its
+    ``calibration.json`` (the model rebuilt from the record) and each set's output grid; and
+    each price of risk's share at each set's last time. A record the model cannot be rebuilt
+    from gives no table and an empty budget (the checks themselves need only the files)."""
+    from pqflow.calibration.assemble import build_model, load_calibration
+    from pqflow.measure.budget import density_budget
+
+    try:
+        cal = load_calibration(inputs.run_dir / "calibration.json")
+        model = build_model(cal, ())
+    except (KeyError, TypeError, ValueError):
+        return None, {}
+    grids = {}
+    for measure in ("real_world", "market_consistent"):
+        times, _ = next(inputs.reader(measure).iter_arrays([]))
+        grids[measure] = times
+    table = density_budget(model, cal.credit, grids)
+    at_horizon: dict[str, dict[str, float]] = {}
+    for measure, rows in table.groupby("measure", sort=False):
+        last = rows[rows["time"] == rows["time"].max()]
+        at_horizon[str(measure)] = {str(r.price_of_risk): float(r.share) for r in last.itertuples(index=False)}
+    return table, at_horizon
 
 
 def run_checks(
@@ -96,8 +120,9 @@ def run_checks(
     level at time 0).
     """
     inputs = load_run_inputs(run_dir)
+    credit = credit_in_density(inputs.parameters, inputs.reader("real_world").column_names())
     mart, dens, base = validate_run(run_dir, inputs.curve.discount, ess_warning_share=ess_warning_share,
-                                    extra_assets=partial(martingale_assets, inputs))
+                                    extra_assets=partial(martingale_assets, inputs), credit_density=credit)
     checks: dict[str, dict[str, Any]] = {}
     for name, entry in base["checks"].items():
         family = name.split("_", 1)[0]
@@ -113,9 +138,15 @@ def run_checks(
     for result in results:
         checks[result.name] = result.summary
         tables.update(result.tables)
+    budget_table, budget = density_budget_for_run(inputs)
+    if budget_table is not None:
+        tables["density_budget"] = budget_table
     summary = {
         "verdict": overall_verdict(checks),
         "rule": RULE,
+        "inconclusive": inconclusive_totals(checks),
         "checks": checks,
+        "densities": base["densities"],
+        "density_budget": budget,
     }
     return RunValidation(martingale=mart, density=dens, tables=tables, summary=json_safe(summary))

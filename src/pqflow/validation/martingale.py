@@ -14,10 +14,12 @@ A Practical Guide*, 2016, section 8.3):
   and defaultable bonds, built by :func:`pqflow.validation.assets.martingale_assets`).
 
 Standard errors come from independent sampling units (antithetic pairs averaged first). A
-cell's score is Johnson's skewness-corrected t of the estimate against its expected value
-(:mod:`pqflow.validation.moments`: deflated prices are skewed to the right, and the plain t
-then raises false alarms below the mean); it passes at level ``1 - alpha`` when
-``|z| <= z_{1-alpha/2}``.
+cell's score (``z_score``) is the test its ``test`` column names
+(:mod:`pqflow.validation.mean_tests`): the lognormal identity for the Gaussian economy's
+deflated prices, the robust t for the credit claims and, when the density carries the credit
+part, every real-world cell. The plain t is kept as ``z_score_plain_t`` for information;
+``statistic_se`` and ``material_effect`` (5% of today's price on the statistic's scale) decide
+whether the cell has the power to judge (:func:`pqflow.validation.summary.cells_summary`).
 """
 
 from __future__ import annotations
@@ -31,7 +33,7 @@ from scipy.stats import norm
 
 from pqflow.errors import IntegrityError
 from pqflow.validation.assets import MartingaleAsset
-from pqflow.validation.moments import Moments, sampling_units
+from pqflow.validation.mean_tests import MARTINGALE_DEVIATION, CellMoments, mean_test, rule_for_asset
 from pqflow.validation.reader import ScenarioSetReader
 
 __all__ = ["martingale_table", "bond_maturity_of", "index_columns", "INDEX_PREFIXES", "LEVELS"]
@@ -83,9 +85,12 @@ def martingale_table(
     reader: ScenarioSetReader,
     discount: Callable[[np.ndarray], np.ndarray],
     extra: Sequence[MartingaleAsset] = (),
+    *,
+    credit_density: bool = False,
 ) -> pd.DataFrame:
     """One row per (asset, time > 0). ``discount`` is today's curve ``t -> P(0, t)``; ``extra``
-    are further assets (their columns must be in the files, their names new)."""
+    are further assets (their columns must be in the files, their names new); credit_density:
+    whether the set's density carries the CIR credit part (its cells are then not lognormal)."""
     names = reader.column_names()
     start: dict[str, float] = {}
     assets = [*_builtin_assets(names, discount, start), *extra]
@@ -99,14 +104,15 @@ def martingale_table(
     needed = list(dict.fromkeys(["deflator", *(c for a in assets for c in a.columns)]))
     antithetic = reader.antithetic
 
-    acc: dict[str, Moments | None] = {a.name: None for a in assets}
+    acc: dict[str, CellMoments | None] = {a.name: None for a in assets}
     times = None
     for times, cols in reader.iter_arrays(needed):
         deflator = cols["deflator"]
         for a in assets:
             values = deflator * a.value(cols)
-            m = Moments.of(sampling_units(values, antithetic))
-            acc[a.name] = m if acc[a.name] is None else acc[a.name].merge(m)
+            prev = acc[a.name]
+            m = CellMoments.of(values, antithetic, None if prev is None else prev.shift)
+            acc[a.name] = m if prev is None else prev.merge(m)
         for e in indices:
             start.setdefault(e, float(cols[e][0, 0]))
     assert times is not None
@@ -116,21 +122,24 @@ def martingale_table(
         moments = acc[a.name]
         assert moments is not None
         ref = np.asarray(a.reference(times), dtype=float)
-        ratio = moments.mean / ref
-        se = moments.std_error / ref
-        zs = moments.z_score(ref)  # Johnson's skewness-corrected t (validation.moments)
+        rule = rule_for_asset(a.name, measure=reader.measure, credit_density=credit_density)
+        res = mean_test(moments, ref, rule, deviation=MARTINGALE_DEVIATION)
         for k in range(1, times.size):
-            z = zs[k]
+            z = res.z_score[k]
             row = {
                 "asset": a.name,
                 "description": a.description,
                 "time": float(times[k]),
                 "expected": float(ref[k]),
-                "estimate": float(moments.mean[k]),
-                "std_error": float(moments.std_error[k]),
-                "ratio": float(ratio[k]),
-                "ratio_std_error": float(se[k]),
+                "estimate": float(res.estimate[k]),
+                "std_error": float(res.std_error[k]),
+                "ratio": float(res.estimate[k] / ref[k]),
+                "ratio_std_error": float(res.std_error[k] / ref[k]),
+                "test": str(res.test[k]),
                 "z_score": float(z),
+                "z_score_plain_t": float(res.z_plain[k]),
+                "statistic_se": float(res.statistic_se[k]),
+                "material_effect": float(res.material_effect[k]),
             }
             for level in LEVELS:
                 row[f"pass_{int(round(level * 100))}"] = bool(abs(z) <= norm.ppf(0.5 + level / 2))

@@ -21,6 +21,7 @@ from pqflow.errors import IntegrityError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.serialize import curve_from_json
 from pqflow.storage.jsonio import read_json
+from pqflow.validation.mean_tests import CellMoments
 from pqflow.validation.moments import Moments, sampling_units
 from pqflow.validation.reader import ScenarioSetReader
 
@@ -29,6 +30,7 @@ __all__ = [
     "load_run_inputs",
     "time_index",
     "stream_moments",
+    "stream_cells",
     "gather_at_times",
     "json_safe",
     "MEASURE_LABEL",
@@ -96,6 +98,29 @@ def stream_moments(
                 values = values[:, None]
             m = Moments.of(sampling_units(values, antithetic))
             acc[name] = m if name not in acc else acc[name].merge(m)
+    if times is None:
+        raise IntegrityError(f"{reader.set_dir}: no scenario parts found")
+    return times, acc
+
+
+def stream_cells(
+    reader: ScenarioSetReader,
+    columns: Sequence[str],
+    derive: Callable[[np.ndarray, dict[str, np.ndarray]], Mapping[str, np.ndarray]],
+) -> tuple[np.ndarray, dict[str, CellMoments]]:
+    """As :func:`stream_moments`, with the moments the tests of a mean need
+    (:class:`pqflow.validation.mean_tests.CellMoments`: also of ``log X``)."""
+    antithetic = reader.antithetic
+    acc: dict[str, CellMoments] = {}
+    times = None
+    for times, cols in reader.iter_arrays(list(dict.fromkeys(columns))):
+        for name, values in derive(times, cols).items():
+            values = np.asarray(values, dtype=float)
+            if values.ndim == 1:
+                values = values[:, None]
+            prev = acc.get(name)
+            m = CellMoments.of(values, antithetic, None if prev is None else prev.shift)
+            acc[name] = m if prev is None else prev.merge(m)
     if times is None:
         raise IntegrityError(f"{reader.set_dir}: no scenario parts found")
     return times, acc

@@ -7,6 +7,14 @@ cell lies within its Bonferroni-corrected interval, ``|z| <= Phi^{-1}(1 - alpha 
 ``n`` cells and ``alpha = 1%`` (Bonferroni's inequality holds whatever the correlation; common
 practice in multiple testing). The share of cells outside their own 95% and 99% intervals is
 reported beside what chance alone would give, for the reader's judgement.
+
+Three verdicts. A cell *fails* when ``|z|`` exceeds the family critical value; it is
+*inconclusive* when it does not fail but its test cannot detect a material deviation (5% of
+today's price for a martingale cell, 10% for a density mean; columns ``material_effect`` and
+``statistic_se``, :mod:`pqflow.validation.mean_tests`) with at least 50% power at the family
+level, i.e. when ``material_effect / statistic_se < z_f``; otherwise it *passes*. A check fails
+when any cell fails, else is inconclusive when any cell is, else passes; the run the same over
+its checks. A table without those two columns has no power rule (its cells pass or fail).
 """
 
 from __future__ import annotations
@@ -15,17 +23,48 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
 from pqflow.validation.assets import MartingaleAsset
-from pqflow.validation.density import density_table
+from pqflow.validation.density import density_table, usable_horizons
 from pqflow.validation.martingale import martingale_table
+from pqflow.validation.mean_tests import DENSITY_DEVIATION, MARTINGALE_DEVIATION
 from pqflow.validation.reader import ScenarioSetReader
 
-__all__ = ["summarise", "validate_run", "cells_summary", "family_critical_z", "FAMILY_ALPHA"]
+__all__ = [
+    "summarise", "validate_run", "cells_summary", "family_critical_z", "FAMILY_ALPHA", "combine_verdicts",
+    "VERDICT_RULE", "power_rule_text", "inconclusive_mask", "inconclusive_totals",
+]
 
 FAMILY_ALPHA = 0.01
+VERDICT_RULE = (
+    "a cell fails when it lies outside its Bonferroni-corrected interval at family level 99%; it is "
+    "inconclusive when it does not fail but its test could not detect a material deviation (5% of "
+    "today's price for a deflated price, 10% for a density mean) with at least 50% power at that "
+    "level; a check fails when any of its cells fails, else is inconclusive when any cell is, else "
+    "passes; the run is judged the same way over the checks that count toward its verdict"
+)
+
+
+def power_rule_text(deviation: float) -> str:
+    """The power rule in one plain sentence."""
+    return (
+        f"a cell is inconclusive when its test would detect a deviation of {deviation:.0%} of the expected "
+        "value less than half the time at the family level (material effect / standard error below the "
+        "family critical z)"
+    )
+
+
+def combine_verdicts(verdicts: list[str]) -> str:
+    """``fail`` if any fails, else ``inconclusive`` if any is, else ``pass`` (``not_applicable``
+    and other labels count as neither)."""
+    if "fail" in verdicts:
+        return "fail"
+    if "inconclusive" in verdicts:
+        return "inconclusive"
+    return "pass"
 
 
 def family_critical_z(n_cells: int, alpha: float = FAMILY_ALPHA) -> float:
@@ -33,12 +72,31 @@ def family_critical_z(n_cells: int, alpha: float = FAMILY_ALPHA) -> float:
     return float(norm.ppf(1.0 - alpha / (2.0 * max(n_cells, 1))))
 
 
-def cells_summary(table: pd.DataFrame, label_cols: list[str]) -> dict[str, Any]:
-    """Cell counts, worst cell and family-wise verdict of a table with a ``z_score`` column."""
+def inconclusive_mask(table: pd.DataFrame, crit: float) -> pd.Series:
+    """Cells that do not fail but lack the power to detect their material effect (module
+    docstring); all ``False`` for a table without ``material_effect`` and ``statistic_se``."""
+    if not {"material_effect", "statistic_se"} <= set(table.columns) or not len(table):
+        return pd.Series(False, index=table.index)
+    se = table["statistic_se"].astype(float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = table["material_effect"].astype(float) / se
+    weak = ~(ratio >= crit)  # NaN ratio (no standard error) counts as weak
+    return weak & (table["z_score"].abs() <= crit)
+
+
+def cells_summary(table: pd.DataFrame, label_cols: list[str], *, deviation: float | None = None) -> dict[str, Any]:
+    """Cell counts, worst cell and three-state verdict of a table with a ``z_score`` column
+    (and, for the power rule, ``material_effect`` and ``statistic_se``; ``deviation`` is the
+    material relative deviation those express)."""
     n = int(len(table))
     z = table["z_score"].abs()
     crit = family_critical_z(n)
     worst = table.loc[z.idxmax()] if n else None
+    weak = inconclusive_mask(table, crit)
+    failed = n > 0 and float(z.max()) > crit
+    from_time = None
+    if weak.any() and "time" in table.columns:
+        from_time = float(table.loc[weak, "time"].min())
     out: dict[str, Any] = {
         "cells": n,
         "outside_95": int((z > norm.ppf(0.975)).sum()),
@@ -49,7 +107,12 @@ def cells_summary(table: pd.DataFrame, label_cols: list[str]) -> dict[str, Any]:
         "worst_cell": {c: (worst[c].item() if hasattr(worst[c], "item") else worst[c]) for c in label_cols} if n else None,
         "family_level": 1.0 - FAMILY_ALPHA,
         "family_critical_z": crit,
-        "verdict": "pass" if n == 0 or float(z.max()) <= crit else "fail",
+        "verdict": "fail" if failed else ("inconclusive" if weak.any() else "pass"),
+        "inconclusive_cells": int(weak.sum()),
+        "inconclusive_from_time": from_time,
+        "material_deviation": deviation,
+        "power_rule": power_rule_text(deviation) if deviation is not None else
+        "no power rule: the cells pass or fail on their tolerance",
     }
     return out
 
@@ -60,20 +123,26 @@ _cells_summary = cells_summary  # the earlier private name
 def summarise(
     martingale: dict[str, pd.DataFrame], density: dict[str, pd.DataFrame], *, ess_warning_share: float
 ) -> dict[str, Any]:
-    """Machine-readable verdicts per check and overall."""
+    """Machine-readable verdicts per check and overall, and the usable horizon of every density
+    column (``densities``)."""
     checks: dict[str, Any] = {}
+    densities: list[dict[str, Any]] = []
     for measure, table in martingale.items():
-        checks[f"martingale_{measure}"] = cells_summary(table, ["asset", "time", "ratio", "z_score"])
+        checks[f"martingale_{measure}"] = cells_summary(
+            table, ["asset", "time", "ratio", "z_score"], deviation=MARTINGALE_DEVIATION)
     for measure, table in density.items():
         body = table[table["time"] > 0].reset_index(drop=True)
-        entry = cells_summary(body, ["time", "mean_weight", "z_score"])
-        low = body[body["ess_share"] < ess_warning_share]
-        entry["min_ess_share"] = float(body["ess_share"].min()) if len(body) else 1.0
-        entry["max_weight_share"] = float(body["max_weight_share"].max()) if len(body) else 0.0
+        entry = cells_summary(body, ["column", "time", "mean_weight", "z_score"], deviation=DENSITY_DEVIATION)
+        horizons = usable_horizons(measure, table, ess_warning_share)
+        densities.extend(horizons)
+        full = body[body["column"] == horizons[0]["column"]] if horizons else body
+        low = full[full["ess_share"] < ess_warning_share]
+        entry["min_ess_share"] = float(full["ess_share"].min()) if len(full) else 1.0
+        entry["max_weight_share"] = float(full["max_weight_share"].max()) if len(full) else 0.0
         entry["ess_warning_share"] = ess_warning_share
         entry["ess_below_warning_from_time"] = float(low["time"].iloc[0]) if len(low) else None
-        if len(body):
-            last = body.iloc[-1]
+        if len(full):
+            last = full.iloc[-1]
             entry["at_horizon"] = {
                 "time": float(last["time"]),
                 "mean_weight": float(last["mean_weight"]),
@@ -81,23 +150,31 @@ def summarise(
                 "ess_share": float(last["ess_share"]),
                 "max_weight_share": float(last["max_weight_share"]),
             }
-        entry["warnings"] = (
-            [
-                f"{measure}: effective sample size of the density weights falls below "
-                f"{ess_warning_share:.0%} of the paths from t = {low['time'].iloc[0]:g} years"
-            ]
-            if len(low)
-            else []
-        )
+        entry["warnings"] = [
+            f"{measure}: effective sample size of {h['column']} falls below {ess_warning_share:.0%} of the "
+            f"paths from t = {h['usable_horizon']:g} years (its usable horizon)"
+            for h in horizons if h["usable_horizon"] is not None
+        ]
         checks[f"density_{measure}"] = entry
-    verdict = "pass" if all(c["verdict"] == "pass" for c in checks.values()) else "fail"
-    return {
-        "verdict": verdict,
-        "rule": (
-            "a check passes when every cell lies within its Bonferroni-corrected interval at "
-            f"family level {1 - FAMILY_ALPHA:.0%}"
-        ),
+    summary = {
+        "verdict": combine_verdicts([c["verdict"] for c in checks.values()]),
+        "rule": VERDICT_RULE,
         "checks": checks,
+        "densities": densities,
+    }
+    summary["inconclusive"] = inconclusive_totals(checks)
+    return summary
+
+
+def inconclusive_totals(checks: dict[str, dict[str, Any]]) -> dict[str, Any]:
+    """``{"cells", "from_time", "checks"}`` over the checks that count toward the verdict."""
+    names = [n for n, c in checks.items()
+             if c.get("counts_toward_verdict", True) and int(c.get("inconclusive_cells", 0) or 0) > 0]
+    times = [checks[n]["inconclusive_from_time"] for n in names if checks[n].get("inconclusive_from_time") is not None]
+    return {
+        "cells": int(sum(int(checks[n]["inconclusive_cells"]) for n in names)),
+        "from_time": float(min(times)) if times else None,
+        "checks": names,
     }
 
 
@@ -107,19 +184,22 @@ def validate_run(
     *,
     ess_warning_share: float,
     extra_assets: Callable[[list[str]], Sequence[MartingaleAsset]] | None = None,
+    credit_density: bool = False,
 ) -> tuple[dict[str, pd.DataFrame], dict[str, pd.DataFrame], dict[str, Any]]:
     """Compute every table and the summary for a run directory (nothing is written here).
 
     extra_assets: from a set's column names, the further assets of its martingale test (e.g.
     ``functools.partial(pqflow.validation.assets.martingale_assets, inputs)``); the same
-    references serve both sets, the real-world deflator carrying the density.
+    references serve both sets, the real-world deflator carrying the density. credit_density:
+    whether the full densities carry the CIR credit part
+    (:func:`pqflow.validation.mean_tests.credit_in_density`).
     """
     run_dir = Path(run_dir)
     mart, dens = {}, {}
     for measure in ("market_consistent", "real_world"):
         reader = ScenarioSetReader(run_dir=run_dir, measure=measure)
         extra = extra_assets(reader.column_names()) if extra_assets is not None else ()
-        mart[measure] = martingale_table(reader, discount, extra)
-        dens[measure] = density_table(reader)
+        mart[measure] = martingale_table(reader, discount, extra, credit_density=credit_density)
+        dens[measure] = density_table(reader, credit_density=credit_density)
     summary = summarise(mart, dens, ess_warning_share=ess_warning_share)
     return mart, dens, summary
