@@ -63,10 +63,15 @@ def test_summary_schema_of_the_three_verdicts(small_run):
     assert summary["checks"]["martingale_market_consistent"]["material_deviation"] == 0.05
     assert summary["checks"]["density_real_world"]["material_deviation"] == 0.10
     columns = {(d["measure"], d["column"]) for d in summary["densities"]}
-    assert columns == {("real_world", "q_density"), ("market_consistent", "p_density")}
+    # the full densities and the default blocks (rates, rates_<equity>) of each set
+    blocks = ("rates", "rates_veldmark_all_share")
+    assert columns == {("real_world", "q_density"), ("market_consistent", "p_density"),
+                       *(("real_world", f"q_density_{b}") for b in blocks),
+                       *(("market_consistent", f"p_density_{b}") for b in blocks)}
     for d in summary["densities"]:
         assert set(d) == {"measure", "column", "block", "usable_horizon", "ess_share_at_horizon",
-                          "max_weight_share_at_horizon"} and d["block"] is None
+                          "max_weight_share_at_horizon"}
+        assert d["block"] == (None if d["column"] in ("q_density", "p_density") else d["column"].split("_", 2)[2])
     assert set(summary["density_budget"]) == {"real_world", "market_consistent"}
     for shares in summary["density_budget"].values():
         assert sum(shares.values()) == pytest.approx(1.0, abs=1e-9)
@@ -152,7 +157,11 @@ def _add_block(run: Path, measure: str, column: str, sigma: float, scale: float,
         times = t[:n_times]
         weight = scale * np.exp(sigma * w - 0.5 * sigma**2 * times[None, :])
         weight[:, 0] = 1.0
-        table = table.append_column(column, pa.array(weight.ravel()))
+        if column in table.column_names:  # a block the run wrote already: replace it
+            i = table.schema.get_field_index(column)
+            table = table.set_column(i, table.schema.field(i), pa.array(weight.ravel()))
+        else:
+            table = table.append_column(column, pa.array(weight.ravel()))
         pq.write_table(table, part)
 
 
@@ -165,7 +174,7 @@ def test_density_blocks_are_judged_and_get_their_horizon(small_run, tmp_path):
     _add_block(run, "market_consistent", "p_density_credit_X", sigma=0.40, scale=1.0, seed=2)
     result = run_checks(run, ess_warning_share=0.5)
     dens = result.density["real_world"]
-    assert set(dens["column"]) == {"q_density", "q_density_rates"}
+    assert set(dens["column"]) == {"q_density", "q_density_rates", "q_density_rates_veldmark_all_share"}
     block = dens[dens["column"] == "q_density_rates"]
     assert (block["test"] == "lognormal identity").all()
     credit_block = result.density["market_consistent"]
