@@ -278,14 +278,7 @@ def _print_fit(payload: dict[str, Any]) -> None:
     else:
         hw = par["hull_white"]
         console.print(f"Hull-White: a = {hw['mean_reversion']:.5f}, sigma = {hw['volatility']:.5f}{rmse}", highlight=False)
-    curve = fit.get("curve", {})
-    if "alpha" in curve:
-        console.print(
-            f"Smith-Wilson: alpha = {curve['alpha']:.6f} (floor {curve['alpha_floor']:g}), forward at the "
-            f"convergence point {curve['convergence_point']:g}y = {curve['forward_at_convergence']:.6f} "
-            f"vs omega {curve['omega']:.6f} ({curve['gap_to_omega_bp']:+.3f} bp)",
-            highlight=False,
-        )
+    _print_curve_fit(fit.get("curve", {}))
     eq = fit.get("equity", {})
     if "bucket_volatilities" in eq:
         buckets = ", ".join(f"{v:.4f}" for v in eq["bucket_volatilities"])
@@ -354,6 +347,71 @@ def _print_fit(payload: dict[str, Any]) -> None:
         for r in rows:
             table.add_row(f"{r['expiry']:g}", f"{r['tenor']:g}", f"{r['market_vol']:.1f}", f"{r['model_vol']:.1f}", f"{r['vol_difference_bp']:+.2f}")
         console.print(table)
+
+
+def _print_curve_fit(curve: dict[str, Any]) -> None:
+    if curve.get("method") == "last_liquid_forward":
+        freq = f", coupon frequency {curve['coupon_frequency']}" if curve.get("coupon_frequency") else ""
+        console.print(
+            f"last liquid forward (Solvency II review): {curve['input_kind']} inputs ({curve['inputs_used']}){freq}, "
+            f"CRA {curve['credit_risk_adjustment_bp']:g} bp; first smoothing point {curve['first_smoothing_point']:g}y, "
+            f"LLFR {curve['last_liquid_forward_rate']:.6%} (continuous), UFR {curve['ufr']:.4%} "
+            f"(omega {curve['omega']:.6%}), alpha = {curve['alpha']:g} ({curve['alpha_source']})",
+            highlight=False,
+        )
+        terms = ", ".join(
+            f"{t['weight']:g} x f({t['forward_from']:g},{t['maturity']:g}) = {t['forward']:.5%}" for t in curve["llfr_terms"]
+        )
+        console.print(f"  LLFR = {terms}", highlight=False)
+    elif "alpha" in curve:
+        console.print(
+            f"Smith-Wilson: alpha = {curve['alpha']:.6f} (floor {curve['alpha_floor']:g}), forward at the "
+            f"convergence point {curve['convergence_point']:g}y = {curve['forward_at_convergence']:.6f} "
+            f"vs omega {curve['omega']:.6f} ({curve['gap_to_omega_bp']:+.3f} bp)",
+            highlight=False,
+        )
+    elif curve.get("method"):
+        console.print(f"curve: {curve['method']}", highlight=False)
+
+
+@app.command("curve")
+def curve_command(
+    config: Annotated[Path, typer.Argument(help="Run configuration (TOML) with [curve] or market_data.curve.")],
+    out: Annotated[Optional[Path], typer.Option("--out", help="CSV file to write the curve to (whole maturities 1 to the long end).")] = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an existing file.")] = False,
+) -> None:
+    """Fit today's risk-free curve only: print the method's parameters and key maturities, and
+    write the curve at whole maturities (zero rates annual and continuous, one-year forwards,
+    discount factors)."""
+    from pqflow.calibration.assemble import fit_curve
+    from pqflow.config.loader import load_config
+    from pqflow.market.curve_table import curve_table
+    from pqflow.storage.curve_csv import write_curve_csv
+
+    if out is not None and out.exists() and not overwrite:
+        _fail(PqflowError(f"{out} exists; pass --overwrite to replace it"))
+    try:
+        fitted, fit = fit_curve(load_config(config))
+        table = curve_table(fitted)
+    except PqflowError as exc:
+        _fail(exc)
+    _print_curve_fit(fit)
+    grid = Table(title=f"Risk-free curve ({fit.get('method', 'typed in')}), whole maturities")
+    for col in ("years", "zero (annual)", "zero (continuous)", "1y forward (annual)", "discount factor"):
+        grid.add_column(col, justify="right")
+    t = table["maturity_years"]
+    for year in (1, 2, 5, 10, 15, 20, 25, 30, 40, 50, 60, 80, 100, 120, 150):
+        i = int(year) - 1
+        if i < t.size:
+            grid.add_row(
+                f"{year:g}", f"{table['zero_rate_annual'][i]:.5%}", f"{table['zero_rate_continuous'][i]:.5%}",
+                f"{table['forward_1y_annual'][i]:.5%}", f"{table['discount_factor'][i]:.6f}",
+            )
+    console.print(grid)
+    if out is not None:
+        write_curve_csv(out, table)
+        console.print(f"curve written to {out} ({t.size} maturities, 1 to {t[-1]:g} years)", style="green")
+    _caution()
 
 
 _LINE_LABEL = {"unit_linked_gmmb": "unit-linked", "participating": "with-profits", "deferred_annuity_gao": "annuity+GAO"}

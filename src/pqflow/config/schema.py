@@ -280,11 +280,19 @@ class CreditSection(_Section):
 
 
 class CurveExtrapolationSection(_Section):
-    """Extrapolation of the market curve beyond the last liquid point (Smith-Wilson, as the
-    European insurance regulator documents it). ``ultimate_forward_rate`` is annually
-    compounded; read the current value from the regulator's publication."""
+    """Extrapolation of the market curve, as the European insurance regulator documents it:
+    ``method = "smith_wilson"`` (beyond the last liquid point) or ``"last_liquid_forward"`` (the
+    Solvency II review's method: constant forwards between the liquid maturities, then from the
+    last liquid forward rate to the UFR beyond the first smoothing point; the weights come from the
+    curve file's ``llfr_weight`` column). ``ultimate_forward_rate`` is annually compounded; read
+    the current value from the regulator's publication.
 
-    method: Literal["smith_wilson"] = "smith_wilson"
+    Smith-Wilson only: ``last_liquid_point``, ``convergence_tolerance_bp``, ``alpha_floor``,
+    ``convergence_point_years``. Last liquid forward only: ``alpha`` (the convergence parameter)
+    or ``phase_in_year`` (the phasing-in table's value for that year), ``currency`` (``"SEK"``
+    selects the Swedish krona's values), ``coupon_frequency`` of the par swaps."""
+
+    method: Literal["smith_wilson", "last_liquid_forward"] = "smith_wilson"
     ultimate_forward_rate: float = Field(ge=-0.05, le=0.2)
     last_liquid_point: float | None = Field(default=None, gt=0.0)
     convergence_tolerance_bp: float = Field(default=1.0, gt=0.0, le=100.0)
@@ -292,6 +300,26 @@ class CurveExtrapolationSection(_Section):
     convergence_point_years: float | None = Field(default=None, gt=0.0)
     credit_risk_adjustment_bp: float = Field(default=0.0, ge=-100.0, le=100.0)
     long_end_years: float = Field(default=150.0, gt=0.0, le=300.0)
+    alpha: float | None = Field(default=None, gt=0.0, le=5.0)
+    phase_in_year: int | None = Field(default=None, ge=2027, le=2100)
+    currency: str | None = Field(default=None, pattern=r"^[A-Za-z]{3}$")
+    coupon_frequency: Literal[1, 2, 4, 12] = 1
+
+    @model_validator(mode="after")
+    def _method_keys(self) -> CurveExtrapolationSection:
+        # a key "applies" when it differs from its default (a dumped and re-read section carries
+        # every default, so being present is not enough)
+        fields = type(self).model_fields
+        given = {k for k in fields if getattr(self, k) != fields[k].default}
+        sw_only = ("last_liquid_point", "convergence_tolerance_bp", "alpha_floor", "convergence_point_years")
+        llfr_only = ("alpha", "phase_in_year", "currency", "coupon_frequency")
+        other = llfr_only if self.method == "smith_wilson" else sw_only
+        wrong = [k for k in other if k in given]
+        if wrong:
+            raise ValueError(f"{', '.join(wrong)} do(es) not apply to method = {self.method!r}")
+        if self.alpha is not None and self.phase_in_year is not None:
+            raise ValueError("give alpha or phase_in_year, not both")
+        return self
 
 
 class HullWhiteFitSection(_Section):
