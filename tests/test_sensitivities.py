@@ -156,6 +156,11 @@ def test_value_reports_every_sensitivity_with_paired_and_independent_se(run, tmp
     assert np.all(np.abs(eq["change"]) <= 1e-9 * np.maximum(1.0, np.abs(eq["base_value"])))
     assert [s["sensitivity"] for s in summary["sensitivities"]] == ["rates_up_100bp", "equity_down", "equity_vol_up"]
     assert summary["sensitivities"][0]["best_estimate"]["change_se_paired"] > 0
+    # the report shows the totals once the valuation sits in the run directory
+    from pqflow.report.html import build_report_html
+
+    value_liabilities_cli(run, BOOK)
+    assert "Sensitivities (total)" in build_report_html(run) and "rates_up_100bp" in build_report_html(run)
 
 
 def test_shocks_that_find_nothing_or_bad_files_are_refused(tmp_path):
@@ -196,3 +201,19 @@ def test_relative_curve_shift_from_a_file(tmp_path):
     out = shocked_config(cfg, cfg.sensitivities[0], root / "set", source="t")
     s = np.interp(PILLARS, [1.0, 30.0], [0.5, -0.2])  # linear between rows, flat beyond
     np.testing.assert_allclose(out.curve.values, np.array(ZEROS) * (1 + s) + 0.001, rtol=0, atol=1e-15)
+
+
+@pytest.mark.flow
+def test_prefect_flow_writes_the_same_sensitivity_sets(prefect_harness, run, tmp_path):
+    """The Prefect flow runs the sensitivities beside the base parts (thread pool) and writes the
+    very bytes the in-process run writes (each part depends on its seed, measure and batch only)."""
+    from conftest import run_digests
+    from pipeline import run_quarterly
+
+    result = run_quarterly(_write(tmp_path, BASE), tmp_path / "flow", workers=2)
+    assert result["summary"]["verdict"] == "pass" and set(result["summary"]["sensitivities"]) == {
+        "rates_up_100bp", "equity_down", "equity_vol_up"}
+    flow, lib = run_digests(tmp_path / "flow"), run_digests(run)
+    sens = {k for k in lib if k.startswith("sensitivities/") and k.endswith(".parquet")}
+    assert sens and {k: flow[k] for k in sens} == {k: lib[k] for k in sens}
+    verify_run(tmp_path / "flow")

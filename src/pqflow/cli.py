@@ -126,6 +126,10 @@ def run(
             calibration_file = calibration
         else:
             cal = assemble_calibration(cfg)
+            if cfg.sensitivities:
+                from pqflow.jobs.sensitivities import check_sensitivity_inputs
+
+                check_sensitivity_inputs(cfg, source=str(config))
             scratch = Path(tempfile.mkdtemp(prefix="pqflow-calibration-"))
             calibration_file = write_json_atomic(scratch / "calibration.json", cal.to_json())
         target = resolve_target(out)
@@ -174,6 +178,10 @@ def run(
     for check in summary["checks"].values():
         for warning in check.get("warnings", []):
             console.print(f"[yellow]warning:[/] {warning}", highlight=False)
+    for name, sens in summary.get("sensitivities", {}).items():
+        console.print(
+            f"sensitivity {name}: {_verdict_cell(sens['verdict'], True)} ({sens['summary']})", highlight=False
+        )
     colour = "green" if summary["verdict"] == "pass" else "red"
     console.print(
         f"overall verdict: [{colour}]{summary['verdict'].upper()}[/]; run written to "
@@ -455,6 +463,19 @@ def value(
             f"{line['difference_in_se']:+.2f}",
         )
     console.print(table)
+    if summary.get("sensitivities"):
+        sens_table = Table(title=f"Sensitivities, {currency} thousands: change from the base, its SE on the common "
+                           "scenarios and the SE independent sets would give")
+        for col in ("sensitivity", "BE", "BE change", "SE", "SE indep.", "guarantee change", "TVOG change"):
+            sens_table.add_column(col, justify="left" if col == "sensitivity" else "right")
+        for entry in summary["sensitivities"]:
+            be = entry["best_estimate"]
+            sens_table.add_row(
+                entry["sensitivity"], k(be["value"]), f"{be['change'] / 1e3:+,.0f}", k(be["change_se_paired"]),
+                k(be["change_se_independent"]), f"{entry['guarantee']['change'] / 1e3:+,.0f}",
+                f"{entry['tvog']['change'] / 1e3:+,.0f}",
+            )
+        console.print(sens_table)
     verdict = summary.get("reconciliation", {}).get("verdict")
     if verdict:
         colour = "green" if verdict == "agree" else "red"

@@ -37,6 +37,7 @@ __all__ = [
     "validate_sensitivity",
     "record_sensitivities",
     "run_sensitivities",
+    "check_sensitivity_inputs",
 ]
 
 SENSITIVITY_DIR = "sensitivities"
@@ -178,3 +179,17 @@ def run_sensitivities(
             parts.append(generate_sensitivity_part(cal, plan, sens.name, m, b, run_dir))
         summaries[sens.name] = validate_sensitivity(run_dir, sens, config)
     return parts, record_sensitivities(run_dir, config, summaries)
+
+
+def check_sensitivity_inputs(config: RunConfig, *, source: str = "configuration") -> None:
+    """Apply every sensitivity's shocks in a scratch folder (no calibration): a shock that finds
+    nothing to act on, or a bad shift file, is refused before any run starts."""
+    import shutil
+    import tempfile
+
+    scratch = Path(tempfile.mkdtemp(prefix="pqflow-sensitivities-"))
+    try:
+        for sens in config.sensitivities:
+            shocked_config(config, sens, scratch / sens.name, source=f"{source} [[sensitivities]] {sens.name!r}")
+    finally:
+        shutil.rmtree(scratch, ignore_errors=True)
