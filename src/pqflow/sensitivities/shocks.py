@@ -200,6 +200,9 @@ def shocked_config(config: RunConfig, sens: SensitivitySection, set_dir: str | P
         name = f"{kind}.csv"
         write_csv_table(set_dir / INPUTS_DIR / name, header, rows)
         md[kind] = f"{INPUTS_DIR}/{name}"
+    if sens.curve_relative_shift is not None:  # kept beside the shocked files, for the record
+        header, rows = read_csv_table(config.base_dir / sens.curve_relative_shift)
+        write_csv_table(set_dir / INPUTS_DIR / "curve_relative_shift.csv", header, rows)
     # typed-in values
     if "curve" in data:
         shock.typed_curve(data["curve"])
