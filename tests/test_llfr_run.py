@@ -24,7 +24,7 @@ from pqflow.calibration.assemble import fit_curve, load_calibration
 from pqflow.cli import app
 from pqflow.config.loader import load_config, parse_config
 from pqflow.errors import ConfigError, MarketDataError
-from pqflow.jobs.steps import calibrate_step, generate_part, plan_run
+from pqflow.jobs.steps import calibrate_step, generate_part, plan_run, validate_staged_run
 from pqflow.market.last_liquid_forward import LastLiquidForwardCurve
 from pqflow.storage.jsonio import read_json
 from pqflow.validation.evidence import run_checks
@@ -143,3 +143,42 @@ def test_curve_command_writes_whole_maturities(tmp_path):
     bad_curve.write_text(bad_curve.read_text().replace("50,0.02996,0.04", "50,0.02996,0.05"))
     result = runner.invoke(app, ["curve", str(bad_dir / "demo_llfr.toml"), "--out", str(tmp_path / "none.csv")])
     assert result.exit_code == 2 and "sum to 1.01" in result.output and not (tmp_path / "none.csv").exists()
+
+
+def test_curve_only_sensitivity_on_the_llfr_curve_reprices_the_kept_rates_model(tmp_path):
+    """A +100 bp sensitivity with the base volatility parameters kept: the LLFR curve refitted on
+    the shifted inputs, the swaptions recorded at the money on it with the kept Hull-White model's
+    Jamshidian price only, and the set's Monte Carlo prices must reproduce them (the check's
+    model-price cells; a planted 20% error in one recorded price must fail)."""
+    import json
+
+    from pqflow.jobs.sensitivities import run_sensitivities
+    from pqflow.validation.sensitivity_checks import run_market_consistent_checks
+
+    data = _small(DEMO_LLFR)
+    data["sensitivities"] = [s for s in data["sensitivities"] if s["name"] == "rates_up_100bp"]
+    cfg = parse_config(data, source=f"{DEMO_LLFR} (made small)", base_dir=DEMO_LLFR.parent)
+    root = tmp_path / "run"
+    root.mkdir()
+    cal = calibrate_step(cfg, root)
+    plan = plan_run(cfg)
+    for measure, batch in plan.tasks():
+        generate_part(cal, plan, measure, batch, root)
+    validate_staged_run(root, cfg)
+    _, summary = run_sensitivities(cfg, cal, plan, root)
+    assert summary is not None and summary["sensitivities"]["rates_up_100bp"]["verdict"] == "pass"
+    set_dir = root / "sensitivities" / "rates_up_100bp"
+    sens_cal = read_json(set_dir / "calibration.json")
+    assert sens_cal["fit"]["curve"]["method"] == "last_liquid_forward"
+    assert sens_cal["parameters"]["hull_white"] == read_json(root / "calibration.json")["parameters"]["hull_white"]
+    # the shifted inputs: every par rate +100 bp, the LLFR moved with them
+    assert sens_cal["fit"]["curve"]["last_liquid_forward_rate"] > read_json(root / "calibration.json")["fit"]["curve"]["last_liquid_forward_rate"] + 0.008
+    swaptions = sens_cal["instruments"]["swaptions"]
+    entry = read_json(set_dir / "validation" / "summary.json")["checks"]["market_consistency"]
+    assert entry["verdict"] == "pass" and entry["cells"] == len(swaptions) > 0  # one model-price cell each
+    bad = dict(sens_cal)
+    bad["instruments"] = {**sens_cal["instruments"], "swaptions": [dict(s) for s in swaptions]}
+    bad["instruments"]["swaptions"][3]["model_price"] *= 1.2
+    (set_dir / "calibration.json").write_text(json.dumps(bad))
+    planted = run_market_consistent_checks(set_dir, ess_warning_share=0.1).summary["checks"]["market_consistency"]
+    assert planted["verdict"] == "fail"
