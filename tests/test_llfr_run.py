@@ -104,6 +104,12 @@ def test_configuration_rules(tmp_path):
     data["curve_extrapolation"].pop("alpha")
     _, fit = fit_curve(parse_config(data, source="t.toml", base_dir=DEMO_LLFR.parent))
     assert fit["alpha"] == 0.182 and fit["alpha_source"] == "phasing-in, 2028"
+    # semi-annual fixed legs: every swap still reprices at par ([TD] 8.5.2), a different curve
+    semi = {**base, "curve_extrapolation": {**base["curve_extrapolation"], "coupon_frequency": 2}}
+    c2, fit2 = fit_curve(parse_config(semi, source="t.toml", base_dir=DEMO_LLFR.parent))
+    c1, fit1 = fit_curve(parse_config(base, source="t.toml", base_dir=DEMO_LLFR.parent))
+    assert fit2["coupon_frequency"] == 2 and fit2["max_repricing_error"] < 1e-12
+    assert abs(float(c2.zero_rate(20.0)) - float(c1.zero_rate(20.0))) > 1e-5
     # Smith-Wilson with a weights file, and the LLFR method without weights: refused, naming both
     sw = {**base, "curve_extrapolation": {"method": "smith_wilson", "ultimate_forward_rate": 0.034}}
     with pytest.raises(MarketDataError, match="llfr_weight.*smith_wilson"):
