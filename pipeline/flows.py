@@ -43,6 +43,16 @@ from pqflow.jobs.steps import (
     validate_staged_run,
     write_run_manifest,
 )
+from pqflow.config.schema import SensitivitySection
+from pqflow.jobs.sensitivities import (
+    calibrate_sensitivity,
+    generate_sensitivity_part,
+    record_sensitivities,
+    run_sensitivities,
+    sensitivity_tasks,
+    validate_sensitivity,
+)
+from pqflow.jobs.sensitivities import manifest_entry as sensitivity_manifest_entry
 from pqflow.report import write_report
 from pqflow.simulation.plan import Batch
 from pqflow.storage.filesystem import (
@@ -95,9 +105,31 @@ def report_task(staging: str) -> str:
     return str(write_report(staging))
 
 
+@task(name="calibrate-sensitivity", cache_policy=NO_CACHE)
+def calibrate_sensitivity_task(
+    config: RunConfig, sens: SensitivitySection, base: Calibration, staging: str, source: str
+) -> Calibration:
+    return calibrate_sensitivity(config, sens, base, staging, source=source)
+
+
+@task(name="generate-sensitivity-part", cache_policy=NO_CACHE, retries=2, retry_delay_seconds=1)
+def generate_sensitivity_part_task(
+    calibration: Calibration, plan: RunPlan, name: str, measure: str, batch: Batch, staging: str
+) -> PartRecord:
+    return generate_sensitivity_part(calibration, plan, name, measure, batch, staging)
+
+
+@task(name="validate-sensitivity", cache_policy=NO_CACHE)
+def validate_sensitivity_task(staging: str, sens: SensitivitySection, config: RunConfig) -> dict[str, Any]:
+    return validate_sensitivity(staging, sens, config)
+
+
 @task(name="write-manifest", cache_policy=NO_CACHE)
-def manifest_task(staging: str, config: RunConfig, plan: RunPlan, parts: list[PartRecord], run_id: str) -> dict[str, Any]:
-    return write_run_manifest(staging, config, plan, parts, run_id=run_id)
+def manifest_task(
+    staging: str, config: RunConfig, plan: RunPlan, parts: list[PartRecord], run_id: str,
+    extra_header: dict[str, Any] | None = None,
+) -> dict[str, Any]:
+    return write_run_manifest(staging, config, plan, parts, run_id=run_id, extra_header=extra_header)
 
 
 # --------------------------------------------------------------------- one attempt at a run
@@ -226,14 +258,28 @@ def quarterly_run(
         calibration = calibrate_task(config, att.staging, calibration_file)
         todo = att.todo(plan)
         futures = [generate_part_task.submit(calibration, plan, m, b, att.staging) for m, b in todo]
+        # sensitivity sets: calibrated and simulated beside the base parts, on the same runner
+        sens_cals = {
+            s.name: calibrate_sensitivity_task.submit(config, s, calibration, att.staging, str(config_path))
+            for s in config.sensitivities
+        }
+        sens_futures = [
+            generate_sensitivity_part_task.submit(sens_cals[s.name], plan, s.name, m, b, att.staging)
+            for s in config.sensitivities for m, b in sensitivity_tasks(plan, s)
+        ]
         parts = list(att.kept.values())
         with _progress(len(plan.tasks()), show_progress) as progress:
             bar = progress.add_task("parts", total=len(plan.tasks()), completed=len(parts))
             for fut in as_completed(futures):
                 parts.append(_record(att, fut.result()))
                 progress.advance(bar)
+        sens_parts = [f.result() for f in sens_futures]
+        checks = {s.name: validate_sensitivity_task.submit(att.staging, s, config) for s in config.sensitivities}
         summary = validate_task(att.staging, config)
-        manifest_task(att.staging, config, plan, parts, att.state.run_id)
+        if config.sensitivities:
+            summary = record_sensitivities(att.staging, config, {k: f.result() for k, f in checks.items()})
+        manifest_task(att.staging, config, plan, [*parts, *sens_parts], att.state.run_id,
+                      sensitivity_manifest_entry(config) if config.sensitivities else None)
         report_task(att.staging)
         final = _publish(att, overwrite)
     _artifacts(summary, final)
@@ -391,7 +437,10 @@ def run_in_process(
         for m, b in att.todo(plan):
             parts.append(_record(att, generate_part(calibration, plan, m, b, att.staging)))
         summary = validate_staged_run(att.staging, config)
-        write_run_manifest(att.staging, config, plan, parts, run_id=att.state.run_id)
+        sens_parts, sens_summary = run_sensitivities(config, calibration, plan, att.staging, source=str(config_path))
+        summary = sens_summary or summary
+        write_run_manifest(att.staging, config, plan, [*parts, *sens_parts], run_id=att.state.run_id,
+                           extra_header=sensitivity_manifest_entry(config) if config.sensitivities else None)
         write_report(att.staging)
         final = _publish(att, overwrite)
     return {

@@ -14,7 +14,8 @@ from prefect import flow, task
 from prefect.cache_policies import NO_CACHE
 from prefect.task_runners import ThreadPoolTaskRunner
 
-from pqflow.liabilities.job import default_out_dir, publish_valuation
+from pqflow.liabilities.job import default_out_dir, publish_sensitivities, publish_valuation
+from pqflow.liabilities.sensitivities import sensitivity_names, value_sensitivities
 from pqflow.liabilities.portfolio import Portfolio, load_portfolio
 from pqflow.liabilities.valuation import (
     RunInfo,
@@ -40,6 +41,11 @@ def value_set_task(run_dir: str, portfolio: Portfolio, measure: str) -> SetValua
     return value_run(run_dir, portfolio, measure)
 
 
+@task(name="value-sensitivities", cache_policy=NO_CACHE)
+def value_sensitivities_task(run_dir: str, portfolio: Portfolio, info: RunInfo) -> Any:
+    return value_sensitivities(run_dir, portfolio, info)
+
+
 @task(name="publish-valuation", cache_policy=NO_CACHE)
 def publish_task(
     portfolio: Portfolio, info: RunInfo, mc: SetValuation, rw: SetValuation, out_dir: str
@@ -57,4 +63,7 @@ def value_liabilities(run_dir: str, liabilities_path: str, out_dir: str | None =
     portfolio, info = load_portfolio_task(run_dir, str(liabilities_path))
     mc = value_set_task.submit(run_dir, portfolio, "market_consistent")
     rw = value_set_task.submit(run_dir, portfolio, "real_world")
-    return publish_task(portfolio, info, mc.result(), rw.result(), str(Path(target)))
+    sens = value_sensitivities_task.submit(run_dir, portfolio, info) if sensitivity_names(run_dir) else None
+    table = sens.result() if sens is not None else None  # errors surface before anything is written
+    summary = publish_task(portfolio, info, mc.result(), rw.result(), str(Path(target)))
+    return publish_sensitivities(table, summary, target) if table is not None else summary

@@ -181,6 +181,10 @@ def run(
             calibration_file = calibration
         else:
             cal = assemble_calibration(cfg)
+            if cfg.sensitivities:
+                from pqflow.jobs.sensitivities import check_sensitivity_inputs
+
+                check_sensitivity_inputs(cfg, source=str(config))
             scratch = Path(tempfile.mkdtemp(prefix="pqflow-calibration-"))
             calibration_file = write_json_atomic(scratch / "calibration.json", cal.to_json())
         target = resolve_target(out)
@@ -225,6 +229,11 @@ def run(
         )
     summary = result["summary"]
     _print_validation(summary)
+    for name, sens in summary.get("sensitivities", {}).items():
+        console.print(
+            f"sensitivity {escape(name)}: {_verdict_cell(sens['verdict'], True)} ({escape(str(sens['summary']))})",
+            highlight=False,
+        )
     console.print(
         f"overall verdict: {_verdict_line(summary['verdict'])}; run written to "
         f"{escape(str(result['out_dir']))} in {time.perf_counter() - started:.1f} s",
@@ -359,14 +368,7 @@ def _print_fit(payload: dict[str, Any]) -> None:
     else:
         hw = par["hull_white"]
         console.print(f"Hull-White: a = {hw['mean_reversion']:.5f}, sigma = {hw['volatility']:.5f}{rmse}", highlight=False)
-    curve = fit.get("curve", {})
-    if "alpha" in curve:
-        console.print(
-            f"Smith-Wilson: alpha = {curve['alpha']:.6f} (floor {curve['alpha_floor']:g}), forward at the "
-            f"convergence point {curve['convergence_point']:g}y = {curve['forward_at_convergence']:.6f} "
-            f"vs omega {curve['omega']:.6f} ({curve['gap_to_omega_bp']:+.3f} bp)",
-            highlight=False,
-        )
+    _print_curve_fit(fit.get("curve", {}))
     eq = fit.get("equity", {})
     if "bucket_volatilities" in eq:
         buckets = ", ".join(f"{v:.4f}" for v in eq["bucket_volatilities"])
@@ -437,6 +439,71 @@ def _print_fit(payload: dict[str, Any]) -> None:
         console.print(table)
 
 
+def _print_curve_fit(curve: dict[str, Any]) -> None:
+    if curve.get("method") == "last_liquid_forward":
+        freq = f", coupon frequency {curve['coupon_frequency']}" if curve.get("coupon_frequency") else ""
+        console.print(
+            f"last liquid forward (Solvency II review): {curve['input_kind']} inputs ({curve['inputs_used']}){freq}, "
+            f"CRA {curve['credit_risk_adjustment_bp']:g} bp; first smoothing point {curve['first_smoothing_point']:g}y, "
+            f"LLFR {curve['last_liquid_forward_rate']:.6%} (continuous), UFR {curve['ufr']:.4%} "
+            f"(omega {curve['omega']:.6%}), alpha = {curve['alpha']:g} ({curve['alpha_source']})",
+            highlight=False,
+        )
+        terms = ", ".join(
+            f"{t['weight']:g} x f({t['forward_from']:g},{t['maturity']:g}) = {t['forward']:.5%}" for t in curve["llfr_terms"]
+        )
+        console.print(f"  LLFR = {terms}", highlight=False)
+    elif "alpha" in curve:
+        console.print(
+            f"Smith-Wilson: alpha = {curve['alpha']:.6f} (floor {curve['alpha_floor']:g}), forward at the "
+            f"convergence point {curve['convergence_point']:g}y = {curve['forward_at_convergence']:.6f} "
+            f"vs omega {curve['omega']:.6f} ({curve['gap_to_omega_bp']:+.3f} bp)",
+            highlight=False,
+        )
+    elif curve.get("method"):
+        console.print(f"curve: {curve['method']}", highlight=False)
+
+
+@app.command("curve")
+def curve_command(
+    config: Annotated[Path, typer.Argument(help="Run configuration (TOML) with [curve] or market_data.curve.")],
+    out: Annotated[Optional[Path], typer.Option("--out", help="CSV file to write the curve to (whole maturities 1 to the long end).")] = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an existing file.")] = False,
+) -> None:
+    """Fit today's risk-free curve only: print the method's parameters and key maturities, and
+    write the curve at whole maturities (zero rates annual and continuous, one-year forwards,
+    discount factors)."""
+    from pqflow.calibration.assemble import fit_curve
+    from pqflow.config.loader import load_config
+    from pqflow.market.curve_table import curve_table
+    from pqflow.storage.curve_csv import write_curve_csv
+
+    if out is not None and out.exists() and not overwrite:
+        _fail(PqflowError(f"{out} exists; pass --overwrite to replace it"))
+    try:
+        fitted, fit = fit_curve(load_config(config))
+        table = curve_table(fitted)
+    except PqflowError as exc:
+        _fail(exc)
+    _print_curve_fit(fit)
+    grid = Table(title=f"Risk-free curve ({fit.get('method', 'typed in')}), whole maturities")
+    for col in ("years", "zero (annual)", "zero (continuous)", "1y forward (annual)", "discount factor"):
+        grid.add_column(col, justify="right")
+    t = table["maturity_years"]
+    for year in (1, 2, 5, 10, 15, 20, 25, 30, 40, 50, 60, 80, 100, 120, 150):
+        i = int(year) - 1
+        if i < t.size:
+            grid.add_row(
+                f"{year:g}", f"{table['zero_rate_annual'][i]:.5%}", f"{table['zero_rate_continuous'][i]:.5%}",
+                f"{table['forward_1y_annual'][i]:.5%}", f"{table['discount_factor'][i]:.6f}",
+            )
+    console.print(grid)
+    if out is not None:
+        write_curve_csv(out, table)
+        console.print(f"curve written to {out} ({t.size} maturities, 1 to {t[-1]:g} years)", style="green")
+    _caution()
+
+
 _LINE_LABEL = {"unit_linked_gmmb": "unit-linked", "participating": "with-profits", "deferred_annuity_gao": "annuity+GAO"}
 
 
@@ -487,6 +554,19 @@ def value(
                       markup=False)
     console.print("values and standard errors use control variates from known martingales "
                   "(plain means in the CSV as *_without_controls)", style="dim", highlight=False)
+    if summary.get("sensitivities"):
+        sens_table = Table(title=f"Sensitivities, {currency} thousands: change from the base, its SE on the common "
+                           "scenarios and the SE independent sets would give")
+        for col in ("sensitivity", "BE", "BE change", "SE", "SE indep.", "guarantee change", "TVOG change"):
+            sens_table.add_column(col, justify="left" if col == "sensitivity" else "right")
+        for entry in summary["sensitivities"]:
+            be = entry["best_estimate"]
+            sens_table.add_row(
+                entry["sensitivity"], k(be["value"]), f"{be['change'] / 1e3:+,.0f}", k(be["change_se_paired"]),
+                k(be["change_se_independent"]), f"{entry['guarantee']['change'] / 1e3:+,.0f}",
+                f"{entry['tvog']['change'] / 1e3:+,.0f}",
+            )
+        console.print(sens_table)
     verdict = summary.get("reconciliation", {}).get("verdict")
     if verdict:
         colour = "green" if verdict == "agree" else "red"

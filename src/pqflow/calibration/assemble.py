@@ -39,6 +39,7 @@ from pqflow.calibration.parts import (
     load_schedule,
     schedule_json,
 )
+from pqflow.calibration.llfr_curve import fit_llfr_curve
 from pqflow.calibration.g2pp_swaptions import calibrate_g2pp_to_swaptions
 from pqflow.calibration.swaptions import SwaptionQuote, calibrate_hull_white_to_swaptions
 from pqflow.config.schema import RunConfig
@@ -79,7 +80,7 @@ from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.jsonio import read_json
 from pqflow.storage.parquet import file_sha256
 
-__all__ = ["Calibration", "assemble_calibration", "build_model", "load_calibration", "RATES_DRIVER"]
+__all__ = ["Calibration", "assemble_calibration", "build_model", "fit_curve", "load_calibration", "RATES_DRIVER"]
 
 _REL_TOL = 1e-12
 _schedule_json = schedule_json
@@ -404,6 +405,13 @@ def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
     path = config.market_file("curve")
     assert ext is not None and path is not None
     data = read_curve_inputs(path)
+    if ext.method == "last_liquid_forward":
+        return fit_llfr_curve(data, ext, path)
+    if data.llfr_weights is not None:
+        raise MarketDataError(
+            f"{path}: the file has an 'llfr_weight' column but curve_extrapolation.method is \"smith_wilson\"; "
+            "the weights belong to method = \"last_liquid_forward\""
+        )
     llp = ext.last_liquid_point if ext.last_liquid_point is not None else float(data.maturities[-1])
     keep = data.maturities <= llp + 1e-9
     if not keep.any():
@@ -443,6 +451,12 @@ def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
         "max_repricing_error": report.max_repricing_error,
     }
     return curve, fit
+
+
+def fit_curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
+    """Today's risk-free curve of a run and its fit report (the ``fit.curve`` entry): typed-in
+    pillars, or the curve file extrapolated by the configured method."""
+    return _curve(config)
 
 
 def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G2PlusPlusParams, dict[str, Any], list[dict[str, Any]]]:

@@ -38,6 +38,8 @@ __all__ = [
     "InflationSection",
     "CreditRatingSection",
     "CreditSection",
+    "SensitivitySection",
+    "SHOCK_KEYS",
     "RunConfig",
 ]
 
@@ -281,11 +283,19 @@ class CreditSection(_Section):
 
 
 class CurveExtrapolationSection(_Section):
-    """Extrapolation of the market curve beyond the last liquid point (Smith-Wilson, as the
-    European insurance regulator documents it). ``ultimate_forward_rate`` is annually
-    compounded; read the current value from the regulator's publication."""
+    """Extrapolation of the market curve, as the European insurance regulator documents it:
+    ``method = "smith_wilson"`` (beyond the last liquid point) or ``"last_liquid_forward"`` (the
+    Solvency II review's method: constant forwards between the liquid maturities, then from the
+    last liquid forward rate to the UFR beyond the first smoothing point; the weights come from the
+    curve file's ``llfr_weight`` column). ``ultimate_forward_rate`` is annually compounded; read
+    the current value from the regulator's publication.
 
-    method: Literal["smith_wilson"] = "smith_wilson"
+    Smith-Wilson only: ``last_liquid_point``, ``convergence_tolerance_bp``, ``alpha_floor``,
+    ``convergence_point_years``. Last liquid forward only: ``alpha`` (the convergence parameter)
+    or ``phase_in_year`` (the phasing-in table's value for that year), ``currency`` (``"SEK"``
+    selects the Swedish krona's values), ``coupon_frequency`` of the par swaps."""
+
+    method: Literal["smith_wilson", "last_liquid_forward"] = "smith_wilson"
     ultimate_forward_rate: float = Field(ge=-0.05, le=0.2)
     last_liquid_point: float | None = Field(default=None, gt=0.0)
     convergence_tolerance_bp: float = Field(default=1.0, gt=0.0, le=100.0)
@@ -293,6 +303,26 @@ class CurveExtrapolationSection(_Section):
     convergence_point_years: float | None = Field(default=None, gt=0.0)
     credit_risk_adjustment_bp: float = Field(default=0.0, ge=-100.0, le=100.0)
     long_end_years: float = Field(default=150.0, gt=0.0, le=300.0)
+    alpha: float | None = Field(default=None, gt=0.0, le=5.0)
+    phase_in_year: int | None = Field(default=None, ge=2027, le=2100)
+    currency: str | None = Field(default=None, pattern=r"^[A-Za-z]{3}$")
+    coupon_frequency: Literal[1, 2, 4, 12] = 1
+
+    @model_validator(mode="after")
+    def _method_keys(self) -> CurveExtrapolationSection:
+        # a key "applies" when it differs from its default (a dumped and re-read section carries
+        # every default, so being present is not enough)
+        fields = type(self).model_fields
+        given = {k for k in fields if getattr(self, k) != fields[k].default}
+        sw_only = ("last_liquid_point", "convergence_tolerance_bp", "alpha_floor", "convergence_point_years")
+        llfr_only = ("alpha", "phase_in_year", "currency", "coupon_frequency")
+        other = llfr_only if self.method == "smith_wilson" else sw_only
+        wrong = [k for k in other if k in given]
+        if wrong:
+            raise ValueError(f"{', '.join(wrong)} do(es) not apply to method = {self.method!r}")
+        if self.alpha is not None and self.phase_in_year is not None:
+            raise ValueError("give alpha or phase_in_year, not both")
+        return self
 
 
 class HullWhiteFitSection(_Section):
@@ -490,6 +520,57 @@ class ValidationSection(_Section):
     ess_warning_share: float = Field(default=0.1, gt=0.0, lt=1.0)
 
 
+class SensitivitySection(_Section):
+    """One sensitivity (or stress) set: shocks applied to the market data before calibration,
+    simulated with the base run's seeds (common random numbers) into ``sensitivities/<name>/``.
+
+    Shocks (at least one): ``curve_shift_bp`` (added to every input rate of the curve: par or
+    zero rates, or the annually compounded zero rate of a discount factor; typed-in pillars
+    too), ``curve_relative_shift`` (a CSV ``maturity_years, relative_shift`` read relative to
+    the configuration: each input rate ``r(t)`` becomes ``r(t) (1 + s(t))``, ``s`` linear
+    between the rows and flat beyond them), ``ufr_shift_bp``, ``swaption_vol_shift_bp`` (normal
+    volatility quotes), ``swaption_vol_relative`` (every quote times ``1 + x``),
+    ``equity_vol_shift_points`` (every index's volatility, implied or typed in, plus ``x / 100``),
+    ``index_level_shift_pct`` (every index level times ``1 + x / 100``), ``credit_spread_shift_bp``
+    (every rating's spreads). ``keep_volatility_parameters``: keep the base calibration's
+    volatility parameters and refit the curve (and what hangs on it: the house view's prices of
+    risk, the real curve) only; then only curve and UFR shocks are allowed. ``real_world``: also
+    write a real-world set (default: the market-consistent set only)."""
+
+    name: str = Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
+    description: str | None = Field(default=None, max_length=500)
+    curve_shift_bp: float | None = Field(default=None, ge=-2000.0, le=2000.0)
+    curve_relative_shift: str | None = Field(default=None, min_length=1)
+    ufr_shift_bp: float | None = Field(default=None, ge=-1000.0, le=1000.0)
+    swaption_vol_shift_bp: float | None = Field(default=None, ge=-500.0, le=500.0)
+    swaption_vol_relative: float | None = Field(default=None, gt=-1.0, le=10.0)
+    equity_vol_shift_points: float | None = Field(default=None, ge=-100.0, le=100.0)
+    index_level_shift_pct: float | None = Field(default=None, gt=-100.0, le=1000.0)
+    credit_spread_shift_bp: float | None = Field(default=None, ge=-1000.0, le=5000.0)
+    keep_volatility_parameters: bool = False
+    real_world: bool = False
+
+    @model_validator(mode="after")
+    def _shocks(self) -> SensitivitySection:
+        shocks = [k for k in SHOCK_KEYS if getattr(self, k) is not None]
+        if not shocks:
+            raise ValueError(f"sensitivity {self.name!r}: give at least one shock ({', '.join(SHOCK_KEYS)})")
+        if self.keep_volatility_parameters:
+            other = [k for k in shocks if k not in ("curve_shift_bp", "curve_relative_shift", "ufr_shift_bp")]
+            if other:
+                raise ValueError(
+                    f"sensitivity {self.name!r}: keep_volatility_parameters shocks the curve only; "
+                    f"{', '.join(other)} cannot go with it"
+                )
+        return self
+
+
+SHOCK_KEYS = (
+    "curve_shift_bp", "curve_relative_shift", "ufr_shift_bp", "swaption_vol_shift_bp", "swaption_vol_relative",
+    "equity_vol_shift_points", "index_level_shift_pct", "credit_spread_shift_bp",
+)
+
+
 class ExecutionSection(_Section):
     """How the parts are scheduled; the bytes written never depend on it.
 
@@ -540,6 +621,7 @@ class RunConfig(_Section):
     #: index, ``rates_inflation`` and ``credit_<rating>``; an empty table writes none. Under
     #: G2++ the driver name ``rates`` stands for both rate drivers.
     density_blocks: dict[str, list[str]] | None = None
+    sensitivities: list[SensitivitySection] = Field(default_factory=list, max_length=50)
 
     _base_dir: Path = PrivateAttr(default=Path("."))
 
@@ -657,6 +739,13 @@ class RunConfig(_Section):
                 raise ValueError(
                     f"index {idx.name}: give volatility, or market_data.equity_vols with its implied volatilities"
                 )
+        return self
+
+    @model_validator(mode="after")
+    def _sensitivity_names(self) -> RunConfig:
+        names = [s.name for s in self.sensitivities]
+        if len(set(n.lower() for n in names)) != len(names):
+            raise ValueError(f"sensitivity names must not repeat (case ignored): {names}")
         return self
 
     @model_validator(mode="after")

@@ -344,9 +344,11 @@ def _stack(tables: dict[str, Any]):
 
 
 def write_run_manifest(
-    run_dir: str | Path, config: RunConfig, plan: RunPlan, parts: list[PartRecord], *, run_id: str
+    run_dir: str | Path, config: RunConfig, plan: RunPlan, parts: list[PartRecord], *, run_id: str,
+    extra_header: dict[str, Any] | None = None,
 ) -> dict[str, Any]:
-    """Write ``manifest.json`` and check it against the records the parts returned."""
+    """Write ``manifest.json`` and check it against the records the parts returned.
+    ``extra_header``: further header entries (the sensitivity sets)."""
     run_dir = Path(run_dir)
     header = {
         "run_id": run_id,
@@ -369,6 +371,7 @@ def write_run_manifest(
         "horizon_years": {m: float(p.times[-1]) for m, p in plan.sets.items()},
         "antithetic": plan.antithetic,
         "caution": CAUTION,
+        **(extra_header or {}),
     }
     manifest = build_manifest(run_dir, header=header)
     by_path = {f["path"]: f for f in manifest["files"]}

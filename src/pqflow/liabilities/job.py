@@ -15,6 +15,7 @@ from typing import Any
 
 from pqflow import __version__
 from pqflow.liabilities.portfolio import Portfolio, load_portfolio
+from pqflow.liabilities.sensitivities import sensitivity_names, sensitivity_summary, value_sensitivities
 from pqflow.liabilities.tables import cash_flow_frame, results_frame, valuation_summary, valuation_table_rows
 from pqflow.liabilities.valuation import RunInfo, SetValuation, check_portfolio_against_run, inspect_run, value_run
 from pqflow.storage.jsonio import write_json_atomic
@@ -26,6 +27,7 @@ __all__ = [
     "RESULT_TABLES",
     "default_out_dir",
     "publish_valuation",
+    "publish_sensitivities",
     "value_liabilities_cli",
     "valuation_table_rows",
 ]
@@ -83,4 +85,24 @@ def value_liabilities_cli(
     check_portfolio_against_run(portfolio, info)
     mc = value_run(run_dir, portfolio, "market_consistent")
     rw = value_run(run_dir, portfolio, "real_world")
-    return publish_valuation(portfolio, info, mc, rw, out_dir if out_dir is not None else default_out_dir(run_dir))
+    sens = value_sensitivities(run_dir, portfolio, info) if sensitivity_names(run_dir) else None
+    target = out_dir if out_dir is not None else default_out_dir(run_dir)
+    summary = publish_valuation(portfolio, info, mc, rw, target)
+    return publish_sensitivities(sens, summary, target) if sens is not None else summary
+
+
+def publish_sensitivities(table: Any, summary: dict[str, Any], out_dir: str | Path) -> dict[str, Any]:
+    """Write ``sensitivities`` (Parquet and CSV: BE, guarantee and TVOG per sensitivity and line,
+    the change from the base and its paired and independent-sets standard errors) beside the
+    valuation, and add the totals to its ``summary.json``; return the summary."""
+    files = write_result_tables(out_dir, {"sensitivities": table}, metadata={"pqflow.version": __version__})
+    summary = dict(summary)
+    summary["sensitivities"] = sensitivity_summary(table)
+    summary["sensitivities_note"] = (
+        "change = sensitivity - base on the same scenarios (common random numbers); change_se_paired from the "
+        "paired differences, change_se_independent = sqrt(SE_base^2 + SE_sensitivity^2), what independently "
+        "seeded sets would give"
+    )
+    summary["files"] = {**summary.get("files", {}), **files}
+    write_json_atomic(Path(out_dir) / "summary.json", summary)
+    return summary

@@ -3,5 +3,6 @@
 from __future__ import annotations
 
 from pqflow.market.curve import DiscountCurve, LogDiscountCurve
+from pqflow.market import last_liquid_forward as _last_liquid_forward  # noqa: F401  registers the method
 
 __all__ = ["DiscountCurve", "LogDiscountCurve"]

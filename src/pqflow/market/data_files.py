@@ -13,7 +13,10 @@ Two formats (UTF-8, comma-separated, a header row first):
 ``par_rate`` (annual fixed leg, decimals; whole-year maturities), ``zero_rate`` (annually
 compounded, decimals, as the regulator publishes) or ``discount_factor`` (positive). Rates are
 decimals: ``0.035`` for 3.5%, and a rate of 1 or more in absolute value is refused as a likely
-percentage.
+percentage. An optional ``llfr_weight`` column carries the weights of the last liquid forward
+rate (the ``last_liquid_forward`` extrapolation): an empty cell counts as 0; weights are not
+negative and sum to 1. With that column a row may leave its rate empty (a maturity that is not
+liquid, kept for layout): it is left out, and may not carry a positive weight.
 
 **Correlation matrix**::
 
@@ -110,6 +113,7 @@ __all__ = [
 
 MATURITY_COLUMN = "maturity_years"
 VALUE_COLUMNS = ("par_rate", "zero_rate", "discount_factor")
+WEIGHT_COLUMN = "llfr_weight"
 _NOT_AVAILABLE = {"nan", "+nan", "-nan", "na", "n/a", "#n/a", "null", "none"}
 _WHOLE_YEAR_TOL = 1e-9
 _UNIT_TOL = 1e-12
@@ -127,6 +131,10 @@ class CurveInputFile:
     quantity: str
     maturities: np.ndarray
     values: np.ndarray
+    #: LLFR weights, one per row kept, ``(n,)``; ``None`` when the file has no ``llfr_weight`` column.
+    llfr_weights: np.ndarray | None = None
+    #: "data row N (line L)" of each row kept, for messages.
+    row_labels: tuple[str, ...] = ()
 
     def instruments(self, *, credit_risk_adjustment_bp: float = 0.0) -> CurveInstruments:
         """The inputs as Smith-Wilson calibration instruments (zero-coupon bonds or par swaps)."""
@@ -237,11 +245,11 @@ def read_curve_inputs(path: str | PathLike[str]) -> CurveInputFile:
             f"{name}, line {header_line}: no {MATURITY_COLUMN!r} column (header is {header})"
         )
     value_cols = [c for c in header if c in VALUE_COLUMNS]
-    unknown = [c for c in header if c != MATURITY_COLUMN and c not in VALUE_COLUMNS]
+    unknown = [c for c in header if c not in (MATURITY_COLUMN, WEIGHT_COLUMN) and c not in VALUE_COLUMNS]
     if unknown:
         raise MarketDataError(
             f"{name}, line {header_line}: unknown column {unknown[0]!r}; expected "
-            f"{MATURITY_COLUMN!r} and one of {', '.join(VALUE_COLUMNS)}"
+            f"{MATURITY_COLUMN!r}, one of {', '.join(VALUE_COLUMNS)} and optionally {WEIGHT_COLUMN!r}"
         )
     if len(value_cols) != 1:
         raise MarketDataError(
@@ -250,15 +258,17 @@ def read_curve_inputs(path: str | PathLike[str]) -> CurveInputFile:
         )
     quantity = value_cols[0]
     i_t, i_v = header.index(MATURITY_COLUMN), header.index(quantity)
+    i_w = header.index(WEIGHT_COLUMN) if WEIGHT_COLUMN in header else None
 
-    maturities = np.empty(len(rows))
-    values = np.empty(len(rows))
+    maturities: list[float] = []
+    values: list[float] = []
+    weights: list[float] = []
+    labels: list[str] = []
     previous: float | None = None
-    for k, row in enumerate(rows):
+    for row in rows:
         where_t = _at(name, row, MATURITY_COLUMN)
         where_v = _at(name, row, quantity)
         t = _number(row.cells[i_t], where_t)
-        v = _number(row.cells[i_v], where_v)
         if t <= 0.0:
             raise MarketDataError(f"{where_t}: maturity {t:g} must be positive")
         if previous is not None and t <= previous:
@@ -266,6 +276,21 @@ def read_curve_inputs(path: str | PathLike[str]) -> CurveInputFile:
                 f"{where_t}: maturity {t:g} is not greater than the previous row's {previous:g}; "
                 "maturities must be strictly increasing"
             )
+        previous = t
+        w = 0.0
+        if i_w is not None:
+            where_w = _at(name, row, WEIGHT_COLUMN)
+            w = 0.0 if row.cells[i_w] == "" else _number(row.cells[i_w], where_w)
+            if w < 0.0:
+                raise MarketDataError(f"{where_w}: weight {w:g} must not be negative")
+            if row.cells[i_v] == "":
+                if w > 0.0:
+                    raise MarketDataError(
+                        f"{where_w}: maturity {t:g} has a weight ({w:g}) but no rate; only liquid "
+                        "maturities (rows with a rate) carry LLFR weights"
+                    )
+                continue  # a maturity without a quote: left out
+        v = _number(row.cells[i_v], where_v)
         if quantity == "par_rate" and abs(t - round(t)) > _WHOLE_YEAR_TOL:
             raise MarketDataError(
                 f"{where_t}: maturity {t:g} is not a whole number of years, which an annual "
@@ -279,9 +304,36 @@ def read_curve_inputs(path: str | PathLike[str]) -> CurveInputFile:
                 f"{where_v}: rate {v:g} is 100% or more in size; rates are decimals "
                 "(0.035 for 3.5%)"
             )
-        maturities[k], values[k] = t, v
-        previous = t
-    return CurveInputFile(source=name, quantity=quantity, maturities=maturities, values=values)
+        maturities.append(t)
+        values.append(v)
+        weights.append(w)
+        labels.append(f"data row {row.number} (line {row.line})")
+    if not maturities:
+        raise MarketDataError(f"{name}: no row has a rate")
+    llfr = None
+    if i_w is not None:
+        llfr = np.array(weights)
+        positive = [k for k, x in enumerate(weights) if x > 0.0]
+        if not positive:
+            raise MarketDataError(
+                f"{name}, column {WEIGHT_COLUMN!r}: no row has a positive weight, so there is no first "
+                "smoothing point; give the first smoothing point and the liquid maturities after it "
+                "weights that sum to 1"
+            )
+        total = math.fsum(weights)
+        if abs(total - 1.0) > 1e-9:
+            listed = "; ".join(f"{labels[k]}: maturity {maturities[k]:g}, weight {weights[k]:g}" for k in positive)
+            raise MarketDataError(f"{name}, column {WEIGHT_COLUMN!r}: the weights sum to {total:.10g}, not 1 ({listed})")
+        if maturities[positive[0]] < 1.0:
+            raise MarketDataError(
+                f"{name}, {labels[positive[0]]}, column {WEIGHT_COLUMN!r}: the first smoothing point "
+                f"{maturities[positive[0]]:g} (the first positive weight) is shorter than one year; "
+                "the one-year forward into it is not defined"
+            )
+    return CurveInputFile(
+        source=name, quantity=quantity, maturities=np.array(maturities), values=np.array(values),
+        llfr_weights=llfr, row_labels=tuple(labels),
+    )
 
 
 def read_correlation_matrix(path: str | PathLike[str]) -> CorrelationFile:

@@ -603,6 +603,17 @@ def _liabilities(run_dir: Path) -> str:
     ], fmt={k: (lambda x: _num(x, 0)) for k in ("market_consistent_value", "market_consistent_se",
                                                   "certainty_equivalent_value", "tvog",
                                                   "real_world_value", "real_world_se")}))
+    sens = [{"sensitivity": e["sensitivity"], "quantity": q, **e[q]}
+            for e in val.get("sensitivities", []) for q in ("best_estimate", "guarantee", "tvog") if q in e]
+    if sens:
+        html.append('<h3>Sensitivities (total)</h3><p class="note">Change from the base on the same scenarios '
+                    "(common random numbers), its standard error, and the one independently seeded sets would give "
+                    "(valuation/sensitivities.csv has every line).</p>")
+        html.append(_table(sens, [("sensitivity", "sensitivity"), ("quantity", "quantity"), ("value", "value"),
+                                  ("change", "change"), ("change_se_paired", "SE"),
+                                  ("change_se_independent", "SE, independent sets")],
+                           fmt={k: (lambda x: _num(x, 0)) for k in ("value", "change", "change_se_paired",
+                                                                      "change_se_independent")}))
     return "".join(html)
 
 

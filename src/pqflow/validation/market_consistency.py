@@ -297,13 +297,15 @@ def _implied(s: InstrumentSpec, price: float) -> float | None:
 
 
 def market_consistency_table(
-    inputs: RunInputs, *, vol_tolerance: dict[str, float] | None = None
+    inputs: RunInputs, *, vol_tolerance: dict[str, float] | None = None,
+    measures: tuple[str, ...] = _MEASURES,
 ) -> tuple[pd.DataFrame, list[InstrumentSpec]]:
-    """One row per (testable instrument, set); and every instrument read (testable or not)."""
+    """One row per (testable instrument, set); and every instrument read (testable or not).
+    ``measures``: the sets to reprice from (a sensitivity may have the market-consistent one only)."""
     tol = {**DEFAULT_VOL_TOLERANCE, **(vol_tolerance or {})}
     rows: list[dict[str, Any]] = []
     specs_all: list[InstrumentSpec] = []
-    for measure in _MEASURES:
+    for measure in measures:
         reader = inputs.reader(measure)
         columns = reader.column_names()
         first_times, first_cols = next(reader.iter_arrays(["deflator", *index_columns(columns)]))
@@ -313,7 +315,7 @@ def market_consistency_table(
             if s.kind == "equity_option" and s.untestable is None else s
             for s in specs
         ]
-        if measure == _MEASURES[0]:
+        if measure == measures[0]:
             specs_all = specs
         testable = [s for s in specs if s.untestable is None]
         if not testable:
@@ -353,14 +355,15 @@ def market_consistency_table(
 
 
 def market_consistency_check(
-    inputs: RunInputs, *, vol_tolerance: dict[str, float] | None = None
+    inputs: RunInputs, *, vol_tolerance: dict[str, float] | None = None,
+    measures: tuple[str, ...] = _MEASURES,
 ) -> CheckResult:
     """The check's table and its ``summary.json`` entry (``not_applicable`` without instruments)."""
     section = inputs.calibration.get("instruments") or {}
     if not (section.get("swaptions") or section.get("equity_options") or section.get("inflation_caps")):
         return CheckResult(name=CHECK, summary=not_applicable_entry(
             kind=KIND, reason="not applicable: no instruments in calibration.json"))
-    table, specs = market_consistency_table(inputs, vol_tolerance=vol_tolerance)
+    table, specs = market_consistency_table(inputs, vol_tolerance=vol_tolerance, measures=measures)
     untestable = [{"instrument": s.label, "reason": s.untestable} for s in specs if s.untestable]
     if table.empty:
         entry = not_applicable_entry(kind=KIND, reason="no instrument is testable from the files")
@@ -395,6 +398,6 @@ def market_consistency_check(
     ]
     entry["warnings"] = [f"{u['instrument']}: {u['reason']}" for u in untestable] + [
         f"{r['instrument']}: {r['note']}" for r in table.to_dict(orient="records")
-        if r.get("note") and r["measure"] == _MEASURES[0]
+        if r.get("note") and r["measure"] == measures[0]
     ]
     return CheckResult(name=CHECK, summary=entry, tables={"market_consistency": table})

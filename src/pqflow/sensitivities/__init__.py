@@ -1,0 +1,2 @@
+"""Sensitivity and stress sets: shocked market data, their calibration, and what a run writes
+for them under ``sensitivities/<name>/`` (same layout as the base run, same seeds)."""
