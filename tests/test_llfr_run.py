@@ -84,7 +84,8 @@ def test_fits_house_view_and_every_check_work_on_the_llfr_curve(tmp_path, model)
     checks = run_checks(run, ess_warning_share=0.10).summary
     verdicts = {name: c["verdict"] for name, c in checks["checks"].items()}
     print(f"\n[{model}] LLFR {fit['last_liquid_forward_rate']:.6%}; checks: {verdicts}")
-    assert checks["verdict"] == "pass", verdicts
+    # no check fails; cells without the power to judge are inconclusive (issue 11), not passes
+    assert checks["verdict"] in ("pass", "inconclusive") and "fail" not in verdicts.values(), verdicts
 
 
 def test_configuration_rules(tmp_path):
@@ -172,7 +173,7 @@ def test_curve_only_sensitivity_on_the_llfr_curve_reprices_the_kept_rates_model(
         generate_part(cal, plan, measure, batch, root)
     validate_staged_run(root, cfg)
     _, summary = run_sensitivities(cfg, cal, plan, root)
-    assert summary is not None and summary["sensitivities"]["rates_up_100bp"]["verdict"] == "pass"
+    assert summary is not None and summary["sensitivities"]["rates_up_100bp"]["verdict"] in ("pass", "inconclusive")
     set_dir = root / "sensitivities" / "rates_up_100bp"
     sens_cal = read_json(set_dir / "calibration.json")
     assert sens_cal["fit"]["curve"]["method"] == "last_liquid_forward"

@@ -66,7 +66,7 @@ def run(tmp_path_factory) -> Path:
     root = tmp_path_factory.mktemp("sens")
     out = root / "run"
     result = run_in_process(_write(root, BASE), out)
-    assert result["summary"]["verdict"] == "pass", result["summary"].get("sensitivities")
+    assert result["summary"]["verdict"] in ("pass", "inconclusive"), result["summary"].get("sensitivities")
     return out
 
 
@@ -80,7 +80,7 @@ def test_layout_manifest_and_checks(run):
             assert f"sensitivities/{name}/{rel}" in paths
         assert not (run / "sensitivities" / name / "scenarios" / "real_world").exists()  # real world: optional
         summary = json.loads((run / "sensitivities" / name / "validation" / "summary.json").read_text())
-        assert summary["checks"]["martingale_market_consistent"]["verdict"] == "pass"
+        assert summary["checks"]["martingale_market_consistent"]["verdict"] in ("pass", "inconclusive")
         assert summary["checks"]["reconciliation"]["verdict"] == "not_applicable"
     run_summary = json.loads((run / "validation" / "summary.json").read_text())
     assert set(run_summary["sensitivities"]) == {"rates_up_100bp", "equity_down", "equity_vol_up"}
@@ -136,7 +136,9 @@ def test_value_reports_every_sensitivity_with_paired_and_independent_se(run, tmp
     total = table[(table.level == "total")]
     # the base values are the valuation's own market-consistent values (same files, same projection)
     be_base = base_lines[(base_lines.level == "total") & (base_lines.quantity == "best_estimate")]
-    mc_col = next(c for c in base_lines.columns if c.startswith("market_consistent") and "se" not in c)
+    # (the plain means: changes are paired differences of plain means; the base line's value with
+    # control variates is reported beside it in liability_values)
+    mc_col = "market_consistent_value_without_controls"
     for name in ("rates_up_100bp", "equity_down", "equity_vol_up"):
         row = total[(total.sensitivity == name) & (total.quantity == "best_estimate")].iloc[0]
         assert row.base_value == pytest.approx(float(be_base[mc_col].iloc[0]), rel=1e-12)
@@ -211,7 +213,7 @@ def test_prefect_flow_writes_the_same_sensitivity_sets(prefect_harness, run, tmp
     from pipeline import run_quarterly
 
     result = run_quarterly(_write(tmp_path, BASE), tmp_path / "flow", workers=2)
-    assert result["summary"]["verdict"] == "pass" and set(result["summary"]["sensitivities"]) == {
+    assert result["summary"]["verdict"] in ("pass", "inconclusive") and set(result["summary"]["sensitivities"]) == {
         "rates_up_100bp", "equity_down", "equity_vol_up"}
     flow, lib = run_digests(tmp_path / "flow"), run_digests(run)
     sens = {k for k in lib if k.startswith("sensitivities/") and k.endswith(".parquet")}
