@@ -78,6 +78,9 @@ def test_validate_rewrites_validation_and_keeps_the_manifest_whole(small_run, tm
     run = _copy(small_run, tmp_path)
     (run / "validation" / "density_budget.csv").unlink()
     _reseal(run)
+    stale = run / ".validation.new-0123456789ab"  # left by a process killed mid-write
+    stale.mkdir()
+    (stale / "summary.json").write_text("{}")
     result = runner.invoke(app, ["validate", str(run)])
     assert result.exit_code == 0, result.output
     assert (run / "validation" / "density_budget.csv").is_file()
