@@ -83,6 +83,9 @@ def test_validate_rewrites_validation_and_keeps_the_manifest_whole(small_run, tm
     run = _copy(small_run, tmp_path)
     (run / "validation" / "density_budget.csv").unlink()
     _reseal(run)
+    stale = run / ".validation.new-0123456789ab"  # left by a process killed mid-write
+    stale.mkdir()
+    (stale / "summary.json").write_text("{}")
     result = runner.invoke(app, ["validate", str(run)])
     assert result.exit_code == 0, result.output
     assert (run / "validation" / "density_budget.csv").is_file()
@@ -193,3 +196,23 @@ def test_density_blocks_are_judged_and_get_their_horizon(small_run, tmp_path):
     checks = run_checks(low, ess_warning_share=0.1).summary["checks"]
     assert checks["density_real_world"]["verdict"] == "fail"
     assert checks["density_real_world"]["worst_cell"]["column"] == "q_density_rates"
+
+
+def test_terminal_lines_show_inconclusive_in_words_and_keep_brackets(small_run):
+    # What `pqflow run` and `pqflow validate` print: the verdict word, the inconclusive count
+    # and its start, one line per density, and user text in brackets printed as written (rich
+    # would otherwise read it as markup).
+    from pqflow import cli
+
+    summary = read_json(small_run / "validation" / "summary.json")
+    summary["checks"]["martingale_real_world"].update(verdict="inconclusive", inconclusive_cells=7,
+                                                      inconclusive_from_time=4.0)
+    summary["checks"]["martingale_real_world"]["warnings"] = ["see [bold]note[/bold] in [validation]"]
+    summary["inconclusive"] = {"cells": 7, "from_time": 4.0, "checks": ["martingale_real_world"]}
+    with cli.console.capture() as captured:
+        cli._print_validation(summary)
+        cli.console.print(cli._verdict_line("inconclusive"))
+    text = captured.get()
+    assert "INCONCLUSIVE" in text and "7 cells" in text and "t = 4 years" in text
+    assert "see [bold]note[/bold] in [validation]" in text
+    assert text.count("density q_density") == 1 and text.count("density p_density") == 1

@@ -291,6 +291,8 @@ def write_validation(run_dir: str | Path, *, ess_warning_share: float) -> dict[s
     from pqflow.validation.evidence import run_checks
 
     run_dir = Path(run_dir)
+    for stale in run_dir.glob(".validation.new-*"):  # left by a process killed mid-write
+        shutil.rmtree(stale, ignore_errors=True)
     result = run_checks(run_dir, ess_warning_share=ess_warning_share)
     out = run_dir / "validation"
     fresh = run_dir / f".validation.new-{uuid.uuid4().hex[:12]}"
