@@ -215,4 +215,7 @@ def test_terminal_lines_show_inconclusive_in_words_and_keep_brackets(small_run):
     text = captured.get()
     assert "INCONCLUSIVE" in text and "7 cells" in text and "t = 4 years" in text
     assert "see [bold]note[/bold] in [validation]" in text
-    assert text.count("density q_density") == 1 and text.count("density p_density") == 1
+    assert text.count("density q_density,") == 1 and text.count("density p_density,") == 1
+    # and one line per restricted density, naming its block
+    assert text.count("density q_density_rates (block rates)") == 1
+    assert text.count("density p_density_rates (block rates)") == 1

@@ -400,3 +400,23 @@ def test_wealth_benchmark_is_reported_and_can_be_made_to_count(good_run):
     assert reported["verdict"] in ("pass", "inconclusive")  # the benchmark's miss does not fail it
     gated = run_checks(good_run, ess_warning_share=0.1, wealth_benchmark_gating=True).summary
     assert gated["checks"]["real_world"]["verdict"] == "fail" and gated["verdict"] == "fail"
+
+
+def test_real_world_martingale_cells_use_the_smallest_density_block(good_run, tmp_path):
+    """Real-world assets are deflated with their block's density (E_P[w_B A_t / B_t] = A_0 for
+    anything the block determines; conditioning, as in the density-block tests): bonds with
+    the rates block, the equity with rates + equity; the written deflator keeps its own row.
+    A rates block whose weights are 5% too high everywhere after time 0 fails the real-world
+    martingale check (the lognormal identity judges these cells)."""
+    table = run_checks(good_run, ess_warning_share=0.10).martingale["real_world"]
+    weight = dict(zip(table.asset, table.weight))
+    assert weight["deflator"] == "deflator"
+    assert weight["zcb_10y"] == "q_density_rates / cash_account"
+    assert weight["equity_veldmark_all_share"] == "q_density_rates_veldmark_all_share / cash_account"
+    assert set(table[table.asset == "zcb_10y"].test) == {"lognormal identity"}
+    bad = _copy(good_run, tmp_path)
+    _rewrite_parts(bad, "real_world", "q_density_rates", lambda v, t: np.where(t > 0, 1.05 * v, v))
+    checks = _checks(bad)
+    assert checks["martingale_real_world"]["verdict"] == "fail"
+    assert checks["martingale_real_world"]["worst_cell"]["asset"].startswith("zcb_")
+    assert checks["martingale_market_consistent"]["verdict"] != "fail"

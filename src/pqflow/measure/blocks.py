@@ -54,7 +54,11 @@ __all__ = [
     "gaussian_block_coefficients",
     "column_drivers",
     "smallest_block",
+    "density_factors",
+    "CREDIT_PREFIX",
 ]
+
+CREDIT_PREFIX = "credit_"
 
 BLOCK_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 _DENSITY = {"real_world": "q_density", "market_consistent": "p_density"}
@@ -248,3 +252,27 @@ def smallest_block(needed: frozenset[str], blocks: Mapping[str, Sequence[str]]) 
     (``blocks``: name -> drivers); ``None`` when none does (use the full density)."""
     fits = [(len(drivers), name) for name, drivers in blocks.items() if needed <= set(drivers)]
     return min(fits)[1] if fits else None
+
+
+def density_factors(needed: frozenset[str], blocks: Mapping[str, Sequence[str]]) -> tuple[str, ...] | None:
+    """Written blocks whose densities multiply to a restricted density carrying every driver in
+    ``needed``: the smallest block that contains them all; failing that, when they are Gaussian
+    drivers plus one rating's driver, the smallest block of Gaussian drivers only times the
+    smallest block of credit drivers only that holds the rating (credit drivers are independent
+    of the Gaussian ones, so the product is the density on the union of the two blocks' states).
+    ``None``: no combination of written blocks does; use the full density."""
+    one = smallest_block(needed, blocks)
+    if one is not None:
+        return (one,)
+    credit = frozenset(d for d in needed if d.startswith(CREDIT_PREFIX))
+    if len(credit) != 1:
+        return None
+    gaussian = needed - credit
+    is_credit = {k: [x.startswith(CREDIT_PREFIX) for x in v] for k, v in blocks.items()}
+    c = smallest_block(credit, {k: v for k, v in blocks.items() if all(is_credit[k])})
+    if c is None:
+        return None
+    if not gaussian:
+        return (c,)
+    g = smallest_block(gaussian, {k: v for k, v in blocks.items() if not any(is_credit[k])})
+    return None if g is None else (g, c)

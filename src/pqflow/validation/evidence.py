@@ -122,7 +122,8 @@ def run_checks(
     inputs = load_run_inputs(run_dir)
     credit = credit_in_density(inputs.parameters, inputs.reader("real_world").column_names())
     mart, dens, base = validate_run(run_dir, inputs.curve.discount, ess_warning_share=ess_warning_share,
-                                    extra_assets=partial(martingale_assets, inputs), credit_density=credit)
+                                    extra_assets=partial(martingale_assets, inputs), credit_density=credit,
+                                    rates_drivers=inputs.rates_drivers)
     checks: dict[str, dict[str, Any]] = {}
     for name, entry in base["checks"].items():
         family = name.split("_", 1)[0]

@@ -32,8 +32,9 @@ import pandas as pd
 from scipy.stats import norm
 
 from pqflow.errors import IntegrityError
+from pqflow.measure.blocks import CREDIT_PREFIX, column_drivers, density_factors
 from pqflow.validation.assets import MartingaleAsset
-from pqflow.validation.mean_tests import MARTINGALE_DEVIATION, CellMoments, mean_test, rule_for_asset
+from pqflow.validation.mean_tests import MARTINGALE_DEVIATION, ROBUST, CellMoments, mean_test, rule_for_asset
 from pqflow.validation.reader import ScenarioSetReader
 
 __all__ = ["martingale_table", "bond_maturity_of", "index_columns", "INDEX_PREFIXES", "LEVELS"]
@@ -81,16 +82,51 @@ def _builtin_assets(names: list[str], discount: Callable[[np.ndarray], np.ndarra
     return assets
 
 
+def _asset_weights(
+    reader: ScenarioSetReader, assets: Sequence[MartingaleAsset], rates_drivers: Sequence[str]
+) -> dict[str, tuple[str, ...]]:
+    """For each asset of a real-world set, the restricted density columns whose product deflates
+    it (empty: the written ``deflator``); always empty in a market-consistent set."""
+    out: dict[str, tuple[str, ...]] = {a.name: () for a in assets}
+    if reader.measure != "real_world":
+        return out
+    blocks = reader.density_blocks()
+    if not blocks:
+        return out
+    names = reader.column_names()
+    inflation = ("real_rate", "inflation") if "cpi" in names else None
+    for a in assets:
+        if a.name == "deflator" or not a.columns:
+            continue
+        try:
+            needed = frozenset(rates_drivers).union(*(column_drivers(c, rates_drivers, inflation) for c in a.columns))
+        except ValueError:
+            continue
+        factors = density_factors(needed, blocks)
+        if factors is not None:
+            out[a.name] = tuple(f"q_density_{f}" for f in factors)
+    return out
+
+
 def martingale_table(
     reader: ScenarioSetReader,
     discount: Callable[[np.ndarray], np.ndarray],
     extra: Sequence[MartingaleAsset] = (),
     *,
     credit_density: bool = False,
+    rates_drivers: Sequence[str] = ("rates",),
 ) -> pd.DataFrame:
     """One row per (asset, time > 0). ``discount`` is today's curve ``t -> P(0, t)``; ``extra``
     are further assets (their columns must be in the files, their names new); credit_density:
-    whether the set's density carries the CIR credit part (its cells are then not lognormal)."""
+    whether the set's density carries the CIR credit part (its cells are then not lognormal).
+
+    In a real-world set that carries restricted densities (:mod:`pqflow.measure.blocks`) every
+    asset but the deflator itself is deflated with the density of the smallest block(s) holding
+    its drivers over the cash account (column ``weight``): the identity ``E_P[w_B A_t / B_t] =
+    A_0`` holds for anything the block determines, and the block's weights keep their power far
+    longer than the full density's. The written ``deflator`` column (the full density over the
+    cash account) is tested as the asset "deflator" (``E[D_t] = P(0, t)``) and the full density
+    itself by the density check."""
     names = reader.column_names()
     start: dict[str, float] = {}
     assets = [*_builtin_assets(names, discount, start), *extra]
@@ -101,14 +137,21 @@ def martingale_table(
     if missing:
         raise IntegrityError(f"{reader.set_dir}: columns {', '.join(missing)} are not in the files")
     indices = index_columns(names)
-    needed = list(dict.fromkeys(["deflator", *(c for a in assets for c in a.columns)]))
+    weights = _asset_weights(reader, assets, rates_drivers)
+    factor_cols = [c for w in weights.values() for c in w]
+    needed = list(dict.fromkeys(["deflator", *(c for a in assets for c in a.columns), *factor_cols,
+                                 *(["cash_account"] if factor_cols else [])]))
     antithetic = reader.antithetic
 
     acc: dict[str, CellMoments | None] = {a.name: None for a in assets}
     times = None
     for times, cols in reader.iter_arrays(needed):
-        deflator = cols["deflator"]
         for a in assets:
+            factors = weights[a.name]
+            if factors:
+                deflator = np.prod([cols[c] for c in factors], axis=0) / cols["cash_account"]
+            else:
+                deflator = cols["deflator"]
             values = deflator * a.value(cols)
             prev = acc[a.name]
             m = CellMoments.of(values, antithetic, None if prev is None else prev.shift)
@@ -122,13 +165,20 @@ def martingale_table(
         moments = acc[a.name]
         assert moments is not None
         ref = np.asarray(a.reference(times), dtype=float)
-        rule = rule_for_asset(a.name, measure=reader.measure, credit_density=credit_density)
+        factors = weights[a.name]
+        if factors:  # a restricted density: lognormal unless a credit block is among its factors
+            with_credit = any(c.split("_density_", 1)[1].startswith(CREDIT_PREFIX) for c in factors)
+            rule = rule_for_asset(a.name, measure=reader.measure, credit_density=False)
+            rule = ROBUST if with_credit else rule
+        else:
+            rule = rule_for_asset(a.name, measure=reader.measure, credit_density=credit_density)
         res = mean_test(moments, ref, rule, deviation=MARTINGALE_DEVIATION)
         for k in range(1, times.size):
             z = res.z_score[k]
             row = {
                 "asset": a.name,
                 "description": a.description,
+                "weight": (" * ".join(factors) + " / cash_account") if factors else "deflator",
                 "time": float(times[k]),
                 "expected": float(ref[k]),
                 "estimate": float(res.estimate[k]),

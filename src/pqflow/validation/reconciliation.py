@@ -102,10 +102,6 @@ def _equity_column(inputs: RunInputs, names: list[str]) -> str | None:
     return col if col in names else None
 
 
-def _rates_drivers(inputs: RunInputs) -> tuple[str, ...]:
-    return ("rates_x", "rates_y") if "g2pp" in inputs.parameters else ("rates",)
-
-
 def density_for(reader: ScenarioSetReader, columns: Sequence[str], rates_drivers: Sequence[str]) -> tuple[str, str | None]:
     """The density column to weight quantities built from ``columns`` with: the smallest
     restricted block the set carries that contains every driver they depend on
@@ -131,7 +127,7 @@ def guarantee_values(
     set, the density itself (``E[w_T] = 1``). The plain estimates are kept beside them.
     """
     out: dict[str, Any] = {}
-    rates = _rates_drivers(inputs)
+    rates = inputs.rates_drivers
     for measure in ("market_consistent", "real_world"):
         reader = inputs.reader(measure)
         col = _equity_column(inputs, reader.column_names())

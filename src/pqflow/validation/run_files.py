@@ -55,6 +55,11 @@ class RunInputs:
     def parameters(self) -> dict[str, Any]:
         return self.calibration.get("parameters", {})
 
+    @property
+    def rates_drivers(self) -> tuple[str, ...]:
+        """The rate drivers of the recorded model (G2++ has two)."""
+        return ("rates_x", "rates_y") if "g2pp" in self.parameters else ("rates",)
+
 
 def load_run_inputs(run_dir: str | Path) -> RunInputs:
     """Read ``calibration.json`` of a run; today's curve is rebuilt from its stored form."""

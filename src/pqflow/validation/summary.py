@@ -185,6 +185,7 @@ def validate_run(
     ess_warning_share: float,
     extra_assets: Callable[[list[str]], Sequence[MartingaleAsset]] | None = None,
     credit_density: bool = False,
+    rates_drivers: Sequence[str] = ("rates",),
 ) -> tuple[dict[str, pd.DataFrame], dict[str, pd.DataFrame], dict[str, Any]]:
     """Compute every table and the summary for a run directory (nothing is written here).
 
@@ -199,7 +200,8 @@ def validate_run(
     for measure in ("market_consistent", "real_world"):
         reader = ScenarioSetReader(run_dir=run_dir, measure=measure)
         extra = extra_assets(reader.column_names()) if extra_assets is not None else ()
-        mart[measure] = martingale_table(reader, discount, extra, credit_density=credit_density)
+        mart[measure] = martingale_table(reader, discount, extra, credit_density=credit_density,
+                                         rates_drivers=rates_drivers)
         dens[measure] = density_table(reader, credit_density=credit_density)
     summary = summarise(mart, dens, ess_warning_share=ess_warning_share)
     return mart, dens, summary
