@@ -36,6 +36,7 @@ __all__ = [
     "deploy_quarterly",
     "ensure_process_pool",
     "api_url",
+    "check_server",
 ]
 
 QUARTERLY_CRON = "0 6 1 1,4,7,10 *"  # 06:00 on the first day after each quarter end
@@ -72,6 +73,25 @@ def api_url() -> str | None:
     from prefect.settings import get_current_settings
 
     return get_current_settings().api.url or None
+
+
+def check_server(url: str, timeout: float = 10.0) -> None:
+    """Refuse a ``PREFECT_API_URL`` that does not answer, before any work: Prefect itself would
+    fail later with a long traceback. Any HTTP answer (even 401 from a server that wants a key)
+    counts as an answer."""
+    import urllib.error
+    import urllib.request
+
+    try:
+        urllib.request.urlopen(url.rstrip("/") + "/health", timeout=timeout).close()
+    except urllib.error.HTTPError:
+        return
+    except (OSError, ValueError) as exc:
+        reason = getattr(exc, "reason", exc)
+        raise PqflowError(
+            f"PREFECT_API_URL is {url}, but no Prefect server answers there ({reason}); start it "
+            "('prefect server start'), or unset PREFECT_API_URL to run with a temporary local server"
+        ) from None
 
 
 def _absolute(location: str | Path) -> str:
@@ -153,6 +173,7 @@ def deploy_quarterly(config_path: str | Path, out_root: str | Path, **options: A
             "PREFECT_API_URL=http://127.0.0.1:4200/api); a schedule needs a server that stays up"
         )
     deployment = quarterly_deployment(config_path, out_root, **options)
+    check_server(url)
     try:
         created = ensure_process_pool(deployment.work_pool_name)
         deployment_id = deployment.apply()

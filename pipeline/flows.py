@@ -29,7 +29,7 @@ from prefect.cache_policies import NO_CACHE
 from prefect.futures import as_completed
 from prefect.task_runners import ThreadPoolTaskRunner
 
-from pipeline.progress import progress_reporter
+from pipeline.progress import ArtifactProgress, progress_reporter
 from pqflow import __version__
 from pqflow.calibration.assemble import Calibration
 from pqflow.storage.parquet import file_sha256
@@ -236,10 +236,12 @@ def quarterly_run(
         todo = att.todo(plan)
         futures = [generate_part_task.submit(calibration, plan, m, b, att.staging) for m, b in todo]
         parts = list(att.kept.values())
+        ui = ArtifactProgress(len(plan.tasks()), len(parts))
         with progress_reporter(len(plan.tasks()), len(parts), show_progress) as advance:
             for fut in as_completed(futures):
                 parts.append(fut.result())
                 advance()
+                ui.advance()
         summary = validate_task(att.staging, config)
         manifest_task(att.staging, config, plan, parts, att.state.run_id)
         report_task(att.staging)

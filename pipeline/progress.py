@@ -16,7 +16,7 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from typing import TextIO
 
-__all__ = ["LineProgress", "progress_reporter", "format_seconds", "PROGRESS_INTERVAL_SECONDS"]
+__all__ = ["LineProgress", "ArtifactProgress", "progress_reporter", "format_seconds", "PROGRESS_INTERVAL_SECONDS"]
 
 PROGRESS_INTERVAL_SECONDS = 5.0
 
@@ -133,3 +133,28 @@ def progress_reporter(
         return
     with LineProgress(total, kept, interval=interval) as lines:
         yield lines.advance
+
+
+class ArtifactProgress:
+    """The same count as a Prefect progress artifact, a bar in the run's Artifacts tab of the
+    Prefect UI (created and updated from inside a flow run)."""
+
+    KEY = "pqflow-scenario-parts"
+
+    def __init__(self, total: int, kept: int = 0) -> None:
+        from prefect.artifacts import create_progress_artifact
+
+        self.total, self.done = max(1, int(total)), int(kept)
+        self.artifact_id = create_progress_artifact(
+            progress=self.percent, key=self.KEY, description=f"scenario parts generated, of {self.total}",
+        )
+
+    @property
+    def percent(self) -> float:
+        return round(100.0 * self.done / self.total, 2)
+
+    def advance(self) -> None:
+        from prefect.artifacts import update_progress_artifact
+
+        self.done += 1
+        update_progress_artifact(self.artifact_id, progress=self.percent)

@@ -182,8 +182,12 @@ def test_deploy_trigger_and_a_worker_runs_it(prefect_server, small_config, tmp_p
     assert manifest["seeds"]["root_seed"] == 20260930
     assert sum(f["path"].startswith("scenarios/") for f in manifest["files"]) == 4  # 2 parts per set
     assert json.loads((run_dir / "validation" / "summary.json").read_text())["verdict"] == "pass"
-    # Progress lines reached the worker's log (no terminal there).
-    assert "parts generated" in worker.stdout + worker.stderr
+    # Progress lines reached the worker's log (no terminal there), and the UI has the artifacts.
+    assert "progress: 4 of 4 parts generated" in worker.stdout
+    artifacts = {a["key"]: a for a in _api(url, "/artifacts/filter", {"limit": 50}) if a.get("key")}
+    assert artifacts["pqflow-scenario-parts"]["type"] == "progress"
+    assert float(artifacts["pqflow-scenario-parts"]["data"]) == 100.0
+    assert {"pqflow-validation-summary", "pqflow-verdicts"} <= artifacts.keys()
 
 
 def test_pqflow_run_uses_the_server_in_PREFECT_API_URL(prefect_server, small_config, tmp_path):
@@ -214,3 +218,17 @@ def test_pqflow_run_uses_the_server_in_PREFECT_API_URL(prefect_server, small_con
                            cwd="/", capture_output=True, text=True, timeout=RUN_TIMEOUT)
     assert fresh.returncode in (0, 1), fresh.stdout + fresh.stderr  # 1: the two sets' values differ
     assert (out / "valuation" / "liability_values.csv").is_file()
+
+
+def test_a_configured_server_that_does_not_answer_is_refused(small_config, tmp_path):
+    # No server fixture: PREFECT_API_URL names a loopback port nobody listens on.
+    url = f"http://127.0.0.1:{_free_port()}/api"
+    out = tmp_path / "never"
+    result = _run([str(BIN / "pqflow"), "run", str(small_config()), "--out", str(out)],
+                  _env(tmp_path / "home", url), tmp_path, timeout=120)
+    assert result.returncode == 2, result.stdout + result.stderr
+    assert f"PREFECT_API_URL is {url}, but no Prefect server answers" in result.stderr
+    assert not out.exists()
+    deployed = _run([str(BIN / "pqflow"), "deploy", str(small_config()), "--out-root", str(out)],
+                    _env(tmp_path / "home", url), tmp_path, timeout=120)
+    assert deployed.returncode == 2 and "no Prefect server answers" in deployed.stderr
