@@ -175,8 +175,13 @@ def test_deploy_trigger_and_a_worker_runs_it(prefect_server, small_config, tmp_p
     assert [r["state_type"] for r in sub] == ["COMPLETED"]  # quarterly_run, as a subflow
     # The server's scheduler placed the next run at 06:00 Amsterdam time on the first day of the
     # next quarter; the expected instant comes from the IANA time zone database (zoneinfo).
-    scheduled = sorted(r["expected_start_time"] for r in ours if r["state_type"] == "SCHEDULED")
-    assert scheduled and _utc(scheduled[0]) == _next_quarter_start("Europe/Amsterdam")
+    # (The scheduler service picks a new deployment up within seconds; wait at most 90 s.)
+    deadline = time.monotonic() + 90
+    while not (scheduled := sorted(r["expected_start_time"] for r in _flow_runs(url)
+                                   if r["deployment_id"] == deployment["id"] and r["state_type"] == "SCHEDULED")):
+        assert time.monotonic() < deadline, "the server scheduled no run of the deployment"
+        time.sleep(2)
+    assert _utc(scheduled[0]) == _next_quarter_start("Europe/Amsterdam")
     run_dir = out_root / "2026-09-30"  # the configuration's valuation date
     manifest = verify_run(run_dir)
     assert manifest["seeds"]["root_seed"] == 20260930
