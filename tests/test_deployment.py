@@ -28,6 +28,7 @@ from pqflow.storage.manifest import verify_run
 pytestmark = pytest.mark.deployment
 
 BIN = Path(sys.executable).parent
+REPO = Path(__file__).resolve().parents[1]
 SERVER_START_TIMEOUT = 150  # seconds; the machine may be shared and slow
 RUN_TIMEOUT = 300
 
@@ -146,11 +147,11 @@ def test_deploy_trigger_and_a_worker_runs_it(prefect_server, small_config, tmp_p
     pool = "pqflow-test"
 
     deployed = _run([str(BIN / "pqflow"), "deploy", str(cfg), "--out-root", str(out_root), "--pool", pool,
-                     "--timezone", "Europe/Amsterdam"], env, elsewhere)
+                     "--name", "cli-test", "--timezone", "Europe/Amsterdam"], env, elsewhere)
     assert deployed.returncode == 0, deployed.stdout + deployed.stderr
-    assert "scheduled-quarterly-run/quarterly" in deployed.stdout
+    assert "scheduled-quarterly-run/cli-test" in deployed.stdout
 
-    deployment = _api(url, "/deployments/name/scheduled-quarterly-run/quarterly")
+    deployment = _api(url, "/deployments/name/scheduled-quarterly-run/cli-test")
     assert deployment["work_pool_name"] == pool
     assert deployment["entrypoint"] == "pipeline.deployments.scheduled_quarterly_run"
     assert deployment["parameters"]["config_path"] == str(cfg)
@@ -161,7 +162,7 @@ def test_deploy_trigger_and_a_worker_runs_it(prefect_server, small_config, tmp_p
     assert _api(url, f"/work_pools/{pool}")["type"] == "process"
 
     # Trigger one run now (what the UI's "Quick run" does), then a worker takes it and exits.
-    trigger = _run([str(BIN / "prefect"), "deployment", "run", "scheduled-quarterly-run/quarterly"], env, elsewhere)
+    trigger = _run([str(BIN / "prefect"), "deployment", "run", "scheduled-quarterly-run/cli-test"], env, elsewhere)
     assert trigger.returncode == 0, trigger.stdout + trigger.stderr
     worker = _run([str(BIN / "prefect"), "worker", "start", "--pool", pool, "--type", "process", "--run-once"],
                   env, elsewhere)
@@ -195,6 +196,39 @@ def test_deploy_trigger_and_a_worker_runs_it(prefect_server, small_config, tmp_p
     assert {"pqflow-validation-summary", "pqflow-verdicts"} <= artifacts.keys()
 
 
+def test_prefect_yaml_deploys_the_same_flow(prefect_server, small_config, tmp_path):
+    # `prefect deploy --all` in the project folder, as the comments in prefect.yaml say; the
+    # run is triggered with this test's configuration and output folder as parameters.
+    url, home = prefect_server
+    env = _env(home, url)
+    env["PWD"] = str(REPO)  # what a shell in the project folder sets
+    pool = _run([str(BIN / "prefect"), "work-pool", "create", "pqflow", "--type", "process"], env, REPO)
+    assert pool.returncode == 0, pool.stdout + pool.stderr
+    deployed = _run([str(BIN / "prefect"), "--no-prompt", "deploy", "--all"], env, REPO)
+    assert deployed.returncode == 0, deployed.stdout + deployed.stderr
+    deployment = _api(url, "/deployments/name/scheduled-quarterly-run/quarterly")
+    assert deployment["parameters"] == {"config_path": str(REPO / "scenario_configs" / "demo.toml"),
+                                        "out_root": str(REPO / "runs" / "quarters")}
+    assert deployment["pull_steps"] == [
+        {"prefect.deployments.steps.set_working_directory": {"directory": str(REPO)}}]
+    [sched] = deployment["schedules"]
+    assert (sched["schedule"]["cron"], sched["schedule"]["timezone"]) == ("0 6 1 1,4,7,10 *", "UTC")
+
+    cfg = small_config(simulation={"scenarios": 200, "batch_size": 100, "horizon_years": 10},
+                       real_world={"target_year": 10})
+    out_root = tmp_path / "quarters"
+    trigger = _run([str(BIN / "prefect"), "deployment", "run", "scheduled-quarterly-run/quarterly",
+                    "-p", f"config_path={json.dumps(str(cfg))}", "-p", f"out_root={json.dumps(str(out_root))}"],
+                   env, tmp_path)
+    assert trigger.returncode == 0, trigger.stdout + trigger.stderr
+    worker = _run([str(BIN / "prefect"), "worker", "start", "--pool", "pqflow", "--run-once"], env, tmp_path)
+    assert worker.returncode == 0, worker.stdout + worker.stderr
+    runs = [r for r in _flow_runs(url) if r["deployment_id"] == deployment["id"] and r["state_type"] != "SCHEDULED"]
+    assert [r["state_type"] for r in runs] == ["COMPLETED"], (worker.stdout[-3000:], worker.stderr[-3000:])
+    verify_run(out_root / "2026-09-30")
+    assert not (REPO / "runs" / "quarters").exists()
+
+
 def test_pqflow_run_uses_the_server_in_PREFECT_API_URL(prefect_server, small_config, tmp_path):
     url, home = prefect_server
     before = {r["id"] for r in _flow_runs(url)}
@@ -218,7 +252,7 @@ def test_pqflow_run_uses_the_server_in_PREFECT_API_URL(prefect_server, small_con
     [hint] = [line for line in result.stdout.splitlines() if line.startswith("next: ")]
     command = hint.removeprefix("next: ").split("   (e.g.")[0]
     assert command.startswith(str(BIN / "pqflow") + " value ")
-    liabilities = Path(__file__).resolve().parents[1] / "scenario_configs" / "demo_liabilities.toml"
+    liabilities = REPO / "scenario_configs" / "demo_liabilities.toml"
     fresh = subprocess.run(["env", "-i", "/bin/sh", "-c", command.replace("FILE", str(liabilities))],
                            cwd="/", capture_output=True, text=True, timeout=RUN_TIMEOUT)
     assert fresh.returncode in (0, 1), fresh.stdout + fresh.stderr  # 1: the two sets' values differ
