@@ -122,10 +122,14 @@ def quarterly_deployment(
 
     config = Path(config_path).expanduser().absolute()
     load_config(config)  # every input error now, naming file and key
+    from prefect.client.schemas.schedules import CronSchedule
+
     try:
         schedule = Cron(cron, timezone=timezone)
+        CronSchedule(cron=cron, timezone=timezone)  # what the server stores: checks both now
     except Exception as exc:  # noqa: BLE001 (Prefect raises ValueError or pydantic errors)
-        raise PqflowError(f"bad schedule: cron {cron!r} in time zone {timezone!r}: {exc}") from None
+        detail = exc.errors()[0]["msg"] if hasattr(exc, "errors") else str(exc)
+        raise PqflowError(f"bad schedule: cron {cron!r} in time zone {timezone!r}: {detail}") from None
     return scheduled_quarterly_run.to_deployment(
         name=name,
         schedule=schedule,

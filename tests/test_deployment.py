@@ -271,3 +271,27 @@ def test_a_configured_server_that_does_not_answer_is_refused(small_config, tmp_p
     deployed = _run([str(BIN / "pqflow"), "deploy", str(small_config()), "--out-root", str(out)],
                     _env(tmp_path / "home", url), tmp_path, timeout=120)
     assert deployed.returncode == 2 and "no Prefect server answers" in deployed.stderr
+
+
+def test_deployment_definition_and_bad_input(small_config, tmp_path, monkeypatch):
+    # Built without a server: module-path entrypoint, absolute paths, the quarter-end schedule;
+    # a bad configuration, time zone or cron expression is refused before anything is registered.
+    from pipeline.deployments import quarterly_deployment, run_folder
+    from pqflow.errors import PqflowError
+
+    cfg = small_config()
+    monkeypatch.chdir(tmp_path)
+    d = quarterly_deployment(cfg.name, "quarters", scenarios=300)
+    assert d.entrypoint == "pipeline.deployments.scheduled_quarterly_run"
+    assert d.parameters == {"config_path": str(cfg), "out_root": str(tmp_path / "quarters"), "scenarios": 300,
+                            "seed": None, "overwrite": False}
+    [s] = d.schedules
+    assert (s.schedule.cron, s.schedule.timezone) == ("0 6 1 1,4,7,10 *", "UTC")
+    assert d.work_pool_name == "pqflow"
+    assert run_folder(cfg, str(tmp_path / "quarters")) == str(tmp_path / "quarters" / "2026-09-30")
+    assert run_folder(cfg, "s3://bucket/quarters/") == "s3://bucket/quarters/2026-09-30"
+    for kwargs, message in (({"timezone": "Mars/Base"}, "Invalid timezone"), ({"cron": "61 * * * *"}, "Invalid cron")):
+        with pytest.raises(PqflowError, match=message):
+            quarterly_deployment(cfg, "quarters", **kwargs)
+    with pytest.raises(PqflowError, match="missing.toml"):
+        quarterly_deployment(tmp_path / "missing.toml", "quarters")
