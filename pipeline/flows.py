@@ -29,7 +29,7 @@ from prefect.cache_policies import NO_CACHE
 from prefect.futures import as_completed
 from prefect.task_runners import ThreadPoolTaskRunner
 
-from pipeline.progress import ArtifactProgress, progress_reporter
+from pipeline.progress import ArtifactProgress, progress_reporter, stage_reporter
 from pqflow import __version__
 from pqflow.calibration.assemble import Calibration
 from pqflow.storage.parquet import file_sha256
@@ -242,7 +242,8 @@ def quarterly_run(
                 parts.append(fut.result())
                 advance()
                 ui.advance()
-        summary = validate_task(att.staging, config)
+        with stage_reporter("validating the written files", show_progress):
+            summary = validate_task(att.staging, config)
         manifest_task(att.staging, config, plan, parts, att.state.run_id)
         report_task(att.staging)
         final = _publish(att, overwrite)

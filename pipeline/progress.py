@@ -16,7 +16,7 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from typing import TextIO
 
-__all__ = ["LineProgress", "ArtifactProgress", "progress_reporter", "format_seconds", "PROGRESS_INTERVAL_SECONDS"]
+__all__ = ["LineProgress", "StageLines", "ArtifactProgress", "progress_reporter", "stage_reporter", "format_seconds", "PROGRESS_INTERVAL_SECONDS"]
 
 PROGRESS_INTERVAL_SECONDS = 5.0
 
@@ -107,6 +107,47 @@ class LineProgress:
 
     def __exit__(self, *exc: object) -> None:
         self.stop()
+
+
+class StageLines(LineProgress):
+    """Heartbeat lines for a step without parts to count (validation): "validating the written
+    files, 15 s elapsed" every ``interval`` seconds, then "..., done in 21 s"."""
+
+    def __init__(self, label: str, **kwargs) -> None:
+        super().__init__(1, **kwargs)
+        self.label = label
+
+    def line(self) -> str:
+        with self._lock:
+            finished, elapsed = self._new > 0, self._clock() - self._started
+        if finished:
+            return f"{self.label}, done in {format_seconds(elapsed)}"
+        return f"{self.label}, {format_seconds(elapsed)} elapsed"
+
+    def stop(self) -> None:
+        self.advance()
+        super().stop()
+
+
+@contextmanager
+def stage_reporter(
+    label: str, enabled: bool, *, terminal: bool | None = None, interval: float = PROGRESS_INTERVAL_SECONDS,
+) -> Iterator[None]:
+    """A spinner on a terminal, heartbeat lines in a log, nothing when not ``enabled``, while the
+    block runs."""
+    if not enabled:
+        yield
+        return
+    if terminal is None:
+        terminal = sys.stdout.isatty()
+    if terminal:
+        from rich.console import Console
+
+        with Console().status(label):
+            yield
+        return
+    with StageLines(label, interval=interval):
+        yield
 
 
 @contextmanager

@@ -17,7 +17,7 @@ from pathlib import Path
 
 from typer.testing import CliRunner
 
-from pipeline.progress import LineProgress, format_seconds, progress_reporter
+from pipeline.progress import LineProgress, StageLines, format_seconds, progress_reporter, stage_reporter
 from pqflow import __version__
 from pqflow.cli import _self_command, app
 
@@ -59,6 +59,23 @@ def test_progress_lines_keep_coming_while_no_part_finishes():
     lines = out.getvalue().splitlines()
     assert len(lines) >= 4  # start, several ticks, end, although no part finished
     assert all(line.startswith("progress: 0 of 3 parts generated") for line in lines)
+
+
+def test_stage_lines_beat_while_a_step_runs(capsys):
+    clock, out = _Clock(), io.StringIO()
+    beat = StageLines("validating the written files", interval=0, stream=out, clock=clock).start()
+    clock.now += 12.0
+    assert beat.line() == "validating the written files, 12 s elapsed"
+    clock.now += 9.0
+    beat.stop()
+    assert out.getvalue().splitlines() == ["progress: validating the written files, 0 s elapsed",
+                                           "progress: validating the written files, done in 21 s"]
+    with stage_reporter("checking", enabled=True, terminal=False, interval=0.05):
+        import time
+
+        time.sleep(0.3)
+    lines = capsys.readouterr().out.splitlines()
+    assert len(lines) >= 3 and lines[0].startswith("progress: checking, ") and " done in " in lines[-1]
 
 
 def test_format_seconds():
