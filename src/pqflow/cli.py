@@ -146,6 +146,11 @@ def run(
         cfg = load_config(config)
         if scenarios is not None or seed is not None:
             cfg = apply_overrides(cfg, scenarios=scenarios, seed=seed, source=str(config))
+        from pipeline.deployments import api_url, check_server
+
+        server = api_url()
+        if server:
+            check_server(server)  # a configured server that does not answer: exit 2 before any work
         # Every input error surfaces here, before Prefect starts; the fitted calibration is then
         # handed to the flow as a file, so it is fitted once.
         if calibration is not None:
@@ -176,15 +181,11 @@ def run(
         highlight=False,
     )
     from pipeline import run_quarterly
-    from pipeline.deployments import api_url, check_server
 
-    server = api_url()
     where = f"the Prefect server at {server}" if server else "Prefect in local mode (temporary server)"
     console.print(f"starting the flow on {where}, {kind} runner...", style="dim", highlight=False, markup=False)
 
     try:
-        if server:
-            check_server(server)  # a configured server that does not answer: exit 2, nothing written
         result = run_quarterly(
             config, out, scenarios=scenarios, seed=seed, overwrite=overwrite,
             workers=(dask_workers or workers) if kind == "dask" else workers,
