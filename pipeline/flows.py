@@ -29,6 +29,7 @@ from prefect.cache_policies import NO_CACHE
 from prefect.futures import as_completed
 from prefect.task_runners import ThreadPoolTaskRunner
 
+from pipeline.progress import ArtifactProgress, progress_reporter, stage_reporter
 from pqflow import __version__
 from pqflow.calibration.assemble import Calibration
 from pqflow.storage.parquet import file_sha256
@@ -92,7 +93,7 @@ def calibrate_task(config: RunConfig, staging: str, calibration_file: str | None
 def generate_part_task(
     calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, staging: str
 ) -> PartRecord:
-    return generate_part(calibration, plan, measure, batch, staging)
+    return _generate_and_record(calibration, plan, measure, batch, staging)
 
 
 @task(name="validate", cache_policy=NO_CACHE)
@@ -203,12 +204,31 @@ def _attempt(
         release_lock(lock)
 
 
-def _record(attempt: _Attempt, rec: PartRecord) -> PartRecord:
+def _generate_and_record(calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, staging: str) -> PartRecord:
+    """Generate one part and record it in the progress file as soon as it is in place, where it
+    was generated: a part finished while the caller is interrupted is then still kept by a
+    resumed run (recording from the caller's loop lost every part finished after it stopped
+    reading results)."""
+    rec = generate_part(calibration, plan, measure, batch, staging)
     expected = f"scenarios/{rec.measure}/{part_name(rec.batch)}"
     if rec.path != expected:
         raise RuntimeError(f"part written to {rec.path}, expected {expected}")
-    record_part(attempt.staging, asdict(rec))
+    record_part(staging, asdict(rec))
     return rec
+
+
+def _result(att: _Attempt, todo: list[tuple[str, Batch]], final: str, summary: dict[str, Any]) -> dict[str, Any]:
+    """What a run returns; the part counts say what this attempt did: ``kept_parts`` finished
+    parts kept from an interrupted attempt, ``regenerated_parts`` the parts generated now (every
+    part not kept), ``discarded_parts`` the damaged, missing or unrecorded files thrown away."""
+    return {
+        "out_dir": final,
+        "run_id": att.state.run_id,
+        "summary": summary,
+        "kept_parts": len(att.kept),
+        "regenerated_parts": [f"scenarios/{m}/{part_name(b.index)}" for m, b in todo],
+        "discarded_parts": list(att.state.discarded),
+    }
 
 
 def _publish(attempt: _Attempt, overwrite: bool) -> str:
@@ -217,19 +237,6 @@ def _publish(attempt: _Attempt, overwrite: bool) -> str:
     published = publish_to_filesystem(attempt.staging, attempt.target, overwrite=overwrite)
     discard_staging(attempt.staging)
     return published
-
-
-def _progress(total: int, enabled: bool):
-    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
-
-    return Progress(
-        TextColumn("[bold]generating scenario parts"),
-        BarColumn(),
-        MofNCompleteColumn(),
-        TimeElapsedColumn(),
-        disable=not enabled,
-        transient=False,
-    )
 
 
 # -------------------------------------------------------------------------------- the flow
@@ -249,8 +256,10 @@ def quarterly_run(
     """One quarter's run: both scenario sets from one calibration, validated, with a manifest
     and the report; ``calibration_file`` uses a stored calibration instead of fitting.
 
-    Returns ``{"out_dir", "run_id", "summary", "kept_parts", "regenerated_parts"}``; raises
-    before any simulation if the configuration or the output directory is unusable.
+    Returns ``{"out_dir", "run_id", "summary", "kept_parts", "regenerated_parts",
+    "discarded_parts"}``; raises before any simulation if the configuration or the output
+    directory is unusable. ``show_progress``: a bar on a terminal, plain lines every few
+    seconds otherwise (pipeline/progress.py).
     """
     config = _load(config_path, scenarios, seed)
     plan = plan_run(config)
@@ -268,28 +277,24 @@ def quarterly_run(
             for s in config.sensitivities for m, b in sensitivity_tasks(plan, s)
         ]
         parts = list(att.kept.values())
-        with _progress(len(plan.tasks()), show_progress) as progress:
-            bar = progress.add_task("parts", total=len(plan.tasks()), completed=len(parts))
+        ui = ArtifactProgress(len(plan.tasks()), len(parts))
+        with progress_reporter(len(plan.tasks()), len(parts), show_progress) as advance:
             for fut in as_completed(futures):
-                parts.append(_record(att, fut.result()))
-                progress.advance(bar)
+                parts.append(fut.result())
+                advance()
+                ui.advance()
         sens_parts = [f.result() for f in sens_futures]
         checks = {s.name: validate_sensitivity_task.submit(att.staging, s, config) for s in config.sensitivities}
-        summary = validate_task(att.staging, config)
-        if config.sensitivities:
-            summary = record_sensitivities(att.staging, config, {k: f.result() for k, f in checks.items()})
+        with stage_reporter("validating the written files", show_progress):
+            summary = validate_task(att.staging, config)
+            if config.sensitivities:
+                summary = record_sensitivities(att.staging, config, {k: f.result() for k, f in checks.items()})
         manifest_task(att.staging, config, plan, [*parts, *sens_parts], att.state.run_id,
                       sensitivity_manifest_entry(config) if config.sensitivities else None)
         report_task(att.staging)
         final = _publish(att, overwrite)
     _artifacts(summary, final)
-    return {
-        "out_dir": final,
-        "run_id": att.state.run_id,
-        "summary": summary,
-        "kept_parts": len(att.kept),
-        "regenerated_parts": list(att.state.discarded),
-    }
+    return _result(att, todo, final, summary)
 
 
 def _artifacts(summary: dict[str, Any], out_dir: str) -> None:
@@ -434,8 +439,9 @@ def run_in_process(
                   calibration_file=calibration_file) as att:
         calibration = calibrate_step(config, att.staging, calibration_file)
         parts = list(att.kept.values())
-        for m, b in att.todo(plan):
-            parts.append(_record(att, generate_part(calibration, plan, m, b, att.staging)))
+        todo = att.todo(plan)
+        for m, b in todo:
+            parts.append(_generate_and_record(calibration, plan, m, b, att.staging))
         summary = validate_staged_run(att.staging, config)
         sens_parts, sens_summary = run_sensitivities(config, calibration, plan, att.staging, source=str(config_path))
         summary = sens_summary or summary
@@ -443,10 +449,4 @@ def run_in_process(
                            extra_header=sensitivity_manifest_entry(config) if config.sensitivities else None)
         write_report(att.staging)
         final = _publish(att, overwrite)
-    return {
-        "out_dir": final,
-        "run_id": att.state.run_id,
-        "summary": summary,
-        "kept_parts": len(att.kept),
-        "regenerated_parts": list(att.state.discarded),
-    }
+    return _result(att, todo, final, summary)

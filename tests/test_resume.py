@@ -106,7 +106,9 @@ def test_killed_run_resumes_to_identical_bytes(small_config, tmp_path):
 
     result = run_in_process(cfg, out, resume=True)
     assert result["kept_parts"] == STOP_AFTER - 2
-    assert set(result["regenerated_parts"]) == {parts[0]["path"], parts[1]["path"]}
+    assert set(result["discarded_parts"]) == {parts[0]["path"], parts[1]["path"]}
+    assert len(result["regenerated_parts"]) == 8 - (STOP_AFTER - 2)  # every part not kept
+    assert {parts[0]["path"], parts[1]["path"]} <= set(result["regenerated_parts"])
     assert _digests(out) == _digests(reference)
     assert _manifest_files(out) == _manifest_files(reference)
     for rel, mtime in untouched.items():
@@ -175,3 +177,61 @@ def test_flow_resume_after_a_kill(prefect_harness, small_config, tmp_path):
     assert result["kept_parts"] == STOP_AFTER
     assert _digests(out) == _digests(reference)
     assert time.perf_counter() - started < 60
+
+
+class _Interrupted(BaseException):
+    """Stands for Ctrl-C in the flow's main thread: not an Exception, so the staging folder is
+    kept for --resume (as after KeyboardInterrupt)."""
+
+
+@pytest.mark.flow
+def test_interrupted_flow_keeps_every_finished_part_and_counts_right(prefect_harness, small_config, tmp_path, monkeypatch):
+    # The flow is interrupted after reading 2 results while the worker threads have finished 5
+    # parts (the 4 real-world parts and the first market-consistent one); the other 3 fail
+    # before writing anything. A resumed run must keep all 5 and regenerate the other 3: the
+    # count reported once said "kept 10, regenerated 3" after 14 of 24 parts had been made,
+    # because parts were recorded by the flow's loop, not where they were written.
+    import pipeline.flows as flows
+    from typer.testing import CliRunner
+
+    from pqflow.cli import app
+
+    cfg = small_config()  # 4 + 4 parts
+    reference = tmp_path / "uninterrupted"
+    flows.run_in_process(cfg, reference)
+    out = tmp_path / "run"
+    finished = {("real_world", 0), ("real_world", 1), ("real_world", 2), ("real_world", 3), ("market_consistent", 0)}
+    real, real_loop = flows.generate_part, flows.as_completed
+
+    def failing(calibration, plan, measure, batch, staging):
+        if (measure, batch.index) not in finished:
+            raise RuntimeError("injected failure before writing")
+        return real(calibration, plan, measure, batch, staging)
+
+    def interrupted(futures):
+        for fut in futures:
+            fut.wait()
+        yield from [f for f in futures if f.state.is_completed()][:2]
+        raise _Interrupted
+
+    monkeypatch.setattr(flows, "generate_part", failing)
+    monkeypatch.setattr(flows, "as_completed", interrupted)
+    monkeypatch.delenv("COLUMNS", raising=False)
+    with pytest.raises(_Interrupted):
+        CliRunner().invoke(app, ["run", str(cfg), "--out", str(out), "--workers", "2"])
+    monkeypatch.setattr(flows, "generate_part", real)  # the real part generator and loop again
+    monkeypatch.setattr(flows, "as_completed", real_loop)
+    staging = staging_path(out)
+    recorded = [json.loads(x) for x in (staging / PROGRESS).read_text().splitlines()]
+    assert sorted((r["measure"], r["batch"]) for r in recorded if r["kind"] == "part") == sorted(finished)
+    assert not lock_path(out).exists()
+
+    result = CliRunner().invoke(app, ["run", str(cfg), "--out", str(out), "--resume"])
+    assert result.exit_code == 0, result.output
+    assert "resumed: kept 5 finished parts, regenerated 3 (of 8)" in result.output
+    assert _digests(out) == _digests(reference)
+    # Output that is not a terminal is not cut to 80 columns: no name is truncated.
+    assert "equity wealth ratios vs AAA (2005)" in result.output and "\u2026" not in result.output
+    assert "progress: 5 of 8 parts generated (5 kept from the interrupted run)" in result.output
+    assert "progress: 8 of 8 parts generated" in result.output
+

@@ -35,6 +35,34 @@ app = typer.Typer(
 )
 console = Console()
 err_console = Console(stderr=True)
+PIPED_WIDTH = 200  # columns of output that is not a terminal (a log, a pipe), unless COLUMNS says
+
+
+def _fit_width() -> None:
+    """Rich draws to 80 columns when output is not a terminal and truncates table cells to fit;
+    a log gets PIPED_WIDTH columns instead (COLUMNS, if set, still decides)."""
+    import os
+
+    for con in (console, err_console):
+        con.width = None  # type: ignore[assignment]  (back to detection: a test may reuse the console)
+        if not con.is_terminal and not os.environ.get("COLUMNS"):
+            con.width = PIPED_WIDTH
+
+
+def _version_option(value: bool) -> None:
+    if value:
+        console.print(__version__, highlight=False)
+        raise typer.Exit()
+
+
+@app.callback()
+def _main(
+    version: Annotated[
+        Optional[bool],
+        typer.Option("--version", help="Print the version and exit.", callback=_version_option, is_eager=True),
+    ] = None,
+) -> None:
+    _fit_width()
 
 
 def _fail(exc: Exception) -> None:
@@ -148,9 +176,9 @@ def run(
     scenarios: Annotated[Optional[int], typer.Option(help="Scenarios per set (overrides the file).")] = None,
     seed: Annotated[Optional[int], typer.Option(help="Root seed (overrides the file).")] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an earlier run in --out once this one succeeds.")] = False,
-    workers: Annotated[Optional[int], typer.Option(help="Worker threads generating parts (default: [execution] workers, 2).", min=1, max=64)] = None,
+    workers: Annotated[Optional[int], typer.Option(help="Worker threads generating parts (default: the configuration's \\[execution] workers, else 2).", min=1, max=64)] = None,
     resume: Annotated[bool, typer.Option("--resume", help="Continue an interrupted run into the same --out: keep its parts whose checksums match, regenerate the rest.")] = False,
-    runner: Annotated[Optional[str], typer.Option("--runner", help="Task runner: threads or dask (default: [execution] runner, threads).")] = None,
+    runner: Annotated[Optional[str], typer.Option("--runner", help="Task runner: threads or dask (default: the configuration's \\[execution] runner, else threads).")] = None,
     dask_address: Annotated[Optional[str], typer.Option("--dask-address", help="Address of a running Dask scheduler (implies --runner dask).")] = None,
     dask_workers: Annotated[Optional[int], typer.Option("--dask-workers", help="Worker processes of the local Dask cluster (default: --workers).", min=1, max=64)] = None,
     calibration: Annotated[Optional[Path], typer.Option("--calibration", help="Use this stored calibration.json (from 'pqflow calibrate') instead of fitting.")] = None,
@@ -173,6 +201,11 @@ def run(
         from pqflow.jobs.steps import plan_run
 
         plan_run(cfg)  # grids, batches and density blocks checked before anything is fitted
+        from pipeline.deployments import api_url, check_server
+
+        server = api_url()
+        if server:
+            check_server(server)  # a configured server that does not answer: exit 2 before any work
         # Every input error surfaces here, before Prefect starts; the fitted calibration is then
         # handed to the flow as a file, so it is fitted once.
         if calibration is not None:
@@ -206,14 +239,16 @@ def run(
         f"{sim.steps_per_year} step{'s' if sim.steps_per_year != 1 else ''} a year, seed {sim.seed}",
         highlight=False,
     )
-    console.print(f"starting Prefect (local mode, temporary server), {kind} runner...", style="dim")
     from pipeline import run_quarterly
+
+    where = f"the Prefect server at {server}" if server else "Prefect in local mode (temporary server)"
+    console.print(f"starting the flow on {where}, {kind} runner...", style="dim", highlight=False, markup=False)
 
     try:
         result = run_quarterly(
             config, out, scenarios=scenarios, seed=seed, overwrite=overwrite,
             workers=(dask_workers or workers) if kind == "dask" else workers,
-            show_progress=sys.stderr.isatty() or sys.stdout.isatty(),
+            show_progress=True,  # a bar on a terminal, a line every few seconds in a log
             resume=resume, runner=kind, dask_address=dask_address, calibration_file=calibration_file,
         )
     except PqflowError as exc:
@@ -222,11 +257,7 @@ def run(
         if calibration is None:
             shutil.rmtree(calibration_file.parent, ignore_errors=True)
     if resume:
-        console.print(
-            f"resumed: kept {result['kept_parts']} finished parts, regenerated "
-            f"{len(result['regenerated_parts'])} damaged or unrecorded ones",
-            highlight=False,
-        )
+        console.print(_resume_line(result), highlight=False, markup=False)
     summary = result["summary"]
     _print_validation(summary)
     for name, sens in summary.get("sensitivities", {}).items():
@@ -239,10 +270,13 @@ def run(
         f"{escape(str(result['out_dir']))} in {time.perf_counter() - started:.1f} s",
         highlight=False,
     )
+    import shlex
+
     console.print(
         f"evidence pack: {Path(result['out_dir']) / 'validation' / 'report.html'} (open in a browser)\n"
-        f"next: pqflow value {out} --liabilities FILE   (e.g. scenario_configs/demo_liabilities.toml)",
-        style="dim", highlight=False,
+        f"next: {_self_command()} value {shlex.quote(str(result['out_dir']))} --liabilities FILE   "
+        "(e.g. scenario_configs/demo_liabilities.toml)",
+        style="dim", highlight=False, markup=False, soft_wrap=True,
     )
     _caution()
     if summary["verdict"] == "fail":
@@ -277,6 +311,33 @@ def validate(
         raise typer.Exit(code=1)
 
 
+def _resume_line(result: dict[str, Any]) -> str:
+    kept, generated = result["kept_parts"], len(result["regenerated_parts"])
+    line = f"resumed: kept {kept} finished parts, regenerated {generated} (of {kept + generated})"
+    if discarded := result.get("discarded_parts"):
+        line += f"; {len(discarded)} damaged or unrecorded part files were discarded"
+    return line
+
+
+def _self_command() -> str:
+    """How to call this same pqflow from a fresh shell: ``pqflow`` when that name on PATH is this
+    executable, else its absolute path (e.g. /path/to/project/.venv/bin/pqflow)."""
+    import shlex
+    import shutil
+
+    argv0 = Path(sys.argv[0])
+    if argv0.name == "pqflow" and argv0.is_file():
+        used = argv0.absolute()
+    else:  # python -m pqflow.cli, or a test runner: the script installed beside this Python
+        used = Path(sys.executable).parent / "pqflow"
+        if not used.is_file():
+            return f"{shlex.quote(sys.executable)} -m pqflow.cli"
+    on_path = shutil.which("pqflow")
+    if on_path and Path(on_path).resolve() == used.resolve():
+        return "pqflow"
+    return shlex.quote(str(used))
+
+
 @app.command()
 def check(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
@@ -297,8 +358,9 @@ def check(
     import json
 
     payload = cal.to_json()
-    if as_json:
-        console.print_json(json.dumps(payload["parameters"]))
+    if as_json:  # only the JSON on standard output, so it can be piped into a parser
+        sys.stdout.write(json.dumps(payload["parameters"], indent=2) + "\n")
+        return
     else:
         _print_fit(payload)
         drivers = cal.driver_correlation.names
@@ -646,6 +708,41 @@ def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run director
     except PqflowError as exc:
         _fail(exc)
     console.print(f"{run_dir}: {len(manifest['files'])} files match manifest.json", style="green")
+
+
+@app.command()
+def deploy(
+    config: Annotated[Path, typer.Argument(help="Run configuration (TOML); stored as an absolute path.")],
+    out_root: Annotated[str, typer.Option("--out-root", help="Folder (or URI) under which each run writes OUT_ROOT/VALUATION_DATE.")],
+    scenarios: Annotated[Optional[int], typer.Option(help="Scenarios per set (overrides the file).")] = None,
+    seed: Annotated[Optional[int], typer.Option(help="Root seed (overrides the file).")] = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Let a run replace an earlier run of the same valuation date.")] = False,
+    pool: Annotated[str, typer.Option("--pool", help="Process work pool (created if absent).")] = "pqflow",
+    name: Annotated[str, typer.Option("--name", help="Deployment name.")] = "quarterly",
+    cron: Annotated[str, typer.Option("--cron", help="Schedule (cron); default 06:00 on the first day after each quarter end.")] = "0 6 1 1,4,7,10 *",
+    timezone: Annotated[str, typer.Option("--timezone", help="Time zone of the schedule (IANA name).")] = "UTC",
+    paused: Annotated[bool, typer.Option("--paused", help="Register with the schedule paused.")] = False,
+) -> None:
+    """Register the quarterly run as a Prefect deployment on the server at PREFECT_API_URL."""
+    from pipeline.deployments import deploy_quarterly
+
+    try:
+        info = deploy_quarterly(
+            config, out_root, scenarios=scenarios, seed=seed, overwrite=overwrite, name=name,
+            work_pool=pool, cron=cron, timezone=timezone, paused=paused,
+        )
+    except PqflowError as exc:
+        _fail(exc)
+    created = " (created)" if info["work_pool_created"] else ""
+    console.print(f"deployment {info['deployment']} registered at {info['api_url']}", style="green", highlight=False, markup=False)
+    console.print(
+        f"schedule: cron {info['schedule']['cron']} ({info['schedule']['timezone']}){' paused' if paused else ''}\n"
+        f"work pool: {info['work_pool']}{created}, type process\n"
+        f"parameters: {info['parameters']}\n"
+        f"next: prefect worker start --pool {info['work_pool']}   (in a shell where pqflow is installed)\n"
+        f"run now: prefect deployment run '{info['deployment']}'",
+        highlight=False, markup=False, soft_wrap=True,
+    )
 
 
 @app.command()
