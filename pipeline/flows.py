@@ -14,6 +14,7 @@ part depends only on the configuration, the seed, the measure and the batch inde
 
 from __future__ import annotations
 
+import concurrent.futures
 import os
 import tempfile
 from collections.abc import Iterator
@@ -51,6 +52,7 @@ from pqflow.storage.filesystem import (
     publish_to_filesystem,
     remote_staging,
     resolve_target,
+    target_lock_path,
 )
 from pqflow.storage.parquet import part_name
 from pqflow.storage.rundir import (
@@ -58,7 +60,6 @@ from pqflow.storage.rundir import (
     acquire_lock,
     discard_staging,
     fingerprint_of,
-    lock_path,
     prepare_staging,
     publish_staging,
     record_part,
@@ -145,12 +146,13 @@ def _attempt(
     which runs no code at all) leaves it for ``resume``.
     """
     target = resolve_target(out_dir, filesystem=filesystem)
+    lock = target_lock_path(target)
     if target.is_local:
-        lock, staging, where = lock_path(target.local), None, target.local
+        staging, where = None, target.local
     else:
         check_remote_target(target, overwrite)
         staging = remote_staging(target)
-        lock, where = staging.with_name(staging.name + ".lock"), staging
+        where = staging
     acquire_lock(lock, target=target.text)
     try:
         state = prepare_staging(
@@ -229,9 +231,13 @@ def quarterly_run(
         parts = list(att.kept.values())
         with _progress(len(plan.tasks()), show_progress) as progress:
             bar = progress.add_task("parts", total=len(plan.tasks()), completed=len(parts))
-            for fut in as_completed(futures):
-                parts.append(_record(att, fut.result()))
-                progress.advance(bar)
+            try:
+                for fut in as_completed(futures):
+                    parts.append(_record(att, fut.result()))
+                    progress.advance(bar)
+            except BaseException:
+                _settle(futures)  # no part may still be written once the staging folder goes
+                raise
         summary = validate_task(att.staging, config)
         manifest_task(att.staging, config, plan, parts, att.state.run_id)
         report_task(att.staging)
@@ -244,6 +250,26 @@ def quarterly_run(
         "kept_parts": len(att.kept),
         "regenerated_parts": list(att.state.discarded),
     }
+
+
+def _settle(futures: list[Any], timeout: float = 60.0) -> None:
+    """After a part failed or the run was interrupted: cancel the parts not yet started and
+    wait (up to ``timeout`` seconds) for those being written, so that clean-up never races a
+    writer. Their own results or errors no longer matter."""
+    inner = [getattr(f, "wrapped_future", None) for f in futures]
+    for w in inner:
+        try:
+            w.cancel()
+        except Exception:  # noqa: BLE001 (best effort)
+            pass
+    local = [w for w in inner if isinstance(w, concurrent.futures.Future)]
+    concurrent.futures.wait(local, timeout=timeout)
+    for f, w in zip(futures, inner):
+        if not isinstance(w, concurrent.futures.Future):
+            try:
+                f.wait(timeout=timeout)
+            except BaseException:  # noqa: BLE001 (its outcome no longer matters)
+                pass
 
 
 def _artifacts(summary: dict[str, Any], out_dir: str) -> None:
@@ -293,16 +319,17 @@ def task_runner_for(runner: str, *, workers: int, dask_address: str | None = Non
 
 @contextmanager
 def _shared_api(needed: bool) -> Iterator[None]:
-    """With worker processes and no Prefect API configured, start one temporary API server
-    and hand its URL to every process (otherwise each worker starts its own)."""
+    """With no Prefect API configured, start one temporary API server (tied to this process:
+    ``pipeline/server.py``) and hand its URL to every process (worker processes would otherwise
+    each start their own, and Prefect's own would die with a Ctrl-C and outlive a kill)."""
     from prefect.settings import PREFECT_API_URL, get_current_settings, temporary_settings
 
     if not needed or get_current_settings().api.url:
         yield
         return
-    from prefect.server.api.server import SubprocessASGIServer
+    from pipeline.server import TiedServer
 
-    server = SubprocessASGIServer()
+    server = TiedServer()  # in its own session, dies with this process
     server.start()
     before = os.environ.get("PREFECT_API_URL")
     os.environ["PREFECT_API_URL"] = server.api_url  # inherited by spawned local workers
@@ -354,7 +381,7 @@ def run_quarterly(
     address = dask_address if dask_address is not None else execution.dask_address
     n = workers if workers is not None else execution.workers
     task_runner = task_runner_for(kind, workers=n, dask_address=address if kind == "dask" else None)
-    with _shared_api(kind == "dask"):
+    with _shared_api(True):
         return quarterly_run.with_options(task_runner=task_runner)(
             config_path=str(config_path),
             out_dir=str(out_dir),
