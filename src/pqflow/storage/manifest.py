@@ -161,6 +161,8 @@ def verify_run(root: str | Path) -> dict[str, Any]:
     problems = _file_problems(root, manifest["files"])
     problems += _unlisted(root, root, listed, {MANIFEST, VALUATION_DIR})
     problems += _valuation_problems(root)
+    if len(problems) == 1:
+        raise IntegrityError(f"{root}: {problems[0]} ({MANIFEST})")
     if problems:
         raise IntegrityError(f"{root}: files do not match {MANIFEST}:\n  " + "\n  ".join(problems))
     return manifest
