@@ -20,7 +20,7 @@ from rich.markup import escape
 from rich.text import Text
 
 from pqflow import CAUTION, __version__
-from pqflow.cli_errors import error_line, exit_code_for, guarded, interrupt_exit_code, terminate_as_interrupt
+from pqflow.cli_errors import error_line, exit_code_for, guarded, message_for, interrupt_exit_code, terminate_as_interrupt
 from pqflow.errors import PqflowError
 
 __all__ = ["app", "main"]
@@ -40,7 +40,7 @@ err_console = Console(stderr=True)
 
 
 def _fail(exc: Exception) -> None:
-    err_console.print(error_line(str(exc)), highlight=False, soft_wrap=True)
+    err_console.print(error_line(message_for(exc)), highlight=False, soft_wrap=True)
     raise typer.Exit(code=exit_code_for(exc))
 
 

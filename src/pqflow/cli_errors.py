@@ -28,7 +28,7 @@ from pqflow.errors import PqflowError, RuntimeFault
 
 __all__ = [
     "EXIT_OK", "EXIT_CHECK_FAILED", "EXIT_BAD_INPUT", "EXIT_RUNTIME", "EXIT_INTERRUPTED",
-    "error_line", "exit_code_for", "describe_os_error", "guarded", "terminate_as_interrupt",
+    "error_line", "exit_code_for", "message_for", "describe_os_error", "guarded", "terminate_as_interrupt",
 ]
 
 EXIT_OK = 0
@@ -70,12 +70,15 @@ def describe_os_error(exc: OSError) -> str:
     return f"{where}: {what}"
 
 
-def _print_error(console: Console, exc: BaseException) -> None:
+def message_for(exc: BaseException) -> str:
+    """The text of the ``error:`` line for ``exc``."""
     if isinstance(exc, OSError):
-        message = describe_os_error(exc) + "; earlier output is untouched"
-    else:
-        message = str(exc)
-    console.print(error_line(message), highlight=False, soft_wrap=True)
+        return describe_os_error(exc) + "; earlier output is untouched"
+    return str(exc)
+
+
+def _print_error(console: Console, exc: BaseException) -> None:
+    console.print(error_line(message_for(exc)), highlight=False, soft_wrap=True)
 
 
 def guarded(console: Console) -> Callable[[F], F]:
@@ -117,6 +120,7 @@ def _on_terminate(signum: int, frame: Any) -> None:
 def terminate_as_interrupt() -> Iterator[None]:
     """While the block runs, SIGTERM unwinds it like Ctrl-C (``finally`` blocks run: the lock
     is released and the temporary Prefect server stopped) instead of killing the process."""
+    _received.clear()
     try:
         before = signal.signal(signal.SIGTERM, _on_terminate)
     except ValueError:  # not the main thread

@@ -10,6 +10,8 @@
 
 from __future__ import annotations
 
+import shutil
+
 from pathlib import Path
 from typing import Any
 
@@ -83,4 +85,11 @@ def value_liabilities_cli(
     check_portfolio_against_run(portfolio, info)
     mc = value_run(run_dir, portfolio, "market_consistent")
     rw = value_run(run_dir, portfolio, "real_world")
-    return publish_valuation(portfolio, info, mc, rw, out_dir if out_dir is not None else default_out_dir(run_dir))
+    target = Path(out_dir) if out_dir is not None else default_out_dir(run_dir)
+    existed = target.exists()
+    try:
+        return publish_valuation(portfolio, info, mc, rw, target)
+    except BaseException:  # disk full, interrupted: a folder this call created is not left half-written
+        if not existed:
+            shutil.rmtree(target, ignore_errors=True)
+        raise
