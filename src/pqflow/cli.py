@@ -2,7 +2,8 @@
 
 Exit codes: 0 run written and every check passed; 1 run written but a check failed (the files
 are kept so the failure can be studied); 2 bad input (configuration, output directory), nothing
-written.
+written; 3 runtime fault (disk full, permissions); 130 interrupted (143 on SIGTERM). See
+``pqflow/cli_errors.py``.
 """
 
 from __future__ import annotations
