@@ -17,6 +17,7 @@ from __future__ import annotations
 import concurrent.futures
 import os
 import tempfile
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass
@@ -30,6 +31,7 @@ from prefect.cache_policies import NO_CACHE
 from prefect.futures import as_completed
 from prefect.task_runners import ThreadPoolTaskRunner
 
+from pipeline.home import check_prefect_home
 from pqflow import __version__
 from pqflow.calibration.assemble import Calibration
 from pqflow.storage.parquet import file_sha256
@@ -262,12 +264,13 @@ def _settle(futures: list[Any], timeout: float = 60.0) -> None:
             w.cancel()
         except Exception:  # noqa: BLE001 (best effort)
             pass
+    deadline = time.monotonic() + timeout
     local = [w for w in inner if isinstance(w, concurrent.futures.Future)]
     concurrent.futures.wait(local, timeout=timeout)
     for f, w in zip(futures, inner):
         if not isinstance(w, concurrent.futures.Future):
             try:
-                f.wait(timeout=timeout)
+                f.wait(timeout=max(0.0, deadline - time.monotonic()))
             except BaseException:  # noqa: BLE001 (its outcome no longer matters)
                 pass
 
@@ -376,6 +379,7 @@ def run_quarterly(
     section (defaults: threads, 2 workers). ``out_dir`` is a local path or a URI that pyarrow
     can open (``s3://bucket/prefix``).
     """
+    check_prefect_home()  # before Prefect reads a profile from it
     execution = load_config(config_path).execution
     kind = runner or ("dask" if dask_address else execution.runner)
     address = dask_address if dask_address is not None else execution.dask_address
