@@ -188,7 +188,10 @@ def run(
     except (PqflowError, OSError) as exc:
         _fail(exc)
     except KeyboardInterrupt:
-        _interrupted(target, config, out)
+        again = {"--scenarios": scenarios, "--seed": seed, "--calibration": calibration, "--runner": runner,
+                 "--workers": workers, "--dask-address": dask_address, "--dask-workers": dask_workers}
+        _interrupted(target, [str(config), "--out", out, *(t for k, v in again.items() if v is not None for t in (k, str(v))),
+                              *(["--overwrite"] if overwrite else [])])
     finally:
         if calibration is None:
             shutil.rmtree(calibration_file.parent, ignore_errors=True)
@@ -221,9 +224,10 @@ def run(
         raise typer.Exit(code=1)
 
 
-def _interrupted(target: Any, config: Path, out: str) -> None:
+def _interrupted(target: Any, arguments: list[str]) -> None:
     """Ctrl-C or SIGTERM during a run: the lock is released, the finished parts are kept."""
     import logging
+    import shlex
 
     from pqflow.storage.rundir import staging_path
 
@@ -234,7 +238,7 @@ def _interrupted(target: Any, config: Path, out: str) -> None:
     err_console.print(
         error_line(
             f"interrupted; the earlier output is untouched and the finished parts are kept in {where}. "
-            f"To continue, run: pqflow run {config} --out {out} --resume"
+            f"To continue, run: {shlex.join(['pqflow', 'run', *arguments, '--resume'])}"
         ),
         highlight=False, soft_wrap=True,
     )
