@@ -16,7 +16,9 @@ from __future__ import annotations
 
 import concurrent.futures
 import os
+import signal
 import tempfile
+import threading
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -292,6 +294,22 @@ def _dask_scratch() -> str:
     return str(path)
 
 
+def local_cluster_without_ctrl_c(**kwargs: Any) -> Any:
+    """A Dask ``LocalCluster`` whose worker processes ignore Ctrl-C: the terminal sends it to
+    the whole process group, and the workers would die printing their own tracebacks while
+    the run shuts the cluster down in order. (Started with SIGINT ignored, Python keeps it
+    ignored in the spawned workers.)"""
+    from distributed import LocalCluster
+
+    if threading.current_thread() is not threading.main_thread():
+        return LocalCluster(**kwargs)
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        return LocalCluster(**kwargs)
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
 def task_runner_for(runner: str, *, workers: int, dask_address: str | None = None):
     """The Prefect task runner for ``runner``: ``"threads"`` (``workers`` threads) or ``"dask"``
     (a local cluster of ``workers`` single-threaded processes, or the scheduler at
@@ -310,6 +328,7 @@ def task_runner_for(runner: str, *, workers: int, dask_address: str | None = Non
     if dask_address:
         return DaskTaskRunner(address=dask_address)
     return DaskTaskRunner(
+        cluster_class=local_cluster_without_ctrl_c,
         cluster_kwargs={
             "n_workers": max(1, int(workers)),
             "processes": True,

@@ -283,3 +283,23 @@ def test_sigterm_unwinds_like_ctrl_c_with_exit_143():
             time.sleep(5)  # the handler interrupts this
     assert interrupt_exit_code() == 128 + signal.SIGTERM
     assert signal.getsignal(signal.SIGTERM) is signal.SIG_DFL  # handler removed after the block
+
+
+def test_dask_workers_leave_ctrl_c_to_the_run(tmp_path):
+    # Ctrl-C reaches every process of the terminal's group; a local Dask worker must not die
+    # of it (printing its own traceback) but wait for the run to close the cluster.
+    distributed = pytest.importorskip("distributed")
+    from pipeline.flows import local_cluster_without_ctrl_c
+
+    before = signal.getsignal(signal.SIGINT)
+    cluster = local_cluster_without_ctrl_c(n_workers=1, processes=True, threads_per_worker=1,
+                                           dashboard_address=None, local_directory=str(tmp_path))
+    try:
+        assert signal.getsignal(signal.SIGINT) is before  # the run itself still hears Ctrl-C
+        with distributed.Client(cluster) as client:
+            (pid,) = client.run(os.getpid).values()
+            os.kill(pid, signal.SIGINT)
+            time.sleep(1.0)
+            assert list(client.run(os.getpid).values()) == [pid]  # the same worker, still serving
+    finally:
+        cluster.close()
