@@ -293,7 +293,7 @@ def test_dask_workers_leave_ctrl_c_to_the_run(tmp_path):
 
     before = signal.getsignal(signal.SIGINT)
     cluster = local_cluster_without_ctrl_c(n_workers=1, processes=True, threads_per_worker=1,
-                                           dashboard_address=None, local_directory=str(tmp_path))
+                                           dashboard_address=":0", local_directory=str(tmp_path))
     try:
         assert signal.getsignal(signal.SIGINT) is before  # the run itself still hears Ctrl-C
         with distributed.Client(cluster) as client:
