@@ -16,7 +16,7 @@ from pathlib import Path
 def _prefect_defaults() -> None:
     home = Path(tempfile.gettempdir()) / f"pqflow-prefect-{os.getuid() if hasattr(os, 'getuid') else 'user'}"
     if "PREFECT_HOME" not in os.environ:
-        home.mkdir(parents=True, exist_ok=True)
+        home.mkdir(mode=0o700, parents=True, exist_ok=True)  # owner only; checked by pipeline.home
         os.environ["PREFECT_HOME"] = str(home)
     os.environ.setdefault("PREFECT_SERVER_ANALYTICS_ENABLED", "false")
     os.environ.setdefault("DO_NOT_TRACK", "1")

@@ -14,8 +14,12 @@ part depends only on the configuration, the seed, the measure and the batch inde
 
 from __future__ import annotations
 
+import concurrent.futures
 import os
+import signal
 import tempfile
+import threading
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass
@@ -29,6 +33,7 @@ from prefect.cache_policies import NO_CACHE
 from prefect.futures import as_completed
 from prefect.task_runners import ThreadPoolTaskRunner
 
+from pipeline.home import check_prefect_home
 from pipeline.progress import ArtifactProgress, progress_reporter, stage_reporter
 from pqflow import __version__
 from pqflow.calibration.assemble import Calibration
@@ -62,6 +67,7 @@ from pqflow.storage.filesystem import (
     publish_to_filesystem,
     remote_staging,
     resolve_target,
+    target_lock_path,
 )
 from pqflow.storage.parquet import part_name
 from pqflow.storage.rundir import (
@@ -69,7 +75,6 @@ from pqflow.storage.rundir import (
     acquire_lock,
     discard_staging,
     fingerprint_of,
-    lock_path,
     prepare_staging,
     publish_staging,
     record_part,
@@ -178,12 +183,13 @@ def _attempt(
     which runs no code at all) leaves it for ``resume``.
     """
     target = resolve_target(out_dir, filesystem=filesystem)
+    lock = target_lock_path(target)
     if target.is_local:
-        lock, staging, where = lock_path(target.local), None, target.local
+        staging, where = None, target.local
     else:
         check_remote_target(target, overwrite)
         staging = remote_staging(target)
-        lock, where = staging.with_name(staging.name + ".lock"), staging
+        where = staging
     acquire_lock(lock, target=target.text)
     try:
         state = prepare_staging(
@@ -279,11 +285,15 @@ def quarterly_run(
         parts = list(att.kept.values())
         ui = ArtifactProgress(len(plan.tasks()), len(parts))
         with progress_reporter(len(plan.tasks()), len(parts), show_progress) as advance:
-            for fut in as_completed(futures):
-                parts.append(fut.result())
-                advance()
-                ui.advance()
-        sens_parts = [f.result() for f in sens_futures]
+            try:
+                for fut in as_completed(futures):
+                    parts.append(fut.result())
+                    advance()
+                    ui.advance()
+                sens_parts = [f.result() for f in sens_futures]
+            except BaseException:
+                _settle([*futures, *sens_futures, *sens_cals.values()])  # no part may still be written once the staging folder goes
+                raise
         checks = {s.name: validate_sensitivity_task.submit(att.staging, s, config) for s in config.sensitivities}
         with stage_reporter("validating the written files", show_progress):
             summary = validate_task(att.staging, config)
@@ -295,6 +305,27 @@ def quarterly_run(
         final = _publish(att, overwrite)
     _artifacts(summary, final)
     return _result(att, todo, final, summary)
+
+
+def _settle(futures: list[Any], timeout: float = 60.0) -> None:
+    """After a part failed or the run was interrupted: cancel the parts not yet started and
+    wait (up to ``timeout`` seconds) for those being written, so that clean-up never races a
+    writer. Their own results or errors no longer matter."""
+    inner = [getattr(f, "wrapped_future", None) for f in futures]
+    for w in inner:
+        try:
+            w.cancel()
+        except Exception:  # noqa: BLE001 (best effort)
+            pass
+    deadline = time.monotonic() + timeout
+    local = [w for w in inner if isinstance(w, concurrent.futures.Future)]
+    concurrent.futures.wait(local, timeout=timeout)
+    for f, w in zip(futures, inner):
+        if not isinstance(w, concurrent.futures.Future):
+            try:
+                f.wait(timeout=max(0.0, deadline - time.monotonic()))
+            except BaseException:  # noqa: BLE001 (its outcome no longer matters)
+                pass
 
 
 def _artifacts(summary: dict[str, Any], out_dir: str) -> None:
@@ -312,6 +343,22 @@ def _dask_scratch() -> str:
     path = Path(tempfile.gettempdir()) / f"pqflow-dask-{uid}"
     path.mkdir(parents=True, exist_ok=True)
     return str(path)
+
+
+def local_cluster_without_ctrl_c(**kwargs: Any) -> Any:
+    """A Dask ``LocalCluster`` whose worker processes ignore Ctrl-C: the terminal sends it to
+    the whole process group, and the workers would die printing their own tracebacks while
+    the run shuts the cluster down in order. (Started with SIGINT ignored, Python keeps it
+    ignored in the spawned workers.)"""
+    from distributed import LocalCluster
+
+    if threading.current_thread() is not threading.main_thread():
+        return LocalCluster(**kwargs)
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        return LocalCluster(**kwargs)
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def task_runner_for(runner: str, *, workers: int, dask_address: str | None = None):
@@ -332,6 +379,7 @@ def task_runner_for(runner: str, *, workers: int, dask_address: str | None = Non
     if dask_address:
         return DaskTaskRunner(address=dask_address)
     return DaskTaskRunner(
+        cluster_class=local_cluster_without_ctrl_c,
         cluster_kwargs={
             "n_workers": max(1, int(workers)),
             "processes": True,
@@ -344,16 +392,17 @@ def task_runner_for(runner: str, *, workers: int, dask_address: str | None = Non
 
 @contextmanager
 def _shared_api(needed: bool) -> Iterator[None]:
-    """With worker processes and no Prefect API configured, start one temporary API server
-    and hand its URL to every process (otherwise each worker starts its own)."""
+    """With no Prefect API configured, start one temporary API server (tied to this process:
+    ``pipeline/server.py``) and hand its URL to every process (worker processes would otherwise
+    each start their own, and Prefect's own would die with a Ctrl-C and outlive a kill)."""
     from prefect.settings import PREFECT_API_URL, get_current_settings, temporary_settings
 
     if not needed or get_current_settings().api.url:
         yield
         return
-    from prefect.server.api.server import SubprocessASGIServer
+    from pipeline.server import TiedServer
 
-    server = SubprocessASGIServer()
+    server = TiedServer()  # in its own session, dies with this process
     server.start()
     before = os.environ.get("PREFECT_API_URL")
     os.environ["PREFECT_API_URL"] = server.api_url  # inherited by spawned local workers
@@ -400,12 +449,13 @@ def run_quarterly(
     section (defaults: threads, 2 workers). ``out_dir`` is a local path or a URI that pyarrow
     can open (``s3://bucket/prefix``).
     """
+    check_prefect_home()  # before Prefect reads a profile from it
     execution = load_config(config_path).execution
     kind = runner or ("dask" if dask_address else execution.runner)
     address = dask_address if dask_address is not None else execution.dask_address
     n = workers if workers is not None else execution.workers
     task_runner = task_runner_for(kind, workers=n, dask_address=address if kind == "dask" else None)
-    with _shared_api(kind == "dask"):
+    with _shared_api(True):
         return quarterly_run.with_options(task_runner=task_runner)(
             config_path=str(config_path),
             out_dir=str(out_dir),

@@ -3,7 +3,8 @@
 Exit codes: 0 run written and no check failed (checks that are inconclusive, i.e. lack the
 power to see a material deviation, are counted and printed, not failed); 1 run written but a
 check failed (the files are kept so the failure can be studied); 2 bad input (configuration,
-output directory), nothing written.
+output directory), nothing written; 3 runtime fault (disk full, permissions); 130 interrupted
+(143 on SIGTERM). See ``pqflow/cli_errors.py``.
 """
 
 from __future__ import annotations
@@ -17,8 +18,10 @@ import typer
 from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
+from rich.text import Text
 
 from pqflow import CAUTION, __version__
+from pqflow.cli_errors import error_line, exit_code_for, guarded, message_for, interrupt_exit_code, terminate_as_interrupt
 from pqflow.errors import PqflowError
 
 __all__ = ["app", "main"]
@@ -66,8 +69,8 @@ def _main(
 
 
 def _fail(exc: Exception) -> None:
-    err_console.print(f"[bold red]error:[/] {exc}", highlight=False, soft_wrap=True)
-    raise typer.Exit(code=2)
+    err_console.print(error_line(message_for(exc)), highlight=False, soft_wrap=True)
+    raise typer.Exit(code=exit_code_for(exc))
 
 
 def _verified(run_dir: Path) -> None:
@@ -170,6 +173,7 @@ def _verdict_line(verdict: str) -> str:
 
 
 @app.command()
+@guarded(err_console)
 def run(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
     out: Annotated[str, typer.Option("--out", help="Run directory to create: a local path, or a URI pyarrow can open (s3://bucket/prefix).")],
@@ -184,28 +188,50 @@ def run(
     calibration: Annotated[Optional[Path], typer.Option("--calibration", help="Use this stored calibration.json (from 'pqflow calibrate') instead of fitting.")] = None,
 ) -> None:
     """Calibrate, generate the real-world and market-consistent sets, validate, write the manifest."""
+    import os
+    import shlex
     import shutil
+
+    # Prefect's own console lines (a failed task's traceback, retries) stay in its API log;
+    # the terminal gets one error line from pqflow instead.
+    os.environ.setdefault("PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL", "CRITICAL")
     import tempfile
 
+    from pipeline.home import check_prefect_home
     from pqflow.calibration.assemble import assemble_calibration, check_calibration_fits, load_calibration
     from pqflow.config.loader import apply_overrides, load_config
-    from pqflow.storage.filesystem import check_remote_target, resolve_target
+    from pqflow.jobs.steps import plan_run
+    from pqflow.storage.filesystem import check_remote_target, resolve_target, target_lock_path
     from pqflow.storage.jsonio import write_json_atomic
-    from pqflow.storage.rundir import check_target
+    from pqflow.storage.rundir import acquire_lock, check_target, release_lock
 
     started = time.perf_counter()
+    lock = None
     try:
         cfg = load_config(config)
         if scenarios is not None or seed is not None:
             cfg = apply_overrides(cfg, scenarios=scenarios, seed=seed, source=str(config))
-        from pqflow.jobs.steps import plan_run
-
         plan_run(cfg)  # grids, batches and density blocks checked before anything is fitted
+        target = resolve_target(out)
+        if target.is_local:
+            check_target(target.local, overwrite)
+        else:
+            check_remote_target(target, overwrite)
+        if runner is not None and runner not in ("threads", "dask"):
+            raise PqflowError(f"--runner must be threads or dask, not {runner!r}")
+        kind = runner or ("dask" if dask_address else cfg.execution.runner)
+        if kind != "dask" and (dask_address or dask_workers):
+            raise PqflowError("--dask-address and --dask-workers go with --runner dask")
         from pipeline.deployments import api_url, check_server
 
         server = api_url()
         if server:
             check_server(server)  # a configured server that does not answer: exit 2 before any work
+        else:
+            check_prefect_home()
+        # The target is locked before any work (calibration, Prefect's server): a second run
+        # into a busy --out is refused at once. The flow takes the same lock again.
+        lock = acquire_lock(target_lock_path(target), target=target.text, reentrant=True)
         # Every input error surfaces here, before Prefect starts; the fitted calibration is then
         # handed to the flow as a file, so it is fitted once.
         if calibration is not None:
@@ -219,43 +245,49 @@ def run(
 
                 check_sensitivity_inputs(cfg, source=str(config))
             scratch = Path(tempfile.mkdtemp(prefix="pqflow-calibration-"))
-            calibration_file = write_json_atomic(scratch / "calibration.json", cal.to_json())
-        target = resolve_target(out)
-        if target.is_local:
-            check_target(target.local, overwrite)
-        else:
-            check_remote_target(target, overwrite)
-        if runner is not None and runner not in ("threads", "dask"):
-            raise PqflowError(f"--runner must be threads or dask, not {runner!r}")
-        kind = runner or ("dask" if dask_address else cfg.execution.runner)
-        if kind != "dask" and (dask_address or dask_workers):
-            raise PqflowError("--dask-address and --dask-workers go with --runner dask")
-    except PqflowError as exc:
+            try:
+                calibration_file = write_json_atomic(scratch / "calibration.json", cal.to_json())
+            except BaseException:
+                shutil.rmtree(scratch, ignore_errors=True)
+                raise
+    except (PqflowError, OSError) as exc:
+        if lock is not None:
+            release_lock(lock)
         _fail(exc)
+    except BaseException:
+        if lock is not None:
+            release_lock(lock)
+        raise
     sim = cfg.simulation
-    console.print(
-        f"[bold]pqflow {__version__}[/] run [cyan]{cfg.run.name}[/] valuation date "
-        f"{cfg.run.valuation_date}: {sim.scenarios:,} scenarios per set, {sim.horizon_years:g} years, "
-        f"{sim.steps_per_year} step{'s' if sim.steps_per_year != 1 else ''} a year, seed {sim.seed}",
-        highlight=False,
-    )
-    from pipeline import run_quarterly
-
-    where = f"the Prefect server at {server}" if server else "Prefect in local mode (temporary server)"
-    console.print(f"starting the flow on {where}, {kind} runner...", style="dim", highlight=False, markup=False)
-
     try:
-        result = run_quarterly(
-            config, out, scenarios=scenarios, seed=seed, overwrite=overwrite,
-            workers=(dask_workers or workers) if kind == "dask" else workers,
-            show_progress=True,  # a bar on a terminal, a line every few seconds in a log
-            resume=resume, runner=kind, dask_address=dask_address, calibration_file=calibration_file,
+        console.print(
+            f"[bold]pqflow {__version__}[/] run [cyan]{escape(cfg.run.name)}[/] valuation date "
+            f"{cfg.run.valuation_date}: {sim.scenarios:,} scenarios per set, {sim.horizon_years:g} years, "
+            f"{sim.steps_per_year} step{'s' if sim.steps_per_year != 1 else ''} a year, seed {sim.seed}",
+            highlight=False,
         )
-    except PqflowError as exc:
+        where = f"the Prefect server at {server}" if server else "Prefect in local mode (temporary server)"
+        console.print(f"starting the flow on {where}, {kind} runner...", style="dim", highlight=False, markup=False)
+        from pipeline import run_quarterly
+
+        with terminate_as_interrupt():
+            result = run_quarterly(
+                config, out, scenarios=scenarios, seed=seed, overwrite=overwrite,
+                workers=(dask_workers or workers) if kind == "dask" else workers,
+                show_progress=True,  # a bar on a terminal, a line every few seconds in a log
+                resume=resume, runner=kind, dask_address=dask_address, calibration_file=calibration_file,
+            )
+    except (PqflowError, OSError) as exc:
         _fail(exc)
+    except KeyboardInterrupt:
+        again = {"--scenarios": scenarios, "--seed": seed, "--calibration": calibration, "--runner": runner,
+                 "--workers": workers, "--dask-address": dask_address, "--dask-workers": dask_workers}
+        _interrupted(target, [str(config), "--out", out, *(t for k, v in again.items() if v is not None for t in (k, str(v))),
+                              *(["--overwrite"] if overwrite else [])])
     finally:
         if calibration is None:
             shutil.rmtree(calibration_file.parent, ignore_errors=True)
+        release_lock(lock)
     if resume:
         console.print(_resume_line(result), highlight=False, markup=False)
     summary = result["summary"]
@@ -270,8 +302,6 @@ def run(
         f"{escape(str(result['out_dir']))} in {time.perf_counter() - started:.1f} s",
         highlight=False,
     )
-    import shlex
-
     console.print(
         f"evidence pack: {Path(result['out_dir']) / 'validation' / 'report.html'} (open in a browser)\n"
         f"next: {_self_command()} value {shlex.quote(str(result['out_dir']))} --liabilities FILE   "
@@ -283,7 +313,31 @@ def run(
         raise typer.Exit(code=1)
 
 
+def _interrupted(target: Any, arguments: list[str]) -> None:
+    """Ctrl-C or SIGTERM during a run: the lock is released, the finished parts are kept."""
+    import logging
+    import shlex
+
+    from pqflow.storage.rundir import staging_path
+
+    # Log lines still queued for the stopped temporary server are dropped without a message.
+    logging.raiseExceptions = False
+
+    where = staging_path(target.local) if target.is_local else "the local staging folder"
+    err_console.print(
+        error_line(
+            f"interrupted; the earlier output is untouched and the finished parts are kept in {where}. "
+            f"To continue, run: {shlex.join(['pqflow', 'run', *arguments, '--resume'])}"
+        ),
+        highlight=False, soft_wrap=True,
+    )
+    raise typer.Exit(code=interrupt_exit_code())
+
+
+
+
 @app.command()
+@guarded(err_console)
 def validate(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory (e.g. copied or exported).")],
     ess_warning_share: Annotated[Optional[float], typer.Option("--ess-warning-share", help="Effective sample size share below which a density is past its usable horizon (default: the run's own, else 0.10).", min=0.0, max=1.0)] = None,
@@ -338,7 +392,9 @@ def _self_command() -> str:
     return shlex.quote(str(used))
 
 
+
 @app.command()
+@guarded(err_console)
 def check(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
     as_json: Annotated[bool, typer.Option("--json", help="Print every parameter as JSON instead of the summary.")] = False,
@@ -364,12 +420,12 @@ def check(
     else:
         _print_fit(payload)
         drivers = cal.driver_correlation.names
-        console.print(f"drivers ({len(drivers)}): {', '.join(drivers)}", highlight=False)
+        console.print(Text(f"drivers ({len(drivers)}): {', '.join(drivers)}"), highlight=False)
         if cal.credit is not None:
             corr = "correlated with each other" if cal.credit.correlation is not None else "independent"
             console.print(
-                f"credit drivers: {', '.join('credit_' + r for r in cal.credit.names)} ({corr}; independent of the "
-                f"drivers above), Euler substeps of at most 1/{cal.credit_substeps_per_year} year",
+                Text(f"credit drivers: {', '.join('credit_' + r for r in cal.credit.names)} ({corr}; independent of the "
+                     f"drivers above), Euler substeps of at most 1/{cal.credit_substeps_per_year} year"),
                 highlight=False,
             )
         for measure in ("real_world", "market_consistent"):
@@ -379,15 +435,16 @@ def check(
                 f"{times.size - 1} steps to {times[-1]:g} years",
                 highlight=False,
             )
-        console.print(f"columns ({len(columns) + 1}, with the density): {', '.join(columns)}", highlight=False)
+        console.print(Text(f"columns ({len(columns) + 1}, with the density): {', '.join(columns)}"), highlight=False)
         for b in plan.density_blocks:
             console.print(f"density block {b.name}: drivers {', '.join(b.drivers)} "
                           f"(q_density_{b.name} / p_density_{b.name})", highlight=False, markup=False)
         console.print("(pqflow check --json prints every parameter)", style="dim")
-    console.print(f"{config}: valid", style="green")
+    console.print(Text(f"{config}: valid", style="green"))
 
 
 @app.command()
+@guarded(err_console)
 def calibrate(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML) naming the market-data files.")],
     out: Annotated[Path, typer.Option("--out", help="calibration.json to write.")],
@@ -411,7 +468,7 @@ def calibrate(
     payload = cal.to_json()
     write_json_atomic(out, payload)
     _print_fit(payload)
-    console.print(f"calibration written to {out}", style="green")
+    console.print(Text(f"calibration written to {out}", style="green"))
     _caution()
 
 
@@ -439,7 +496,7 @@ def _print_fit(payload: dict[str, Any]) -> None:
         vol = item["volatility"]
         vol_text = f"{vol:.4f}" if isinstance(vol, (int, float)) else ", ".join(f"{v:.4f}" for v in vol["values"])
         console.print(
-            f"{item['kind']} index {item['name']}: level {item['level']:g}, income yield {item['income_yield']:.4f}, "
+            f"{item['kind']} index {escape(str(item['name']))}: level {item['level']:g}, income yield {item['income_yield']:.4f}, "
             f"volatility {vol_text}, risk premium {item['risk_premium']:.4f}",
             highlight=False,
         )
@@ -460,7 +517,7 @@ def _print_fit(payload: dict[str, Any]) -> None:
             )
     for r in fit.get("credit", {}).get("ratings", []):
         console.print(
-            f"credit {r['rating']}: spreads repriced to {r['max_abs_error_bp']:.2g} bp; CIR++ shift in "
+            f"credit {escape(str(r['rating']))}: spreads repriced to {r['max_abs_error_bp']:.2g} bp; CIR++ shift in "
             f"[{r['min_shift']:.4f}, {r['max_shift']:.4f}]; Feller ratio {r['feller_ratio']:.2f}"
             + (f"; fitted {', '.join(r['fitted'])}" if r["fitted"] else "")
             + (f"; real world: theta {r['price_of_risk']:.4g}, long-run level {r['real_world_long_run_mean']:.4g} "
@@ -570,6 +627,7 @@ _LINE_LABEL = {"unit_linked_gmmb": "unit-linked", "participating": "with-profits
 
 
 @app.command()
+@guarded(err_console)
 def value(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
     liabilities: Annotated[Path, typer.Option("--liabilities", help="Liability portfolio file (TOML).")],
@@ -588,7 +646,7 @@ def value(
     except PqflowError as exc:
         _fail(exc)
     currency = summary.get("currency", "")
-    table = Table(title=f"Liability values, {currency} thousands (real world discounted with deflators)")
+    table = Table(title=Text(f"Liability values, {currency} thousands (real world discounted with deflators)"))
     for col in ("line", "", "market consistent", "cert. equiv.", "TVOG", "real world", "diff/SE"):
         table.add_column(col, justify="left" if col in ("line", "quantity") else "right")
 
@@ -599,7 +657,7 @@ def value(
         if line.get("level") not in ("product", "total"):
             continue
         table.add_row(
-            _LINE_LABEL.get(line["name"], line["name"]),
+            Text(str(_LINE_LABEL.get(line["name"], line["name"]))),
             {"best_estimate": "BE"}.get(line["quantity"], line["quantity"]),
             k(line["market_consistent_value"], line["market_consistent_se"]),
             k(line["certainty_equivalent_value"]), k(line["tvog"]),
@@ -634,17 +692,18 @@ def value(
         colour = "green" if verdict == "agree" else "red"
         console.print(f"reconciliation of the two sets: [{colour}]{verdict.upper()}[/]", highlight=False)
     for path in summary.get("files", []):
-        console.print(f"written: {path}", style="dim", highlight=False)
+        console.print(Text(f"written: {path}", style="dim"), highlight=False)
     if out is None and (run_dir / "validation" / "summary.json").is_file():
         from pqflow.report import write_report
 
-        console.print(f"report updated: {write_report(run_dir)}", style="dim", highlight=False)
+        console.print(Text(f"report updated: {write_report(run_dir)}", style="dim"), highlight=False)
     _caution()
     if verdict == "differ":
         raise typer.Exit(code=1)
 
 
 @app.command()
+@guarded(err_console)
 def report(run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")]) -> None:
     """Write validation/report.html: one self-contained page with every check and plot."""
     from pqflow.report import write_report
@@ -654,7 +713,7 @@ def report(run_dir: Annotated[Path, typer.Argument(help="A finished run director
         path = write_report(run_dir)
     except PqflowError as exc:
         _fail(exc)
-    console.print(f"report written to {path}", style="green", highlight=False)
+    console.print(Text(f"report written to {path}", style="green"), highlight=False)
     _caution()
 
 
@@ -667,6 +726,7 @@ def _short(cell: str) -> str:
 
 
 @app.command()
+@guarded(err_console)
 def compare(
     run_a: Annotated[Path, typer.Argument(help="The earlier run (e.g. last quarter).")],
     run_b: Annotated[Path, typer.Argument(help="The later run.")],
@@ -683,22 +743,23 @@ def compare(
         comparison = compare_runs(run_a, run_b)
     except PqflowError as exc:
         _fail(exc)
-    table = Table(title=f"{run_a} -> {run_b}")
+    table = Table(title=Text(f"{run_a} -> {run_b}"))
     for col in COMPARE_COLUMNS:
         table.add_column(col, overflow="fold")
     shown = 0
     for row in render_compare_text(comparison):
         if all_rows or (row[-1] not in ("", "unchanged", "=")):
-            table.add_row(*(_short(cell) for cell in row))
+            table.add_row(*(Text(_short(cell)) for cell in row))
             shown += 1
     console.print(table if shown else "no differences in inputs, parameters, checks or reconciliation")
     if html is not None:
         path = write_compare_html(comparison, html)
-        console.print(f"comparison page written to {path}", style="green", highlight=False)
+        console.print(Text(f"comparison page written to {path}", style="green"), highlight=False)
     _caution()
 
 
 @app.command()
+@guarded(err_console)
 def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")]) -> None:
     """Check every file of a run against its manifest (sizes and sha256)."""
     from pqflow.storage.manifest import verify_run
@@ -707,7 +768,7 @@ def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run director
         manifest = verify_run(run_dir)
     except PqflowError as exc:
         _fail(exc)
-    console.print(f"{run_dir}: {len(manifest['files'])} files match manifest.json", style="green")
+    console.print(Text(f"{run_dir}: {len(manifest['files'])} files match manifest.json", style="green"))
 
 
 @app.command()
@@ -752,6 +813,7 @@ def version() -> None:
 
 
 @app.command()
+@guarded(err_console)
 def export(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
     measure: Annotated[str, typer.Option("--measure", help="real_world or market_consistent.")],
@@ -759,19 +821,21 @@ def export(
     columns: Annotated[Optional[str], typer.Option("--columns", help="Comma-separated columns (default: all); scenario and time always come first.")] = None,
     scenarios: Annotated[Optional[str], typer.Option("--scenarios", help="Scenarios FIRST:STOP (FIRST to STOP-1, e.g. 0:100); default all.")] = None,
     out: Annotated[Optional[Path], typer.Option("--out", help="File to write (default: CSV on standard output).")] = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an existing --out file.")] = False,
 ) -> None:
     """Stream a slice of one scenario set to CSV or Parquet, checking each part read against the manifest."""
     from pqflow.storage.export import export_slice
 
     cols = [c.strip() for c in columns.split(",") if c.strip()] if columns else None
     try:
-        result = export_slice(run_dir, measure=measure, fmt=fmt, columns=cols, scenarios=scenarios, out=out)
+        result = export_slice(run_dir, measure=measure, fmt=fmt, columns=cols, scenarios=scenarios, out=out,
+                              overwrite=overwrite)
     except PqflowError as exc:
         _fail(exc)
     if out is not None:
         console.print(
-            f"{result.rows:,} rows of scenarios {result.first_scenario}..{result.stop_scenario - 1} "
-            f"({', '.join(result.columns)}) written to {out}; units in {out}.meta.json",
+            Text(f"{result.rows:,} rows of scenarios {result.first_scenario}..{result.stop_scenario - 1} "
+                 f"({', '.join(result.columns)}) written to {out}; units in {out}.meta.json"),
             highlight=False,
         )
 

@@ -8,7 +8,9 @@
     ├── MeasureError                 the real-world and market-consistent measures are not
     │                                equivalent, so no density weights exist
     ├── RunDirectoryError            an output directory is in the way, locked or not a run
-    └── IntegrityError               a written file does not match its manifest entry
+    ├── IntegrityError               a written file does not match its manifest entry
+    └── RuntimeFault                 the machine, not the input, stopped the work: disk full,
+                                     permissions, an unsafe Prefect home (exit code 3)
 """
 
 from __future__ import annotations
@@ -22,6 +24,7 @@ __all__ = [
     "MeasureError",
     "RunDirectoryError",
     "IntegrityError",
+    "RuntimeFault",
 ]
 
 
@@ -55,3 +58,8 @@ class RunDirectoryError(PqflowError):
 
 class IntegrityError(PqflowError):
     """A file of a run does not match what the manifest recorded."""
+
+
+class RuntimeFault(PqflowError):
+    """The work failed for a reason outside its input: no space left, no permission, an I/O
+    error, an unsafe Prefect home folder. The command line exits 3 for these."""

@@ -13,6 +13,8 @@ exists, and we refuse.
 
 from __future__ import annotations
 
+import math
+
 import hashlib
 import json
 from dataclasses import dataclass, field
@@ -281,6 +283,7 @@ def load_calibration(path: str | Path) -> Calibration:
     try:
         data = read_json(path)
         par = data["parameters"]
+        _refuse_non_finite(path, {"horizon_years": data["horizon_years"], "parameters": par})
         return Calibration(
             valuation_date=data["valuation_date"],
             horizon_years=float(data["horizon_years"]),
@@ -308,6 +311,28 @@ def load_calibration(path: str | Path) -> Calibration:
         raise ConfigError(f"{path}: calibration file not found") from None
     except (KeyError, TypeError, ValueError, json.JSONDecodeError) as exc:
         raise ConfigError(f"{path}: not a pqflow calibration file ({exc!r})") from None
+
+
+def _non_finite_key(value: Any, key: str) -> str | None:
+    """The dotted key of the first NaN or infinite number in a JSON value, or None."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return key
+    if isinstance(value, dict):
+        items = ((f"{key}.{k}", v) for k, v in value.items())
+    elif isinstance(value, list):
+        items = ((f"{key}[{i}]", v) for i, v in enumerate(value))
+    else:
+        return None
+    for sub_key, sub in items:
+        if (found := _non_finite_key(sub, sub_key)) is not None:
+            return found
+    return None
+
+
+def _refuse_non_finite(path: Path, data: dict[str, Any]) -> None:
+    for key, value in data.items():
+        if (found := _non_finite_key(value, key)) is not None:
+            raise ConfigError(f"{path}: {found} is not a finite number; a stored calibration holds numbers only")
 
 
 def check_calibration_fits(calibration: Calibration, config: RunConfig, *, source: str) -> None:

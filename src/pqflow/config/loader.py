@@ -36,8 +36,17 @@ def _describe(err: dict[str, Any]) -> str:
     if msg.startswith("Value error, "):
         msg = msg[len("Value error, ") :]
     if "input" in err and kind not in ("model_type", "dict_type"):
-        return f"{msg} (got {err['input']!r})"
+        return f"{msg}{_got(err['input'])}"
     return msg
+
+
+def _got(value: Any) -> str:
+    """The offending value, briefly: a cross-field rule's input is a whole table (or the whole
+    configuration), which its message already names by key, so it is not echoed."""
+    if isinstance(value, dict):
+        return ""
+    text = repr(value)
+    return f" (got {text if len(text) <= 80 else text[:77] + '...'})"
 
 
 def parse_config(data: dict[str, Any], *, source: str, base_dir: str | Path | None = None) -> RunConfig:
@@ -49,6 +58,8 @@ def parse_config(data: dict[str, Any], *, source: str, base_dir: str | Path | No
         return config
     except ValidationError as exc:
         lines = [f"{source}: {_key_path(tuple(e['loc']))}: {_describe(e)}" for e in exc.errors()]
+        if len(lines) == 1:  # one problem, one line
+            raise ConfigError(f"invalid run configuration: {lines[0]}") from None
         raise ConfigError("invalid run configuration\n  " + "\n  ".join(lines)) from None
 
 
@@ -72,7 +83,7 @@ def apply_overrides(
     config: RunConfig, *, scenarios: int | None = None, seed: int | None = None, source: str
 ) -> RunConfig:
     """The command line's ``--scenarios`` / ``--seed``, validated like the file itself."""
-    data = config.model_dump(mode="json", exclude_none=True)
+    data = config.model_dump(exclude_none=True)  # Python types: strict validation takes them back
     if scenarios is not None:
         data["simulation"]["scenarios"] = scenarios
         data["simulation"]["batch_size"] = min(data["simulation"]["batch_size"], scenarios)

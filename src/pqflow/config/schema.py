@@ -13,7 +13,9 @@ from typing import Literal
 
 from pathlib import Path
 
-from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_validator, model_validator
+from typing import Annotated
+
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, PrivateAttr, field_validator, model_validator
 
 __all__ = [
     "RunSection",
@@ -47,15 +49,39 @@ __all__ = [
 RESERVED_DRIVERS = ("rates", "rates_x", "rates_y", "real_rate", "inflation")
 
 
+def _list_to_tuple(value: object) -> object:
+    return tuple(value) if isinstance(value, list) else value
+
+
+#: A (low, high) pair: TOML writes it as an array, strict mode wants a tuple.
+_Pair = Annotated[tuple[float, float], BeforeValidator(_list_to_tuple)]
+
+
+def _iso_date(value: object) -> object:
+    """A TOML date, or the same date written as an ISO string (``"2026-09-30"``)."""
+    if isinstance(value, str):
+        try:
+            return dt.date.fromisoformat(value.strip())
+        except ValueError:
+            return value  # refused by strict validation, naming the key
+    return value
+
+
+_Date = Annotated[dt.date, BeforeValidator(_iso_date)]
+
+
 class _Section(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True, strict=False)
+    # Strict types: a string, a boolean or a float where an integer belongs (``scenarios =
+    # "2000"``, ``steps_per_year = true``, ``seed = 2.6e7``) is refused, not converted; integers
+    # are accepted for floats. NaN and infinity are refused in every number.
+    model_config = ConfigDict(extra="forbid", frozen=True, strict=True, allow_inf_nan=False)
 
 
 class RunSection(_Section):
     """Identity of the run."""
 
     name: str = Field(min_length=1, max_length=80, pattern=r"^[A-Za-z0-9_.\-]+$")
-    valuation_date: dt.date
+    valuation_date: _Date
     description: str = ""
 
 
@@ -329,8 +355,8 @@ class HullWhiteFitSection(_Section):
     """How Hull-White ``(a, sigma)`` is fitted to the swaption quotes."""
 
     objective: Literal["implied_vol", "price"] = "implied_vol"
-    mean_reversion_bounds: tuple[float, float] = (1e-3, 1.0)
-    volatility_bounds: tuple[float, float] = (1e-4, 0.1)
+    mean_reversion_bounds: _Pair = (1e-3, 1.0)
+    volatility_bounds: _Pair = (1e-4, 0.1)
     fix_mean_reversion: float | None = Field(default=None, gt=0.0, le=5.0)
 
     @model_validator(mode="after")
@@ -352,8 +378,8 @@ class G2ppFitSection(_Section):
     objective: Literal["implied_vol", "price"] = "implied_vol"
     initial: G2ppSection | None = None
     fixed: dict[Literal["a", "sigma", "b", "eta", "rho"], float] = Field(default_factory=dict)
-    mean_reversion_bounds: tuple[float, float] = (1e-4, 3.0)
-    volatility_bounds: tuple[float, float] = (1e-5, 0.2)
+    mean_reversion_bounds: _Pair = (1e-4, 3.0)
+    volatility_bounds: _Pair = (1e-5, 0.2)
 
     @model_validator(mode="after")
     def _bounds(self) -> G2ppFitSection:
@@ -440,6 +466,10 @@ class RealWorldSection(_Section):
         return None
 
 
+#: Fewest scenarios a set may have: the checks estimate standard errors from the scenarios.
+MIN_SCENARIOS = 20
+
+
 class SetGridSection(_Section):
     """Per-set overrides of the grid: a standard quarter often wants a monthly real-world set
     and an annual, longer market-consistent one."""
@@ -485,6 +515,13 @@ class SimulationSection(_Section):
             if abs(steps - round(steps)) > 1e-9:
                 raise ValueError(
                     f"horizon_years x steps_per_year = {steps:g} is not a whole number of steps{where}"
+                )
+            if scenarios < MIN_SCENARIOS:
+                raise ValueError(
+                    f"scenarios = {scenarios}{where} is too few: each set needs at least {MIN_SCENARIOS} "
+                    f"scenarios (with antithetic pairs, {MIN_SCENARIOS // 2} independent pairs), since "
+                    "every check's standard error and skewness correction is estimated from the "
+                    "scenarios themselves (common practice: at least 10 independent observations)"
                 )
             if self.antithetic and (scenarios % 2 or self.batch_size % 2):
                 raise ValueError(f"with antithetic = true, scenarios and batch_size must be even{where}")

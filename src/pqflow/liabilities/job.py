@@ -10,6 +10,8 @@
 
 from __future__ import annotations
 
+import shutil
+
 from pathlib import Path
 from typing import Any
 
@@ -86,9 +88,15 @@ def value_liabilities_cli(
     mc = value_run(run_dir, portfolio, "market_consistent")
     rw = value_run(run_dir, portfolio, "real_world")
     sens = value_sensitivities(run_dir, portfolio, info) if sensitivity_names(run_dir) else None
-    target = out_dir if out_dir is not None else default_out_dir(run_dir)
-    summary = publish_valuation(portfolio, info, mc, rw, target)
-    return publish_sensitivities(sens, summary, target) if sens is not None else summary
+    target = Path(out_dir) if out_dir is not None else default_out_dir(run_dir)
+    existed = target.exists()
+    try:
+        summary = publish_valuation(portfolio, info, mc, rw, target)
+        return publish_sensitivities(sens, summary, target) if sens is not None else summary
+    except BaseException:  # disk full, interrupted: a folder this call created is not left half-written
+        if not existed:
+            shutil.rmtree(target, ignore_errors=True)
+        raise
 
 
 def publish_sensitivities(table: Any, summary: dict[str, Any], out_dir: str | Path) -> dict[str, Any]:

@@ -117,6 +117,9 @@ WEIGHT_COLUMN = "llfr_weight"
 _NOT_AVAILABLE = {"nan", "+nan", "-nan", "na", "n/a", "#n/a", "null", "none"}
 _WHOLE_YEAR_TOL = 1e-9
 _UNIT_TOL = 1e-12
+#: Largest normal (Bachelier) swaption vol accepted, in bp: a quote beyond it is a typo or a
+#: unit error, not a market (common practice).
+MAX_NORMAL_VOL_BP = 1000.0
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -454,13 +457,22 @@ def read_swaption_quotes(path: str | PathLike[str]) -> tuple[SwaptionQuoteRow, .
             )
         if v <= 0.0:
             raise MarketDataError(f"{_at(name, row, vol_col)}: volatility {v:g} must be positive")
+        if convention == "normal" and v > MAX_NORMAL_VOL_BP:
+            raise MarketDataError(
+                f"{_at(name, row, vol_col)}: {v:g} bp is outside the plausible range of normal "
+                f"swaption vols, 1 to {MAX_NORMAL_VOL_BP:,.0f} bp (common practice: quoted normal vols "
+                "of major currencies lie well inside it); check the quote and its unit"
+            )
         if convention == "normal" and v < 1.0:
             raise MarketDataError(
                 f"{_at(name, row, vol_col)}: {v:g} bp is implausibly small; normal vols are in basis "
                 "points (85 bp is 85, not 0.0085)"
             )
         if convention != "normal" and v > 5.0:
-            raise MarketDataError(f"{_at(name, row, vol_col)}: lognormal vols are decimals (20% is 0.20)")
+            raise MarketDataError(
+                f"{_at(name, row, vol_col)}: {v:g} is outside the plausible range of lognormal vols, "
+                "0 to 5 (500%; common practice); lognormal vols are decimals (20% is 0.20)"
+            )
         if w < 0.0:
             raise MarketDataError(f"{_at(name, row, 'weight')}: weight {w:g} must not be negative")
         if (t, n) in seen:

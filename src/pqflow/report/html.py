@@ -118,7 +118,7 @@ def _table(rows: list[dict[str, Any]], columns: list[tuple[str, str]], *, fmt: d
 
 def _kv(pairs: list[tuple[str, Any]]) -> str:
     return "<table>" + "".join(
-        f'<tr><th class="l">{escape(k)}</th><td class="l">{v if isinstance(v, str) and v.startswith("<") else _num(v) if not isinstance(v, str) else escape(v)}</td></tr>'
+        f'<tr><th class="l">{escape(k)}</th><td class="l">{_num(v) if not isinstance(v, str) else escape(v)}</td></tr>'
         for k, v in pairs) + "</table>"
 
 

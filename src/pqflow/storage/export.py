@@ -26,7 +26,7 @@ import pyarrow.dataset as pads
 import pyarrow.parquet as pq
 
 from pqflow.errors import IntegrityError, PqflowError
-from pqflow.storage.jsonio import read_json
+from pqflow.storage.manifest import load_manifest
 from pqflow.storage.parquet import KEY_COLUMNS, file_sha256, parquet_write_kwargs
 
 __all__ = [
@@ -113,10 +113,7 @@ def set_parts(run_dir: str | Path, measure: str) -> tuple[dict[str, Any], list[d
     run_dir = Path(run_dir)
     if measure not in _MEASURES:
         raise ExportError(f"unknown measure {measure!r}: use one of {', '.join(_MEASURES)}")
-    mpath = run_dir / "manifest.json"
-    if not mpath.is_file():
-        raise IntegrityError(f"{run_dir}: no manifest.json; not a finished pqflow run")
-    manifest = read_json(mpath)
+    manifest = load_manifest(run_dir)  # structure and paths checked: nothing outside the run is read
     prefix = f"scenarios/{measure}/"
     entries = sorted(
         (e for e in manifest["files"] if e["path"].startswith(prefix) and e["path"].endswith(".parquet")),
@@ -176,9 +173,12 @@ def export_slice(
     columns: Sequence[str] | None = None,
     scenarios: str | tuple[int | None, int | None] | None = None,
     out: str | Path | None = None,
+    overwrite: bool = False,
 ) -> ExportResult:
     """Stream scenarios ``[first, stop)`` and ``columns`` of one set to ``out`` (CSV on standard
-    output when ``out`` is ``None``). ``scenario`` and ``time`` always come first. Raises
+    output when ``out`` is ``None``; an existing ``out`` is replaced only with ``overwrite``).
+    ``scenario`` and ``time`` always come first. Every part to be read is checked against the
+    manifest before the first row is written. Raises
     ``ExportError`` for an unknown measure, column or scenario range and ``IntegrityError``
     when a part read does not match the manifest."""
     run_dir = Path(run_dir)
@@ -186,6 +186,10 @@ def export_slice(
         raise ExportError(f"unknown format {fmt!r}: use one of {', '.join(FORMATS)}")
     if fmt == "parquet" and out is None:
         raise ExportError("a Parquet export needs --out FILE")
+    if out is not None and not overwrite:
+        for existing in (Path(out), Path(out).with_name(Path(out).name + ".meta.json")):
+            if existing.exists():
+                raise ExportError(f"{existing} exists; pass --overwrite to replace it")
     first, stop = parse_scenario_range(scenarios) if not isinstance(scenarios, tuple) else scenarios
     manifest, entries = set_parts(run_dir, measure)
     spans = [(_span_checked(run_dir, e), e) for e in entries]
@@ -208,6 +212,8 @@ def export_slice(
         )
     projection = [*KEY_COLUMNS, *[c for c in chosen if c not in KEY_COLUMNS]]
     chosen_parts = [e for (lo, hi), e in spans if hi >= first and lo < stop]
+    for entry in chosen_parts:  # every part checked before the first row goes out
+        _verify(run_dir, entry)
     out_schema = pa.schema([schema.field(c) for c in projection], metadata=schema.metadata)
 
     sink = _Sink(out)

@@ -35,6 +35,7 @@ from pqflow.errors import IntegrityError, RunDirectoryError
 from pqflow.storage.parquet import file_sha256
 
 __all__ = [
+    "target_lock_path",
     "OutputTarget",
     "resolve_target",
     "remote_staging",
@@ -97,6 +98,17 @@ def remote_staging(target: OutputTarget, root: str | Path | None = None) -> Path
     digest = hashlib.sha256(target.text.encode("utf-8")).hexdigest()[:12]
     base = Path(root) if root is not None else Path(".pqflow") / "staging"
     return base.absolute() / f"{target.name}-{digest}"
+
+
+def target_lock_path(target: OutputTarget) -> Path:
+    """The lock file of a target: ``.NAME.lock`` beside a local one, beside the local staging
+    folder of a URI."""
+    from pqflow.storage.rundir import lock_path
+
+    if target.is_local:
+        return lock_path(target.local)
+    staging = remote_staging(target)
+    return staging.with_name(staging.name + ".lock")
 
 
 def _info(fs: pafs.FileSystem, path: str) -> pafs.FileInfo:

@@ -11,16 +11,21 @@ __all__ = ["write_json_atomic", "read_json"]
 
 
 def write_json_atomic(path: str | Path, obj: Any) -> Path:
-    """Write ``obj`` as indented JSON; readers never see a half-written file."""
+    """Write ``obj`` as indented JSON; readers never see a half-written file, and a failed write
+    leaves neither a temporary file nor a changed ``path``."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
-    with open(tmp, "w", encoding="utf-8") as fh:
-        json.dump(obj, fh, indent=2, sort_keys=False, allow_nan=False)
-        fh.write("\n")
-        fh.flush()
-        os.fsync(fh.fileno())
-    os.replace(tmp, path)
+    try:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            json.dump(obj, fh, indent=2, sort_keys=False, allow_nan=False)
+            fh.write("\n")
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:  # disk full, interrupted: no temporary file is left behind
+        tmp.unlink(missing_ok=True)
+        raise
     return path
 
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from pathlib import Path
+from pathlib import Path, PurePosixPath
 from typing import Any
 
 import pyarrow.parquet as pq
@@ -11,13 +11,21 @@ from pqflow.errors import IntegrityError
 from pqflow.storage.jsonio import read_json
 from pqflow.storage.parquet import file_sha256
 
-__all__ = ["build_manifest", "verify_run", "MANIFEST", "DERIVED_VIEWS"]
+__all__ = [
+    "build_manifest", "verify_run", "load_manifest", "listed_parts", "MANIFEST", "DERIVED_VIEWS",
+    "VALUATION_MANIFEST",
+]
 
 MANIFEST = "manifest.json"
 # Derived views: pages rebuilt from the run's recorded files (``pqflow report``), which may be
 # written or rewritten after the manifest. They are not part of the audit trail, so the
 # manifest neither lists nor checks them; everything they show comes from files it does list.
 DERIVED_VIEWS = frozenset({"validation/report.html"})
+# ``pqflow value`` writes after the run's manifest; its outputs are covered by a manifest of
+# their own in the valuation folder (when present, ``verify_run`` checks it the same way; its
+# paths are relative to the run, or to the valuation folder).
+VALUATION_DIR = "valuation/"
+VALUATION_MANIFEST = VALUATION_DIR + MANIFEST
 
 
 def _entry(root: Path, path: Path) -> dict[str, Any]:
@@ -40,27 +48,121 @@ def build_manifest(root: str | Path, *, header: dict[str, Any]) -> dict[str, Any
     return {**header, "files": [_entry(root, p) for p in files]}
 
 
-def verify_run(root: str | Path) -> dict[str, Any]:
-    """Check every file against the manifest; raise ``IntegrityError`` naming what differs.
+def _entry_problem(root: Path, index: int, entry: Any) -> str | None:
+    """Why a manifest entry cannot be trusted as written, or None: every entry is an object with
+    a relative ``path`` that stays inside the run (no absolute path, no ``..``, no link out),
+    an integer ``bytes`` and a 64-digit ``sha256``."""
+    if not isinstance(entry, dict):
+        return f"files[{index}] is not an object"
+    rel = entry.get("path")
+    if not isinstance(rel, str) or not rel:
+        return f"files[{index}].path is missing or not text"
+    pure = PurePosixPath(rel)
+    if pure.is_absolute() or "\\" in rel or ":" in pure.parts[0] or ".." in pure.parts:
+        return f"files[{index}].path {rel!r} is not a relative path inside the run (absolute paths and '..' are refused)"
+    resolved = (root / rel).resolve()
+    if resolved != root.resolve() and root.resolve() not in resolved.parents:
+        return f"files[{index}].path {rel!r} leads outside the run (a link?)"
+    if not isinstance(entry.get("bytes"), int) or isinstance(entry.get("bytes"), bool) or entry["bytes"] < 0:
+        return f"files[{index}].bytes ({rel}) is not a byte count"
+    sha = entry.get("sha256")
+    if not isinstance(sha, str) or len(sha) != 64 or any(c not in "0123456789abcdef" for c in sha):
+        return f"files[{index}].sha256 ({rel}) is not a sha256 digest"
+    return None
 
-    Derived views (:data:`DERIVED_VIEWS`) are ignored even if an older manifest lists them.
-    """
+
+def load_manifest(root: str | Path, name: str = MANIFEST) -> dict[str, Any]:
+    """Read ``root/name`` and check its structure (not the files): a missing, truncated or
+    malformed manifest, or an entry whose path leaves the run, raises ``IntegrityError``."""
     root = Path(root)
-    mpath = root / MANIFEST
-    if not mpath.exists():
-        raise IntegrityError(f"{root}: no {MANIFEST}; not a finished pqflow run")
-    manifest = read_json(mpath)
+    mpath = root / name
+    if not mpath.is_file():
+        raise IntegrityError(f"{root}: no {name}; not a finished pqflow run")
+    try:
+        manifest = read_json(mpath)
+    except (ValueError, UnicodeDecodeError) as exc:
+        raise IntegrityError(f"{mpath}: not valid JSON, truncated or damaged ({exc})") from None
+    if not isinstance(manifest, dict) or not isinstance(manifest.get("files"), list):
+        raise IntegrityError(f"{mpath}: key 'files' (the list of the run's files) is missing or not a list")
+    for i, entry in enumerate(manifest["files"]):
+        if (problem := _entry_problem(root, i, entry)) is not None:
+            raise IntegrityError(f"{mpath}: {problem}")
+    return manifest
+
+
+def listed_parts(root: str | Path, measure: str) -> list[Path]:
+    """The parts of one scenario set that the run's manifest lists, in batch order: readers of
+    a finished run read exactly these (a part copied in beside them is never read)."""
+    root = Path(root)
+    prefix = f"scenarios/{measure}/"
+    manifest = load_manifest(root)
+    return sorted(
+        root / e["path"] for e in manifest["files"]
+        if e["path"].startswith(prefix) and e["path"].endswith(".parquet")
+    )
+
+
+def _file_problems(root: Path, entries: list[dict[str, Any]]) -> list[str]:
     problems = []
-    for entry in manifest["files"]:
+    for entry in entries:
         if entry["path"] in DERIVED_VIEWS:
             continue
         path = root / entry["path"]
         if not path.exists():
             problems.append(f"{entry['path']}: missing")
+        elif not path.is_file():
+            problems.append(f"{entry['path']}: not a regular file")
         elif path.stat().st_size != entry["bytes"]:
             problems.append(f"{entry['path']}: size {path.stat().st_size} bytes, manifest says {entry['bytes']}")
         elif file_sha256(path) != entry["sha256"]:
             problems.append(f"{entry['path']}: content changed (sha256 differs from the manifest)")
+    return problems
+
+
+def _unlisted(root: Path, folder: Path, listed: set[str], skip: set[str]) -> list[str]:
+    found = []
+    for path in sorted(folder.rglob("*")):
+        rel = path.relative_to(root).as_posix()
+        if path.is_dir() or rel in listed or rel in skip or rel in DERIVED_VIEWS:
+            continue
+        if any(rel == s.rstrip("/") or rel.startswith(s) for s in skip if s.endswith("/")):
+            continue
+        found.append(f"{rel}: not listed in the manifest")
+    return found
+
+
+def _valuation_problems(root: Path) -> list[str]:
+    """The valuation folder's own manifest (written by ``pqflow value``), when there is one:
+    its files must match and no other file may sit in ``valuation/``."""
+    if not (root / VALUATION_MANIFEST).is_file():
+        return []
+    manifest = load_manifest(root, VALUATION_MANIFEST)
+    entries = [
+        {**e, "path": e["path"] if e["path"].startswith(VALUATION_DIR) else VALUATION_DIR + e["path"]}
+        for e in manifest["files"]
+    ]
+    for i, entry in enumerate(entries):
+        if (problem := _entry_problem(root, i, entry)) is not None:
+            raise IntegrityError(f"{root / VALUATION_MANIFEST}: {problem}")
+    listed = {e["path"] for e in entries}
+    return _file_problems(root, entries) + _unlisted(root, root / VALUATION_DIR, listed, {VALUATION_MANIFEST})
+
+
+def verify_run(root: str | Path) -> dict[str, Any]:
+    """Check every file against the manifest; raise ``IntegrityError`` naming what differs.
+
+    A file the manifest does not list is reported too (readers would otherwise never know it
+    is there); ``valuation/`` is covered by its own manifest when ``pqflow value`` wrote one.
+    Derived views (:data:`DERIVED_VIEWS`) are ignored even if an older manifest lists them.
+    """
+    root = Path(root)
+    manifest = load_manifest(root)
+    listed = {e["path"] for e in manifest["files"]}
+    problems = _file_problems(root, manifest["files"])
+    problems += _unlisted(root, root, listed, {MANIFEST, VALUATION_DIR})
+    problems += _valuation_problems(root)
+    if len(problems) == 1:
+        raise IntegrityError(f"{root}: {problems[0]} ({MANIFEST})")
     if problems:
         raise IntegrityError(f"{root}: files do not match {MANIFEST}:\n  " + "\n  ".join(problems))
     return manifest

@@ -25,6 +25,8 @@ import pyarrow as pa
 import pyarrow.fs as pafs
 import pyarrow.parquet as pq
 
+from pqflow.storage.oserror import naming
+
 __all__ = [
     "PART_GLOB",
     "KEY_COLUMNS",
@@ -107,7 +109,8 @@ def write_part(table: pa.Table, path: str | Path, *, filesystem: pafs.FileSystem
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}-{threading.get_ident()}")
         try:
-            pq.write_table(table, tmp, **kwargs)
+            with naming(path):
+                pq.write_table(table, tmp, **kwargs)
             os.replace(tmp, path)
         except BaseException:
             tmp.unlink(missing_ok=True)

@@ -14,6 +14,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from pqflow.storage.jsonio import write_json_atomic
+from pqflow.storage.oserror import naming
 
 __all__ = ["write_parquet_atomic", "write_csv_atomic", "write_result_tables", "replace_directory"]
 
@@ -33,7 +34,8 @@ def write_parquet_atomic(frame: pd.DataFrame, path: str | Path, *, metadata: dic
         table = table.replace_schema_metadata(merged)
     tmp = _tmp(path)
     try:
-        pq.write_table(table, tmp, compression="zstd")
+        with naming(path):
+            pq.write_table(table, tmp, compression="zstd")
         os.replace(tmp, path)
     finally:
         if tmp.exists():
@@ -47,7 +49,8 @@ def write_csv_atomic(frame: pd.DataFrame, path: str | Path) -> Path:
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = _tmp(path)
     try:
-        frame.to_csv(tmp, index=False, float_format="%.10g")
+        with naming(path):
+            frame.to_csv(tmp, index=False, float_format="%.10g")
         os.replace(tmp, path)
     finally:
         if tmp.exists():

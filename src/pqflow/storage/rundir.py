@@ -89,14 +89,24 @@ def _read_lock(path: Path) -> dict[str, Any] | None:
         return {}
 
 
-def acquire_lock(lock: str | Path, *, target: str | Path | None = None) -> Path:
+#: Locks this process holds, by absolute path, with how many times each was taken.
+_HELD: dict[str, int] = {}
+
+
+def acquire_lock(lock: str | Path, *, target: str | Path | None = None, reentrant: bool = False) -> Path:
     """Create ``lock`` exclusively, holding this process's pid, host and the time.
 
     Raises ``RunDirectoryError`` naming the holder when another live process holds it. A lock
     left by a process that no longer exists on this host is taken over; a lock from another
-    host cannot be checked and must be removed by hand.
+    host cannot be checked and must be removed by hand. A lock taken with ``reentrant`` (the
+    command line locks before any work) may be taken again by this process, e.g. by the flow
+    it runs; it is counted and released by the matching number of ``release_lock``.
     """
     lock = Path(lock)
+    key = str(lock.absolute())
+    if key in _HELD:  # this process holds it already (the command line locks before any work)
+        _HELD[key] += 1
+        return lock
     lock.parent.mkdir(parents=True, exist_ok=True)
     what = target if target is not None else lock
     body = {
@@ -124,6 +134,8 @@ def acquire_lock(lock: str | Path, *, target: str | Path | None = None) -> Path:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             json.dump(body, fh)
             fh.write("\n")
+        if reentrant:
+            _HELD[key] = 1
         return lock
     raise RunDirectoryError(f"could not take the lock {lock}; try again")
 
@@ -131,6 +143,11 @@ def acquire_lock(lock: str | Path, *, target: str | Path | None = None) -> Path:
 def release_lock(lock: str | Path) -> None:
     """Remove ``lock`` if this process holds it."""
     lock = Path(lock)
+    key = str(lock.absolute())
+    if _HELD.get(key, 0) > 1:  # an inner holder of a lock this process took twice
+        _HELD[key] -= 1
+        return
+    _HELD.pop(key, None)
     holder = _read_lock(lock)
     if holder and holder.get("pid") == os.getpid() and holder.get("host") == socket.gethostname():
         lock.unlink(missing_ok=True)

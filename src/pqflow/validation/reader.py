@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 
 from pqflow.errors import IntegrityError
+from pqflow.storage.manifest import MANIFEST, listed_parts
 from pqflow.storage.parquet import part_metadata, part_paths, read_part
 
 __all__ = ["ScenarioSetReader"]
@@ -27,7 +28,12 @@ class ScenarioSetReader:
         return Path(self.run_dir) / "scenarios" / self.measure
 
     def parts(self) -> list[Path]:
-        parts = part_paths(self.set_dir)
+        """A finished run's parts are those its manifest lists (nothing copied in beside them);
+        a run still being built (no manifest yet) has the parts in its folder."""
+        if (Path(self.run_dir) / MANIFEST).is_file():
+            parts = listed_parts(self.run_dir, self.measure)
+        else:
+            parts = part_paths(self.set_dir)
         if not parts:
             raise IntegrityError(f"{self.set_dir}: no scenario parts found")
         return parts
