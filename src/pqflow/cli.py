@@ -224,11 +224,10 @@ def run(
             raise PqflowError("--dask-address and --dask-workers go with --runner dask")
         from pipeline.deployments import api_url, check_server
 
+        check_prefect_home()
         server = api_url()
         if server:
             check_server(server)  # a configured server that does not answer: exit 2 before any work
-        else:
-            check_prefect_home()
         # The target is locked before any work (calibration, Prefect's server): a second run
         # into a busy --out is refused at once. The flow takes the same lock again.
         lock = acquire_lock(target_lock_path(target), target=target.text, reentrant=True)
