@@ -196,7 +196,8 @@ def test_deploy_trigger_and_a_worker_runs_it(prefect_server, small_config, tmp_p
     manifest = verify_run(run_dir)
     assert manifest["seeds"]["root_seed"] == 20260930
     assert sum(f["path"].startswith("scenarios/") for f in manifest["files"]) == 4  # 2 parts per set
-    assert json.loads((run_dir / "validation" / "summary.json").read_text())["verdict"] == "pass"
+    # no check fails (cells without the power to judge are inconclusive, not passes)
+    assert json.loads((run_dir / "validation" / "summary.json").read_text())["verdict"] in ("pass", "inconclusive")
     # Progress lines reached the worker's log (no terminal there), and the UI has the artifacts.
     assert "progress: 4 of 4 parts generated" in worker.stdout
     artifacts = {a["key"]: a for a in _api(url, "/artifacts/filter", {"limit": 50}) if a.get("key")}

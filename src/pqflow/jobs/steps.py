@@ -320,7 +320,11 @@ def revalidate_run(run_dir: str | Path, *, ess_warning_share: float | None = Non
     records, else 0.10."""
     from pqflow.storage.manifest import verify_run
 
+    import shutil
+
     run_dir = Path(run_dir)
+    for stale in run_dir.glob(".validation.new-*"):  # our own scratch, left by a validate killed mid-write:
+        shutil.rmtree(stale, ignore_errors=True)  # removed before the manifest check lists unlisted files
     manifest = verify_run(run_dir)
     if ess_warning_share is None:
         ess_warning_share = 0.10
