@@ -413,13 +413,21 @@ def value(
 
 
 @app.command()
-def report(run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")]) -> None:
-    """Write validation/report.html: one self-contained page with every check and plot."""
+def report(
+    run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
+    prepared_by: Annotated[Optional[str], typer.Option("--prepared-by", help="Name on the sign-off page (default: the run configuration's [signoff] prepared_by).")] = None,
+    reviewed_by: Annotated[Optional[str], typer.Option("--reviewed-by", help="Reviewer's name on the sign-off page (default: [signoff] reviewed_by).")] = None,
+) -> None:
+    """Write validation/report.html: a sign-off page, then every check, plot and table."""
     from pqflow.report import write_report
+    from pqflow.report.html import SignOff
 
     try:
+        for flag, name in (("--prepared-by", prepared_by), ("--reviewed-by", reviewed_by)):
+            if name is not None and (len(name) > 200 or any(ord(ch) < 32 for ch in name)):
+                raise PqflowError(f"{flag}: a name of at most 200 printable characters")
         _verified(run_dir)
-        path = write_report(run_dir)
+        path = write_report(run_dir, SignOff(prepared_by=prepared_by or "", reviewed_by=reviewed_by or ""))
     except PqflowError as exc:
         _fail(exc)
     console.print(f"report written to {path}", style="green", highlight=False)

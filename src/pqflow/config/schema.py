@@ -16,6 +16,7 @@ from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_validator,
 
 __all__ = [
     "RunSection",
+    "SignoffSection",
     "CurveSection",
     "MarketDataSection",
     "CurveExtrapolationSection",
@@ -54,6 +55,14 @@ class RunSection(_Section):
     name: str = Field(min_length=1, max_length=80, pattern=r"^[A-Za-z0-9_.\-]+$")
     valuation_date: dt.date
     description: str = ""
+
+
+class SignoffSection(_Section):
+    """Names printed on the report's sign-off page (``pqflow report --prepared-by/--reviewed-by``
+    override them); recorded in the manifest, not used by any computation."""
+
+    prepared_by: str = Field(default="", max_length=200, pattern=r"^[^\x00-\x1f]*$")
+    reviewed_by: str = Field(default="", max_length=200, pattern=r"^[^\x00-\x1f]*$")
 
 
 class CurveSection(_Section):
@@ -534,6 +543,7 @@ class RunConfig(_Section):
     calibration: CalibrationSection = CalibrationSection()
     validation: ValidationSection = ValidationSection()
     execution: ExecutionSection = ExecutionSection()
+    signoff: SignoffSection | None = None
 
     _base_dir: Path = PrivateAttr(default=Path("."))
 
