@@ -18,6 +18,7 @@ from rich.table import Table
 
 from pqflow import CAUTION, __version__
 from pqflow.errors import PqflowError
+from pqflow.report import numbers as fmt
 
 __all__ = ["app", "main"]
 
@@ -52,9 +53,13 @@ def _caution() -> None:
 
 
 def _verdict_cell(verdict: str, counts: bool) -> str:
-    colour = {"pass": "green", "fail": "red"}.get(verdict, "grey50")
+    """Three states (pass green, inconclusive amber, fail red); a reported-only result says
+    whether it was met, in one word, without a red FAIL."""
+    if not counts:
+        return "[dim]info: " + {"pass": "met", "fail": "missed"}.get(verdict, verdict.replace("_", " ")) + "[/]"
+    colour = {"pass": "green", "fail": "red", "inconclusive": "dark_orange"}.get(verdict, "grey50")
     label = verdict.replace("_", " ").upper()
-    return f"[{colour}]{label}[/]" + ("" if counts else " [dim](info)[/]")
+    return f"[{colour}]{label}[/]"
 
 
 def _summary_table(summary: dict[str, Any]) -> Table:
@@ -72,10 +77,10 @@ def _summary_table(summary: dict[str, Any]) -> Table:
             continue
         table.add_row(
             name.replace("_", " "),
-            str(c["cells"]),
-            f"{c['outside_95']} / {c['expected_outside_95_by_chance']:.1f}",
-            f"{c['outside_99']} / {c['expected_outside_99_by_chance']:.1f}",
-            f"{c['max_abs_z']:.2f} / {c['family_critical_z']:.2f}",
+            fmt.count(c["cells"]),
+            f"{fmt.count(c['outside_95'])} / {fmt.number(c['expected_outside_95_by_chance'], 3)}",
+            f"{fmt.count(c['outside_99'])} / {fmt.number(c['expected_outside_99_by_chance'], 3)}",
+            f"{fmt.zscore(c['max_abs_z'])} / {fmt.zscore(c['family_critical_z'])}",
             _verdict_cell(c["verdict"], counts),
         )
         bench = c.get("wealth_ratio_benchmark")
@@ -174,7 +179,7 @@ def run(
     for check in summary["checks"].values():
         for warning in check.get("warnings", []):
             console.print(f"[yellow]warning:[/] {warning}", highlight=False)
-    colour = "green" if summary["verdict"] == "pass" else "red"
+    colour = {"pass": "green", "inconclusive": "dark_orange"}.get(summary["verdict"], "red")
     console.print(
         f"overall verdict: [{colour}]{summary['verdict'].upper()}[/]; run written to "
         f"{result['out_dir']} in {time.perf_counter() - started:.1f} s",
@@ -383,7 +388,7 @@ def value(
         table.add_column(col, justify="left" if col in ("line", "quantity") else "right")
 
     def k(value: float, se: float | None = None) -> str:
-        return f"{value / 1e3:,.0f}" + ("" if se is None else f" ± {se / 1e3:,.0f}")
+        return fmt.money(value, scale=1e3) if se is None else fmt.money_se(value, se, scale=1e3)
 
     for line in summary["lines"]:
         if line.get("level") not in ("product", "total"):
@@ -394,7 +399,7 @@ def value(
             k(line["market_consistent_value"], line["market_consistent_se"]),
             k(line["certainty_equivalent_value"]), k(line["tvog"]),
             k(line["real_world_value"], line["real_world_se"]),
-            f"{line['difference_in_se']:+.2f}",
+            fmt.signed(line["difference_in_se"], 3),
         )
     console.print(table)
     verdict = summary.get("reconciliation", {}).get("verdict")
@@ -444,34 +449,51 @@ def _short(cell: str) -> str:
 
 @app.command()
 def compare(
-    run_a: Annotated[Path, typer.Argument(help="The earlier run (e.g. last quarter).")],
-    run_b: Annotated[Path, typer.Argument(help="The later run.")],
-    html: Annotated[Optional[Path], typer.Option("--html", help="Also write the comparison as an HTML page.")] = None,
-    all_rows: Annotated[bool, typer.Option("--all", help="Show unchanged items too.")] = False,
+    old_run: Annotated[Path, typer.Argument(help="The earlier run (e.g. last quarter).")],
+    new_run: Annotated[Path, typer.Argument(help="The later run.")],
+    html: Annotated[Optional[Path], typer.Option("--html", help="Also write the comparison as an HTML page with charts.")] = None,
+    all_rows: Annotated[bool, typer.Option("--all", help="Every move (and unchanged items), not only the largest.")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the comparison as JSON (for machines) instead of tables.")] = False,
 ) -> None:
-    """What moved between two runs: inputs, parameters, check results, reconciliation values."""
-    from pqflow.report import compare_runs, render_compare_text, write_compare_html
-    from pqflow.report.compare import COMPARE_COLUMNS
+    """What moved between two runs: inputs matched by meaning (moves in bp and vol points,
+    largest first), calibrated parameters, verdicts that changed, liabilities by line."""
+    import json
+
+    from pqflow.report import compare_runs, comparison_json, summary_lines, write_compare_html
 
     try:
-        _verified(run_a)
-        _verified(run_b)
-        comparison = compare_runs(run_a, run_b)
+        _verified(old_run)
+        _verified(new_run)
+        comparison = compare_runs(old_run, new_run)
     except PqflowError as exc:
         _fail(exc)
-    table = Table(title=f"{run_a} -> {run_b}")
-    for col in COMPARE_COLUMNS:
-        table.add_column(col, overflow="fold")
-    shown = 0
-    for row in render_compare_text(comparison):
-        if all_rows or (row[-1] not in ("", "unchanged", "=")):
-            table.add_row(*(_short(cell) for cell in row))
-            shown += 1
-    console.print(table if shown else "no differences in inputs, parameters, checks or reconciliation")
+    if as_json:
+        print(json.dumps(comparison_json(comparison, everything=all_rows), indent=1, default=str))
+    else:
+        console.print(f"[bold]{old_run}[/] -> [bold]{new_run}[/]", highlight=False)
+        table = None
+        for kind, item, *cells in summary_lines(comparison, everything=all_rows):
+            if kind == "title":
+                if table is not None:
+                    console.print(table)
+                table = Table(title=None, show_edge=False, pad_edge=False, box=None, header_style="bold")
+                table.add_column(item, overflow="fold", min_width=28)
+                for col in cells:
+                    table.add_column(col, justify="right", no_wrap=True)
+            elif kind == "note":
+                if table is not None:
+                    console.print(table)
+                    table = None
+                console.print(f"  {item}", style="dim", highlight=False)
+            elif table is not None:
+                table.add_row(_short(item), *(_short(x) for x in cells))
+        if table is not None:
+            console.print(table)
     if html is not None:
-        path = write_compare_html(comparison, html)
-        console.print(f"comparison page written to {path}", style="green", highlight=False)
-    _caution()
+        path = write_compare_html(comparison, html, everything=all_rows)
+        (err_console if as_json else console).print(f"comparison page written to {path}", style="green", highlight=False)
+    if not as_json:
+        _caution()
 
 
 @app.command()
