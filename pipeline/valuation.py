@@ -16,6 +16,7 @@ from prefect.task_runners import ThreadPoolTaskRunner
 
 from pqflow.liabilities.job import default_out_dir, publish_valuation
 from pqflow.liabilities.portfolio import Portfolio, load_portfolio
+from pqflow.storage.valuation_files import check_valuation_target
 from pqflow.liabilities.valuation import (
     RunInfo,
     SetValuation,
@@ -42,19 +43,23 @@ def value_set_task(run_dir: str, portfolio: Portfolio, measure: str) -> SetValua
 
 @task(name="publish-valuation", cache_policy=NO_CACHE)
 def publish_task(
-    portfolio: Portfolio, info: RunInfo, mc: SetValuation, rw: SetValuation, out_dir: str
+    portfolio: Portfolio, info: RunInfo, mc: SetValuation, rw: SetValuation, out_dir: str, overwrite: bool = False
 ) -> dict[str, Any]:
-    return publish_valuation(portfolio, info, mc, rw, out_dir)
+    return publish_valuation(portfolio, info, mc, rw, out_dir, overwrite=overwrite)
 
 
 @flow(name="value_liabilities", log_prints=False, task_runner=ThreadPoolTaskRunner(max_workers=2))
-def value_liabilities(run_dir: str, liabilities_path: str, out_dir: str | None = None) -> dict[str, Any]:
+def value_liabilities(
+    run_dir: str, liabilities_path: str, out_dir: str | None = None, overwrite: bool = False
+) -> dict[str, Any]:
     """Best estimate, certainty-equivalent value and TVOG of the portfolio in
     ``liabilities_path`` on both sets of ``run_dir``; results to ``out_dir`` (default
-    ``run_dir/valuation``). Returns the summary dict."""
+    ``run_dir/valuation``; earlier results there are replaced only with ``overwrite``).
+    Returns the summary dict."""
     run_dir = str(run_dir)
     target = str(out_dir) if out_dir is not None else str(default_out_dir(run_dir))
+    check_valuation_target(target, overwrite)  # refused before anything is valued
     portfolio, info = load_portfolio_task(run_dir, str(liabilities_path))
     mc = value_set_task.submit(run_dir, portfolio, "market_consistent")
     rw = value_set_task.submit(run_dir, portfolio, "real_world")
-    return publish_task(portfolio, info, mc.result(), rw.result(), str(Path(target)))
+    return publish_task(portfolio, info, mc.result(), rw.result(), str(Path(target)), overwrite)

@@ -41,11 +41,15 @@ def _fail(exc: Exception) -> None:
     raise typer.Exit(code=2)
 
 
-def _verified(run_dir: Path) -> None:
-    """Reading a finished run starts with its manifest: a changed or truncated file is named."""
+def _verified(run_dir: Path, *, valuation: bool = True) -> None:
+    """Reading a finished run starts with its manifest: a changed or truncated file is named;
+    so are changed valuation results (``valuation/manifest.json``) unless ``valuation`` is off."""
     from pqflow.storage.manifest import verify_run
+    from pqflow.storage.valuation_files import verify_valuation
 
     verify_run(run_dir)
+    if valuation:
+        verify_valuation(run_dir)
 
 
 def _caution() -> None:
@@ -369,6 +373,7 @@ def value(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
     liabilities: Annotated[Path, typer.Option("--liabilities", help="Liability portfolio file (TOML).")],
     out: Annotated[Optional[Path], typer.Option("--out", help="Folder for the results (default RUN_DIR/valuation).")] = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace earlier valuation results (only once the new valuation has succeeded).")] = False,
 ) -> None:
     """Value liabilities with guarantees on both sets: best estimate, TVOG, reconciliation.
 
@@ -378,8 +383,8 @@ def value(
     from pqflow.liabilities import value_liabilities_cli
 
     try:
-        _verified(run_dir)
-        summary = value_liabilities_cli(run_dir, liabilities, out)
+        _verified(run_dir, valuation=False)  # earlier results are checked only if kept
+        summary = value_liabilities_cli(run_dir, liabilities, out, overwrite=overwrite)
     except PqflowError as exc:
         _fail(exc)
     currency = summary.get("currency", "")
@@ -406,8 +411,9 @@ def value(
     if verdict:
         colour = "green" if verdict == "agree" else "red"
         console.print(f"reconciliation of the two sets: [{colour}]{verdict.upper()}[/]", highlight=False)
-    for path in summary.get("files", []):
-        console.print(f"written: {path}", style="dim", highlight=False)
+    target = out if out is not None else run_dir / "valuation"
+    console.print(f"written to {target}: {', '.join(summary.get('files', []))} (checked by pqflow verify)",
+                  style="dim", highlight=False)
     if out is None and (run_dir / "validation" / "summary.json").is_file():
         from pqflow.report import write_report
 
@@ -501,11 +507,17 @@ def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run director
     """Check every file of a run against its manifest (sizes and sha256)."""
     from pqflow.storage.manifest import verify_run
 
+    from pqflow.storage.valuation_files import verify_valuation
+
     try:
         manifest = verify_run(run_dir)
+        valuation = verify_valuation(run_dir)
     except PqflowError as exc:
         _fail(exc)
     console.print(f"{run_dir}: {len(manifest['files'])} files match manifest.json", style="green")
+    if valuation is not None:
+        console.print(f"{run_dir / 'valuation'}: {len(valuation['files'])} files match its manifest.json "
+                      "and belong to this run", style="green")
 
 
 @app.command()
