@@ -96,6 +96,7 @@ nav a{margin-right:12px}a.csv{font-size:12px;margin-right:10px}
 .oneline{font-size:13px;margin:4px 0}
 .sign td{height:26px;min-width:200px}
 .verdict-line{font-size:15px;margin:6px 0}
+details.all-rows summary{cursor:pointer;color:#1f5f8b;font-size:12.5px;margin:2px 0 10px}
 @media print{
  @page{size:A4;margin:11mm}
  body{background:#fff;font-size:11px}main{max-width:none;padding:0}
@@ -109,6 +110,7 @@ nav a{margin-right:12px}a.csv{font-size:12px;margin-right:10px}
  section{break-before:auto}
  .badge{-webkit-print-color-adjust:exact;print-color-adjust:exact}
  a{color:inherit;text-decoration:none}
+ details.all-rows,a.csv,.files{display:none}
 }
 """
 
@@ -170,6 +172,17 @@ def _table(rows: list[dict[str, Any]], columns: list[tuple[str, str]], *,
                 cells.append(_cell(_num(v), left=i == 0))
         body.append("<tr>" + "".join(cells) + "</tr>")
     return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+def _long_table(rows: list[dict[str, Any]], shown: list[dict[str, Any]], columns: list[tuple[str, str]], *,
+                fmts: dict[str, Callable[[dict[str, Any]], str]] | None = None, what: str = "rows") -> str:
+    """A table of ``shown`` (the rows a reviewer reads first) and, folded below it, every row;
+    the folded table is not printed, so the printed pack stays short and its tables unbroken."""
+    if len(shown) >= len(rows):
+        return _table(rows, columns, fmts=fmts)
+    return (_table(shown, columns, fmts=fmts)
+            + f'<details class="all-rows"><summary>All {len(rows)} {escape(what)}</summary>'
+            + _table(rows, columns, fmts=fmts) + "</details>")
 
 
 def _kv(pairs: list[tuple[str, Any]]) -> str:
@@ -552,7 +565,7 @@ def _sched_text(v: Any, show: Callable[[Any], str]) -> str:
             return fmt.DASH
         if len(vals) <= 6:
             return ", ".join(f"{show(x)} from {fmt.years(k)}y" for k, x in zip(v["knots"], vals))
-        return (f"{show(vals[0])} at 0y to {show(vals[-1])} at {fmt.years(v['knots'][-1])}y "
+        return (f"{show(vals[0])} at 0y to {show(vals[-1])} at {float(v['knots'][-1]):.0f}y "
                 f"({len(vals)} pieces between {show(min(vals))} and {show(max(vals))})")
     return show(v)
 
@@ -779,7 +792,7 @@ def _drivers(names: list[str]) -> list[_Driver]:
             out.append(_Driver("Property", f"{c[len('property_'):]} (total return index)", (c,), "level",
                                lambda d, c=c: d[c]))
     if "cpi" in have:
-        out.append(_Driver("Inflation and real rates", "CPI", ("cpi",), "index", lambda d: d["cpi"]))
+        out.append(_Driver("Inflation and real rates", "CPI", ("cpi",), "level", lambda d: d["cpi"]))
     if "real_short_rate" in have:
         out.append(_Driver("Inflation and real rates", "real short rate", ("real_short_rate",), "rate",
                            lambda d: d["real_short_rate"]))
@@ -1022,7 +1035,11 @@ def _market_consistency(run_dir: Path, summary: dict[str, Any]) -> str:
             if not sub:
                 continue
             html.append(f"<h3>{escape(MEASURE_NAME[measure])} set</h3>")
-            html.append(_table(sub, [
+            worst = sorted(sub, key=lambda r: -max(abs(float(r.get("z_market") or 0.0)), abs(float(r.get("z_model") or 0.0))))[:10]
+            if len(worst) < len(sub):
+                html.append(f'<p class="note">The {len(worst)} instruments furthest from their quote or model price '
+                            f"(largest |z|); all {len(sub)} below and in market_consistency.csv.</p>")
+            html.append(_long_table(sub, worst, what="instruments", columns=[
                 ("instrument", "instrument"), ("mc_price", "MC price ± SE"),
                 ("market_price", "market price"), ("model_price", "model price"),
                 ("market_vol", "market vol"), ("mc_implied_vol", "MC implied vol"),
@@ -1105,15 +1122,17 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
                 bands=[svg.Band(label="", x=x, lower=est - z * se, upper=est + z * se, colour=svg.PALETTE[1])],
                 y_format=_rate_axis,
             ))
-        sample = targets.groupby("target", sort=False).head(12)
-        html.append(_table(_records(sample), [
+        every = _records(targets)
+        at = [r for r in every if any(abs(float(r["time"]) - h) < 1e-9 for h in _TABLE_HORIZONS)]
+        html.append(_long_table(every, at or every[:12], what="rows", columns=[
             ("target", "target"), ("time", "t"), ("expected", "target value"), ("estimate", "simulated ± SE"),
             ("z_score", "z")], fmts={
                 "target": lambda r: escape(str(r["target"])), "time": lambda r: fmt.years(r["time"]),
                 "expected": lambda r: fmt.percent(r["expected"]),
                 "estimate": lambda r: escape(f"{fmt.percent(r['estimate'])} ± {fmt.percent(r['std_error'])}"),
                 "z_score": lambda r: fmt.zscore(r["z_score"])}))
-        html.append('<p class="note">First rows per target shown; every row is in real_world_targets.csv.</p>')
+        html.append('<p class="note">Rows at 1, 5, 10, 20, 30 and 50 years shown; every row is folded above '
+                    "and in real_world_targets.csv.</p>")
     html.append(_grid(charts))
     html.append(_files(run_dir, ["real_world_targets.csv"]))
     bench = c.get("wealth_ratio_benchmark") or {}
@@ -1197,7 +1216,8 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
     ret = _records(_csv(run_dir, "expected_returns"))
     if ret:
         html.append("<h3>Expected returns by asset, both measures (annualised, continuously compounded)</h3>")
-        html.append(_table(ret, [("description", "asset"), ("horizon", "horizon"),
+        at = [r for r in ret if any(abs(float(r["horizon"]) - h) < 1e-9 for h in (1.0, 10.0, 30.0, 50.0))]
+        html.append(_long_table(ret, at or ret, what="rows", columns=[("description", "asset"), ("horizon", "horizon"),
                                  ("market_consistent", "Q ± SE"), ("real_world", "P ± SE"), ("difference", "P - Q")],
                            fmts={"description": lambda r: escape(str(r["description"])),
                                  "horizon": lambda r: fmt.years(r["horizon"]),
