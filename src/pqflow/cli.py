@@ -460,21 +460,46 @@ def compare(
     html: Annotated[Optional[Path], typer.Option("--html", help="Also write the comparison as an HTML page with charts.")] = None,
     all_rows: Annotated[bool, typer.Option("--all", help="Every move (and unchanged items), not only the largest.")] = False,
     as_json: Annotated[bool, typer.Option("--json", help="Print the comparison as JSON (for machines) instead of tables.")] = False,
+    attribute: Annotated[bool, typer.Option("--attribute", help="Step-wise attribution of the liability change (needs --liabilities, --old-config, --new-config).")] = False,
+    liabilities: Annotated[Optional[Path], typer.Option("--liabilities", help="Liability portfolio file (TOML) for --attribute.")] = None,
+    old_config: Annotated[Optional[Path], typer.Option("--old-config", help="The configuration the old run was made with (for --attribute).")] = None,
+    new_config: Annotated[Optional[Path], typer.Option("--new-config", help="The configuration the new run was made with (for --attribute).")] = None,
+    attribution_dir: Annotated[Optional[Path], typer.Option("--attribution-dir", help="Folder for the attribution's runs (default NEW_RUN-attribution beside NEW_RUN).")] = None,
 ) -> None:
     """What moved between two runs: inputs matched by meaning (moves in bp and vol points,
-    largest first), calibrated parameters, verdicts that changed, liabilities by line."""
+    largest first), calibrated parameters, verdicts that changed, liabilities by line; with
+    --attribute, the change in best estimate and TVOG step by step."""
     import json
 
     from pqflow.report import compare_runs, comparison_json, summary_lines, write_compare_html
 
+    attribution = None
     try:
         _verified(old_run)
         _verified(new_run)
         comparison = compare_runs(old_run, new_run)
+        if attribute:
+            missing = [flag for flag, v in (("--liabilities", liabilities), ("--old-config", old_config),
+                                             ("--new-config", new_config)) if v is None]
+            if missing:
+                raise PqflowError(f"--attribute needs {', '.join(missing)}")
+            from pqflow.report.attribution import check_attribution
+
+            target = attribution_dir or new_run.parent / f"{new_run.name}-attribution"
+            check_attribution(old_run, new_run, old_config, new_config, target)  # before Prefect starts
+            from pipeline.attribution import attribute_change
+
+            (err_console if as_json else console).print(
+                f"attribution: one run and valuation per step into {target} (Prefect tasks)...", style="dim", highlight=False)
+            attribution = attribute_change(str(old_run), str(new_run), str(old_config), str(new_config),
+                                           str(liabilities), str(target))
     except PqflowError as exc:
         _fail(exc)
     if as_json:
-        print(json.dumps(comparison_json(comparison, everything=all_rows), indent=1, default=str))
+        payload = comparison_json(comparison, everything=all_rows)
+        if attribution is not None:
+            payload["attribution"] = attribution
+        print(json.dumps(payload, indent=1, default=str))
     else:
         console.print(f"[bold]{old_run}[/] -> [bold]{new_run}[/]", highlight=False)
         table = None
@@ -495,11 +520,29 @@ def compare(
                 table.add_row(_short(item), *(_short(x) for x in cells))
         if table is not None:
             console.print(table)
+    if attribution is not None and not as_json:
+        _print_attribution(attribution)
     if html is not None:
-        path = write_compare_html(comparison, html, everything=all_rows)
+        path = write_compare_html(comparison, html, everything=all_rows, attribution=attribution)
         (err_console if as_json else console).print(f"comparison page written to {path}", style="green", highlight=False)
     if not as_json:
         _caution()
+
+
+def _print_attribution(result: dict[str, Any]) -> None:
+    table = Table(title="Attribution of the change, total line (market consistent, ± SE of the paired change)")
+    for col in ("step", "best estimate", "TVOG"):
+        table.add_column(col, justify="left" if col == "step" else "right")
+    for r in result["rows"]:
+        if r["line"] == "total":
+            table.add_row(f"{r['step']}. {r['title']}", fmt.money_se(r["best_estimate_change"], r["best_estimate_se"]),
+                          fmt.money_se(r["tvog_change"], r["tvog_se"]))
+    t = result["totals"].get("total", {})
+    table.add_row("total change", fmt.money(t.get("best_estimate_total"), sign=True), fmt.money(t.get("tvog_total"), sign=True))
+    console.print(table)
+    checks = ", ".join(f"{k.replace('_', ' ')}: {'yes' if v else 'NO'}" for k, v in result.get("checks", {}).items())
+    if checks:
+        console.print(checks, style="dim", highlight=False)
 
 
 @app.command()

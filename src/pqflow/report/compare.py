@@ -530,17 +530,43 @@ def _table_html(rows: list[Move], *, with_move: bool = True,
         if se:
             s_old, s_new = se.get(m.item, (None, None))
             extra = f'<td class="num">{escape(fmt.money(s_old))} / {escape(fmt.money(s_new))}</td>'
-        body.append(f'<tr><td class="l item">{escape(m.item)}</td><td class="num">{escape(old)}</td>'
-                    f'<td class="num">{escape(new)}</td>'
+        cls = "l" if m.unit == "text" else "num"  # identifiers and names are text, not numbers
+        body.append(f'<tr><td class="l item">{escape(m.item)}</td><td class="{cls}">{escape(old)}</td>'
+                    f'<td class="{cls}">{escape(new)}</td>'
                     + (f'<td class="num">{escape(move)}</td>' if with_move else "") + extra + "</tr>")
     return f'<table class="cmp"><thead>{head}</thead><tbody>{"".join(body)}</tbody></table>'
 
 
 _CMP_CSS = ("<style>table.cmp{table-layout:fixed;width:100%;max-width:1050px}table.cmp td.item{word-break:break-word}"
-            "table.cmp th.item{width:46%}table.cmp td.num{white-space:nowrap;overflow:hidden;text-overflow:ellipsis}</style>")
+            "table.cmp th.item{width:36%}table.cmp td.num{white-space:nowrap;overflow:hidden;text-overflow:ellipsis}</style>")
 
 
-def write_compare_html(c: Comparison, path: str | Path, *, everything: bool = False) -> Path:
+def _attribution_html(result: dict[str, Any], currency: str) -> str:
+    from pqflow.report import svg
+
+    rows = [r for r in result.get("rows", []) if r["line"] == "total"]
+    totals = result.get("totals", {}).get("total", {})
+    if not rows:
+        return '<p class="note">No step changed anything: both runs were made from the same inputs.</p>'
+    chart = svg.waterfall_chart(
+        title=f"Best estimate, total line: old inputs to new ({currency})", start_label="old inputs",
+        start=totals.get("start_best_estimate", 0.0), labels=[r["title"] for r in rows],
+        deltas=[r["best_estimate_change"] for r in rows], errors=[2 * r["best_estimate_se"] for r in rows],
+        end_label="new inputs", y_format=lambda v: fmt.plain(v / 1e6, 4), y_label=f"{currency} millions")
+    body = "".join(
+        f'<tr><td class="l">{r["step"]}. {escape(r["title"])}</td><td class="num">'
+        f'{escape(fmt.money_se(r["best_estimate_change"], r["best_estimate_se"]))}</td><td class="num">'
+        f'{escape(fmt.money_se(r["tvog_change"], r["tvog_se"]))}</td></tr>' for r in rows)
+    body += (f'<tr><th class="l">total change</th><th class="num">{escape(fmt.money(totals.get("best_estimate_total"), sign=True))}'
+             f'</th><th class="num">{escape(fmt.money(totals.get("tvog_total"), sign=True))}</th></tr>')
+    checks = "; ".join(f"{k.replace('_', ' ')}: {'yes' if v else 'no'}" for k, v in result.get("checks", {}).items())
+    return (f'<div class="grid">{chart}</div><table class="cmp"><thead><tr><th class="l item">step (total line)</th>'
+            f"<th>best estimate ± SE</th><th>TVOG ± SE</th></tr></thead><tbody>{body}</tbody></table>"
+            f'<p class="note">{escape(str(result.get("rule", "")))}. Whiskers: 2 SE. {escape(checks)}</p>')
+
+
+def write_compare_html(c: Comparison, path: str | Path, *, everything: bool = False,
+                       attribution: dict[str, Any] | None = None) -> Path:
     """Write the comparison as one self-contained page (atomically); returns the path."""
     from pqflow.report import svg
     from pqflow.report.html import _rate_axis, page, write_html_atomic
@@ -591,4 +617,7 @@ def write_compare_html(c: Comparison, path: str | Path, *, everything: bool = Fa
     else:
         parts.append('<section id="compare-liabilities"><h2>Liabilities</h2><p class="note">Shown when both runs '
                      "were valued (<code>pqflow value</code>).</p></section>")
+    if attribution is not None:
+        parts.append('<section id="compare-attribution"><h2>Attribution of the change</h2>'
+                     + _attribution_html(attribution, c.currency) + "</section>")
     return write_html_atomic(path, page("pqflow run comparison", "".join(parts)))

@@ -23,6 +23,7 @@ __all__ = [
     "fan_chart",
     "line_chart",
     "bar_chart",
+    "waterfall_chart",
     "Series",
     "Band",
 ]
@@ -311,3 +312,57 @@ def bar_chart(
         parts.append(f'<text x="{lx:.1f}" y="{f.pb + 10}" class="tick" text-anchor="end" '
                      f'transform="rotate(-45 {lx:.1f} {f.pb + 10})">{escape(label)}</text>')
     return _svg(parts, title, height=height, data=f'data-y-axis="{f.y0:.6g},{f.y1:.6g}"')
+
+
+def waterfall_chart(
+    *,
+    title: str,
+    start_label: str,
+    start: float,
+    labels: Sequence[str],
+    deltas: Sequence[float],
+    errors: Sequence[float] | None = None,
+    end_label: str = "end",
+    y_label: str = "",
+    y_format: Callable[[float], str] = _fmt_default,
+) -> str:
+    """A waterfall: the start value, each step's change as a bar floating from the running
+    total (up in red, down in green; whiskers +- ``errors``), and the end value."""
+    vals = [float(d) for d in deltas]
+    running = [float(start)]
+    for d in vals:
+        running.append(running[-1] + d)
+    errs = [float(e) for e in errors] if errors is not None else [0.0] * len(vals)
+    lo = min(running + [r - e for r, e in zip(running[1:], errs)])
+    hi = max(running + [r + e for r, e in zip(running[1:], errs)])
+    pad = 0.15 * (hi - lo or abs(hi) or 1.0)
+    n = len(vals) + 2
+    height = _H + 60
+    f = _Frame(0.0, float(n), lo - pad, hi + pad, height=height)
+    f.xt = []
+    f.pb = height - _M["bottom"] - 60
+    parts = f.axes(title, "", y_label, y_format)
+    slot = (f.pr - f.pl) / n
+    names = [start_label, *labels, end_label]
+    for i in range(n):
+        x = f.pl + i * slot + slot * 0.15
+        w = slot * 0.7
+        if i == 0 or i == n - 1:
+            v = running[0] if i == 0 else running[-1]
+            top, bottom = sorted((f.py(v), float(f.pb)))  # from the axis: the level itself
+            colour, tip = "#8a8a8a", f"{names[i]}: {numbers.number(v, 6)}"
+        else:
+            a, b = running[i - 1], running[i]
+            top, bottom = sorted((f.py(a), f.py(b)))
+            colour = "#c0502b" if b > a else "#4c8c3f"
+            tip = f"{names[i]}: {numbers.signed(b - a, 4)}"
+        parts.append(f'<rect x="{x:.1f}" y="{top:.1f}" width="{w:.1f}" height="{max(bottom - top, 0.8):.1f}" '
+                     f'fill="{colour}"><title>{escape(tip)}</title></rect>')
+        if 0 < i < n - 1 and errs[i - 1] > 0:
+            cx, b = x + w / 2, running[i]
+            parts.append(f'<line x1="{cx:.1f}" x2="{cx:.1f}" y1="{f.py(b - errs[i - 1]):.1f}" '
+                         f'y2="{f.py(b + errs[i - 1]):.1f}" stroke="#222"/>')
+        lx = x + w / 2
+        parts.append(f'<text x="{lx:.1f}" y="{f.pb + 10}" class="tick" text-anchor="end" '
+                     f'transform="rotate(-35 {lx:.1f} {f.pb + 10})">{escape(names[i])}</text>')
+    return _svg(parts, title, height=height)
