@@ -94,7 +94,10 @@ def test_report_has_every_section_and_plot_and_no_external_reference(finished_ru
                 "../valuation/liability_values.csv", "../calibration.json"):
         assert csv in parsed.links, csv
     assert "http://" not in html and "https://" not in html and "url(" not in html
-    assert html.count(escape(CAUTION)) == 2
+    # Top and bottom of the page, and at the foot of the sign-off page (printed on its own).
+    assert html.count(escape(CAUTION)) == 3
+    signoff = html[html.index('id="signoff"'):html.index('id="identity"')]
+    assert signoff.rstrip().count(escape(CAUTION)) == 1
     text = " ".join(parsed.text)
     for needle in ("2026-09-30", "root seed", "configuration sha256", "pqflow 0.1.0",
                    "American Academy of Actuaries", "swaption 5y x 5y", "prepared by", "reviewed by"):

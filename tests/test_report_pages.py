@@ -225,7 +225,7 @@ def test_signoff_names_from_command_line_or_manifest_are_escaped(valued_run, tmp
     (run / "manifest.json").write_text(json.dumps(man))
     html = build_report_html(run, SignOff(prepared_by="E. Command-Line"))
     assert "E. Command-Line" in html and "C. From-Config" not in html and "D. Reviewer" in html
-    assert html.count(escape(CAUTION)) == 2
+    assert html.count(escape(CAUTION)) == 3  # top, foot of the sign-off page, bottom
 
 
 def test_report_prints_the_signoff_page_on_its_own_page(valued_run):

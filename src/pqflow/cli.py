@@ -276,35 +276,37 @@ def _print_fit(payload: dict[str, Any]) -> None:
     fit, par = payload.get("fit", {}), payload["parameters"]
     model = par.get("rates_model", "hull_white")
     rates_fit = fit.get(model, {})
-    rmse = f"  (swaption fit RMSE {rates_fit['rmse_bp']:.2f} bp)" if "rmse_bp" in rates_fit else ""
+    rmse = f"  (swaption fit RMSE {fmt.bp(rates_fit['rmse_bp'], 2)} normal vol)" if "rmse_bp" in rates_fit else ""
     if model == "g2pp":
         g = par["g2pp"]
         console.print(
-            f"G2++: a = {g['a']:.5f}, sigma = {g['sigma']:.5f}, b = {g['b']:.5f}, eta = {g['eta']:.5f}, "
-            f"rho = {g['rho']:.4f}{rmse}",
+            f"G2++: a = {fmt.plain(g['a'])}, sigma = {fmt.bp(1e4 * g['sigma'])}, b = {fmt.plain(g['b'])}, "
+            f"eta = {fmt.bp(1e4 * g['eta'])}, rho = {fmt.plain(g['rho'])}{rmse}",
             highlight=False,
         )
     else:
         hw = par["hull_white"]
-        console.print(f"Hull-White: a = {hw['mean_reversion']:.5f}, sigma = {hw['volatility']:.5f}{rmse}", highlight=False)
+        console.print(f"Hull-White: a = {fmt.plain(hw['mean_reversion'])}, sigma = {fmt.bp(1e4 * hw['volatility'])} "
+                      f"(normal){rmse}", highlight=False)
     curve = fit.get("curve", {})
     if "alpha" in curve:
         console.print(
-            f"Smith-Wilson: alpha = {curve['alpha']:.6f} (floor {curve['alpha_floor']:g}), forward at the "
-            f"convergence point {curve['convergence_point']:g}y = {curve['forward_at_convergence']:.6f} "
-            f"vs omega {curve['omega']:.6f} ({curve['gap_to_omega_bp']:+.3f} bp)",
+            f"Smith-Wilson: alpha = {fmt.plain(curve['alpha'])} (floor {fmt.plain(curve['alpha_floor'])}), forward at the "
+            f"convergence point {fmt.years(curve['convergence_point'])}y = {fmt.percent(curve['forward_at_convergence'])} "
+            f"vs omega {fmt.percent(curve['omega'])} ({fmt.bp(curve['gap_to_omega_bp'], 2, sign=True)})",
             highlight=False,
         )
     eq = fit.get("equity", {})
     if "bucket_volatilities" in eq:
-        buckets = ", ".join(f"{v:.4f}" for v in eq["bucket_volatilities"])
-        console.print(f"equity volatility by bucket (ends {eq['bucket_ends']}): {buckets}", highlight=False)
+        buckets = ", ".join(fmt.vol_points(v) for v in eq["bucket_volatilities"])
+        ends = ", ".join(fmt.years(t) for t in eq["bucket_ends"])
+        console.print(f"equity volatility by bucket (ends {ends} years), points: {buckets}", highlight=False)
     for item in par.get("indices", []):
         vol = item["volatility"]
-        vol_text = f"{vol:.4f}" if isinstance(vol, (int, float)) else ", ".join(f"{v:.4f}" for v in vol["values"])
+        vol_text = (fmt.vol_points(vol) if isinstance(vol, (int, float)) else ", ".join(fmt.vol_points(v) for v in vol["values"])) + " pts"
         console.print(
-            f"{item['kind']} index {item['name']}: level {item['level']:g}, income yield {item['income_yield']:.4f}, "
-            f"volatility {vol_text}, risk premium {item['risk_premium']:.4f}",
+            f"{item['kind']} index {item['name']}: level {fmt.plain(item['level'], 6)}, income yield "
+            f"{fmt.percent(item['income_yield'], 2)}, volatility {vol_text}, risk premium {fmt.percent(item['risk_premium'], 2)}",
             highlight=False,
         )
     inf = fit.get("inflation")
@@ -312,28 +314,28 @@ def _print_fit(payload: dict[str, Any]) -> None:
         p_inf = par["inflation"]
         console.print(
             f"inflation (Jarrow-Yildirim): real curve from {len(inf['rows'])} zero-coupon inflation swaps, "
-            f"max repricing error {inf['max_abs_difference_bp']:.2g} bp; a_r = {p_inf['real_mean_reversion']:g}, "
-            f"sigma_r = {p_inf['real_volatility']:g}, sigma_I = {p_inf['inflation_volatility']:g}",
+            f"max repricing error {fmt.bp(inf['max_abs_difference_bp'], 2)}; a_r = {fmt.plain(p_inf['real_mean_reversion'])}, "
+            f"sigma_r = {fmt.bp(1e4 * p_inf['real_volatility'])}, sigma_I = {fmt.vol_points(p_inf['inflation_volatility'])} pts",
             highlight=False,
         )
         if caps := inf.get("caps"):
             console.print(
                 f"  fitted {', '.join(caps['fitted'])} to {len(caps['rows'])} year-on-year caps/floors: "
-                f"price RMSE {caps['price_rmse_bp']:.2f} bp of notional",
+                f"price RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional",
                 highlight=False,
             )
     for r in fit.get("credit", {}).get("ratings", []):
         console.print(
-            f"credit {r['rating']}: spreads repriced to {r['max_abs_error_bp']:.2g} bp; CIR++ shift in "
-            f"[{r['min_shift']:.4f}, {r['max_shift']:.4f}]; Feller ratio {r['feller_ratio']:.2f}"
+            f"credit {r['rating']}: spreads repriced to {fmt.bp(r['max_abs_error_bp'], 2)}; CIR++ shift in "
+            f"[{fmt.percent(r['min_shift'])}, {fmt.percent(r['max_shift'])}]; Feller ratio {r['feller_ratio']:.2f}"
             + (f"; fitted {', '.join(r['fitted'])}" if r["fitted"] else "")
-            + (f"; real world: theta {r['price_of_risk']:.4g}, long-run level {r['real_world_long_run_mean']:.4g} "
-               f"(market consistent {r['market_consistent_long_run_mean']:.4g})" if r.get("price_of_risk") else ""),
+            + (f"; real world: theta {fmt.plain(r['price_of_risk'])}, long-run level {fmt.percent(r['real_world_long_run_mean'])} "
+               f"(market consistent {fmt.percent(r['market_consistent_long_run_mean'])})" if r.get("price_of_risk") else ""),
             highlight=False,
         )
     corr = fit.get("correlation", {})
     if corr.get("repaired"):
-        console.print(f"correlation matrix repaired (Higham 2002), Frobenius distance {corr['frobenius_distance']:.4g}", style="yellow")
+        console.print(f"correlation matrix repaired (Higham 2002), Frobenius distance {fmt.number(corr['frobenius_distance'])}", style="yellow")
     paths = payload.get("expected_short_rate", {})
     if paths:
         target = paths.get("target")
@@ -348,10 +350,10 @@ def _print_fit(payload: dict[str, Any]) -> None:
             if year not in paths["time"]:
                 continue
             i = paths["time"].index(year)
-            cells = [f"{year:g}", f"{paths['market_consistent'][i]:.4%}", f"{paths['real_world'][i]:.4%}"]
+            cells = [f"{year:g}", fmt.percent(paths["market_consistent"][i]), fmt.percent(paths["real_world"][i])]
             if target and year in target["time"]:
                 j = target["time"].index(year)
-                cells += [f"{target['house_view'][j]:.4%}", f"{target['real_world'][j]:.4%}"]
+                cells += [fmt.percent(target["house_view"][j]), fmt.percent(target["real_world"][j])]
             elif target:
                 cells += ["", ""]
             table.add_row(*cells)
@@ -361,7 +363,8 @@ def _print_fit(payload: dict[str, Any]) -> None:
         for col in ("expiry", "tenor", "market", "model", "diff bp"):
             table.add_column(col, justify="right")
         for r in rows:
-            table.add_row(f"{r['expiry']:g}", f"{r['tenor']:g}", f"{r['market_vol']:.1f}", f"{r['model_vol']:.1f}", f"{r['vol_difference_bp']:+.2f}")
+            table.add_row(fmt.years(r["expiry"]), fmt.years(r["tenor"]), fmt.bp(r["market_vol"]), fmt.bp(r["model_vol"]),
+                          fmt.bp(r["vol_difference_bp"], 2, sign=True))
         console.print(table)
 
 

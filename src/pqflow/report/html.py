@@ -1350,6 +1350,8 @@ def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any]
         '<th class="l">review date</th><td class="l">&nbsp;</td></tr>'
         "</tbody></table>"
     )
+    # The sign-off page may be printed or filed alone: it carries the caution at its foot too.
+    html.append(_caution_box())
     return '<div class="signoff">' + "".join(html) + "</div>"
 
 
