@@ -161,3 +161,13 @@ def test_attribution_refuses_a_configuration_that_did_not_make_the_run(two_quart
     Path(tmp_path / "taken").mkdir()
     with pytest.raises(PqflowError, match="exists"):
         prepare_attribution(runs["old"], runs["curve"], paths["old"], paths["curve"], tmp_path / "taken")
+
+
+def test_a_new_valuation_date_is_its_own_time_roll_step(tmp_path, demo_config_dict):
+    old = _small(demo_config_dict)
+    new = _small(demo_config_dict, run={"valuation_date": "2026-12-31"})
+    a = load_config(write_toml(tmp_path / "a.toml", old))
+    b = load_config(write_toml(tmp_path / "b.toml", new))
+    steps = step_configs(a, b)
+    assert [s.name if s else None for s, _ in steps] == [None, "time_roll"]
+    assert steps[-1][1]["run"]["valuation_date"] == "2026-12-31"

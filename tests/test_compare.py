@@ -183,3 +183,20 @@ def test_command_prints_a_short_summary_json_and_a_page(runs, tmp_path):
     data = json.loads(as_json.stdout)
     assert data["new_run"] == str(runs["curve"])
     assert (tmp_path / "c.html").is_file()
+
+
+def test_a_changed_verdict_is_listed(runs, tmp_path):
+    import shutil
+
+    edited = tmp_path / "edited"
+    shutil.copytree(runs["a"], edited)
+    path = edited / "validation" / "summary.json"
+    summary = json.loads(path.read_text())
+    summary["checks"]["martingale_real_world"]["verdict"] = "inconclusive"
+    summary["verdict"] = "inconclusive"
+    path.write_text(json.dumps(summary))
+    cmp = compare_runs(runs["a"], edited)
+    changed = {m.item: m.shown()[:2] for m in cmp.checks if m.status != "same"}
+    assert changed == {"martingale real world": ("pass", "inconclusive"), "overall verdict": ("pass", "inconclusive")}
+    lines = summary_lines(cmp)
+    assert ("title", "Checks whose verdict changed", "old", "new", "") in lines

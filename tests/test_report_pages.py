@@ -234,3 +234,13 @@ def test_report_prints_the_signoff_page_on_its_own_page(valued_run):
     assert "@media print" in css and "size:A4" in css
     assert re.search(r"\.signoff\{[^}]*break-after:page", css)
     assert re.search(r"table,[^{]*\{break-inside:avoid", css)
+
+
+def test_signoff_table_of_the_configuration_reaches_the_report(tmp_path, demo_config_dict):
+    run = build_run(tmp_path, demo_config_dict, scenarios=200, horizon=10, name="named",
+                    edits={"signoff": {"prepared_by": "F. Preparer", "reviewed_by": "G. Reviewer"}})
+    manifest = json.loads((run / "manifest.json").read_text())
+    assert manifest["signoff"] == {"prepared_by": "F. Preparer", "reviewed_by": "G. Reviewer"}
+    html = build_report_html(run)
+    signoff = html[html.index('id="signoff"'):html.index('id="identity"')]
+    assert "F. Preparer" in signoff and "G. Reviewer" in signoff
