@@ -244,3 +244,20 @@ def test_signoff_table_of_the_configuration_reaches_the_report(tmp_path, demo_co
     html = build_report_html(run)
     signoff = html[html.index('id="signoff"'):html.index('id="identity"')]
     assert "F. Preparer" in signoff and "G. Reviewer" in signoff
+
+
+def test_text_from_the_run_files_is_escaped(valued_run, tmp_path):
+    # Common practice (OWASP, output encoding): text read from files is data, never markup.
+    run = tmp_path / "hostile"
+    shutil.copytree(valued_run, run)
+    cal = json.loads((run / "calibration.json").read_text())
+    cal["parameters"]["curve"]["description"] = "<script>alert(1)</script>"
+    cal["fit"] = {"curve": {"method": "<img src=x onerror=alert(2)>", "max_repricing_error": 1e-17}}
+    (run / "calibration.json").write_text(json.dumps(cal))
+    s = json.loads((run / "validation" / "summary.json").read_text())
+    s["checks"]["real_world"]["warnings"] = ["<b>bold</b> warning"]
+    (run / "validation" / "summary.json").write_text(json.dumps(s))
+    html = build_report_html(run)
+    assert "<script>" not in html and "<img" not in html and "<b>bold" not in html
+    assert "&lt;img src=x onerror=alert(2)&gt;" in html and "&lt;b&gt;bold&lt;/b&gt; warning" in html
+    assert "< 1e-10" not in html.replace("&lt; 1e-10", "")  # the tiny marker is escaped too

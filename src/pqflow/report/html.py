@@ -186,11 +186,9 @@ def _long_table(rows: list[dict[str, Any]], shown: list[dict[str, Any]], columns
 
 
 def _kv(pairs: list[tuple[str, Any]]) -> str:
-    """Two-column table; values that are already HTML start with ``<``."""
+    """Two-column table of names and values (strings escaped, numbers by :func:`_num`)."""
     def val(v: Any) -> str:
-        if isinstance(v, str):
-            return v if v.startswith("<") else escape(v)
-        return _num(v)
+        return escape(v) if isinstance(v, str) else _num(v)
 
     return "<table>" + "".join(
         f'<tr><th class="l">{escape(k)}</th><td class="l">{val(v)}</td></tr>' for k, v in pairs) + "</table>"
@@ -547,7 +545,7 @@ def _curve_section(cal: dict[str, Any]) -> str:
     zeros = [{"m": f"{fmt.years(m)}y", "z": fmt.percent(z), "f": fmt.percent(float(curve.forward(m)))}
              for m, z in facts["zeros"].items()]
     ztable = _table(zeros, [("m", "maturity"), ("z", "zero rate"), ("f", "forward")],
-                    fmts={"m": lambda r: escape(r["m"]), "z": lambda r: r["z"], "f": lambda r: r["f"]})
+                    fmts={"m": lambda r: escape(r["m"]), "z": lambda r: escape(r["z"]), "f": lambda r: escape(r["f"])})
     return (f'<div class="grid"><div>{chart}</div><div>{_kv(pairs)}{ztable}</div></div>'
             + _files_cal())
 
@@ -1127,10 +1125,10 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
         html.append(_long_table(every, at or every[:12], what="rows", columns=[
             ("target", "target"), ("time", "t"), ("expected", "target value"), ("estimate", "simulated ± SE"),
             ("z_score", "z")], fmts={
-                "target": lambda r: escape(str(r["target"])), "time": lambda r: fmt.years(r["time"]),
-                "expected": lambda r: fmt.percent(r["expected"]),
+                "target": lambda r: escape(str(r["target"])), "time": lambda r: escape(fmt.years(r["time"])),
+                "expected": lambda r: escape(fmt.percent(r["expected"])),
                 "estimate": lambda r: escape(f"{fmt.percent(r['estimate'])} ± {fmt.percent(r['std_error'])}"),
-                "z_score": lambda r: fmt.zscore(r["z_score"])}))
+                "z_score": lambda r: escape(fmt.zscore(r["z_score"]))}))
         html.append('<p class="note">Rows at 1, 5, 10, 20, 30 and 50 years shown; every row is folded above '
                     "and in real_world_targets.csv.</p>")
     html.append(_grid(charts))
@@ -1146,9 +1144,9 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
         html.append(_table(b_rows, [("horizon", "horizon (y)"), ("percentile", "percentile"), ("tail", "tail"),
                                     ("model", "model"), ("requirement", "must be"), ("benchmark", "benchmark"),
                                     ("pass", "result")], fmts={
-            "horizon": lambda r: fmt.years(r["horizon"]), "percentile": lambda r: fmt.share(r["percentile"]),
-            "tail": lambda r: escape(str(r["tail"])), "model": lambda r: fmt.number(r["model"], 3),
-            "requirement": lambda r: escape(str(r["requirement"])), "benchmark": lambda r: fmt.number(r["benchmark"], 3),
+            "horizon": lambda r: escape(fmt.years(r["horizon"])), "percentile": lambda r: escape(fmt.share(r["percentile"])),
+            "tail": lambda r: escape(str(r["tail"])), "model": lambda r: escape(fmt.number(r["model"], 3)),
+            "requirement": lambda r: escape(str(r["requirement"])), "benchmark": lambda r: escape(fmt.number(r["benchmark"], 3)),
             "pass": lambda r: "met" if str(r.get("pass")) in ("True", "true", "1") else "<strong>missed</strong>"}))
     html.append(_files(run_dir, ["wealth_ratio_benchmark.csv"]))
     stats = _records(_csv(run_dir, "real_world_statistics"))
@@ -1208,7 +1206,7 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
         html.append(_table(diffs, [("comparison", "comparison"), ("difference", "difference ± SE"), ("z_score", "z")], fmts={
             "comparison": lambda r: escape(str(r["comparison"])),
             "difference": lambda r: escape(fmt.price_se(r.get("difference"), r.get("std_error"))),
-            "z_score": lambda r: fmt.zscore(r.get("z_score"))}))
+            "z_score": lambda r: escape(fmt.zscore(r.get("z_score")))}))
     if v.get("real_world_sample_se") is not None:
         html.append(f'<p class="note">Real-world SE: the larger of the sample value ({escape(fmt.number(v["real_world_sample_se"]))}) '
                     "and the value implied by the market-consistent set's second moment.</p>")
@@ -1220,7 +1218,7 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
         html.append(_long_table(ret, at or ret, what="rows", columns=[("description", "asset"), ("horizon", "horizon"),
                                  ("market_consistent", "Q ± SE"), ("real_world", "P ± SE"), ("difference", "P - Q")],
                            fmts={"description": lambda r: escape(str(r["description"])),
-                                 "horizon": lambda r: fmt.years(r["horizon"]),
+                                 "horizon": lambda r: escape(fmt.years(r["horizon"])),
                                  "market_consistent": lambda r: escape(f"{fmt.percent(r['market_consistent'])} ± {fmt.percent(r['market_consistent_se'])}"),
                                  "real_world": lambda r: escape(f"{fmt.percent(r['real_world'])} ± {fmt.percent(r['real_world_se'])}"),
                                  "difference": lambda r: escape(fmt.bp_move(r["difference"]))}))
@@ -1310,7 +1308,7 @@ def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any]
     if facts["zeros"]:
         curve_rows = ('<table><thead><tr><th class="l">maturity</th>' + "".join(
             f"<th>{fmt.years(m)}y</th>" for m in facts["zeros"]) + '</tr></thead><tbody><tr><td class="l">zero rate</td>'
-            + "".join(_cell(fmt.percent(z)) for z in facts["zeros"].values()) + "</tr></tbody></table>")
+            + "".join(_cell(escape(fmt.percent(z))) for z in facts["zeros"].values()) + "</tr></tbody></table>")
     curve_text = facts["method"].split(" (")[0]
     if fmt.is_number(facts["ufr"]):
         curve_text += (f"; UFR {fmt.percent(facts['ufr'], 2)} (annual), last liquid point "
