@@ -64,8 +64,13 @@ _UNITS = {
     "level": (lambda v: fmt.plain(v, 6), lambda d: fmt.signed(d, 4)),
     "plain": (lambda v: fmt.plain(v, 4), lambda d: fmt.signed(d, 3)),
     "money": (fmt.money, lambda d: fmt.money(d, sign=True)),
-    "text": (lambda v: fmt.DASH if v is None else str(v), lambda d: ""),
+    "text": (lambda v: fmt.DASH if v is None else _short_id(str(v)), lambda d: ""),
 }
+
+
+def _short_id(text: str) -> str:
+    """Hashes and run ids shown by their first 12 characters, as git does (JSON keeps them whole)."""
+    return text[:12] if len(text) >= 32 and all(c in "0123456789abcdef" for c in text) else text
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -248,7 +253,7 @@ def _inputs(cal: dict[str, Any]) -> dict[str, dict[str, tuple[Any, str]]]:
     inputs = cal.get("inputs") or {}
     for kind, f in (inputs.get("files") or {}).items():  # by content: a moved folder is no change
         out["files"][f"{kind.replace('_', ' ')} ({Path(str(f.get('path'))).name}), sha256"] = \
-            (str(f.get("sha256", ""))[:12] or None, "text")
+            (str(f.get("sha256", "")) or None, "text")
     out["settings"] = _settings(inputs)
     return out
 
@@ -380,10 +385,10 @@ def _identity(run: dict[str, Any]) -> dict[str, tuple[Any, str]]:
     cal, man = run["cal"], run["manifest"]
     return {
         "run name": (man.get("run_name"), "text"),
-        "run id": (str(man.get("run_id"))[:12] if man.get("run_id") else None, "text"),
+        "run id": (man.get("run_id"), "text"),
         "valuation date": (cal.get("valuation_date"), "text"),
-        "configuration sha256": (str(man.get("config_sha256"))[:12] if man.get("config_sha256") else None, "text"),
-        "calibration inputs sha256": (str(cal.get("inputs_sha256"))[:12] if cal.get("inputs_sha256") else None, "text"),
+        "configuration sha256": (man.get("config_sha256"), "text"),
+        "calibration inputs sha256": (cal.get("inputs_sha256"), "text"),
         "root seed": (str((man.get("seeds") or {}).get("root_seed")) if man else None, "text"),
         "scenarios per set": (", ".join(f"{k.replace('_', ' ')} {fmt.count(v)}" for k, v in (man.get("scenarios") or {}).items())
                               or None, "text"),
