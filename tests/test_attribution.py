@@ -29,7 +29,7 @@ __all__: list[str] = []
 
 def _small(demo_config_dict, **edits):
     data = copy.deepcopy(demo_config_dict)
-    data["simulation"].update({"scenarios": 200, "batch_size": 100, "horizon_years": 25})
+    data["simulation"].update({"scenarios": 100, "batch_size": 50, "horizon_years": 25})
     data["real_world"]["target_year"] = 25
     for section, body in edits.items():
         data[section].update(body)
