@@ -727,7 +727,13 @@ def _calibration(cal: dict[str, Any]) -> str:
         for rows_key in ("rows",):
             rows = fit.get(rows_key)
             if isinstance(rows, list) and rows and isinstance(rows[0], dict):
-                html.append(_fit_table(rows, vols_in_bp=vols_in_bp))
+                err = next((k for k in ("vol_error", "difference_bp", "error_bp") if k in rows[0]), None)
+                exact = err is not None and all(fmt.is_number(r.get(err)) and abs(float(r[err])) < 1e-8 for r in rows)
+                if exact:  # a bootstrap that reprices every quote: the rows are reference, folded
+                    html.append(f'<details class="all-rows"><summary>All {len(rows)} quotes, each repriced exactly '
+                                f"(largest error &lt; 1e-10)</summary>{_fit_table(rows, vols_in_bp=vols_in_bp)}</details>")
+                else:
+                    html.append(_fit_table(rows, vols_in_bp=vols_in_bp))
                 charts += _fit_chart(name, rows)
         caps = fit.get("caps")
         if isinstance(caps, dict) and isinstance(caps.get("rows"), list) and caps["rows"]:
