@@ -84,7 +84,7 @@ font:bold 11px/18px sans-serif;letter-spacing:.05em;text-transform:uppercase;col
 .badge.pass{background:#2e7d32}.badge.fail{background:#c62828}.badge.na{background:#8a8a8a}
 .badge.inconclusive{background:#d08a00}.badge.info{background:#fff;color:#1f5f8b;border:1px solid #1f5f8b}
 .grid{display:grid;grid-template-columns:repeat(auto-fill,minmax(480px,1fr));gap:10px}
-.pair{display:grid;grid-template-columns:1fr 1fr;gap:10px;margin-bottom:10px}
+.pair{display:grid;grid-template-columns:minmax(0,1fr) minmax(0,1fr);gap:10px;margin-bottom:10px}
 .chart{background:#fff;border:1px solid #e3e3e3}
 .note{color:#555;font-size:12.5px}ul.warn li{color:#8a4b00}ul.warn{margin:4px 0 8px}
 nav a{margin-right:12px}a.csv{font-size:12px;margin-right:10px}
@@ -105,7 +105,8 @@ details.all-rows summary{cursor:pointer;color:#1f5f8b;font-size:12.5px;margin:2p
  .signoff table{font-size:10px}.signoff th,.signoff td{padding:1px 5px}
  .signoff h3{margin:6px 0 2px;font-size:12px}
  table,.chart,.pair,svg,figure,.caution{break-inside:avoid;page-break-inside:avoid}
- .grid{grid-template-columns:1fr 1fr}
+ .grid,.pair{grid-template-columns:minmax(0,1fr) minmax(0,1fr)}
+ td.num{white-space:normal}table{max-width:100%}svg{max-width:100%}
  h2{break-after:avoid;page-break-after:avoid;margin-top:14px}h3{break-after:avoid;page-break-after:avoid}
  section{break-before:auto}
  .badge{-webkit-print-color-adjust:exact;print-color-adjust:exact}
