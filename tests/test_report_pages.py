@@ -225,7 +225,7 @@ def test_signoff_names_from_command_line_or_manifest_are_escaped(valued_run, tmp
     (run / "manifest.json").write_text(json.dumps(man))
     html = build_report_html(run, SignOff(prepared_by="E. Command-Line"))
     assert "E. Command-Line" in html and "C. From-Config" not in html and "D. Reviewer" in html
-    assert html.count(escape(CAUTION)) == 3  # top, foot of the sign-off page, bottom
+    assert html[html.index("<body>"):].count(escape(CAUTION)) == 3  # top, foot of the sign-off page, bottom
 
 
 def test_report_prints_the_signoff_page_on_its_own_page(valued_run):
@@ -234,6 +234,9 @@ def test_report_prints_the_signoff_page_on_its_own_page(valued_run):
     assert "@media print" in css and "size:A4" in css
     assert re.search(r"\.signoff\{[^}]*break-after:page", css)
     assert re.search(r"table,[^{]*\{break-inside:avoid", css)
+    # Printed, every page carries the caution in its bottom margin (CSS Paged Media margin box).
+    footer = re.search(r'@bottom-center\{content:"([^"]*)"', css)
+    assert footer and "qualified professionals" in footer.group(1) and footer.group(1).startswith("Caution:")
 
 
 def test_signoff_table_of_the_configuration_reaches_the_report(tmp_path, demo_config_dict):

@@ -98,7 +98,7 @@ nav a{margin-right:12px}a.csv{font-size:12px;margin-right:10px}
 .verdict-line{font-size:15px;margin:6px 0}
 details.all-rows summary{cursor:pointer;color:#1f5f8b;font-size:12.5px;margin:2px 0 10px}
 @media print{
- @page{size:A4;margin:11mm}
+ @page{size:A4;margin:11mm 11mm 14mm;@bottom-center{content:"__CAUTION__";font:7pt sans-serif;color:#555}}
  body{background:#fff;font-size:11px}main{max-width:none;padding:0}
  nav{display:none}
  .signoff{border:none;padding:0;break-after:page;page-break-after:always;font-size:10.5px}
@@ -107,7 +107,7 @@ details.all-rows summary{cursor:pointer;color:#1f5f8b;font-size:12.5px;margin:2p
  table,.chart,.pair,svg,figure,.caution{break-inside:avoid;page-break-inside:avoid}
  .grid,.pair{grid-template-columns:minmax(0,1fr) minmax(0,1fr)}
  td.num{white-space:normal}table{max-width:100%}svg{max-width:100%}
- h2{break-after:avoid;page-break-after:avoid;margin-top:14px}h3{break-after:avoid;page-break-after:avoid}
+ h2{break-after:avoid;page-break-after:avoid;margin-top:14px}h3,h4{break-after:avoid;page-break-after:avoid}
  section{break-before:auto}
  .badge{-webkit-print-color-adjust:exact;print-color-adjust:exact}
  a{color:inherit;text-decoration:none}
@@ -222,13 +222,19 @@ def _caution_box() -> str:
     return f'<div class="caution"><strong>Caution.</strong> {escape(CAUTION)}</div>'
 
 
+def _css_string(text: str) -> str:
+    """``text`` safe inside a double-quoted CSS string in a <style> element."""
+    return "".join(ch if ch.isalnum() or ch in " .,;:-()'" else f"\\{ord(ch):x} " for ch in text)
+
+
 def page(title: str, body: str) -> str:
-    """A whole self-contained page with the caution at the top and the bottom."""
+    """A whole self-contained page with the caution at the top and the bottom (and, printed,
+    at the foot of every page)."""
     caution = _caution_box()
     return (
         "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">"
         f"<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\"><title>{escape(title)}</title>"
-        f"<style>{CSS}</style></head><body><main>"
+        f"<style>{CSS.replace('__CAUTION__', _css_string('Caution: ' + CAUTION))}</style></head><body><main>"
         f'<section id="caution-top">{caution}</section>'
         f"{body}"
         f'<section id="caution-bottom">{caution}</section>'
