@@ -229,8 +229,11 @@ def _inputs(cal: dict[str, Any]) -> dict[str, dict[str, tuple[Any, str]]]:
     for o in inst.get("equity_options", []) or []:
         t = float(o.get("expiry", 0.0))
         f = _forward(cal, str(o.get("index")), t)
-        money = f"moneyness {fmt.share(float(o['strike']) / f, 0)}" if f and _is_num(o.get("strike")) else \
-            f"strike {fmt.plain(o.get('strike'), 6)}"
+        if f and _is_num(o.get("strike")):
+            m = 100.0 * float(o["strike"]) / f  # whole percent where it is one (ATM forward: 100%)
+            money = f"moneyness {m:.0f}%" if abs(m - round(m)) < 0.05 else f"moneyness {m:.1f}%"
+        else:
+            money = f"strike {fmt.plain(o.get('strike'), 6)}"
         kind = f" {o['kind']}" if o.get("kind") not in (None, "call") else ""
         out["equity_options"][f"{o.get('index')} {fmt.years(t)}y{kind}, {money}"] = (o.get("market_vol"), "vol")
     for c in inst.get("inflation_caps", []) or []:

@@ -67,7 +67,6 @@ _FAN_POINTS = 120  # at most this many output times per fan chart (a long monthl
 _TABLE_HORIZONS = (1.0, 5.0, 10.0, 20.0, 30.0, 50.0, 100.0)
 _CURVE_MATURITIES = (1.0, 5.0, 10.0, 20.0, 30.0, 50.0)
 MEASURE_NAME = {"market_consistent": "market consistent (Q)", "real_world": "real world (P)"}
-MEASURE_SHORT = {"market_consistent": "Q", "real_world": "P"}
 
 CSS = """
 body{font:14px/1.45 system-ui,-apple-system,'Segoe UI',sans-serif;color:#1d1d1f;margin:0;background:#f6f6f4}
