@@ -14,9 +14,10 @@ from prefect import flow, task
 from prefect.cache_policies import NO_CACHE
 from prefect.task_runners import ThreadPoolTaskRunner
 
-from pqflow.liabilities.job import default_out_dir, publish_sensitivities, publish_valuation
-from pqflow.liabilities.sensitivities import sensitivity_names, value_sensitivities
+from pqflow.liabilities.job import default_out_dir, publish_valuation
 from pqflow.liabilities.portfolio import Portfolio, load_portfolio
+from pqflow.liabilities.sensitivities import sensitivity_names, value_sensitivities
+from pqflow.storage.valuation_files import check_valuation_target
 from pqflow.liabilities.valuation import (
     RunInfo,
     SetValuation,
@@ -48,22 +49,26 @@ def value_sensitivities_task(run_dir: str, portfolio: Portfolio, info: RunInfo) 
 
 @task(name="publish-valuation", cache_policy=NO_CACHE)
 def publish_task(
-    portfolio: Portfolio, info: RunInfo, mc: SetValuation, rw: SetValuation, out_dir: str
+    portfolio: Portfolio, info: RunInfo, mc: SetValuation, rw: SetValuation, out_dir: str, overwrite: bool = False,
+    sensitivities: Any = None,
 ) -> dict[str, Any]:
-    return publish_valuation(portfolio, info, mc, rw, out_dir)
+    return publish_valuation(portfolio, info, mc, rw, out_dir, overwrite=overwrite, sensitivities=sensitivities)
 
 
 @flow(name="value_liabilities", log_prints=False, task_runner=ThreadPoolTaskRunner(max_workers=2))
-def value_liabilities(run_dir: str, liabilities_path: str, out_dir: str | None = None) -> dict[str, Any]:
+def value_liabilities(
+    run_dir: str, liabilities_path: str, out_dir: str | None = None, overwrite: bool = False
+) -> dict[str, Any]:
     """Best estimate, certainty-equivalent value and TVOG of the portfolio in
     ``liabilities_path`` on both sets of ``run_dir``; results to ``out_dir`` (default
-    ``run_dir/valuation``). Returns the summary dict."""
+    ``run_dir/valuation``; earlier results there are replaced only with ``overwrite``).
+    Returns the summary dict."""
     run_dir = str(run_dir)
     target = str(out_dir) if out_dir is not None else str(default_out_dir(run_dir))
+    check_valuation_target(target, overwrite)  # refused before anything is valued
     portfolio, info = load_portfolio_task(run_dir, str(liabilities_path))
     mc = value_set_task.submit(run_dir, portfolio, "market_consistent")
     rw = value_set_task.submit(run_dir, portfolio, "real_world")
     sens = value_sensitivities_task.submit(run_dir, portfolio, info) if sensitivity_names(run_dir) else None
     table = sens.result() if sens is not None else None  # errors surface before anything is written
-    summary = publish_task(portfolio, info, mc.result(), rw.result(), str(Path(target)))
-    return publish_sensitivities(table, summary, target) if table is not None else summary
+    return publish_task(portfolio, info, mc.result(), rw.result(), str(Path(target)), overwrite, table)

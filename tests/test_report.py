@@ -28,6 +28,8 @@ from pqflow.report.svg import nice_ticks
 from pqflow.storage.manifest import verify_run
 from test_validation_checks import build_run
 
+REPO = Path(__file__).resolve().parents[1]
+
 __all__: list[str] = []
 
 
@@ -53,7 +55,11 @@ class _Collect(HTMLParser):
 
 @pytest.fixture(scope="module")
 def finished_run(tmp_path_factory, demo_config_dict) -> Path:
-    return build_run(tmp_path_factory.mktemp("report"), demo_config_dict, scenarios=400, horizon=20)
+    from pqflow.liabilities import value_liabilities_cli
+
+    run = build_run(tmp_path_factory.mktemp("report"), demo_config_dict, scenarios=400, horizon=25)
+    value_liabilities_cli(run, REPO / "scenario_configs" / "demo_liabilities.toml")
+    return run
 
 
 def _parse(path: Path) -> tuple[_Collect, str]:
@@ -71,17 +77,30 @@ def test_report_has_every_section_and_plot_and_no_external_reference(finished_ru
     for sid, _ in SECTIONS:
         assert sid in parsed.ids, sid
     assert "caution-top" in parsed.ids and "caution-bottom" in parsed.ids
-    # 6 fan charts (3 quantities x 2 sets), 8 martingale charts (deflator, equity, shortest and
-    # longest bond per set), 2 density, 2 market-consistency, 2 real-world target charts.
+    # The sign-off page comes first, right after the caution at the top.
+    assert parsed.ids.index("signoff") < min(parsed.ids.index(sid) for sid, _ in SECTIONS[1:])
+    assert html.index('id="caution-top"') < html.index('id="signoff"')
+    assert html.rindex('id="caution-bottom"') > html.index('id="liabilities"')
+    # Fan pairs (short rate, 25-year yield, equity), the curve, martingale pairs, density and
+    # market-consistency charts.
     assert parsed.tags.get("svg", 0) >= 20
     assert parsed.tags.get("script", 0) == 0
-    assert not [u for u in parsed.links if re.match(r"(?i)\s*(https?:)?//", u)]
-    assert all(u.startswith("#") for u in parsed.links)  # in-page links only
+    assert not [u for u in parsed.links if re.match(r"(?i)\s*([a-z]+:|//|/)", u)]  # no scheme, host or root
+    # Links go to the page's own sections or to the run's files beside it, which exist.
+    for u in parsed.links:
+        if not u.startswith("#"):
+            assert (finished_run / "validation" / u).resolve().is_file(), u
+    for csv in ("martingale.csv", "density.csv", "market_consistency.csv", "reconciliation.csv",
+                "../valuation/liability_values.csv", "../calibration.json"):
+        assert csv in parsed.links, csv
     assert "http://" not in html and "https://" not in html and "url(" not in html
-    assert html.count(escape(CAUTION)) == 2
+    # Top and bottom of the page, and at the foot of the sign-off page (printed on its own).
+    assert html[html.index("<body>"):].count(escape(CAUTION)) == 3
+    signoff = html[html.index('id="signoff"'):html.index('id="identity"')]
+    assert signoff.rstrip().count(escape(CAUTION)) == 1
     text = " ".join(parsed.text)
     for needle in ("2026-09-30", "root seed", "configuration sha256", "pqflow 0.1.0",
-                   "American Academy of Actuaries", "swaption 5y x 5y"):
+                   "American Academy of Actuaries", "swaption 5y x 5y", "prepared by", "reviewed by"):
         assert needle in text, needle
 
 

@@ -23,6 +23,7 @@ from rich.text import Text
 from pqflow import CAUTION, __version__
 from pqflow.cli_errors import error_line, exit_code_for, guarded, message_for, interrupt_exit_code, terminate_as_interrupt
 from pqflow.errors import PqflowError
+from pqflow.report import numbers as fmt
 
 __all__ = ["app", "main"]
 
@@ -73,11 +74,15 @@ def _fail(exc: Exception) -> None:
     raise typer.Exit(code=exit_code_for(exc))
 
 
-def _verified(run_dir: Path) -> None:
-    """Reading a finished run starts with its manifest: a changed or truncated file is named."""
+def _verified(run_dir: Path, *, valuation: bool = True) -> None:
+    """Reading a finished run starts with its manifest: a changed or truncated file is named;
+    so are changed valuation results (``valuation/manifest.json``) unless ``valuation`` is off."""
     from pqflow.storage.manifest import verify_run
+    from pqflow.storage.valuation_files import verify_valuation
 
     verify_run(run_dir)
+    if valuation:
+        verify_valuation(run_dir)
 
 
 def _caution() -> None:
@@ -85,9 +90,13 @@ def _caution() -> None:
 
 
 def _verdict_cell(verdict: str, counts: bool) -> str:
-    colour = {"pass": "green", "fail": "red", "inconclusive": "yellow"}.get(verdict, "grey50")
+    """Three states (pass green, inconclusive amber, fail red); a reported-only result says
+    whether it was met, in one word, without a red FAIL."""
+    if not counts:
+        return "[dim]info: " + {"pass": "met", "fail": "missed"}.get(verdict, verdict.replace("_", " ")) + "[/]"
+    colour = {"pass": "green", "fail": "red", "inconclusive": "dark_orange"}.get(verdict, "grey50")
     label = verdict.replace("_", " ").upper()
-    return f"[{colour}]{label}[/]" + ("" if counts else " [dim](info)[/]")
+    return f"[{colour}]{label}[/]"
 
 
 def _summary_table(summary: dict[str, Any]) -> Table:
@@ -106,10 +115,10 @@ def _summary_table(summary: dict[str, Any]) -> Table:
             continue
         table.add_row(
             name.replace("_", " "),
-            str(c["cells"]),
-            f"{c['outside_95']} / {c['expected_outside_95_by_chance']:.1f}",
-            f"{c['outside_99']} / {c['expected_outside_99_by_chance']:.1f}",
-            f"{c['max_abs_z']:.2f} / {c['family_critical_z']:.2f}",
+            fmt.count(c["cells"]),
+            f"{fmt.count(c['outside_95'])} / {fmt.number(c['expected_outside_95_by_chance'], 3)}",
+            f"{fmt.count(c['outside_99'])} / {fmt.number(c['expected_outside_99_by_chance'], 3)}",
+            f"{fmt.zscore(c['max_abs_z'])} / {fmt.zscore(c['family_critical_z'])}",
             _inconclusive_cell(c),
             _verdict_cell(c["verdict"], counts),
         )
@@ -475,28 +484,30 @@ def _print_fit(payload: dict[str, Any]) -> None:
     fit, par = payload.get("fit", {}), payload["parameters"]
     model = par.get("rates_model", "hull_white")
     rates_fit = fit.get(model, {})
-    rmse = f"  (swaption fit RMSE {rates_fit['rmse_bp']:.2f} bp)" if "rmse_bp" in rates_fit else ""
+    rmse = f"  (swaption fit RMSE {fmt.bp(rates_fit['rmse_bp'], 2)} normal vol)" if "rmse_bp" in rates_fit else ""
     if model == "g2pp":
         g = par["g2pp"]
         console.print(
-            f"G2++: a = {g['a']:.5f}, sigma = {g['sigma']:.5f}, b = {g['b']:.5f}, eta = {g['eta']:.5f}, "
-            f"rho = {g['rho']:.4f}{rmse}",
+            f"G2++: a = {fmt.plain(g['a'])}, sigma = {fmt.bp(1e4 * g['sigma'])}, b = {fmt.plain(g['b'])}, "
+            f"eta = {fmt.bp(1e4 * g['eta'])}, rho = {fmt.plain(g['rho'])}{rmse}",
             highlight=False,
         )
     else:
         hw = par["hull_white"]
-        console.print(f"Hull-White: a = {hw['mean_reversion']:.5f}, sigma = {hw['volatility']:.5f}{rmse}", highlight=False)
+        console.print(f"Hull-White: a = {fmt.plain(hw['mean_reversion'])}, sigma = {fmt.bp(1e4 * hw['volatility'])} "
+                      f"(normal){rmse}", highlight=False)
     _print_curve_fit(fit.get("curve", {}))
     eq = fit.get("equity", {})
     if "bucket_volatilities" in eq:
-        buckets = ", ".join(f"{v:.4f}" for v in eq["bucket_volatilities"])
-        console.print(f"equity volatility by bucket (ends {eq['bucket_ends']}): {buckets}", highlight=False)
+        buckets = ", ".join(fmt.vol_points(v) for v in eq["bucket_volatilities"])
+        ends = ", ".join(fmt.years(t) for t in eq["bucket_ends"])
+        console.print(f"equity volatility by bucket (ends {ends} years), points: {buckets}", highlight=False)
     for item in par.get("indices", []):
         vol = item["volatility"]
-        vol_text = f"{vol:.4f}" if isinstance(vol, (int, float)) else ", ".join(f"{v:.4f}" for v in vol["values"])
+        vol_text = (fmt.vol_points(vol) if isinstance(vol, (int, float)) else ", ".join(fmt.vol_points(v) for v in vol["values"])) + " pts"
         console.print(
-            f"{item['kind']} index {escape(str(item['name']))}: level {item['level']:g}, income yield {item['income_yield']:.4f}, "
-            f"volatility {vol_text}, risk premium {item['risk_premium']:.4f}",
+            f"{item['kind']} index {escape(str(item['name']))}: level {fmt.plain(item['level'], 6)}, income yield "
+            f"{fmt.percent(item['income_yield'], 2)}, volatility {vol_text}, risk premium {fmt.percent(item['risk_premium'], 2)}",
             highlight=False,
         )
     inf = fit.get("inflation")
@@ -504,28 +515,28 @@ def _print_fit(payload: dict[str, Any]) -> None:
         p_inf = par["inflation"]
         console.print(
             f"inflation (Jarrow-Yildirim): real curve from {len(inf['rows'])} zero-coupon inflation swaps, "
-            f"max repricing error {inf['max_abs_difference_bp']:.2g} bp; a_r = {p_inf['real_mean_reversion']:g}, "
-            f"sigma_r = {p_inf['real_volatility']:g}, sigma_I = {p_inf['inflation_volatility']:g}",
+            f"max repricing error {fmt.bp(inf['max_abs_difference_bp'], 2)}; a_r = {fmt.plain(p_inf['real_mean_reversion'])}, "
+            f"sigma_r = {fmt.bp(1e4 * p_inf['real_volatility'])}, sigma_I = {fmt.vol_points(p_inf['inflation_volatility'])} pts",
             highlight=False,
         )
         if caps := inf.get("caps"):
             console.print(
                 f"  fitted {', '.join(caps['fitted'])} to {len(caps['rows'])} year-on-year caps/floors: "
-                f"price RMSE {caps['price_rmse_bp']:.2f} bp of notional",
+                f"price RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional",
                 highlight=False,
             )
     for r in fit.get("credit", {}).get("ratings", []):
         console.print(
-            f"credit {escape(str(r['rating']))}: spreads repriced to {r['max_abs_error_bp']:.2g} bp; CIR++ shift in "
-            f"[{r['min_shift']:.4f}, {r['max_shift']:.4f}]; Feller ratio {r['feller_ratio']:.2f}"
+            f"credit {escape(str(r['rating']))}: spreads repriced to {fmt.bp(r['max_abs_error_bp'], 2)}; CIR++ shift in "
+            f"[{fmt.percent(r['min_shift'])}, {fmt.percent(r['max_shift'])}]; Feller ratio {r['feller_ratio']:.2f}"
             + (f"; fitted {', '.join(r['fitted'])}" if r["fitted"] else "")
-            + (f"; real world: theta {r['price_of_risk']:.4g}, long-run level {r['real_world_long_run_mean']:.4g} "
-               f"(market consistent {r['market_consistent_long_run_mean']:.4g})" if r.get("price_of_risk") else ""),
+            + (f"; real world: theta {fmt.plain(r['price_of_risk'])}, long-run level {fmt.percent(r['real_world_long_run_mean'])} "
+               f"(market consistent {fmt.percent(r['market_consistent_long_run_mean'])})" if r.get("price_of_risk") else ""),
             highlight=False,
         )
     corr = fit.get("correlation", {})
     if corr.get("repaired"):
-        console.print(f"correlation matrix repaired (Higham 2002), Frobenius distance {corr['frobenius_distance']:.4g}", style="yellow")
+        console.print(f"correlation matrix repaired (Higham 2002), Frobenius distance {fmt.number(corr['frobenius_distance'])}", style="yellow")
     paths = payload.get("expected_short_rate", {})
     if paths:
         target = paths.get("target")
@@ -540,10 +551,10 @@ def _print_fit(payload: dict[str, Any]) -> None:
             if year not in paths["time"]:
                 continue
             i = paths["time"].index(year)
-            cells = [f"{year:g}", f"{paths['market_consistent'][i]:.4%}", f"{paths['real_world'][i]:.4%}"]
+            cells = [f"{year:g}", fmt.percent(paths["market_consistent"][i]), fmt.percent(paths["real_world"][i])]
             if target and year in target["time"]:
                 j = target["time"].index(year)
-                cells += [f"{target['house_view'][j]:.4%}", f"{target['real_world'][j]:.4%}"]
+                cells += [fmt.percent(target["house_view"][j]), fmt.percent(target["real_world"][j])]
             elif target:
                 cells += ["", ""]
             table.add_row(*cells)
@@ -553,7 +564,8 @@ def _print_fit(payload: dict[str, Any]) -> None:
         for col in ("expiry", "tenor", "market", "model", "diff bp"):
             table.add_column(col, justify="right")
         for r in rows:
-            table.add_row(f"{r['expiry']:g}", f"{r['tenor']:g}", f"{r['market_vol']:.1f}", f"{r['model_vol']:.1f}", f"{r['vol_difference_bp']:+.2f}")
+            table.add_row(fmt.years(r["expiry"]), fmt.years(r["tenor"]), fmt.bp(r["market_vol"]), fmt.bp(r["model_vol"]),
+                          fmt.bp(r["vol_difference_bp"], 2, sign=True))
         console.print(table)
 
 
@@ -631,6 +643,7 @@ def value(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
     liabilities: Annotated[Path, typer.Option("--liabilities", help="Liability portfolio file (TOML).")],
     out: Annotated[Optional[Path], typer.Option("--out", help="Folder for the results (default RUN_DIR/valuation).")] = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace earlier valuation results (only once the new valuation has succeeded).")] = False,
 ) -> None:
     """Value liabilities with guarantees on both sets: best estimate, TVOG, reconciliation.
 
@@ -640,8 +653,8 @@ def value(
     from pqflow.liabilities import value_liabilities_cli
 
     try:
-        _verified(run_dir)
-        summary = value_liabilities_cli(run_dir, liabilities, out)
+        _verified(run_dir, valuation=False)  # earlier results are checked only if kept
+        summary = value_liabilities_cli(run_dir, liabilities, out, overwrite=overwrite)
     except PqflowError as exc:
         _fail(exc)
     currency = summary.get("currency", "")
@@ -650,7 +663,7 @@ def value(
         table.add_column(col, justify="left" if col in ("line", "quantity") else "right")
 
     def k(value: float, se: float | None = None) -> str:
-        return f"{value / 1e3:,.0f}" + ("" if se is None else f" ± {se / 1e3:,.0f}")
+        return fmt.money(value, scale=1e3) if se is None else fmt.money_se(value, se, scale=1e3)
 
     for line in summary["lines"]:
         if line.get("level") not in ("product", "total"):
@@ -661,7 +674,7 @@ def value(
             k(line["market_consistent_value"], line["market_consistent_se"]),
             k(line["certainty_equivalent_value"]), k(line["tvog"]),
             k(line["real_world_value"], line["real_world_se"]),
-            f"{line['difference_in_se']:+.2f}",
+            fmt.signed(line["difference_in_se"], 3),
         )
     console.print(table)
     products: dict[str, list[str]] = {}
@@ -690,8 +703,9 @@ def value(
     if verdict:
         colour = "green" if verdict == "agree" else "red"
         console.print(f"reconciliation of the two sets: [{colour}]{verdict.upper()}[/]", highlight=False)
-    for path in summary.get("files", []):
-        console.print(Text(f"written: {path}", style="dim"), highlight=False)
+    target = out if out is not None else run_dir / "valuation"
+    console.print(f"written to {target}: {', '.join(summary.get('files', []))} (checked by pqflow verify)",
+                  style="dim", highlight=False)
     if out is None and (run_dir / "validation" / "summary.json").is_file():
         from pqflow.report import write_report
 
@@ -703,13 +717,21 @@ def value(
 
 @app.command()
 @guarded(err_console)
-def report(run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")]) -> None:
-    """Write validation/report.html: one self-contained page with every check and plot."""
+def report(
+    run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
+    prepared_by: Annotated[Optional[str], typer.Option("--prepared-by", help="Name on the sign-off page (default: the run configuration's [signoff] prepared_by).")] = None,
+    reviewed_by: Annotated[Optional[str], typer.Option("--reviewed-by", help="Reviewer's name on the sign-off page (default: [signoff] reviewed_by).")] = None,
+) -> None:
+    """Write validation/report.html: a sign-off page, then every check, plot and table."""
     from pqflow.report import write_report
+    from pqflow.report.html import SignOff
 
     try:
+        for flag, name in (("--prepared-by", prepared_by), ("--reviewed-by", reviewed_by)):
+            if name is not None and (len(name) > 200 or any(ord(ch) < 32 for ch in name)):
+                raise PqflowError(f"{flag}: a name of at most 200 printable characters")
         _verified(run_dir)
-        path = write_report(run_dir)
+        path = write_report(run_dir, SignOff(prepared_by=prepared_by or "", reviewed_by=reviewed_by or ""))
     except PqflowError as exc:
         _fail(exc)
     console.print(Text(f"report written to {path}", style="green"), highlight=False)
@@ -727,34 +749,94 @@ def _short(cell: str) -> str:
 @app.command()
 @guarded(err_console)
 def compare(
-    run_a: Annotated[Path, typer.Argument(help="The earlier run (e.g. last quarter).")],
-    run_b: Annotated[Path, typer.Argument(help="The later run.")],
-    html: Annotated[Optional[Path], typer.Option("--html", help="Also write the comparison as an HTML page.")] = None,
-    all_rows: Annotated[bool, typer.Option("--all", help="Show unchanged items too.")] = False,
+    old_run: Annotated[Path, typer.Argument(help="The earlier run (e.g. last quarter).")],
+    new_run: Annotated[Path, typer.Argument(help="The later run.")],
+    html: Annotated[Optional[Path], typer.Option("--html", help="Also write the comparison as an HTML page with charts.")] = None,
+    all_rows: Annotated[bool, typer.Option("--all", help="Every move (and unchanged items), not only the largest.")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the comparison as JSON (for machines) instead of tables.")] = False,
+    attribute: Annotated[bool, typer.Option("--attribute", help="Step-wise attribution of the liability change (needs --liabilities, --old-config, --new-config).")] = False,
+    liabilities: Annotated[Optional[Path], typer.Option("--liabilities", help="Liability portfolio file (TOML) for --attribute.")] = None,
+    old_config: Annotated[Optional[Path], typer.Option("--old-config", help="The configuration the old run was made with (for --attribute).")] = None,
+    new_config: Annotated[Optional[Path], typer.Option("--new-config", help="The configuration the new run was made with (for --attribute).")] = None,
+    attribution_dir: Annotated[Optional[Path], typer.Option("--attribution-dir", help="Folder for the attribution's runs (default NEW_RUN-attribution beside NEW_RUN).")] = None,
 ) -> None:
-    """What moved between two runs: inputs, parameters, check results, reconciliation values."""
-    from pqflow.report import compare_runs, render_compare_text, write_compare_html
-    from pqflow.report.compare import COMPARE_COLUMNS
+    """What moved between two runs: inputs matched by meaning (moves in bp and vol points,
+    largest first), calibrated parameters, verdicts that changed, liabilities by line; with
+    --attribute, the change in best estimate and TVOG step by step."""
+    import json
 
+    from pqflow.report import compare_runs, comparison_json, summary_lines, write_compare_html
+
+    attribution = None
     try:
-        _verified(run_a)
-        _verified(run_b)
-        comparison = compare_runs(run_a, run_b)
+        _verified(old_run)
+        _verified(new_run)
+        comparison = compare_runs(old_run, new_run)
+        if attribute:
+            missing = [flag for flag, v in (("--liabilities", liabilities), ("--old-config", old_config),
+                                             ("--new-config", new_config)) if v is None]
+            if missing:
+                raise PqflowError(f"--attribute needs {', '.join(missing)}")
+            from pqflow.report.attribution import check_attribution
+
+            target = attribution_dir or new_run.parent / f"{new_run.name}-attribution"
+            check_attribution(old_run, new_run, old_config, new_config, target)  # before Prefect starts
+            from pipeline.attribution import attribute_change
+
+            (err_console if as_json else console).print(
+                f"attribution: one run and valuation per step into {target} (Prefect tasks)...", style="dim", highlight=False)
+            attribution = attribute_change(str(old_run), str(new_run), str(old_config), str(new_config),
+                                           str(liabilities), str(target))
     except PqflowError as exc:
         _fail(exc)
-    table = Table(title=Text(f"{run_a} -> {run_b}"))
-    for col in COMPARE_COLUMNS:
-        table.add_column(col, overflow="fold")
-    shown = 0
-    for row in render_compare_text(comparison):
-        if all_rows or (row[-1] not in ("", "unchanged", "=")):
-            table.add_row(*(Text(_short(cell)) for cell in row))
-            shown += 1
-    console.print(table if shown else "no differences in inputs, parameters, checks or reconciliation")
+    if as_json:
+        payload = comparison_json(comparison, everything=all_rows)
+        if attribution is not None:
+            payload["attribution"] = attribution
+        print(json.dumps(payload, indent=1, default=str))
+    else:
+        console.print(f"[bold]{old_run}[/] -> [bold]{new_run}[/]", highlight=False)
+        table = None
+        for kind, item, *cells in summary_lines(comparison, everything=all_rows):
+            if kind == "title":
+                if table is not None:
+                    console.print(table)
+                table = Table(title=None, show_edge=False, pad_edge=False, box=None, header_style="bold")
+                table.add_column(item, overflow="fold", min_width=28)
+                for col in cells:
+                    table.add_column(col, justify="right", no_wrap=True)
+            elif kind == "note":
+                if table is not None:
+                    console.print(table)
+                    table = None
+                console.print(f"  {item}", style="dim", highlight=False)
+            elif table is not None:
+                table.add_row(_short(item), *(_short(x) for x in cells))
+        if table is not None:
+            console.print(table)
+    if attribution is not None and not as_json:
+        _print_attribution(attribution)
     if html is not None:
-        path = write_compare_html(comparison, html)
-        console.print(Text(f"comparison page written to {path}", style="green"), highlight=False)
-    _caution()
+        path = write_compare_html(comparison, html, everything=all_rows, attribution=attribution)
+        (err_console if as_json else console).print(f"comparison page written to {path}", style="green", highlight=False)
+    if not as_json:
+        _caution()
+
+
+def _print_attribution(result: dict[str, Any]) -> None:
+    table = Table(title="Attribution of the change, total line (market consistent, ± SE of the paired change)")
+    for col in ("step", "best estimate", "TVOG"):
+        table.add_column(col, justify="left" if col == "step" else "right")
+    for r in result["rows"]:
+        if r["line"] == "total":
+            table.add_row(f"{r['step']}. {r['title']}", fmt.money_se(r["best_estimate_change"], r["best_estimate_se"]),
+                          fmt.money_se(r["tvog_change"], r["tvog_se"]))
+    t = result["totals"].get("total", {})
+    table.add_row("total change", fmt.money(t.get("best_estimate_total"), sign=True), fmt.money(t.get("tvog_total"), sign=True))
+    console.print(table)
+    checks = ", ".join(f"{k.replace('_', ' ')}: {'yes' if v else 'NO'}" for k, v in result.get("checks", {}).items())
+    if checks:
+        console.print(checks, style="dim", highlight=False)
 
 
 @app.command()
@@ -763,11 +845,17 @@ def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run director
     """Check every file of a run against its manifest (sizes and sha256)."""
     from pqflow.storage.manifest import verify_run
 
+    from pqflow.storage.valuation_files import verify_valuation
+
     try:
         manifest = verify_run(run_dir)
+        valuation = verify_valuation(run_dir)
     except PqflowError as exc:
         _fail(exc)
-    console.print(Text(f"{run_dir}: {len(manifest['files'])} files match manifest.json", style="green"))
+    console.print(f"{run_dir}: {len(manifest['files'])} files match manifest.json", style="green", markup=False)
+    if valuation is not None:
+        console.print(f"{run_dir / 'valuation'}: {len(valuation['files'])} files match its manifest.json "
+                      "and belong to this run", style="green", markup=False)
 
 
 @app.command()

@@ -94,5 +94,7 @@ def apply_overrides(
 
 def config_hash(config: RunConfig) -> str:
     """sha256 of the validated configuration in canonical JSON: equal runs, equal hashes."""
-    canon = json.dumps(config.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
+    data = config.model_dump(mode="json")
+    data.pop("signoff", None)  # names for the report's sign-off page: not an input of the run
+    canon = json.dumps(data, sort_keys=True, separators=(",", ":"))
     return hashlib.sha256(canon.encode("utf-8")).hexdigest()

@@ -19,6 +19,7 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, PrivateAttr,
 
 __all__ = [
     "RunSection",
+    "SignoffSection",
     "CurveSection",
     "MarketDataSection",
     "CurveExtrapolationSection",
@@ -83,6 +84,14 @@ class RunSection(_Section):
     name: str = Field(min_length=1, max_length=80, pattern=r"^[A-Za-z0-9_.\-]+$")
     valuation_date: _Date
     description: str = ""
+
+
+class SignoffSection(_Section):
+    """Names printed on the report's sign-off page (``pqflow report --prepared-by/--reviewed-by``
+    override them); recorded in the manifest, not used by any computation."""
+
+    prepared_by: str = Field(default="", max_length=200, pattern=r"^[^\x00-\x1f]*$")
+    reviewed_by: str = Field(default="", max_length=200, pattern=r"^[^\x00-\x1f]*$")
 
 
 class CurveSection(_Section):
@@ -659,6 +668,7 @@ class RunConfig(_Section):
     #: G2++ the driver name ``rates`` stands for both rate drivers.
     density_blocks: dict[str, list[str]] | None = None
     sensitivities: list[SensitivitySection] = Field(default_factory=list, max_length=50)
+    signoff: SignoffSection | None = None
 
     _base_dir: Path = PrivateAttr(default=Path("."))
 

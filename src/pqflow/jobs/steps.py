@@ -379,6 +379,8 @@ def write_run_manifest(
         "caution": CAUTION,
         **(extra_header or {}),
     }
+    if config.signoff is not None:  # names for the report's sign-off page
+        header["signoff"] = config.signoff.model_dump(mode="json")
     manifest = build_manifest(run_dir, header=header)
     by_path = {f["path"]: f for f in manifest["files"]}
     for rec in parts:

@@ -10,8 +10,7 @@
 
 from __future__ import annotations
 
-import shutil
-
+import datetime as dt
 from pathlib import Path
 from typing import Any
 
@@ -23,13 +22,20 @@ from pqflow.liabilities.valuation import RunInfo, SetValuation, check_portfolio_
 from pqflow.storage.jsonio import write_json_atomic
 from pqflow.storage.parquet import file_sha256
 from pqflow.storage.results import write_result_tables
+from pqflow.storage.rundir import discard_staging, run_lock
+from pqflow.storage.valuation_files import (
+    VALUATION_MANIFEST,
+    check_valuation_target,
+    fresh_valuation_staging,
+    publish_valuation_files,
+    run_manifest_sha256,
+)
 
 __all__ = [
     "VALUATION_DIR",
     "RESULT_TABLES",
     "default_out_dir",
     "publish_valuation",
-    "publish_sensitivities",
     "value_liabilities_cli",
     "valuation_table_rows",
 ]
@@ -39,18 +45,33 @@ RESULT_TABLES = ("liability_values", "liability_cash_flows")
 
 
 def default_out_dir(run_dir: str | Path) -> Path:
-    """``run_dir/valuation``: beside the run's files, outside its manifest (which it leaves as is)."""
+    """``run_dir/valuation``: beside the run's files, outside the run's manifest (which it leaves
+    as is), with a manifest of its own."""
     return Path(run_dir) / VALUATION_DIR
 
 
 def publish_valuation(
-    portfolio: Portfolio, info: RunInfo, mc: SetValuation, rw: SetValuation, out_dir: str | Path
+    portfolio: Portfolio, info: RunInfo, mc: SetValuation, rw: SetValuation, out_dir: str | Path,
+    *, overwrite: bool = False, sensitivities: Any = None,
 ) -> dict[str, Any]:
-    """Write ``liability_values`` and ``liability_cash_flows`` (Parquet and CSV) and
-    ``summary.json`` to ``out_dir``; return the summary (with the files written)."""
+    """Write ``liability_values`` and ``liability_cash_flows`` (Parquet and CSV),
+    ``summary.json`` and the valuation manifest to ``out_dir``; return the summary.
+    ``sensitivities``: the table of :func:`pqflow.liabilities.sensitivities.value_sensitivities`
+    (BE, guarantee and TVOG per sensitivity and line, the change from the base and its paired
+    and independent-sets standard errors), written beside them as ``sensitivities`` with its
+    totals in the summary.
+
+    The same rules as a run (:mod:`pqflow.storage.valuation_files`): written in a staging
+    folder under a lock and published by rename, so a failure leaves earlier results as they
+    were; earlier results are replaced only with ``overwrite``. Paths in the summary are
+    relative to ``out_dir`` (``files``) or bare file names (``portfolio_file``, ``run_dir``).
+    """
+    out = Path(out_dir)
     results = results_frame(mc, rw)
     summary = valuation_summary(portfolio, info, mc, rw, results)
     source = Path(portfolio.source)
+    summary["portfolio_file"] = source.name
+    summary["run_dir"] = Path(info.run_dir).name
     summary["portfolio_sha256"] = file_sha256(source) if source.is_file() else None
     summary["pqflow_version"] = __version__
     metadata = {
@@ -61,19 +82,40 @@ def publish_valuation(
         "pqflow.run_id": info.run_id or "",
         "pqflow.caution": summary["caution"],
     }
-    files = write_result_tables(
-        out_dir,
-        {"liability_values": results, "liability_cash_flows": cash_flow_frame(mc, rw)},
-        metadata=metadata,
-    )
-    files["summary.json"] = str(Path(out_dir) / "summary.json")
-    summary["files"] = files
-    write_json_atomic(Path(out_dir) / "summary.json", summary)
+    header = {
+        "run_id": info.run_id,
+        "run_manifest_sha256": run_manifest_sha256(info.run_dir),
+        "portfolio_file": source.name,
+        "portfolio_sha256": summary["portfolio_sha256"],
+        "created_utc": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
+        "pqflow_version": __version__,
+        "caution": summary["caution"],
+    }
+    with run_lock(out):
+        check_valuation_target(out, overwrite)
+        staging = fresh_valuation_staging(out)
+        try:
+            tables = {"liability_values": results, "liability_cash_flows": cash_flow_frame(mc, rw)}
+            if sensitivities is not None:
+                tables["sensitivities"] = sensitivities
+                summary["sensitivities"] = sensitivity_summary(sensitivities)
+                summary["sensitivities_note"] = (
+                    "change = sensitivity - base on the same scenarios (common random numbers); change_se_paired "
+                    "from the paired differences, change_se_independent = sqrt(SE_base^2 + SE_sensitivity^2), "
+                    "what independently seeded sets would give; values are plain means"
+                )
+            written = write_result_tables(staging, tables, metadata=metadata)
+            summary["files"] = {name: name for name in [*written, "summary.json", VALUATION_MANIFEST]}
+            write_json_atomic(staging / "summary.json", summary)
+            publish_valuation_files(staging, out, header=header, overwrite=overwrite)
+        except BaseException:
+            discard_staging(staging)
+            raise
     return summary
 
 
 def value_liabilities_cli(
-    run_dir: str | Path, liabilities_path: str | Path, out_dir: str | Path | None = None
+    run_dir: str | Path, liabilities_path: str | Path, out_dir: str | Path | None = None, *, overwrite: bool = False
 ) -> dict[str, Any]:
     """Value the portfolio in ``liabilities_path`` on both sets of the run in ``run_dir``.
 
@@ -82,35 +124,12 @@ def value_liabilities_cli(
     Raises ``LiabilityDataError`` (a ``PqflowError``) on a bad portfolio, before any file is
     written.
     """
+    out = Path(out_dir) if out_dir is not None else default_out_dir(run_dir)
+    check_valuation_target(out, overwrite)  # refused before anything is valued
     portfolio = load_portfolio(liabilities_path)
     info = inspect_run(run_dir)
     check_portfolio_against_run(portfolio, info)
     mc = value_run(run_dir, portfolio, "market_consistent")
     rw = value_run(run_dir, portfolio, "real_world")
     sens = value_sensitivities(run_dir, portfolio, info) if sensitivity_names(run_dir) else None
-    target = Path(out_dir) if out_dir is not None else default_out_dir(run_dir)
-    existed = target.exists()
-    try:
-        summary = publish_valuation(portfolio, info, mc, rw, target)
-        return publish_sensitivities(sens, summary, target) if sens is not None else summary
-    except BaseException:  # disk full, interrupted: a folder this call created is not left half-written
-        if not existed:
-            shutil.rmtree(target, ignore_errors=True)
-        raise
-
-
-def publish_sensitivities(table: Any, summary: dict[str, Any], out_dir: str | Path) -> dict[str, Any]:
-    """Write ``sensitivities`` (Parquet and CSV: BE, guarantee and TVOG per sensitivity and line,
-    the change from the base and its paired and independent-sets standard errors) beside the
-    valuation, and add the totals to its ``summary.json``; return the summary."""
-    files = write_result_tables(out_dir, {"sensitivities": table}, metadata={"pqflow.version": __version__})
-    summary = dict(summary)
-    summary["sensitivities"] = sensitivity_summary(table)
-    summary["sensitivities_note"] = (
-        "change = sensitivity - base on the same scenarios (common random numbers); change_se_paired from the "
-        "paired differences, change_se_independent = sqrt(SE_base^2 + SE_sensitivity^2), what independently "
-        "seeded sets would give"
-    )
-    summary["files"] = {**summary.get("files", {}), **files}
-    write_json_atomic(Path(out_dir) / "summary.json", summary)
-    return summary
+    return publish_valuation(portfolio, info, mc, rw, out, overwrite=overwrite, sensitivities=sens)

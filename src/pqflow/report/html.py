@@ -1,17 +1,26 @@
 """The run's evidence pack as one self-contained HTML page: ``validation/report.html``.
 
 Everything shown is read from the run's own files (``manifest.json``, ``calibration.json``,
-``validation/*.csv``, ``validation/summary.json`` and the scenario parts); nothing is
-recomputed from the model. The page has no script, no external reference (plots are inline
-SVG drawn by :mod:`pqflow.report.svg`, styles inline) and opens offline. It is a derived view:
-the manifest neither lists nor checks it (:data:`pqflow.storage.manifest.DERIVED_VIEWS`), so it
-may be written, or rewritten, after the run was published. It is written atomically.
+``validation/*.csv``, ``validation/summary.json``, ``valuation/summary.json`` and the scenario
+parts); nothing is recomputed from the model. The page has no script, no external reference
+(plots are inline SVG drawn by :mod:`pqflow.report.svg`, styles inline) and opens offline; its
+only links are to the page's own sections and to the run's CSV tables beside it. Numbers are
+formatted by :mod:`pqflow.report.numbers` (one rule for the report, the terminal and compare).
+
+The page opens with a sign-off page (:func:`_signoff`): the run in one line, every verdict and
+warning, key inputs and outputs, the usable horizon of each density and the prepared-by /
+reviewed-by fields; it prints on one A4 page (``@media print``). It is a derived view: the
+manifest neither lists nor checks it (:data:`pqflow.storage.manifest.DERIVED_VIEWS`), so it may
+be written, or rewritten, after the run was published. It is written atomically.
 """
 
 from __future__ import annotations
 
+import datetime as dt
 import math
 import os
+from collections.abc import Callable
+from dataclasses import dataclass
 from html import escape
 from pathlib import Path
 from typing import Any
@@ -21,20 +30,31 @@ import pandas as pd
 
 from pqflow import CAUTION, __version__
 from pqflow.errors import IntegrityError
+from pqflow.report import numbers as fmt
 from pqflow.report import svg
 from pqflow.storage.jsonio import read_json
 from pqflow.validation.martingale import bond_maturity_of
 from pqflow.validation.reader import ScenarioSetReader
 from pqflow.validation.run_files import gather_at_times
 
-__all__ = ["write_report", "build_report_html", "REPORT_NAME", "SECTIONS", "write_html_atomic", "page"]
+__all__ = [
+    "write_report",
+    "build_report_html",
+    "REPORT_NAME",
+    "SECTIONS",
+    "SignOff",
+    "write_html_atomic",
+    "page",
+]
 
 REPORT_NAME = "report.html"
 SECTIONS = (
+    ("signoff", "Sign-off summary"),
     ("identity", "Run identity"),
-    ("verdicts", "Verdicts"),
+    ("verdicts", "Verdicts and warnings"),
+    ("curve", "Today's curve"),
     ("calibration", "Calibration"),
-    ("scenarios", "Scenario fan charts"),
+    ("scenarios", "Scenarios by driver"),
     ("martingale", "Martingale test"),
     ("density", "Density weights"),
     ("market-consistency", "Market consistency"),
@@ -44,87 +64,150 @@ SECTIONS = (
 )
 MEASURES = ("market_consistent", "real_world")
 _FAN_POINTS = 120  # at most this many output times per fan chart (a long monthly grid is thinned)
+_TABLE_HORIZONS = (1.0, 5.0, 10.0, 20.0, 30.0, 50.0, 100.0)
+_CURVE_MATURITIES = (1.0, 5.0, 10.0, 20.0, 30.0, 50.0)
 MEASURE_NAME = {"market_consistent": "market consistent (Q)", "real_world": "real world (P)"}
 
 CSS = """
 body{font:14px/1.45 system-ui,-apple-system,'Segoe UI',sans-serif;color:#1d1d1f;margin:0;background:#f6f6f4}
 main{max-width:1100px;margin:0 auto;padding:16px 24px 40px}
-h1{font-size:24px;margin:8px 0 4px}h2{font-size:19px;border-bottom:2px solid #1f5f8b;padding-bottom:4px;margin-top:34px}
+h1{font-size:22px;margin:8px 0 4px}h2{font-size:19px;border-bottom:2px solid #1f5f8b;padding-bottom:4px;margin-top:34px}
 h3{font-size:15px;margin:18px 0 6px}
-.caution{background:#fff6d6;border:1px solid #d9b441;border-left:6px solid #d9b441;padding:10px 14px;margin:12px 0}
+.caution{background:#fff6d6;border:1px solid #d9b441;border-left:6px solid #d9b441;padding:8px 14px;margin:10px 0;font-size:13px}
 table{border-collapse:collapse;margin:6px 0 12px;background:#fff;font-size:12.5px}
 th,td{border:1px solid #ddd;padding:3px 8px;text-align:right;vertical-align:top}
 th{background:#eef2f5;text-align:center}td.l,th.l{text-align:left}
+td.num{font-variant-numeric:tabular-nums;white-space:nowrap}
 .badge{display:inline-block;min-width:64px;text-align:center;border-radius:10px;padding:1px 9px;
 font:bold 11px/18px sans-serif;letter-spacing:.05em;text-transform:uppercase;color:#fff}
 .badge.pass{background:#2e7d32}.badge.fail{background:#c62828}.badge.na{background:#8a8a8a}
-.badge.info{background:#1f5f8b}.badge.warn{background:#b26a00}
+.badge.inconclusive{background:#d08a00}.badge.info{background:#fff;color:#1f5f8b;border:1px solid #1f5f8b}
 .grid{display:grid;grid-template-columns:repeat(auto-fill,minmax(480px,1fr));gap:10px}
+.pair{display:grid;grid-template-columns:minmax(0,1fr) minmax(0,1fr);gap:10px;margin-bottom:10px}
 .chart{background:#fff;border:1px solid #e3e3e3}
-.note{color:#555;font-size:12.5px}ul.warn li{color:#8a4b00}
-nav a{margin-right:12px}
+.note{color:#555;font-size:12.5px}ul.warn li{color:#8a4b00}ul.warn{margin:4px 0 8px}
+nav a{margin-right:12px}a.csv{font-size:12px;margin-right:10px}
+.files{margin:2px 0 8px}.files:before{content:"Tables: ";color:#555;font-size:12px}
+.signoff{background:#fff;border:1px solid #ccd;padding:6px 16px 10px;margin-top:10px}
+.signoff h2{margin-top:8px}.signoff h3{margin:10px 0 4px;font-size:14px}
+.signoff table{font-size:12px;margin:4px 0 6px}
+.cols{display:grid;grid-template-columns:1fr 1fr;gap:0 18px}
+.oneline{font-size:13px;margin:4px 0}
+.sign td{height:26px;min-width:200px}
+.verdict-line{font-size:15px;margin:6px 0}
+details.all-rows summary{cursor:pointer;color:#1f5f8b;font-size:12.5px;margin:2px 0 10px}
+@media print{
+ @page{size:A4;margin:11mm 11mm 14mm;@bottom-center{content:"__CAUTION__";font:7pt sans-serif;color:#555}}
+ body{background:#fff;font-size:11px}main{max-width:none;padding:0}
+ nav{display:none}
+ .signoff{border:none;padding:0;break-after:page;page-break-after:always;font-size:10.5px}
+ .signoff table{font-size:10px}.signoff th,.signoff td{padding:1px 5px}
+ .signoff h3{margin:6px 0 2px;font-size:12px}
+ table,.chart,.pair,svg,figure,.caution{break-inside:avoid;page-break-inside:avoid}
+ .grid,.pair{grid-template-columns:minmax(0,1fr) minmax(0,1fr)}
+ td.num{white-space:normal}table{max-width:100%}svg{max-width:100%}
+ h2{break-after:avoid;page-break-after:avoid;margin-top:14px}h3,h4{break-after:avoid;page-break-after:avoid}
+ section{break-before:auto}
+ .badge{-webkit-print-color-adjust:exact;print-color-adjust:exact}
+ a{color:inherit;text-decoration:none}
+ details.all-rows,a.csv,.files{display:none}
+}
 """
+
+
+@dataclass(frozen=True, kw_only=True)
+class SignOff:
+    """Names on the sign-off page (from the command line or the run configuration's
+    ``[signoff]`` table); an empty name leaves a blank line to sign on paper."""
+
+    prepared_by: str = ""
+    reviewed_by: str = ""
 
 
 # -- small HTML helpers -------------------------------------------------------------------
 
+_BADGE_TEXT = {"pass": "pass", "fail": "fail", "inconclusive": "inconclusive"}
+
+
 def _badge(verdict: str | None, counts: bool = True) -> str:
-    v = (verdict or "not_applicable").lower()
-    cls = {"pass": "pass", "fail": "fail"}.get(v, "na")
-    text = {"pass": "pass", "fail": "fail"}.get(v, "n/a")
-    extra = "" if counts else ' <span class="badge info" title="reported; not part of the run verdict">reported</span>'
-    return f'<span class="badge {cls}">{text}</span>{extra}'
+    """One badge: pass (green), inconclusive (amber), fail (red), n/a (grey). A result that is
+    reported but does not count toward the verdict gets one outlined "info" badge that says
+    whether it was met, never a red FAIL beside it."""
+    v = str(verdict or "not_applicable").lower()
+    if not counts:
+        said = {"pass": "met", "fail": "missed", "inconclusive": "unclear"}.get(v, "n/a")
+        return (f'<span class="badge info" title="reported; not part of the run verdict">'
+                f"info: {said}</span>")
+    cls = v if v in _BADGE_TEXT else "na"
+    return f'<span class="badge {cls}">{_BADGE_TEXT.get(v, "n/a")}</span>'
 
 
 def _num(v: Any, digits: int = 4) -> str:
-    if v is None:
-        return "–"
-    if isinstance(v, (bool, np.bool_)):
-        return "yes" if v else "no"
-    if isinstance(v, (int, np.integer)):
-        return f"{int(v):,}"
-    try:
-        x = float(v)
-    except (TypeError, ValueError):
-        return escape(str(v))
-    if not math.isfinite(x):
-        return "–"
-    if x == 0:
-        return "0"
-    if abs(x) >= 1e5 or abs(x) < 1e-4:
-        return f"{x:.{digits}e}"
-    return f"{x:.{digits}g}" if abs(x) < 1 else f"{x:,.{max(digits - 2, 2)}f}"
+    """Any other number: ``digits`` significant digits, never an exponent (see numbers)."""
+    if isinstance(v, str):
+        return escape(v)
+    return escape(fmt.number(v, digits))
 
 
-def _pct(v: Any) -> str:
-    return "–" if v is None or not math.isfinite(float(v)) else f"{100 * float(v):.3f}%"
+def _cell(text: str, *, left: bool = False) -> str:
+    return f'<td class="{"l" if left else "num"}">{text}</td>'
 
 
-def _table(rows: list[dict[str, Any]], columns: list[tuple[str, str]], *, fmt: dict[str, Any] | None = None) -> str:
-    """``columns``: (key, header); ``fmt``: key -> formatter (default :func:`_num`)."""
-    fmt = fmt or {}
+def _table(rows: list[dict[str, Any]], columns: list[tuple[str, str]], *,
+           fmts: dict[str, Callable[[dict[str, Any]], str]] | None = None) -> str:
+    """``columns``: (key, header); ``fmts``: key -> function of the whole row giving the cell's
+    HTML (default: strings escaped and left-aligned, numbers by :func:`_num`)."""
+    fmts = fmts or {}
     head = "".join(f'<th class="{"l" if i == 0 else ""}">{escape(h)}</th>' for i, (_, h) in enumerate(columns))
     body = []
     for r in rows:
         cells = []
         for i, (k, _) in enumerate(columns):
             v = r.get(k)
-            f = fmt.get(k)
-            text = f(v) if f else (escape(str(v)) if isinstance(v, str) else _num(v))
-            cells.append(f'<td class="{"l" if i == 0 or isinstance(v, str) else ""}">{text}</td>')
+            if k in fmts:
+                cells.append(_cell(fmts[k](r), left=i == 0 or isinstance(v, str)))
+            elif isinstance(v, str):
+                cells.append(_cell(escape(v), left=True))
+            else:
+                cells.append(_cell(_num(v), left=i == 0))
         body.append("<tr>" + "".join(cells) + "</tr>")
     return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
+def _long_table(rows: list[dict[str, Any]], shown: list[dict[str, Any]], columns: list[tuple[str, str]], *,
+                fmts: dict[str, Callable[[dict[str, Any]], str]] | None = None, what: str = "rows") -> str:
+    """A table of ``shown`` (the rows a reviewer reads first) and, folded below it, every row;
+    the folded table is not printed, so the printed pack stays short and its tables unbroken."""
+    if len(shown) >= len(rows):
+        return _table(rows, columns, fmts=fmts)
+    return (_table(shown, columns, fmts=fmts)
+            + f'<details class="all-rows"><summary>All {len(rows)} {escape(what)}</summary>'
+            + _table(rows, columns, fmts=fmts) + "</details>")
+
+
 def _kv(pairs: list[tuple[str, Any]]) -> str:
+    """Two-column table of names and values (strings escaped, numbers by :func:`_num`)."""
+    def val(v: Any) -> str:
+        return escape(v) if isinstance(v, str) else _num(v)
+
     return "<table>" + "".join(
-        f'<tr><th class="l">{escape(k)}</th><td class="l">{_num(v) if not isinstance(v, str) else escape(v)}</td></tr>'
-        for k, v in pairs) + "</table>"
+        f'<tr><th class="l">{escape(k)}</th><td class="l">{val(v)}</td></tr>' for k, v in pairs) + "</table>"
 
 
 def _csv(run_dir: Path, name: str) -> pd.DataFrame | None:
     path = run_dir / "validation" / f"{name}.csv"
     return pd.read_csv(path) if path.is_file() else None
+
+
+def _files(run_dir: Path, names: list[str]) -> str:
+    """Links to the run's tables behind a section (paths relative to ``validation/``)."""
+    links = []
+    for name in names:
+        path = (run_dir / "validation" / name).resolve() if not name.startswith("../") else \
+            (run_dir / name[3:]).resolve()
+        if path.is_file():
+            links.append(f'<a class="csv" href="{escape(name)}">{escape(name.removeprefix("../"))}</a>')
+    return f'<p class="files">{"".join(links)}</p>' if links else ""
 
 
 def _records(frame: pd.DataFrame | None) -> list[dict[str, Any]]:
@@ -134,13 +217,23 @@ def _records(frame: pd.DataFrame | None) -> list[dict[str, Any]]:
             for r in frame.to_dict(orient="records")]
 
 
+def _caution_box() -> str:
+    return f'<div class="caution"><strong>Caution.</strong> {escape(CAUTION)}</div>'
+
+
+def _css_string(text: str) -> str:
+    """``text`` safe inside a double-quoted CSS string in a <style> element."""
+    return "".join(ch if ch.isalnum() or ch in " .,;:-()'" else f"\\{ord(ch):x} " for ch in text)
+
+
 def page(title: str, body: str) -> str:
-    """A whole self-contained page with the caution at the top and the bottom."""
-    caution = f'<div class="caution"><strong>Caution.</strong> {escape(CAUTION)}</div>'
+    """A whole self-contained page with the caution at the top and the bottom (and, printed,
+    at the foot of every page)."""
+    caution = _caution_box()
     return (
         "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">"
         f"<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\"><title>{escape(title)}</title>"
-        f"<style>{CSS}</style></head><body><main>"
+        f"<style>{CSS.replace('__CAUTION__', _css_string('Caution: ' + CAUTION))}</style></head><body><main>"
         f'<section id="caution-top">{caution}</section>'
         f"{body}"
         f'<section id="caution-bottom">{caution}</section>'
@@ -162,32 +255,82 @@ def write_html_atomic(path: str | Path, html: str) -> Path:
     return path
 
 
-# -- sections -------------------------------------------------------------------------------
+def _grid(charts: list[str]) -> str:
+    return '<div class="grid">' + "".join(charts) + "</div>" if charts else ""
+
+
+def _pair(key: str, charts: list[str]) -> str:
+    """The Q and P panels of one quantity side by side (they share the y-axis)."""
+    return f'<div class="pair" data-quantity="{escape(key)}">' + "".join(charts) + "</div>"
+
+
+def _span(*arrays: Any) -> tuple[float, float]:
+    vals = np.concatenate([np.ravel(np.asarray(a, dtype=float)) for a in arrays if a is not None])
+    vals = vals[np.isfinite(vals)]
+    return (float(vals.min()), float(vals.max())) if vals.size else (0.0, 1.0)
+
+
+def _rate_axis(v: float) -> str:
+    """Axis ticks of a rate: round percentages without trailing zeros (``2.5%``, ``-5%``)."""
+    if abs(v) < 1e-12:
+        return "0%"
+    text = fmt.percent(round(float(v), 12), 3)[:-1]
+    return (text.rstrip("0").rstrip(".") if "." in text else text) + "%"
+
+
+# -- what the run is ----------------------------------------------------------------------------
 
 def _per_set(value: Any) -> str:
     """``{"real_world": 2000, ...}`` as "real world 2,000 · market consistent 2,000"."""
     if isinstance(value, dict):
-        return " · ".join(f"{m.replace('_', ' ')} {v:,}" if isinstance(v, int) else f"{m.replace('_', ' ')} {v:g}"
+        return " · ".join(f"{m.replace('_', ' ')} {fmt.number(v) if isinstance(v, int) else fmt.years(v)}"
                           for m, v in value.items())
-    return "–" if value is None else f"{value:,}" if isinstance(value, int) else str(value)
+    return fmt.DASH if value is None else fmt.number(value)
+
+
+def _short(text: Any) -> str:
+    t = str(text or "")
+    return t[:12] if len(t) >= 32 else t or fmt.DASH
+
+
+def _one_line(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any]) -> str:
+    """The run's identity in one line."""
+    m = manifest or {}
+    scen = m.get("scenarios")
+    scen_text = (" + ".join(fmt.count(v) for v in scen.values()) + " scenarios (Q + P)") if isinstance(scen, dict) \
+        else ""
+    horizon = m.get("horizon_years")
+    h = max(horizon.values()) if isinstance(horizon, dict) and horizon else None
+    parts = [
+        f"<strong>{escape(str(m.get('run_name', run_dir.name)))}</strong>",
+        f"valuation date {escape(str(cal.get('valuation_date', fmt.DASH)))}",
+        f"run {escape(_short(m.get('run_id')))}" if m else "manifest not written yet",
+        f"created {escape(str(m.get('created_utc', fmt.DASH)).replace('T', ' ').replace('+00:00', ' UTC'))}" if m else "",
+        f"configuration {escape(_short(m.get('config_sha256')))}" if m else "",
+        f"seed {escape(str((m.get('seeds') or {}).get('root_seed', fmt.DASH)))}" if m else "",
+        escape(scen_text) if scen_text else "",
+        f"{fmt.years(h)} years" if h is not None else "",
+        f"pqflow {escape(str(m.get('pqflow_version', cal.get('pqflow_version', '?'))))}",
+    ]
+    return '<p class="oneline">' + " · ".join(p for p in parts if p) + "</p>"
 
 
 def _identity(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any]) -> str:
     if manifest is None:
         pairs: list[tuple[str, Any]] = [
             ("manifest", "not written yet: identity from calibration.json only"),
-            ("valuation date", cal.get("valuation_date", "–")),
+            ("valuation date", str(cal.get("valuation_date", fmt.DASH))),
         ]
     else:
         seeds = manifest.get("seeds", {})
         pairs = [
-            ("run name", manifest.get("run_name", "–")),
-            ("run id", manifest.get("run_id", "–")),
-            ("valuation date", manifest.get("valuation_date", "–")),
-            ("created (UTC)", manifest.get("created_utc", "–")),
-            ("configuration sha256", manifest.get("config_sha256", "–")),
-            ("root seed", str(seeds.get("root_seed", "–"))),
-            ("seed scheme", seeds.get("scheme", "–")),
+            ("run name", str(manifest.get("run_name", fmt.DASH))),
+            ("run id", str(manifest.get("run_id", fmt.DASH))),
+            ("valuation date", str(manifest.get("valuation_date", fmt.DASH))),
+            ("created (UTC)", str(manifest.get("created_utc", fmt.DASH))),
+            ("configuration sha256", str(manifest.get("config_sha256", fmt.DASH))),
+            ("root seed", str(seeds.get("root_seed", fmt.DASH))),
+            ("seed scheme", str(seeds.get("scheme", fmt.DASH))),
             ("scenarios per set", _per_set(manifest.get("scenarios"))),
             ("output times", _per_set(manifest.get("output_times"))),
             ("horizon (years)", _per_set(manifest.get("horizon_years"))),
@@ -196,93 +339,380 @@ def _identity(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any
                          f"numpy {manifest.get('numpy', '?')}, pyarrow {manifest.get('pyarrow', '?')}"),
             ("files in manifest", len(manifest.get("files", []))),
         ]
-    pairs.append(("calibration inputs sha256", cal.get("inputs_sha256", "–")))
+    pairs.append(("calibration inputs sha256", str(cal.get("inputs_sha256", fmt.DASH))))
     return _kv(pairs)
 
 
-def _verdicts(summary: dict[str, Any]) -> str:
+# -- verdicts and warnings --------------------------------------------------------------------
+
+def _check_figure(c: dict[str, Any]) -> str:
+    """The key number of a check: its largest |z| against the family limit, and what is
+    inconclusive."""
+    bits = []
+    if fmt.is_number(c.get("max_abs_z")):
+        bits.append(f"max |z| {fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}")
+    if c.get("inconclusive_cells"):
+        when = c.get("inconclusive_from_time")
+        bits.append(f"{fmt.count(c['inconclusive_cells'])} cells inconclusive"
+                    + (f" from t = {fmt.years(when)}" if fmt.is_number(when) else ""))
+    return "; ".join(bits) or fmt.DASH
+
+
+def _densities(summary: dict[str, Any], manifest: dict[str, Any] | None) -> list[dict[str, Any]]:
+    """Usable horizon of each density: from ``summary["densities"]`` when the run has it; an
+    older run without it gets the time its ESS fell below the warning share, marked as such."""
+    horizon = None
+    if manifest and isinstance(manifest.get("horizon_years"), dict) and manifest["horizon_years"]:
+        horizon = max(manifest["horizon_years"].values())
     rows = []
-    for name, c in summary.get("checks", {}).items():
+    if isinstance(summary.get("densities"), list):
+        for d in summary["densities"]:
+            usable = d.get("usable_horizon")
+            rows.append({
+                "density": f"{d.get('column', '')}, {MEASURE_NAME.get(d.get('measure'), d.get('measure'))} set",
+                "block": d.get("block") or "full density",
+                "usable": ("to the horizon" if usable is None else f"to t = {fmt.years(usable)} years"),
+                "limited": usable is not None,
+                "ess": fmt.share(d.get("ess_share_at_horizon")),
+                "max_w": fmt.share(d.get("max_weight_share_at_horizon")),
+            })
+        return rows
+    for measure in MEASURES:
+        c = (summary.get("checks") or {}).get(f"density_{measure}")
+        if not c:
+            continue
+        below = c.get("ess_below_warning_from_time")
+        at = c.get("at_horizon") or {}
+        col = "q_density" if measure == "real_world" else "p_density"
+        rows.append({
+            "density": f"{col}, {MEASURE_NAME[measure]} set",
+            "block": "full density",
+            "usable": ("not assessed in this run; ESS above "
+                       f"{fmt.share(c.get('ess_warning_share'), 0)} throughout" if below is None else
+                       f"not assessed in this run; ESS below "
+                       f"{fmt.share(c.get('ess_warning_share'), 0)} from t = {fmt.years(below)}"),
+            "limited": below is not None and (horizon is None or below < horizon),
+            "ess": fmt.share(at.get("ess_share")),
+            "max_w": fmt.share(at.get("max_weight_share")),
+        })
+    return rows
+
+
+def _warnings(summary: dict[str, Any], valuation: dict[str, Any] | None) -> list[str]:
+    out: list[str] = []
+    for name, c in (summary.get("checks") or {}).items():
+        for w in c.get("warnings", []) or []:
+            for m in MEASURES:  # "real_world: ..." reads as "real world (P): ..."
+                w = w.replace(f"{m}:", f"{MEASURE_NAME[m]}:")
+            out.append(str(w))
+        if c.get("verdict") == "inconclusive":
+            out.append(f"{name.replace('_', ' ')} is inconclusive: {_check_figure(c)}")
+    inc = summary.get("inconclusive")
+    if isinstance(inc, dict) and inc.get("cells"):
+        when = inc.get("from_time")
+        out.append(f"{fmt.count(inc['cells'])} cells cannot be judged"
+                   + (f" from t = {fmt.years(when)}" if fmt.is_number(when) else "")
+                   + (f" ({', '.join(map(str, inc.get('checks') or []))})" if inc.get("checks") else ""))
+    for d in summary.get("densities", []) if isinstance(summary.get("densities"), list) else []:
+        if d.get("usable_horizon") is not None:
+            out.append(f"density {d.get('column')} ({MEASURE_NAME.get(d.get('measure'), d.get('measure'))}"
+                       f"{', ' + str(d['block']) if d.get('block') else ''}) usable only to "
+                       f"t = {fmt.years(d['usable_horizon'])} years")
+    if valuation:
+        rec = valuation.get("reconciliation") or {}
+        if rec.get("verdict") == "differ":
+            out.append(f"liability valuation: market-consistent and deflated real-world values differ "
+                       f"(worst {rec.get('worst_line')}: {fmt.zscore(rec.get('max_abs_difference_in_se'))} SE)")
+    return out
+
+
+def _verdict_rows(summary: dict[str, Any]) -> list[tuple[str, str, str, str]]:
+    """(check anchor name, label, figure, badge) for every check and informational result."""
+    rows = []
+    for name, c in (summary.get("checks") or {}).items():
+        counts = c.get("counts_toward_verdict", True)
+        rows.append((name, name.replace("_", " "), _check_figure(c), _badge(c.get("verdict"), counts)))
+        bench = c.get("wealth_ratio_benchmark")
+        if isinstance(bench, dict) and "verdict" in bench:
+            rows.append((name, "equity wealth ratios vs 2005 benchmark",
+                         f"{fmt.count(bench.get('failed'))} of {fmt.count(bench.get('comparisons'))} percentiles missed",
+                         _badge(bench.get("verdict"), bench.get("counts_toward_verdict", False))))
+    return rows
+
+
+def _verdicts(run_dir: Path, summary: dict[str, Any], valuation: dict[str, Any] | None) -> str:
+    rows = []
+    for name, c in (summary.get("checks") or {}).items():
         counts = c.get("counts_toward_verdict", True)
         rows.append(
             f'<tr><td class="l"><a href="#check-{escape(name)}">{escape(name.replace("_", " "))}</a></td>'
-            f'<td class="l">{escape(str(c.get("kind", "")))}</td><td>{_num(c.get("cells"))}</td>'
-            f'<td>{_num(c.get("max_abs_z"), 3)} / {_num(c.get("family_critical_z"), 3)}</td>'
+            f'<td class="l">{escape(str(c.get("kind", "")))}</td><td class="num">{_num(c.get("cells"))}</td>'
+            f'<td class="num">{escape(_check_figure(c))}</td>'
             f"<td>{_badge(c.get('verdict'), counts)}</td></tr>"
         )
         bench = c.get("wealth_ratio_benchmark")
         if isinstance(bench, dict):
             rows.append(
-                f'<tr><td class="l">&nbsp;&nbsp;wealth-ratio benchmark</td><td class="l">'
-                f'{escape(str(bench.get("source", "")))}</td><td>{_num(bench.get("comparisons"))}</td>'
-                f'<td>{_num(bench.get("failed"))} missed</td>'
+                f'<tr><td class="l">&nbsp;&nbsp;equity wealth ratios (2005 benchmark)</td><td class="l">'
+                f'{escape(str(bench.get("source", "")))}</td><td class="num">{_num(bench.get("comparisons"))}</td>'
+                f'<td class="num">{escape(fmt.count(bench.get("failed")))} missed</td>'
                 f'<td>{_badge(bench.get("verdict"), bench.get("counts_toward_verdict", False))}</td></tr>'
             )
-    warnings = [w for c in summary.get("checks", {}).values() for w in c.get("warnings", []) or []]
+    power = [{"check": name.replace("_", " "),
+              "deviation": (fmt.number(c["material_deviation"]) if fmt.is_number(c.get("material_deviation"))
+                            else str(c.get("material_deviation") if c.get("material_deviation") is not None else fmt.DASH)),
+              "rule": str(c.get("power_rule") or fmt.DASH)}
+             for name, c in (summary.get("checks") or {}).items() if c.get("power_rule") or c.get("material_deviation") is not None]
+    power_html = ("<h3>What each check can detect</h3>" + _table(
+        power, [("check", "check"), ("deviation", "material deviation"), ("rule", "power rule")],
+        fmts={k: (lambda r, k=k: escape(r[k])) for k in ("check", "deviation", "rule")})) if power else ""
+    warnings = _warnings(summary, valuation)
     warn_html = ("<h3>Warnings</h3><ul class=\"warn\">" + "".join(f"<li>{escape(w)}</li>" for w in warnings)
-                 + "</ul>") if warnings else ""
+                 + "</ul>") if warnings else '<p class="note">No warnings.</p>'
     return (
-        f"<p>Overall verdict: {_badge(summary.get('verdict'))}</p>"
+        f"<p class=\"verdict-line\">Overall verdict: {_badge(summary.get('verdict'))}</p>"
         f"<p class=\"note\">{escape(str(summary.get('rule', '')))}</p>"
+        + warn_html +
         "<table><thead><tr><th class=\"l\">check</th><th class=\"l\">what it tests</th><th>cells</th>"
-        "<th>max |z| / limit</th><th>verdict</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>"
-        + warn_html
+        "<th>key figure</th><th>verdict</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>"
+        '<p class="note">Three states: <span class="badge pass">pass</span> the data show no deviation; '
+        '<span class="badge inconclusive">inconclusive</span> the data cannot tell (too few effective '
+        'paths, too little power); <span class="badge fail">fail</span> a deviation beyond the rule. '
+        '<span class="badge info">info: met</span> marks results reported beside the verdict.</p>'
+        + power_html + _files(run_dir, ["summary.json"])
     )
 
 
-def _schedule_text(v: Any, fmt=_num) -> str:
+# -- today's curve ------------------------------------------------------------------------------
+
+def _curve_object(cal: dict[str, Any]) -> Any:
+    try:
+        from pqflow.market.serialize import curve_from_json
+
+        return curve_from_json(cal["parameters"]["curve"])
+    except (KeyError, TypeError, ValueError):
+        return None
+
+
+def _curve_facts(cal: dict[str, Any]) -> dict[str, Any]:
+    """Zero rates at standard maturities, the UFR, the last liquid point, the method."""
+    curve = _curve_object(cal)
+    cfit = (cal.get("fit") or {}).get("curve") or {}
+    par = (cal.get("parameters") or {}).get("curve") or {}
+    zeros = {}
+    if curve is not None:
+        for m in _CURVE_MATURITIES:
+            if m <= float(curve.max_maturity):
+                zeros[m] = float(-np.log(curve.discount(m)) / m)
+    ufr = cfit.get("ufr", par.get("ultimate_forward_rate"))
+    method = cfit.get("method") or par.get("description") or par.get("kind") or "typed-in curve"
+    return {"curve": curve, "zeros": zeros, "ufr": ufr, "omega": cfit.get("omega"),
+            "llp": cfit.get("last_liquid_point"), "alpha": cfit.get("alpha", par.get("alpha")),
+            "method": str(method), "convergence_point": cfit.get("convergence_point"),
+            "gap_bp": cfit.get("gap_to_omega_bp"), "repricing": cfit.get("max_repricing_error")}
+
+
+def _curve_section(cal: dict[str, Any]) -> str:
+    facts = _curve_facts(cal)
+    curve = facts["curve"]
+    if curve is None:
+        return '<p class="note">No curve in calibration.json.</p>'
+    end = float(curve.max_maturity)
+    top = min(end, 120.0)
+    t = np.linspace(0.25, top, 240)
+    zero = -np.log(curve.discount(t)) / t
+    fwd = np.asarray(curve.forward(t), dtype=float)
+    hl, vl = [], []
+    if fmt.is_number(facts["omega"]):
+        hl.append((float(facts["omega"]), f"UFR {fmt.percent(facts['ufr'], 2)} annual = "
+                                          f"{fmt.percent(facts['omega'], 3)} continuous"))
+    if fmt.is_number(facts["llp"]):
+        vl.append((float(facts["llp"]), f"last liquid point {fmt.years(facts['llp'])}y"))
+    if fmt.is_number(facts["convergence_point"]) and float(facts["convergence_point"]) <= top:
+        vl.append((float(facts["convergence_point"]), f"convergence {fmt.years(facts['convergence_point'])}y"))
+    chart = svg.line_chart(
+        title="Today's curve: zero rate and instantaneous forward (continuously compounded)",
+        series=[svg.Series(label="zero (spot) rate", x=t, y=zero, colour=svg.PALETTE[0]),
+                svg.Series(label="instantaneous forward", x=t, y=fwd, colour=svg.PALETTE[1], dashed=True)],
+        hlines=hl, vlines=vl, y_label="rate", x_label="maturity (years)", y_format=_rate_axis,
+    )
+    pairs = [("method", facts["method"])]
+    if fmt.is_number(facts["ufr"]):
+        pairs.append(("ultimate forward rate", f"{fmt.percent(facts['ufr'], 2)} annually compounded"))
+    if fmt.is_number(facts["llp"]):
+        pairs.append(("last liquid point", f"{fmt.years(facts['llp'])} years"))
+    if fmt.is_number(facts["alpha"]):
+        pairs.append(("convergence speed alpha", fmt.number(facts["alpha"], 4)))
+    if fmt.is_number(facts["gap_bp"]):
+        pairs.append(("forward at the convergence point vs UFR",
+                      f"{fmt.bp(facts['gap_bp'], 2, sign=True)} at {fmt.years(facts['convergence_point'])} years"))
+    if fmt.is_number(facts["repricing"]):
+        pairs.append(("largest repricing error of the inputs", fmt.number(facts["repricing"])))
+    zeros = [{"m": f"{fmt.years(m)}y", "z": fmt.percent(z), "f": fmt.percent(float(curve.forward(m)))}
+             for m, z in facts["zeros"].items()]
+    ztable = _table(zeros, [("m", "maturity"), ("z", "zero rate"), ("f", "forward")],
+                    fmts={"m": lambda r: escape(r["m"]), "z": lambda r: escape(r["z"]), "f": lambda r: escape(r["f"])})
+    return (f'<div class="grid"><div>{chart}</div><div>{_kv(pairs)}{ztable}</div></div>'
+            + _files_cal())
+
+
+def _files_cal() -> str:
+    return '<p class="files"><a class="csv" href="../calibration.json">calibration.json</a></p>'
+
+
+# -- calibrated parameters -----------------------------------------------------------------------
+
+def _sched_text(v: Any, show: Callable[[Any], str]) -> str:
     if isinstance(v, dict) and "knots" in v:
-        vals = v.get("values", [])
-        if len(vals) <= 8:
-            return ", ".join(f"from {k:g}y: {fmt(x)}" for k, x in zip(v["knots"], vals))
-        return f"{len(vals)} pieces, from {fmt(min(vals))} to {fmt(max(vals))} (first {fmt(vals[0])}, last {fmt(vals[-1])})"
-    return fmt(v)
+        vals = list(v.get("values", []))
+        if not vals:
+            return fmt.DASH
+        if len(vals) <= 6:
+            return ", ".join(f"{show(x)} from {fmt.years(k)}y" for k, x in zip(v["knots"], vals))
+        return (f"{show(vals[0])} at 0y to {show(vals[-1])} at {float(v['knots'][-1]):.0f}y "
+                f"({len(vals)} pieces between {show(min(vals))} and {show(max(vals))})")
+    return show(v)
 
 
-def _calibration(cal: dict[str, Any]) -> tuple[str, list[str]]:
-    par = cal.get("parameters", {})
-    hw, eq = par.get("hull_white", {}), par.get("equity", {})
-    mpr = par.get("market_prices_of_risk", {})
-    curve = par.get("curve", {})
+def _key_parameters(cal: dict[str, Any]) -> list[dict[str, str]]:
+    """Calibrated parameters with their fit error, one row per model part."""
+    par, fit = cal.get("parameters") or {}, cal.get("fit") or {}
+    rows: list[dict[str, str]] = []
     if "g2pp" in par:
         g = par["g2pp"]
-        rates_pairs = [("rates model", "G2++ (two factors)"), ("G2++ a, sigma (rates_x)", f"{g['a']:.6g}, {g['sigma']:.6g}"),
-                       ("G2++ b, eta (rates_y)", f"{g['b']:.6g}, {g['eta']:.6g}"), ("G2++ rho", g["rho"])]
-    else:
-        rates_pairs = [("Hull-White mean reversion a", hw.get("mean_reversion")),
-                       ("Hull-White volatility sigma", hw.get("volatility"))]
-    pairs = [
-        ("curve", curve.get("description", curve.get("interpolation", curve.get("kind", "–")))),
-        *rates_pairs,
-        ("equity index", eq.get("name", "–")),
-        ("equity level", eq.get("level")),
-        ("dividend yield", eq.get("dividend_yield")),
-        ("equity volatility", _schedule_text(eq.get("volatility"))),
-        ("equity / short-rate correlation", eq.get("correlation_with_rates")),
-        ("price of risk, rates", _schedule_text(mpr.get("rates"))),
-        ("price of risk, equity", _schedule_text(mpr.get("equity"))),
-    ]
-    rw = cal.get("inputs", {}).get("real_world", {})
-    if "equity_risk_premium" in rw:
-        pairs.append(("equity risk premium (input)", rw.get("equity_risk_premium")))
-    for item in par.get("indices", []):
-        pairs.append((f"{item['kind']} index {item['name']}: level, income yield, risk premium",
-                      f"{item['level']:g}, {item['income_yield']:.4g}, {item['risk_premium']:.4g}"))
-        pairs.append((f"{item['name']} volatility", _schedule_text(item.get("volatility"))))
+        f = fit.get("g2pp") or {}
+        rows.append({"part": "rates, G2++",
+                     "values": f"a {fmt.plain(g.get('a'))}, σ {fmt.bp(1e4 * g.get('sigma', float('nan')), 1)}, "
+                               f"b {fmt.plain(g.get('b'))}, η {fmt.bp(1e4 * g.get('eta', float('nan')), 1)}, "
+                               f"ρ {fmt.plain(g.get('rho'), 3)}",
+                     "fit": (f"swaption RMSE {fmt.bp(f['rmse_bp'], 2)} normal vol" if "rmse_bp" in f else "typed in")})
+    elif "hull_white" in par:
+        hw = par["hull_white"]
+        f = fit.get("hull_white") or {}
+        n = len(f.get("rows") or [])
+        rows.append({"part": "rates, Hull-White",
+                     "values": f"a {fmt.plain(hw.get('mean_reversion'))}, σ {fmt.bp(1e4 * float(hw.get('volatility', 'nan')), 1)} "
+                               "(normal, per year)",
+                     "fit": (f"swaption RMSE {fmt.bp(f['rmse_bp'], 2)} normal vol over {n} quotes"
+                             if "rmse_bp" in f else "typed in")})
+    eq = par.get("equity") or {}
+    if eq:
+        f = fit.get("equity") or {}
+        rows.append({"part": f"equity {eq.get('name', '')}",
+                     "values": f"level {fmt.plain(eq.get('level'), 6)}, dividend yield {fmt.percent(eq.get('dividend_yield'), 2)}, "
+                               f"vol {_sched_text(eq.get('volatility'), fmt.vol_points)} pts",
+                     "fit": (f"max vol error {fmt.vol_points(f['max_abs_vol_error'])} pts"
+                             if "max_abs_vol_error" in f else "typed in")})
+    ifit = fit.get("indices") or {}
+    for item in par.get("indices", []) or []:
+        f = ifit.get(item.get("name")) or {}
+        rows.append({"part": f"{item.get('kind', 'index')} {item.get('name', '')}",
+                     "values": f"level {fmt.plain(item.get('level'), 6)}, income yield {fmt.percent(item.get('income_yield'), 2)}, "
+                               f"vol {_sched_text(item.get('volatility'), fmt.vol_points)} pts, "
+                               f"risk premium {fmt.percent(item.get('risk_premium'), 2)}",
+                     "fit": (f"max vol error {fmt.vol_points(f['max_abs_vol_error'])} pts"
+                             if "max_abs_vol_error" in f else "typed in")})
     if "inflation" in par:
-        inf = par["inflation"]
-        pairs.append(("inflation (Jarrow-Yildirim): a_r, sigma_r, sigma_I",
-                      f"{inf['real_mean_reversion']:g}, {inf['real_volatility']:g}, {inf['inflation_volatility']:g}"))
-        pairs.append(("CPI at time 0; real bonds written", f"{inf['cpi_base']:g}; {inf['real_bond_maturities']}"))
-    for r in (par.get("credit") or {}).get("ratings", []):
-        c = r["cir"]
-        pairs.append((f"credit {r['name']}: recovery, CIR (kappa, mu, nu, y0), theta",
-                      f"{r['recovery']:g}, ({c['mean_reversion']:.4g}, {c['long_run_mean']:.4g}, {c['volatility']:.4g}, "
-                      f"{c['initial']:.4g}), {r['price_of_risk']:g}"))
+        inf, f = par["inflation"], fit.get("inflation") or {}
+        caps = f.get("caps") or {}
+        fit_text = []
+        if "max_abs_difference_bp" in f:
+            fit_text.append(f"swaps repriced to {fmt.bp(f['max_abs_difference_bp'], 2)}")
+        if "price_rmse_bp" in caps:
+            fit_text.append(f"caps/floors RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional")
+        rows.append({"part": "inflation, Jarrow-Yildirim",
+                     "values": f"a_r {fmt.plain(inf.get('real_mean_reversion'))}, σ_r {fmt.bp(1e4 * float(inf.get('real_volatility', 'nan')), 1)}, "
+                               f"σ_I {fmt.vol_points(inf.get('inflation_volatility'))} pts",
+                     "fit": "; ".join(fit_text) or "typed in"})
+    cfits = {r.get("rating"): r for r in ((fit.get("credit") or {}).get("ratings") or [])}
+    for r in ((par.get("credit") or {}).get("ratings") or []):
+        c, f = r.get("cir") or {}, cfits.get(r.get("name")) or {}
+        rows.append({"part": f"credit {r.get('name')}, CIR++",
+                     "values": f"κ {fmt.plain(c.get('mean_reversion'))}, μ {fmt.percent(c.get('long_run_mean'), 2)}, "
+                               f"ν {fmt.plain(c.get('volatility'))}, y0 {fmt.percent(c.get('initial'), 2)}, "
+                               f"recovery {fmt.share(r.get('recovery'), 0)}",
+                     "fit": (f"spreads repriced to {fmt.bp(f['max_abs_error_bp'], 2)}" if "max_abs_error_bp" in f else "typed in")})
+    mpr = par.get("market_prices_of_risk") or {}
+    if mpr:
+        rows.append({"part": "real world: prices of risk",
+                     "values": f"rates {_sched_text(mpr.get('rates'), lambda x: fmt.plain(x, 3))}; "
+                               f"equity {_sched_text(mpr.get('equity'), lambda x: fmt.plain(x, 3))}",
+                     "fit": "from the house view"})
+    return rows
+
+
+_RATE_WORDS = ("rate", "spread", "hazard", "shift", "yield", "return")
+
+
+def _column_format(col: str, *, vols_in_bp: bool = False) -> Callable[[Any], str]:
+    """The formatter of a table column by what its name says it holds (numbers module rules)."""
+    c = col.lower()
+    if c in ("expiry", "tenor", "maturity", "horizon", "time", "t", "convergence_point", "last_liquid_point",
+             "bucket_ends") or c.endswith("_years"):
+        return fmt.years
+    if "correlation" in c or "variance" in c or c in ("alpha", "weight", "feller_ratio"):
+        return lambda v: fmt.plain(v, 4)
+    if "premium" in c or c in ("ufr", "omega", "initial") or c.endswith("long_run_mean"):
+        return fmt.percent
+    if c.endswith("_bp"):
+        return lambda v: fmt.bp(v, 2)
+    if c in ("market_vol", "model_vol", "mc_implied_vol"):
+        return (lambda v: fmt.bp(v, 1)) if vols_in_bp else fmt.vol_points
+    if c == "vol_error":
+        return lambda v: fmt.vol_points(v) + (" pts" if fmt.is_number(v) and abs(float(v)) >= fmt.TINY else "")
+    if c.startswith("z") or c.endswith("z_score") or c.startswith("z_"):
+        return fmt.zscore
+    if any(w in c for w in _RATE_WORDS) and "price" not in c:
+        return fmt.percent
+    if "price" in c or "value" in c or "factor" in c or "annuity" in c:
+        return lambda v: fmt.number(v, 6)
+    if c in ("policies", "cells", "rows", "comparisons"):
+        return fmt.count
+    return lambda v: fmt.number(v, 4)
+
+
+def _fit_table(rows: list[dict[str, Any]], *, vols_in_bp: bool) -> str:
+    cols = [k for k in rows[0].keys() if not isinstance(rows[0][k], (list, dict))
+            and any(r.get(k) is not None for r in rows)]  # a column empty in every row says nothing
+    fmts = {}
+    for k in cols:
+        f = _column_format(k, vols_in_bp=vols_in_bp)
+        if k == "strike" and all(fmt.is_number(r.get(k)) and abs(float(r[k])) < 1 for r in rows):
+            f = fmt.percent  # a rate strike (caps, floors); index strikes are levels
+        fmts[k] = (lambda r, k=k, f=f: escape(str(r.get(k))) if isinstance(r.get(k), str) else escape(f(r.get(k))))
+    return _table(rows, [(k, k.replace("_", " ")) for k in cols], fmts=fmts)
+
+
+def _fit_scalar(key: str, v: Any) -> str:
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, str):
+        return v
+    if isinstance(v, list):
+        if all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in v) and v:
+            f = _column_format(key)
+            if "volatilities" in key:
+                f = fmt.vol_points
+            return ", ".join(f(x) for x in v) if len(v) <= 12 else f"{len(v)} values (see calibration.json)"
+        return ", ".join(map(str, v)) if len(v) <= 12 else f"{len(v)} values (see calibration.json)"
+    if isinstance(v, dict):
+        return "(see calibration.json)"
+    if key in ("ufr", "omega", "forward_at_convergence"):
+        return fmt.percent(v)
+    if key in ("max_repricing_error", "max_abs_vol_error"):
+        return fmt.number(v) if key == "max_repricing_error" else fmt.vol_points(v) + " pts"
+    return _column_format(key)(v)
+
+
+def _calibration(cal: dict[str, Any]) -> str:
+    html = ["<h3>Calibrated parameters and fit</h3>",
+            _table(_key_parameters(cal), [("part", "part"), ("values", "parameters"), ("fit", "fit error")],
+                   fmts={k: (lambda r, k=k: escape(r[k])) for k in ("part", "values", "fit")})]
+    par = cal.get("parameters") or {}
     if "driver_correlation" in par:
         dc = par["driver_correlation"]
-        pairs.append(("drivers (correlation matrix in calibration.json)", ", ".join(dc["drivers"])))
-    html = ["<h3>Parameters</h3>", _kv(pairs)]
+        html.append(f'<p class="note">Drivers (correlation matrix in calibration.json): '
+                    f'{escape(", ".join(map(str, dc.get("drivers", []))))}.</p>')
     charts: list[str] = []
     fits: list[tuple[str, Any]] = []
     for name, fit in (cal.get("fit") or {}).items():
@@ -296,77 +726,183 @@ def _calibration(cal: dict[str, Any]) -> tuple[str, list[str]]:
     for name, fit in fits:
         if not isinstance(fit, dict):
             continue
+        vols_in_bp = name in ("hull_white", "g2pp")
         html.append(f"<h3>Fit: {escape(name.replace('_', ' '))}</h3>")
-        scalars = [(k, v if not isinstance(v, (list, dict)) else ", ".join(map(str, v)) if isinstance(v, list) and len(v) <= 12 else None)
-                   for k, v in fit.items() if k != "rows"]
-        html.append(_kv([(k.replace("_", " "), v if v is not None else "(see file)") for k, v in scalars]))
-        rows = fit.get("rows")
-        if isinstance(rows, list) and rows and isinstance(rows[0], dict):
-            cols = [(k, k.replace("_", " ")) for k in rows[0].keys()]
-            html.append(_table(rows, cols))
-            if "vol_difference_bp" in rows[0]:
-                labels = [f"{r.get('expiry', 0):g}x{r.get('tenor', 0):g}" for r in rows]
-                charts.append(svg.bar_chart(
-                    title=f"Calibration fit, {name.replace('_', ' ')}: model - market vol (bp)",
-                    labels=labels, values=[r["vol_difference_bp"] for r in rows], y_label="bp of vol"))
-            elif "vol_error" in rows[0]:
-                labels = [f"{r.get('expiry', 0):g}y" for r in rows]
-                charts.append(svg.bar_chart(
-                    title=f"Calibration fit, {name.replace('_', ' ')}: model - market vol (bp of vol)",
-                    labels=labels, values=[1e4 * float(r["vol_error"]) for r in rows], y_label="bp of vol"))
+        scalars = [(k.replace("_", " "), _fit_scalar(k, v)) for k, v in fit.items() if k not in ("rows", "caps")]
+        html.append(_kv(scalars))
+        for rows_key in ("rows",):
+            rows = fit.get(rows_key)
+            if isinstance(rows, list) and rows and isinstance(rows[0], dict):
+                err = next((k for k in ("vol_error", "difference_bp", "error_bp") if k in rows[0]), None)
+                exact = err is not None and all(fmt.is_number(r.get(err)) and abs(float(r[err])) < 1e-8 for r in rows)
+                if exact:  # a bootstrap that reprices every quote: the rows are reference, folded
+                    html.append(f'<details class="all-rows"><summary>All {len(rows)} quotes, each repriced exactly '
+                                f"(largest error &lt; 1e-10)</summary>{_fit_table(rows, vols_in_bp=vols_in_bp)}</details>")
+                else:
+                    html.append(_fit_table(rows, vols_in_bp=vols_in_bp))
+                charts += _fit_chart(name, rows)
+        caps = fit.get("caps")
+        if isinstance(caps, dict) and isinstance(caps.get("rows"), list) and caps["rows"]:
+            html.append("<h3>Fit: year-on-year caps and floors</h3>")
+            html.append(_kv([(k.replace("_", " "), _fit_scalar(k, v)) for k, v in caps.items() if k != "rows"]))
+            html.append(_fit_table(caps["rows"], vols_in_bp=False))
     if not cal.get("fit"):
         html.append('<p class="note">No fit record in calibration.json (parameters typed in).</p>')
-    if charts:
-        html.append('<div class="grid">' + "".join(charts) + "</div>")
-    return "".join(html), charts
+    html.append(_grid(charts))
+    html.append(_files_cal())
+    return "".join(html)
 
 
-def _fan_data(run_dir: Path) -> dict[str, dict[str, Any]]:
-    out: dict[str, dict[str, Any]] = {}
-    for measure in MEASURES:
-        reader = ScenarioSetReader(run_dir=run_dir, measure=measure)
-        names = reader.column_names()
-        bonds = sorted((bond_maturity_of(c), c) for c in names if bond_maturity_of(c) is not None)
-        equity = [c for c in names if c.startswith("equity_")]
-        cols = ["short_rate", *([bonds[-1][1]] if bonds else []), *equity[:1]]
-        grid, _ = next(reader.iter_arrays(["short_rate"]))
-        keep = np.unique(np.r_[np.arange(0, grid.size, max(1, -(-grid.size // _FAN_POINTS))), grid.size - 1])
-        times, data = gather_at_times(reader, cols, grid[keep].tolist())
-        pcts = (1, 5, 25, 50, 75, 95, 99)
-        item: dict[str, Any] = {"times": times.tolist(), "quantities": {}}
+def _fit_chart(name: str, rows: list[dict[str, Any]]) -> list[str]:
+    """Model - market by instrument; a bootstrap that reprices exactly gets a sentence, not a
+    chart of rounding noise."""
+    if "vol_difference_bp" in rows[0]:
+        labels = [f"{fmt.years(r.get('expiry', 0))}x{fmt.years(r.get('tenor', 0))}" for r in rows]
+        values = [float(r["vol_difference_bp"]) for r in rows]
+        unit, title = "bp of normal vol", f"Calibration fit, {name.replace('_', ' ')}: model - market vol (bp)"
+    elif "vol_error" in rows[0]:
+        labels = [f"{fmt.years(r.get('expiry', 0))}y" for r in rows]
+        values = [100.0 * float(r["vol_error"]) for r in rows]
+        unit, title = "vol points", f"Calibration fit, {name.replace('_', ' ')}: model - market vol (points)"
+    else:
+        return []
+    if max(abs(v) for v in values) < 1e-8:
+        return [f'<p class="note">{escape(title)}: every quote repriced exactly (largest error &lt; 1e-10).</p>']
+    return [svg.bar_chart(title=title, labels=labels, values=values, y_label=unit, min_span=0.5)]
 
-        def q(values: np.ndarray) -> dict[float, list[float]]:
-            return {p: v.tolist() for p, v in zip(pcts, np.percentile(values, pcts, axis=0))}
 
-        item["quantities"]["short rate"] = q(data["short_rate"])
-        if bonds:
-            m, c = bonds[-1]
-            item["quantities"][f"{m:g}-year zero yield"] = q(-np.log(data[c]) / m)
-        if equity:
-            item["quantities"][f"{equity[0]} (total return)"] = q(data[equity[0]])
-        out[measure] = item
+# -- scenarios by driver -----------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class _Driver:
+    group: str
+    label: str
+    columns: tuple[str, ...]
+    kind: str  # "rate" (shown in %), "level" (log axis), "index" (linear)
+    transform: Callable[[dict[str, np.ndarray]], np.ndarray]
+
+
+def _drivers(names: list[str]) -> list[_Driver]:
+    """Every modelled driver of a set, grouped by asset class, from its column names."""
+    out: list[_Driver] = []
+    have = set(names)
+    bonds = sorted((bond_maturity_of(c), c) for c in names if bond_maturity_of(c) is not None)
+    if "short_rate" in have:
+        out.append(_Driver("Nominal rates", "short rate", ("short_rate",), "rate", lambda d: d["short_rate"]))
+    if bonds:
+        m, c = bonds[-1]
+        out.append(_Driver("Nominal rates", f"{fmt.years(m)}-year zero yield", (c,), "rate",
+                           lambda d, c=c, m=m: -np.log(d[c]) / m))
+    for c in names:
+        if c.startswith("equity_"):
+            out.append(_Driver("Equity", f"{c[len('equity_'):]} (total return index)", (c,), "level",
+                               lambda d, c=c: d[c]))
+    for c in names:
+        if c.startswith("property_"):
+            out.append(_Driver("Property", f"{c[len('property_'):]} (total return index)", (c,), "level",
+                               lambda d, c=c: d[c]))
+    if "cpi" in have:
+        out.append(_Driver("Inflation and real rates", "CPI", ("cpi",), "level", lambda d: d["cpi"]))
+    if "real_short_rate" in have:
+        out.append(_Driver("Inflation and real rates", "real short rate", ("real_short_rate",), "rate",
+                           lambda d: d["real_short_rate"]))
+    reals = sorted((float(c[len("real_zcb_"):-1]), c) for c in names
+                   if c.startswith("real_zcb_") and c.endswith("y") and c[len("real_zcb_"):-1].replace(".", "").isdigit())
+    if reals:
+        m, c = reals[-1]
+        out.append(_Driver("Inflation and real rates", f"{fmt.years(m)}-year real zero yield", (c,), "rate",
+                           lambda d, c=c, m=m: -np.log(d[c]) / m))
+    for c in names:
+        if c.startswith("intensity_"):
+            rating = c[len("intensity_"):]
+            out.append(_Driver("Credit", f"{rating} default intensity", (c,), "rate", lambda d, c=c: d[c]))
+            spreads = sorted((float(s.rsplit("_", 1)[1][:-1]), s) for s in names
+                             if s.startswith(f"spread_{rating}_") and s.endswith("y")
+                             and s.rsplit("_", 1)[1][:-1].replace(".", "").isdigit())
+            if spreads:
+                m, s = spreads[-1]
+                out.append(_Driver("Credit", f"{rating} {fmt.years(m)}-year credit spread", (s,), "rate",
+                                   lambda d, s=s: d[s]))
     return out
 
 
+_PCTS = (1, 5, 25, 50, 75, 95, 99)
+
+
+def _fan_data(run_dir: Path) -> tuple[list[_Driver], dict[str, dict[str, Any]]]:
+    """Percentiles of every driver at (at most :data:`_FAN_POINTS`) output times, per set."""
+    data: dict[str, dict[str, Any]] = {}
+    drivers: list[_Driver] | None = None
+    for measure in MEASURES:
+        reader = ScenarioSetReader(run_dir=run_dir, measure=measure)
+        names = reader.column_names()
+        mine = _drivers(names)
+        drivers = mine if drivers is None else [d for d in drivers if d.label in {x.label for x in mine}]
+        cols = list(dict.fromkeys(c for d in mine for c in d.columns))
+        grid, _ = next(reader.iter_arrays(["short_rate"] if "short_rate" in names else cols[:1]))
+        keep = np.unique(np.r_[np.arange(0, grid.size, max(1, -(-grid.size // _FAN_POINTS))), grid.size - 1])
+        wanted = sorted(set(grid[keep].tolist()) | {t for t in _TABLE_HORIZONS if t <= grid[-1]})
+        times, values = gather_at_times(reader, cols, wanted)
+        item: dict[str, Any] = {"times": times, "quantities": {}}
+        for d in mine:
+            x = d.transform(values)
+            item["quantities"][d.label] = dict(zip(_PCTS, np.percentile(x, _PCTS, axis=0)))
+        data[measure] = item
+    return drivers or [], data
+
+
+def _percentile_table(driver: _Driver, data: dict[str, dict[str, Any]]) -> str:
+    """Percentiles at chosen horizons, the Q set's block beside the P set's (never interleaved)."""
+    show = fmt.percent if driver.kind == "rate" else (lambda v: fmt.number(v, 4))
+    times = data[MEASURES[0]]["times"]
+    horizons = [t for t in _TABLE_HORIZONS if np.any(np.isclose(times, t))]
+    if times.size and float(times[-1]) not in horizons:
+        horizons.append(float(times[-1]))
+    pcts = (1, 5, 50, 95, 99)
+    head = ('<tr><th class="l" rowspan="2">year</th>' + "".join(
+        f'<th colspan="{len(pcts)}">{escape(MEASURE_NAME[m])}</th>' for m in MEASURES) + "</tr><tr>"
+        + "".join(f"<th>{p}%</th>" for _ in MEASURES for p in pcts) + "</tr>")
+    body = []
+    for h in horizons:
+        cells = []
+        for m in MEASURES:
+            tm = data[m]["times"]
+            idx = np.flatnonzero(np.isclose(tm, h))
+            q = data[m]["quantities"].get(driver.label)
+            for p in pcts:
+                cells.append(_cell(escape(show(float(q[p][idx[0]]))) if idx.size and q is not None else fmt.DASH))
+        body.append(f'<tr><td class="l">{fmt.years(h)}</td>{"".join(cells)}</tr>')
+    return f"<table><thead>{head}</thead><tbody>{''.join(body)}</tbody></table>"
+
+
 def _scenarios(run_dir: Path) -> str:
-    data = _fan_data(run_dir)
-    charts = []
-    names = list(next(iter(data.values()))["quantities"])
-    for qname in names:
+    drivers, data = _fan_data(run_dir)
+    html = ['<p class="note">Percentile bands 1-99%, 5-95%, 25-75% and the median at each output time, '
+            "each set under its own measure (unweighted). The market-consistent (Q) and real-world (P) "
+            "panels of one driver share their y-axis. Rates are continuously compounded; index levels "
+            "are drawn on a logarithmic axis. Every path is in the scenario files "
+            "(<code>pqflow export RUN --measure ...</code>).</p>"]
+    group = None
+    for d in drivers:
+        if d.group != group:
+            group = d.group
+            html.append(f'<h3 class="group">{escape(group)}</h3>')
+        lo, hi = _span(*[data[m]["quantities"][d.label][p] for m in MEASURES for p in (1, 99)])
+        charts = []
         for i, measure in enumerate(MEASURES):
             item = data[measure]
-            is_rate = "rate" in qname or "yield" in qname
             charts.append(svg.fan_chart(
-                title=f"{qname}, {MEASURE_NAME[measure]}", times=item["times"],
-                percentiles=item["quantities"][qname], colour=svg.PALETTE[i],
-                y_label="continuously compounded" if is_rate else "index level (log scale)",
-                y_format=(lambda v: f"{100 * v:.1f}%") if is_rate else svg._fmt_default,
-                log_y=not is_rate,
+                title=f"{d.label}, {MEASURE_NAME[measure]}", times=item["times"],
+                percentiles={p: v for p, v in item["quantities"][d.label].items()}, colour=svg.PALETTE[i],
+                y_label="rate" if d.kind == "rate" else "level (log scale)" if d.kind == "level" else "level",
+                y_format=_rate_axis if d.kind == "rate" else svg._fmt_default,
+                log_y=d.kind == "level", y_range=(lo, hi),
             ))
-    return ('<p class="note">Percentile bands 1-99%, 5-95%, 25-75% and the median at each output '
-            "time, each set under its own measure (unweighted).</p>"
-            '<div class="grid">' + "".join(charts) + "</div>")
+        html.append(f"<h4>{escape(d.label)}</h4>" + _pair(d.label, charts) + _percentile_table(d, data))
+    return "".join(html)
 
+
+# -- checks ------------------------------------------------------------------------------------
 
 def _martingale(run_dir: Path, summary: dict[str, Any]) -> str:
     table = _csv(run_dir, "martingale")
@@ -375,16 +911,17 @@ def _martingale(run_dir: Path, summary: dict[str, Any]) -> str:
         c = summary.get("checks", {}).get(f"martingale_{measure}", {})
         html.append(f'<h3 id="check-martingale_{measure}">{escape(MEASURE_NAME[measure])} '
                     f"{_badge(c.get('verdict'))}</h3>")
+        worst = c.get("worst_cell") or {}
         html.append(_kv([
-            ("cells", c.get("cells")), ("outside 95% / by chance", f"{c.get('outside_95')} / {_num(c.get('expected_outside_95_by_chance'), 3)}"),
-            ("outside 99% / by chance", f"{c.get('outside_99')} / {_num(c.get('expected_outside_99_by_chance'), 3)}"),
-            ("max |z| / family limit", f"{_num(c.get('max_abs_z'), 3)} / {_num(c.get('family_critical_z'), 3)}"),
-            ("worst cell", ", ".join(f"{k} {v}" for k, v in (c.get("worst_cell") or {}).items())),
+            ("cells", fmt.count(c.get("cells"))),
+            ("outside 95% / by chance", f"{fmt.count(c.get('outside_95'))} / {fmt.number(c.get('expected_outside_95_by_chance'), 3)}"),
+            ("outside 99% / by chance", f"{fmt.count(c.get('outside_99'))} / {fmt.number(c.get('expected_outside_99_by_chance'), 3)}"),
+            ("max |z| / family limit", f"{fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}"),
+            ("worst cell", ", ".join(f"{k} {fmt.zscore(v) if k == 'z_score' else fmt.number(v, 6) if not isinstance(v, str) else v}"
+                                     for k, v in worst.items())),
         ]))
-        if table is None:
-            continue
-        t = table[table["measure"] == measure]
-        assets = list(dict.fromkeys(t["asset"]))
+    if table is not None:
+        assets = list(dict.fromkeys(table["asset"]))
         bonds = sorted((bond_maturity_of(a), a) for a in assets if bond_maturity_of(a) is not None)
         chosen = ["deflator", *[a for a in assets if a.startswith(("equity_", "property_"))]]
         chosen += [b for _, b in bonds[:1]] + ([b for _, b in bonds[-1:]] if len(bonds) > 1 else [])
@@ -394,25 +931,30 @@ def _martingale(run_dir: Path, summary: dict[str, Any]) -> str:
             if a.startswith("dzcb_"):
                 longest_by_rating[a[len("dzcb_"):].rsplit("_", 1)[0]] = a
         chosen += list(longest_by_rating.values())
-        z = float(c.get("family_critical_z", 2.58) or 2.58)
-        charts = []
+        html.append('<p class="note">Mean deflated price over today\'s price by time, with the band '
+                    "1 ± z SE at the family limit; Q and P panels of one asset share the y-axis.</p>")
         for a in chosen:
-            s = t[t["asset"] == a]
-            x = s["time"].to_numpy()
-            r = s["ratio"].to_numpy()
-            se = s["ratio_std_error"].to_numpy()
-            charts.append(svg.line_chart(
-                title=f"{a}: mean deflated / today's price, {MEASURE_NAME[measure]}",
-                series=[svg.Series(label="ratio", x=x, y=r, colour=svg.PALETTE[0])],
-                bands=[svg.Band(label=f"1 +- {z:.2f} SE", x=x, lower=1 - z * se, upper=1 + z * se,
-                                colour=svg.PALETTE[2], opacity=0.25)],
-                hlines=[(1.0, "1")], y_label="ratio",
-            ))
-        html.append('<div class="grid">' + "".join(charts) + "</div>")
+            subs = {m: table[(table["measure"] == m) & (table["asset"] == a)] for m in MEASURES}
+            zs = {m: float(summary.get("checks", {}).get(f"martingale_{m}", {}).get("family_critical_z", 2.58) or 2.58)
+                  for m in MEASURES}
+            lo, hi = _span(*[np.r_[s["ratio"].to_numpy(), 1 - zs[m] * s["ratio_std_error"].to_numpy(),
+                                   1 + zs[m] * s["ratio_std_error"].to_numpy()] for m, s in subs.items()])
+            charts = []
+            for m, s in subs.items():
+                x, r, se = s["time"].to_numpy(), s["ratio"].to_numpy(), s["ratio_std_error"].to_numpy()
+                charts.append(svg.line_chart(
+                    title=f"{a}: mean deflated / today's price, {MEASURE_NAME[m]}",
+                    series=[svg.Series(label="ratio", x=x, y=r, colour=svg.PALETTE[0])],
+                    bands=[svg.Band(label=f"1 ± {zs[m]:.2f} SE", x=x, lower=1 - zs[m] * se, upper=1 + zs[m] * se,
+                                    colour=svg.PALETTE[2], opacity=0.25)],
+                    hlines=[(1.0, "1")], y_label="ratio", y_range=(lo, hi),
+                ))
+            html.append(_pair(f"martingale {a}", charts))
+    html.append(_files(run_dir, ["martingale.csv"]))
     return "".join(html)
 
 
-def _density(run_dir: Path, summary: dict[str, Any]) -> str:
+def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | None) -> str:
     table = _csv(run_dir, "density")
     html = []
     share = None
@@ -423,14 +965,36 @@ def _density(run_dir: Path, summary: dict[str, Any]) -> str:
         html.append(f'<h3 id="check-density_{measure}">{escape(MEASURE_NAME[measure])}: {col} '
                     f"{_badge(c.get('verdict'))}</h3>")
         at = c.get("at_horizon") or {}
-        html.append(_kv([
-            ("max |z| of the mean weight / family limit", f"{_num(c.get('max_abs_z'), 3)} / {_num(c.get('family_critical_z'), 3)}"),
-            ("lowest ESS share", c.get("min_ess_share")),
-            ("largest single-path weight share", c.get("max_weight_share")),
+        pairs = [
+            ("max |z| of the mean weight / family limit", f"{fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}"),
+            ("lowest ESS share", fmt.share(c.get("min_ess_share"))),
+            ("largest single-path weight share", fmt.share(c.get("max_weight_share"))),
             ("ESS below warning share from", "never" if c.get("ess_below_warning_from_time") is None
-             else f"t = {c['ess_below_warning_from_time']:g} years"),
-            ("at the horizon: mean weight +- se", f"{_num(at.get('mean_weight'))} +- {_num(at.get('std_error'), 3)}"),
-        ]))
+             else f"t = {fmt.years(c['ess_below_warning_from_time'])} years"),
+            ("at the horizon: mean weight ± SE", fmt.price_se(at.get("mean_weight"), at.get("std_error"))),
+        ]
+        if c.get("inconclusive_cells"):
+            pairs.append(("cells that cannot be judged", _check_figure(c)))
+        if c.get("power_rule"):
+            pairs.append(("power rule", str(c["power_rule"])))
+        if c.get("material_deviation") is not None:
+            pairs.append(("material deviation", fmt.number(c["material_deviation"]) if fmt.is_number(c["material_deviation"])
+                          else str(c["material_deviation"])))
+        html.append(_kv(pairs))
+    dens = _densities(summary, manifest)
+    if dens:
+        html.append("<h3>Usable horizon of each density</h3>")
+        html.append(_table(dens, [("density", "density"), ("block", "block"), ("usable", "usable"),
+                                  ("ess", "ESS share at horizon"), ("max_w", "largest weight share at horizon")],
+                           fmts={k: (lambda r, k=k: escape(str(r[k]))) for k in ("density", "block", "usable", "ess", "max_w")}))
+    budget = summary.get("density_budget")
+    if isinstance(budget, dict) and budget:
+        html.append("<h3>Density budget: share of the log-density variance by price of risk</h3>")
+        rows = [{"measure": MEASURE_NAME.get(m, m), "price": p, "share": v}
+                for m, by in budget.items() if isinstance(by, dict) for p, v in by.items()]
+        html.append(_table(rows, [("measure", "set"), ("price", "price of risk"), ("share", "share at the horizon")],
+                           fmts={"measure": lambda r: escape(str(r["measure"])), "price": lambda r: escape(str(r["price"])),
+                                 "share": lambda r: escape(fmt.share(r["share"]))}))
     if table is not None:
         series_ess, series_w, bands_w = [], [], []
         for i, measure in enumerate(MEASURES):
@@ -446,14 +1010,24 @@ def _density(run_dir: Path, summary: dict[str, Any]) -> str:
             bands_w.append(svg.Band(label="", x=x, lower=1 - z * se, upper=1 + z * se, colour=svg.PALETTE[i],
                                     opacity=0.15))
         hl = [(float(share), f"warning share {float(share):.0%}")] if share is not None else []
-        charts = [
+        html.append(_grid([
             svg.line_chart(title="Effective sample size share by time", series=series_ess, hlines=hl,
-                           y_label="ESS / paths"),
-            svg.line_chart(title="Mean density weight by time (bands: 1 +- z SE)", series=series_w,
+                           y_label="ESS / paths", y_format=lambda v: fmt.share(v, 0)),
+            svg.line_chart(title="Mean density weight by time (bands: 1 ± z SE)", series=series_w,
                            bands=bands_w, hlines=[(1.0, "1")], y_label="mean weight"),
-        ]
-        html.append('<div class="grid">' + "".join(charts) + "</div>")
+        ]))
+    html.append(_files(run_dir, ["density.csv", "density_budget.csv"]))
     return "".join(html)
+
+
+def _is_normal(r: dict[str, Any]) -> bool:
+    return str(r.get("convention", "")).startswith("normal")
+
+
+def _vol_text(v: Any, r: dict[str, Any]) -> str:
+    if not fmt.is_number(v):
+        return fmt.DASH
+    return fmt.bp(1e4 * float(v), 1) if _is_normal(r) else fmt.vol_points(v) + " pts"
 
 
 def _market_consistency(run_dir: Path, summary: dict[str, Any]) -> str:
@@ -463,31 +1037,74 @@ def _market_consistency(run_dir: Path, summary: dict[str, Any]) -> str:
     html = [f'<h3 id="check-market_consistency">Calibration instruments repriced from the files '
             f"{_badge(c.get('verdict'))}</h3>", f'<p class="note">{escape(str(c.get("rule", "")))}</p>']
     for u in c.get("not_testable", []) or []:
-        html.append(f'<p class="note">{escape(u["instrument"])}: {escape(u["reason"])}</p>')
+        html.append(f'<p class="note">{escape(str(u.get("instrument")))}: {escape(str(u.get("reason")))}</p>')
     rows = _records(_csv(run_dir, "market_consistency"))
     if rows:
-        html.append(_table(rows, [
-            ("instrument", "instrument"), ("measure", "set"), ("mc_price", "MC price"),
-            ("std_error", "SE"), ("market_price", "market price"), ("model_price", "model price"),
-            ("market_vol", "market vol"), ("mc_implied_vol", "MC implied vol"),
-            ("vol_difference_bp", "MC - market (bp vol)"), ("vol_std_error_bp", "SE (bp vol)"),
-            ("z_score", "z beyond tolerance"), ("z_model", "z vs model"),
-        ]))
-        charts = []
-        for i, measure in enumerate(MEASURES):
-            sub = [r for r in rows if r["measure"] == measure and r.get("vol_difference_bp") is not None]
+        for measure in MEASURES:
+            sub = [r for r in rows if r.get("measure") == measure]
             if not sub:
                 continue
-            labels = [r["instrument"].replace("swaption ", "").split(" K=")[0] for r in sub]
-            charts.append(svg.bar_chart(
-                title=f"MC implied - market vol, {MEASURE_NAME[measure]} (bp; whiskers 2 SE; band: tolerance)",
-                labels=labels, values=[r["vol_difference_bp"] for r in sub],
-                errors=[2 * (r.get("vol_std_error_bp") or 0.0) for r in sub], y_label="bp of vol",
-                tolerance=float(sub[0].get("vol_tolerance_bp") or 0.0) if len({r.get("convention") for r in sub}) == 1 else None,
-                colour=svg.PALETTE[i],
-            ))
-        html.append('<div class="grid">' + "".join(charts) + "</div>")
+            html.append(f"<h3>{escape(MEASURE_NAME[measure])} set</h3>")
+            worst = sorted(sub, key=lambda r: -max(abs(float(r.get("z_market") or 0.0)), abs(float(r.get("z_model") or 0.0))))[:10]
+            if len(worst) < len(sub):
+                html.append(f'<p class="note">The {len(worst)} instruments furthest from their quote or model price '
+                            f"(largest |z|); all {len(sub)} below and in market_consistency.csv.</p>")
+            html.append(_long_table(sub, worst, what="instruments", columns=[
+                ("instrument", "instrument"), ("mc_price", "MC price ± SE"),
+                ("market_price", "market price"), ("model_price", "model price"),
+                ("market_vol", "market vol"), ("mc_implied_vol", "MC implied vol"),
+                ("vol_difference_bp", "MC - market"), ("z_score", "z beyond tolerance"), ("z_model", "z vs model"),
+            ], fmts={
+                "instrument": lambda r: escape(str(r["instrument"])),
+                "mc_price": lambda r: escape(fmt.price_se(r.get("mc_price"), r.get("std_error"))),
+                "market_price": lambda r: escape(fmt.price(r.get("market_price"), r.get("std_error"))),
+                "model_price": lambda r: escape(fmt.price(r.get("model_price"), r.get("std_error"))),
+                "market_vol": lambda r: escape(_vol_text(r.get("market_vol"), r)),
+                "mc_implied_vol": lambda r: escape(_vol_text(r.get("mc_implied_vol"), r)),
+                "vol_difference_bp": lambda r: escape(
+                    fmt.DASH if not fmt.is_number(r.get("vol_difference_bp")) else
+                    f"{fmt.bp(r['vol_difference_bp'], 1, sign=True)} ± {fmt.number(r.get('vol_std_error_bp'), 2)}"
+                    + ("" if _is_normal(r) else " (bp of vol)")),
+                "z_score": lambda r: escape(fmt.zscore(r.get("z_score"))),
+                "z_model": lambda r: escape(fmt.zscore(r.get("z_model"))),
+            }))
+        charts = []
+        groups: dict[str, dict[str, list[dict[str, Any]]]] = {}
+        for r in rows:
+            if r.get("vol_difference_bp") is None:
+                continue
+            kind = "swaptions" if str(r.get("type", "")).startswith("swaption") else "equity options"
+            groups.setdefault(kind, {}).setdefault(r["measure"], []).append(r)
+        for kind, by in groups.items():
+            vals = [float(r["vol_difference_bp"]) + s * 2 * float(r.get("vol_std_error_bp") or 0)
+                    for sub in by.values() for r in sub for s in (-1, 1)]
+            tol = [float(r.get("vol_tolerance_bp") or 0) for sub in by.values() for r in sub]
+            lo, hi = min(vals + [-max(tol or [0])]), max(vals + [max(tol or [0])])
+            pair = []
+            for i, measure in enumerate(MEASURES):
+                sub = by.get(measure, [])
+                if not sub:
+                    continue
+                labels = [r["instrument"].replace("swaption ", "").replace("equity call ", "").split(" K=")[0]
+                          for r in sub]
+                pair.append(svg.bar_chart(
+                    title=f"{kind}: MC implied - market vol, {MEASURE_NAME[measure]} (bp; whiskers 2 SE; band: tolerance)",
+                    labels=labels, values=[r["vol_difference_bp"] for r in sub],
+                    errors=[2 * (r.get("vol_std_error_bp") or 0.0) for r in sub], y_label="bp of vol",
+                    tolerance=float(sub[0].get("vol_tolerance_bp") or 0.0) if len({r.get("convention") for r in sub}) == 1 else None,
+                    colour=svg.PALETTE[i], y_range=(lo, hi),
+                ))
+            charts.append(_pair(f"market consistency {kind}", pair))
+        html.append("".join(charts))
+    html.append(_files(run_dir, ["market_consistency.csv"]))
     return "".join(html)
+
+
+def _pct_format(quantity: str) -> Callable[[Any], str]:
+    q = quantity.lower()
+    if any(w in q for w in ("rate", "yield", "spread", "intensity", "return")):
+        return fmt.percent
+    return lambda v: fmt.number(v, 4)
 
 
 def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
@@ -499,52 +1116,83 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
     fit = c.get("house_view_fit")
     if fit:
         html.append(f'<p class="note">House view ({escape(str(fit.get("quantity")))}): the model\'s real-world '
-                    f'expectation lies within {fit["max_abs_gap_bp"]:.3g} bp of the house-view path.</p>')
+                    f'expectation lies within {escape(fmt.bp(fit.get("max_abs_gap_bp"), 2))} of the house-view path.</p>')
     targets = _csv(run_dir, "real_world_targets")
     charts = []
     if targets is not None and len(targets):
-        for i, (name, t) in enumerate(targets.groupby("target", sort=False)):
+        z = float(c.get("family_critical_z", 2.58) or 2.58)
+        for name, t in targets.groupby("target", sort=False):
             x = t["time"].to_numpy()
             se = t["std_error"].to_numpy()
-            z = float(c.get("family_critical_z", 2.58) or 2.58)
             est = t["estimate"].to_numpy()
-            is_rate = True
             charts.append(svg.line_chart(
-                title=f"{name}: simulated (band +- {z:.2f} SE) vs target", y_label="rate",
+                title=f"{name}: simulated (band ± {z:.2f} SE) vs target", y_label="rate",
                 series=[svg.Series(label="simulated", x=x, y=est, colour=svg.PALETTE[1]),
                         svg.Series(label="target", x=x, y=t["expected"].to_numpy(), colour="#222", dashed=True)],
                 bands=[svg.Band(label="", x=x, lower=est - z * se, upper=est + z * se, colour=svg.PALETTE[1])],
-                y_format=(lambda v: f"{100 * v:.2f}%") if is_rate else svg._fmt_default,
+                y_format=_rate_axis,
             ))
-        sample = targets.groupby("target", sort=False).head(12)
-        html.append(_table(_records(sample), [
-            ("target", "target"), ("time", "t"), ("expected", "target value"), ("estimate", "simulated"),
-            ("std_error", "SE"), ("z_score", "z")]))
-        html.append('<p class="note">First rows per target shown; every row is in validation/real_world_targets.csv.</p>')
-    if charts:
-        html.append('<div class="grid">' + "".join(charts) + "</div>")
+        every = _records(targets)
+        at = [r for r in every if any(abs(float(r["time"]) - h) < 1e-9 for h in _TABLE_HORIZONS)]
+        html.append(_long_table(every, at or every[:12], what="rows", columns=[
+            ("target", "target"), ("time", "t"), ("expected", "target value"), ("estimate", "simulated ± SE"),
+            ("z_score", "z")], fmts={
+                "target": lambda r: escape(str(r["target"])), "time": lambda r: escape(fmt.years(r["time"])),
+                "expected": lambda r: escape(fmt.percent(r["expected"])),
+                "estimate": lambda r: escape(f"{fmt.percent(r['estimate'])} ± {fmt.percent(r['std_error'])}"),
+                "z_score": lambda r: escape(fmt.zscore(r["z_score"]))}))
+        html.append('<p class="note">Rows at 1, 5, 10, 20, 30 and 50 years shown; every row is folded above '
+                    "and in real_world_targets.csv.</p>")
+    html.append(_grid(charts))
+    html.append(_files(run_dir, ["real_world_targets.csv"]))
     bench = c.get("wealth_ratio_benchmark") or {}
     html.append(f"<h3>Equity gross wealth ratios against the 2005 benchmark "
                 f"{_badge(bench.get('verdict'), bench.get('counts_toward_verdict', False))}</h3>")
-    html.append(f'<p class="note">{escape(str(bench.get("source", "")))}; {escape(str(bench.get("rule", "")))}. '
-                "The table's numbers are taken from the project's field notes, written there from memory.</p>")
+    html.append(f'<p class="note">Reported beside the verdict, not part of it. {escape(str(bench.get("source", "")))}; '
+                f'{escape(str(bench.get("rule", "")))}. The benchmark numbers were written into the project '
+                "from memory.</p>")
     b_rows = _records(_csv(run_dir, "wealth_ratio_benchmark"))
     if b_rows:
-        for r in b_rows:
-            r["ok"] = _badge("pass" if str(r.get("pass")) in ("True", "true", "1") else "fail")
         html.append(_table(b_rows, [("horizon", "horizon (y)"), ("percentile", "percentile"), ("tail", "tail"),
                                     ("model", "model"), ("requirement", "must be"), ("benchmark", "benchmark"),
-                                    ("ok", "result")], fmt={"ok": lambda v: v}))
+                                    ("pass", "result")], fmts={
+            "horizon": lambda r: escape(fmt.years(r["horizon"])), "percentile": lambda r: escape(fmt.share(r["percentile"])),
+            "tail": lambda r: escape(str(r["tail"])), "model": lambda r: escape(fmt.number(r["model"], 3)),
+            "requirement": lambda r: escape(str(r["requirement"])), "benchmark": lambda r: escape(fmt.number(r["benchmark"], 3)),
+            "pass": lambda r: "met" if str(r.get("pass")) in ("True", "true", "1") else "<strong>missed</strong>"}))
+    html.append(_files(run_dir, ["wealth_ratio_benchmark.csv"]))
     stats = _records(_csv(run_dir, "real_world_statistics"))
     if stats:
         html.append("<h3>Moments (pooled annual steps; reported)</h3>")
-        html.append(_table(stats, [("statistic", "statistic"), ("measure", "set"), ("value", "value")]))
+        html.append(_table(stats, [("statistic", "statistic"), ("measure", "set"), ("value", "value")], fmts={
+            "statistic": lambda r: escape(str(r["statistic"])), "measure": lambda r: escape(MEASURE_NAME.get(r["measure"], str(r["measure"]))),
+            "value": lambda r: escape(_pct_format(str(r["statistic"]))(r["value"]) if "change" not in str(r["statistic"])
+                                      else fmt.percent(r["value"]))}))
+        html.append(_files(run_dir, ["real_world_statistics.csv"]))
     pct = _records(_csv(run_dir, "real_world_percentiles"))
     if pct:
         html.append("<h3>Percentiles at chosen horizons (reported)</h3>")
-        cols = [("quantity", "quantity"), ("measure", "set"), ("horizon", "horizon"), ("mean", "mean")]
-        cols += [(k, k.replace("p", "") + "%") for k in pct[0] if k.startswith("p") and k[1:].replace(".", "").isdigit()]
-        html.append(_table(pct, cols))
+        pcols = [k for k in pct[0] if k.startswith("p") and k[1:].replace(".", "").isdigit()]
+        for quantity in dict.fromkeys(r["quantity"] for r in pct):
+            show = _pct_format(quantity)
+            sub = {m: {r["horizon"]: r for r in pct if r["quantity"] == quantity and r["measure"] == m} for m in MEASURES}
+            horizons = sorted({h for by in sub.values() for h in by})
+            head = ('<tr><th class="l" rowspan="2">year</th>' + "".join(
+                f'<th colspan="{len(pcols) + 1}">{escape(MEASURE_NAME[m])}</th>' for m in MEASURES if sub[m])
+                + "</tr><tr>" + "".join("<th>mean</th>" + "".join(f"<th>{escape(k[1:])}%</th>" for k in pcols)
+                                         for m in MEASURES if sub[m]) + "</tr>")
+            body = []
+            for h in horizons:
+                cells = []
+                for m in MEASURES:
+                    if not sub[m]:
+                        continue
+                    r = sub[m].get(h)
+                    cells += [_cell(escape(show(r[k])) if r else fmt.DASH) for k in ("mean", *pcols)]
+                body.append(f'<tr><td class="l">{fmt.years(h)}</td>{"".join(cells)}</tr>')
+            html.append(f"<h4>{escape(str(quantity).replace('_', ' '))}</h4>"
+                        f"<table><thead>{head}</thead><tbody>{''.join(body)}</tbody></table>")
+        html.append(_files(run_dir, ["real_world_percentiles.csv"]))
     return "".join(html)
 
 
@@ -557,69 +1205,191 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
     g = c.get("guarantee") or {}
     v = c.get("values") or {}
     if g:
-        html.append(_kv([("product", g.get("product", "")), ("maturity (years)", g.get("maturity")),
-                         ("guaranteed amount", g.get("guaranteed_amount")), ("index level today", g.get("index_level"))]))
+        html.append(_kv([("product", str(g.get("product", ""))), ("maturity", f"{fmt.years(g.get('maturity'))} years"),
+                         ("guaranteed amount", fmt.plain(g.get("guaranteed_amount"), 6)),
+                         ("index level today", fmt.plain(g.get("index_level"), 6))]))
     rows = _records(_csv(run_dir, "reconciliation"))
     if rows:
         values = [r for r in rows if r.get("kind") == "value"]
         diffs = [r for r in rows if r.get("kind") == "difference"]
-        html.append(_table(values, [("method", "method"), ("value", "value"), ("std_error", "SE")]))
-        html.append(_table(diffs, [("comparison", "comparison"), ("difference", "difference"),
-                                   ("std_error", "SE"), ("z_score", "z")]))
+        html.append(_table(values, [("method", "method"), ("value", "value ± SE")], fmts={
+            "method": lambda r: escape(str(r["method"])),
+            "value": lambda r: escape(fmt.price_se(r.get("value"), r.get("std_error")))}))
+        html.append(_table(diffs, [("comparison", "comparison"), ("difference", "difference ± SE"), ("z_score", "z")], fmts={
+            "comparison": lambda r: escape(str(r["comparison"])),
+            "difference": lambda r: escape(fmt.price_se(r.get("difference"), r.get("std_error"))),
+            "z_score": lambda r: escape(fmt.zscore(r.get("z_score")))}))
     if v.get("real_world_sample_se") is not None:
-        html.append(f'<p class="note">Real-world SE: the larger of the sample value ({_num(v["real_world_sample_se"])}) '
+        html.append(f'<p class="note">Real-world SE: the larger of the sample value ({escape(fmt.number(v["real_world_sample_se"]))}) '
                     "and the value implied by the market-consistent set's second moment.</p>")
+    html.append(_files(run_dir, ["reconciliation.csv"]))
     ret = _records(_csv(run_dir, "expected_returns"))
     if ret:
         html.append("<h3>Expected returns by asset, both measures (annualised, continuously compounded)</h3>")
-        html.append(_table(ret, [("description", "asset"), ("horizon", "horizon"),
-                                 ("market_consistent", "Q"), ("market_consistent_se", "SE"),
-                                 ("real_world", "P"), ("real_world_se", "SE"), ("difference", "P - Q")],
-                           fmt={k: _pct for k in ("market_consistent", "market_consistent_se", "real_world",
-                                                  "real_world_se", "difference")}))
+        at = [r for r in ret if any(abs(float(r["horizon"]) - h) < 1e-9 for h in (1.0, 10.0, 30.0, 50.0))]
+        html.append(_long_table(ret, at or ret, what="rows", columns=[("description", "asset"), ("horizon", "horizon"),
+                                 ("market_consistent", "Q ± SE"), ("real_world", "P ± SE"), ("difference", "P - Q")],
+                           fmts={"description": lambda r: escape(str(r["description"])),
+                                 "horizon": lambda r: escape(fmt.years(r["horizon"])),
+                                 "market_consistent": lambda r: escape(f"{fmt.percent(r['market_consistent'])} ± {fmt.percent(r['market_consistent_se'])}"),
+                                 "real_world": lambda r: escape(f"{fmt.percent(r['real_world'])} ± {fmt.percent(r['real_world_se'])}"),
+                                 "difference": lambda r: escape(fmt.bp_move(r["difference"]))}))
+        html.append(_files(run_dir, ["expected_returns.csv"]))
     return "".join(html)
 
 
-def _liabilities(run_dir: Path) -> str:
+# -- liabilities -------------------------------------------------------------------------------
+
+_LINE_NAME = {"unit_linked_gmmb": "unit-linked with maturity guarantee", "participating": "with-profits (participating)",
+              "deferred_annuity_gao": "deferred annuity with GAO", "total": "total"}
+
+
+def _valuation(run_dir: Path) -> dict[str, Any] | None:
     path = run_dir / "valuation" / "summary.json"
-    if not path.is_file():
+    return read_json(path) if path.is_file() else None
+
+
+def liability_rows(val: dict[str, Any]) -> list[dict[str, Any]]:
+    """One row per product line and the total: best estimate, guarantee and TVOG, each with its
+    SE (market-consistent values). Used by the sign-off page, the CLI and compare."""
+    by: dict[str, dict[str, Any]] = {}
+    for line in val.get("lines", []):
+        if line.get("level") not in ("product", "total"):
+            continue
+        row = by.setdefault(line["name"], {"line": line["name"], "label": _LINE_NAME.get(line["name"], line["name"])})
+        if line.get("quantity") == "best_estimate":
+            row.update(be=line.get("market_consistent_value"), be_se=line.get("market_consistent_se"),
+                       tvog=line.get("tvog"), tvog_se=line.get("tvog_se", line.get("market_consistent_se")),
+                       ce=line.get("certainty_equivalent_value"))
+        elif line.get("quantity") == "guarantee":
+            row.update(guarantee=line.get("market_consistent_value"), guarantee_se=line.get("market_consistent_se"))
+    return list(by.values())
+
+
+def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
+    if val is None:
         return ('<p class="note">No liability valuation in this run directory. Run '
                 "<code>pqflow value RUN_DIR --liabilities FILE</code> and then <code>pqflow report RUN_DIR</code>.</p>")
-    val = read_json(path)
     rec = val.get("reconciliation", {})
     verdict = {"agree": "pass", "differ": "fail"}.get(str(rec.get("verdict")), rec.get("verdict"))
+    cur = str(val.get("currency", ""))
     html = [f"<h3>{escape(str(val.get('insurer', '')))}: best estimate and TVOG {_badge(verdict)}</h3>",
-            f'<p class="note">Portfolio {escape(str(val.get("portfolio_file", "")))}; values in '
-            f'{escape(str(val.get("currency", "")))} at {escape(str(val.get("valuation_date", "")))}. '
-            "Real-world values use the deflator (density over cash account); the difference from the "
-            "market-consistent value is shown in standard errors of the difference.</p>"]
+            f'<p class="note">Portfolio {escape(str(val.get("portfolio_file", "")))}; values in {escape(cur)} '
+            f'(whole units) at {escape(str(val.get("valuation_date", "")))}. Real-world values use the deflator '
+            "(density over cash account); the difference from the market-consistent value is shown in "
+            "standard errors of the difference.</p>"]
     lines = [line for line in val.get("lines", []) if line.get("level") in ("product", "total")]
+    money = lambda k, se: (lambda r: escape(fmt.money_se(r.get(k), r.get(se)) if se else fmt.money(r.get(k))))  # noqa: E731
     html.append(_table(lines, [
         ("name", "line"), ("quantity", "quantity"),
-        ("market_consistent_value", "market consistent"), ("market_consistent_se", "SE"),
-        ("certainty_equivalent_value", "certainty equivalent"), ("tvog", "TVOG"),
-        ("real_world_value", "real world, deflated"), ("real_world_se", "SE"),
+        ("market_consistent_value", f"market consistent ± SE ({cur})"),
+        ("certainty_equivalent_value", f"certainty equivalent ({cur})"), ("tvog", f"TVOG ({cur})"),
+        ("real_world_value", f"real world, deflated ± SE ({cur})"),
         ("difference_in_se", "difference / SE"),
-    ], fmt={k: (lambda x: _num(x, 0)) for k in ("market_consistent_value", "market_consistent_se",
-                                                  "certainty_equivalent_value", "tvog",
-                                                  "real_world_value", "real_world_se")}))
+    ], fmts={
+        "name": lambda r: escape(_LINE_NAME.get(r["name"], r["name"])),
+        "quantity": lambda r: escape(str(r["quantity"]).replace("_", " ")),
+        "market_consistent_value": money("market_consistent_value", "market_consistent_se"),
+        "certainty_equivalent_value": money("certainty_equivalent_value", None),
+        "tvog": money("tvog", None),
+        "real_world_value": money("real_world_value", "real_world_se"),
+        "difference_in_se": lambda r: escape(fmt.zscore(r.get("difference_in_se"))),
+    }))
+    html.append('<p class="note">' + " ".join(escape(c) for c in val.get("conventions", [])) + "</p>")
+    html.append(_files(run_dir, ["../valuation/liability_values.csv", "../valuation/liability_cash_flows.csv",
+                                 "../valuation/summary.json"]))
     sens = [{"sensitivity": e["sensitivity"], "quantity": q, **e[q]}
             for e in val.get("sensitivities", []) for q in ("best_estimate", "guarantee", "tvog") if q in e]
     if sens:
         html.append('<h3>Sensitivities (total)</h3><p class="note">Change from the base on the same scenarios '
                     "(common random numbers), its standard error, and the one independently seeded sets would give "
-                    "(valuation/sensitivities.csv has every line).</p>")
-        html.append(_table(sens, [("sensitivity", "sensitivity"), ("quantity", "quantity"), ("value", "value"),
-                                  ("change", "change"), ("change_se_paired", "SE"),
+                    "(plain means; valuation/sensitivities.csv has every line).</p>")
+        html.append(_table(sens, [("sensitivity", "sensitivity"), ("quantity", "quantity"), ("value", f"value ({cur})"),
+                                  ("change", f"change ({cur})"), ("change_se_paired", "SE"),
                                   ("change_se_independent", "SE, independent sets")],
-                           fmt={k: (lambda x: _num(x, 0)) for k in ("value", "change", "change_se_paired",
-                                                                      "change_se_independent")}))
+                           fmts={"quantity": lambda r: escape(str(r["quantity"]).replace("_", " ")),
+                                 **{k: (lambda r, k=k: escape(fmt.money(r.get(k))))
+                                    for k in ("value", "change", "change_se_paired", "change_se_independent")}}))
+        html.append(_files(run_dir, ["../valuation/sensitivities.csv"]))
     return "".join(html)
+
+
+# -- the sign-off page -------------------------------------------------------------------------
+
+def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any], summary: dict[str, Any],
+             val: dict[str, Any] | None, signoff: SignOff, today: str) -> str:
+    html = [_one_line(run_dir, manifest, cal)]
+    html.append(f'<p class="verdict-line">Overall verdict {_badge(summary.get("verdict"))}</p>')
+    warnings = _warnings(summary, val)
+    if warnings:
+        html.append('<ul class="warn">' + "".join(f"<li>{escape(w)}</li>" for w in warnings) + "</ul>")
+    rows = "".join(
+        f'<tr><td class="l"><a href="#check-{escape(n)}">{escape(label)}</a></td><td class="num">{escape(fig)}</td>'
+        f"<td>{badge}</td></tr>" for n, label, fig, badge in _verdict_rows(summary))
+    verdict_table = ('<table><thead><tr><th class="l">check</th><th>key figure</th><th>verdict</th></tr></thead>'
+                     f"<tbody>{rows}</tbody></table>")
+    facts = _curve_facts(cal)
+    curve_rows = ""
+    if facts["zeros"]:
+        curve_rows = ('<table><thead><tr><th class="l">maturity</th>' + "".join(
+            f"<th>{fmt.years(m)}y</th>" for m in facts["zeros"]) + '</tr></thead><tbody><tr><td class="l">zero rate</td>'
+            + "".join(_cell(escape(fmt.percent(z))) for z in facts["zeros"].values()) + "</tr></tbody></table>")
+    curve_text = facts["method"].split(" (")[0]
+    if fmt.is_number(facts["ufr"]):
+        curve_text += (f"; UFR {fmt.percent(facts['ufr'], 2)} (annual), last liquid point "
+                       f"{fmt.years(facts['llp'])}y, alpha {fmt.number(facts['alpha'], 3)}")
+    dens = _densities(summary, manifest)
+    dens_table = _table(dens, [("density", "density"), ("block", "block"), ("usable", "usable")],
+                        fmts={k: (lambda r, k=k: escape(str(r[k]))) for k in ("density", "block", "usable")}) if dens else ""
+    params = _table(_key_parameters(cal), [("part", "part"), ("values", "parameters"), ("fit", "fit error")],
+                    fmts={k: (lambda r, k=k: escape(r[k])) for k in ("part", "values", "fit")})
+    html.append(f'<div class="cols"><div><h3>Verdicts</h3>{verdict_table}</div>'
+                f'<div><h3>Today\'s curve</h3><p class="note">{escape(curve_text)}</p>{curve_rows}'
+                f'<h3>Density weights</h3>{dens_table}</div></div>')
+    html.append(f"<h3>Calibrated parameters</h3>{params}")
+    if val is not None:
+        cur = str(val.get("currency", ""))
+        lrows = liability_rows(val)
+        html.append(f"<h3>Liabilities, market consistent ({escape(cur)}, ± one standard error)</h3>")
+        html.append(_table(lrows, [("label", "line"), ("be", "best estimate"), ("guarantee", "guarantee value"),
+                                   ("tvog", "TVOG")], fmts={
+            "label": lambda r: escape(r["label"]),
+            "be": lambda r: escape(fmt.money_se(r.get("be"), r.get("be_se"))),
+            "guarantee": lambda r: escape(fmt.money_se(r.get("guarantee"), r.get("guarantee_se"))),
+            "tvog": lambda r: escape(fmt.money_se(r.get("tvog"), r.get("tvog_se")))}))
+    else:
+        html.append('<p class="note">Liabilities: not valued in this run (<code>pqflow value</code>).</p>')
+
+    def field(name: str) -> str:
+        return escape(name) if name else "&nbsp;"
+
+    html.append(
+        '<h3>Sign-off</h3><table class="sign"><tbody>'
+        f'<tr><th class="l">prepared by</th><td class="l">{field(signoff.prepared_by)}</td>'
+        '<th class="l">signature</th><td class="l">&nbsp;</td></tr>'
+        f'<tr><th class="l">reviewed by</th><td class="l">{field(signoff.reviewed_by)}</td>'
+        '<th class="l">signature</th><td class="l">&nbsp;</td></tr>'
+        f'<tr><th class="l">report date</th><td class="l">{escape(today)}</td>'
+        '<th class="l">review date</th><td class="l">&nbsp;</td></tr>'
+        "</tbody></table>"
+    )
+    # The sign-off page may be printed or filed alone: it carries the caution at its foot too.
+    html.append(_caution_box())
+    return '<div class="signoff">' + "".join(html) + "</div>"
 
 
 # -- the page ---------------------------------------------------------------------------------
 
-def build_report_html(run_dir: str | Path) -> str:
+def signoff_from_manifest(manifest: dict[str, Any] | None, override: SignOff | None = None) -> SignOff:
+    """Names from the command line where given, else from the run's ``[signoff]`` table (kept
+    in the manifest header), else blank."""
+    stored = (manifest or {}).get("signoff") or {}
+    o = override or SignOff()
+    return SignOff(prepared_by=o.prepared_by or str(stored.get("prepared_by") or ""),
+                   reviewed_by=o.reviewed_by or str(stored.get("reviewed_by") or ""))
+
+
+def build_report_html(run_dir: str | Path, signoff: SignOff | None = None, *, today: str | None = None) -> str:
     """The report of a run directory as one HTML string (reads the run's files only)."""
     run_dir = Path(run_dir)
     summary_path = run_dir / "validation" / "summary.json"
@@ -630,34 +1400,38 @@ def build_report_html(run_dir: str | Path) -> str:
     cal = read_json(cal_path)
     manifest_path = run_dir / "manifest.json"
     manifest = read_json(manifest_path) if manifest_path.is_file() else None
+    val = _valuation(run_dir)
     name = (manifest or {}).get("run_name", run_dir.name)
-    calibration_html, _ = _calibration(cal)
+    today = today or dt.date.today().isoformat()
     sections = {
+        "signoff": _signoff(run_dir, manifest, cal, summary, val, signoff_from_manifest(manifest, signoff), today),
         "identity": _identity(run_dir, manifest, cal),
-        "verdicts": _verdicts(summary),
-        "calibration": calibration_html,
+        "verdicts": _verdicts(run_dir, summary, val),
+        "curve": _curve_section(cal),
+        "calibration": _calibration(cal),
         "scenarios": _scenarios(run_dir),
         "martingale": _martingale(run_dir, summary),
-        "density": _density(run_dir, summary),
+        "density": _density(run_dir, summary, manifest),
         "market-consistency": _market_consistency(run_dir, summary),
         "real-world": _real_world(run_dir, summary),
         "reconciliation": _reconciliation(run_dir, summary),
-        "liabilities": _liabilities(run_dir),
+        "liabilities": _liabilities(run_dir, val),
     }
-    nav = "<nav>" + "".join(f'<a href="#{sid}">{escape(title)}</a>' for sid, title in SECTIONS) + "</nav>"
-    body = [f"<h1>pqflow evidence pack: {escape(str(name))}</h1>",
-            f"<p>Valuation date {escape(str(cal.get('valuation_date', '–')))} · overall verdict "
-            f"{_badge(summary.get('verdict'))}</p>", nav]
+    nav = "<nav>" + "".join(f'<a href="#{sid}">{escape(title)}</a>' for sid, title in SECTIONS[1:]) + "</nav>"
+    body = [f"<h1>pqflow evidence pack: {escape(str(name))}</h1>"]
     for sid, title in SECTIONS:
-        body.append(f'<section id="{sid}"><h2>{escape(title)}</h2>{sections[sid]}</section>')
+        if sid == "signoff":
+            body.append(f'<section id="signoff"><h2>{escape(title)}</h2>{sections[sid]}</section>{nav}')
+        else:
+            body.append(f'<section id="{sid}"><h2>{escape(title)}</h2>{sections[sid]}</section>')
     return page(f"pqflow report: {name}", "".join(body))
 
 
-def write_report(run_dir: str | Path) -> Path:
+def write_report(run_dir: str | Path, signoff: SignOff | None = None) -> Path:
     """Write ``validation/report.html`` of a run (atomically) and return its path.
 
     May be called on a finished run: the report is a derived view outside the manifest, so
     ``pqflow verify`` still passes afterwards.
     """
     run_dir = Path(run_dir)
-    return write_html_atomic(run_dir / "validation" / REPORT_NAME, build_report_html(run_dir))
+    return write_html_atomic(run_dir / "validation" / REPORT_NAME, build_report_html(run_dir, signoff))

@@ -15,12 +15,15 @@ from html import escape
 
 import numpy as np
 
+from pqflow.report import numbers
+
 __all__ = [
     "PALETTE",
     "nice_ticks",
     "fan_chart",
     "line_chart",
     "bar_chart",
+    "waterfall_chart",
     "Series",
     "Band",
 ]
@@ -83,16 +86,11 @@ def nice_ticks(lo: float, hi: float, n: int = 5) -> list[float]:
 
 
 def _fmt_default(v: float) -> str:
-    if v == 0:
+    """Axis ticks: round numbers without trailing zeros and never an exponent."""
+    if v == 0 or abs(v) < 1e-12:
         return "0"
-    a = abs(v)
-    if a >= 1000:
-        return f"{v:,.0f}"
-    if a >= 10:
-        return f"{v:.0f}"
-    if a >= 1:
-        return f"{v:.2g}" if a < 10 and v == round(v, 1) else f"{v:.2f}"
-    return f"{v:.3g}"
+    text = numbers.number(round(float(v), 12), 3)
+    return text.rstrip("0").rstrip(".") if "." in text else text
 
 
 class _Frame:
@@ -138,13 +136,13 @@ class _Frame:
         return out
 
 
-def _svg(parts: list[str], title: str, width: int = _W, height: int = _H) -> str:
+def _svg(parts: list[str], title: str, width: int = _W, height: int = _H, data: str = "") -> str:
     style = (
         "<style>.tick{font:11px sans-serif;fill:#444}.ctitle{font:bold 13px sans-serif;fill:#222}"
         ".alabel{font:11px sans-serif;fill:#333}.legend{font:11px sans-serif;fill:#333}</style>"
     )
     return (
-        f'<svg viewBox="0 0 {width} {height}" width="100%" role="img" class="chart" '
+        f'<svg viewBox="0 0 {width} {height}" width="100%" role="img" class="chart" {data} '
         f'preserveAspectRatio="xMidYMid meet"><title>{escape(title)}</title>{style}'
         + "".join(parts) + "</svg>"
     )
@@ -188,9 +186,15 @@ def line_chart(
     y_format: Callable[[float], str] = _fmt_default,
     hlines: Sequence[tuple[float, str]] = (),
     log_y: bool = False,
+    y_range: tuple[float, float] | None = None,
+    vlines: Sequence[tuple[float, str]] = (),
 ) -> str:
-    """Lines over optional filled bands and horizontal reference lines; ``log_y`` draws the
-    values on a base-10 logarithmic axis (they must be positive)."""
+    """Lines over optional filled bands and horizontal (``hlines``) and vertical (``vlines``)
+    reference lines; ``log_y`` draws the values on a base-10 logarithmic axis (they must be
+    positive). ``y_range`` (in the values' own units) fixes the y-axis so that panels of one
+    quantity share it; the data are never clipped by it (the axis covers both)."""
+    if y_range is not None and log_y:
+        y_range = tuple(math.log10(v) if v > 0 else float("nan") for v in y_range)  # type: ignore[assignment]
     if log_y:
         def lg(v: Sequence[float]) -> list[float]:
             return [math.log10(float(a)) if float(a) > 0 else float("nan") for a in v]
@@ -203,6 +207,8 @@ def line_chart(
         y_format = lambda v: inner(float(f"{10 ** v:.2g}"))  # noqa: E731
     ys = [float(v) for s in series for v in s.y] + [float(v) for b in bands for v in (*b.lower, *b.upper)]
     ys += [h for h, _ in hlines]
+    if y_range is not None:
+        ys += [float(v) for v in y_range]
     xs = [float(v) for s in series for v in s.x] + [float(v) for b in bands for v in b.x]
     ys = [v for v in ys if math.isfinite(v)] or [0.0, 1.0]
     xs = xs or [0.0, 1.0]
@@ -216,13 +222,18 @@ def line_chart(
         parts.append(f'<line x1="{f.pl}" x2="{f.pr}" y1="{y:.1f}" y2="{y:.1f}" stroke="#900" '
                      f'stroke-dasharray="4,3"/>')
         parts.append(f'<text x="{f.pr - 4}" y="{y - 4:.1f}" text-anchor="end" class="legend">{escape(label)}</text>')
+    for v, label in vlines:
+        x = f.px(v)
+        parts.append(f'<line x1="{x:.1f}" x2="{x:.1f}" y1="{f.pt}" y2="{f.pb}" stroke="#555" '
+                     f'stroke-dasharray="2,3"/>')
+        parts.append(f'<text x="{x + 4:.1f}" y="{f.pb - 6}" class="legend">{escape(label)}</text>')
     for s in series:
         dash = ' stroke-dasharray="5,3"' if s.dashed else ""
         parts.append(f'<path d="{_path(f, s.x, s.y)}" fill="none" stroke="{s.colour}" stroke-width="1.8"{dash}/>')
     legend = [(b.label, b.colour, f"band:{min(0.9, b.opacity * 1.6):.2f}") for b in bands if b.label] + [
         (s.label, s.colour, "dash" if s.dashed else "line") for s in series if s.label]
     parts += _legend(f, legend)
-    return _svg(parts, title)
+    return _svg(parts, title, data=f'data-y-axis="{f.y0:.6g},{f.y1:.6g}"')
 
 
 def fan_chart(
@@ -235,9 +246,10 @@ def fan_chart(
     y_format: Callable[[float], str] = _fmt_default,
     reference: Series | None = None,
     log_y: bool = False,
+    y_range: tuple[float, float] | None = None,
 ) -> str:
     """Percentile bands 1-99, 5-95, 25-75 and the median; ``percentiles`` maps 1, 5, 25, 50,
-    75, 95, 99 to values over ``times``."""
+    75, 95, 99 to values over ``times``; ``y_range`` as in :func:`line_chart`."""
     bands = []
     for (lo, hi), opacity in (((1, 99), 0.15), ((5, 95), 0.25), ((25, 75), 0.4)):
         if lo in percentiles and hi in percentiles:
@@ -246,7 +258,8 @@ def fan_chart(
     series = [Series(label="median", x=times, y=percentiles[50], colour=colour)] if 50 in percentiles else []
     if reference is not None:
         series.append(reference)
-    return line_chart(title=title, series=series, bands=bands, y_label=y_label, y_format=y_format, log_y=log_y)
+    return line_chart(title=title, series=series, bands=bands, y_label=y_label, y_format=y_format, log_y=log_y,
+                      y_range=y_range)
 
 
 def bar_chart(
@@ -258,14 +271,22 @@ def bar_chart(
     y_label: str = "",
     tolerance: float | None = None,
     colour: str = PALETTE[0],
+    min_span: float = 0.0,
+    y_range: tuple[float, float] | None = None,
 ) -> str:
-    """Vertical bars (with optional +- error whiskers and a +- tolerance band)."""
+    """Vertical bars (with optional +- error whiskers and a +- tolerance band).
+
+    ``min_span``: the y-axis covers at least ``[-min_span, min_span]``, so that rounding noise
+    (a closed-form fit repriced to 1e-13 bp) is drawn as the flat line it is, not as full-height
+    bars; ``y_range`` fixes the axis (panels of one quantity share it)."""
     n = max(len(values), 1)
     vals = np.array([float(v) if v is not None and math.isfinite(float(v)) else 0.0 for v in values])
     errs = np.zeros_like(vals) if errors is None else np.array(
         [float(e) if e is not None and math.isfinite(float(e)) else 0.0 for e in errors])
-    lo = float(min(0.0, (vals - errs).min() if vals.size else 0.0, -(tolerance or 0.0)))
-    hi = float(max(0.0, (vals + errs).max() if vals.size else 1.0, tolerance or 0.0))
+    lo = float(min(0.0, (vals - errs).min() if vals.size else 0.0, -(tolerance or 0.0), -min_span))
+    hi = float(max(0.0, (vals + errs).max() if vals.size else 1.0, tolerance or 0.0, min_span))
+    if y_range is not None:
+        lo, hi = min(lo, float(y_range[0])), max(hi, float(y_range[1]))
     height = _H + 60
     f = _Frame(0.0, float(n), lo, hi, height=height)
     f.xt = []
@@ -282,7 +303,7 @@ def bar_chart(
         w = slot * 0.7
         top, bottom = sorted((f.py(v), zero))
         parts.append(f'<rect x="{x:.1f}" y="{top:.1f}" width="{w:.1f}" height="{max(bottom - top, 0.5):.1f}" '
-                     f'fill="{colour}"><title>{escape(label)}: {v:.4g}</title></rect>')
+                     f'fill="{colour}"><title>{escape(label)}: {escape(numbers.number(v))}</title></rect>')
         if e > 0:
             cx = x + w / 2
             parts.append(f'<line x1="{cx:.1f}" x2="{cx:.1f}" y1="{f.py(v - e):.1f}" y2="{f.py(v + e):.1f}" '
@@ -290,4 +311,58 @@ def bar_chart(
         lx = x + w / 2
         parts.append(f'<text x="{lx:.1f}" y="{f.pb + 10}" class="tick" text-anchor="end" '
                      f'transform="rotate(-45 {lx:.1f} {f.pb + 10})">{escape(label)}</text>')
+    return _svg(parts, title, height=height, data=f'data-y-axis="{f.y0:.6g},{f.y1:.6g}"')
+
+
+def waterfall_chart(
+    *,
+    title: str,
+    start_label: str,
+    start: float,
+    labels: Sequence[str],
+    deltas: Sequence[float],
+    errors: Sequence[float] | None = None,
+    end_label: str = "end",
+    y_label: str = "",
+    y_format: Callable[[float], str] = _fmt_default,
+) -> str:
+    """A waterfall: the start value, each step's change as a bar floating from the running
+    total (up in red, down in green; whiskers +- ``errors``), and the end value."""
+    vals = [float(d) for d in deltas]
+    running = [float(start)]
+    for d in vals:
+        running.append(running[-1] + d)
+    errs = [float(e) for e in errors] if errors is not None else [0.0] * len(vals)
+    lo = min(running + [r - e for r, e in zip(running[1:], errs)])
+    hi = max(running + [r + e for r, e in zip(running[1:], errs)])
+    pad = 0.15 * (hi - lo or abs(hi) or 1.0)
+    n = len(vals) + 2
+    height = _H + 60
+    f = _Frame(0.0, float(n), lo - pad, hi + pad, height=height)
+    f.xt = []
+    f.pb = height - _M["bottom"] - 60
+    parts = f.axes(title, "", y_label, y_format)
+    slot = (f.pr - f.pl) / n
+    names = [start_label, *labels, end_label]
+    for i in range(n):
+        x = f.pl + i * slot + slot * 0.15
+        w = slot * 0.7
+        if i == 0 or i == n - 1:
+            v = running[0] if i == 0 else running[-1]
+            top, bottom = sorted((f.py(v), float(f.pb)))  # from the axis: the level itself
+            colour, tip = "#8a8a8a", f"{names[i]}: {numbers.number(v, 6)}"
+        else:
+            a, b = running[i - 1], running[i]
+            top, bottom = sorted((f.py(a), f.py(b)))
+            colour = "#c0502b" if b > a else "#4c8c3f"
+            tip = f"{names[i]}: {numbers.signed(b - a, 4)}"
+        parts.append(f'<rect x="{x:.1f}" y="{top:.1f}" width="{w:.1f}" height="{max(bottom - top, 0.8):.1f}" '
+                     f'fill="{colour}"><title>{escape(tip)}</title></rect>')
+        if 0 < i < n - 1 and errs[i - 1] > 0:
+            cx, b = x + w / 2, running[i]
+            parts.append(f'<line x1="{cx:.1f}" x2="{cx:.1f}" y1="{f.py(b - errs[i - 1]):.1f}" '
+                         f'y2="{f.py(b + errs[i - 1]):.1f}" stroke="#222"/>')
+        lx = x + w / 2
+        parts.append(f'<text x="{lx:.1f}" y="{f.pb + 10}" class="tick" text-anchor="end" '
+                     f'transform="rotate(-35 {lx:.1f} {f.pb + 10})">{escape(names[i])}</text>')
     return _svg(parts, title, height=height)
