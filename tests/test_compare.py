@@ -192,11 +192,13 @@ def test_a_changed_verdict_is_listed(runs, tmp_path):
     shutil.copytree(runs["a"], edited)
     path = edited / "validation" / "summary.json"
     summary = json.loads(path.read_text())
-    summary["checks"]["martingale_real_world"]["verdict"] = "inconclusive"
-    summary["verdict"] = "inconclusive"
+    old_check, old_overall = summary["checks"]["martingale_real_world"]["verdict"], summary["verdict"]
+    assert old_check != "fail" and old_overall != "fail"
+    summary["checks"]["martingale_real_world"]["verdict"] = "fail"
+    summary["verdict"] = "fail"
     path.write_text(json.dumps(summary))
     cmp = compare_runs(runs["a"], edited)
     changed = {m.item: m.shown()[:2] for m in cmp.checks if m.status != "same"}
-    assert changed == {"martingale real world": ("pass", "inconclusive"), "overall verdict": ("pass", "inconclusive")}
+    assert changed == {"martingale real world": (old_check, "fail"), "overall verdict": (old_overall, "fail")}
     lines = summary_lines(cmp)
     assert ("title", "Checks whose verdict changed", "old", "new", "") in lines

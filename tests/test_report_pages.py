@@ -202,8 +202,12 @@ def test_three_state_verdicts_usable_horizons_and_budget(valued_run, tmp_path):
     assert "70.0%" in html and "Density budget" in html
 
 
-def test_informational_result_has_one_badge_and_old_runs_still_render(valued_run):
-    html = build_report_html(valued_run)  # this run's summary predates the three-state schema
+def test_informational_result_has_one_badge_and_old_runs_still_render(valued_run, tmp_path):
+    def as_old(s):  # a summary written before the three-state schema: no horizons, no budget
+        for key in ("densities", "density_budget", "inconclusive"):
+            s.pop(key, None)
+
+    html = build_report_html(_with_summary(valued_run, tmp_path, as_old))
     parsed = _cells(html)
     wealth_rows = re.findall(r"<tr><td class=\"l\">[^<]*equity wealth ratios.*?</tr>", html)
     assert wealth_rows

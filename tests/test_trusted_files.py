@@ -146,24 +146,20 @@ def _sha(path: Path) -> str:
 
 
 def test_report_refuses_a_changed_or_unlisted_valuation_file(run_copy):
-    from pqflow.storage.manifest import VALUATION_MANIFEST
-
+    # `pqflow value` records its outputs in valuation/manifest.json; every reading command checks it.
     result = invoke("value", run_copy, "--liabilities", LIABILITIES)
     assert result.exit_code in (0, 1), result.output
     folder = run_copy / "valuation"
-    # The valuation manifest (what `pqflow value` records for its outputs), written here by hand.
-    files = [{"path": f"valuation/{p.name}", "bytes": p.stat().st_size, "sha256": _sha(p)}
-             for p in sorted(folder.iterdir()) if p.is_file()]
-    (run_copy / VALUATION_MANIFEST).write_text(json.dumps({"files": files}))
+    assert (folder / "manifest.json").is_file()
     assert invoke("report", run_copy).exit_code == 0
     summary = folder / "summary.json"
     original = summary.read_text()
     summary.write_text(original.replace('"currency"', '"currency" ', 1))  # an edit the report would show
-    assert_clean_error(invoke("report", run_copy), 2, "valuation/summary.json", "changed")
+    assert_clean_error(invoke("report", run_copy), 2, "summary.json", "changed")
     summary.write_text(original)
     (folder / "extra.csv").write_text("a,b\n1,2\n")
-    assert_clean_error(invoke("report", run_copy), 2, "valuation/extra.csv", "not listed")
-    assert_clean_error(invoke("verify", run_copy), 2, "valuation/extra.csv")
+    assert_clean_error(invoke("report", run_copy), 2, "extra.csv", "not in the valuation manifest")
+    assert_clean_error(invoke("verify", run_copy), 2, "extra.csv")
 
 
 # ------------------------------------------------------------------ 13. hostile names

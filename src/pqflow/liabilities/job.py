@@ -91,26 +91,32 @@ def publish_valuation(
         "pqflow_version": __version__,
         "caution": summary["caution"],
     }
-    with run_lock(out):
-        check_valuation_target(out, overwrite)
-        staging = fresh_valuation_staging(out)
-        try:
-            tables = {"liability_values": results, "liability_cash_flows": cash_flow_frame(mc, rw)}
-            if sensitivities is not None:
-                tables["sensitivities"] = sensitivities
-                summary["sensitivities"] = sensitivity_summary(sensitivities)
-                summary["sensitivities_note"] = (
-                    "change = sensitivity - base on the same scenarios (common random numbers); change_se_paired "
-                    "from the paired differences, change_se_independent = sqrt(SE_base^2 + SE_sensitivity^2), "
-                    "what independently seeded sets would give; values are plain means"
-                )
-            written = write_result_tables(staging, tables, metadata=metadata)
-            summary["files"] = {name: name for name in [*written, "summary.json", VALUATION_MANIFEST]}
-            write_json_atomic(staging / "summary.json", summary)
-            publish_valuation_files(staging, out, header=header, overwrite=overwrite)
-        except BaseException:
-            discard_staging(staging)
-            raise
+    try:
+        with run_lock(out):
+            check_valuation_target(out, overwrite)
+            staging = fresh_valuation_staging(out)
+            try:
+                tables = {"liability_values": results, "liability_cash_flows": cash_flow_frame(mc, rw)}
+                if sensitivities is not None:
+                    tables["sensitivities"] = sensitivities
+                    summary["sensitivities"] = sensitivity_summary(sensitivities)
+                    summary["sensitivities_note"] = (
+                        "change = sensitivity - base on the same scenarios (common random numbers); "
+                        "change_se_paired from the paired differences, change_se_independent = "
+                        "sqrt(SE_base^2 + SE_sensitivity^2), what independently seeded sets would give; "
+                        "values are plain means"
+                    )
+                written = write_result_tables(staging, tables, metadata=metadata)
+                summary["files"] = {name: name for name in [*written, "summary.json", VALUATION_MANIFEST]}
+                write_json_atomic(staging / "summary.json", summary)
+                publish_valuation_files(staging, out, header=header, overwrite=overwrite)
+            except BaseException:
+                discard_staging(staging)
+                raise
+    except OSError as exc:
+        if exc.filename is None:  # a write error that names no file (the Parquet writer): name the target
+            raise OSError(exc.errno, exc.strerror or str(exc), str(out)) from exc
+        raise
     return summary
 
 

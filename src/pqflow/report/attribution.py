@@ -268,7 +268,11 @@ def prepare_attribution(old_run: str | Path, new_run: str | Path, old_config: st
 
 
 def _line_values(valuation: dict[str, Any], key: str) -> dict[str, float]:
-    return {line["name"]: float(line[key]) for line in valuation.get("lines", [])
+    """Best estimate per line. The attribution works with plain means (its steps are paired
+    differences of them), so it compares with the valuation's plain mean where one is recorded
+    (``<key>_without_controls``; the published value then carries control variates)."""
+    plain = f"{key}_without_controls"
+    return {line["name"]: float(line[plain] if plain in line else line[key]) for line in valuation.get("lines", [])
             if line.get("quantity") == "best_estimate" and line.get("level") in ("product", "total")}
 
 

@@ -13,7 +13,6 @@ from pqflow.storage.parquet import file_sha256
 
 __all__ = [
     "build_manifest", "verify_run", "load_manifest", "listed_parts", "MANIFEST", "DERIVED_VIEWS",
-    "VALUATION_MANIFEST",
 ]
 
 MANIFEST = "manifest.json"
@@ -25,7 +24,6 @@ DERIVED_VIEWS = frozenset({"validation/report.html"})
 # their own in the valuation folder (when present, ``verify_run`` checks it the same way; its
 # paths are relative to the run, or to the valuation folder).
 VALUATION_DIR = "valuation/"
-VALUATION_MANIFEST = VALUATION_DIR + MANIFEST
 
 
 def _entry(root: Path, path: Path) -> dict[str, Any]:
@@ -131,28 +129,12 @@ def _unlisted(root: Path, folder: Path, listed: set[str], skip: set[str]) -> lis
     return found
 
 
-def _valuation_problems(root: Path) -> list[str]:
-    """The valuation folder's own manifest (written by ``pqflow value``), when there is one:
-    its files must match and no other file may sit in ``valuation/``."""
-    if not (root / VALUATION_MANIFEST).is_file():
-        return []
-    manifest = load_manifest(root, VALUATION_MANIFEST)
-    entries = [
-        {**e, "path": e["path"] if e["path"].startswith(VALUATION_DIR) else VALUATION_DIR + e["path"]}
-        for e in manifest["files"]
-    ]
-    for i, entry in enumerate(entries):
-        if (problem := _entry_problem(root, i, entry)) is not None:
-            raise IntegrityError(f"{root / VALUATION_MANIFEST}: {problem}")
-    listed = {e["path"] for e in entries}
-    return _file_problems(root, entries) + _unlisted(root, root / VALUATION_DIR, listed, {VALUATION_MANIFEST})
-
-
 def verify_run(root: str | Path) -> dict[str, Any]:
     """Check every file against the manifest; raise ``IntegrityError`` naming what differs.
 
     A file the manifest does not list is reported too (readers would otherwise never know it
-    is there); ``valuation/`` is covered by its own manifest when ``pqflow value`` wrote one.
+    is there); ``valuation/`` has a manifest of its own, checked by
+    :func:`pqflow.storage.valuation_files.verify_valuation`.
     Derived views (:data:`DERIVED_VIEWS`) are ignored even if an older manifest lists them.
     """
     root = Path(root)
@@ -160,7 +142,6 @@ def verify_run(root: str | Path) -> dict[str, Any]:
     listed = {e["path"] for e in manifest["files"]}
     problems = _file_problems(root, manifest["files"])
     problems += _unlisted(root, root, listed, {MANIFEST, VALUATION_DIR})
-    problems += _valuation_problems(root)
     if len(problems) == 1:
         raise IntegrityError(f"{root}: {problems[0]} ({MANIFEST})")
     if problems:

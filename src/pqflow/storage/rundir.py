@@ -131,9 +131,13 @@ def acquire_lock(lock: str | Path, *, target: str | Path | None = None, reentran
                 f"since {since}); wait for it to finish. If that run is no longer running, "
                 f"delete {lock}"
             ) from None
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            json.dump(body, fh)
-            fh.write("\n")
+        try:
+            with os.fdopen(fd, "w", encoding="utf-8") as fh:
+                json.dump(body, fh)
+                fh.write("\n")
+        except BaseException:  # e.g. disk full: a lock that could not be written is not left behind
+            lock.unlink(missing_ok=True)
+            raise
         if reentrant:
             _HELD[key] = 1
         return lock

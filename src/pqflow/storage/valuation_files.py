@@ -136,6 +136,8 @@ def verify_valuation(run_dir: str | Path, out: str | Path | None = None) -> dict
     actual = run_manifest_sha256(run_dir)
     if expected is not None and actual is not None and expected != actual:
         problems.append(f"valued a different run (its manifest sha256 {expected[:12]}, this run's {actual[:12]})")
+    if len(problems) == 1:  # one problem, one line (as for the run's own manifest)
+        raise IntegrityError(f"{out}: {problems[0]} ({VALUATION_MANIFEST})")
     if problems:
         raise IntegrityError(f"{out}: files do not match {VALUATION_MANIFEST}:\n  " + "\n  ".join(problems))
     return manifest
