@@ -241,31 +241,33 @@ def _mc_heston_hw(p, hw, rho_sr, *, t, strikes, s0, r, n_paths, steps_per_year, 
     return disc[:, None] * np.maximum(sT[:, None] - np.asarray(strikes)[None, :], 0.0)
 
 
-def test_h1hw_error_against_monte_carlo_of_the_full_model() -> None:
+@pytest.mark.parametrize("rho_sr", [0.3, -0.3])
+def test_h1hw_error_against_monte_carlo_of_the_full_model(rho_sr: float) -> None:
     """The H1-HW approximation's error, measured as a difference of differences with common
     random numbers: [MC(rho) - MC(0)] - [H1HW(rho) - exact(0)] (the scheme's bias cancels to
     first order; the zero-correlation formula is exact). Measured with 200,000 paths (10 seeds of
     this set-up, 12 and 48 steps a year agree): at 10 years, rho_Sr = 0.3, the H1-HW formula
-    overstates the correlation's effect by 0.01, 0.10 and 0.30 (SE 0.04) per 100 of spot at
-    strikes 70, 100 and 140 (README). The bound checked here, 0.4 per 100 of spot plus 4 SE,
-    holds that statement; a wrong sign or size of the correlation term breaks it."""
+    overstates the correlation's effect by -0.01, 0.10 and 0.30 (SE 0.04) per 100 of spot at
+    strikes 70, 100 and 140; at rho_Sr = -0.3 (where W < 0 and the first-order form is used) by
+    -0.05, 0.09 and 0.38 (README). The bound checked here, 0.5 per 100 of spot plus 4 SE, holds
+    that statement; a wrong sign or size of the correlation term breaks it."""
     p = HestonParams(v0=0.04, kappa=1.0, theta=0.04, xi=0.5, rho=-0.6)
     hw = HullWhiteParams(mean_reversion=0.05, volatility=0.012)
     s0, r, t = 100.0, 0.02, 10.0
     strikes = [70.0, 100.0, 140.0]
-    pay_rho = _mc_heston_hw(p, hw, 0.3, t=t, strikes=strikes, s0=s0, r=r, n_paths=20000, steps_per_year=12, seed=5)
+    pay_rho = _mc_heston_hw(p, hw, rho_sr, t=t, strikes=strikes, s0=s0, r=r, n_paths=20000, steps_per_year=12, seed=5)
     pay_0 = _mc_heston_hw(p, hw, 0.0, t=t, strikes=strikes, s0=s0, r=r, n_paths=20000, steps_per_year=12, seed=5)
     diff = pay_rho - pay_0
     mc = diff.mean(axis=0)
     se = diff.std(axis=0, ddof=1) / np.sqrt(diff.shape[0])
     df = np.exp(-r * t)
     formula = (heston_option_price(p, level=s0, dividend_yield=0.0, discount=df, expiry=t, strike=strikes,
-                                   rates=hw, correlation=0.3)
+                                   rates=hw, correlation=rho_sr)
                - heston_option_price(p, level=s0, dividend_yield=0.0, discount=df, expiry=t, strike=strikes,
                                      rates=hw, correlation=0.0))
     err = mc - formula
     for k, e, sd, f in zip(strikes, err, se, formula):
         print(f"K {k:5.0f}: correlation effect formula {f:.4f}, MC {f + e:.4f} (SE {sd:.4f}), error {e:+.4f}")
-    assert np.all(np.abs(err) < 4.0 * se + 4e-3 * s0)
+    assert np.all(np.abs(err) < 4.0 * se + 5e-3 * s0)
     # the correlation effect itself is resolved (the test has power)
     assert np.all(np.abs(formula) > 3.5 * se)

@@ -40,6 +40,7 @@ from pqflow.calibration.parts import (
     schedule_json,
 )
 from pqflow.calibration.g2pp_swaptions import calibrate_g2pp_to_swaptions
+from pqflow.calibration.heston_parts import fit_heston_indices, heston_from_json, heston_to_json
 from pqflow.calibration.swaptions import SwaptionQuote, calibrate_hull_white_to_swaptions
 from pqflow.config.schema import RunConfig
 from pqflow.errors import CalibrationError, ConfigError, MarketDataError, MeasureError
@@ -71,6 +72,7 @@ from pqflow.measure.prices_of_risk import (
     real_world_factor_mean,
 )
 from pqflow.models.equity import EquityParams
+from pqflow.models.heston import HestonParams
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.cir_credit import CirCreditModel
@@ -119,6 +121,8 @@ class Calibration:
     #: Under G2++: the core equity's correlation with ``(rates_x, rates_y)`` (``equity.correlation``
     #: is then its correlation with the short-rate shock, for display).
     rates_correlation: tuple[float, float] | None = None
+    #: Indices with stochastic (Heston) variance, by name: their fitted parameters.
+    stochastic_volatility: dict[str, HestonParams] = field(default_factory=dict)
 
     @property
     def rates_model(self) -> str:
@@ -225,6 +229,8 @@ class Calibration:
             }
         if self.credit is not None:
             out["credit"] = credit_to_json(self.credit, self.credit_substeps_per_year)
+        if self.stochastic_volatility:
+            out["stochastic_volatility"] = heston_to_json(self.stochastic_volatility)
         return out
 
 
@@ -271,6 +277,8 @@ def _parts_from_json(par: dict[str, Any]) -> dict[str, Any]:
             out["extra_prices_of_risk"][k] = _load_schedule(v)
     if "credit" in par:
         out["credit"], out["credit_substeps_per_year"] = credit_from_json(par["credit"])
+    if "stochastic_volatility" in par:
+        out["stochastic_volatility"] = heston_from_json(par["stochastic_volatility"])
     return out
 
 
@@ -636,6 +644,11 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     credit = None
     if config.credit is not None:
         credit, fit["credit"] = calibrate_credit_part(config)
+    spots = {config.equity.name: (level, q), **{i.name: (i.level, i.income_yield) for i in indices}}
+    rho_by_index = {name: correlation.with_rates(name) for name in spots}
+    heston, heston_fits = fit_heston_indices(config, curve, rates, rho_by_index, spots)
+    if heston_fits:
+        fit["heston"] = heston_fits
     canon = json.dumps(inputs, sort_keys=True, separators=(",", ":")).encode("utf-8")
     return Calibration(
         valuation_date=config.run.valuation_date.isoformat(),
@@ -658,6 +671,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         inflation=inflation,
         credit=credit,
         credit_substeps_per_year=config.credit.substeps_per_year if config.credit is not None else 12,
+        stochastic_volatility=heston,
     )
 
 
@@ -679,6 +693,12 @@ def _rates_prices_of_risk(
 def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) -> EconomyModel:
     """The Gaussian scenario model both sets are simulated from (credit is simulated beside it,
     :mod:`pqflow.simulation.credit`)."""
+    if calibration.stochastic_volatility:
+        raise ConfigError(
+            f"index {', '.join(calibration.stochastic_volatility)}: volatility_model = \"heston\" is fitted and "
+            "reported by 'pqflow calibrate', but its simulation is not built yet; run with the deterministic "
+            "volatility model (the default) for scenarios"
+        )
     eq = calibration.equity
     core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield, volatility=eq.volatility)
     return EconomyModel(

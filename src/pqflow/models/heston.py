@@ -44,6 +44,14 @@ uncorrelated with them, so ``v`` keeps its Heston dynamics. The quadratic variat
   approximation's error against Monte Carlo of the full model is measured in
   ``tests/test_heston_pricing.py`` and stated in the README.
 
+**Negative rate term.** With a negative equity-rate correlation ``W(T)`` can be negative (the
+cross term outweighs the rates' own variance, typically below 10-20 years). The H1-HW
+characteristic function then grows like ``exp(u^2 |W| / 2)`` and is not integrable (QuantLib's
+H1-HW engine refuses negative correlation for this reason). There pqflow keeps the first-order
+term, ``phi_Heston(u) [1 - (i u + u^2) W / 2]``, i.e. ``C(W) = C_Heston + W K^2 C_KK / 2``
+(the price's derivative in total variance, a second strike derivative); the neglected terms
+are of order ``W^2``. The Monte Carlo test measures the result at negative correlation too.
+
 **Prices** by Lewis's formula (Lewis, *Option Valuation under Stochastic Volatility*, 2000):
 
     call = P(0,T) [F - sqrt(F K) / pi int_0^inf Re(e^{-i u k} phi(u - i/2)) / (u^2 + 1/4) du],
@@ -259,10 +267,15 @@ def heston_forward_option(
     f, k, t, df, w, kd = (z.ravel() for z in (f, k, t, df, w, kd))
     logm = np.log(k / f)
 
+    neg = w < 0.0
+
     def integrand(u: float) -> np.ndarray:
         z = u - 0.5j
-        expo = heston_log_cf(p, z, t) - 0.5 * (u * u + 0.25) * w
-        return np.real(np.exp(expo - 1j * u * logm)) / (u * u + 0.25)
+        a = 0.5 * (u * u + 0.25)
+        heston = np.exp(heston_log_cf(p, z, t) - 1j * u * logm)
+        # W < 0: the first-order term of exp(-a W) (module docstring, "Negative rate term")
+        rate = np.where(neg, 1.0 - a * w, np.exp(-a * np.where(neg, 0.0, w)))
+        return np.real(heston * rate) / (u * u + 0.25)
 
     integral, _ = quad_vec(integrand, 0.0, np.inf, epsabs=epsabs, epsrel=epsrel, limit=2000)
     call = f - np.sqrt(f * k) / np.pi * integral
