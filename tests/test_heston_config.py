@@ -73,11 +73,11 @@ def _smile_text(cal, p: HestonParams, expiries=(1.0, 3.0, 7.0), moneyness=(0.8, 
     return "\n".join(lines + [w + ",1" for w in world]) + "\n"
 
 
-def test_heston_index_calibrates_round_trips_and_is_not_simulated_yet(tmp_path) -> None:
-    """Recovery of known parameters through the whole calibration (files, rates, correlation),
-    the calibration.json round trip, and the clear refusal to simulate."""
+def test_heston_index_calibrates_and_round_trips(tmp_path) -> None:
+    """Recovery of known parameters through the whole calibration (files, rates, correlation)
+    and the calibration.json round trip."""
     base = assemble_calibration(load_config(DEMO))
-    true = HestonParams(v0=0.03, kappa=1.3, theta=0.045, xi=0.5, rho=-0.7)
+    true = HestonParams(v0=0.03, kappa=1.3, theta=0.045, xi=0.5, rho=-0.5)
     data = tomllib.loads(SMILE_DEMO.read_text())
     import shutil
     shutil.copytree(DEMO.parent / "market_data", tmp_path / "market_data")
@@ -95,10 +95,12 @@ def test_heston_index_calibrates_round_trips_and_is_not_simulated_yet(tmp_path) 
     assert fit["rmse_vol_points"] < 1e-3 and len(fit["rows"]) == 9
     assert "H1-HW" in fit["method"]  # the demo's equity correlates with rates
     cal = load_calibration(out)
-    assert cal.stochastic_volatility["veldmark_all_share"].as_dict() == {k: got[k] for k in true.as_dict()}
+    assert cal.stochastic_volatility["veldmark_all_share"].params.as_dict() == {k: got[k] for k in true.as_dict()}
     assert cal.to_json()["parameters"]["stochastic_volatility"] == payload["parameters"]["stochastic_volatility"]
-    with pytest.raises(ConfigError, match="not built yet"):
-        build_model(cal, (1.0,))
+    # every smile quote is an instrument the market-consistency check reprices
+    opts = [o for o in payload["instruments"]["equity_options"] if o["index"] == "veldmark_all_share"]
+    assert len(opts) == 9 and {o["kind"] for o in opts} == {"call", "put"}
+    build_model(cal, (1.0,))  # simulates (its Gaussian stand-in's price of risk is 0)
 
 
 def test_volatility_model_rules(tmp_path) -> None:

@@ -72,7 +72,7 @@ from pqflow.measure.prices_of_risk import (
     real_world_factor_mean,
 )
 from pqflow.models.equity import EquityParams
-from pqflow.models.heston import HestonParams
+from pqflow.models.heston import HestonIndex
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.cir_credit import CirCreditModel
@@ -121,8 +121,8 @@ class Calibration:
     #: Under G2++: the core equity's correlation with ``(rates_x, rates_y)`` (``equity.correlation``
     #: is then its correlation with the short-rate shock, for display).
     rates_correlation: tuple[float, float] | None = None
-    #: Indices with stochastic (Heston) variance, by name: their fitted parameters.
-    stochastic_volatility: dict[str, HestonParams] = field(default_factory=dict)
+    #: Indices with stochastic (Heston) variance, by name (:mod:`pqflow.simulation.heston_part`).
+    stochastic_volatility: dict[str, HestonIndex] = field(default_factory=dict)
 
     @property
     def rates_model(self) -> str:
@@ -644,11 +644,12 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     credit = None
     if config.credit is not None:
         credit, fit["credit"] = calibrate_credit_part(config)
-    spots = {config.equity.name: (level, q), **{i.name: (i.level, i.income_yield) for i in indices}}
-    rho_by_index = {name: correlation.with_rates(name) for name in spots}
-    heston, heston_fits = fit_heston_indices(config, curve, rates, rho_by_index, spots)
+    spots = {config.equity.name: (level, q, "equity"), **{i.name: (i.level, i.income_yield, i.kind) for i in indices}}
+    heston, heston_fits, heston_options = fit_heston_indices(config, curve, rates, correlation, spots)
     if heston_fits:
         fit["heston"] = heston_fits
+        # a Heston index is repriced at every quoted strike, not at its ATMF quotes
+        equity_options = [o for o in equity_options if o["index"] not in heston] + heston_options
     canon = json.dumps(inputs, sort_keys=True, separators=(",", ":")).encode("utf-8")
     return Calibration(
         valuation_date=config.run.valuation_date.isoformat(),
@@ -693,12 +694,6 @@ def _rates_prices_of_risk(
 def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) -> EconomyModel:
     """The Gaussian scenario model both sets are simulated from (credit is simulated beside it,
     :mod:`pqflow.simulation.credit`)."""
-    if calibration.stochastic_volatility:
-        raise ConfigError(
-            f"index {', '.join(calibration.stochastic_volatility)}: volatility_model = \"heston\" is fitted and "
-            "reported by 'pqflow calibrate', but its simulation is not built yet; run with the deterministic "
-            "volatility model (the default) for scenarios"
-        )
     eq = calibration.equity
     core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield, volatility=eq.volatility)
     return EconomyModel(
@@ -710,6 +705,9 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
             **_rates_prices_of_risk(calibration.rates, calibration.prices_of_risk.rates),
             eq.name: calibration.prices_of_risk.equity,
             **calibration.extra_prices_of_risk,
+            # a Heston index's driver: its Gaussian state is not written (the Heston part writes
+            # the index) and its price of risk is the Heston part's, so none here
+            **{name: 0.0 for name in calibration.stochastic_volatility},
         },
         bond_maturities=tuple(bond_maturities),
     )

@@ -90,7 +90,8 @@ class HestonBounds:
 @dataclass(frozen=True, kw_only=True)
 class HestonFitRow:
     """One quote repriced: vols in decimals, ``vol_points`` the difference model - market in
-    vol points (0.01); prices per unit of index level, on the quote's out-of-the-money side."""
+    vol points (0.01); prices in index points (for the given level), on the quote's
+    out-of-the-money side."""
 
     expiry: float
     moneyness: float

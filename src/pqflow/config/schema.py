@@ -122,6 +122,11 @@ class EquitySection(_Section):
     #: ``"deterministic"`` (default: a piecewise-constant volatility from the ATMF quotes) or
     #: ``"heston"`` (stochastic variance fitted to the smile in market_data.equity_vols).
     volatility_model: Literal["deterministic", "heston"] = "deterministic"
+    #: heston only: the house view's real-world long-run volatility (sets the variance price of
+    #: risk; default: the variance price of risk that leaves the variance's own shock unshifted)
+    real_world_long_run_volatility: float | None = Field(default=None, gt=0.0, le=2.0)
+    #: heston only: substeps of the variance scheme per year
+    variance_substeps_per_year: int = Field(default=12, ge=1, le=365)
 
     @field_validator("correlation_with_rates")
     @classmethod
@@ -164,6 +169,11 @@ class IndexSection(_Section):
     risk_premium: float = Field(ge=-0.2, le=0.3)
     #: as ``equity.volatility_model``
     volatility_model: Literal["deterministic", "heston"] = "deterministic"
+    #: heston only: the house view's real-world long-run volatility (sets the variance price of
+    #: risk; default: the variance price of risk that leaves the variance's own shock unshifted)
+    real_world_long_run_volatility: float | None = Field(default=None, gt=0.0, le=2.0)
+    #: heston only: substeps of the variance scheme per year
+    variance_substeps_per_year: int = Field(default=12, ge=1, le=365)
 
     @model_validator(mode="after")
     def _pair(self) -> IndexSection:

@@ -28,15 +28,16 @@ infinite); a change of ``kappa theta`` (a variance price of risk not proportiona
 volatility of variance different from ``xi`` can never be reached by a change of drift.
 
 Density weights of the scheme (:func:`pqflow.models.heston.simulate_heston_paths`): each
-substep moves the index and the variance with two independent standard normals
-``z = (z_S, z_perp)``, ``dB_S = sqrt(h) z_S``, ``dW_v = sqrt(h) (rho z_S + sqrt(1 - rho^2) z_perp)``.
-Given the past, the two measures' substep laws are Gaussian with the same covariance and means
-that differ by the shifts of ``dB_S`` and ``dW_v`` above, evaluated at the substep's start (a
-predictable shift). In the independent normals that is
-
-    eta = sqrt(v^+ h) (lambda_S, (lambda_v - rho lambda_S) / sqrt(1 - rho^2)),
-
-and the discretised Girsanov exponent ``log dQ/dP = sum [-eta.z - |eta|^2/2]`` (real-world set,
+substep moves the index and the variance with independent standard normals of this part's own
+stream (and, when it correlates with Gaussian drivers, their increments from the economy,
+whose own shifts are in the economy's density). Given the past, the two measures' substep laws are Gaussian with the same
+covariance and means that differ by the shifts of ``dB_S`` and ``dW_v`` above, evaluated at the
+substep's start (a predictable shift). In the independent normals that is the shift ``eta`` of
+:func:`heston_density_coefficients` (``sqrt(v^+ h) (lambda_S, (lambda_v - rho lambda_S) /
+sqrt(1 - rho^2))`` without rates correlation), plus, for the Brownian bridge that fills in the
+projection on the Gaussian drivers within an output step, the deterministic shift
+``(c_j - mean c) / sqrt(explained h)`` of its normals (``c_j`` the projection's shift over
+substep ``j``; zero when the prices of risk are constant over the step). The discretised Girsanov exponent ``log dQ/dP = sum [-eta.z - |eta|^2/2]`` (real-world set,
 ``z`` drawn under P) or ``log dP/dQ = sum [+eta.z - |eta|^2/2]`` (market-consistent set) is the
 exact likelihood ratio of the two discretised chains. Where ``v^+ = 0`` both shifts vanish.
 """
@@ -62,15 +63,36 @@ class HestonPricesOfRisk:
 
 
 def heston_prices_of_risk(
-    *, kappa: float, theta: float, xi: float, equity_risk_premium: float, real_world_long_run_volatility: float | None
+    *,
+    kappa: float,
+    theta: float,
+    xi: float,
+    equity_risk_premium: float,
+    real_world_long_run_volatility: float | None,
+    rho: float = 0.0,
+    explained: float = 0.0,
 ) -> HestonPricesOfRisk:
     """The prices of risk of the module docstring from the house view: an equity risk premium
-    ``pi`` at the real-world long-run variance, and a real-world long-run volatility (``None``:
-    the market-consistent ``sqrt(theta)``, no variance price of risk)."""
+    ``pi`` at the real-world long-run variance, and a real-world long-run volatility.
+
+    Without a stated real-world long-run volatility (``None``) the variance price of risk is the
+    one that shifts the variance's own independent shock by nothing (only the index's
+    independent shock carries the equity premium): ``lambda_v = rho lambda_S / s^2`` with
+    ``s^2 = 1 - explained`` (:func:`heston_density_coefficients`), which keeps the density's
+    variance least; then ``theta^P = theta + xi rho pi / (s^2 kappa)`` solves
+    ``lambda_S = pi / theta^P``, ``kappa^P = kappa - xi lambda_v``, ``kappa^P theta^P = kappa theta``.
+    Refused (``ValueError``, with the reason) when that gives no positive ``theta^P``."""
     if not (kappa > 0.0 and theta > 0.0 and xi > 0.0):
         raise ValueError("Heston kappa, theta and xi must be positive")
     if real_world_long_run_volatility is None:
-        theta_p = theta
+        s2 = 1.0 - explained
+        theta_p = theta + xi * rho * equity_risk_premium / (s2 * kappa)
+        if not theta_p > 0.0:
+            raise ValueError(
+                f"without a real-world long-run volatility the equity premium {equity_risk_premium:g} with leverage "
+                f"rho {rho:g} would make the real-world long-run variance {theta_p:.4g} not positive; state "
+                "real_world_long_run_volatility"
+            )
     else:
         if not real_world_long_run_volatility > 0.0:
             raise ValueError(
@@ -85,17 +107,41 @@ def heston_prices_of_risk(
 
 
 def heston_density_coefficients(
-    lam: HestonPricesOfRisk, rho: float, variance_plus: np.ndarray, substep: float
+    lam: HestonPricesOfRisk,
+    rho: float,
+    variance_plus: np.ndarray,
+    substep: float,
+    *,
+    explained: float = 0.0,
+    projection_shift: float = 0.0,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """``eta = (eta_S, eta_perp)`` of one substep (module docstring), each shaped like
-    ``variance_plus`` (the truncated variance at the substep's start)."""
-    s = np.sqrt(np.maximum(variance_plus, 0.0) * substep)
-    return lam.equity * s, (lam.variance - rho * lam.equity) / np.sqrt(1.0 - rho * rho) * s
+    """``eta = (eta_perp, eta_v)`` of one substep, each shaped like ``variance_plus`` (the
+    truncated variance at the substep's start).
+
+    The index driver is ``B_S = P + s B_perp`` (``P`` its projection on Gaussian drivers,
+    ``s^2 = 1 - explained``) and the variance's ``W_v = (rho / s) B_perp + c B_v``
+    (:func:`pqflow.models.heston.simulate_heston_paths`); the economy shifts ``P`` by
+    ``projection_shift = sum_j beta_j int lambda_j dt`` over the substep. For ``B_S`` to be
+    shifted by ``lambda_S sqrt(v) h`` and ``W_v`` by ``lambda_v sqrt(v) h``, the independent
+    normals shift by
+
+        eta_perp = (lambda_S sqrt(v) h - projection_shift) / (s sqrt(h)),
+        eta_v    = (lambda_v sqrt(v) sqrt(h) - (rho / s) eta_perp) / c.
+
+    Without projection this is ``sqrt(v h) (lambda_S, (lambda_v - rho lambda_S) / sqrt(1 - rho^2))``.
+    The part ``projection_shift`` is bounded and deterministic (it does not affect
+    equivalence)."""
+    sq = np.sqrt(np.maximum(variance_plus, 0.0))
+    s_perp = np.sqrt(1.0 - explained)
+    a_v = rho / s_perp
+    c_v = np.sqrt(1.0 - a_v * a_v)
+    sqrt_h = np.sqrt(substep)
+    eta_perp = (lam.equity * sq * substep - projection_shift) / (s_perp * sqrt_h)
+    eta_v = (lam.variance * sq * sqrt_h - a_v * eta_perp) / c_v
+    return eta_perp, eta_v
 
 
-def heston_log_density_increment(
-    z_s: np.ndarray, z_perp: np.ndarray, eta_s: np.ndarray, eta_perp: np.ndarray, *, measure: str
-) -> np.ndarray:
+def heston_log_density_increment(z_s, z_perp, eta_s, eta_perp, *, measure: str) -> np.ndarray:
     """One substep's log density increment from the normals that drove it: ``log dQ/dP`` in
     the real-world set, ``log dP/dQ`` in the market-consistent set."""
     linear = eta_s * z_s + eta_perp * z_perp

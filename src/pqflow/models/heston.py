@@ -85,6 +85,7 @@ __all__ = [
     "variance_column",
     "HestonPaths",
     "simulate_heston_paths",
+    "HestonIndex",
 ]
 
 _GAUSS_NODES = 64  # Gauss-Legendre nodes of the H1-HW time integral (smooth integrand)
@@ -346,14 +347,28 @@ def simulate_heston_paths(
     log_carry: np.ndarray,
     prices_of_risk=None,
     antithetic: bool = False,
+    explained: float = 0.0,
+    projection_increments: np.ndarray | None = None,
+    projection_shift: np.ndarray | None = None,
 ) -> HestonPaths:
     """The Heston index on ``times`` with ``substeps`` equal substeps per output step.
 
+    Drivers. The index's driver is ``B_S = P + s B_perp``: ``P = sum_j beta_j B_j`` its
+    projection on Gaussian drivers of the economy (variance ``explained = 1 - s^2`` per year) and
+    ``B_perp`` independent of every Gaussian driver; the variance's driver is
+    ``W_v = (rho / s) B_perp + c B_v`` (``c = sqrt(1 - rho^2 / s^2)``), so that
+    ``corr(B_S, W_v) = rho``, ``corr(B_S, B_j)`` is the configured correlation and
+    ``corr(W_v, B_j) = 0`` for every Gaussian driver. ``projection_increments`` ``(n, n_steps)``:
+    ``P``'s increment over each output step (in the set's measure, from the economy); within the
+    step ``P`` is filled in by a Brownian bridge from this part's own normals ``u_j``:
+    ``dP_j = dP / m + sqrt(explained h) (u_j - mean(u))`` (exact in law for Brownian increments
+    given their sum).
+
     Scheme (full truncation for the variance, Lord, Koekkoek and van Dijk, *Quantitative Finance*
     10 (2010); log-Euler for the index), per substep ``h`` with independent normals
-    ``(z_S, z_perp)`` from ``rng`` (drawn as ``(substeps, 2, n)`` per output step):
+    ``(z_perp, z_v[, u])`` from ``rng`` (drawn as ``(substeps, 2 or 3, n)`` per output step):
 
-        dB_S = sqrt(h) z_S,   dW_v = sqrt(h) (rho z_S + sqrt(1 - rho^2) z_perp),
+        dB_S = dP_j + s sqrt(h) z_perp,   dW_v = sqrt(h) ((rho / s) z_perp + c z_v),
         ln S += carry_k h / Dt_k + lambda_S v^+ h - v^+ h / 2 + sqrt(v^+) dB_S,
         x    += (kappa theta - kappa_m v^+) h + xi sqrt(v^+) dW_v,     v^+ = max(x, 0),
 
@@ -361,14 +376,16 @@ def simulate_heston_paths(
     market-consistent set; ``S`` is the total-return index (income reinvested; the price index
     is ``S e^{-qt}``). ``log_carry``: ``(n, n_steps)``, the log growth of the cash account over
     each output step, ``int r dt`` (from the economy's cash account, or deterministic), spread
-    evenly over the substeps (the deflated index does not depend on it).
+    evenly over the substeps (the deflated index does not depend on it). ``projection_shift``
+    ``(n_steps, substeps)``: ``sum_j beta_j int lambda_j dt`` over each substep, the real-world
+    shift the economy gives ``P`` (``dB^Q_j = dB^P_j + lambda_j dt``).
     ``prices_of_risk``: :class:`pqflow.measure.heston_density.HestonPricesOfRisk` (``None``: no
     change of measure, density 1). The deflated index ``S_t / B_t`` is a martingale of the
-    scheme in the market-consistent set: each substep's factor ``exp(sqrt(v^+) dB - v^+ h / 2)``
+    scheme in the market-consistent set: each substep's factor ``exp(sqrt(v^+) dB_S - v^+ h / 2)``
     has conditional mean 1 because ``v^+`` is known at the substep's start.
 
-    Antithetic: paths ``(2j, 2j+1)`` use ``z`` and ``-z``; the partner is simulated (the scheme is
-    not linear in ``z``), not mirrored.
+    Antithetic: paths ``(2j, 2j+1)`` use ``z`` and ``-z`` (and the economy's mirrored drivers);
+    the partner is simulated (the scheme is not linear in ``z``), not mirrored.
     """
     from pqflow.measure.heston_density import heston_density_coefficients, heston_log_density_increment
 
@@ -380,13 +397,25 @@ def simulate_heston_paths(
         raise ValueError(f"log_carry must have shape {(n_paths, n_steps)}, not {log_carry.shape}")
     if antithetic and n_paths % 2:
         raise ValueError("antithetic sampling needs an even number of paths")
+    with_rates = explained != 0.0
+    if with_rates and (projection_increments is None or projection_increments.shape != (n_paths, n_steps)):
+        raise ValueError(f"a projection on the economy needs projection_increments of shape {(n_paths, n_steps)}")
+    shift = np.zeros((n_steps, substeps)) if projection_shift is None else np.asarray(projection_shift, dtype=float)
+    if shift.shape != (n_steps, substeps):
+        raise ValueError(f"projection_shift must have shape {(n_steps, substeps)}, not {shift.shape}")
+    if not (0.0 <= explained < 1.0 and p.rho**2 < 1.0 - explained):
+        raise ValueError(f"needs 0 <= explained < 1 - rho^2, got explained {explained!r} and rho {p.rho!r}")
     n_draw = n_paths // 2 if antithetic else n_paths
     lam = prices_of_risk
     real = measure == "real_world"
     kappa_m = lam.kappa_real_world if (real and lam is not None) else p.kappa
     lam_s = lam.equity if (real and lam is not None) else 0.0
     kappa_theta = p.kappa * p.theta
-    c_rho = np.sqrt(1.0 - p.rho * p.rho)
+    s_perp = np.sqrt(1.0 - explained)
+    s_proj = np.sqrt(explained)
+    a_v = p.rho / s_perp
+    c_v = np.sqrt(1.0 - a_v * a_v)
+    rows = 3 if with_rates else 2
     x = np.full(n_paths, p.v0)
     vp = x.copy()
     lnS = np.zeros(n_paths)
@@ -399,24 +428,71 @@ def simulate_heston_paths(
         dt = times[k + 1] - times[k]
         h = dt / substeps
         sqrt_h = np.sqrt(h)
-        draw = rng.standard_normal((substeps, 2, n_draw))
+        draw = rng.standard_normal((substeps, rows, n_draw))
         if antithetic:
-            z_all = np.empty((substeps, 2, n_paths))
+            z_all = np.empty((substeps, rows, n_paths))
             z_all[:, :, 0::2] = draw
             z_all[:, :, 1::2] = -draw
         else:
             z_all = draw
         carry = log_carry[:, k] / substeps
+        if with_rates:
+            u = z_all[:, 2, :]
+            bridge = projection_increments[:, k] / substeps + s_proj * sqrt_h * (u - u.mean(axis=0))
+            c_shift = shift[k] - shift[k].mean()  # the bridge's own shift between the measures
         for j in range(substeps):
-            zs, zp = z_all[j, 0], z_all[j, 1]
+            zp, zv = z_all[j, 0], z_all[j, 1]
             sq = np.sqrt(vp)
             if lam is not None:
-                es, ep = heston_density_coefficients(lam, p.rho, vp, h)
-                logw += heston_log_density_increment(zs, zp, es, ep, measure=measure)
-            lnS += carry + (lam_s - 0.5) * vp * h + sq * sqrt_h * zs
-            x += (kappa_theta - kappa_m * vp) * h + p.xi * sq * sqrt_h * (p.rho * zs + c_rho * zp)
+                es, ep = heston_density_coefficients(lam, p.rho, vp, h, explained=explained,
+                                                     projection_shift=float(shift[k, j]))
+                logw += heston_log_density_increment(zp, zv, es, ep, measure=measure)
+                if with_rates and c_shift[j] != 0.0:
+                    eu = c_shift[j] / (s_proj * sqrt_h)
+                    logw += heston_log_density_increment(z_all[j, 2], 0.0, eu, 0.0, measure=measure)
+            d_bs = s_perp * sqrt_h * zp
+            if with_rates:
+                d_bs = d_bs + bridge[j]
+            lnS += carry + (lam_s - 0.5) * vp * h + sq * d_bs
+            x += (kappa_theta - kappa_m * vp) * h + p.xi * sq * sqrt_h * (a_v * zp + c_v * zv)
             vp = np.maximum(x, 0.0)
         out_s[:, k + 1] = lnS
         out_v[:, k + 1] = vp
         out_w[:, k + 1] = logw
     return HestonPaths(log_return=out_s, variance=out_v, log_density=out_w)
+
+
+@dataclass(frozen=True, kw_only=True)
+class HestonIndex:
+    """A total-return index with Heston variance, as a run simulates it.
+
+    column: the index-level column it writes (as a deterministic-volatility index would);
+    level, income_yield: today's level and dividend (or rental) yield; params: the
+    market-consistent Heston parameters; prices_of_risk:
+    :class:`pqflow.measure.heston_density.HestonPricesOfRisk`; loadings: ``(driver, beta_j)``,
+    the index driver's projection on Gaussian drivers whose increments the economy's columns
+    give (:mod:`pqflow.simulation.heston_part`), ``explained`` the projection's variance share;
+    rates_correlation: the correlation with the rate driver (Hull-White; 0 under G2++), for the
+    pricing formula; substeps_per_year: the scheme's substeps.
+    """
+
+    name: str
+    column: str
+    level: float
+    income_yield: float
+    params: HestonParams
+    prices_of_risk: object
+    loadings: tuple[tuple[str, float], ...]
+    explained: float
+    rates_correlation: float
+    substeps_per_year: int
+
+    def __post_init__(self) -> None:
+        if not 0.0 <= self.explained < 1.0 - self.params.rho**2:
+            raise ValueError(
+                f"index {self.name}: the variance shock cannot have correlation {self.params.rho:g} with the index "
+                f"and 0 with the other drivers when they explain {self.explained:.3g} of the index's variance "
+                "(needs rho^2 + explained < 1)"
+            )
+        if self.substeps_per_year < 1:
+            raise ValueError(f"index {self.name}: substeps_per_year must be at least 1")
