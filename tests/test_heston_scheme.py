@@ -175,3 +175,26 @@ def test_scheme_bias_on_option_prices() -> None:
             if sub == 12:
                 assert np.all(np.abs(bias[sub]) < 0.15 + 4 * se)
         assert np.max(np.abs(bias[1])) > 0.5
+
+
+def test_real_world_expected_growth_closed_form_against_the_scheme() -> None:
+    """ln E^P[S_t/(S_0 B_t)] from the CIR Laplace transform (Cox-Ingersoll-Ross 1985, at a
+    negative rate) against the real-world scheme with weekly substeps (bias of the scheme
+    included in the tolerance: 4 SE + 0.002)."""
+    from pqflow.models.heston import real_world_log_excess_growth
+
+    times = np.arange(0.0, 11.0, 2.0)
+    n = 40_000
+    paths = _run(P, times, measure="real_world", n=n, substeps=52, seed=9, antithetic=True)
+    carry = 0.02 * times[None, :]
+    x = np.exp(paths.log_return - carry)
+    pairs = 0.5 * (x[0::2] + x[1::2])
+    mean, se = pairs.mean(axis=0)[1:], pairs.std(axis=0)[1:] / np.sqrt(pairs.shape[0])
+    ref = np.exp(real_world_log_excess_growth(P, LAM, times[1:]))
+    print("E[S/B]/S0 by t: MC", np.round(mean, 4), "closed form", np.round(ref, 4), "SE", np.round(se, 4))
+    assert np.all(np.abs(mean - ref) < 4 * se + 0.002 * ref)
+    # the premium per year tends to lambda_S theta' (slightly above pi because of the leverage term)
+    with pytest.raises(ValueError, match="not finite"):
+        big = heston_prices_of_risk(kappa=0.3, theta=0.04, xi=1.0, equity_risk_premium=0.5,
+                                    real_world_long_run_volatility=0.2)
+        real_world_log_excess_growth(HestonParams(v0=0.04, kappa=0.3, theta=0.04, xi=1.0, rho=0.5), big, 10.0)

@@ -11,14 +11,14 @@ from typing import Any
 
 import numpy as np
 
-from pqflow.calibration.heston_fit import HestonBounds, HestonQuote, calibrate_heston, heston_params_from_json
+from pqflow.calibration.heston_fit import HestonBounds, HestonQuote, calibrate_heston
 from pqflow.config.schema import RunConfig
 from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.data_files import read_equity_vols
 from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.measure.heston_density import HestonPricesOfRisk, heston_prices_of_risk
-from pqflow.models.heston import HestonIndex
+from pqflow.measure.heston_density import heston_prices_of_risk
+from pqflow.models.heston import HestonIndex, heston_indices_from_json, heston_indices_to_json
 from pqflow.models.total_return import index_column
 from pqflow.models.hull_white import HullWhiteParams
 
@@ -144,25 +144,5 @@ def fit_heston_indices(
     return out, fits, instruments
 
 
-def heston_to_json(indices: dict[str, HestonIndex]) -> dict[str, Any]:
-    return {
-        name: {"model": "heston", **h.params.as_dict(), "column": h.column, "level": h.level,
-               "income_yield": h.income_yield, "prices_of_risk": vars(h.prices_of_risk),
-               "loadings": [list(x) for x in h.loadings], "explained": h.explained,
-               "rates_correlation": h.rates_correlation, "substeps_per_year": h.substeps_per_year}
-        for name, h in indices.items()
-    }
-
-
-def heston_from_json(data: dict[str, Any]) -> dict[str, HestonIndex]:
-    out = {}
-    for name, entry in data.items():
-        if entry.get("model") != "heston":
-            raise ValueError(f"stochastic_volatility.{name}: unknown model {entry.get('model')!r}")
-        out[name] = HestonIndex(
-            name=name, column=str(entry["column"]), level=float(entry["level"]), income_yield=float(entry["income_yield"]),
-            params=heston_params_from_json(entry), prices_of_risk=HestonPricesOfRisk(**entry["prices_of_risk"]),
-            loadings=tuple((str(d), float(b)) for d, b in entry["loadings"]), explained=float(entry["explained"]),
-            rates_correlation=float(entry["rates_correlation"]), substeps_per_year=int(entry["substeps_per_year"]),
-        )
-    return out
+heston_to_json = heston_indices_to_json
+heston_from_json = heston_indices_from_json

@@ -64,6 +64,7 @@ for all options at once.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy.integrate import quad_vec
@@ -86,6 +87,9 @@ __all__ = [
     "HestonPaths",
     "simulate_heston_paths",
     "HestonIndex",
+    "real_world_log_excess_growth",
+    "heston_indices_to_json",
+    "heston_indices_from_json",
 ]
 
 _GAUSS_NODES = 64  # Gauss-Legendre nodes of the H1-HW time integral (smooth integrand)
@@ -496,3 +500,62 @@ class HestonIndex:
             )
         if self.substeps_per_year < 1:
             raise ValueError(f"index {self.name}: substeps_per_year must be at least 1")
+
+
+def real_world_log_excess_growth(p: HestonParams, prices_of_risk, t: np.ndarray | float) -> np.ndarray:
+    """``ln E^P[S_t / (S_0 B_t)]`` of a Heston index whose real-world premium is ``lambda_S v``.
+
+    Under P, ``S_t / (S_0 B_t) = exp(lambda_S int v) M_t`` with ``M = exp(int sqrt(v) dB_S -
+    int v / 2)`` a P-martingale; under ``dR = M dP`` the variance driver gains the drift
+    ``rho sqrt(v)`` (Girsanov), so ``v`` is CIR with ``k' = kappa^P - xi rho`` and
+    ``k' theta' = kappa theta``, and the expectation is the CIR Laplace transform at the negative
+    rate ``-lambda_S`` (Cox, Ingersoll and Ross 1985; the CIR bond price):
+    ``ln A(t) - B(t) v0`` with ``h = sqrt(k'^2 - 2 lambda_S xi^2)``,
+    ``B = -2 lambda_S (e^{ht} - 1) / (2h + (k' + h)(e^{ht} - 1))``,
+    ``ln A = (2 kappa theta / xi^2) ln(2h e^{(k' + h) t / 2} / (2h + (k' + h)(e^{ht} - 1)))``.
+    Raises ``ValueError`` when ``k'^2 <= 2 lambda_S xi^2`` (the expectation is infinite at some
+    finite horizon: a premium this large is not a usable real-world model)."""
+    t = np.asarray(t, dtype=float)
+    lam = prices_of_risk.equity
+    k1 = prices_of_risk.kappa_real_world - p.xi * p.rho
+    disc = k1 * k1 - 2.0 * lam * p.xi**2
+    if not (k1 > 0.0 and disc > 0.0):
+        raise ValueError(
+            f"the real-world expected growth of this Heston index is not finite (k' = {k1:.4g}, k'^2 - 2 lambda_S "
+            f"xi^2 = {disc:.4g}): lower the equity premium or raise kappa"
+        )
+    h = np.sqrt(disc)
+    em1 = np.expm1(h * t)
+    den = 2.0 * h + (k1 + h) * em1
+    b = -2.0 * lam * em1 / den
+    log_a = (2.0 * p.kappa * p.theta / p.xi**2) * (np.log(2.0 * h) + 0.5 * (k1 + h) * t - np.log(den))
+    return log_a - b * p.v0
+
+
+def heston_indices_to_json(indices: dict[str, HestonIndex]) -> dict[str, Any]:
+    """The ``calibration.json`` form of a run's Heston indices (``parameters.stochastic_volatility``)."""
+    return {
+        name: {"model": "heston", **h.params.as_dict(), "column": h.column, "level": h.level,
+               "income_yield": h.income_yield, "prices_of_risk": dict(vars(h.prices_of_risk)),
+               "loadings": [list(x) for x in h.loadings], "explained": h.explained,
+               "rates_correlation": h.rates_correlation, "substeps_per_year": h.substeps_per_year}
+        for name, h in indices.items()
+    }
+
+
+def heston_indices_from_json(data: dict[str, Any]) -> dict[str, HestonIndex]:
+    """Inverse of :func:`heston_indices_to_json` (``ValueError`` naming the entry otherwise)."""
+    from pqflow.measure.heston_density import HestonPricesOfRisk
+
+    out = {}
+    for name, entry in data.items():
+        if entry.get("model") != "heston":
+            raise ValueError(f"stochastic_volatility.{name}: unknown model {entry.get('model')!r}")
+        out[name] = HestonIndex(
+            name=name, column=str(entry["column"]), level=float(entry["level"]), income_yield=float(entry["income_yield"]),
+            params=HestonParams(**{k: float(entry[k]) for k in ("v0", "kappa", "theta", "xi", "rho")}),
+            prices_of_risk=HestonPricesOfRisk(**{k: float(v) for k, v in entry["prices_of_risk"].items()}),
+            loadings=tuple((str(d), float(b)) for d, b in entry["loadings"]), explained=float(entry["explained"]),
+            rates_correlation=float(entry["rates_correlation"]), substeps_per_year=int(entry["substeps_per_year"]),
+        )
+    return out

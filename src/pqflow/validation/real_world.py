@@ -221,6 +221,25 @@ def _index_premia(inputs: RunInputs, names: list[str], core: str | None) -> list
     return out
 
 
+def _heston_premia(inputs: RunInputs) -> dict[str, Any]:
+    """For each Heston index (``parameters["stochastic_volatility"]``): its column and the
+    expected ``(1/t) ln E[S_t/(S_0 B_t)]`` as a function of ``t`` (the premium ``lambda_S v`` is
+    stochastic, so the target moves with ``t``; :func:`pqflow.models.heston.real_world_log_excess_growth`)."""
+    from pqflow.models.heston import heston_indices_from_json as heston_from_json
+    from pqflow.models.heston import real_world_log_excess_growth
+
+    try:
+        specs = heston_from_json(inputs.parameters.get("stochastic_volatility", {}) or {})
+    except (KeyError, TypeError, ValueError):
+        return {}
+    out = {}
+    for spec in specs.values():
+        def expected(t: float, spec=spec) -> float:
+            return float(real_world_log_excess_growth(spec.params, spec.prices_of_risk, t)) / t
+        out[spec.column] = expected
+    return out
+
+
 def _premium_row(label: str, t: float, expected: float, excess, total, cash, k: int) -> dict[str, Any]:
     """Risk-premium target cell at output time index ``k``: ``(1/t) ln E[S_t/(S_0 B_t)]``
     with its delta-method standard error, and the ratio of expectations beside it."""
@@ -293,15 +312,18 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
                 "estimate": mean, "std_error": se, "z_score": _z(mean - float(value), se, float(value)),
             })
     erp = _erp_input(inputs)
+    heston = _heston_premia(inputs)
     if erp is not None and e_col is not None:
         for k in range(1, times.size):
+            t = float(times[k])
             target_rows.append(_premium_row(
-                "equity risk premium: (1/t) ln E[S_t/(S_0 B_t)]", float(times[k]), erp,
+                "equity risk premium: (1/t) ln E[S_t/(S_0 B_t)]", t, heston[e_col](t) if e_col in heston else erp,
                 acc[f"excess:{e_col}"], acc[f"total:{e_col}"], acc["cash"], k))
     for col, premium in premia:
         for k in range(1, times.size):
+            t = float(times[k])
             target_rows.append(_premium_row(
-                f"risk premium of {col}: (1/t) ln E[S_t/(S_0 B_t)]", float(times[k]), premium,
+                f"risk premium of {col}: (1/t) ln E[S_t/(S_0 B_t)]", t, heston[col](t) if col in heston else premium,
                 acc[f"excess:{col}"], acc[f"total:{col}"], acc["cash"], k))
     targets = pd.DataFrame(target_rows)
     stats, pct = real_world_statistics(inputs)
