@@ -696,18 +696,39 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
     :mod:`pqflow.simulation.credit`)."""
     eq = calibration.equity
     core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield, volatility=eq.volatility)
+    lams = {
+        **_rates_prices_of_risk(calibration.rates, calibration.prices_of_risk.rates),
+        eq.name: calibration.prices_of_risk.equity,
+        **calibration.extra_prices_of_risk,
+    }
+    corr = calibration.driver_correlation
+    for name in calibration.stochastic_volatility:
+        # A Heston index's Gaussian stand-in is not written (the Heston part writes the index and
+        # carries its premium). Its price of risk is the one the other drivers imply for it, so its
+        # own independent shock is not shifted and adds nothing to the density's variance.
+        lams[name] = _implied_price_of_risk(name, corr, lams, set(calibration.stochastic_volatility))
     return EconomyModel(
         curve=calibration.curve,
         rates=calibration.rates,
         parts=(core, *calibration.indices, *((calibration.inflation,) if calibration.inflation is not None else ())),
-        correlation=calibration.driver_correlation.matrix,
-        prices_of_risk={
-            **_rates_prices_of_risk(calibration.rates, calibration.prices_of_risk.rates),
-            eq.name: calibration.prices_of_risk.equity,
-            **calibration.extra_prices_of_risk,
-            # a Heston index's driver: its Gaussian state is not written (the Heston part writes
-            # the index) and its price of risk is the Heston part's, so none here
-            **{name: 0.0 for name in calibration.stochastic_volatility},
-        },
+        correlation=corr.matrix,
+        prices_of_risk=lams,
         bond_maturities=tuple(bond_maturities),
     )
+
+
+def _implied_price_of_risk(
+    name: str, corr: DriverCorrelation, lams: dict[str, float | PiecewiseConstant], heston: set[str]
+) -> PiecewiseConstant:
+    """``sum_j beta_j lambda_j(t)``: the regression of driver ``name`` on the other drivers
+    (Heston ones left out), ``beta = C_OO^{-1} C_O,name``, applied to their prices of risk."""
+    names = list(corr.names)
+    others = [j for j, n in enumerate(names) if n != name and n not in heston]
+    i = names.index(name)
+    if not others:
+        return PiecewiseConstant.constant(0.0)
+    beta = np.linalg.solve(corr.matrix[np.ix_(others, others)], corr.matrix[others, i])
+    scheds = [as_schedule(lams.get(names[j], 0.0)) for j in others]
+    knots = sorted({k for s in scheds for k in s.knots})
+    values = [float(sum(b * float(s(k)) for b, s in zip(beta, scheds))) for k in knots]
+    return PiecewiseConstant(knots=tuple(knots), values=tuple(values))

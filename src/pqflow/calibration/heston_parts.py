@@ -124,8 +124,7 @@ def fit_heston_indices(
         p = report.params
         try:
             lam = heston_prices_of_risk(kappa=p.kappa, theta=p.theta, xi=p.xi, equity_risk_premium=float(premium or 0.0),
-                                        real_world_long_run_volatility=section.real_world_long_run_volatility,
-                                        rho=p.rho, explained=explained)
+                                        real_world_long_run_volatility=section.real_world_long_run_volatility)
             spec = HestonIndex(name=name, column=index_column(kind, name), level=level, income_yield=q, params=p,
                                prices_of_risk=lam, loadings=loadings, explained=explained, rates_correlation=rho_r,
                                substeps_per_year=section.variance_substeps_per_year)

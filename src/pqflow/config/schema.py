@@ -123,7 +123,7 @@ class EquitySection(_Section):
     #: ``"heston"`` (stochastic variance fitted to the smile in market_data.equity_vols).
     volatility_model: Literal["deterministic", "heston"] = "deterministic"
     #: heston only: the house view's real-world long-run volatility (sets the variance price of
-    #: risk; default: the variance price of risk that leaves the variance's own shock unshifted)
+    #: risk; default: none, the real-world variance reverts to the market-consistent level)
     real_world_long_run_volatility: float | None = Field(default=None, gt=0.0, le=2.0)
     #: heston only: substeps of the variance scheme per year
     variance_substeps_per_year: int = Field(default=12, ge=1, le=365)
@@ -170,7 +170,7 @@ class IndexSection(_Section):
     #: as ``equity.volatility_model``
     volatility_model: Literal["deterministic", "heston"] = "deterministic"
     #: heston only: the house view's real-world long-run volatility (sets the variance price of
-    #: risk; default: the variance price of risk that leaves the variance's own shock unshifted)
+    #: risk; default: none, the real-world variance reverts to the market-consistent level)
     real_world_long_run_volatility: float | None = Field(default=None, gt=0.0, le=2.0)
     #: heston only: substeps of the variance scheme per year
     variance_substeps_per_year: int = Field(default=12, ge=1, le=365)

@@ -63,36 +63,19 @@ class HestonPricesOfRisk:
 
 
 def heston_prices_of_risk(
-    *,
-    kappa: float,
-    theta: float,
-    xi: float,
-    equity_risk_premium: float,
-    real_world_long_run_volatility: float | None,
-    rho: float = 0.0,
-    explained: float = 0.0,
+    *, kappa: float, theta: float, xi: float, equity_risk_premium: float, real_world_long_run_volatility: float | None
 ) -> HestonPricesOfRisk:
     """The prices of risk of the module docstring from the house view: an equity risk premium
-    ``pi`` at the real-world long-run variance, and a real-world long-run volatility.
+    ``pi`` at the real-world long-run variance, and a real-world long-run volatility (``None``:
+    the market-consistent ``sqrt(theta)``, no variance price of risk).
 
-    Without a stated real-world long-run volatility (``None``) the variance price of risk is the
-    one that shifts the variance's own independent shock by nothing (only the index's
-    independent shock carries the equity premium): ``lambda_v = rho lambda_S / s^2`` with
-    ``s^2 = 1 - explained`` (:func:`heston_density_coefficients`), which keeps the density's
-    variance least; then ``theta^P = theta + xi rho pi / (s^2 kappa)`` solves
-    ``lambda_S = pi / theta^P``, ``kappa^P = kappa - xi lambda_v``, ``kappa^P theta^P = kappa theta``.
-    Refused (``ValueError``, with the reason) when that gives no positive ``theta^P``."""
+    (A default that cancels the variance shock's own shift was tried and rejected: through
+    ``lambda_S = pi / theta^P`` it lowers ``theta^P`` and raises ``lambda_S`` so much that the
+    density's variance grows, not shrinks, on the demo.)"""
     if not (kappa > 0.0 and theta > 0.0 and xi > 0.0):
         raise ValueError("Heston kappa, theta and xi must be positive")
     if real_world_long_run_volatility is None:
-        s2 = 1.0 - explained
-        theta_p = theta + xi * rho * equity_risk_premium / (s2 * kappa)
-        if not theta_p > 0.0:
-            raise ValueError(
-                f"without a real-world long-run volatility the equity premium {equity_risk_premium:g} with leverage "
-                f"rho {rho:g} would make the real-world long-run variance {theta_p:.4g} not positive; state "
-                "real_world_long_run_volatility"
-            )
+        theta_p = theta
     else:
         if not real_world_long_run_volatility > 0.0:
             raise ValueError(
