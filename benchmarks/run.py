@@ -469,7 +469,7 @@ def bench_heston(tmp: Path) -> dict[str, Any]:
     p = HestonParams(v0=0.03, kappa=1.2, theta=0.04, xi=0.5, rho=-0.5)
     rho_r = cal.equity.correlation
     lam = heston_prices_of_risk(kappa=p.kappa, theta=p.theta, xi=p.xi, equity_risk_premium=0.035,
-                                real_world_long_run_volatility=None)
+                                real_world_long_run_volatility=None, rho=p.rho, explained=rho_r**2)
     n = 2000
     rows, out = [], {}
     for label, spy, sub in (("50 years monthly, 1 substep per step", 12, 12), ("50 years annual, 12 substeps per step", 1, 12)):

@@ -32,7 +32,7 @@ __all__: list[str] = []
 
 P = HestonParams(v0=0.029, kappa=1.1, theta=0.042, xi=0.55, rho=-0.72)
 LAM = heston_prices_of_risk(kappa=P.kappa, theta=P.theta, xi=P.xi, equity_risk_premium=0.04,
-                            real_world_long_run_volatility=0.18)
+                            real_world_long_run_volatility=0.18, rho=P.rho)
 
 
 def _run(p, times, *, measure, n, substeps, r=0.02, seed=1, lam=LAM, antithetic=False):
@@ -114,8 +114,9 @@ def test_density_tends_to_closed_form_girsanov_as_xi_vanishes() -> None:
     with v(t) the CIR mean path, up to the Euler variance path's O(h) error."""
     p = HestonParams(v0=0.05, kappa=1.0, theta=0.03, xi=1e-9, rho=-0.5)
     lam = heston_prices_of_risk(kappa=p.kappa, theta=p.theta, xi=p.xi, equity_risk_premium=0.04,
-                                real_world_long_run_volatility=None)
-    assert lam.variance == 0.0
+                                real_world_long_run_volatility=None, rho=p.rho)
+    # no variance price of risk: W_v = rho B_S + c B_v is not shifted
+    assert abs(p.rho * lam.equity + np.sqrt(1 - p.rho**2) * lam.variance) < 1e-15
     sub = 2000
     times = np.array([0.0, 1.0, 2.0])
     n = 200
@@ -141,9 +142,10 @@ def test_density_tends_to_closed_form_girsanov_as_xi_vanishes() -> None:
 
 def test_refused_prices_of_risk() -> None:
     with pytest.raises(ValueError, match="infinite variance price of risk"):
-        heston_prices_of_risk(kappa=1.0, theta=0.04, xi=0.5, equity_risk_premium=0.04, real_world_long_run_volatility=0.0)
+        heston_prices_of_risk(kappa=1.0, theta=0.04, xi=0.5, equity_risk_premium=0.04, real_world_long_run_volatility=0.0,
+                              rho=0.0)
     lam = heston_prices_of_risk(kappa=1.0, theta=0.04, xi=0.5, equity_risk_premium=0.04,
-                                real_world_long_run_volatility=0.25)
+                                real_world_long_run_volatility=0.25, rho=0.0)
     # same kappa theta under both measures (equivalence), premium pi at the real-world long-run variance
     assert abs(lam.kappa_real_world * lam.theta_real_world - 1.0 * 0.04) < 1e-15
     assert abs(lam.equity * lam.theta_real_world - 0.04) < 1e-15
@@ -196,5 +198,5 @@ def test_real_world_expected_growth_closed_form_against_the_scheme() -> None:
     # the premium per year tends to lambda_S theta' (slightly above pi because of the leverage term)
     with pytest.raises(ValueError, match="not finite"):
         big = heston_prices_of_risk(kappa=0.3, theta=0.04, xi=1.0, equity_risk_premium=0.5,
-                                    real_world_long_run_volatility=0.2)
+                                    real_world_long_run_volatility=0.2, rho=0.5)
         real_world_log_excess_growth(HestonParams(v0=0.04, kappa=0.3, theta=0.04, xi=1.0, rho=0.5), big, 10.0)

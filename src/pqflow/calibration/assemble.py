@@ -645,7 +645,9 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     if config.credit is not None:
         credit, fit["credit"] = calibrate_credit_part(config)
     spots = {config.equity.name: (level, q, "equity"), **{i.name: (i.level, i.income_yield, i.kind) for i in indices}}
-    heston, heston_fits, heston_options = fit_heston_indices(config, curve, rates, correlation, spots)
+    driver_lams = {**_rates_prices_of_risk(rates, prices_of_risk.rates), config.equity.name: prices_of_risk.equity,
+                   **extra_lams}
+    heston, heston_fits, heston_options = fit_heston_indices(config, curve, rates, correlation, spots, driver_lams)
     if heston_fits:
         fit["heston"] = heston_fits
         # a Heston index is repriced at every quoted strike, not at its ATMF quotes

@@ -16,11 +16,12 @@ from pqflow.config.schema import RunConfig
 from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.data_files import read_equity_vols
-from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.measure.heston_density import heston_prices_of_risk
+from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.heston import HestonIndex, heston_indices_from_json, heston_indices_to_json
-from pqflow.models.total_return import index_column
 from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.schedule import as_schedule
+from pqflow.models.total_return import index_column
 
 __all__ = ["heston_indices", "fit_heston_indices", "heston_to_json", "heston_from_json"]
 
@@ -75,12 +76,15 @@ def fit_heston_indices(
     rates: HullWhiteParams | G2PlusPlusParams,
     correlation,
     spots: dict[str, tuple[float, float, str]],
+    driver_prices_of_risk: dict[str, Any] | None = None,
 ) -> tuple[dict[str, HestonIndex], dict[str, Any], list[dict[str, Any]]]:
     """Each Heston index (by name), its fit report (JSON form) and the option instruments the
     market-consistency check reprices (every smile quote).
 
     correlation: the run's :class:`pqflow.calibration.parts.DriverCorrelation`; spots:
-    ``(level, income yield, kind)`` by index name."""
+    ``(level, income yield, kind)`` by index name; driver_prices_of_risk: the Gaussian drivers'
+    real-world prices of risk by driver name (the premium the projection inherits)."""
+    driver_prices_of_risk = driver_prices_of_risk or {}
     names = heston_indices(config)
     if not names:
         return {}, {}, []
@@ -123,8 +127,11 @@ def fit_heston_indices(
                                   quotes=quotes, bounds=index_bounds, label=f"{path}: index {name!r}")
         p = report.params
         try:
+            horizon = config.simulation.max_horizon_years
+            inherited = sum(b * float(as_schedule(driver_prices_of_risk.get(d, 0.0))(horizon)) for d, b in loadings)
             lam = heston_prices_of_risk(kappa=p.kappa, theta=p.theta, xi=p.xi, equity_risk_premium=float(premium or 0.0),
-                                        real_world_long_run_volatility=section.real_world_long_run_volatility)
+                                        real_world_long_run_volatility=section.real_world_long_run_volatility,
+                                        rho=p.rho, explained=explained, inherited=inherited)
             spec = HestonIndex(name=name, column=index_column(kind, name), level=level, income_yield=q, params=p,
                                prices_of_risk=lam, loadings=loadings, explained=explained, rates_correlation=rho_r,
                                substeps_per_year=section.variance_substeps_per_year)

@@ -373,11 +373,12 @@ def simulate_heston_paths(
     ``(z_perp, z_v[, u])`` from ``rng`` (drawn as ``(substeps, 2 or 3, n)`` per output step):
 
         dB_S = dP_j + s sqrt(h) z_perp,   dW_v = sqrt(h) ((rho / s) z_perp + c z_v),
-        ln S += carry_k h / Dt_k + lambda_S v^+ h - v^+ h / 2 + sqrt(v^+) dB_S,
+        ln S += carry_k h / Dt_k + (sqrt(v^+) mu_j + s lambda_perp v^+) h - v^+ h / 2 + sqrt(v^+) dB_S,
         x    += (kappa theta - kappa_m v^+) h + xi sqrt(v^+) dW_v,     v^+ = max(x, 0),
 
-    ``kappa_m = kappa`` (market consistent) or ``kappa^P`` (real world), ``lambda_S = 0`` in the
-    market-consistent set; ``S`` is the total-return index (income reinvested; the price index
+    ``kappa_m = kappa`` (market consistent) or ``kappa^P`` (real world); the premium term
+    (:mod:`pqflow.measure.heston_density`, ``mu_j`` the projection's shift per year over the
+    substep) only in the real-world set; ``S`` is the total-return index (income reinvested; the price index
     is ``S e^{-qt}``). ``log_carry``: ``(n, n_steps)``, the log growth of the cash account over
     each output step, ``int r dt`` (from the economy's cash account, or deterministic), spread
     evenly over the substeps (the deflated index does not depend on it). ``projection_shift``
@@ -413,7 +414,7 @@ def simulate_heston_paths(
     lam = prices_of_risk
     real = measure == "real_world"
     kappa_m = lam.kappa_real_world if (real and lam is not None) else p.kappa
-    lam_s = lam.equity if (real and lam is not None) else 0.0
+    lam_s = np.sqrt(1.0 - explained) * lam.equity if (real and lam is not None) else 0.0
     kappa_theta = p.kappa * p.theta
     s_perp = np.sqrt(1.0 - explained)
     s_proj = np.sqrt(explained)
@@ -448,8 +449,7 @@ def simulate_heston_paths(
             zp, zv = z_all[j, 0], z_all[j, 1]
             sq = np.sqrt(vp)
             if lam is not None:
-                es, ep = heston_density_coefficients(lam, p.rho, vp, h, explained=explained,
-                                                     projection_shift=float(shift[k, j]))
+                es, ep = heston_density_coefficients(lam, vp, h)
                 logw += heston_log_density_increment(zp, zv, es, ep, measure=measure)
                 if with_rates and c_shift[j] != 0.0:
                     eu = c_shift[j] / (s_proj * sqrt_h)
@@ -457,7 +457,8 @@ def simulate_heston_paths(
             d_bs = s_perp * sqrt_h * zp
             if with_rates:
                 d_bs = d_bs + bridge[j]
-            lnS += carry + (lam_s - 0.5) * vp * h + sq * d_bs
+            premium = (lam_s * vp + sq * (shift[k, j] / h)) * h if (real and lam is not None) else 0.0
+            lnS += carry + premium - 0.5 * vp * h + sq * d_bs
             x += (kappa_theta - kappa_m * vp) * h + p.xi * sq * sqrt_h * (a_v * zp + c_v * zv)
             vp = np.maximum(x, 0.0)
         out_s[:, k + 1] = lnS
@@ -503,7 +504,10 @@ class HestonIndex:
 
 
 def real_world_log_excess_growth(p: HestonParams, prices_of_risk, t: np.ndarray | float) -> np.ndarray:
-    """``ln E^P[S_t / (S_0 B_t)]`` of a Heston index whose real-world premium is ``lambda_S v``.
+    """``ln E^P[S_t / (S_0 B_t)]`` of a Heston index whose real-world premium is ``lambda_S v``
+    (``lambda_S = prices_of_risk.equity``: an index without projection on Gaussian drivers; with
+    one, the premium's ``sqrt(v) mu(t)`` term leaves the affine class and there is no closed
+    form).
 
     Under P, ``S_t / (S_0 B_t) = exp(lambda_S int v) M_t`` with ``M = exp(int sqrt(v) dB_S -
     int v / 2)`` a P-martingale; under ``dR = M dP`` the variance driver gains the drift
