@@ -142,3 +142,18 @@ def test_demo_smile_run_writes_the_heston_index_and_its_variance(tmp_path) -> No
     part = next((tmp_path / "run" / "scenarios" / "real_world").glob("*.parquet"))
     table = pq.read_table(part)
     assert "variance_veldmark_all_share" in table.column_names and "equity_veldmark_all_share" in table.column_names
+
+
+def test_blocks_with_a_heston_index_carry_the_full_density(demo) -> None:
+    """A block holding the Heston index's driver carries the full density (exact; its restricted
+    density is not built), and a block without it keeps its restricted density."""
+    from pqflow.measure.blocks import DensityBlock
+
+    model = build_model(demo, (1.0,))
+    spec = _spec(demo, model)
+    blocks = (DensityBlock(name="rates", drivers=("rates",)),
+              DensityBlock(name="rates_veldmark_all_share", drivers=("rates", "veldmark_all_share")))
+    cols = simulate_part(model, np.arange(0.0, 4.0), measure="real_world", n_paths=200, seed=5, batch=0,
+                         antithetic=True, heston=(spec,), density_blocks=blocks)
+    assert np.array_equal(cols["q_density_rates_veldmark_all_share"], cols["q_density"])
+    assert not np.array_equal(cols["q_density_rates"], cols["q_density"])

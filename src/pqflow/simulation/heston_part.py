@@ -14,8 +14,8 @@ A Heston index reads from the economy's batch what its scheme needs and nothing 
 Everything else comes from the part's own random stream (``heston_generator``, a child of the
 batch's seed sequence beside credit's), so the Gaussian drivers' numbers are the same with or
 without it. The part's density (:mod:`pqflow.measure.heston_density`) is the likelihood ratio of
-its own normals given the economy: it multiplies the economy's density (and the restricted
-densities of the blocks that contain the index's driver) exactly.
+its own normals given the economy: it multiplies the economy's full density exactly (a density
+block that contains the index's driver carries the full density, ``simulation/scenarios.py``).
 
 * the increments of every deterministic-volatility total-return index it correlates with:
   ``sigma dB = d ln S - d ln B + sigma^2 dt / 2`` (less ``sigma lambda dt`` in the real world),

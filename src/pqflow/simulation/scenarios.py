@@ -84,7 +84,7 @@ def simulate_part(
     own densities (credit is independent of the Gaussian drivers). ``heston``: indices with
     Heston variance, simulated conditionally on the economy (:mod:`pqflow.simulation.heston_part`);
     each replaces its index column, adds ``variance_<name>`` and multiplies its density into the
-    full density and the blocks that contain its driver."""
+    full density; a block that contains its driver carries the full density (:func:`_heston_blocks`)."""
     layout = block_layout(model, credit, density_blocks) if density_blocks else {}
     gaussian = {name: rows for name, (rows, _) in layout.items() if rows}
     cols = simulate_batch(
@@ -102,16 +102,11 @@ def simulate_part(
         )
         cols[spec.column] = spec.level * np.exp(paths.log_return)
         cols[variance_column(spec.name)] = paths.variance
-        weight = np.exp(paths.log_density)
-        cols[density] = cols[density] * weight
-        for block in density_blocks:
-            if spec.name in block.drivers:
-                column = density_block_column(measure, block.name)
-                cols[column] = cols[column] * weight
+        cols[density] = cols[density] * np.exp(paths.log_density)
     if heston:
         cols["deflator"] = deflator(measure, cols[density], cols["cash_account"])
     if credit is None:
-        return cols
+        return _heston_blocks(cols, measure, density_blocks, heston)
     missing = [m for m in credit.bond_maturities if bond_column(m) not in cols]
     if missing:
         raise ValueError(f"credit bonds need the risk-free bonds {missing} among the output columns")
@@ -127,4 +122,18 @@ def simulate_part(
             cols[column] = cols[column] * np.prod(paths.rating_density[list(ratings)], axis=0)
     cols[density] = cols[density] * paths.density
     cols["deflator"] = deflator(measure, cols[density], cols["cash_account"])
+    return _heston_blocks(cols, measure, density_blocks, heston)
+
+
+def _heston_blocks(
+    cols: dict[str, np.ndarray], measure: str, blocks: Sequence[DensityBlock], heston: Sequence[HestonIndex]
+) -> dict[str, np.ndarray]:
+    """A block that holds a Heston index's driver carries the full density: the index reads
+    the increments of the drivers it projects on, and its Gaussian stand-in's restricted
+    density is not its law, so the block's own restricted density is not built (the full
+    density is exact for every column, only less efficient)."""
+    names = {spec.name for spec in heston}
+    for block in blocks:
+        if names & set(block.drivers):
+            cols[density_block_column(measure, block.name)] = cols[DENSITY_COLUMN[measure]]
     return cols
