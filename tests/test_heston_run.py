@@ -142,6 +142,14 @@ def test_demo_smile_run_writes_the_heston_index_and_its_variance(tmp_path) -> No
     part = next((tmp_path / "run" / "scenarios" / "real_world").glob("*.parquet"))
     table = pq.read_table(part)
     assert "variance_veldmark_all_share" in table.column_names and "equity_veldmark_all_share" in table.column_names
+    # the wealth-ratio comparison (American Academy of Actuaries 2005) for each equity index
+    import json
+
+    summary = json.loads((tmp_path / "run" / "validation" / "summary.json").read_text())
+    by_index = summary["checks"]["real_world"]["wealth_ratio_benchmark"]["by_index"]
+    assert by_index["equity_veldmark_all_share"]["volatility_model"] == "heston"
+    assert by_index["equity_world_equity"]["volatility_model"] == "deterministic"
+    assert (tmp_path / "run" / "validation" / "wealth_ratio_by_index.csv").exists()
 
 
 def test_blocks_with_a_heston_index_carry_the_full_density(demo) -> None:
@@ -157,3 +165,4 @@ def test_blocks_with_a_heston_index_carry_the_full_density(demo) -> None:
                          antithetic=True, heston=(spec,), density_blocks=blocks)
     assert np.array_equal(cols["q_density_rates_veldmark_all_share"], cols["q_density"])
     assert not np.array_equal(cols["q_density_rates"], cols["q_density"])
+
