@@ -100,7 +100,14 @@ def test_heston_index_calibrates_and_round_trips(tmp_path) -> None:
     # every smile quote is an instrument the market-consistency check reprices
     opts = [o for o in payload["instruments"]["equity_options"] if o["index"] == "veldmark_all_share"]
     assert len(opts) == 9 and {o["kind"] for o in opts} == {"call", "put"}
-    build_model(cal, (1.0,))  # simulates (its Gaussian stand-in's price of risk is 0)
+    build_model(cal, (1.0,))  # simulates (its Gaussian stand-in takes the implied price of risk)
+    # a stored Heston calibration does not serve a configuration without the Heston index
+    from pqflow.calibration.assemble import check_calibration_fits
+
+    plain = tomllib.loads(SMILE_DEMO.read_text())
+    plain["equity"]["volatility_model"] = "deterministic"
+    with pytest.raises(ConfigError, match="Heston indices"):
+        check_calibration_fits(cal, load_config(write_toml(tmp_path / "plain.toml", plain)), source="calibration.json")
 
 
 def test_volatility_model_rules(tmp_path) -> None:

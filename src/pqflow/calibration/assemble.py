@@ -333,6 +333,14 @@ def check_calibration_fits(calibration: Calibration, config: RunConfig, *, sourc
     want = [i.name for i in config.indices]
     if have != want:
         raise ConfigError(f"{source}: calibration has indices {have} but the configuration names {want}")
+    from pqflow.calibration.heston_parts import heston_indices
+
+    have_sv, want_sv = sorted(calibration.stochastic_volatility), sorted(heston_indices(config))
+    if have_sv != want_sv:
+        raise ConfigError(
+            f"{source}: calibration has Heston indices {have_sv} but the configuration sets volatility_model = "
+            f"\"heston\" on {want_sv}"
+        )
     for label, has, wants in (
         ("[inflation]", calibration.inflation is not None, config.inflation is not None),
         ("[credit]", calibration.credit is not None, config.credit is not None),
