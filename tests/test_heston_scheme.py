@@ -104,6 +104,11 @@ def test_deflated_index_is_a_martingale(measure: str) -> None:
     assert np.all(np.abs(z) < 4.0)
     if measure == "real_world":  # and the premium is there: the index outgrows cash
         assert deflated[:, -1].mean() > 1.2
+    # antithetic partners are simulated from -z, not mirrored: their variance paths differ and
+    # their log returns do not sum to a constant
+    assert not np.allclose(paths.variance[0], paths.variance[1])
+    total = paths.log_return[0::2, -1] + paths.log_return[1::2, -1]
+    assert total.std() > 0.01
 
 
 def test_density_tends_to_closed_form_girsanov_as_xi_vanishes() -> None:
