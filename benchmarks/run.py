@@ -16,8 +16,11 @@ Sections (each prints a table; all figures go to benchmarks/results/latest.json)
 4. scaling  real-world set only (library loop, no Prefect), 50 years monthly, 1,000 / 10,000 /
             100,000 scenarios, one subprocess per size: peak RSS and time, log-log exponent of
             time against scenarios x steps.
+5. heston   the cost per path-step of an equity index with Heston variance (the non-Gaussian
+            part, its scheme and density, correlated with rates) beside the same index with a
+            deterministic volatility (the Gaussian economy): real-world batch, 2,000 paths.
 
-Usage: ``python benchmarks/run.py [core parquet quarter scaling]`` (default: all).
+Usage: ``python benchmarks/run.py [core parquet quarter scaling heston]`` (default: all).
 """
 
 from __future__ import annotations
@@ -41,7 +44,7 @@ REPO = Path(__file__).resolve().parents[1]
 RESULTS = REPO / "benchmarks" / "results"
 DEMO = REPO / "scenario_configs" / "demo.toml"
 BONDS = [1, 2, 3, 5, 7, 10, 15, 20, 25, 30]
-SECTIONS = ("core", "parquet", "quarter", "scaling")
+SECTIONS = ("core", "parquet", "quarter", "scaling", "heston")
 SCALING_BATCH = 500  # the demo's batch size, the same for every size
 
 
@@ -453,6 +456,43 @@ def bench_scaling(tmp: Path) -> dict[str, Any]:
             "loglog_exponent_large": slope_large, "peak_rss_spread_monthly": spread}
 
 
+# ------------------------------------------------------------------------------- 5. Heston
+
+
+def bench_heston(tmp: Path) -> dict[str, Any]:
+    from pqflow.measure.heston_density import heston_prices_of_risk
+    from pqflow.models.heston import HestonIndex, HestonParams
+    from pqflow.simulation.engine import time_grid
+    from pqflow.simulation.scenarios import simulate_part
+
+    cfg, cal, model = _model(make_config(tmp / "heston.toml"))
+    p = HestonParams(v0=0.03, kappa=1.2, theta=0.04, xi=0.5, rho=-0.5)
+    rho_r = cal.equity.correlation
+    lam = heston_prices_of_risk(kappa=p.kappa, theta=p.theta, xi=p.xi, equity_risk_premium=0.035,
+                                real_world_long_run_volatility=None, rho=p.rho, explained=rho_r**2)
+    n = 2000
+    rows, out = [], {}
+    for label, spy, sub in (("50 years monthly, 1 substep per step", 12, 12), ("50 years annual, 12 substeps per step", 1, 12)):
+        times = time_grid(50, spy)
+        ps = n * (times.size - 1)
+        spec = HestonIndex(name="heston_bench", column="equity_heston_bench", level=1000.0, income_yield=0.028, params=p,
+                           prices_of_risk=lam, loadings=(("rates", rho_r),), explained=rho_r**2, rates_correlation=rho_r,
+                           substeps_per_year=sub)
+        base = _best(lambda: simulate_part(model, times, measure="real_world", n_paths=n, seed=1, batch=0, antithetic=False), 3)
+        with_h = _best(lambda: simulate_part(model, times, measure="real_world", n_paths=n, seed=1, batch=0, antithetic=False,
+                                             heston=(spec,)), 3)
+        det_index = base / ps
+        heston = (with_h - base) / ps
+        rows.append([label, det_index * 1e9, heston * 1e9, heston / det_index])
+        out[label] = {"deterministic_economy_ns_per_path_step": det_index * 1e9,
+                      "heston_index_ns_per_path_step": heston * 1e9, "ratio": heston / det_index}
+    _table("5. Heston index beside a deterministic-volatility index (real world, one core, 2,000 paths)",
+           ["grid", "economy with deterministic index, ns / path-step", "Heston index alone, ns / path-step",
+            "Heston / economy"], rows)
+    print("  the Heston index's cost grows with its substeps (12 a year here); the economy's with its states")
+    return out
+
+
 # ----------------------------------------------------------------------------------- main
 
 
@@ -476,7 +516,8 @@ def main(argv: list[str]) -> int:
     try:
         for name in wanted:
             results[name] = {"bench_core": bench_core, "bench_parquet": bench_parquet,
-                             "bench_quarter": bench_quarter, "bench_scaling": bench_scaling}[f"bench_{name}"](tmp)
+                             "bench_quarter": bench_quarter, "bench_scaling": bench_scaling,
+                             "bench_heston": bench_heston}[f"bench_{name}"](tmp)
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     import pyarrow

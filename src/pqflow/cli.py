@@ -480,6 +480,27 @@ def calibrate(
     _caution()
 
 
+def _print_heston_fits(fits: dict[str, Any]) -> None:
+    """Each Heston index's parameters, Feller ratio and per-quote fit in vol points."""
+    for name, h in fits.items():
+        p = h["parameters"]
+        console.print(
+            f"index {name} (Heston): v0 = {p['v0']:.5f}, kappa = {p['kappa']:.4f}, theta = {p['theta']:.5f}, "
+            f"xi = {p['xi']:.4f}, rho = {p['rho']:.4f}; Feller ratio 2 kappa theta / xi^2 = {h['feller_ratio']:.3f}"
+            f"{' (below 1: the variance reaches zero)' if h['feller_ratio'] < 1 else ''}; smile RMSE "
+            f"{h['rmse_vol_points']:.3f} vol points (max {h['max_abs_vol_points']:.3f}); {h['method']}"
+            + (f"; at bounds: {', '.join(h['at_bounds'])}" if h["at_bounds"] else ""),
+            highlight=False,
+        )
+        table = Table(title=f"{name}: smile fit (vol points; 1 = 0.01)")
+        for col in ("expiry", "K/F", "weight", "market", "model", "model - market"):
+            table.add_column(col, justify="right")
+        for r in h["rows"]:
+            table.add_row(f"{r['expiry']:g}", f"{r['moneyness']:g}", f"{r['weight']:g}", f"{100 * r['market_vol']:.2f}",
+                          f"{100 * r['model_vol']:.2f}", f"{r['vol_points']:+.2f}")
+        console.print(table)
+
+
 def _print_fit(payload: dict[str, Any]) -> None:
     fit, par = payload.get("fit", {}), payload["parameters"]
     model = par.get("rates_model", "hull_white")
@@ -510,6 +531,7 @@ def _print_fit(payload: dict[str, Any]) -> None:
             f"{fmt.percent(item['income_yield'], 2)}, volatility {vol_text}, risk premium {fmt.percent(item['risk_premium'], 2)}",
             highlight=False,
         )
+    _print_heston_fits(fit.get("heston", {}))
     inf = fit.get("inflation")
     if inf:
         p_inf = par["inflation"]

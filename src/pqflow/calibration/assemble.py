@@ -43,6 +43,7 @@ from pqflow.calibration.parts import (
 )
 from pqflow.calibration.llfr_curve import fit_llfr_curve
 from pqflow.calibration.g2pp_swaptions import calibrate_g2pp_to_swaptions
+from pqflow.calibration.heston_parts import fit_heston_indices, heston_from_json, heston_to_json
 from pqflow.calibration.swaptions import SwaptionQuote, calibrate_hull_white_to_swaptions
 from pqflow.config.schema import RunConfig
 from pqflow.errors import CalibrationError, ConfigError, MarketDataError, MeasureError
@@ -74,6 +75,7 @@ from pqflow.measure.prices_of_risk import (
     real_world_factor_mean,
 )
 from pqflow.models.equity import EquityParams
+from pqflow.models.heston import HestonIndex
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.cir_credit import CirCreditModel
@@ -122,6 +124,8 @@ class Calibration:
     #: Under G2++: the core equity's correlation with ``(rates_x, rates_y)`` (``equity.correlation``
     #: is then its correlation with the short-rate shock, for display).
     rates_correlation: tuple[float, float] | None = None
+    #: Indices with stochastic (Heston) variance, by name (:mod:`pqflow.simulation.heston_part`).
+    stochastic_volatility: dict[str, HestonIndex] = field(default_factory=dict)
 
     @property
     def rates_model(self) -> str:
@@ -228,6 +232,8 @@ class Calibration:
             }
         if self.credit is not None:
             out["credit"] = credit_to_json(self.credit, self.credit_substeps_per_year)
+        if self.stochastic_volatility:
+            out["stochastic_volatility"] = heston_to_json(self.stochastic_volatility)
         return out
 
 
@@ -274,6 +280,8 @@ def _parts_from_json(par: dict[str, Any]) -> dict[str, Any]:
             out["extra_prices_of_risk"][k] = _load_schedule(v)
     if "credit" in par:
         out["credit"], out["credit_substeps_per_year"] = credit_from_json(par["credit"])
+    if "stochastic_volatility" in par:
+        out["stochastic_volatility"] = heston_from_json(par["stochastic_volatility"])
     return out
 
 
@@ -351,6 +359,14 @@ def check_calibration_fits(calibration: Calibration, config: RunConfig, *, sourc
     want = [i.name for i in config.indices]
     if have != want:
         raise ConfigError(f"{source}: calibration has indices {have} but the configuration names {want}")
+    from pqflow.calibration.heston_parts import heston_indices
+
+    have_sv, want_sv = sorted(calibration.stochastic_volatility), sorted(heston_indices(config))
+    if have_sv != want_sv:
+        raise ConfigError(
+            f"{source}: calibration has Heston indices {have_sv} but the configuration sets volatility_model = "
+            f"\"heston\" on {want_sv}"
+        )
     for label, has, wants in (
         ("[inflation]", calibration.inflation is not None, config.inflation is not None),
         ("[credit]", calibration.credit is not None, config.credit is not None),
@@ -675,6 +691,14 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     credit = None
     if config.credit is not None:
         credit, fit["credit"] = calibrate_credit_part(config)
+    spots = {config.equity.name: (level, q, "equity"), **{i.name: (i.level, i.income_yield, i.kind) for i in indices}}
+    driver_lams = {**_rates_prices_of_risk(rates, prices_of_risk.rates), config.equity.name: prices_of_risk.equity,
+                   **extra_lams}
+    heston, heston_fits, heston_options = fit_heston_indices(config, curve, rates, correlation, spots, driver_lams)
+    if heston_fits:
+        fit["heston"] = heston_fits
+        # a Heston index is repriced at every quoted strike, not at its ATMF quotes
+        equity_options = [o for o in equity_options if o["index"] not in heston] + heston_options
     canon = json.dumps(inputs, sort_keys=True, separators=(",", ":")).encode("utf-8")
     return Calibration(
         valuation_date=config.run.valuation_date.isoformat(),
@@ -697,6 +721,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         inflation=inflation,
         credit=credit,
         credit_substeps_per_year=config.credit.substeps_per_year if config.credit is not None else 12,
+        stochastic_volatility=heston,
     )
 
 
@@ -720,15 +745,39 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
     :mod:`pqflow.simulation.credit`)."""
     eq = calibration.equity
     core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield, volatility=eq.volatility)
+    lams = {
+        **_rates_prices_of_risk(calibration.rates, calibration.prices_of_risk.rates),
+        eq.name: calibration.prices_of_risk.equity,
+        **calibration.extra_prices_of_risk,
+    }
+    corr = calibration.driver_correlation
+    for name in calibration.stochastic_volatility:
+        # A Heston index's Gaussian stand-in is not written (the Heston part writes the index and
+        # carries its premium). Its price of risk is the one the other drivers imply for it, so its
+        # own independent shock is not shifted and adds nothing to the density's variance.
+        lams[name] = _implied_price_of_risk(name, corr, lams, set(calibration.stochastic_volatility))
     return EconomyModel(
         curve=calibration.curve,
         rates=calibration.rates,
         parts=(core, *calibration.indices, *((calibration.inflation,) if calibration.inflation is not None else ())),
-        correlation=calibration.driver_correlation.matrix,
-        prices_of_risk={
-            **_rates_prices_of_risk(calibration.rates, calibration.prices_of_risk.rates),
-            eq.name: calibration.prices_of_risk.equity,
-            **calibration.extra_prices_of_risk,
-        },
+        correlation=corr.matrix,
+        prices_of_risk=lams,
         bond_maturities=tuple(bond_maturities),
     )
+
+
+def _implied_price_of_risk(
+    name: str, corr: DriverCorrelation, lams: dict[str, float | PiecewiseConstant], heston: set[str]
+) -> PiecewiseConstant:
+    """``sum_j beta_j lambda_j(t)``: the regression of driver ``name`` on the other drivers
+    (Heston ones left out), ``beta = C_OO^{-1} C_O,name``, applied to their prices of risk."""
+    names = list(corr.names)
+    others = [j for j, n in enumerate(names) if n != name and n not in heston]
+    i = names.index(name)
+    if not others:
+        return PiecewiseConstant.constant(0.0)
+    beta = np.linalg.solve(corr.matrix[np.ix_(others, others)], corr.matrix[others, i])
+    scheds = [as_schedule(lams.get(names[j], 0.0)) for j in others]
+    knots = sorted({k for s in scheds for k in s.knots})
+    values = [float(sum(b * float(s(k)) for b, s in zip(beta, scheds))) for k in knots]
+    return PiecewiseConstant(knots=tuple(knots), values=tuple(values))

@@ -241,6 +241,28 @@ def credit_correlation(config: RunConfig) -> tuple[np.ndarray | None, dict[str, 
 # ------------------------------------------------------------------------------- indices
 
 
+def one_quote_per_expiry(path: Any, name: str, rows: list[EquityVolRow]) -> list[EquityVolRow]:
+    """The quotes a deterministic volatility fits: the only quote of an expiry, or its ATMF one
+    when a smile gives several (a deterministic volatility has no skew to fit)."""
+    by_expiry: dict[float, list[EquityVolRow]] = {}
+    for r in rows:
+        by_expiry.setdefault(r.expiry, []).append(r)
+    out = []
+    for t, group in by_expiry.items():
+        if len(group) == 1:
+            out.append(group[0])
+            continue
+        atmf = [r for r in group if r.is_atmf]
+        if not atmf:
+            raise CalibrationError(
+                f"{path}: index {name!r} has {len(group)} strikes at expiry {t:g} (rows "
+                f"{', '.join(str(r.row) for r in group)}) and none at the money forward: a deterministic "
+                "volatility fits one quote per expiry; add an ATMF row or set volatility_model = \"heston\""
+            )
+        out.append(atmf[0])
+    return out
+
+
 def fit_index_volatility(
     path: Any,
     name: str,
@@ -257,10 +279,14 @@ def fit_index_volatility(
     report and the option instruments the market-consistency check reprices."""
     if not rows:
         raise MarketDataError(f"{path}: no implied volatilities for index {name!r}")
+    rows = one_quote_per_expiry(path, name, rows)
     try:
         report = calibrate_equity_volatility(
             curve, rates, level=level, dividend_yield=q, correlation=rho_rates,
-            quotes=[EquityVolQuote(expiry=r.expiry, implied_vol=r.implied_vol, strike=r.strike) for r in rows],
+            quotes=[EquityVolQuote(
+                expiry=r.expiry, implied_vol=r.implied_vol,
+                strike=None if r.moneyness is None else r.moneyness * level * np.exp(-q * r.expiry) / float(curve.discount(r.expiry)),
+            ) for r in rows],
         )
     except MarketDataError as exc:
         raise CalibrationError(f"{path}: {exc}") from None

@@ -156,6 +156,14 @@ class EquitySection(_Section):
     dividend_yield: float | None = Field(default=None, ge=-0.2, le=0.5)
     volatility: float | None = Field(default=None, gt=0.0, le=2.0)
     correlation_with_rates: float | None = Field(default=None, ge=-1.0, le=1.0)
+    #: ``"deterministic"`` (default: a piecewise-constant volatility from the ATMF quotes) or
+    #: ``"heston"`` (stochastic variance fitted to the smile in market_data.equity_vols).
+    volatility_model: Literal["deterministic", "heston"] = "deterministic"
+    #: heston only: the house view's real-world long-run volatility (sets the variance price of
+    #: risk; default: none, the real-world variance reverts to the market-consistent level)
+    real_world_long_run_volatility: float | None = Field(default=None, gt=0.0, le=2.0)
+    #: heston only: substeps of the variance scheme per year
+    variance_substeps_per_year: int = Field(default=12, ge=1, le=365)
 
     @field_validator("correlation_with_rates")
     @classmethod
@@ -196,6 +204,13 @@ class IndexSection(_Section):
     income_yield: float | None = Field(default=None, ge=-0.2, le=0.5)
     volatility: float | None = Field(default=None, gt=0.0, le=2.0)
     risk_premium: float = Field(ge=-0.2, le=0.3)
+    #: as ``equity.volatility_model``
+    volatility_model: Literal["deterministic", "heston"] = "deterministic"
+    #: heston only: the house view's real-world long-run volatility (sets the variance price of
+    #: risk; default: none, the real-world variance reverts to the market-consistent level)
+    real_world_long_run_volatility: float | None = Field(default=None, gt=0.0, le=2.0)
+    #: heston only: substeps of the variance scheme per year
+    variance_substeps_per_year: int = Field(default=12, ge=1, le=365)
 
     @model_validator(mode="after")
     def _pair(self) -> IndexSection:
@@ -399,12 +414,54 @@ class G2ppFitSection(_Section):
         return self
 
 
+class HestonFitSection(_Section):
+    """How the Heston parameters of an index with ``volatility_model = "heston"`` are fitted to
+    its smile: ``[lower, upper]`` bounds of each parameter and the starting point (weights come
+    from the ``weight`` column of market_data.equity_vols)."""
+
+    v0_bounds: tuple[float, float] = (1e-4, 1.0)
+    kappa_bounds: tuple[float, float] = (0.05, 10.0)
+    theta_bounds: tuple[float, float] = (1e-4, 1.0)
+    xi_bounds: tuple[float, float] = (0.01, 2.0)
+    rho_bounds: tuple[float, float] = (-0.99, 0.99)
+    initial: dict[Literal["v0", "kappa", "theta", "xi", "rho"], float] = Field(default_factory=dict)
+
+    @model_validator(mode="after")
+    def _bounds(self) -> HestonFitSection:
+        defaults = {"v0": 0.04, "kappa": 1.5, "theta": 0.04, "xi": 0.5, "rho": -0.5}
+        for name in ("v0", "kappa", "theta", "xi", "rho"):
+            lo, hi = getattr(self, f"{name}_bounds")
+            floor = -1.0 if name == "rho" else 0.0
+            top = 1.0 if name == "rho" else float("inf")
+            if not floor < lo < hi < top:
+                raise ValueError(
+                    f"{name}_bounds must satisfy {floor:g} < lower < upper{' < 1' if name == 'rho' else ''}, "
+                    f"got [{lo:g}, {hi:g}]"
+                )
+            x0 = self.initial.get(name, min(max(defaults[name], lo), hi))  # type: ignore[call-overload]
+            if not lo <= x0 <= hi:
+                raise ValueError(f"initial {name} = {x0:g} lies outside {name}_bounds [{lo:g}, {hi:g}]")
+        return self
+
+    def lower_upper_initial(self) -> tuple[tuple[float, ...], tuple[float, ...], tuple[float, ...]]:
+        defaults = {"v0": 0.04, "kappa": 1.5, "theta": 0.04, "xi": 0.5, "rho": -0.5}
+        names = ("v0", "kappa", "theta", "xi", "rho")
+        lower = tuple(getattr(self, f"{n}_bounds")[0] for n in names)
+        upper = tuple(getattr(self, f"{n}_bounds")[1] for n in names)
+        initial = tuple(
+            self.initial.get(n, min(max(defaults[n], lo), hi))  # type: ignore[call-overload]
+            for n, lo, hi in zip(names, lower, upper)
+        )
+        return lower, upper, initial
+
+
 class CalibrationSection(_Section):
     """Calibration choices."""
 
     correlation_repair: Literal["reject", "higham"] = "reject"
     hull_white: HullWhiteFitSection = HullWhiteFitSection()
     g2pp: G2ppFitSection = G2ppFitSection()
+    heston: HestonFitSection = HestonFitSection()
 
 
 class RealWorldSection(_Section):
@@ -776,6 +833,13 @@ class RunConfig(_Section):
                 raise ValueError(
                     f"credit.bond_maturities {missing} are not in outputs.bond_maturities: each "
                     "defaultable bond needs the risk-free bond of the same maturity"
+                )
+        for label, model, typed in (("equity", self.equity.volatility_model, self.equity.volatility),
+                                    *((f"index {i.name}", i.volatility_model, i.volatility) for i in self.indices)):
+            if model == "heston" and (typed is not None or md.equity_vols is None):
+                raise ValueError(
+                    f"{label}: volatility_model = \"heston\" is fitted to the smile in market_data.equity_vols; "
+                    "give that file and no typed-in volatility"
                 )
         for idx in self.indices:
             if idx.level is None and md.equity_index is None:

@@ -28,6 +28,7 @@ from pqflow.market.curve import DiscountCurve
 from pqflow.market.serialize import curve_from_json
 from pqflow.measure.blocks import DensityBlock, check_blocks, default_blocks, density_block_column, economy_structure
 from pqflow.models.economy import EconomyModel
+from pqflow.models.heston import variance_column
 from pqflow.simulation.engine import DENSITY_COLUMN, MEASURES, time_grid
 from pqflow.simulation.plan import Batch, plan_batches
 from pqflow.simulation.scenarios import simulate_part
@@ -167,8 +168,10 @@ def written_columns(calibration: Calibration, plan: RunPlan, model: EconomyModel
     known = [c for c in model.known_columns() if c not in REQUIRED_COLUMNS]
     if calibration.credit is not None:
         known += list(calibration.credit.column_names())
+    on_request = [variance_column(n) for n in calibration.stochastic_volatility]  # only when asked for
     if plan.column_patterns is None:
         return [*REQUIRED_COLUMNS, *known]
+    known += on_request
     unmatched = [p for p in plan.column_patterns if not any(fnmatch.fnmatchcase(c, p) for c in (*REQUIRED_COLUMNS, *known))]
     if unmatched:
         raise ConfigError(
@@ -234,9 +237,11 @@ def generate_part(
     cols = simulate_part(
         model, plan.times_for(measure), measure=measure, n_paths=batch.size, seed=plan.seed, batch=batch.index,
         antithetic=plan.antithetic, credit=credit, credit_substeps_per_year=calibration.credit_substeps_per_year,
-        density_blocks=plan.density_blocks,
+        density_blocks=plan.density_blocks, heston=tuple(calibration.stochastic_volatility.values()),
     )
     units = model.column_units()
+    for spec in calibration.stochastic_volatility.values():
+        units[variance_column(spec.name)] = "instantaneous variance of the index's log-return per year (Heston v, truncated at 0)"
     if credit is not None:
         units.update(credit.column_units())
     units["deflator"] = (

@@ -47,11 +47,17 @@ decimal) or ``shifted_lognormal_vol`` (decimal, with a ``shift`` column, a decim
 
 **Equity implied volatilities** (Black-Scholes, decimals)::
 
-    index,expiry_years,implied_vol,strike
-    veldmark_all_share,1,0.185,ATMF
+    index,expiry_years,implied_vol,strike,weight
+    veldmark_all_share,1,0.185,ATMF,1
+    veldmark_all_share,1,0.231,0.8,1
 
-``strike`` is optional; ``ATMF`` (or the column left out) means at the money forward. The
-equity-index file also carries property indices (``dividend_yield`` is then the rental yield).
+``strike`` is optional: ``ATMF`` (or the column left out) means at the money forward, a number
+is the moneyness ``K / F`` (strike over the forward ``S_0 e^{-qT} / P(0, T)``; 0.8 is 80% of
+the forward). Several strikes per expiry form a smile (fitted by an index with
+``volatility_model = "heston"``); a deterministic volatility uses one quote per expiry (the
+ATMF one where there are several). ``weight`` is optional (default 1, not negative; used by the
+smile fit). The equity-index file also carries property indices (``dividend_yield`` is then the
+rental yield).
 
 **Zero-coupon inflation swaps** (fair fixed rate, annually compounded, decimals)::
 
@@ -516,40 +522,68 @@ class EquityVolRow:
     index: str
     expiry: float
     implied_vol: float
-    strike: float | None  # None: at the money forward
+    moneyness: float | None  # K / F; None: at the money forward (ATMF)
     row: int
+    weight: float = 1.0
+
+    @property
+    def is_atmf(self) -> bool:
+        return self.moneyness is None or abs(self.moneyness - 1.0) < 1e-12
+
+
+_MONEYNESS_RANGE = (0.05, 5.0)
 
 
 def read_equity_vols(path: str | PathLike[str]) -> tuple[EquityVolRow, ...]:
-    """Read and check an equity implied-volatility CSV (see the module docstring)."""
+    """Read and check an equity implied-volatility CSV (see the module docstring): per index,
+    expiries in non-decreasing order, at most one quote per (expiry, strike); ``strike`` is
+    ``ATMF`` or the moneyness ``K / F``; ``weight`` optional (default 1, not negative)."""
     name, header, header_line, rows = _read_rows(path)
-    idx = _header_index(name, header, header_line, ("index", "expiry_years", "implied_vol"), ("strike",))
+    idx = _header_index(name, header, header_line, ("index", "expiry_years", "implied_vol"), ("strike", "weight"))
     out = []
     last: dict[str, float] = {}
+    seen: set[tuple[str, float, float]] = set()
     for row in rows:
         index = row.cells[idx["index"]]
         if not index:
             raise MarketDataError(f"{_at(name, row, 'index')}: missing index name")
         t = _number(row.cells[idx["expiry_years"]], _at(name, row, "expiry_years"))
         v = _number(row.cells[idx["implied_vol"]], _at(name, row, "implied_vol"))
-        strike = None
+        moneyness = None
         if "strike" in idx:
             cell = row.cells[idx["strike"]]
             if cell.upper() != "ATMF":
-                strike = _number(cell, _at(name, row, "strike"))
-                if strike <= 0.0:
-                    raise MarketDataError(f"{_at(name, row, 'strike')}: strike {strike:g} must be positive")
+                moneyness = _number(cell, _at(name, row, "strike"))
+                lo, hi = _MONEYNESS_RANGE
+                if not lo <= moneyness <= hi:
+                    raise MarketDataError(
+                        f"{_at(name, row, 'strike')}: strike {moneyness:g} is read as moneyness K/F (the strike "
+                        f"over the forward: 0.9 for 90% of the forward, or ATMF) and must lie in [{lo:g}, {hi:g}]"
+                    )
+        weight = 1.0
+        if "weight" in idx:
+            weight = _number(row.cells[idx["weight"]], _at(name, row, "weight"))
+            if weight < 0.0:
+                raise MarketDataError(f"{_at(name, row, 'weight')}: weight {weight:g} must not be negative")
         if t <= 0.0:
             raise MarketDataError(f"{_at(name, row, 'expiry_years')}: expiry {t:g} must be positive")
-        if index in last and t <= last[index]:
+        if index in last and t < last[index]:
             raise MarketDataError(
-                f"{_at(name, row, 'expiry_years')}: expiry {t:g} is not greater than the previous "
-                f"{last[index]:g} for {index!r}; expiries must be strictly increasing per index"
+                f"{_at(name, row, 'expiry_years')}: expiry {t:g} is less than the previous "
+                f"{last[index]:g} for {index!r}; expiries must not decrease per index"
             )
+        key = (index, t, 1.0 if moneyness is None else moneyness)
+        if key in seen:
+            raise MarketDataError(
+                f"{_at(name, row, 'strike')}: a second quote for {index!r} at expiry {t:g} and strike "
+                f"{'ATMF' if moneyness is None else f'{moneyness:g}'} (ATMF is moneyness 1)"
+            )
+        seen.add(key)
         if not 0.0 < v < 5.0:
             raise MarketDataError(f"{_at(name, row, 'implied_vol')}: implied vol {v:g} must be a positive decimal (0.20 for 20%)")
         last[index] = t
-        out.append(EquityVolRow(index=index, expiry=t, implied_vol=v, strike=strike, row=row.number))
+        out.append(EquityVolRow(index=index, expiry=t, implied_vol=v, moneyness=moneyness, row=row.number,
+                                weight=weight))
     return tuple(out)
 
 

@@ -1,5 +1,8 @@
 """One batch of a scenario set: the Gaussian economy from the engine, and credit beside it.
 
+Heston indices (stochastic variance) are simulated conditionally on the Gaussian economy from
+their own stream, in :mod:`pqflow.simulation.heston_part`: the place of a non-Gaussian part.
+
 The Gaussian parts (rates, indices, inflation) are simulated exactly by
 :func:`pqflow.simulation.engine.simulate_batch` from the batch's stream. Credit intensities
 (CIR++, :mod:`pqflow.models.cir_credit`) are independent of those drivers in this version and
@@ -21,8 +24,10 @@ from pqflow.measure.blocks import DensityBlock, block_states, density_block_colu
 from pqflow.measure.density import deflator
 from pqflow.models.base import ScenarioModel
 from pqflow.models.cir_credit import CirCreditModel, simulate_credit
+from pqflow.models.heston import HestonIndex, variance_column
 from pqflow.models.hull_white_equity import bond_column
 from pqflow.simulation.engine import DENSITY_COLUMN, Workspace, simulate_batch
+from pqflow.simulation.heston_part import heston_generator, simulate_heston_index
 from pqflow.simulation.streams import batch_generator, credit_generator
 
 __all__ = ["credit_substeps", "simulate_part", "block_layout"]
@@ -71,11 +76,15 @@ def simulate_part(
     credit_substeps_per_year: int = 12,
     workspace: Workspace | None = None,
     density_blocks: Sequence[DensityBlock] = (),
+    heston: Sequence[HestonIndex] = (),
 ) -> dict[str, np.ndarray]:
     """Every column of batch ``batch`` of ``measure`` (``(n_paths, n_times)`` each), with the
     restricted density of each of ``density_blocks`` (``q_density_<block>`` /
     ``p_density_<block>``): its Gaussian states' density from the engine times its ratings'
-    own densities (credit is independent of the Gaussian drivers)."""
+    own densities (credit is independent of the Gaussian drivers). ``heston``: indices with
+    Heston variance, simulated conditionally on the economy (:mod:`pqflow.simulation.heston_part`);
+    each replaces its index column, adds ``variance_<name>`` and multiplies its density into the
+    full density; a block that contains its driver carries the full density (:func:`_heston_blocks`)."""
     layout = block_layout(model, credit, density_blocks) if density_blocks else {}
     gaussian = {name: rows for name, (rows, _) in layout.items() if rows}
     cols = simulate_batch(
@@ -85,8 +94,19 @@ def simulate_part(
     for name, (rows, _) in layout.items():
         if not rows:
             cols[density_block_column(measure, name)] = np.ones_like(cols[DENSITY_COLUMN[measure]])
+    density = DENSITY_COLUMN[measure]
+    for position, spec in enumerate(heston):
+        paths = simulate_heston_index(
+            spec, model, np.asarray(times, dtype=float), cols, heston_generator(seed, measure, batch, position),
+            measure=measure, n_paths=n_paths, antithetic=antithetic,
+        )
+        cols[spec.column] = spec.level * np.exp(paths.log_return)
+        cols[variance_column(spec.name)] = paths.variance
+        cols[density] = cols[density] * np.exp(paths.log_density)
+    if heston:
+        cols["deflator"] = deflator(measure, cols[density], cols["cash_account"])
     if credit is None:
-        return cols
+        return _heston_blocks(cols, measure, density_blocks, heston)
     missing = [m for m in credit.bond_maturities if bond_column(m) not in cols]
     if missing:
         raise ValueError(f"credit bonds need the risk-free bonds {missing} among the output columns")
@@ -96,11 +116,24 @@ def simulate_part(
         risk_free={m: cols[bond_column(m)] for m in credit.bond_maturities},
     )
     cols.update(paths.columns)
-    density = DENSITY_COLUMN[measure]
     for name, (_, ratings) in layout.items():
         if ratings:
             column = density_block_column(measure, name)
             cols[column] = cols[column] * np.prod(paths.rating_density[list(ratings)], axis=0)
     cols[density] = cols[density] * paths.density
     cols["deflator"] = deflator(measure, cols[density], cols["cash_account"])
+    return _heston_blocks(cols, measure, density_blocks, heston)
+
+
+def _heston_blocks(
+    cols: dict[str, np.ndarray], measure: str, blocks: Sequence[DensityBlock], heston: Sequence[HestonIndex]
+) -> dict[str, np.ndarray]:
+    """A block that holds a Heston index's driver carries the full density: the index reads
+    the increments of the drivers it projects on, and its Gaussian stand-in's restricted
+    density is not its law, so the block's own restricted density is not built (the full
+    density is exact for every column, only less efficient)."""
+    names = {spec.name for spec in heston}
+    for block in blocks:
+        if names & set(block.drivers):
+            cols[density_block_column(measure, block.name)] = cols[DENSITY_COLUMN[measure]]
     return cols

@@ -240,6 +240,29 @@ def _gaussian_row(label: str, t: float, expected: float, mean: float, se: float)
     }
 
 
+def _heston_premia(inputs: RunInputs) -> dict[str, Any]:
+    """For each Heston index (``parameters["stochastic_volatility"]``): its column and the
+    expected ``(1/t) ln E[S_t/(S_0 B_t)]`` as a function of ``t`` (the premium ``lambda_S v`` is
+    stochastic, so the target moves with ``t``; :func:`pqflow.models.heston.real_world_log_excess_growth`)."""
+    from pqflow.models.heston import heston_indices_from_json as heston_from_json
+    from pqflow.models.heston import real_world_log_excess_growth
+
+    try:
+        specs = heston_from_json(inputs.parameters.get("stochastic_volatility", {}) or {})
+    except (KeyError, TypeError, ValueError):
+        return {}
+    out = {}
+    for spec in specs.values():
+        if spec.loadings:  # premium sqrt(v) mu(t) + s lambda v: no closed form, not tested
+            out[spec.column] = None
+            continue
+
+        def expected(t: float, spec=spec) -> float:
+            return float(real_world_log_excess_growth(spec.params, spec.prices_of_risk, t)) / t
+        out[spec.column] = expected
+    return out
+
+
 def _premium_row(label: str, t: float, expected: float, excess, total, cash, k: int) -> dict[str, Any]:
     """Risk-premium target cell at output time index ``k``: ``(1/t) ln E[S_t/(S_0 B_t)]`` by the
     lognormal identity (module docstring), the plain delta-method estimate and the ratio of
@@ -312,15 +335,21 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
             mean, se = float(yacc["y"].mean[k]), float(yacc["y"].std_error[k])
             target_rows.append(_gaussian_row(f"expected {m:g}-year zero yield", float(yt[k]), float(value), mean, se))
     erp = _erp_input(inputs)
-    if erp is not None and e_col is not None:
+    heston = _heston_premia(inputs)
+    untested = [c for c, f in heston.items() if f is None]
+    if erp is not None and e_col is not None and e_col not in untested:
         for k in range(1, times.size):
+            t = float(times[k])
             target_rows.append(_premium_row(
-                "equity risk premium: (1/t) ln E[S_t/(S_0 B_t)]", float(times[k]), erp,
+                "equity risk premium: (1/t) ln E[S_t/(S_0 B_t)]", t, heston[e_col](t) if e_col in heston else erp,
                 excess_cells[e_col], acc[f"total:{e_col}"], acc["cash"], k))
     for col, premium in premia:
+        if col in untested:
+            continue
         for k in range(1, times.size):
+            t = float(times[k])
             target_rows.append(_premium_row(
-                f"risk premium of {col}: (1/t) ln E[S_t/(S_0 B_t)]", float(times[k]), premium,
+                f"risk premium of {col}: (1/t) ln E[S_t/(S_0 B_t)]", t, heston[col](t) if col in heston else premium,
                 excess_cells[col], acc[f"total:{col}"], acc["cash"], k))
     targets = pd.DataFrame(target_rows)
     stats, pct = real_world_statistics(inputs)
@@ -337,6 +366,21 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
         wealth = {float(t): wdata[e_col][:, j] / s0 for j, t in enumerate(wt) if t > 0}
         bench_frame, bench = wealth_ratio_benchmark(wealth)
         tables["wealth_ratio_benchmark"] = bench_frame
+        # every equity index beside the core one (e.g. a Heston index beside a deterministic one)
+        heston_cols = {h.get("column") for h in (inputs.parameters.get("stochastic_volatility") or {}).values()}
+        by_index, frames = {}, []
+        wt_all, wdata_all = gather_at_times(reader, equity, [0.0, *horizons])
+        for col in equity:
+            s0_col = wdata_all[col][:, 0]
+            frame_col, summary_col = wealth_ratio_benchmark(
+                {float(t): wdata_all[col][:, j] / s0_col for j, t in enumerate(wt_all) if t > 0})
+            by_index[col] = {"volatility_model": "heston" if col in heston_cols else "deterministic",
+                             "met": summary_col["comparisons"] - summary_col["failed"],
+                             "cells": summary_col["comparisons"]}
+            frames.append(frame_col.assign(index=col, volatility_model=by_index[col]["volatility_model"]))
+        if len(equity) > 1:
+            tables["wealth_ratio_by_index"] = pd.concat(frames, ignore_index=True)
+        bench["by_index"] = by_index
     bench["counts_toward_verdict"] = wealth_benchmark_gating
 
     if targets.empty:
@@ -363,7 +407,15 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
             f"equity wealth ratios miss {bench['failed']} of {bench['comparisons']} percentiles of "
             "the American Academy of Actuaries (2005) table"
             + ("" if wealth_benchmark_gating else " (reported; not part of the verdict)"))
+    by_index = bench.get("by_index") or {}
+    if len(by_index) > 1:
+        entry["warnings"].append(
+            "wealth-ratio cells met by equity index (American Academy of Actuaries 2005; reported): " + ", ".join(
+                f"{col} ({v['volatility_model']}) {v['met']} of {v['cells']}" for col, v in by_index.items()))
     if erp is None:
         entry["warnings"].append("no constant equity_risk_premium in calibration inputs: not tested")
+    for col in untested:
+        entry["warnings"].append(
+            f"risk premium of Heston index {col}: sqrt(v) mu(t) + s lambda v has no closed-form expectation, not tested")
     entry["statistics"] = {r["statistic"] + f" ({r['measure']})": r["value"] for r in stats.to_dict("records")}
     return CheckResult(name=CHECK, summary=entry, tables=tables)

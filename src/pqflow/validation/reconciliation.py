@@ -79,6 +79,25 @@ def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: floa
     :func:`pqflow.models.g2pp_equity.equity_total_variance`."""
     par = inputs.parameters
     eq = par["equity"]
+    sv = (par.get("stochastic_volatility") or {}).get(eq["name"])
+    if sv is not None:  # a Heston core equity: the semi-closed form (exact, or H1-HW when correlated)
+        from pqflow.models.heston import heston_indices_from_json as heston_from_json
+        from pqflow.models.heston import heston_option_price
+
+        spec = heston_from_json({eq["name"]: sv})[eq["name"]]
+        rates_sv: HullWhiteParams | G2PlusPlusParams
+        if par.get("rates_model") == "g2pp":
+            g = par["g2pp"]
+            rates_sv = G2PlusPlusParams(a=float(g["a"]), sigma=float(g["sigma"]), b=float(g["b"]), eta=float(g["eta"]),
+                                        rho=float(g["rho"]))
+            corr = tuple(float(c) for c in eq.get("correlation_with_rate_factors", (0.0, 0.0)))
+        else:
+            hw = par["hull_white"]
+            rates_sv = HullWhiteParams(mean_reversion=float(hw["mean_reversion"]), volatility=float(hw["volatility"]))
+            corr = float(eq["correlation_with_rates"])
+        return float(heston_option_price(spec.params, level=level, dividend_yield=0.0,
+                                         discount=float(inputs.curve.discount(maturity)), expiry=maturity,
+                                         strike=guarantee, kind="put", rates=rates_sv, correlation=corr))
     vol = eq["volatility"]
     volatility = float(vol) if isinstance(vol, (int, float)) else PiecewiseConstant.from_json(vol)
     if "g2pp" in par:
