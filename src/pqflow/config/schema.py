@@ -419,11 +419,11 @@ class HestonFitSection(_Section):
     its smile: ``[lower, upper]`` bounds of each parameter and the starting point (weights come
     from the ``weight`` column of market_data.equity_vols)."""
 
-    v0_bounds: tuple[float, float] = (1e-4, 1.0)
-    kappa_bounds: tuple[float, float] = (0.05, 10.0)
-    theta_bounds: tuple[float, float] = (1e-4, 1.0)
-    xi_bounds: tuple[float, float] = (0.01, 2.0)
-    rho_bounds: tuple[float, float] = (-0.99, 0.99)
+    v0_bounds: _Pair = (1e-4, 1.0)
+    kappa_bounds: _Pair = (0.05, 10.0)
+    theta_bounds: _Pair = (1e-4, 1.0)
+    xi_bounds: _Pair = (0.01, 2.0)
+    rho_bounds: _Pair = (-0.99, 0.99)
     initial: dict[Literal["v0", "kappa", "theta", "xi", "rho"], float] = Field(default_factory=dict)
 
     @model_validator(mode="after")
