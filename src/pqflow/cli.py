@@ -704,8 +704,9 @@ def value(
         if line.get("level") == "product" and line.get("quantity") == "best_estimate":
             products.setdefault(str(line.get("real_world_density", "q_density")), []).append(line["name"])
     for density, names in products.items():
-        console.print(f"real-world deflators of {', '.join(names)}: {density} / cash_account", highlight=False,
-                      markup=False)
+        used = [f"{d} / cash_account" for d in density.split(", ")]
+        which = used[0] if len(used) == 1 else " or ".join(used) + " (by model point)"
+        console.print(f"real-world deflators of {', '.join(names)}: {which}", highlight=False, markup=False)
     console.print("values and standard errors use control variates from known martingales "
                   "(plain means in the CSV as *_without_controls)", style="dim", highlight=False)
     if summary.get("sensitivities"):

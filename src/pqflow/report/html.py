@@ -400,8 +400,11 @@ def _densities(summary: dict[str, Any], manifest: dict[str, Any] | None) -> list
 
 def _warnings(summary: dict[str, Any], valuation: dict[str, Any] | None) -> list[str]:
     out: list[str] = []
+    horizons = isinstance(summary.get("densities"), list)  # then one line per density says it, below
     for name, c in (summary.get("checks") or {}).items():
         for w in c.get("warnings", []) or []:
+            if horizons and "effective sample size" in str(w):
+                continue
             for m in MEASURES:  # "real_world: ..." reads as "real world (P): ..."
                 w = w.replace(f"{m}:", f"{MEASURE_NAME[m]}:")
             out.append(str(w))
