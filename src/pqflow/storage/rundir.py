@@ -34,6 +34,7 @@ from typing import Any
 
 from pqflow.errors import RunDirectoryError
 from pqflow.storage.parquet import file_sha256
+from pqflow.storage.results import replace_directory
 
 __all__ = [
     "PROGRESS",
@@ -336,19 +337,7 @@ def publish_staging(staging: str | Path, out: str | Path, *, overwrite: bool) ->
     staging, out = Path(staging), Path(out).absolute()
     check_target(out, overwrite)
     (staging / PROGRESS).unlink(missing_ok=True)
-    old = None
-    if out.exists():
-        old = out.parent / f".{out.name}.old-{uuid.uuid4().hex[:12]}"
-        os.replace(out, old)
-    try:
-        os.replace(staging, out)
-    except OSError:
-        if old is not None:
-            os.replace(old, out)
-        raise
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
-    return out
+    return replace_directory(staging, out)
 
 
 def discard_staging(staging: str | Path) -> None:

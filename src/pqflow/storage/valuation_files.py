@@ -18,9 +18,7 @@ File paths in the manifest and in ``summary.json`` are relative to the valuation
 
 from __future__ import annotations
 
-import os
 import shutil
-import uuid
 from pathlib import Path
 from typing import Any
 
@@ -28,6 +26,7 @@ from pqflow.errors import IntegrityError, RunDirectoryError
 from pqflow.storage.jsonio import read_json, write_json_atomic
 from pqflow.storage.manifest import MANIFEST, build_manifest
 from pqflow.storage.parquet import file_sha256
+from pqflow.storage.results import replace_directory
 from pqflow.storage.rundir import staging_path
 
 __all__ = [
@@ -84,18 +83,7 @@ def publish_valuation_files(staging: str | Path, out: str | Path, *, header: dic
     check_valuation_target(out, overwrite)
     manifest = build_manifest(staging, header={"kind": "pqflow valuation", **header})
     write_json_atomic(staging / VALUATION_MANIFEST, manifest)
-    old = None
-    if out.exists():  # swap: the earlier results go only once the new ones are in place
-        old = out.parent / f".{out.name}.old-{uuid.uuid4().hex[:12]}"
-        os.replace(out, old)
-    try:
-        os.replace(staging, out)
-    except OSError:
-        if old is not None:
-            os.replace(old, out)
-        raise
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
+    replace_directory(staging, out)  # the earlier results go only once the new ones are in place
     return manifest
 
 
