@@ -219,3 +219,20 @@ def test_prefect_flow_writes_the_same_sensitivity_sets(prefect_harness, run, tmp
     sens = {k for k in lib if k.startswith("sensitivities/") and k.endswith(".parquet")}
     assert sens and {k: flow[k] for k in sens} == {k: lib[k] for k in sens}
     verify_run(tmp_path / "flow")
+
+
+def test_report_shows_the_sensitivities_table_and_bar_chart(run, tmp_path):
+    """The report's sensitivities section: every sensitivity in the table and a bar chart of the
+    best-estimate changes with their common-scenario error bars (issue 15)."""
+    import shutil
+
+    from pqflow.report import build_report_html
+
+    copy = tmp_path / "run"
+    shutil.copytree(run, copy)
+    value_liabilities_cli(copy, BOOK)
+    html = build_report_html(copy)
+    section = html[html.index("Sensitivities (total)"):]
+    assert "Change in the total best estimate by sensitivity" in section and "<svg" in section
+    for name in ("rates_up_100bp", "equity_down", "equity_vol_up"):
+        assert name in section

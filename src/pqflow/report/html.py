@@ -1313,6 +1313,15 @@ def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
                            fmts={"quantity": lambda r: escape(str(r["quantity"]).replace("_", " ")),
                                  **{k: (lambda r, k=k: escape(fmt.money(r.get(k))))
                                     for k in ("value", "change", "change_se_paired", "change_se_independent")}}))
+        be = [r for r in sens if r["quantity"] == "best_estimate"]
+        if be:
+            html.append(svg.bar_chart(
+                title=f"Change in the total best estimate by sensitivity ({cur}), ± 2 SE (common scenarios)",
+                labels=[str(r["sensitivity"]) for r in be],
+                values=[float(r.get("change") or 0.0) for r in be],
+                errors=[2.0 * float(r.get("change_se_paired") or 0.0) for r in be],
+                y_label=cur,
+            ))
         html.append(_files(run_dir, ["../valuation/sensitivities.csv"]))
     return "".join(html)
 
