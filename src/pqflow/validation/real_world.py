@@ -56,7 +56,7 @@ import pandas as pd
 
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
 from pqflow.validation.martingale import bond_maturity_of
-from pqflow.validation.mean_tests import LOGNORMAL, MARTINGALE_DEVIATION, mean_test
+from pqflow.validation.mean_tests import LOGNORMAL, MARTINGALE_DEVIATION, MIN_UNITS, mean_test
 from pqflow.validation.run_files import RunInputs, gather_at_times, stream_cells, stream_moments, time_index
 from pqflow.validation.summary import family_critical_z
 
@@ -231,12 +231,16 @@ def _index_premia(inputs: RunInputs, names: list[str], core: str | None) -> list
     return out
 
 
-def _gaussian_row(label: str, t: float, expected: float, mean: float, se: float) -> dict[str, Any]:
-    """A target cell on a Gaussian quantity (plain t; material deviation 5% of ``expected``)."""
+def _gaussian_row(label: str, t: float, expected: float, mean: float, se: float, units: int) -> dict[str, Any]:
+    """A target cell on a Gaussian quantity (plain t; material deviation 5% of ``expected``). With
+    fewer than ``MIN_UNITS`` of the lognormal identity's sampling units the t's normal critical
+    value does not hold its size: the cell is not judged (inconclusive)."""
+    judged = units >= MIN_UNITS[LOGNORMAL]
     return {
         "target": label, "time": t, "expected": expected, "estimate": mean, "std_error": se,
-        "test": "plain t (Gaussian quantity)", "z_score": _z(mean - expected, se, expected),
-        "statistic_se": se, "material_effect": MARTINGALE_DEVIATION * abs(expected),
+        "test": "plain t (Gaussian quantity)" + ("" if judged else f" (not judged: {units} sampling units)"),
+        "z_score": _z(mean - expected, se, expected) if judged else 0.0,
+        "statistic_se": se if judged else float("inf"), "material_effect": MARTINGALE_DEVIATION * abs(expected),
     }
 
 
@@ -315,7 +319,8 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
             skipped.append(float(t))
             continue
         mean, se = float(acc["short_rate"].mean[k]), float(acc["short_rate"].std_error[k])
-        target_rows.append(_gaussian_row("expected short rate", float(times[k]), float(target), mean, se))
+        target_rows.append(_gaussian_row("expected short rate", float(times[k]), float(target), mean, se,
+                                         acc["short_rate"].count))
     target = esr.get("target") or {}
     view = inputs.parameters.get("real_world_view", {}) or {}
     house_fit = None
@@ -333,7 +338,8 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
             if k is None or k == 0:
                 continue
             mean, se = float(yacc["y"].mean[k]), float(yacc["y"].std_error[k])
-            target_rows.append(_gaussian_row(f"expected {m:g}-year zero yield", float(yt[k]), float(value), mean, se))
+            target_rows.append(_gaussian_row(f"expected {m:g}-year zero yield", float(yt[k]), float(value), mean, se,
+                                             yacc["y"].count))
     erp = _erp_input(inputs)
     heston = _heston_premia(inputs)
     untested = [c for c, f in heston.items() if f is None]
