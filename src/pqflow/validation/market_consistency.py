@@ -37,6 +37,27 @@ cell tests the simulation, the first tests the calibration. Implied volatilities
 Carlo prices are reported in the quote's own convention (Bachelier, Black, shifted Black),
 differences in basis points of the quoted volatility (for a lognormal quote one basis point
 is 0.01 volatility points).
+
+Power (three verdicts, as the other checks: :mod:`pqflow.validation.summary`). A cell is
+*inconclusive* rather than passed when its test cannot see a material deviation with at least
+50% power at the family level. The material deviation is stated in the quote's own unit
+(:data:`MATERIAL_VOL`, :data:`MATERIAL_PREMIUM`; common practice): 10 bp of normal volatility for
+a swaption quoted in normal volatility, 1 volatility point for a lognormal or shifted-lognormal
+quote (equity and index options, the Heston smile, Black swaptions), each twice the stated
+tolerance (a check that forgives 5 bp must at least see 10 bp); for a quote given as a premium
+(year-on-year inflation caps and floors, or an option without a volatility) the larger of 10 bp
+of notional and 10% of the premium. In price it is that premium share, or the smaller of the
+price moves of the quote for its volatility up and down by the material amount (the harder
+side: deep out of the money a price moves less down than up). The quote cell's test only sees
+what exceeds its tolerance, so its effect is ``material - tolerance`` in price and its standard error the Monte Carlo one: the cell is
+inconclusive when ``(material - tolerance) / SE < z_f`` (columns ``material_effect`` and
+``statistic_se``); the model-price cell has no tolerance, effect ``material``. A cell whose
+payoff is non-zero on fewer than :data:`MIN_PAYING_UNITS` sampling units (an antithetic pair is
+one unit) is not judged by the normal approximation at all: its mean is a sum of a handful of
+terms, its standard error says nothing (one paying path gives ``SE = mean``), so it is
+inconclusive with the count shown (``paying_units``; its raw score stays in
+``z_normal_approximation``). Size and power of the rule are measured in
+``tests/test_market_power.py`` (printed in the test output).
 """
 
 from __future__ import annotations
@@ -52,11 +73,15 @@ from pqflow.errors import MarketDataError
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
 from pqflow.validation.martingale import index_columns
 from pqflow.validation.run_files import RunInputs, stream_moments, time_index
-from pqflow.validation.summary import family_critical_z
+from pqflow.validation.summary import family_critical_z, inconclusive_mask
 
 __all__ = [
     "DEFAULT_VOL_TOLERANCE",
     "PREMIUM_TOLERANCE",
+    "MATERIAL_VOL",
+    "MATERIAL_PREMIUM",
+    "MIN_PAYING_UNITS",
+    "quote_cells",
     "InstrumentSpec",
     "parse_instruments",
     "market_consistency_table",
@@ -69,6 +94,14 @@ DEFAULT_VOL_TOLERANCE = {"normal": 5e-4, "lognormal": 5e-3, "shifted_lognormal":
 #: Stated tolerance of quotes given as premiums (year-on-year inflation caps and floors): the
 #: larger of 5 bp of notional and 3% of the premium.
 PREMIUM_TOLERANCE = {"absolute": 5e-4, "relative": 0.03}
+#: Material deviation of a volatility quote (decimal volatility): twice the stated tolerance.
+MATERIAL_VOL = {"normal": 1e-3, "lognormal": 1e-2, "shifted_lognormal": 1e-2}
+#: Material deviation of a premium quote: the larger of 10 bp of notional and 10% of the premium.
+MATERIAL_PREMIUM = {"absolute": 1e-3, "relative": 0.10}
+#: Fewer sampling units with a non-zero payoff than this: the cell is not judged (inconclusive).
+MIN_PAYING_UNITS = 20
+MATERIAL_TEXT = ("10 bp normal vol (normal quotes); 1 vol point (lognormal and shifted-lognormal quotes); "
+                 "max(10 bp of notional, 10% of the premium) (premium quotes)")
 _BP = 1e-4
 _MEASURES = ("market_consistent", "real_world")
 
@@ -296,6 +329,52 @@ def _implied(s: InstrumentSpec, price: float) -> float | None:
         return None
 
 
+def _material_price(s: InstrumentSpec, vega: float | None, tol: dict[str, float]) -> float | None:
+    """The material deviation in price (module docstring), ``None`` without a price to scale."""
+    if vega is not None and s.kind != "yoy_option":
+        vol = max(MATERIAL_VOL.get(s.convention, MATERIAL_VOL["lognormal"]), 2.0 * tol.get(s.convention, 0.0))
+        assert s.market_vol is not None and s.forward is not None
+        args = dict(annuity=s.annuity, kind=s.option, shift=s.shift)
+        at = float(option_price(s.convention, s.forward, s.strike, s.market_vol, s.expiry, **args))
+        moves = [abs(float(option_price(s.convention, s.forward, s.strike, v, s.expiry, **args)) - at)
+                 for v in (s.market_vol + vol, s.market_vol - vol) if v > 0]
+        return min(moves) if moves else abs(vega) * vol  # the harder side of a vol move
+    price = s.market_price if s.market_price is not None else s.model_price
+    if price is None:
+        return None
+    return max(MATERIAL_PREMIUM["absolute"] if s.kind == "yoy_option" else 0.0,
+               MATERIAL_PREMIUM["relative"] * abs(price))
+
+
+def quote_cells(
+    mc: Any, std_error: Any, reference: Any, tolerance: Any, material: Any, paying_units: Any,
+    *, min_paying_units: int = MIN_PAYING_UNITS,
+) -> pd.DataFrame:
+    """The verdict columns of quote cells, vectorised over equal-length arrays.
+
+    ``z_normal_approximation``: ``sign(d) max(|d| - tolerance, 0) / SE``, ``d = mc - reference``
+    (NaN without a standard error); ``judged``: at least ``min_paying_units`` units pay and the
+    standard error is positive; ``z_score``: the score where judged, 0 where not (such a cell
+    cannot fail); ``material_effect``: ``max(material - tolerance, 0)`` where judged, NaN where
+    not (inconclusive by :func:`pqflow.validation.summary.inconclusive_mask`); ``statistic_se``:
+    the standard error; ``paying_units``.
+    """
+    mc, se, ref, tol, mat, pay = (np.asarray(a, dtype=float) for a in
+                                  (mc, std_error, reference, tolerance, material, paying_units))
+    d = mc - ref
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(se > 0, np.sign(d) * np.maximum(np.abs(d) - tol, 0.0) / np.where(se > 0, se, 1.0), np.nan)
+    judged = (pay >= min_paying_units) & (se > 0) & np.isfinite(z)
+    return pd.DataFrame({
+        "z_score": np.where(judged, z, 0.0),
+        "z_normal_approximation": z,
+        "judged": judged,
+        "material_effect": np.where(judged, np.maximum(mat - tol, 0.0), np.nan),
+        "statistic_se": se,
+        "paying_units": pay.astype(int),
+    })
+
+
 def market_consistency_table(
     inputs: RunInputs, *, vol_tolerance: dict[str, float] | None = None,
     measures: tuple[str, ...] = _MEASURES,
@@ -321,8 +400,19 @@ def market_consistency_table(
         if not testable:
             continue
         needed = ["deflator", *dict.fromkeys(c for s in testable for c in s.column_names)]
-        _, acc = stream_moments(reader, needed, lambda t, c: {"v": _payoffs(testable, t, c)})
+        antithetic = reader.antithetic
+
+        def derive(t: np.ndarray, c: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+            v = _payoffs(testable, t, c)
+            paying = (v != 0.0).astype(float)
+            if antithetic:  # a pair pays when either path does: its unit mean is then exactly 1
+                paying = np.repeat(np.maximum(paying[0::2], paying[1::2]), 2, axis=0)
+            return {"v": v, "paying": paying}
+
+        _, acc = stream_moments(reader, needed, derive)
         mean, se = acc["v"].mean, acc["v"].std_error
+        units = int(acc["paying"].count)
+        paying_units = np.rint(acc["paying"].mean * units).astype(int)
         for j, s in enumerate(testable):
             mc, err = float(mean[j]), float(se[j])
             vega = _vega(s)
@@ -331,6 +421,7 @@ def market_consistency_table(
             if s.kind == "yoy_option" and s.market_price is not None:
                 tol_price = max(PREMIUM_TOLERANCE["absolute"], PREMIUM_TOLERANCE["relative"] * s.market_price)
             mc_vol = _implied(s, mc)
+            material = _material_price(s, vega, tol)
             row: dict[str, Any] = {
                 "instrument": s.label, "type": s.kind, "measure": measure,
                 "expiry": s.expiry, "tenor": s.tenor, "strike": s.strike,
@@ -343,6 +434,8 @@ def market_consistency_table(
                 "vol_tolerance_bp": tol_vol / _BP,
                 "z_market": (mc - s.market_price) / err if s.market_price is not None and err > 0 else None,
                 "z_model": (mc - s.model_price) / err if s.model_price is not None and err > 0 else None,
+                "sampling_units": units, "paying_units": int(paying_units[j]),
+                "tolerance_price": tol_price, "material_price": material,
             }
             if s.market_price is not None and err > 0:
                 d = mc - s.market_price
@@ -370,30 +463,63 @@ def market_consistency_check(
         entry["not_testable"] = untestable
         return CheckResult(name=CHECK, summary=entry)
     cells = []
-    for r in table.itertuples(index=False):
-        if r.z_score is not None and not pd.isna(r.z_score):
-            cells.append({"instrument": r.instrument, "measure": r.measure,
-                          "reference": "market quote within tolerance", "z_score": float(r.z_score)})
-        if r.z_model is not None and not pd.isna(r.z_model):
-            cells.append({"instrument": r.instrument, "measure": r.measure,
-                          "reference": "model price", "z_score": float(r.z_model)})
-    cell_table = pd.DataFrame(cells, columns=["instrument", "measure", "reference", "z_score"])
+    for r in table.to_dict(orient="records"):
+        material = r["material_price"]
+        for reference, ref_price, tol_price in (
+            ("market quote within tolerance", r["market_price"], r["tolerance_price"]),
+            ("model price", r["model_price"], 0.0),
+        ):
+            if ref_price is None or pd.isna(ref_price):
+                continue
+            cells.append({"instrument": r["instrument"], "measure": r["measure"], "reference": reference,
+                          "time": float(r["expiry"]), "mc": r["mc_price"], "se": r["std_error"],
+                          "ref": float(ref_price), "tol": float(tol_price),
+                          "material": np.nan if material is None else float(material),
+                          "paying": r["paying_units"]})
+    labels = ["instrument", "measure", "reference", "time"]
+    if cells:
+        raw = pd.DataFrame(cells)
+        cell_table = pd.concat([raw[labels], quote_cells(raw["mc"], raw["se"], raw["ref"], raw["tol"],
+                                                         raw["material"], raw["paying"])], axis=1)
+    else:
+        cell_table = pd.DataFrame(columns=[*labels, "z_score", "material_effect", "statistic_se", "paying_units"])
     crit = family_critical_z(len(cell_table))
     tol = {**DEFAULT_VOL_TOLERANCE, **(vol_tolerance or {})}
     rule = (
         "each quote: |MC - market| <= vega * tolerance + z * SE, tolerance "
         f"{tol['normal'] / _BP:g} bp normal vol, {tol['lognormal'] * 100:g} vol points lognormal "
         f"and shifted lognormal; each recorded model price: |MC - model| <= z * SE; z = {crit:.2f} "
-        "(Bonferroni, family level 99%); both sets, the real-world one with its deflators"
+        "(Bonferroni, family level 99%); both sets, the real-world one with its deflators; a cell is "
+        f"inconclusive when fewer than {MIN_PAYING_UNITS} sampling units pay or when its test would detect "
+        "the material deviation less than half the time at that level"
     )
     entry = cells_entry(cell_table, ["instrument", "measure", "reference", "z_score"], kind=KIND, rule=rule)
+    weak = inconclusive_mask(cell_table, crit) if len(cell_table) else pd.Series(dtype=bool)
+    entry["material_deviation"] = MATERIAL_TEXT
+    entry["power_rule"] = (
+        "a cell is inconclusive when its payoff is non-zero on fewer than "
+        f"{MIN_PAYING_UNITS} sampling units (no normal approximation), or when its test would detect the "
+        "material deviation (beyond the quote's tolerance) less than half the time at the family level "
+        "(material effect / standard error below the family critical z)"
+    )
+    thin = cell_table[~cell_table["judged"].astype(bool)] if len(cell_table) else cell_table
+    entry["too_few_paying_units"] = [
+        {"instrument": r["instrument"], "measure": r["measure"], "reference": r["reference"],
+         "paying_units": int(r["paying_units"])} for r in thin.to_dict(orient="records")]
+    entry["inconclusive"] = [
+        {"instrument": r["instrument"], "measure": r["measure"], "reference": r["reference"],
+         "expiry": r["time"], "paying_units": int(r["paying_units"]),
+         "reason": (f"only {int(r['paying_units'])} sampling units pay (fewer than {MIN_PAYING_UNITS})"
+                    if not r["judged"] else "cannot detect the material deviation with 50% power")}
+        for r in cell_table[weak].to_dict(orient="records")] if len(cell_table) else []
     entry["instruments"] = len(specs)
     entry["instruments_tested"] = len(specs) - len(untestable)
     entry["not_testable"] = untestable
     entry["vol_tolerance"] = tol
     entry["rows"] = [
         {k: r[k] for k in ("instrument", "measure", "mc_price", "std_error", "market_price",
-                           "model_price", "vol_difference_bp", "z_score", "z_model")}
+                           "model_price", "vol_difference_bp", "z_score", "z_model", "paying_units",
+                           "material_price")}
         for r in table.to_dict(orient="records")
     ]
     entry["warnings"] = [f"{u['instrument']}: {u['reason']}" for u in untestable] + [

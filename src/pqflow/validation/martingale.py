@@ -25,7 +25,7 @@ whether the cell has the power to judge (:func:`pqflow.validation.summary.cells_
 from __future__ import annotations
 
 import re
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Collection, Sequence
 
 import numpy as np
 import pandas as pd
@@ -115,10 +115,13 @@ def martingale_table(
     *,
     credit_density: bool = False,
     rates_drivers: Sequence[str] = ("rates",),
+    non_lognormal: Collection[str] = (),
 ) -> pd.DataFrame:
     """One row per (asset, time > 0). ``discount`` is today's curve ``t -> P(0, t)``; ``extra``
     are further assets (their columns must be in the files, their names new); credit_density:
-    whether the set's density carries the CIR credit part (its cells are then not lognormal).
+    whether the set's density carries the CIR credit part (its cells are then not lognormal);
+    non_lognormal: assets judged by the robust t whatever the density (a stochastic-volatility
+    index, :func:`pqflow.validation.mean_tests.stochastic_volatility_assets`).
 
     In a real-world set that carries restricted densities (:mod:`pqflow.measure.blocks`) every
     asset but the deflator itself is deflated with the density of the smallest block(s) holding
@@ -168,10 +171,11 @@ def martingale_table(
         factors = weights[a.name]
         if factors:  # a restricted density: lognormal unless a credit block is among its factors
             with_credit = any(c.split("_density_", 1)[1].startswith(CREDIT_PREFIX) for c in factors)
-            rule = rule_for_asset(a.name, measure=reader.measure, credit_density=False)
+            rule = rule_for_asset(a.name, measure=reader.measure, credit_density=False, non_lognormal=non_lognormal)
             rule = ROBUST if with_credit else rule
         else:
-            rule = rule_for_asset(a.name, measure=reader.measure, credit_density=credit_density)
+            rule = rule_for_asset(a.name, measure=reader.measure, credit_density=credit_density,
+                                  non_lognormal=non_lognormal)
         res = mean_test(moments, ref, rule, deviation=MARTINGALE_DEVIATION)
         for k in range(1, times.size):
             z = res.z_score[k]

@@ -50,6 +50,7 @@ The moments are streamed part by part (:class:`CellMoments`): sums, never the ar
 
 from __future__ import annotations
 
+from collections.abc import Collection
 from dataclasses import dataclass
 
 import numpy as np
@@ -64,6 +65,7 @@ __all__ = [
     "rule_for_asset",
     "rule_for_density",
     "credit_in_density",
+    "stochastic_volatility_assets",
     "MARTINGALE_DEVIATION",
     "DENSITY_DEVIATION",
     "MIN_UNITS",
@@ -292,12 +294,14 @@ def _null_variance_factor(moments: CellMoments, ref: np.ndarray) -> np.ndarray:
     return np.where(np.isfinite(factor) & (v > 0), factor, 1.0)
 
 
-def rule_for_asset(asset: str, *, measure: str, credit_density: bool) -> str:
+def rule_for_asset(asset: str, *, measure: str, credit_density: bool, non_lognormal: Collection[str] = ()) -> str:
     """Which test judges a martingale cell: the robust t for the credit claims (their default
-    losses ``exp(-L Lambda)`` are not lognormal) and for every real-world cell when the density
-    carries the credit part (the deflator ``q_density / B`` then is not lognormal); the
-    lognormal identity otherwise (the Gaussian economy's deflated prices)."""
-    if asset.startswith(_CREDIT_ASSET_PREFIXES):
+    losses ``exp(-L Lambda)`` are not lognormal), for the assets named in ``non_lognormal``
+    (a stochastic-volatility index: :func:`stochastic_volatility_assets`) and for every
+    real-world cell when the density carries the credit part (the deflator ``q_density / B``
+    then is not lognormal); the lognormal identity otherwise (the Gaussian economy's deflated
+    prices)."""
+    if asset.startswith(_CREDIT_ASSET_PREFIXES) or asset in non_lognormal:
         return ROBUST
     if measure == "real_world" and credit_density:
         return ROBUST
@@ -312,6 +316,19 @@ def rule_for_density(column: str, *, credit_density: bool) -> str:
         if column.startswith(prefix):
             return ROBUST if column[len(prefix):].startswith("credit") else LOGNORMAL
     return ROBUST if credit_density else LOGNORMAL
+
+
+def stochastic_volatility_assets(parameters: dict) -> frozenset[str]:
+    """Index columns (``equity_<name>``, ``property_<name>``) of the indices that
+    ``calibration.json`` gives a stochastic volatility (``parameters["stochastic_volatility"]``,
+    the Heston indices). Their deflated values are variance mixtures of lognormals, not
+    lognormal: ``log X`` is not Gaussian and the lognormal identity is biased upward for them
+    (``E[L] + Var(L)/2 - log E[X] = Var(s^2)/8`` for ``X = exp(s Z - s^2/2)`` with a random
+    ``s``), measured in ``tests/test_mean_tests.py``."""
+    sv = parameters.get("stochastic_volatility") if isinstance(parameters, dict) else None
+    if not isinstance(sv, dict):
+        return frozenset()
+    return frozenset(f"{kind}_{name}" for name in sv for kind in ("equity", "property"))
 
 
 def credit_in_density(parameters: dict, column_names: list[str] | None = None) -> bool:

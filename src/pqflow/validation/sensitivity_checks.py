@@ -18,6 +18,7 @@ from pqflow.validation.density import density_table
 from pqflow.validation.evidence import _KINDS, RULE, RunValidation, overall_verdict
 from pqflow.validation.market_consistency import market_consistency_check
 from pqflow.validation.martingale import martingale_table
+from pqflow.validation.mean_tests import stochastic_volatility_assets
 from pqflow.validation.reader import ScenarioSetReader
 from pqflow.validation.run_files import json_safe, load_run_inputs
 from pqflow.validation.summary import summarise
@@ -32,7 +33,8 @@ def run_market_consistent_checks(run_dir: str | Path, *, ess_warning_share: floa
     inputs = load_run_inputs(run_dir)
     reader = ScenarioSetReader(run_dir=Path(run_dir), measure=MEASURE)
     extra = partial(martingale_assets, inputs)(reader.column_names())
-    mart = {MEASURE: martingale_table(reader, inputs.curve.discount, extra)}
+    mart = {MEASURE: martingale_table(reader, inputs.curve.discount, extra,
+                                      non_lognormal=stochastic_volatility_assets(inputs.parameters))}
     dens = {MEASURE: density_table(reader)}
     base = summarise(mart, dens, ess_warning_share=ess_warning_share)
     checks = {}

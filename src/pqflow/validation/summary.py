@@ -186,6 +186,7 @@ def validate_run(
     extra_assets: Callable[[list[str]], Sequence[MartingaleAsset]] | None = None,
     credit_density: bool = False,
     rates_drivers: Sequence[str] = ("rates",),
+    non_lognormal: Sequence[str] = (),
 ) -> tuple[dict[str, pd.DataFrame], dict[str, pd.DataFrame], dict[str, Any]]:
     """Compute every table and the summary for a run directory (nothing is written here).
 
@@ -193,7 +194,8 @@ def validate_run(
     ``functools.partial(pqflow.validation.assets.martingale_assets, inputs)``); the same
     references serve both sets, the real-world deflator carrying the density. credit_density:
     whether the full densities carry the CIR credit part
-    (:func:`pqflow.validation.mean_tests.credit_in_density`).
+    (:func:`pqflow.validation.mean_tests.credit_in_density`). non_lognormal: martingale assets
+    judged by the robust t (:func:`pqflow.validation.mean_tests.stochastic_volatility_assets`).
     """
     run_dir = Path(run_dir)
     mart, dens = {}, {}
@@ -201,7 +203,7 @@ def validate_run(
         reader = ScenarioSetReader(run_dir=run_dir, measure=measure)
         extra = extra_assets(reader.column_names()) if extra_assets is not None else ()
         mart[measure] = martingale_table(reader, discount, extra, credit_density=credit_density,
-                                         rates_drivers=rates_drivers)
+                                         rates_drivers=rates_drivers, non_lognormal=non_lognormal)
         dens[measure] = density_table(reader, credit_density=credit_density)
     summary = summarise(mart, dens, ess_warning_share=ess_warning_share)
     return mart, dens, summary
