@@ -7,6 +7,7 @@ covers.
 
 from __future__ import annotations
 
+from bisect import bisect_right
 from dataclasses import dataclass
 
 import numpy as np
@@ -46,6 +47,11 @@ class PiecewiseConstant:
         idx = np.searchsorted(np.asarray(self.knots), np.asarray(t, dtype=float), side="right") - 1
         return np.asarray(self.values)[np.clip(idx, 0, len(self.values) - 1)]
 
+    def value_at(self, t: float) -> float:
+        """The value at one time ``t``: the same as ``float(self(t))`` without numpy's per-call
+        cost (``segments`` asks it once per piece, hundreds of times for a monthly schedule)."""
+        return self.values[min(max(bisect_right(self.knots, t) - 1, 0), len(self.values) - 1)]
+
     def to_json(self) -> dict[str, list[float]]:
         return {"knots": list(self.knots), "values": list(self.values)}
 
@@ -69,5 +75,5 @@ def segments(t0: float, t1: float, *schedules: PiecewiseConstant) -> list[tuple[
     out = []
     for u0, u1 in zip(edges, edges[1:]):
         mid = 0.5 * (u0 + u1)
-        out.append((u0, u1, tuple(float(s(mid)) for s in schedules)))
+        out.append((u0, u1, tuple(s.value_at(mid) for s in schedules)))
     return out
