@@ -73,6 +73,8 @@ def phi2(a: float | np.ndarray, u: np.ndarray | float) -> np.ndarray:
     u = np.asarray(u, dtype=float)
     small = np.abs(a * u) < _SERIES_CUTOFF
     direct = (u - b_factor(a, u)) / a
+    if not small.any():  # the series would be computed only to be discarded by np.where
+        return np.asarray(direct)
     from math import factorial
 
     series = _series(a, u, 2, lambda k: (-1) ** k / factorial(k))
@@ -85,6 +87,8 @@ def _phi3(a: float | np.ndarray, u: np.ndarray | float) -> np.ndarray:
     u = np.asarray(u, dtype=float)
     small = np.abs(a * u) < _SERIES_CUTOFF
     direct = (u - 2.0 * b_factor(a, u) + b_factor(2.0 * a, u)) / a**2
+    if not small.any():  # the series would be computed only to be discarded by np.where
+        return np.asarray(direct)
     from math import factorial
 
     series = _series(a, u, 3, lambda k: (-1) ** (k + 1) * (2 ** (k - 1) - 2) / factorial(k))
