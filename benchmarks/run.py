@@ -16,11 +16,16 @@ Sections (each prints a table; all figures go to benchmarks/results/latest.json)
 4. scaling  real-world set only (library loop, no Prefect), 50 years monthly, 1,000 / 10,000 /
             100,000 scenarios, one subprocess per size: peak RSS and time, log-log exponent of
             time against scenarios x steps.
+6. cli      the standard quarter of section 3 end to end through the command line (``pqflow run``,
+            every check, the report, Prefect's temporary server), threads then Dask, beside the
+            floor measured in the same run: the work no implementation can skip, on one core (draw
+            every standard normal the quarter's paths consume, write the parts' tables with plain
+            ``pyarrow.parquet.write_table`` defaults, read each part once). Ratio = wall / floor.
 5. heston   the cost per path-step of an equity index with Heston variance (the non-Gaussian
             part, its scheme and density, correlated with rates) beside the same index with a
             deterministic volatility (the Gaussian economy): real-world batch, 2,000 paths.
 
-Usage: ``python benchmarks/run.py [core parquet quarter scaling heston]`` (default: all).
+Usage: ``python benchmarks/run.py [core parquet quarter scaling heston cli]`` (default: all).
 """
 
 from __future__ import annotations
@@ -44,7 +49,7 @@ REPO = Path(__file__).resolve().parents[1]
 RESULTS = REPO / "benchmarks" / "results"
 DEMO = REPO / "scenario_configs" / "demo.toml"
 BONDS = [1, 2, 3, 5, 7, 10, 15, 20, 25, 30]
-SECTIONS = ("core", "parquet", "quarter", "scaling", "heston")
+SECTIONS = ("core", "parquet", "quarter", "scaling", "heston", "cli")
 SCALING_BATCH = 500  # the demo's batch size, the same for every size
 
 
@@ -493,6 +498,84 @@ def bench_heston(tmp: Path) -> dict[str, Any]:
     return out
 
 
+# ------------------------------------------------------------------ 6. command line, end to end
+
+
+def quarter_config(path: Path) -> Path:
+    """The standard quarter: real world 10,000 x 50 years monthly, market consistent 10,000 x 60
+    years annual (its own grid), 10 bonds, one equity index."""
+    make_config(path, scenarios=10_000, batch_size=1000, horizon_years=50, steps_per_year=12)
+    with path.open("a", encoding="utf-8") as fh:
+        fh.write("\n[simulation.market_consistent]\nhorizon_years = 60\nsteps_per_year = 1\n")
+    return path
+
+
+def quarter_floor(run_dir: Path, normals_per_step: int = 3) -> dict[str, float]:
+    """The floor of the quarter in ``run_dir``, one core: draw the standard normals of every
+    path-step of both sets (``normals_per_step`` per path-step, as in section 1), write every
+    part's table with ``pyarrow.parquet.write_table`` defaults and read each part once."""
+    import pyarrow.parquet as pq
+
+    parts = sorted((run_dir / "scenarios").rglob("*.parquet"))
+    rng = np.random.default_rng(1)
+    draw = write = read = 0.0
+    path_steps = 0
+    scratch = run_dir.parent / "floor.parquet"
+    for part in parts:
+        t0 = time.perf_counter()
+        table = pq.read_table(part)
+        read += time.perf_counter() - t0
+        t0 = time.perf_counter()
+        pq.write_table(table, scratch)
+        write += time.perf_counter() - t0
+        n = table.num_rows  # one row per path and time: the path-steps of this part, plus its starts
+        path_steps += n
+        t0 = time.perf_counter()
+        rng.standard_normal((normals_per_step, n))
+        draw += time.perf_counter() - t0
+    scratch.unlink(missing_ok=True)
+    return {"draw_seconds": draw, "write_seconds": write, "read_seconds": read,
+            "floor_seconds": draw + write + read, "path_steps": path_steps, "parts": len(parts)}
+
+
+def bench_cli(tmp: Path, repeats: int = 1) -> dict[str, Any]:
+    config = quarter_config(tmp / "cli-quarter.toml")
+    pqflow = Path(sys.executable).parent / "pqflow"
+    env = {**os.environ, "DASK_LOGGING__DISTRIBUTED": "warning"}
+    rows, res = [], {"runs": []}
+    floor = None
+    for k in range(repeats):
+        for runner in ("threads", "dask"):
+            out = tmp / f"cli-{runner}-{k}"
+            t0 = time.perf_counter()
+            proc = subprocess.run([str(pqflow), "run", str(config), "--out", str(out), "--runner", runner],
+                                  cwd=REPO, env=env, capture_output=True, text=True)
+            wall = time.perf_counter() - t0
+            if proc.returncode != 0:
+                raise RuntimeError(f"pqflow run --runner {runner} failed ({proc.returncode}): {proc.stderr[-800:]}")
+            if floor is None:
+                floor = quarter_floor(out)
+            size = sum(p.stat().st_size for p in (out / "scenarios").rglob("*.parquet"))
+            res["runs"].append({"runner": runner, "wall_seconds": wall, "scenario_bytes": size})
+            shutil.rmtree(out, ignore_errors=True)
+    assert floor is not None
+    for runner in ("threads", "dask"):
+        walls = [r["wall_seconds"] for r in res["runs"] if r["runner"] == runner]
+        res[runner] = {"wall_seconds_best": min(walls), "wall_seconds_all": walls,
+                       "over_floor": min(walls) / floor["floor_seconds"]}
+        rows.append([f"pqflow run --runner {runner}", min(walls), min(walls) / floor["floor_seconds"]])
+    rows.append(["floor: draw normals + plain pyarrow write + read once (one core)", floor["floor_seconds"], 1.0])
+    res["floor"] = floor
+    res["dask_over_threads"] = res["dask"]["wall_seconds_best"] / res["threads"]["wall_seconds_best"]
+    _table("6. Standard quarter end to end through the command line (every check, report, temporary Prefect server)",
+           ["what", "wall s", "x floor"], rows)
+    print(f"  floor = draw {floor['draw_seconds']:.2f} s + write {floor['write_seconds']:.2f} s + read "
+          f"{floor['read_seconds']:.2f} s over {floor['parts']} parts; end-to-end ratio (threads) = "
+          f"{res['threads']['over_floor']:.2f}x the floor (target <= 5x, <= 8 s); Dask / threads = "
+          f"{res['dask_over_threads']:.2f} (target <= 1.3)")
+    return res
+
+
 # ----------------------------------------------------------------------------------- main
 
 
@@ -517,7 +600,7 @@ def main(argv: list[str]) -> int:
         for name in wanted:
             results[name] = {"bench_core": bench_core, "bench_parquet": bench_parquet,
                              "bench_quarter": bench_quarter, "bench_scaling": bench_scaling,
-                             "bench_heston": bench_heston}[f"bench_{name}"](tmp)
+                             "bench_heston": bench_heston, "bench_cli": bench_cli}[f"bench_{name}"](tmp)
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     import pyarrow
