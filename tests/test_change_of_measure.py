@@ -6,7 +6,7 @@ References used below:
   ``dX = mu_t dt + dW^P`` and ``W^Q = W^P + int theta ds`` then
   ``dQ/dP = exp(-int theta dW^P - 1/2 int theta^2 ds)`` on ``[0, T]``.
 - ``scipy.stats.norm.logpdf`` for the exact likelihood ratio of Gaussian transitions on a grid.
-- Martingale and deflator identities of DOMAIN.md §2 (``E_P[Z_t] = 1``,
+- Martingale and deflator identities of the change of measure (Girsanov's theorem) (``E_P[Z_t] = 1``,
   ``E_P[Z_t f] = E_Q[f]``, ``E_P[D_t X] = E_Q[X / B_t]``), and the real-world expected short
   rate of Hull-White with a constant price of risk, ``alpha(t) + sigma lambda_r B(t)``
   (``E_P[x_t] = int_0^t e^{-a(t-s)} sigma lambda_r ds``; Brigo and Mercurio, *Interest Rate
@@ -186,7 +186,7 @@ def scenario_sets() -> tuple[HullWhiteEquityModel, np.ndarray, dict, dict]:
 
 
 def test_density_weights_average_to_one(scenario_sets) -> None:
-    # E_P[dQ/dP | F_t] = 1 and E_Q[dP/dQ | F_t] = 1 at every output time (DOMAIN.md §2).
+    # E_P[dQ/dP | F_t] = 1 and E_Q[dP/dQ | F_t] = 1 at every output time (Girsanov's theorem).
     _, _, real_world, market = scenario_sets
     for weights in (real_world["q_density"], market["p_density"]):
         assert np.all(weights[:, 0] == 1.0)
@@ -196,7 +196,7 @@ def test_density_weights_average_to_one(scenario_sets) -> None:
 
 @pytest.mark.parametrize("column", ["short_rate", bond_column(10.0), equity_column("eq")])
 def test_reweighted_real_world_reproduces_market_consistent(scenario_sets, column: str) -> None:
-    # E_P[q_density_t f_t] = E_Q[f_t] (Girsanov; DOMAIN.md §2), two independent sets compared
+    # E_P[q_density_t f_t] = E_Q[f_t] (Girsanov's theorem), two independent sets compared
     # within 4 combined standard errors.
     _, times, real_world, market = scenario_sets
     idx = [int(np.searchsorted(times, t)) for t in CHECK_TIMES]
@@ -236,7 +236,7 @@ def test_reweighted_market_consistent_gives_real_world_short_rate(scenario_sets)
 
 
 def test_real_world_deflators_price_bonds_and_equity(scenario_sets) -> None:
-    # Deflator D_t = Z_t / B_t: E_P[D_t] = P(0,t) and E_P[D_t S_t] = S_0 (DOMAIN.md §2, the
+    # Deflator D_t = Z_t / B_t: E_P[D_t] = P(0,t) and E_P[D_t S_t] = S_0 (Girsanov's theorem, the
     # state-price deflator; a total-return index over the bank account is a Q-martingale).
     model, times, real_world, _ = scenario_sets
     deflator = real_world["deflator"][:, 1:]

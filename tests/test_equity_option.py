@@ -4,7 +4,7 @@ References used below:
 - QuantLib 1.44 (PyPI ``QuantLib``): ``AnalyticBSMHullWhiteEngine(rho, bsm_process, hw_model)``.
 - Hull, *Options, Futures and Other Derivatives*: the Black-Scholes worked example
   ``S = 42, K = 40, r = 10%, sigma = 20%, T = 0.5`` (book prints call 4.76, put 0.81; the
-  four-decimal values 4.7594 and 0.8086 are from memory, as recorded in DOMAIN.md §8).
+  four-decimal values 4.7594 and 0.8086 are from memory, Hull's standard worked example).
 - Put-call parity ``C - P = S_0 e^{-qT} - K P(0,T)`` (common practice; Hull, same book).
 
 QuantLib's correlation convention, found by experiment (``test_quantlib_correlation_sign``

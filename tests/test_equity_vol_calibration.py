@@ -50,7 +50,7 @@ def _variance_by_quadrature(rates, vol, rho, expiry):
 
 
 def _date(t: float) -> ql.Date:
-    # DOMAIN.md section 8: dates from day counts so Actual365Fixed year fractions are exact.
+    # a QuantLib convention: dates from day counts so Actual365Fixed year fractions are exact.
     return TODAY + int(round(t * 365))
 
 

@@ -59,7 +59,7 @@ PARAMS = [
 
 
 def _date(t: float) -> ql.Date:
-    # DOMAIN.md section 8: dates from day counts so Actual365Fixed year fractions are exact.
+    # a QuantLib convention: dates from day counts so Actual365Fixed year fractions are exact.
     return TODAY + int(round(t * 365))
 
 

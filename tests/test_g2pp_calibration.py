@@ -40,7 +40,7 @@ GRID = [(e, t) for e in (1.0, 5.0, 10.0) for t in (2.0, 5.0, 10.0)]
 
 
 def _date(t: float) -> ql.Date:
-    # DOMAIN.md section 8: dates from day counts so Actual365Fixed year fractions are exact.
+    # a QuantLib convention: dates from day counts so Actual365Fixed year fractions are exact.
     return TODAY + int(round(t * 365))
 
 

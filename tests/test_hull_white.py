@@ -68,7 +68,7 @@ def _flat_pair():
 
 
 def _humped_pair():
-    """The humped curve; QuantLib gets the evaluation date as its first node (DOMAIN.md §8)."""
+    """The humped curve; QuantLib gets the evaluation date as its first node (a QuantLib convention: include it)."""
     times = PILLAR_DAYS / 365.0
     dfs = np.exp(-PILLAR_ZEROS * times)
     curve = LogDiscountCurve(maturities=times, discount_factors=dfs)

@@ -286,7 +286,7 @@ def test_martingale_facts_under_q():
 
 
 def test_real_world_set_reweighted_by_q_density_gives_q_expectations():
-    # Change of measure (DOMAIN.md §2): E_P[(dQ/dP) X] = E_Q[X] for X = 1, 1/B_t, I_t/B_t and
+    # Change of measure (Girsanov's theorem): E_P[(dQ/dP) X] = E_Q[X] for X = 1, 1/B_t, I_t/B_t and
     # I_t P_r(t,t+10)/B_t (whose Q means are the martingale facts above); the real-world set
     # itself drifts away (the prices of risk are not zero), so the reweighting does work.
     model = _model()

@@ -2,8 +2,8 @@
 
 Reference: the state-price deflator identity ``E_P[sum_t D_t X_t] = E_Q[sum_t X_t / B_t]`` with
 ``D_t = (dQ/dP)_t / B_t`` (change of numeraire and measure; e.g. Wüthrich and Merz, *Financial
-Modeling, Actuarial Valuation and Solvency in Insurance*, 2013, ch. 2, from memory; DOMAIN.md
-§2 and §5 "Reconciliation"). The two sets use independent random streams, so their difference
+Modeling, Actuarial Valuation and Solvency in Insurance*, 2013, ch. 2, from memory; Girsanov's
+theorem). The two sets use independent random streams, so their difference
 has standard error ``sqrt(se_P^2 + se_Q^2)`` (common practice); we require every product and
 total line within 3 of them. Dropping the density from the real-world deflator (discounting
 real-world cash flows with the cash account only) must break the identity by many standard
@@ -81,7 +81,7 @@ def test_deflated_real_world_agrees_with_market_consistent(demo_values):
 
 def test_tvog_is_stochastic_minus_certainty_equivalent(demo_values):
     mc, rw, table = demo_values
-    # Definition (DOMAIN.md §6; common practice): TVOG = stochastic value - CE value; the CE
+    # Definition (common practice): TVOG = stochastic value - CE value; the CE
     # value is deterministic, so the TVOG's standard error is the stochastic value's.
     assert np.allclose(table.tvog, table.market_consistent_value - table.certainty_equivalent_value)
     assert np.array_equal(table.tvog_se, table.market_consistent_se)

@@ -146,7 +146,7 @@ def test_maturity_guarantee_matches_quantlib_bsm_hull_white(run_a):
         expected = _ql_put_bsm_hw(strike, term)  # QuantLib AnalyticBSMHullWhiteEngine
         assert abs(value - expected) < 4.0 * se, (mp_id, value, expected, se)
         # Certainty equivalent: the put's payoff on the forward scenario S_T = S_0 / P(0,T),
-        # discounted with P(0,T) (the deterministic forward scenario, DOMAIN.md §6).
+        # discounted with P(0,T) (the deterministic forward scenario, common practice).
         p0t = np.exp(-RATE * term)
         assert mc.certainty_equivalent[g, 1] == pytest.approx(p0t * max(strike - S0 / p0t, 0.0), abs=1e-9)
         # Best estimate = the fund (a Q-martingale: E[S_T / B_T] = S_0) plus the put.

@@ -1,8 +1,8 @@
 """The fast engine against the plain definition of the exact scheme, and its invariances.
 
 The reference here is the scheme as written in the models' interface (``pqflow.models.base``:
-``s_{k+1} = F_k s_k + c_k (+ m_k) + L_k z_k``, DOMAIN.md section 3) and the density formula of
-DOMAIN.md section 2 (``log dQ/dP = -eta.z - |eta|^2/2``), run path by path in the obvious loop:
+``s_{k+1} = F_k s_k + c_k (+ m_k) + L_k z_k``, Brigo and Mercurio 2006, ch. 3) and the density formula of
+Girsanov's theorem (``log dQ/dP = -eta.z - |eta|^2/2``), run path by path in the obvious loop:
 checking an optimised implementation against a straightforward one is common practice.
 """
 

@@ -32,7 +32,7 @@ FLAT = LogDiscountCurve.from_zero_rates(PILLARS, np.full(PILLARS.size, 0.03))
 
 
 def _date(t: float) -> ql.Date:
-    # DOMAIN.md section 8: dates from day counts so Actual365Fixed year fractions are exact.
+    # a QuantLib convention: dates from day counts so Actual365Fixed year fractions are exact.
     return TODAY + int(round(t * 365))
 
 
@@ -91,7 +91,7 @@ def test_jamshidian_matches_quantlib(curve, a, sigma, expiry, tenor, kind, money
         curve, params, expiry=expiry, tenor=tenor, strike=strike, kind=kind
     )
     # Reference: QuantLib JamshidianSwaptionEngine (floating leg at par, as ours). Its root
-    # search stops at 1e-8 in r*, so we allow relative 1e-7 (DOMAIN.md section 8) or the price
+    # search stops at 1e-8 in r*, so we allow relative 1e-7 (QuantLib's Jamshidian root tolerance) or the price
     # error that root tolerance implies, whichever is larger (cheap options need the latter:
     # QuantLib's ATM payer and receiver differ by up to ~1e-10 where parity makes them equal).
     ref = _ql_swaption(curve, params, expiry=expiry, tenor=tenor, strike=strike, kind=kind)

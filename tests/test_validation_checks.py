@@ -4,17 +4,17 @@ References used below:
 - Martingale ("1 = 1") and market-consistency tests: Society of Actuaries, *Economic Scenario
   Generators: A Practical Guide*, 2016, s. 8.3 (a drift added to an asset must be detected;
   Monte Carlo prices of the calibration instruments must match their quotes).
-- Density process: ``E_P[dQ/dP | F_t] = 1`` for every ``t`` (any probability text; DOMAIN.md
-  s. 2); scaling every weight by 1.05 breaks it.
+- Density process: ``E_P[dQ/dP | F_t] = 1`` for every ``t`` (any probability text;
+  Girsanov's theorem); scaling every weight by 1.05 breaks it.
 - Swaption prices: Jamshidian's decomposition (Brigo and Mercurio, *Interest Rate Models -
   Theory and Practice*, 2nd ed., 2006, ch. 3.11) written out here on the zero-bond option
   formula of the same book (eq. 3.40-3.41, checked against QuantLib in tests/test_hull_white.py).
-- Bachelier's normal-model price (Bachelier 1900; DOMAIN.md s. 4) to re-price a shifted quote.
+- Bachelier's normal-model price (Bachelier 1900; common practice) to re-price a shifted quote.
 - Equity options under Hull-White rates: QuantLib 1.44 ``AnalyticBSMHullWhiteEngine``.
 - Wealth-ratio benchmark: American Academy of Actuaries, *Recommended Approach for Setting
   Regulatory Risk-Based Capital Requirements for Variable Annuities*, June 2005: its two
   lognormal cases (monthly mean 0.008356, s.d. 0.042558 fails; 0.006667, 0.050518 passes), as
-  recorded in DOMAIN.md s. 5 (from memory there).
+  recorded from memory.
 Monte Carlo tolerances are the checks' own family-wise rule (Bonferroni, family level 99%) at
 fixed seeds.
 """
@@ -73,7 +73,7 @@ def jamshidian_payer(curve, hw: HullWhiteParams, expiry: float, tenor: int, stri
 
 
 def _bachelier(f: float, k: float, vol: float, t: float, annuity: float) -> float:
-    # Bachelier payer: A s [d Phi(d) + phi(d)], s = vol sqrt(T), d = (F - K) / s (DOMAIN.md s. 4)
+    # Bachelier payer: A s [d Phi(d) + phi(d)], s = vol sqrt(T), d = (F - K) / s (common practice)
     s = vol * np.sqrt(t)
     d = (f - k) / s
     return annuity * s * (d * norm.cdf(d) + norm.pdf(d))
@@ -415,7 +415,7 @@ def _lognormal_wealth(monthly_mean: float, monthly_sd: float, n: int, seed: int)
 
 def test_wealth_benchmark_fails_the_fitted_lognormal_and_passes_the_adjusted_one():
     # American Academy of Actuaries (2005): a lognormal with monthly mean 0.008356 and s.d.
-    # 0.042558 fails the criteria, 0.006667 / 0.050518 passes (DOMAIN.md s. 5, from memory).
+    # 0.042558 fails the criteria, 0.006667 / 0.050518 passes (the American Academy of Actuaries' 2005 report, from memory).
     _, fitted = wealth_ratio_benchmark(_lognormal_wealth(0.008356, 0.042558, 40_000, 1))
     assert fitted["verdict"] == "fail"
     assert any(c["percentile"] < 0.5 for c in fitted["failed_cells"])  # its left tail is too thin

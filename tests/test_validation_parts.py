@@ -21,7 +21,7 @@ References used below (each named again beside its check):
   Hull, *Options, Futures and Other Derivatives*), ``q`` the index's income yield from the
   market-data file.
 - Risk premium: with ``lambda = RP / sigma`` (Girsanov), ``E_P[S_t / (S_0 B_t)] = e^{RP t}``
-  exactly (DOMAIN.md s. 3; common practice).
+  exactly (Brigo and Mercurio 2006, ch. 3; common practice).
 Monte Carlo tolerances are the checks' own family-wise rule (Bonferroni, family level 99%) at
 the demo's fixed seed.
 """

@@ -6,7 +6,7 @@ flow with the set's ``deflator`` column:
 
 * market-consistent set: ``D_t = 1 / B_t``, value ``E_Q[sum_t X_t / B_t]``;
 * real-world set: ``D_t = q_density_t / B_t`` (a state-price deflator), value
-  ``E_P[sum_t D_t X_t]``, which equals the market-consistent value (DOMAIN.md §2): the two are
+  ``E_P[sum_t D_t X_t]``, which equals the market-consistent value (Girsanov's theorem): the two are
   estimates of one number from independent scenario sets, and their difference is reported in
   standard errors. For the reconciliation the real-world set is also discounted with the cash
   account alone (``E_P[sum_t X_t / B_t]``, density dropped): that is *not* a valuation, and

@@ -80,8 +80,8 @@ AAA_SOURCE = (
     "Capital Requirements for Variable Annuities, June 2005, Appendix 2, Table 1"
 )
 # Gross wealth ratios of a diversified US equity total-return index, before fees, by
-# percentile (key, a probability) and horizon in years. The numbers are taken from the
-# project's field notes (DOMAIN.md s. 5), which wrote them from memory: check them against the
+# percentile (key, a probability) and horizon in years. The numbers were written from memory
+# (American Academy of Actuaries, June 2005, Appendix 2, Table 1): check them against the
 # published table before relying on them. The 2.5% and 97.5% rows have no 20-year value.
 AAA_2005_WEALTH_RATIOS: dict[float, dict[float, float]] = {
     0.025: {1.0: 0.78, 5.0: 0.72, 10.0: 0.79},

@@ -18,7 +18,7 @@ larger of the sample value (antithetic pairs averaged) and the value implied by 
 moment estimated from the market-consistent set, ``E_P[(D_T X)^2] = E_Q[Z_T (X/B_T)^2]`` with
 ``Z_T = dQ/dP = 1 / p_density`` (no credit taken for antithetic pairing: conservative).
 
-The three agree in expectation (DOMAIN.md s. 2: ``E_P[D_T X] = E_Q[X / B_T]``). Cells: each
+The three agree in expectation (Girsanov's theorem: ``E_P[D_T X] = E_Q[X / B_T]``). Cells: each
 Monte Carlo value against the closed form in its own standard errors, and the two sets
 against each other (independent sets: ``se = sqrt(se_Q^2 + se_P^2)``); the family-wise rule
 of :mod:`pqflow.validation.checks` gives the verdict.
