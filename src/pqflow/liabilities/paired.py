@@ -19,9 +19,10 @@ from pathlib import Path
 import numpy as np
 
 from pqflow.liabilities.portfolio import Portfolio, load_portfolio
-from pqflow.liabilities.products import needed_bond_maturities, needed_columns
-from pqflow.liabilities.scenarios import BondInterpolation, annual_scenarios
-from pqflow.liabilities.valuation import QUANTITIES, _discounted, _groups, _membership, check_portfolio_against_run, inspect_run
+from pqflow.liabilities.scenarios import annual_scenarios
+from pqflow.liabilities.valuation import (
+    QUANTITIES, _discounted, _groups, _membership, check_portfolio_against_run, inspect_run, portfolio_reads,
+)
 from pqflow.validation.moments import sampling_units
 from pqflow.validation.reader import ScenarioSetReader
 
@@ -48,25 +49,8 @@ def unit_values(run_dir: str | Path, portfolio: Portfolio | str | Path, measure:
     info = inspect_run(run_dir)
     equity_col = check_portfolio_against_run(portfolio, info)
     last = portfolio.max_term
-    interp = BondInterpolation(written=info.bond_maturities, max_extrapolation=portfolio.bond_extrapolation_years)
-    kinds: set[str] = set()
-    targets: list[float] = []
-    for mp in portfolio.model_points:
-        kinds |= needed_columns(mp)
-        targets += needed_bond_maturities(mp)
-    bond_cols: list[str] = []
-    read_bonds: list[str] = []
-    if targets:
-        used = np.any(interp.weights(sorted(set(targets))) != 0.0, axis=0)
-        if np.any(used):
-            bond_cols = [info.bond_columns[m] for m in info.bond_maturities]
-            read_bonds = [c for c, u in zip(bond_cols, used) if u]
-    columns = ["deflator"]
-    if "cash_account" in kinds or measure == "real_world":
-        columns.append("cash_account")
-    if equity_col is not None:
-        columns.append(equity_col)
-    columns += read_bonds
+    reads = portfolio_reads(portfolio, info, equity_col, with_cash=measure == "real_world")
+    interp, bond_cols, columns = reads.interpolation, list(reads.bond_columns), list(reads.columns)
     groups = _groups(portfolio)
     member = _membership(groups, len(portfolio.model_points))
     reader = ScenarioSetReader(run_dir=Path(run_dir), measure=measure)

@@ -28,9 +28,9 @@ import pandas as pd
 
 from pqflow.errors import RunDirectoryError
 from pqflow.liabilities.portfolio import Portfolio
-from pqflow.liabilities.products import needed_bond_maturities, needed_columns, project_model_point
+from pqflow.liabilities.products import project_model_point
 from pqflow.liabilities.scenarios import BondInterpolation, annual_scenarios, certainty_equivalent_scenario
-from pqflow.liabilities.valuation import QUANTITIES, RunInfo, check_portfolio_against_run
+from pqflow.liabilities.valuation import QUANTITIES, RunInfo, check_portfolio_against_run, portfolio_reads
 from pqflow.market.serialize import curve_from_json
 from pqflow.storage.jsonio import read_json
 from pqflow.validation.moments import Moments, sampling_units
@@ -97,21 +97,8 @@ def value_sensitivities(run_dir: str | Path, portfolio: Portfolio, info: RunInfo
     names = sensitivity_names(run_dir)
     equity_col = check_portfolio_against_run(portfolio, info)
     last = portfolio.max_term
-    interp = BondInterpolation(written=info.bond_maturities, max_extrapolation=portfolio.bond_extrapolation_years)
-    kinds: set[str] = set()
-    targets: list[float] = []
-    for mp in portfolio.model_points:
-        kinds |= needed_columns(mp)
-        targets += needed_bond_maturities(mp)
-    bond_cols: list[str] = []
-    read_bonds: list[str] = []
-    if targets:
-        used = np.any(interp.weights(sorted(set(targets))) != 0.0, axis=0)
-        if np.any(used):
-            bond_cols = [info.bond_columns[m] for m in info.bond_maturities]
-            read_bonds = [c for c, u in zip(bond_cols, used) if u]
-    columns = ["deflator", *(["cash_account"] if "cash_account" in kinds else []),
-               *([equity_col] if equity_col is not None else []), *read_bonds]
+    reads = portfolio_reads(portfolio, info, equity_col)
+    interp, bond_cols, columns = reads.interpolation, list(reads.bond_columns), list(reads.columns)
     lines = _lines(portfolio)
     ce_base = _ce_values(portfolio, lines, run_dir, last, interp)
     base_reader = ScenarioSetReader(run_dir=run_dir, measure=MEASURE)

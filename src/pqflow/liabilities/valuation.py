@@ -57,6 +57,8 @@ __all__ = [
     "inspect_run",
     "check_portfolio_against_run",
     "value_run",
+    "PortfolioReads",
+    "portfolio_reads",
 ]
 
 QUANTITIES = ("best_estimate", "guarantee")
@@ -283,6 +285,45 @@ def model_point_densities(
     return tuple(out)
 
 
+
+@dataclass(frozen=True, kw_only=True)
+class PortfolioReads:
+    """What projecting a portfolio reads from a set: ``columns`` (deflator, cash account when
+    needed, the equity column, the bonds the interpolation puts weight on), ``bond_columns``
+    (every written bond in maturity order: the interpolation's nodes), the ``interpolation``
+    and the ``kinds`` of column the model points need."""
+
+    columns: tuple[str, ...]
+    bond_columns: tuple[str, ...]
+    interpolation: BondInterpolation
+    kinds: frozenset[str]
+
+
+def portfolio_reads(portfolio: Portfolio, info: RunInfo, equity_col: str | None, *, with_cash: bool = False) -> PortfolioReads:
+    """The columns a projection of ``portfolio`` reads (``with_cash``: the cash account even
+    when no product needs it, e.g. for the real-world reconciliation)."""
+    interp = BondInterpolation(written=info.bond_maturities, max_extrapolation=portfolio.bond_extrapolation_years)
+    kinds: set[str] = set()
+    targets: list[float] = []
+    for mp in portfolio.model_points:
+        kinds |= needed_columns(mp)
+        targets += needed_bond_maturities(mp)
+    bond_cols: list[str] = []
+    read_bonds: list[str] = []
+    if targets:
+        used = np.any(interp.weights(sorted(set(targets))) != 0.0, axis=0)
+        if np.any(used):
+            bond_cols = [info.bond_columns[m] for m in info.bond_maturities]
+            read_bonds = [c for c, u in zip(bond_cols, used) if u]
+    columns = ["deflator"]
+    if "cash_account" in kinds or with_cash:
+        columns.append("cash_account")
+    if equity_col is not None:
+        columns.append(equity_col)
+    columns += read_bonds
+    return PortfolioReads(columns=tuple(columns), bond_columns=tuple(bond_cols), interpolation=interp,
+                          kinds=frozenset(kinds))
+
 def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: str) -> SetValuation:
     """Value ``portfolio`` on the ``measure`` set of the run in ``run_dir``."""
     if measure not in MEASURES:
@@ -292,32 +333,13 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
     info = inspect_run(run_dir)
     equity_col = check_portfolio_against_run(portfolio, info)
     last = portfolio.max_term
-    interp = BondInterpolation(
-        written=info.bond_maturities, max_extrapolation=portfolio.bond_extrapolation_years
-    )
-    kinds: set[str] = set()
-    targets: list[float] = []
-    for mp in portfolio.model_points:
-        kinds |= needed_columns(mp)
-        targets += needed_bond_maturities(mp)
-    bond_cols: list[str] = []  # every written bond, in maturity order (the interpolation nodes)
-    read_bonds: list[str] = []  # the ones the interpolation puts weight on: the only ones read
-    if targets:
-        used = np.any(interp.weights(sorted(set(targets))) != 0.0, axis=0)
-        if np.any(used):
-            bond_cols = [info.bond_columns[m] for m in info.bond_maturities]
-            read_bonds = [c for c, u in zip(bond_cols, used) if u]
+    reads = portfolio_reads(portfolio, info, equity_col, with_cash=measure == "real_world")
+    interp, bond_cols = reads.interpolation, reads.bond_columns
     real_world = measure == "real_world"
     reader = ScenarioSetReader(run_dir=Path(run_dir), measure=measure)
     densities = model_point_densities(portfolio, reader, equity_col, _rates_drivers(Path(run_dir)))
     density_cols = sorted({d for d in densities if d is not None})
-    columns = ["deflator"]
-    if "cash_account" in kinds or real_world:
-        columns.append("cash_account")
-    if equity_col is not None:
-        columns.append(equity_col)
-    columns += read_bonds
-    columns += density_cols
+    columns = [*reads.columns, *density_cols]
 
     # Certainty-equivalent cash flows: the TVOG's other leg, and the timing weights of the
     # control variates (deflated CE cash flows have a known expectation: the CE value).
