@@ -322,11 +322,17 @@ def quarter_child(runner: str, workdir: str) -> None:
     on its own grid (``[simulation.market_consistent]``)."""
     import uuid
 
-    import pipeline  # noqa: F401  (quiet Prefect defaults, set before Prefect is imported)
     from prefect import flow
     from prefect.futures import as_completed
+
+    import pipeline  # noqa: F401  (quiet Prefect defaults, set before Prefect is imported)
     from pipeline.flows import (
-        _shared_api, calibrate_task, generate_part_task, manifest_task, task_runner_for, validate_task,
+        _shared_api,
+        calibrate_task,
+        generate_part_task,
+        manifest_task,
+        task_runner_for,
+        validate_task,
     )
     from pqflow.config import load_config
     from pqflow.jobs.steps import plan_run

@@ -37,19 +37,8 @@ from pipeline.home import check_prefect_home
 from pipeline.progress import ArtifactProgress, progress_reporter, stage_reporter
 from pqflow import __version__
 from pqflow.calibration.assemble import Calibration
-from pqflow.storage.parquet import file_sha256
 from pqflow.config.loader import apply_overrides, load_config
-from pqflow.config.schema import RunConfig
-from pqflow.jobs.steps import (
-    PartRecord,
-    RunPlan,
-    calibrate_step,
-    generate_part,
-    plan_run,
-    validate_staged_run,
-    write_run_manifest,
-)
-from pqflow.config.schema import SensitivitySection
+from pqflow.config.schema import RunConfig, SensitivitySection
 from pqflow.jobs.sensitivities import (
     calibrate_sensitivity,
     generate_sensitivity_part,
@@ -59,6 +48,15 @@ from pqflow.jobs.sensitivities import (
     validate_sensitivity,
 )
 from pqflow.jobs.sensitivities import manifest_entry as sensitivity_manifest_entry
+from pqflow.jobs.steps import (
+    PartRecord,
+    RunPlan,
+    calibrate_step,
+    generate_part,
+    plan_run,
+    validate_staged_run,
+    write_run_manifest,
+)
 from pqflow.report import write_report
 from pqflow.simulation.plan import Batch
 from pqflow.storage.filesystem import (
@@ -69,7 +67,7 @@ from pqflow.storage.filesystem import (
     resolve_target,
     target_lock_path,
 )
-from pqflow.storage.parquet import part_name
+from pqflow.storage.parquet import file_sha256, part_name
 from pqflow.storage.rundir import (
     StagingState,
     acquire_lock,

@@ -88,7 +88,7 @@ class LineProgress:
         while not self._stop.wait(self.interval):
             self.emit()
 
-    def start(self) -> "LineProgress":
+    def start(self) -> LineProgress:
         self._started = self._clock()
         self.emit()
         if self.interval > 0:
@@ -102,7 +102,7 @@ class LineProgress:
             self._thread.join(timeout=5)
         self.emit()
 
-    def __enter__(self) -> "LineProgress":
+    def __enter__(self) -> LineProgress:
         return self.start()
 
     def __exit__(self, *exc: object) -> None:
@@ -163,7 +163,14 @@ def progress_reporter(
     if terminal is None:
         terminal = sys.stdout.isatty()
     if terminal:
-        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+        from rich.progress import (
+            BarColumn,
+            MofNCompleteColumn,
+            Progress,
+            TextColumn,
+            TimeElapsedColumn,
+            TimeRemainingColumn,
+        )
 
         with Progress(
             TextColumn("[bold]generating scenario parts"), BarColumn(), MofNCompleteColumn(),

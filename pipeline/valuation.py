@@ -17,7 +17,6 @@ from prefect.task_runners import ThreadPoolTaskRunner
 from pqflow.liabilities.job import default_out_dir, publish_valuation
 from pqflow.liabilities.portfolio import Portfolio, load_portfolio
 from pqflow.liabilities.sensitivities import sensitivity_names, value_sensitivities
-from pqflow.storage.valuation_files import check_valuation_target
 from pqflow.liabilities.valuation import (
     RunInfo,
     SetValuation,
@@ -25,6 +24,7 @@ from pqflow.liabilities.valuation import (
     inspect_run,
     value_run,
 )
+from pqflow.storage.valuation_files import check_valuation_target
 
 __all__ = ["value_liabilities"]
 

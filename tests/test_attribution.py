@@ -17,8 +17,8 @@ import copy
 from pathlib import Path
 
 import pytest
-
 from conftest import REPO, write_toml
+
 from pqflow.config.loader import load_config
 from pqflow.report.attribution import step_configs
 

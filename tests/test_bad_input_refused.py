@@ -12,7 +12,6 @@ import shutil
 from pathlib import Path
 
 import pytest
-
 from cli_helpers import assert_clean_error, invoke
 from conftest import REPO
 

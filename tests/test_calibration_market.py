@@ -9,10 +9,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import DEMO, write_toml
 from scipy.stats import norm
 from typer.testing import CliRunner
 
-from conftest import DEMO, write_toml
 from pqflow.calibration import assemble_calibration, build_model, load_calibration
 from pqflow.cli import app
 from pqflow.config import load_config

@@ -60,6 +60,7 @@ def test_reading_commands_check_the_manifest_first(small_config, tmp_path):
 
 def test_value_then_report_shows_the_liability_section(tmp_path):
     from conftest import REPO
+
     from pipeline import run_in_process
 
     out = tmp_path / "run"

@@ -26,10 +26,10 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
+from test_validation_checks import build_run
 
 from pqflow import CAUTION
 from pqflow.report.compare import compare_runs, comparison_json, summary_lines, write_compare_html
-from test_validation_checks import build_run
 
 REPO = Path(__file__).resolve().parents[1]
 SCI = re.compile(r"\d[eE][+-]?\d")

@@ -12,7 +12,6 @@ import logging
 from pathlib import Path
 
 import pytest
-
 from conftest import run_digests
 
 pytestmark = pytest.mark.flow

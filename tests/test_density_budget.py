@@ -19,8 +19,8 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
-
 from conftest import DEMO_TYPED
+
 from pqflow.calibration import assemble_calibration, build_model
 from pqflow.config import load_config
 from pqflow.measure.budget import credit_log_variance_by_rating, density_budget, gaussian_log_variance_by_driver

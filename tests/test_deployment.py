@@ -78,7 +78,7 @@ def _api(url: str, path: str, body: dict | None = None):
 
 
 def _utc(text: str) -> dt.datetime:
-    return dt.datetime.fromisoformat(text.replace("Z", "+00:00")).astimezone(dt.timezone.utc)
+    return dt.datetime.fromisoformat(text.replace("Z", "+00:00")).astimezone(dt.UTC)
 
 
 def _next_quarter_start(zone: str) -> dt.datetime:
@@ -86,7 +86,7 @@ def _next_quarter_start(zone: str) -> dt.datetime:
     tz = ZoneInfo(zone)
     now = dt.datetime.now(tz)
     candidates = [dt.datetime(y, m, 1, 6, tzinfo=tz) for y in (now.year, now.year + 1) for m in (1, 4, 7, 10)]
-    return min(c for c in candidates if c > now).astimezone(dt.timezone.utc)
+    return min(c for c in candidates if c > now).astimezone(dt.UTC)
 
 
 def _api_status(url: str, path: str) -> int:

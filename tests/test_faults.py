@@ -17,7 +17,6 @@ import time
 from pathlib import Path
 
 import pytest
-
 from cli_helpers import assert_clean_error, error_lines, invoke
 from conftest import DEMO_TYPED, write_toml
 
@@ -99,9 +98,9 @@ def test_disk_full_during_a_run_exits_3_and_keeps_the_earlier_run(prefect_harnes
 
 
 def test_disk_full_in_calibrate_and_value_exits_3_and_leaves_nothing(tiny_fs, tmp_path, demo_config_dict):
-    from pipeline import run_in_process
-
     from conftest import REPO
+
+    from pipeline import run_in_process
 
     run = tiny_fs / "run"
     run_in_process(_config(tmp_path, demo_config_dict, scenarios=20, batch_size=20), run)

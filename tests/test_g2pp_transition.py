@@ -31,7 +31,6 @@ import math
 
 import numpy as np
 import pytest
-
 from conftest import assert_gaussian_moments, mean_within_se
 from scipy.integrate import quad
 

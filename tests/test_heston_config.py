@@ -12,9 +12,9 @@ import tomllib
 
 import numpy as np
 import pytest
+from conftest import DEMO, write_toml
 from typer.testing import CliRunner
 
-from conftest import DEMO, write_toml
 from pqflow.calibration import assemble_calibration, build_model, load_calibration
 from pqflow.calibration.formulas import black_implied_vol
 from pqflow.cli import app

@@ -18,8 +18,8 @@ import tomllib
 import numpy as np
 import pyarrow.parquet as pq
 import pytest
-
 from conftest import DEMO, write_toml
+
 from pqflow.calibration import assemble_calibration, build_model
 from pqflow.calibration.heston_parts import projection
 from pqflow.calibration.parts import DriverCorrelation

@@ -34,9 +34,8 @@ import math
 
 import numpy as np
 import pytest
-
-from conftest import assert_gaussian_moments, mean_within_se
 import QuantLib as ql
+from conftest import assert_gaussian_moments, mean_within_se
 from scipy.integrate import quad
 
 from pqflow.market.curve import LogDiscountCurve

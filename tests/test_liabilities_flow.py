@@ -11,8 +11,8 @@ import copy
 
 import pandas as pd
 import pytest
-
 from conftest import REPO, write_toml
+
 from pqflow.calibration import assemble_calibration
 from pqflow.config import load_config
 from pqflow.jobs import generate_part, plan_run, write_calibration

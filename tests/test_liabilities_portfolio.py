@@ -17,9 +17,9 @@ import math
 
 import numpy as np
 import pytest
+from conftest import write_toml
 from scipy.integrate import quad
 
-from conftest import write_toml
 from pqflow.calibration import assemble_calibration
 from pqflow.config import load_config
 from pqflow.errors import PqflowError

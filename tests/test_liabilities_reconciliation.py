@@ -22,17 +22,17 @@ import numpy as np
 import pandas as pd
 import pyarrow.parquet as pq
 import pytest
-
 from conftest import DEMO, REPO
+
 from pqflow.calibration import assemble_calibration
 from pqflow.config import load_config
 from pqflow.jobs import generate_part, plan_run, write_calibration
 from pqflow.liabilities import (
     load_portfolio,
     results_frame,
+    valuation_table_rows,
     value_liabilities_cli,
     value_run,
-    valuation_table_rows,
 )
 
 __all__: list[str] = []

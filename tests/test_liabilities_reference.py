@@ -33,9 +33,9 @@ import copy
 import numpy as np
 import pytest
 import QuantLib as ql
+from conftest import write_toml
 from scipy.optimize import brentq
 
-from conftest import write_toml
 from pqflow.calibration import assemble_calibration
 from pqflow.config import load_config
 from pqflow.jobs import generate_part, plan_run, write_calibration

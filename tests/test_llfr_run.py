@@ -17,9 +17,9 @@ from typing import Any
 
 import numpy as np
 import pytest
+from conftest import REPO
 from typer.testing import CliRunner
 
-from conftest import REPO
 from pqflow.calibration.assemble import fit_curve, load_calibration
 from pqflow.cli import app
 from pqflow.config.loader import load_config, parse_config

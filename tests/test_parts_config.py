@@ -9,8 +9,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
 from conftest import write_toml
+
 from pqflow.calibration.assemble import assemble_calibration, build_model, load_calibration
 from pqflow.config.loader import load_config
 from pqflow.errors import ConfigError, MarketDataError
@@ -345,9 +345,9 @@ def test_a_mispriced_cap_quote_fails_market_consistency(tmp_path, full):
     to catch (the other quotes still pass)."""
     import json
 
+    from pipeline import run_in_process
     from pqflow.validation.market_consistency import market_consistency_check
     from pqflow.validation.run_files import load_run_inputs
-    from pipeline import run_in_process
 
     cal = assemble_calibration(_load(tmp_path, full))
     data = copy.deepcopy(full)
@@ -474,10 +474,9 @@ def test_whole_balance_sheet_writes_every_default_density_block(full_run):
     the structure checked before fitting equals the built model's (inflation and credit
     included); every block's weights average to 1 within 4 SE (common practice) and are less
     spread than the full density (conditioning: Jensen)."""
-    from pqflow.calibration.assemble import load_calibration
+    from pqflow.calibration.assemble import build_model, load_calibration
     from pqflow.config.loader import load_config
     from pqflow.jobs.steps import plan_run
-    from pqflow.calibration.assemble import build_model
     from pqflow.measure.blocks import economy_structure, model_structure
     from pqflow.simulation.scenarios import block_layout
 
@@ -507,7 +506,6 @@ def test_density_blocks_are_configured_by_name_and_drivers(tmp_path, small_confi
     """[density_blocks] replaces the default blocks; a block that is not autonomous, or names an
     unknown driver, is refused before anything is fitted, naming the state or the driver."""
     from pipeline import run_in_process
-
     from pqflow.calibration import assemble
     from pqflow.config.loader import load_config
     from pqflow.jobs.steps import plan_run

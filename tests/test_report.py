@@ -20,13 +20,13 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
+from test_validation_checks import build_run
 
 from pqflow import CAUTION
 from pqflow.report import write_report
 from pqflow.report.html import SECTIONS
 from pqflow.report.svg import nice_ticks
 from pqflow.storage.manifest import verify_run
-from test_validation_checks import build_run
 
 REPO = Path(__file__).resolve().parents[1]
 

@@ -20,11 +20,11 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
+from test_validation_checks import build_run
 
 from pqflow import CAUTION
 from pqflow.report import numbers as fmt
 from pqflow.report.html import SignOff, _drivers, build_report_html
-from test_validation_checks import build_run
 
 REPO = Path(__file__).resolve().parents[1]
 SCI = re.compile(r"\d[eE][+-]?\d")

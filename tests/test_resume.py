@@ -9,7 +9,6 @@ sha256 digests (FIPS 180-4, via hashlib) of every file.
 
 from __future__ import annotations
 
-
 import json
 import os
 import signal
@@ -21,7 +20,6 @@ import time
 from pathlib import Path
 
 import pytest
-
 from conftest import run_digests
 
 from pqflow.errors import RunDirectoryError
@@ -191,9 +189,9 @@ def test_interrupted_flow_keeps_every_finished_part_and_counts_right(prefect_har
     # before writing anything. A resumed run must keep all 5 and regenerate the other 3: the
     # count reported once said "kept 10, regenerated 3" after 14 of 24 parts had been made,
     # because parts were recorded by the flow's loop, not where they were written.
-    import pipeline.flows as flows
     from typer.testing import CliRunner
 
+    import pipeline.flows as flows
     from pqflow.cli import app
 
     cfg = small_config()  # 4 + 4 parts

@@ -9,8 +9,8 @@ import pyarrow.parquet as pq
 import pytest
 
 from pqflow.errors import RunDirectoryError
-from pqflow.storage.manifest import verify_run
 from pqflow.storage.jsonio import read_json
+from pqflow.storage.manifest import verify_run
 
 pytestmark = pytest.mark.flow
 

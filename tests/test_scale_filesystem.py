@@ -12,7 +12,6 @@ import json
 
 import pyarrow.fs as pafs
 import pytest
-
 from conftest import run_digests
 
 from pqflow.errors import IntegrityError, RunDirectoryError

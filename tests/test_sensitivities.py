@@ -24,8 +24,8 @@ import numpy as np
 import pandas as pd
 import pyarrow.parquet as pq
 import pytest
-
 from conftest import REPO, write_toml
+
 from pqflow.calibration.assemble import load_calibration
 from pqflow.config.loader import load_config
 from pqflow.errors import ConfigError, MarketDataError
@@ -210,6 +210,7 @@ def test_prefect_flow_writes_the_same_sensitivity_sets(prefect_harness, run, tmp
     """The Prefect flow runs the sensitivities beside the base parts (thread pool) and writes the
     very bytes the in-process run writes (each part depends on its seed, measure and batch only)."""
     from conftest import run_digests
+
     from pipeline import run_quarterly
 
     result = run_quarterly(_write(tmp_path, BASE), tmp_path / "flow", workers=2)

@@ -61,13 +61,13 @@ def test_stored_calibration_must_fit_the_run(small_config, tmp_path):
 def test_each_set_may_have_its_own_grid(small_config, tmp_path, demo_config_dict):
     # A standard quarter (common practice): a monthly real-world set for projections and a
     # longer annual market-consistent set for valuation, from one calibration.
-    import pyarrow.parquet as pq
+    import copy
 
+    import pyarrow.parquet as pq
     from conftest import write_toml
+
     from pqflow.config import load_config
     from pqflow.jobs import plan_run
-
-    import copy
 
     data = copy.deepcopy(demo_config_dict)
     data["simulation"].update({"scenarios": 200, "batch_size": 100, "horizon_years": 20})

@@ -30,7 +30,6 @@ import math
 
 import numpy as np
 import pytest
-
 from conftest import assert_gaussian_moments
 from scipy.integrate import quad
 

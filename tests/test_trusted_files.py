@@ -17,7 +17,6 @@ import time
 from pathlib import Path
 
 import pytest
-
 from cli_helpers import assert_clean_error, invoke
 from conftest import REPO, write_toml
 

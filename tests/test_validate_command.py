@@ -18,13 +18,13 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
+from test_validation_checks import _rewrite_parts, build_run
 from typer.testing import CliRunner
 
 from pqflow.cli import app
 from pqflow.storage.jsonio import read_json, write_json_atomic
 from pqflow.storage.manifest import MANIFEST, build_manifest
 from pqflow.validation.evidence import run_checks
-from test_validation_checks import _rewrite_parts, build_run
 
 runner = CliRunner()
 SUMMARY_KEYS = {"verdict", "inconclusive_cells", "inconclusive_from_time", "material_deviation", "power_rule"}

@@ -32,10 +32,10 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 import QuantLib as ql
+from conftest import write_toml
 from scipy.optimize import brentq
 from scipy.stats import norm
 
-from conftest import write_toml
 from pqflow.calibration import assemble_calibration
 from pqflow.config import load_config
 from pqflow.jobs import generate_part, plan_run, validate_staged_run, write_calibration, write_run_manifest

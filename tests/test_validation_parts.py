@@ -36,8 +36,9 @@ from typing import Any
 
 import numpy as np
 import pytest
-
 from conftest import DEMO
+from test_validation_checks import _rewrite_parts
+
 from pqflow.config.loader import load_config, parse_config
 from pqflow.errors import IntegrityError
 from pqflow.jobs.steps import calibrate_step, generate_part, plan_run
@@ -45,7 +46,6 @@ from pqflow.storage.jsonio import read_json, write_json_atomic
 from pqflow.validation.evidence import RunValidation, run_checks
 from pqflow.validation.run_files import load_run_inputs
 from pqflow.validation.summary import family_critical_z
-from test_validation_checks import _rewrite_parts
 
 MARKET = DEMO.parent / "market_data" / "veldmark_2026q3"
 SCENARIOS, HORIZON = 1000, 15

@@ -15,11 +15,11 @@ import shutil
 from pathlib import Path
 
 import pytest
+from test_validation_checks import build_run
 
 from pqflow.errors import IntegrityError, RunDirectoryError
 from pqflow.liabilities import value_liabilities_cli
 from pqflow.storage.valuation_files import verify_valuation
-from test_validation_checks import build_run
 
 REPO = Path(__file__).resolve().parents[1]
 BOOK = REPO / "scenario_configs" / "demo_liabilities.toml"

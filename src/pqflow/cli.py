@@ -12,7 +12,7 @@ from __future__ import annotations
 import sys
 import time
 from pathlib import Path
-from typing import Annotated, Any, Optional
+from typing import Annotated, Any
 
 import typer
 from rich.console import Console
@@ -21,7 +21,14 @@ from rich.table import Table
 from rich.text import Text
 
 from pqflow import CAUTION, __version__
-from pqflow.cli_errors import error_line, exit_code_for, guarded, message_for, interrupt_exit_code, terminate_as_interrupt
+from pqflow.cli_errors import (
+    error_line,
+    exit_code_for,
+    guarded,
+    interrupt_exit_code,
+    message_for,
+    terminate_as_interrupt,
+)
 from pqflow.errors import PqflowError
 from pqflow.report import numbers as fmt
 
@@ -62,7 +69,7 @@ def _version_option(value: bool) -> None:
 @app.callback()
 def _main(
     version: Annotated[
-        Optional[bool],
+        bool | None,
         typer.Option("--version", help="Print the version and exit.", callback=_version_option, is_eager=True),
     ] = None,
 ) -> None:
@@ -186,15 +193,15 @@ def _verdict_line(verdict: str) -> str:
 def run(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
     out: Annotated[str, typer.Option("--out", help="Run directory to create: a local path, or a URI pyarrow can open (s3://bucket/prefix).")],
-    scenarios: Annotated[Optional[int], typer.Option(help="Scenarios per set (overrides the file).")] = None,
-    seed: Annotated[Optional[int], typer.Option(help="Root seed (overrides the file).")] = None,
+    scenarios: Annotated[int | None, typer.Option(help="Scenarios per set (overrides the file).")] = None,
+    seed: Annotated[int | None, typer.Option(help="Root seed (overrides the file).")] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an earlier run in --out once this one succeeds.")] = False,
-    workers: Annotated[Optional[int], typer.Option(help="Worker threads generating parts (default: the configuration's \\[execution] workers, else 2).", min=1, max=64)] = None,
+    workers: Annotated[int | None, typer.Option(help="Worker threads generating parts (default: the configuration's \\[execution] workers, else 2).", min=1, max=64)] = None,
     resume: Annotated[bool, typer.Option("--resume", help="Continue an interrupted run into the same --out: keep its parts whose checksums match, regenerate the rest.")] = False,
-    runner: Annotated[Optional[str], typer.Option("--runner", help="Task runner: threads or dask (default: the configuration's \\[execution] runner, else threads).")] = None,
-    dask_address: Annotated[Optional[str], typer.Option("--dask-address", help="Address of a running Dask scheduler (implies --runner dask).")] = None,
-    dask_workers: Annotated[Optional[int], typer.Option("--dask-workers", help="Worker processes of the local Dask cluster (default: --workers).", min=1, max=64)] = None,
-    calibration: Annotated[Optional[Path], typer.Option("--calibration", help="Use this stored calibration.json (from 'pqflow calibrate') instead of fitting.")] = None,
+    runner: Annotated[str | None, typer.Option("--runner", help="Task runner: threads or dask (default: the configuration's \\[execution] runner, else threads).")] = None,
+    dask_address: Annotated[str | None, typer.Option("--dask-address", help="Address of a running Dask scheduler (implies --runner dask).")] = None,
+    dask_workers: Annotated[int | None, typer.Option("--dask-workers", help="Worker processes of the local Dask cluster (default: --workers).", min=1, max=64)] = None,
+    calibration: Annotated[Path | None, typer.Option("--calibration", help="Use this stored calibration.json (from 'pqflow calibrate') instead of fitting.")] = None,
 ) -> None:
     """Calibrate, generate the real-world and market-consistent sets, validate, write the manifest."""
     import os
@@ -348,7 +355,7 @@ def _interrupted(target: Any, arguments: list[str]) -> None:
 @guarded(err_console)
 def validate(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory (e.g. copied or exported).")],
-    ess_warning_share: Annotated[Optional[float], typer.Option("--ess-warning-share", help="Effective sample size share below which a density is past its usable horizon (default: the run's own, else 0.10).", min=0.0, max=1.0)] = None,
+    ess_warning_share: Annotated[float | None, typer.Option("--ess-warning-share", help="Effective sample size share below which a density is past its usable horizon (default: the run's own, else 0.10).", min=0.0, max=1.0)] = None,
 ) -> None:
     """Re-run every check from the files: manifest first, then the checks, then a fresh validation/.
 
@@ -619,7 +626,7 @@ def _print_curve_fit(curve: dict[str, Any]) -> None:
 @app.command("curve")
 def curve_command(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML) with [curve] or market_data.curve.")],
-    out: Annotated[Optional[Path], typer.Option("--out", help="CSV file to write the curve to (whole maturities 1 to the long end).")] = None,
+    out: Annotated[Path | None, typer.Option("--out", help="CSV file to write the curve to (whole maturities 1 to the long end).")] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an existing file.")] = False,
 ) -> None:
     """Fit today's risk-free curve only: print the method's parameters and key maturities, and
@@ -664,7 +671,7 @@ _LINE_LABEL = {"unit_linked_gmmb": "unit-linked", "participating": "with-profits
 def value(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
     liabilities: Annotated[Path, typer.Option("--liabilities", help="Liability portfolio file (TOML).")],
-    out: Annotated[Optional[Path], typer.Option("--out", help="Folder for the results (default RUN_DIR/valuation).")] = None,
+    out: Annotated[Path | None, typer.Option("--out", help="Folder for the results (default RUN_DIR/valuation).")] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace earlier valuation results (only once the new valuation has succeeded).")] = False,
 ) -> None:
     """Value liabilities with guarantees on both sets: best estimate, TVOG, reconciliation.
@@ -742,8 +749,8 @@ def value(
 @guarded(err_console)
 def report(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
-    prepared_by: Annotated[Optional[str], typer.Option("--prepared-by", help="Name on the sign-off page (default: the run configuration's [signoff] prepared_by).")] = None,
-    reviewed_by: Annotated[Optional[str], typer.Option("--reviewed-by", help="Reviewer's name on the sign-off page (default: [signoff] reviewed_by).")] = None,
+    prepared_by: Annotated[str | None, typer.Option("--prepared-by", help="Name on the sign-off page (default: the run configuration's [signoff] prepared_by).")] = None,
+    reviewed_by: Annotated[str | None, typer.Option("--reviewed-by", help="Reviewer's name on the sign-off page (default: [signoff] reviewed_by).")] = None,
 ) -> None:
     """Write validation/report.html: a sign-off page, then every check, plot and table."""
     from pqflow.report import write_report
@@ -774,14 +781,14 @@ def _short(cell: str) -> str:
 def compare(
     old_run: Annotated[Path, typer.Argument(help="The earlier run (e.g. last quarter).")],
     new_run: Annotated[Path, typer.Argument(help="The later run.")],
-    html: Annotated[Optional[Path], typer.Option("--html", help="Also write the comparison as an HTML page with charts.")] = None,
+    html: Annotated[Path | None, typer.Option("--html", help="Also write the comparison as an HTML page with charts.")] = None,
     all_rows: Annotated[bool, typer.Option("--all", help="Every move (and unchanged items), not only the largest.")] = False,
     as_json: Annotated[bool, typer.Option("--json", help="Print the comparison as JSON (for machines) instead of tables.")] = False,
     attribute: Annotated[bool, typer.Option("--attribute", help="Step-wise attribution of the liability change (needs --liabilities, --old-config, --new-config).")] = False,
-    liabilities: Annotated[Optional[Path], typer.Option("--liabilities", help="Liability portfolio file (TOML) for --attribute.")] = None,
-    old_config: Annotated[Optional[Path], typer.Option("--old-config", help="The configuration the old run was made with (for --attribute).")] = None,
-    new_config: Annotated[Optional[Path], typer.Option("--new-config", help="The configuration the new run was made with (for --attribute).")] = None,
-    attribution_dir: Annotated[Optional[Path], typer.Option("--attribution-dir", help="Folder for the attribution's runs (default NEW_RUN-attribution beside NEW_RUN).")] = None,
+    liabilities: Annotated[Path | None, typer.Option("--liabilities", help="Liability portfolio file (TOML) for --attribute.")] = None,
+    old_config: Annotated[Path | None, typer.Option("--old-config", help="The configuration the old run was made with (for --attribute).")] = None,
+    new_config: Annotated[Path | None, typer.Option("--new-config", help="The configuration the new run was made with (for --attribute).")] = None,
+    attribution_dir: Annotated[Path | None, typer.Option("--attribution-dir", help="Folder for the attribution's runs (default NEW_RUN-attribution beside NEW_RUN).")] = None,
 ) -> None:
     """What moved between two runs: inputs matched by meaning (moves in bp and vol points,
     largest first), calibrated parameters, verdicts that changed, liabilities by line; with
@@ -867,7 +874,6 @@ def _print_attribution(result: dict[str, Any]) -> None:
 def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")]) -> None:
     """Check every file of a run against its manifest (sizes and sha256)."""
     from pqflow.storage.manifest import verify_run
-
     from pqflow.storage.valuation_files import verify_valuation
 
     try:
@@ -885,8 +891,8 @@ def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run director
 def deploy(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML); stored as an absolute path.")],
     out_root: Annotated[str, typer.Option("--out-root", help="Folder (or URI) under which each run writes OUT_ROOT/VALUATION_DATE.")],
-    scenarios: Annotated[Optional[int], typer.Option(help="Scenarios per set (overrides the file).")] = None,
-    seed: Annotated[Optional[int], typer.Option(help="Root seed (overrides the file).")] = None,
+    scenarios: Annotated[int | None, typer.Option(help="Scenarios per set (overrides the file).")] = None,
+    seed: Annotated[int | None, typer.Option(help="Root seed (overrides the file).")] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Let a run replace an earlier run of the same valuation date.")] = False,
     pool: Annotated[str, typer.Option("--pool", help="Process work pool (created if absent).")] = "pqflow",
     name: Annotated[str, typer.Option("--name", help="Deployment name.")] = "quarterly",
@@ -928,9 +934,9 @@ def export(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
     measure: Annotated[str, typer.Option("--measure", help="real_world or market_consistent.")],
     fmt: Annotated[str, typer.Option("--format", help="csv or parquet.")] = "csv",
-    columns: Annotated[Optional[str], typer.Option("--columns", help="Comma-separated columns (default: all); scenario and time always come first.")] = None,
-    scenarios: Annotated[Optional[str], typer.Option("--scenarios", help="Scenarios FIRST:STOP (FIRST to STOP-1, e.g. 0:100); default all.")] = None,
-    out: Annotated[Optional[Path], typer.Option("--out", help="File to write (default: CSV on standard output).")] = None,
+    columns: Annotated[str | None, typer.Option("--columns", help="Comma-separated columns (default: all); scenario and time always come first.")] = None,
+    scenarios: Annotated[str | None, typer.Option("--scenarios", help="Scenarios FIRST:STOP (FIRST to STOP-1, e.g. 0:100); default all.")] = None,
+    out: Annotated[Path | None, typer.Option("--out", help="File to write (default: CSV on standard output).")] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an existing --out file.")] = False,
 ) -> None:
     """Stream a slice of one scenario set to CSV or Parquet, checking each part read against the manifest."""

@@ -13,10 +13,9 @@ exists, and we refuse.
 
 from __future__ import annotations
 
-import math
-
 import hashlib
 import json
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -24,6 +23,9 @@ from typing import Any
 import numpy as np
 
 from pqflow import __version__
+from pqflow.calibration.g2pp_swaptions import calibrate_g2pp_to_swaptions
+from pqflow.calibration.heston_parts import fit_heston_indices, heston_from_json, heston_to_json
+from pqflow.calibration.llfr_curve import fit_llfr_curve
 from pqflow.calibration.parts import (
     RATES_DRIVER,
     DriverCorrelation,
@@ -41,9 +43,6 @@ from pqflow.calibration.parts import (
     load_schedule,
     schedule_json,
 )
-from pqflow.calibration.llfr_curve import fit_llfr_curve
-from pqflow.calibration.g2pp_swaptions import calibrate_g2pp_to_swaptions
-from pqflow.calibration.heston_parts import fit_heston_indices, heston_from_json, heston_to_json
 from pqflow.calibration.swaptions import SwaptionQuote, calibrate_hull_white_to_swaptions
 from pqflow.config.schema import RunConfig
 from pqflow.errors import CalibrationError, ConfigError, MarketDataError, MeasureError
@@ -69,17 +68,17 @@ from pqflow.measure.house_view import (
 from pqflow.measure.prices_of_risk import (
     PricesOfRisk,
     equity_price_of_risk,
-    g2_driver_weights,
     expected_short_rate,
+    g2_driver_weights,
     rates_price_of_risk_for_target,
     real_world_factor_mean,
 )
-from pqflow.models.equity import EquityParams
-from pqflow.models.heston import HestonIndex
-from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.cir_credit import CirCreditModel
 from pqflow.models.economy import RATES_DRIVERS, EconomyModel, InflationPart, TotalReturnIndex
+from pqflow.models.equity import EquityParams
+from pqflow.models.g2pp import G2PlusPlusParams
+from pqflow.models.heston import HestonIndex
+from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.jsonio import read_json
 from pqflow.storage.parquet import file_sha256

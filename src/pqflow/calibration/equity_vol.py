@@ -65,8 +65,9 @@ the quote is inconsistent with the rates, and we raise :class:`pqflow.errors.Mar
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 

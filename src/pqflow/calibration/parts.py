@@ -39,9 +39,9 @@ from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.market.correlation import check_correlation_matrix, nearest_correlation_matrix
 from pqflow.market.curve import DiscountCurve, LogDiscountCurve
 from pqflow.market.data_files import (
+    EquityVolRow,
     read_correlation_matrix,
     read_credit_spreads,
-    EquityVolRow,
     read_equity_indices,
     read_equity_vols,
     read_inflation_caps,

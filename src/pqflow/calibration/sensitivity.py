@@ -16,10 +16,9 @@ from __future__ import annotations
 import hashlib
 import json
 from dataclasses import replace
-
-from pqflow.calibration.assemble import Calibration, _inputs, _real_world, fit_curve
 from typing import Any
 
+from pqflow.calibration.assemble import Calibration, _inputs, _real_world, fit_curve
 from pqflow.calibration.g2pp_swaptions import g2pp_swaption_price
 from pqflow.calibration.parts import calibrate_inflation
 from pqflow.calibration.swaptions import forward_swap_rate, hull_white_swaption_price

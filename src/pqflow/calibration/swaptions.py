@@ -29,8 +29,9 @@ errors, ``sum w_i r_i^2``, either of implied volatility in the quoted convention
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, Literal, Sequence
+from typing import Any, Literal
 
 import numpy as np
 from scipy.optimize import brentq, least_squares

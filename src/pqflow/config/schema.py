@@ -9,11 +9,8 @@ from __future__ import annotations
 
 import datetime as dt
 import re
-from typing import Literal
-
 from pathlib import Path
-
-from typing import Annotated
+from typing import Annotated, Literal
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, PrivateAttr, field_validator, model_validator
 

@@ -9,8 +9,8 @@ the batch index.
 from __future__ import annotations
 
 import datetime as dt
-import json
 import fnmatch
+import json
 import platform
 from dataclasses import dataclass
 from pathlib import Path
@@ -323,9 +323,9 @@ def revalidate_run(run_dir: str | Path, *, ess_warning_share: float | None = Non
     files in the manifest again (the scenario files are unchanged; the header gains
     ``revalidated_utc``). ``ess_warning_share``: default the one the run's earlier summary
     records, else 0.10."""
-    from pqflow.storage.manifest import verify_run
-
     import shutil
+
+    from pqflow.storage.manifest import verify_run
 
     run_dir = Path(run_dir)
     for stale in run_dir.glob(".validation.new-*"):  # our own scratch, left by a validate killed mid-write:
@@ -342,7 +342,7 @@ def revalidate_run(run_dir: str | Path, *, ess_warning_share: float | None = Non
                 pass
     summary = write_validation(run_dir, ess_warning_share=ess_warning_share)
     header = {k: v for k, v in manifest.items() if k != "files"}
-    header["revalidated_utc"] = dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
+    header["revalidated_utc"] = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
     write_json_atomic(run_dir / MANIFEST, build_manifest(run_dir, header=header))
     return summary
 
@@ -364,7 +364,7 @@ def write_run_manifest(
     header = {
         "run_id": run_id,
         "run_name": config.run.name,
-        "created_utc": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
+        "created_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
         "pqflow_version": __version__,
         "python": platform.python_version(),
         "numpy": np.__version__,

@@ -87,7 +87,7 @@ def publish_valuation(
         "run_manifest_sha256": run_manifest_sha256(info.run_dir),
         "portfolio_file": source.name,
         "portfolio_sha256": summary["portfolio_sha256"],
-        "created_utc": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
+        "created_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
         "pqflow_version": __version__,
         "caution": summary["caution"],
     }

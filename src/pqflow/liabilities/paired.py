@@ -21,7 +21,13 @@ import numpy as np
 from pqflow.liabilities.portfolio import Portfolio, load_portfolio
 from pqflow.liabilities.scenarios import annual_scenarios
 from pqflow.liabilities.valuation import (
-    QUANTITIES, _discounted, _groups, _membership, check_portfolio_against_run, inspect_run, portfolio_reads,
+    QUANTITIES,
+    _discounted,
+    _groups,
+    _membership,
+    check_portfolio_against_run,
+    inspect_run,
+    portfolio_reads,
 )
 from pqflow.validation.moments import sampling_units
 from pqflow.validation.reader import ScenarioSetReader

@@ -41,9 +41,9 @@ from __future__ import annotations
 import numpy as np
 
 from pqflow.market.curve import DiscountCurve
+from pqflow.measure.prices_of_risk import g2_driver_weights
 from pqflow.models import g2pp
 from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.measure.prices_of_risk import g2_driver_weights
 from pqflow.models.hull_white import HullWhiteParams, alpha, b_factor, integrated_variance
 from pqflow.models.schedule import PiecewiseConstant
 

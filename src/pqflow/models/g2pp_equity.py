@@ -44,6 +44,7 @@ import numpy as np
 
 from pqflow.market.curve import DiscountCurve
 from pqflow.models.base import StepLaw
+from pqflow.models.equity import black_on_forward
 from pqflow.models.g2pp import (
     G2PlusPlusParams,
     cash_account,
@@ -53,7 +54,6 @@ from pqflow.models.g2pp import (
     zcb_price,
 )
 from pqflow.models.hull_white import b_factor, phi2
-from pqflow.models.equity import black_on_forward
 from pqflow.models.hull_white_equity import bond_column, equity_column, rates_equity_units
 from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
 

@@ -113,7 +113,7 @@ def acquire_lock(lock: str | Path, *, target: str | Path | None = None, reentran
     body = {
         "pid": os.getpid(),
         "host": socket.gethostname(),
-        "created_utc": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
+        "created_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
     }
     for _ in range(3):
         try:
@@ -253,7 +253,7 @@ def _fresh(staging: Path, fingerprint: str, run_id: str | None) -> StagingState:
             "kind": "header",
             "fingerprint": fingerprint,
             "run_id": rid,
-            "started_utc": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
+            "started_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
         },
     )
     return StagingState(path=staging, run_id=rid, resumed=False, kept=(), discarded=())

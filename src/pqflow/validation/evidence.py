@@ -33,10 +33,10 @@ import pandas as pd
 
 from pqflow.validation.assets import martingale_assets
 from pqflow.validation.market_consistency import market_consistency_check
+from pqflow.validation.mean_tests import credit_in_density, stochastic_volatility_assets
 from pqflow.validation.real_world import real_world_check
 from pqflow.validation.reconciliation import reconciliation_check
 from pqflow.validation.run_files import json_safe, load_run_inputs
-from pqflow.validation.mean_tests import credit_in_density, stochastic_volatility_assets
 from pqflow.validation.summary import VERDICT_RULE, combine_verdicts, inconclusive_totals, validate_run
 
 __all__ = ["RunValidation", "run_checks", "overall_verdict", "RULE"]
