@@ -22,6 +22,18 @@ Payoffs at the expiry ``T0``, from the columns of the files:
   (``parameters["equity"]``) or a further index's ``income_yield`` (``parameters["indices"]``):
   ``max(+-(S_T e^{-qT} - K), 0)``.
 
+In the real-world set each payoff is deflated with the density of the smallest written block
+that carries its columns (:mod:`pqflow.measure.blocks`: the rates for a swaption, the rates and
+the index for an equity option) over the cash account, ``E_P[w_B X / B_T] = E_Q[X / B_T]`` for
+anything the block determines; the full density's other drivers only add spread (column
+``weight``). That estimate is an importance-sampling mean whose large weights sit where a put
+pays: a sample that misses them has a low mean and a low standard error together, and the plain
+rule then raised false alarms several times its level (measured in
+``tests/test_market_power.py``). Its standard error is therefore the larger of the sample value
+and the spread implied by the market-consistent set, ``Var_P(w_B Y) = E_Q[Y^2 / p_B] -
+E_Q[Y]^2`` (:func:`pqflow.validation.moments.spread_from_other_measure`; columns
+``sample_std_error`` and ``std_error_from_market_consistent``), as the reconciliation does.
+
 An instrument whose expiry is not an output time, or whose bonds or index are not in the
 files, is reported as not testable (with the reason) rather than guessed.
 
@@ -71,7 +83,8 @@ import pandas as pd
 from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_price
 from pqflow.errors import MarketDataError
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
-from pqflow.validation.martingale import index_columns
+from pqflow.validation.martingale import index_columns, restricted_blocks
+from pqflow.validation.moments import spread_from_other_measure
 from pqflow.validation.run_files import RunInputs, stream_moments, time_index
 from pqflow.validation.summary import family_critical_z, inconclusive_mask
 
@@ -277,11 +290,13 @@ def _with_equity_forward(spec: InstrumentSpec, inputs: RunInputs, level: float) 
                              "market_price": price, "note": note})
 
 
-def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.ndarray]) -> np.ndarray:
-    """Deflated payoffs ``(n_paths, n_instruments)``."""
-    deflator = cols["deflator"]
-    out = np.empty((deflator.shape[0], len(specs)))
+def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.ndarray],
+             deflators: list[np.ndarray] | None = None) -> np.ndarray:
+    """Deflated payoffs ``(n_paths, n_instruments)``; ``deflators``: one ``(n_paths, n_times)``
+    array per instrument (default: the written ``deflator`` column for every one)."""
+    out = np.empty((cols["deflator"].shape[0], len(specs)))
     for j, s in enumerate(specs):
+        deflator = cols["deflator"] if deflators is None else deflators[j]
         k = time_index(times, s.expiry)
         assert k is not None
         if s.kind == "yoy_option":  # annual caplets tau (I_i / I_{i-1} - 1 - K)^+ paid at i, tau = 1
@@ -384,6 +399,7 @@ def market_consistency_table(
     tol = {**DEFAULT_VOL_TOLERANCE, **(vol_tolerance or {})}
     rows: list[dict[str, Any]] = []
     specs_all: list[InstrumentSpec] = []
+    cross_moments: dict[tuple[str, tuple[str, ...]], tuple[float, float]] = {}
     for measure in measures:
         reader = inputs.reader(measure)
         columns = reader.column_names()
@@ -399,22 +415,53 @@ def market_consistency_table(
         testable = [s for s in specs if s.untestable is None]
         if not testable:
             continue
+        # Each payoff is weighted by the density of the smallest written block that carries its
+        # columns (rates for a swaption, rates and the index for an equity option): the
+        # full density's other drivers add spread and nothing else.
+        blocks = [restricted_blocks(reader, s.column_names, inputs.rates_drivers) for s in testable]
+        full = "q_density" if measure == "real_world" else "p_density"
+        weight_columns = [tuple(f"{full}_{b}" for b in bs) or ((full,) if full in columns else ()) for bs in blocks]
+        restricted = measure == "real_world" and any(blocks)
+        spread_source = measure == "market_consistent" and all(weight_columns)
         needed = ["deflator", *dict.fromkeys(c for s in testable for c in s.column_names)]
+        if restricted or spread_source:
+            needed += [*dict.fromkeys(c for w in weight_columns for c in w), "cash_account"]
         antithetic = reader.antithetic
 
-        def derive(t: np.ndarray, c: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
-            v = _payoffs(testable, t, c)
+        def derive(t: np.ndarray, c: dict[str, np.ndarray], testable=testable, antithetic=antithetic,
+                   weight_columns=weight_columns, restricted=restricted,
+                   spread_source=spread_source) -> dict[str, np.ndarray]:
+            weights = [np.prod([c[w] for w in cols], axis=0) for cols in weight_columns] \
+                if restricted or spread_source else None
+            deflators = [w / c["cash_account"] for w in weights] if restricted and weights else None
+            v = _payoffs(testable, t, c, deflators)
             paying = (v != 0.0).astype(float)
             if antithetic:  # a pair pays when either path does: its unit mean is then exactly 1
                 paying = np.repeat(np.maximum(paying[0::2], paying[1::2]), 2, axis=0)
-            return {"v": v, "paying": paying}
+            out = {"v": v, "paying": paying}
+            if spread_source and weights:  # Y^2 / p_density(block) at each instrument's expiry
+                w = np.stack([wj[:, time_index(t, s.expiry)] for wj, s in zip(weights, testable, strict=True)], axis=1)
+                out["v2_over_p"] = v * v / w
+            return out
 
         _, acc = stream_moments(reader, needed, derive)
         mean, se = acc["v"].mean, acc["v"].std_error
         units = int(acc["paying"].count)
+        paths = units * (2 if antithetic else 1)
         paying_units = np.rint(acc["paying"].mean * units).astype(int)
+        if spread_source:
+            cross_moments = {(s.label, bs): (float(m2), float(m1))
+                             for s, bs, m2, m1 in zip(testable, blocks, acc["v2_over_p"].mean, mean, strict=True)}
         for j, s in enumerate(testable):
             mc, err = float(mean[j]), float(se[j])
+            sample_err, cross_err = err, None
+            if measure == "real_world" and (s.label, blocks[j]) in cross_moments:
+                # The real-world estimate weights its paths by a density; where the weights are
+                # large its own standard error is unreliable (a sample that misses them has a
+                # low mean and a low spread together), so it is floored by the spread the
+                # market-consistent set implies for it, as the reconciliation does.
+                cross_err = float(spread_from_other_measure(*cross_moments[(s.label, blocks[j])], paths))
+                err = max(sample_err, cross_err)
             vega = _vega(s)
             tol_vol = tol.get(s.convention, 0.0)
             tol_price = abs(vega) * tol_vol if vega is not None else 0.0
@@ -435,6 +482,10 @@ def market_consistency_table(
                 "z_market": (mc - s.market_price) / err if s.market_price is not None and err > 0 else None,
                 "z_model": (mc - s.model_price) / err if s.model_price is not None and err > 0 else None,
                 "sampling_units": units, "paying_units": int(paying_units[j]),
+                "weight": (" * ".join(f"{'q_density' if measure == 'real_world' else 'p_density'}_{b}"
+                                      for b in blocks[j]) + " / cash_account")
+                if measure == "real_world" and blocks[j] else "deflator",
+                "sample_std_error": sample_err, "std_error_from_market_consistent": cross_err,
                 "tolerance_price": tol_price, "material_price": material,
             }
             if s.market_price is not None and err > 0:
@@ -489,7 +540,8 @@ def market_consistency_check(
         "each quote: |MC - market| <= vega * tolerance + z * SE, tolerance "
         f"{tol['normal'] / _BP:g} bp normal vol, {tol['lognormal'] * 100:g} vol points lognormal "
         f"and shifted lognormal; each recorded model price: |MC - model| <= z * SE; z = {crit:.2f} "
-        "(Bonferroni, family level 99%); both sets, the real-world one with its deflators; a cell is "
+        "(Bonferroni, family level 99%); both sets, the real-world one weighted by the smallest density block "
+        "carrying the payoff, its SE floored by the spread the market-consistent set implies; a cell is "
         f"inconclusive when fewer than {MIN_PAYING_UNITS} sampling units pay or when its test would detect "
         "the material deviation less than half the time at that level"
     )

@@ -37,7 +37,7 @@ from pqflow.validation.assets import MartingaleAsset
 from pqflow.validation.mean_tests import MARTINGALE_DEVIATION, ROBUST, CellMoments, mean_test, rule_for_asset
 from pqflow.validation.reader import ScenarioSetReader
 
-__all__ = ["martingale_table", "bond_maturity_of", "index_columns", "INDEX_PREFIXES", "LEVELS"]
+__all__ = ["martingale_table", "bond_maturity_of", "index_columns", "restricted_blocks", "INDEX_PREFIXES", "LEVELS"]
 
 LEVELS = (0.95, 0.99)
 INDEX_PREFIXES = ("equity_", "property_")
@@ -93,19 +93,30 @@ def _asset_weights(
     blocks = reader.density_blocks()
     if not blocks:
         return out
-    names = reader.column_names()
-    inflation = ("real_rate", "inflation") if "cpi" in names else None
     for a in assets:
         if a.name == "deflator" or not a.columns:
             continue
-        try:
-            needed = frozenset(rates_drivers).union(*(column_drivers(c, rates_drivers, inflation) for c in a.columns))
-        except ValueError:
-            continue
-        factors = density_factors(needed, blocks)
-        if factors is not None:
-            out[a.name] = tuple(f"q_density_{f}" for f in factors)
+        out[a.name] = tuple(f"q_density_{f}" for f in restricted_blocks(reader, a.columns, rates_drivers))
     return out
+
+
+def restricted_blocks(
+    reader: ScenarioSetReader, columns: Sequence[str], rates_drivers: Sequence[str]
+) -> tuple[str, ...]:
+    """The written density blocks whose product is a restricted density for a quantity built
+    from ``columns`` and the cash account (:func:`pqflow.measure.blocks.density_factors`);
+    empty when the set writes no blocks or none carries those drivers (use the full density).
+    The same block names serve both sets: ``q_density_<block>`` in the real-world one,
+    ``p_density_<block>`` in the market-consistent one."""
+    blocks = reader.density_blocks()
+    if not blocks:
+        return ()
+    inflation = ("real_rate", "inflation") if "cpi" in reader.column_names() else None
+    try:
+        needed = frozenset(rates_drivers).union(*(column_drivers(c, rates_drivers, inflation) for c in columns))
+    except ValueError:
+        return ()
+    return density_factors(needed, blocks) or ()
 
 
 def martingale_table(

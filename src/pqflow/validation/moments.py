@@ -25,7 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Moments", "sampling_units"]
+__all__ = ["Moments", "sampling_units", "spread_from_other_measure"]
 
 _RELATIVE_FLOOR = 1e-12  # below this relative standard error the skewness term is not used
 
@@ -97,3 +97,17 @@ def sampling_units(values: np.ndarray, antithetic: bool) -> np.ndarray:
     if values.shape[0] % 2:
         raise ValueError("antithetic set with an odd number of paths in a part")
     return 0.5 * (values[0::2] + values[1::2])
+
+
+def spread_from_other_measure(second_moment: np.ndarray | float, mean: np.ndarray | float,
+                              paths: int) -> np.ndarray:
+    """Standard error of a real-world importance-sampling mean ``mean_P(w Y)`` (``w = dQ/dP``,
+    ``Y`` a deflated payoff) implied by moments measured in the market-consistent set:
+    ``Var_P(w Y) = E_P[w^2 Y^2] - E_P[w Y]^2 = E_Q[w Y^2] - E_Q[Y]^2`` (Girsanov: ``E_P[w g] =
+    E_Q[g]``), so ``second_moment`` is the market-consistent mean of ``Y^2 / p_density`` and
+    ``mean`` that of ``Y``; ``paths``: real-world paths (antithetic pairs get no credit, which is
+    conservative for the monotone payoffs judged here). The large weights sit where the payoff
+    pays; the market-consistent set samples that region well, the real-world sample often does
+    not, and then its own standard error is too small just when its mean is off."""
+    var = np.maximum(np.asarray(second_moment, dtype=float) - np.asarray(mean, dtype=float) ** 2, 0.0)
+    return np.sqrt(var) / np.sqrt(max(int(paths), 1))

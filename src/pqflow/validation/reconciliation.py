@@ -61,7 +61,7 @@ from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_en
 from pqflow.validation.control_variates import controlled_mean
 from pqflow.validation.market_consistency import MIN_PAYING_UNITS
 from pqflow.validation.martingale import bond_maturity_of, index_columns
-from pqflow.validation.moments import sampling_units
+from pqflow.validation.moments import sampling_units, spread_from_other_measure
 from pqflow.validation.reader import ScenarioSetReader
 from pqflow.validation.run_files import RunInputs, stream_moments, time_index
 from pqflow.validation.summary import family_critical_z
@@ -198,13 +198,13 @@ def guarantee_values(
         if measure == "market_consistent":
             # E_P[(D_T X)^2] = E_Q[Z_T (X / B_T)^2] with Z_T = 1 / p_density (of the same block):
             # the real-world estimator's spread, estimated where its payoff is well sampled.
-            second = float(np.mean(data[:, 1]))
-            out["real_world_sd_from_market_consistent"] = float(
-                np.sqrt(max(second - out["market_consistent_plain"][0] ** 2, 0.0)))
+            out["real_world_moments_from_market_consistent"] = (
+                float(np.mean(data[:, 1])), out["market_consistent_plain"][0])
         out.update(maturity=t, guarantee=g, level=level)
     value, sample_se = out["real_world"]
     plain_value, plain_se = out["real_world_plain"]
-    cross_se = out["real_world_sd_from_market_consistent"] / np.sqrt(out["real_world_paths"])
+    cross_se = float(spread_from_other_measure(*out["real_world_moments_from_market_consistent"],
+                                               out["real_world_paths"]))
     # A sample that misses the large weights understates its spread: inflate both standard
     # errors by the factor the market-consistent set's second moment implies for the plain one.
     inflate = max(1.0, cross_se / plain_se) if plain_se > 0 else 1.0
