@@ -148,21 +148,36 @@ def _inconclusive_cell(c: dict[str, Any]) -> str:
     return f"{n}" + (f" from {start:g}y" if start is not None else "")
 
 
+def _density_table(densities: list[dict[str, Any]]) -> Table:
+    """One row per written density: where its effective sample size stays usable, and its
+    state at the horizon (the full density first in each set, then its restricted blocks)."""
+    table = Table(title="Density weights: usable horizon (ESS share above the warning level)")
+    table.add_column("set")
+    table.add_column("density", overflow="fold")
+    table.add_column("usable to", justify="right")
+    table.add_column("ESS share (horizon)", justify="right")
+    table.add_column("largest weight (horizon)", justify="right")
+    for d in densities:
+        horizon = d.get("usable_horizon")
+        table.add_row(
+            escape(str(d["measure"]).replace("_", "-")),
+            escape(str(d["column"])),
+            "the horizon" if horizon is None else f"{horizon:g} years",
+            f"{d['ess_share_at_horizon']:.3f}",
+            f"{d['max_weight_share_at_horizon']:.1%}",
+        )
+    return table
+
+
 def _print_validation(summary: dict[str, Any]) -> None:
     """The verdict table, the rule, each density's usable horizon, the density budget at the
     horizon, the warnings and the inconclusive cells (values escaped: rich would take text in
     brackets for markup)."""
     console.print(_summary_table(summary))
     console.print(f"rule: {escape(str(summary['rule']))}", style="dim", highlight=False)
-    for d in summary.get("densities", []) or []:
-        horizon = d.get("usable_horizon")
-        label = d["column"] + (f" (block {d['block']})" if d.get("block") else "")
-        text = (f"usable to {horizon:g} years" if horizon is not None else "usable to the horizon")
-        console.print(
-            f"density {escape(label)}, {escape(d['measure'])}: {text}; at the horizon ESS share "
-            f"{d['ess_share_at_horizon']:.3f}, largest weight {d['max_weight_share_at_horizon']:.1%}",
-            highlight=False,
-        )
+    densities = summary.get("densities", []) or []
+    if densities:
+        console.print(_density_table(densities))
     for measure, shares in (summary.get("density_budget") or {}).items():
         if shares:
             parts = ", ".join(f"{escape(k)} {v:.0%}" for k, v in sorted(shares.items(), key=lambda kv: -abs(kv[1])))
