@@ -200,7 +200,7 @@ def test_density_blocks_are_judged_and_get_their_horizon(small_run, tmp_path):
 
 def test_terminal_lines_show_inconclusive_in_words_and_keep_brackets(small_run):
     # What `pqflow run` and `pqflow validate` print: the verdict word, the inconclusive count
-    # and its start, one line per density, and user text in brackets printed as written (rich
+    # and its start, a table row per density, and user text in brackets printed as written (rich
     # would otherwise read it as markup).
     from pqflow import cli
 
@@ -215,7 +215,9 @@ def test_terminal_lines_show_inconclusive_in_words_and_keep_brackets(small_run):
     text = captured.get()
     assert "INCONCLUSIVE" in text and "7 cells" in text and "t = 4 years" in text
     assert "see [bold]note[/bold] in [validation]" in text
-    assert text.count("density q_density,") == 1 and text.count("density p_density,") == 1
-    # and one line per restricted density, naming its block
-    assert text.count("density q_density_rates (block rates)") == 1
-    assert text.count("density p_density_rates (block rates)") == 1
+    # the densities as one table: a row per density, the full one and each restricted block
+    rows = [line for line in text.splitlines() if "_density" in line]
+    for measure, column in (("real-world", "q_density"), ("market-consistent", "p_density"),
+                            ("real-world", "q_density_rates"), ("market-consistent", "p_density_rates")):
+        assert sum(1 for r in rows if measure in r and f" {column} " in r) == 1, text
+    assert "Density weights: usable horizon" in text

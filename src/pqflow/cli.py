@@ -746,8 +746,14 @@ def value(
         console.print(sens_table)
     verdict = summary.get("reconciliation", {}).get("verdict")
     if verdict:
-        colour = "green" if verdict == "agree" else "red"
+        rec = summary["reconciliation"]
+        colour = {"agree": "green", "inconclusive": "dark_orange"}.get(verdict, "red")
         console.print(f"reconciliation of the two sets: [{colour}]{verdict.upper()}[/]", highlight=False)
+        console.print(f"rule: {escape(str(rec.get('rule', '')))}", style="dim", highlight=False)
+        if rec.get("inconclusive_lines"):
+            console.print(f"[yellow]inconclusive:[/] {escape(', '.join(rec['inconclusive_lines']))} (a "
+                          f"{rec.get('material_share', 0.02):.0%} difference would be seen less than half the time; "
+                          "more scenarios would judge them)", highlight=False)
     target = out if out is not None else run_dir / "valuation"
     console.print(f"written to {target}: {', '.join(summary.get('files', []))} (checked by pqflow verify)",
                   style="dim", highlight=False)

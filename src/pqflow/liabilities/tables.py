@@ -4,8 +4,17 @@
 (``best_estimate``, ``guarantee``). The real-world set is independent of the market-consistent
 one (its own random streams), so the standard error of the difference of the two estimates is
 ``sqrt(se_mc^2 + se_rw^2)``; ``difference_in_se`` is the difference over it. With deflators the
-two estimate one number, and ``|difference_in_se|`` beyond about 3 would say that something
-(deflators, densities, the files) is wrong. The columns ``real_world_undeflated_*`` discount
+two estimate one number. The verdict (:func:`reconciliation_verdict`) has three states, as the
+checks of the scenario files do: a product or total line *differs* when ``|difference_in_se|``
+exceeds the Bonferroni critical value at family level 99% over the lines
+(:func:`pqflow.validation.summary.family_critical_z`); a line that does not differ is
+*inconclusive* when its comparison could not see a material difference, 2% of the line's
+market-consistent value (:data:`MATERIAL_SHARE`, the same share as the guarantee
+reconciliation; common practice), with at least 50% power at that level (``0.02 |V| / se <
+z_f``); the valuation *agrees* only when every line is judged and none differs. With a few
+thousand scenarios the guarantee lines are normally inconclusive: their values are small
+against the standard error. Size and power are measured in
+``tests/test_liabilities_reconciliation.py``. The columns ``real_world_undeflated_*`` discount
 the real-world cash flows with the cash account alone: not a valuation, shown so the reader sees
 what the deflator's density does.
 """
@@ -20,9 +29,12 @@ import pandas as pd
 from pqflow import CAUTION
 from pqflow.liabilities.portfolio import Portfolio
 from pqflow.liabilities.valuation import QUANTITIES, RunInfo, SetValuation
+from pqflow.validation.reconciliation import MATERIAL_SHARE as RECONCILIATION_MATERIAL_SHARE
+from pqflow.validation.summary import FAMILY_ALPHA, family_critical_z
 
 __all__ = [
-    "RECONCILIATION_LIMIT_SE",
+    "MATERIAL_SHARE",
+    "reconciliation_verdict",
     "results_frame",
     "cash_flow_frame",
     "valuation_summary",
@@ -30,7 +42,8 @@ __all__ = [
     "CONVENTIONS",
 ]
 
-RECONCILIATION_LIMIT_SE = 3.0
+#: material difference between the two sets' values of a line: 2% of its market-consistent value
+MATERIAL_SHARE = RECONCILIATION_MATERIAL_SHARE
 
 CONVENTIONS = (
     "Values are at the valuation date, in the portfolio currency, for all policies of each line; "
@@ -140,14 +153,52 @@ def _clean(value: Any) -> Any:
     return value
 
 
+def reconciliation_verdict(
+    names: list[str], market_consistent: np.ndarray, difference_in_se: np.ndarray, difference_se: np.ndarray
+) -> dict[str, Any]:
+    """The three-state verdict over the product and total lines (module docstring): ``agree``,
+    ``inconclusive`` or ``differ``, with the family critical value, the largest difference and
+    the lines that could not be judged."""
+    z = np.abs(np.asarray(difference_in_se, dtype=float))
+    se = np.asarray(difference_se, dtype=float)
+    material = MATERIAL_SHARE * np.abs(np.asarray(market_consistent, dtype=float))
+    crit = family_critical_z(len(z))
+    differ = z > crit
+    with np.errstate(divide="ignore", invalid="ignore"):
+        weak = ~differ & ~(material / se >= crit)
+    verdict = "differ" if differ.any() else "inconclusive" if weak.any() else "agree"
+    worst = int(np.argmax(z)) if len(z) else None
+    return {
+        "rule": (
+            "a product or total line differs when |real world - market consistent| exceeds "
+            f"z = {crit:.2f} standard errors of the difference (Bonferroni, family level "
+            f"{1 - FAMILY_ALPHA:.0%} over {len(z)} lines); a line that does not differ is inconclusive when "
+            f"the comparison would detect a difference of {MATERIAL_SHARE:.0%} of its market-consistent "
+            "value less than half the time at that level; the valuation agrees when every line is judged "
+            "and none differs"
+        ),
+        "family_critical_z": crit,
+        "material_share": MATERIAL_SHARE,
+        "max_abs_difference_in_se": float(z.max()) if len(z) else 0.0,
+        "worst_line": None if worst is None else names[worst],
+        "differing_lines": [names[i] for i in np.flatnonzero(differ)],
+        "inconclusive_lines": [names[i] for i in np.flatnonzero(weak)],
+        "verdict": verdict,
+    }
+
+
 def valuation_summary(
     portfolio: Portfolio, info: RunInfo, mc: SetValuation, rw: SetValuation, results: pd.DataFrame
 ) -> dict[str, Any]:
     """A JSON-ready summary for the report and the command line (product and total lines)."""
     lines = results[results.level != "model_point"]
-    rec = lines["difference_in_se"].abs()
     und = lines["undeflated_difference_in_se"].abs() if "undeflated_difference_in_se" in lines else None
-    worst = lines.loc[rec.idxmax()] if len(lines) else None
+    reconciliation = reconciliation_verdict(
+        [f"{n} / {q}" for n, q in zip(lines["name"], lines["quantity"], strict=True)],
+        lines["market_consistent_value"].to_numpy(), lines["difference_in_se"].to_numpy(),
+        lines["difference_se"].to_numpy())
+    reconciliation["undeflated_max_abs_difference_in_se"] = (
+        float(und.max()) if und is not None and len(und) else None)
     return {
         "caution": CAUTION,
         "insurer": portfolio.insurer,
@@ -176,17 +227,7 @@ def valuation_summary(
             "*_without_controls"
         ),
         "lines": [{k: _clean(v) for k, v in row.items()} for row in lines.to_dict(orient="records")],
-        "reconciliation": {
-            "rule": (
-                "market-consistent and deflated real-world values agree when every product and "
-                f"total line differs by at most {RECONCILIATION_LIMIT_SE:g} standard errors"
-            ),
-            "limit_se": RECONCILIATION_LIMIT_SE,
-            "max_abs_difference_in_se": float(rec.max()) if len(lines) else 0.0,
-            "worst_line": None if worst is None else f"{worst['name']} / {worst['quantity']}",
-            "verdict": "agree" if len(lines) == 0 or float(rec.max()) <= RECONCILIATION_LIMIT_SE else "differ",
-            "undeflated_max_abs_difference_in_se": float(und.max()) if und is not None and len(und) else None,
-        },
+        "reconciliation": reconciliation,
         "conventions": list(CONVENTIONS),
     }
 

@@ -426,6 +426,10 @@ def _warnings(summary: dict[str, Any], valuation: dict[str, Any] | None) -> list
         if rec.get("verdict") == "differ":
             out.append(f"liability valuation: market-consistent and deflated real-world values differ "
                        f"(worst {rec.get('worst_line')}: {fmt.zscore(rec.get('max_abs_difference_in_se'))} SE)")
+        elif rec.get("verdict") == "inconclusive":
+            out.append(f"liability valuation: the two sets' values of {', '.join(rec.get('inconclusive_lines', []))} "
+                       f"cannot be compared at the material size ({fmt.share(rec.get('material_share'))} of the "
+                       "value): inconclusive, not agreed")
     return out
 
 
@@ -1275,6 +1279,9 @@ def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
                 "<code>pqflow value RUN_DIR --liabilities FILE</code> and then <code>pqflow report RUN_DIR</code>.</p>")
     rec = val.get("reconciliation", {})
     verdict = {"agree": "pass", "differ": "fail"}.get(str(rec.get("verdict")), rec.get("verdict"))
+    rule = (f'<p class="note">Rule: {escape(str(rec["rule"]))}.'
+            + (f' Inconclusive: {escape(", ".join(rec["inconclusive_lines"]))}.' if rec.get("inconclusive_lines") else "")
+            + "</p>") if rec.get("rule") else ""
     cur = str(val.get("currency", ""))
     html = [f"<h3>{escape(str(val.get('insurer', '')))}: best estimate and TVOG {_badge(verdict)}</h3>",
             f'<p class="note">Portfolio {escape(str(val.get("portfolio_file", "")))}; values in {escape(cur)} '
@@ -1298,6 +1305,8 @@ def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
         "real_world_value": money("real_world_value", "real_world_se"),
         "difference_in_se": lambda r: escape(fmt.zscore(r.get("difference_in_se"))),
     }))
+    if rule:
+        html.append(rule)
     html.append('<p class="note">' + " ".join(escape(c) for c in val.get("conventions", [])) + "</p>")
     html.append(_files(run_dir, ["../valuation/liability_values.csv", "../valuation/liability_cash_flows.csv",
                                  "../valuation/summary.json"]))
