@@ -19,30 +19,47 @@ import numpy as np
 from scipy.stats import norm
 
 from pqflow.market.curve import DiscountCurve
+from pqflow.models import g2pp
+from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams, integrated_variance, phi2
-from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
+from pqflow.models.schedule import PiecewiseConstant, as_schedule
 
-__all__ = ["EquityParams", "black_on_forward", "equity_total_variance", "equity_option_price"]
+__all__ = [
+    "EquityParams",
+    "RateParams",
+    "EquityRateCorrelation",
+    "black_on_forward",
+    "forward_variance",
+    "schedule_buckets",
+    "equity_total_variance",
+    "equity_option_price",
+    "checked_correlation",
+    "rate_terms",
+    "cross_variance",
+    "rate_variance",
+]
 
 
 @dataclass(frozen=True, kw_only=True)
 class EquityParams:
     """One total-return index: ``level`` at time 0, ``dividend_yield`` q (continuous),
-    ``volatility`` sigma_S (a number, or piecewise constant in time) and ``correlation`` rho
-    with the short-rate shocks."""
+    ``volatility`` sigma_S (a number, or piecewise constant in time) and ``correlation``: rho
+    with the short-rate shock under Hull-White rates, the pair ``(rho_xS, rho_yS)`` with the
+    factor shocks under G2++ (checked against the rates where the variance is computed)."""
 
     name: str
     level: float
     dividend_yield: float
     volatility: float | PiecewiseConstant
-    correlation: float
+    correlation: float | tuple[float, float]
 
     def __post_init__(self) -> None:
         if not self.level > 0.0:
             raise ValueError("equity level must be positive")
         if not all(v > 0.0 for v in self.vol_schedule.values):
             raise ValueError("equity volatility must be positive")
-        if not -1.0 < self.correlation < 1.0:
+        pair = self.correlation if isinstance(self.correlation, tuple) else (self.correlation,)
+        if not all(-1.0 < c < 1.0 for c in pair):
             raise ValueError("equity-rate correlation must lie strictly inside (-1, 1)")
 
     @property
@@ -50,24 +67,160 @@ class EquityParams:
         return as_schedule(self.volatility)
 
 
-def equity_total_variance(rates: HullWhiteParams, equity: EquityParams, expiry: float) -> float:
-    """Variance of ``ln(S_T / P(T, T))`` under the T-forward measure,
+#: The rate models an index's forward variance supports, and the matching equity-rate
+#: correlation: one number (with the short-rate shock) under Hull-White, the pair
+#: ``(rho_xS, rho_yS)`` (with the factor shocks ``W1``, ``W2``) under G2++.
+RateParams = HullWhiteParams | G2PlusPlusParams
+EquityRateCorrelation = float | tuple[float, float]
 
-        int_0^T [sigma_S(u)^2 + 2 rho sigma_S(u) sigma B(T - u)] du + V(T),
 
-    which for constant sigma_S is ``sigma_S^2 T + 2 rho sigma_S sigma (T - B(T)) / a + V(T)``
-    (``int_u0^u1 B(T - u) du = phi2(T - u0) - phi2(T - u1)``)."""
-    a, s, rho = rates.mean_reversion, rates.volatility, equity.correlation
-    total = float(integrated_variance(rates, expiry))
-    for u0, u1, (vol,) in segments(0.0, expiry, equity.vol_schedule):
-        total += vol**2 * (u1 - u0)
-        total += 2.0 * rho * vol * s * float(phi2(a, expiry - u0) - phi2(a, expiry - u1))
-    return total
+def bucket_terms(
+    ends: np.ndarray, a: float, expiry: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Per bucket, for each expiry: the length of its overlap with ``[0, T]`` and
+    ``int_{lo}^{hi} B(T - u) du``; both shape ``expiry.shape + (n,)``."""
+    t = expiry[..., None]
+    starts = np.concatenate(([0.0], ends[:-1]))
+    lo = np.minimum(starts, t)
+    hi = np.minimum(ends, t)
+    hi = np.concatenate((hi[..., :-1], np.broadcast_to(t, t.shape)), axis=-1)  # flat after last
+    lo = np.minimum(lo, hi)
+    length = hi - lo
+    cross = phi2(a, t - lo) - phi2(a, t - hi)
+    return length, cross
+
+
+def checked_correlation(
+    rates: RateParams, correlation: EquityRateCorrelation, *, strict: bool
+) -> EquityRateCorrelation:
+    """The correlation in the form ``rates`` needs: one number (Hull-White) or the pair
+    ``(rho_xS, rho_yS)`` (G2++). With ``strict`` each must lie strictly inside (-1, 1) and the
+    correlation matrix of ``(W1, W2, Z)`` be positive definite, else inside [-1, 1] and positive
+    semi-definite. Hull-White numbers are returned as given (their range is checked by the
+    callers, as before)."""
+    if isinstance(rates, G2PlusPlusParams):
+        if np.ndim(correlation) != 1 or len(correlation) != 2:  # type: ignore[arg-type]
+            raise ValueError(
+                "under G2++ rates the equity correlation must be the pair (rho_xS, rho_yS) of "
+                f"correlations with the factor shocks W1 and W2, not {correlation!r}"
+            )
+        rx, ry = (float(c) for c in correlation)  # type: ignore[union-attr]
+        for label, c in (("rho_xS", rx), ("rho_yS", ry)):
+            ok = -1.0 < c < 1.0 if strict else -1.0 <= c <= 1.0
+            if not ok:
+                where = "strictly inside (-1, 1)" if strict else "in [-1, 1]"
+                raise ValueError(f"equity-rate correlation {label} = {c!r} must lie {where}")
+        matrix = np.array([[1.0, rates.rho, rx], [rates.rho, 1.0, ry], [rx, ry, 1.0]])
+        least = float(np.linalg.eigvalsh(matrix)[0])
+        if (strict and least <= 1e-12) or (not strict and least < -1e-12):
+            kind = "positive definite" if strict else "positive semi-definite"
+            raise ValueError(
+                f"the correlations of (W1, W2, Z) = (rho {rates.rho:g}, rho_xS {rx:g}, rho_yS "
+                f"{ry:g}) do not form a {kind} matrix"
+            )
+        return (rx, ry)
+    if np.ndim(correlation) != 0:
+        raise ValueError(
+            "under Hull-White rates the equity correlation is one number (with the short-rate "
+            f"shock), not {correlation!r}; a pair (rho_xS, rho_yS) goes with G2++ parameters"
+        )
+    return correlation
+
+
+def rate_terms(
+    rates: RateParams,
+    correlation: EquityRateCorrelation,
+    ends: np.ndarray,
+    expiry: np.ndarray,
+) -> tuple[np.ndarray, list[tuple[float, np.ndarray]]]:
+    """Per bucket, for each expiry: the overlap length with ``[0, T]`` and the cross-term
+    kernels with their weights, ``[(w, k)]``, such that the cross variance is
+    ``2 sum_(w, k) w sum_j s_j k_j``: ``[(rho sigma, phi2(a; .) increments)]`` under Hull-White,
+    ``[(rho_xS sigma, phi2(a; .) incr.), (rho_yS eta, phi2(b; .) incr.)]`` under G2++.
+    Arrays of shape ``expiry.shape + (n,)``."""
+    if isinstance(rates, G2PlusPlusParams):
+        rx, ry = correlation  # type: ignore[misc]
+        length, cross_a = bucket_terms(ends, rates.a, expiry)
+        _, cross_b = bucket_terms(ends, rates.b, expiry)
+        return length, [(rx * rates.sigma, cross_a), (ry * rates.eta, cross_b)]
+    length, cross = bucket_terms(ends, rates.mean_reversion, expiry)
+    return length, [(correlation * rates.volatility, cross)]  # type: ignore[operator]
+
+
+def cross_variance(
+    terms: list[tuple[float, np.ndarray]], vols: np.ndarray, n: int | None = None
+) -> np.ndarray:
+    """``2 sum_(w, k) w sum_{j < n} s_j k_j`` (all buckets when ``n`` is None)."""
+    cut = slice(None) if n is None else slice(0, n)
+    return 2.0 * sum(w * np.sum(vols[cut] * k[..., cut], axis=-1) for w, k in terms)
+
+
+def rate_variance(rates: RateParams, t: np.ndarray | float) -> np.ndarray:
+    """Variance of ``int_0^T (r - E r)``: ``V(T)`` of the rate model."""
+    if isinstance(rates, G2PlusPlusParams):
+        return g2pp.integrated_variance(rates, t)
+    return integrated_variance(rates, t)
+
+
+def forward_variance(
+    rates: HullWhiteParams | G2PlusPlusParams,
+    bucket_ends: np.ndarray,
+    volatilities: np.ndarray,
+    correlation: float | tuple[float, float],
+    expiry: np.ndarray | float,
+) -> np.ndarray:
+    """``v(T)``: variance of ``ln(S_T e^{-qT} / P(T,T))`` under the ``T``-forward measure, for
+    each expiry (any shape; the result has that shape). ``correlation``: one number with
+    Hull-White ``rates``, the pair ``(rho_xS, rho_yS)`` with G2++ ``rates``. The equity
+    volatility is ``volatilities[j]`` on ``(bucket_ends[j-1], bucket_ends[j]]`` (the first from 0)
+    and flat after the last end.
+
+    The one implementation of an index's forward variance: the volatility bootstrap
+    (:mod:`pqflow.calibration.equity_vol`), the option closed forms below and the validation's
+    guarantee closed form all use it."""
+    t = np.asarray(expiry, dtype=float)
+    if np.any(~np.isfinite(t)) or np.any(t < 0.0):
+        raise ValueError("expiries must be finite and not negative")
+    correlation = checked_correlation(rates, correlation, strict=False)
+    ends = np.asarray(bucket_ends, dtype=float)
+    if isinstance(rates, G2PlusPlusParams):
+        length, terms = rate_terms(rates, correlation, ends, t)
+        s = np.asarray(volatilities, dtype=float)
+        equity = np.sum(s**2 * length, axis=-1)
+        return equity + cross_variance(terms, s) + rate_variance(rates, t)
+    if not -1.0 <= correlation <= 1.0:  # type: ignore[operator]
+        raise ValueError("correlation must lie in [-1, 1]")
+    length, cross = bucket_terms(ends, rates.mean_reversion, t)
+    s = np.asarray(volatilities, dtype=float)
+    equity = np.sum(s**2 * length, axis=-1)
+    mixed = 2.0 * correlation * rates.volatility * np.sum(s * cross, axis=-1)
+    return equity + mixed + integrated_variance(rates, t)
+
+
+
+
+def schedule_buckets(volatility: float | PiecewiseConstant) -> tuple[np.ndarray, np.ndarray]:
+    """``(bucket_ends, volatilities)`` of a volatility schedule for :func:`forward_variance`:
+    the value on ``[knots[j], knots[j+1])`` becomes the bucket ending at ``knots[j+1]`` (the
+    last bucket, flat after its end, ends one year after the last knot)."""
+    sched = as_schedule(volatility)
+    knots = np.asarray(sched.knots, dtype=float)
+    ends = np.append(knots[1:], knots[-1] + 1.0)
+    return ends, np.asarray(sched.values, dtype=float)
+
+
+def equity_total_variance(rates: RateParams, equity: EquityParams, expiry: float) -> float:
+    """Variance of ``ln(S_T / P(T, T))`` under the T-forward measure (:func:`forward_variance`
+    with the index's volatility schedule); under Hull-White and a constant ``sigma_S``,
+
+        sigma_S^2 T + 2 rho sigma_S sigma (T - B(T)) / a + V(T)."""
+    ends, vols = schedule_buckets(equity.volatility)
+    return float(forward_variance(rates, ends, vols, equity.correlation, expiry))
 
 
 def equity_option_price(
     curve: DiscountCurve,
-    rates: HullWhiteParams,
+    rates: RateParams,
     equity: EquityParams,
     *,
     expiry: float,
