@@ -75,16 +75,13 @@ from pqflow.calibration.formulas import black_implied_vol, black_price
 from pqflow.errors import MarketDataError
 from pqflow.market.curve import DiscountCurve
 from pqflow.models.equity import (
-    EquityRateCorrelation,
-    RateParams,
     checked_correlation,
     cross_variance,
     forward_variance,
     rate_terms,
     rate_variance,
 )
-from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.rates import RatesModel
 
 __all__ = [
     "PiecewiseEquityVolatility",
@@ -134,21 +131,8 @@ class PiecewiseEquityVolatility:
         return self.volatilities[np.minimum(idx, self.volatilities.size - 1)]
 
 
-def _describe_rates(rates: RateParams, correlation: EquityRateCorrelation) -> str:
-    if isinstance(rates, G2PlusPlusParams):
-        rx, ry = correlation  # type: ignore[misc]
-        return (
-            f"G2++ a {rates.a:g}, sigma {rates.sigma:g}, b {rates.b:g}, eta {rates.eta:g}, rho "
-            f"{rates.rho:g}, equity correlations rho_xS {rx:g} and rho_yS {ry:g}"
-        )
-    return (
-        f"Hull-White sigma {rates.volatility:g}, a {rates.mean_reversion:g}, correlation "
-        f"{correlation:g}"
-    )
-
-
 def piecewise_equity_total_variance(
-    rates: HullWhiteParams | G2PlusPlusParams,
+    rates: RatesModel,
     volatility: PiecewiseEquityVolatility,
     correlation: float | tuple[float, float],
     expiry: np.ndarray | float,
@@ -162,7 +146,7 @@ def piecewise_equity_total_variance(
 
 def equity_option_price_piecewise(
     curve: DiscountCurve,
-    rates: HullWhiteParams | G2PlusPlusParams,
+    rates: RatesModel,
     *,
     level: float,
     dividend_yield: float,
@@ -239,7 +223,7 @@ class EquityVolFitReport:
 
     volatility: PiecewiseEquityVolatility
     correlation: float | tuple[float, float]
-    rates: HullWhiteParams | G2PlusPlusParams
+    rates: RatesModel
     rows: tuple[EquityVolFitRow, ...]
     max_abs_vol_error: float
 
@@ -269,7 +253,7 @@ def _positive_root(c2: float, c1: float, c0: float) -> float | None:
 
 def calibrate_equity_volatility(
     curve: DiscountCurve,
-    rates: HullWhiteParams | G2PlusPlusParams,
+    rates: RatesModel,
     *,
     level: float,
     dividend_yield: float,
@@ -287,8 +271,6 @@ def calibrate_equity_volatility(
     if not quotes:
         raise MarketDataError("no equity vol quotes to calibrate to")
     correlation = checked_correlation(rates, correlation, strict=True)
-    if not isinstance(rates, G2PlusPlusParams) and not -1.0 < correlation < 1.0:  # type: ignore[operator]
-        raise ValueError("equity-rate correlation must lie strictly inside (-1, 1)")
     ordered = sorted(quotes, key=lambda q: q.expiry)
     ends = np.array([q.expiry for q in ordered])
     if np.any(np.diff(ends) <= 0.0):
@@ -318,7 +300,7 @@ def calibrate_equity_volatility(
                 f"equity vol quote {t:g}y ({q.implied_vol:.4%}): no positive equity volatility "
                 f"on ({starts[j]:g}, {t:g}] reprices it. The market total variance "
                 f"{market_var:.6g} is at or below {floor:.6g}, the least the model reaches with "
-                f"{_describe_rates(rates, correlation)} and the earlier buckets: the quote is "
+                f"{rates.describe_with_equity(correlation)} and the earlier buckets: the quote is "
                 "inconsistent with the rate volatility"
             )
         vols[j] = s

@@ -1,14 +1,16 @@
-"""Equity total-return index as a geometric Brownian motion under Hull-White rates.
+"""Equity total-return index as a geometric Brownian motion under Hull-White or G2++ rates.
 
-    d ln S_t = (r_t - sigma_S^2 / 2) dt + sigma_S dZ^Q_t,    dZ dW = rho dt,
+    d ln S_t = (r_t - sigma_S(t)^2 / 2) dt + sigma_S(t) dZ^Q_t,    dZ dW = rho dt,
 
 with ``W`` the Hull-White driver (``rho`` is the correlation of the equity and short-rate
-shocks; equity against bond prices has the opposite sign). The index reinvests dividends; the
+shocks; equity against bond prices has the opposite sign), or under G2++ the correlations
+``(rho_xS, rho_yS)`` with the factor shocks ``W1``, ``W2``. The index reinvests dividends; the
 price index is ``S_t e^{-q t}``.
 
-European options on the price index have a closed form (Black's formula on the forward
-``S_0 e^{-q T} / P(0, T)`` with the total variance below; Brigo and Mercurio 2006, and the
-model of QuantLib's ``AnalyticBSMHullWhiteEngine``).
+European options on the price index have a closed form: Black's formula on the forward
+``S_0 e^{-q T} / P(0, T)`` with the index's forward variance (Brigo and Mercurio 2006, and the
+model of QuantLib's ``AnalyticBSMHullWhiteEngine``). :func:`forward_variance` is the one place
+that variance is computed (its derivation: :mod:`pqflow.calibration.equity_vol`).
 """
 
 from __future__ import annotations
@@ -19,9 +21,8 @@ import numpy as np
 from scipy.stats import norm
 
 from pqflow.market.curve import DiscountCurve
-from pqflow.models import g2pp
-from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.hull_white import HullWhiteParams, integrated_variance, phi2
+from pqflow.models.hull_white import phi2
+from pqflow.models.rates import RatesModel
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 
 __all__ = [
@@ -67,11 +68,12 @@ class EquityParams:
         return as_schedule(self.volatility)
 
 
-#: The rate models an index's forward variance supports, and the matching equity-rate
-#: correlation: one number (with the short-rate shock) under Hull-White, the pair
-#: ``(rho_xS, rho_yS)`` (with the factor shocks ``W1``, ``W2``) under G2++.
-RateParams = HullWhiteParams | G2PlusPlusParams
+#: An index's correlation with the rate drivers: one number (with the short-rate shock) under
+#: Hull-White, the pair ``(rho_xS, rho_yS)`` (with the factor shocks ``W1``, ``W2``) under G2++;
+#: each rates model checks its own form (:meth:`pqflow.models.rates.RatesModel.equity_correlation`).
 EquityRateCorrelation = float | tuple[float, float]
+#: Kept for callers that name the type; any :class:`pqflow.models.rates.RatesModel` will do.
+RateParams = RatesModel
 
 
 def bucket_terms(
@@ -91,60 +93,29 @@ def bucket_terms(
 
 
 def checked_correlation(
-    rates: RateParams, correlation: EquityRateCorrelation, *, strict: bool
+    rates: RatesModel, correlation: EquityRateCorrelation, *, strict: bool
 ) -> EquityRateCorrelation:
-    """The correlation in the form ``rates`` needs: one number (Hull-White) or the pair
-    ``(rho_xS, rho_yS)`` (G2++). With ``strict`` each must lie strictly inside (-1, 1) and the
-    correlation matrix of ``(W1, W2, Z)`` be positive definite, else inside [-1, 1] and positive
-    semi-definite. Hull-White numbers are returned as given (their range is checked by the
-    callers, as before)."""
-    if isinstance(rates, G2PlusPlusParams):
-        if np.ndim(correlation) != 1 or len(correlation) != 2:  # type: ignore[arg-type]
-            raise ValueError(
-                "under G2++ rates the equity correlation must be the pair (rho_xS, rho_yS) of "
-                f"correlations with the factor shocks W1 and W2, not {correlation!r}"
-            )
-        rx, ry = (float(c) for c in correlation)  # type: ignore[union-attr]
-        for label, c in (("rho_xS", rx), ("rho_yS", ry)):
-            ok = -1.0 < c < 1.0 if strict else -1.0 <= c <= 1.0
-            if not ok:
-                where = "strictly inside (-1, 1)" if strict else "in [-1, 1]"
-                raise ValueError(f"equity-rate correlation {label} = {c!r} must lie {where}")
-        matrix = np.array([[1.0, rates.rho, rx], [rates.rho, 1.0, ry], [rx, ry, 1.0]])
-        least = float(np.linalg.eigvalsh(matrix)[0])
-        if (strict and least <= 1e-12) or (not strict and least < -1e-12):
-            kind = "positive definite" if strict else "positive semi-definite"
-            raise ValueError(
-                f"the correlations of (W1, W2, Z) = (rho {rates.rho:g}, rho_xS {rx:g}, rho_yS "
-                f"{ry:g}) do not form a {kind} matrix"
-            )
-        return (rx, ry)
-    if np.ndim(correlation) != 0:
-        raise ValueError(
-            "under Hull-White rates the equity correlation is one number (with the short-rate "
-            f"shock), not {correlation!r}; a pair (rho_xS, rho_yS) goes with G2++ parameters"
-        )
-    return correlation
+    """The correlation in the form ``rates`` needs (one number under Hull-White, the pair
+    ``(rho_xS, rho_yS)`` under G2++), checked by the model: with ``strict`` each must lie
+    strictly inside (-1, 1) and the correlation matrix of the rate drivers and the index be
+    positive definite, else inside [-1, 1] and positive semi-definite."""
+    return rates.equity_correlation(correlation, strict=strict)
 
 
 def rate_terms(
-    rates: RateParams,
+    rates: RatesModel,
     correlation: EquityRateCorrelation,
     ends: np.ndarray,
     expiry: np.ndarray,
 ) -> tuple[np.ndarray, list[tuple[float, np.ndarray]]]:
     """Per bucket, for each expiry: the overlap length with ``[0, T]`` and the cross-term
     kernels with their weights, ``[(w, k)]``, such that the cross variance is
-    ``2 sum_(w, k) w sum_j s_j k_j``: ``[(rho sigma, phi2(a; .) increments)]`` under Hull-White,
-    ``[(rho_xS sigma, phi2(a; .) incr.), (rho_yS eta, phi2(b; .) incr.)]`` under G2++.
-    Arrays of shape ``expiry.shape + (n,)``."""
-    if isinstance(rates, G2PlusPlusParams):
-        rx, ry = correlation  # type: ignore[misc]
-        length, cross_a = bucket_terms(ends, rates.a, expiry)
-        _, cross_b = bucket_terms(ends, rates.b, expiry)
-        return length, [(rx * rates.sigma, cross_a), (ry * rates.eta, cross_b)]
-    length, cross = bucket_terms(ends, rates.mean_reversion, expiry)
-    return length, [(correlation * rates.volatility, cross)]  # type: ignore[operator]
+    ``2 sum_(w, k) w sum_j s_j k_j``: one ``(rho_f s_f, phi2(k_f; .) increments)`` per rate
+    factor (:meth:`pqflow.models.rates.RatesModel.equity_loadings`). Arrays of shape
+    ``expiry.shape + (n,)``."""
+    pieces = [(weight, bucket_terms(ends, rate, expiry)) for weight, rate in rates.equity_loadings(correlation)]
+    length = pieces[0][1][0]  # the overlaps do not depend on the rate
+    return length, [(weight, cross) for weight, (_, cross) in pieces]
 
 
 def cross_variance(
@@ -155,15 +126,13 @@ def cross_variance(
     return 2.0 * sum(w * np.sum(vols[cut] * k[..., cut], axis=-1) for w, k in terms)
 
 
-def rate_variance(rates: RateParams, t: np.ndarray | float) -> np.ndarray:
+def rate_variance(rates: RatesModel, t: np.ndarray | float) -> np.ndarray:
     """Variance of ``int_0^T (r - E r)``: ``V(T)`` of the rate model."""
-    if isinstance(rates, G2PlusPlusParams):
-        return g2pp.integrated_variance(rates, t)
-    return integrated_variance(rates, t)
+    return rates.integrated_variance(t)
 
 
 def forward_variance(
-    rates: HullWhiteParams | G2PlusPlusParams,
+    rates: RatesModel,
     bucket_ends: np.ndarray,
     volatilities: np.ndarray,
     correlation: float | tuple[float, float],
@@ -182,19 +151,10 @@ def forward_variance(
     if np.any(~np.isfinite(t)) or np.any(t < 0.0):
         raise ValueError("expiries must be finite and not negative")
     correlation = checked_correlation(rates, correlation, strict=False)
-    ends = np.asarray(bucket_ends, dtype=float)
-    if isinstance(rates, G2PlusPlusParams):
-        length, terms = rate_terms(rates, correlation, ends, t)
-        s = np.asarray(volatilities, dtype=float)
-        equity = np.sum(s**2 * length, axis=-1)
-        return equity + cross_variance(terms, s) + rate_variance(rates, t)
-    if not -1.0 <= correlation <= 1.0:  # type: ignore[operator]
-        raise ValueError("correlation must lie in [-1, 1]")
-    length, cross = bucket_terms(ends, rates.mean_reversion, t)
+    length, terms = rate_terms(rates, correlation, np.asarray(bucket_ends, dtype=float), t)
     s = np.asarray(volatilities, dtype=float)
     equity = np.sum(s**2 * length, axis=-1)
-    mixed = 2.0 * correlation * rates.volatility * np.sum(s * cross, axis=-1)
-    return equity + mixed + integrated_variance(rates, t)
+    return equity + cross_variance(terms, s) + rate_variance(rates, t)
 
 
 
