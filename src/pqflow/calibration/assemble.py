@@ -78,7 +78,7 @@ from pqflow.models.equity import EquityParams
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.heston import HestonIndex
 from pqflow.models.hull_white import HullWhiteParams
-from pqflow.models.rates import RatesModel, rates_from_json
+from pqflow.models.rates import RatesModel, as_short_rate_params, rates_from_json
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.jsonio import read_json
 from pqflow.storage.parquet import file_sha256
@@ -153,27 +153,28 @@ class Calibration:
         times = np.arange(0.0, np.floor(top) + 1.0)
         if times[-1] < top:
             times = np.append(times, top)
+        rates = as_short_rate_params(self.rates)
         out: dict[str, Any] = {
             "time": times.tolist(),
             "market_consistent": expected_short_rate(
-                self.curve, self.rates, self.prices_of_risk, times, measure="market_consistent"
+                self.curve, rates, self.prices_of_risk, times, measure="market_consistent"
             ).tolist(),
             "real_world": expected_short_rate(
-                self.curve, self.rates, self.prices_of_risk, times, measure="real_world"
+                self.curve, rates, self.prices_of_risk, times, measure="real_world"
             ).tolist(),
         }
         view = self.real_world_view
         if view.get("kind") == "path":
             target, maturity = view["target"], view.get("target_maturity")
             top_t = times if target == "short_rate" else times[times + maturity <= self.curve.max_maturity]
-            mean_p = real_world_factor_mean(self.rates, self.prices_of_risk.rates_schedule, top_t)
+            mean_p = real_world_factor_mean(rates, self.prices_of_risk.rates_schedule, top_t)
             out["target"] = {
                 "quantity": target if target == "short_rate" else f"zero yield, {maturity:g} years (continuous)",
                 "time": top_t.tolist(),
                 "house_view": target_path(view["start"], view["long_run_level"], view["speed"], top_t).tolist(),
-                "real_world": model_target_value(self.curve, self.rates, top_t, mean_p, target=target, maturity=maturity).tolist(),
+                "real_world": model_target_value(self.curve, rates, top_t, mean_p, target=target, maturity=maturity).tolist(),
                 "market_consistent": model_target_value(
-                    self.curve, self.rates, top_t, self._zero_factor_mean(top_t), target=target, maturity=maturity
+                    self.curve, rates, top_t, self._zero_factor_mean(top_t), target=target, maturity=maturity
                 ).tolist(),
             }
         return out
@@ -571,8 +572,9 @@ def _equity_vol(
 
 
 def _real_world(
-    config: RunConfig, curve: DiscountCurve, hw: HullWhiteParams, vol: float | PiecewiseConstant
+    config: RunConfig, curve: DiscountCurve, rates: RatesModel, vol: float | PiecewiseConstant
 ) -> tuple[PricesOfRisk, dict[str, Any]]:
+    hw = as_short_rate_params(rates)
     rw = config.real_world
     horizon = config.simulation.max_horizon_years
     view: dict[str, Any]

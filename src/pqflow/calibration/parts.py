@@ -187,10 +187,12 @@ def driver_correlation(config: RunConfig, rates: RatesModel | None = None) -> tu
     sub = np.array(matrix[np.ix_(pick, pick)], dtype=float)
     sub = 0.5 * (sub + sub.T)
     np.fill_diagonal(sub, 1.0)
-    for (a, b), fixed in (rates.fixed_correlations() if rates is not None else {}).items():
+    fixed_pairs = rates.fixed_correlations() if rates is not None else {}
+    label = rates.label if rates is not None else ""
+    for (a, b), fixed in fixed_pairs.items():
         i, j = needed.index(a), needed.index(b)
         fit[f"{a}_{b}"] = {"from_matrix": float(sub[i, j]), "used": fixed,
-                           "note": f"the {rates.label} rho of the rates fit replaces the matrix entry"}
+                           "note": f"the {label} rho of the rates fit replaces the matrix entry"}
         sub[i, j] = sub[j, i] = fixed
     if np.linalg.eigvalsh(sub)[0] <= 1e-10:
         raise MarketDataError(

@@ -11,7 +11,7 @@ Gaussian short-rate model is one class implementing it plus one line in :data:`R
 
 from __future__ import annotations
 
-from typing import Any, ClassVar, Protocol
+from typing import Any, ClassVar, Protocol, cast
 
 import numpy as np
 
@@ -20,7 +20,7 @@ from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.schedule import PiecewiseConstant
 
-__all__ = ["RatesModel", "RATES_MODELS", "RATES_DRIVERS", "rates_from_json"]
+__all__ = ["RatesModel", "RATES_MODELS", "RATES_DRIVERS", "rates_from_json", "as_short_rate_params"]
 
 
 class RatesModel(Protocol):
@@ -102,6 +102,13 @@ RATES_MODELS: dict[str, type[HullWhiteParams] | type[G2PlusPlusParams]] = {
 
 #: The drivers of each rates model, by key.
 RATES_DRIVERS: dict[str, tuple[str, ...]] = {key: cls.drivers for key, cls in RATES_MODELS.items()}
+
+
+def as_short_rate_params(rates: RatesModel) -> HullWhiteParams | G2PlusPlusParams:
+    """``rates`` typed as one of the two parameter classes, for the functions of
+    :mod:`pqflow.measure.house_view` and :mod:`pqflow.measure.prices_of_risk`, which still solve
+    the real-world view model by model (a static type only: nothing is checked or converted)."""
+    return cast("HullWhiteParams | G2PlusPlusParams", rates)
 
 
 def rates_from_json(parameters: dict[str, Any]) -> RatesModel:
