@@ -23,6 +23,7 @@ import math
 
 import numpy as np
 import pytest
+from oracles.hull_white_equity import HullWhiteEquityModel, equity_column
 from scipy.integrate import quad
 from scipy.stats import norm
 
@@ -32,7 +33,7 @@ from pqflow.measure.prices_of_risk import PricesOfRisk, expected_short_rate
 from pqflow.models.base import StepLaw
 from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams, b_factor
-from pqflow.models.hull_white_equity import HullWhiteEquityModel, bond_column, equity_column
+from pqflow.models.hull_white_equity import bond_column
 from pqflow.simulation.engine import simulate_batch
 
 __all__: list[str] = []

@@ -10,6 +10,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from oracles.g2pp_equity import G2EquityParams, G2PlusPlusEquityModel, G2PricesOfRisk
+from oracles.hull_white_equity import HullWhiteEquityModel
+from oracles.jarrow_yildirim import InflationPricesOfRisk, JarrowYildirimModel
 from scipy.stats import norm
 
 from pqflow.market.curve import LogDiscountCurve
@@ -17,10 +20,8 @@ from pqflow.measure.prices_of_risk import PricesOfRisk
 from pqflow.models.economy import EconomyModel, InflationPart, TotalReturnIndex
 from pqflow.models.equity import EquityParams
 from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.g2pp_equity import G2EquityParams, G2PlusPlusEquityModel, G2PricesOfRisk
 from pqflow.models.hull_white import HullWhiteParams
-from pqflow.models.hull_white_equity import HullWhiteEquityModel
-from pqflow.models.jarrow_yildirim import InflationPricesOfRisk, JarrowYildirimModel, JarrowYildirimParams
+from pqflow.models.jarrow_yildirim import JarrowYildirimParams
 from pqflow.models.schedule import PiecewiseConstant
 
 PILLARS = np.arange(1, 80 * 12 + 1) / 12.0

@@ -18,6 +18,12 @@ import math
 import numpy as np
 import pytest
 import QuantLib as ql
+from oracles.g2pp_equity import (
+    G2EquityParams,
+    G2PlusPlusEquityModel,
+    G2PricesOfRisk,
+    equity_option_price,
+)
 from scipy.integrate import quad
 
 from pqflow.calibration.g2pp_swaptions import g2pp_swaption_price
@@ -32,12 +38,6 @@ from pqflow.models import g2pp
 from pqflow.models.equity import EquityParams
 from pqflow.models.equity import equity_option_price as hw_equity_option_price
 from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.g2pp_equity import (
-    G2EquityParams,
-    G2PlusPlusEquityModel,
-    G2PricesOfRisk,
-    equity_option_price,
-)
 from pqflow.models.hull_white import HullWhiteParams
 
 __all__: list[str] = []

@@ -5,17 +5,17 @@ G2++ (Brigo and Mercurio, *Interest Rate Models - Theory and Practice*, 2nd ed.,
 ``dW1 dW2 = rho dt``; the equity shock ``Z`` has correlations ``(rho_xS, rho_yS)`` with
 ``(W1, W2)``. References used below:
 
-* the equity option closed form :func:`pqflow.models.g2pp_equity.equity_option_price` (itself
+* the equity option closed form :func:`oracles.g2pp_equity.equity_option_price` (itself
   checked against QuantLib and quadrature in ``tests/test_g2pp_transition.py``) and Black's
   (1976) formula on the forward written out here;
 * the T-forward variance of ``ln(S_T e^{-qT} / P(T,T))`` by ``scipy.integrate.quad`` of its
   variance rate, from the martingale part ``sigma_S dZ + sigma B_a(T-t) dW1 + eta B_b(T-t) dW2``
   (``dP/P = r dt - sigma B_a dW1 - eta B_b dW2``, Brigo and Mercurio 2006, ch. 4.2) and the Ito
   isometry;
-* the closed-form real-world means :func:`pqflow.models.g2pp_equity.expected_short_rate` and
-  :func:`pqflow.models.g2pp_equity.real_world_factor_means` (checked against quadrature in
+* the closed-form real-world means :func:`oracles.g2pp_equity.expected_short_rate` and
+  :func:`oracles.g2pp_equity.real_world_factor_means` (checked against quadrature in
   ``tests/test_g2pp_transition.py``), with ``lambda_x = lambda_y = lambda``;
-* simulation with :class:`pqflow.models.g2pp_equity.G2PlusPlusEquityModel` and
+* simulation with :class:`oracles.g2pp_equity.G2PlusPlusEquityModel` and
   :func:`pqflow.simulation.engine.simulate_batch` under the real-world measure. Monte Carlo
   tolerances: 4 standard errors, fixed seeds. The paths are not antithetic: the short rate and
   the zero yield are linear in the normals, so an antithetic pair average is the exact mean and
@@ -28,6 +28,8 @@ import math
 
 import numpy as np
 import pytest
+from oracles import g2pp_equity
+from oracles.g2pp_equity import G2EquityParams, G2PlusPlusEquityModel, G2PricesOfRisk
 from scipy.integrate import quad
 from scipy.stats import norm
 
@@ -52,9 +54,7 @@ from pqflow.measure.prices_of_risk import (
     rates_price_of_risk_for_target,
     real_world_factor_mean,
 )
-from pqflow.models import g2pp_equity
 from pqflow.models.g2pp import G2PlusPlusParams, phi, zcb_price
-from pqflow.models.g2pp_equity import G2EquityParams, G2PlusPlusEquityModel, G2PricesOfRisk
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.schedule import PiecewiseConstant
 from pqflow.simulation.engine import simulate_batch
@@ -142,7 +142,7 @@ def test_g2_bootstrap_reprices_every_quote_in_the_g2pp_closed_form(rx, ry):
         fwd = S0 * math.exp(-Q_DIV * t) / df
         k = fwd if strike is None else strike
         for kind in ("call", "put"):
-            # Reference: pqflow.models.g2pp_equity.equity_option_price (independent closed form,
+            # Reference: oracles.g2pp_equity.equity_option_price (independent closed form,
             # QuantLib-checked) with the bootstrapped schedule vs Black (1976) at the quoted vol.
             model = g2pp_equity.equity_option_price(CURVE, G2, equity, expiry=t, strike=k, kind=kind)
             assert model == pytest.approx(_black(fwd, k, vol, t, df, kind), rel=1e-10)

@@ -32,12 +32,7 @@ import math
 import numpy as np
 import pytest
 from conftest import assert_gaussian_moments, mean_within_se
-from scipy.integrate import quad
-
-from pqflow.market.curve import LogDiscountCurve
-from pqflow.models.base import ScenarioModel
-from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.g2pp_equity import (
+from oracles.g2pp_equity import (
     G2EquityParams,
     G2PlusPlusEquityModel,
     G2PricesOfRisk,
@@ -45,6 +40,11 @@ from pqflow.models.g2pp_equity import (
     expected_short_rate,
     real_world_factor_means,
 )
+from scipy.integrate import quad
+
+from pqflow.market.curve import LogDiscountCurve
+from pqflow.models.base import ScenarioModel
+from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.schedule import PiecewiseConstant
 from pqflow.simulation.engine import simulate_batch
 

@@ -36,14 +36,13 @@ import numpy as np
 import pytest
 import QuantLib as ql
 from conftest import assert_gaussian_moments, mean_within_se
+from oracles.jarrow_yildirim import InflationPricesOfRisk, JarrowYildirimModel
 from scipy.integrate import quad
 
 from pqflow.market.curve import LogDiscountCurve
 from pqflow.models.base import ScenarioModel
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.jarrow_yildirim import (
-    InflationPricesOfRisk,
-    JarrowYildirimModel,
     JarrowYildirimParams,
     yoy_cap_price,
     yoy_caplet_price,

@@ -266,7 +266,7 @@ def _g2_matrix() -> list[list[float]]:
 def test_g2pp_runs_the_whole_balance_sheet_and_reconciles_in_closed_form(tmp_path, demo_config_dict):
     """G2++ selected in the configuration: every check passes, the reconciliation's closed form
     is the G2++ one (Brigo and Mercurio 2006, ch. 4.2 and the equity extension of
-    pqflow.models.g2pp_equity, checked against quadrature in tests/test_g2pp_transition.py), and
+    oracles.g2pp_equity, checked against quadrature in tests/test_g2pp_transition.py), and
     the real-world expected short rate meets the target year's rate (house view)."""
     from pipeline import run_in_process
     from pqflow.storage.jsonio import read_json

@@ -13,12 +13,12 @@ from __future__ import annotations
 import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from oracles.hull_white_equity import HullWhiteEquityModel
 
 from pqflow.market.curve import LogDiscountCurve
 from pqflow.measure.prices_of_risk import PricesOfRisk
 from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams
-from pqflow.models.hull_white_equity import HullWhiteEquityModel
 from pqflow.models.schedule import PiecewiseConstant
 
 CURVE = LogDiscountCurve.from_zero_rates(

@@ -31,13 +31,13 @@ import math
 import numpy as np
 import pytest
 from conftest import assert_gaussian_moments
+from oracles.hull_white_equity import HullWhiteEquityModel, equity_column
 from scipy.integrate import quad
 
 from pqflow.market.curve import LogDiscountCurve
 from pqflow.measure.prices_of_risk import PricesOfRisk
 from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams
-from pqflow.models.hull_white_equity import HullWhiteEquityModel, equity_column
 from pqflow.simulation.engine import simulate_batch
 
 __all__: list[str] = []

@@ -69,16 +69,16 @@ from pqflow.measure.prices_of_risk import (
     PricesOfRisk,
     equity_price_of_risk,
     expected_short_rate,
-    g2_driver_weights,
     rates_price_of_risk_for_target,
     real_world_factor_mean,
 )
 from pqflow.models.cir_credit import CirCreditModel
-from pqflow.models.economy import RATES_DRIVERS, EconomyModel, InflationPart, TotalReturnIndex
+from pqflow.models.economy import EconomyModel, InflationPart, TotalReturnIndex
 from pqflow.models.equity import EquityParams
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.heston import HestonIndex
 from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.rates import RatesModel, as_short_rate_params, rates_from_json
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.jsonio import read_json
 from pqflow.storage.parquet import file_sha256
@@ -97,7 +97,7 @@ class Calibration:
 
     valuation_date: str
     curve: DiscountCurve
-    rates: HullWhiteParams
+    rates: RatesModel
     equity: EquityParams
     prices_of_risk: PricesOfRisk
     inputs: dict[str, Any]
@@ -128,7 +128,7 @@ class Calibration:
 
     @property
     def rates_model(self) -> str:
-        return "g2pp" if isinstance(self.rates, G2PlusPlusParams) else "hull_white"
+        return self.rates.model
 
     @property
     def equity_rates_correlation(self) -> float | tuple[float, float]:
@@ -145,8 +145,7 @@ class Calibration:
     def _zero_factor_mean(self, t: np.ndarray) -> np.ndarray | tuple[np.ndarray, np.ndarray]:
         """The market-consistent mean of the rate factor(s) (zero), in the form the house-view
         functions take: one array (Hull-White) or a pair (G2++)."""
-        z = np.zeros_like(t)
-        return (z, z.copy()) if isinstance(self.rates, G2PlusPlusParams) else z
+        return self.rates.zero_factor_mean(t)
 
     def expected_paths(self) -> dict[str, Any]:
         """Expected short rate (and the house-view target) under both measures, yearly."""
@@ -154,27 +153,28 @@ class Calibration:
         times = np.arange(0.0, np.floor(top) + 1.0)
         if times[-1] < top:
             times = np.append(times, top)
+        rates = as_short_rate_params(self.rates)
         out: dict[str, Any] = {
             "time": times.tolist(),
             "market_consistent": expected_short_rate(
-                self.curve, self.rates, self.prices_of_risk, times, measure="market_consistent"
+                self.curve, rates, self.prices_of_risk, times, measure="market_consistent"
             ).tolist(),
             "real_world": expected_short_rate(
-                self.curve, self.rates, self.prices_of_risk, times, measure="real_world"
+                self.curve, rates, self.prices_of_risk, times, measure="real_world"
             ).tolist(),
         }
         view = self.real_world_view
         if view.get("kind") == "path":
             target, maturity = view["target"], view.get("target_maturity")
             top_t = times if target == "short_rate" else times[times + maturity <= self.curve.max_maturity]
-            mean_p = real_world_factor_mean(self.rates, self.prices_of_risk.rates_schedule, top_t)
+            mean_p = real_world_factor_mean(rates, self.prices_of_risk.rates_schedule, top_t)
             out["target"] = {
                 "quantity": target if target == "short_rate" else f"zero yield, {maturity:g} years (continuous)",
                 "time": top_t.tolist(),
                 "house_view": target_path(view["start"], view["long_run_level"], view["speed"], top_t).tolist(),
-                "real_world": model_target_value(self.curve, self.rates, top_t, mean_p, target=target, maturity=maturity).tolist(),
+                "real_world": model_target_value(self.curve, rates, top_t, mean_p, target=target, maturity=maturity).tolist(),
                 "market_consistent": model_target_value(
-                    self.curve, self.rates, top_t, self._zero_factor_mean(top_t), target=target, maturity=maturity
+                    self.curve, rates, top_t, self._zero_factor_mean(top_t), target=target, maturity=maturity
                 ).tolist(),
             }
         return out
@@ -190,7 +190,7 @@ class Calibration:
             "parameters": {
                 "curve": curve_to_json(self.curve),
                 "rates_model": self.rates_model,
-                **_rates_json(self.rates),
+                **self.rates.to_json(),
                 "equity": {
                     "name": self.equity.name,
                     "level": self.equity.level,
@@ -236,28 +236,11 @@ class Calibration:
         return out
 
 
-def short_rate_correlation(rates: HullWhiteParams | G2PlusPlusParams, rho: float | tuple[float, float]) -> float:
+def short_rate_correlation(rates: RatesModel, rho: float | tuple[float, float]) -> float:
     """Correlation of an index's shock with the short-rate shock: ``rho`` under Hull-White; under
     G2++ ``(rho_x sigma + rho_y eta) / sqrt(sigma^2 + eta^2 + 2 rho sigma eta)`` (``dr`` loads
-    ``sigma dW1 + eta dW2``)."""
-    if isinstance(rates, HullWhiteParams):
-        assert not isinstance(rho, tuple)
-        return float(rho)
-    assert isinstance(rho, tuple)
-    s, e = rates.sigma, rates.eta
-    return float((rho[0] * s + rho[1] * e) / np.sqrt(s * s + e * e + 2.0 * rates.rho * s * e))
-
-
-def _rates_json(rates: HullWhiteParams | G2PlusPlusParams) -> dict[str, Any]:
-    if isinstance(rates, G2PlusPlusParams):
-        return {"g2pp": {"a": rates.a, "sigma": rates.sigma, "b": rates.b, "eta": rates.eta, "rho": rates.rho}}
-    return {"hull_white": {"mean_reversion": rates.mean_reversion, "volatility": rates.volatility}}
-
-
-def _rates_from_json(par: dict[str, Any]) -> HullWhiteParams | G2PlusPlusParams:
-    if "g2pp" in par:
-        return G2PlusPlusParams(**{k: float(v) for k, v in par["g2pp"].items()})
-    return HullWhiteParams(mean_reversion=par["hull_white"]["mean_reversion"], volatility=par["hull_white"]["volatility"])
+    ``sigma dW1 + eta dW2``); :meth:`pqflow.models.rates.RatesModel.short_rate_correlation`."""
+    return rates.short_rate_correlation(rho)
 
 
 def _parts_from_json(par: dict[str, Any]) -> dict[str, Any]:
@@ -295,7 +278,7 @@ def load_calibration(path: str | Path) -> Calibration:
             valuation_date=data["valuation_date"],
             horizon_years=float(data["horizon_years"]),
             curve=curve_from_json(par["curve"]),
-            rates=_rates_from_json(par),
+            rates=rates_from_json(par),
             equity=EquityParams(
                 name=par["equity"]["name"],
                 level=par["equity"]["level"],
@@ -589,8 +572,9 @@ def _equity_vol(
 
 
 def _real_world(
-    config: RunConfig, curve: DiscountCurve, hw: HullWhiteParams, vol: float | PiecewiseConstant
+    config: RunConfig, curve: DiscountCurve, rates: RatesModel, vol: float | PiecewiseConstant
 ) -> tuple[PricesOfRisk, dict[str, Any]]:
+    hw = as_short_rate_params(rates)
     rw = config.real_world
     horizon = config.simulation.max_horizon_years
     view: dict[str, Any]
@@ -724,19 +708,10 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     )
 
 
-def _rates_prices_of_risk(
-    rates: HullWhiteParams | G2PlusPlusParams, lam: float | PiecewiseConstant
-) -> dict[str, float | PiecewiseConstant]:
+def _rates_prices_of_risk(rates: RatesModel, lam: float | PiecewiseConstant) -> dict[str, float | PiecewiseConstant]:
     """The rates price of risk by driver: on ``rates`` (Hull-White), or split between ``rates_x``
     and ``rates_y`` as the price of the short-rate shock (G2++, :func:`g2_driver_weights`)."""
-    if isinstance(rates, HullWhiteParams):
-        return {RATES_DRIVER: lam}
-    w = g2_driver_weights(rates)
-    sched = as_schedule(lam)
-    return {
-        name: PiecewiseConstant(knots=sched.knots, values=tuple(wi * v for v in sched.values))
-        for name, wi in zip(RATES_DRIVERS["g2pp"], w)
-    }
+    return rates.split_price_of_risk(lam)
 
 
 def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) -> EconomyModel:

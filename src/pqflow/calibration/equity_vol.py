@@ -74,9 +74,14 @@ import numpy as np
 from pqflow.calibration.formulas import black_implied_vol, black_price
 from pqflow.errors import MarketDataError
 from pqflow.market.curve import DiscountCurve
-from pqflow.models import g2pp
-from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.hull_white import HullWhiteParams, integrated_variance, phi2
+from pqflow.models.equity import (
+    checked_correlation,
+    cross_variance,
+    forward_variance,
+    rate_terms,
+    rate_variance,
+)
+from pqflow.models.rates import RatesModel
 
 __all__ = [
     "PiecewiseEquityVolatility",
@@ -87,12 +92,6 @@ __all__ = [
     "equity_option_price_piecewise",
     "calibrate_equity_volatility",
 ]
-
-#: The rate models the bootstrap supports, and the matching equity-rate correlation: one number
-#: (with the short-rate shock) under Hull-White, the pair ``(rho_xS, rho_yS)`` under G2++.
-RateParams = HullWhiteParams | G2PlusPlusParams
-EquityRateCorrelation = float | tuple[float, float]
-
 
 @dataclass(frozen=True, kw_only=True)
 class PiecewiseEquityVolatility:
@@ -132,137 +131,22 @@ class PiecewiseEquityVolatility:
         return self.volatilities[np.minimum(idx, self.volatilities.size - 1)]
 
 
-def _bucket_terms(
-    ends: np.ndarray, a: float, expiry: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """Per bucket, for each expiry: the length of its overlap with ``[0, T]`` and
-    ``int_{lo}^{hi} B(T - u) du``; both shape ``expiry.shape + (n,)``."""
-    t = expiry[..., None]
-    starts = np.concatenate(([0.0], ends[:-1]))
-    lo = np.minimum(starts, t)
-    hi = np.minimum(ends, t)
-    hi = np.concatenate((hi[..., :-1], np.broadcast_to(t, t.shape)), axis=-1)  # flat after last
-    lo = np.minimum(lo, hi)
-    length = hi - lo
-    cross = phi2(a, t - lo) - phi2(a, t - hi)
-    return length, cross
-
-
-def _checked_correlation(
-    rates: RateParams, correlation: EquityRateCorrelation, *, strict: bool
-) -> EquityRateCorrelation:
-    """The correlation in the form ``rates`` needs: one number (Hull-White) or the pair
-    ``(rho_xS, rho_yS)`` (G2++). With ``strict`` each must lie strictly inside (-1, 1) and the
-    correlation matrix of ``(W1, W2, Z)`` be positive definite, else inside [-1, 1] and positive
-    semi-definite. Hull-White numbers are returned as given (their range is checked by the
-    callers, as before)."""
-    if isinstance(rates, G2PlusPlusParams):
-        if np.ndim(correlation) != 1 or len(correlation) != 2:  # type: ignore[arg-type]
-            raise ValueError(
-                "under G2++ rates the equity correlation must be the pair (rho_xS, rho_yS) of "
-                f"correlations with the factor shocks W1 and W2, not {correlation!r}"
-            )
-        rx, ry = (float(c) for c in correlation)  # type: ignore[union-attr]
-        for label, c in (("rho_xS", rx), ("rho_yS", ry)):
-            ok = -1.0 < c < 1.0 if strict else -1.0 <= c <= 1.0
-            if not ok:
-                where = "strictly inside (-1, 1)" if strict else "in [-1, 1]"
-                raise ValueError(f"equity-rate correlation {label} = {c!r} must lie {where}")
-        matrix = np.array([[1.0, rates.rho, rx], [rates.rho, 1.0, ry], [rx, ry, 1.0]])
-        least = float(np.linalg.eigvalsh(matrix)[0])
-        if (strict and least <= 1e-12) or (not strict and least < -1e-12):
-            kind = "positive definite" if strict else "positive semi-definite"
-            raise ValueError(
-                f"the correlations of (W1, W2, Z) = (rho {rates.rho:g}, rho_xS {rx:g}, rho_yS "
-                f"{ry:g}) do not form a {kind} matrix"
-            )
-        return (rx, ry)
-    if np.ndim(correlation) != 0:
-        raise ValueError(
-            "under Hull-White rates the equity correlation is one number (with the short-rate "
-            f"shock), not {correlation!r}; a pair (rho_xS, rho_yS) goes with G2++ parameters"
-        )
-    return correlation
-
-
-def _rate_terms(
-    rates: RateParams,
-    correlation: EquityRateCorrelation,
-    ends: np.ndarray,
-    expiry: np.ndarray,
-) -> tuple[np.ndarray, list[tuple[float, np.ndarray]]]:
-    """Per bucket, for each expiry: the overlap length with ``[0, T]`` and the cross-term
-    kernels with their weights, ``[(w, k)]``, such that the cross variance is
-    ``2 sum_(w, k) w sum_j s_j k_j``: ``[(rho sigma, phi2(a; .) increments)]`` under Hull-White,
-    ``[(rho_xS sigma, phi2(a; .) incr.), (rho_yS eta, phi2(b; .) incr.)]`` under G2++.
-    Arrays of shape ``expiry.shape + (n,)``."""
-    if isinstance(rates, G2PlusPlusParams):
-        rx, ry = correlation  # type: ignore[misc]
-        length, cross_a = _bucket_terms(ends, rates.a, expiry)
-        _, cross_b = _bucket_terms(ends, rates.b, expiry)
-        return length, [(rx * rates.sigma, cross_a), (ry * rates.eta, cross_b)]
-    length, cross = _bucket_terms(ends, rates.mean_reversion, expiry)
-    return length, [(correlation * rates.volatility, cross)]  # type: ignore[operator]
-
-
-def _cross_variance(
-    terms: list[tuple[float, np.ndarray]], vols: np.ndarray, n: int | None = None
-) -> np.ndarray:
-    """``2 sum_(w, k) w sum_{j < n} s_j k_j`` (all buckets when ``n`` is None)."""
-    cut = slice(None) if n is None else slice(0, n)
-    return 2.0 * sum(w * np.sum(vols[cut] * k[..., cut], axis=-1) for w, k in terms)
-
-
-def _rate_variance(rates: RateParams, t: np.ndarray | float) -> np.ndarray:
-    """Variance of ``int_0^T (r - E r)``: ``V(T)`` of the rate model."""
-    if isinstance(rates, G2PlusPlusParams):
-        return g2pp.integrated_variance(rates, t)
-    return integrated_variance(rates, t)
-
-
-def _describe_rates(rates: RateParams, correlation: EquityRateCorrelation) -> str:
-    if isinstance(rates, G2PlusPlusParams):
-        rx, ry = correlation  # type: ignore[misc]
-        return (
-            f"G2++ a {rates.a:g}, sigma {rates.sigma:g}, b {rates.b:g}, eta {rates.eta:g}, rho "
-            f"{rates.rho:g}, equity correlations rho_xS {rx:g} and rho_yS {ry:g}"
-        )
-    return (
-        f"Hull-White sigma {rates.volatility:g}, a {rates.mean_reversion:g}, correlation "
-        f"{correlation:g}"
-    )
-
-
 def piecewise_equity_total_variance(
-    rates: HullWhiteParams | G2PlusPlusParams,
+    rates: RatesModel,
     volatility: PiecewiseEquityVolatility,
     correlation: float | tuple[float, float],
     expiry: np.ndarray | float,
 ) -> np.ndarray:
     """``v(T)``: variance of ``ln(S_T e^{-qT} / P(T,T))`` under the ``T``-forward measure, for
-    each expiry (any shape; the result has that shape). ``correlation``: one number with
-    Hull-White ``rates``, the pair ``(rho_xS, rho_yS)`` with G2++ ``rates``."""
-    t = np.asarray(expiry, dtype=float)
-    if np.any(~np.isfinite(t)) or np.any(t < 0.0):
-        raise ValueError("expiries must be finite and not negative")
-    correlation = _checked_correlation(rates, correlation, strict=False)
-    if isinstance(rates, G2PlusPlusParams):
-        length, terms = _rate_terms(rates, correlation, volatility.bucket_ends, t)
-        s = volatility.volatilities
-        equity = np.sum(s**2 * length, axis=-1)
-        return equity + _cross_variance(terms, s) + _rate_variance(rates, t)
-    if not -1.0 <= correlation <= 1.0:  # type: ignore[operator]
-        raise ValueError("correlation must lie in [-1, 1]")
-    length, cross = _bucket_terms(volatility.bucket_ends, rates.mean_reversion, t)
-    s = volatility.volatilities
-    equity = np.sum(s**2 * length, axis=-1)
-    mixed = 2.0 * correlation * rates.volatility * np.sum(s * cross, axis=-1)
-    return equity + mixed + integrated_variance(rates, t)
+    each expiry (any shape; the result has that shape): :func:`pqflow.models.equity.forward_variance`
+    on the buckets. ``correlation``: one number with Hull-White ``rates``, the pair
+    ``(rho_xS, rho_yS)`` with G2++ ``rates``."""
+    return forward_variance(rates, volatility.bucket_ends, volatility.volatilities, correlation, expiry)
 
 
 def equity_option_price_piecewise(
     curve: DiscountCurve,
-    rates: HullWhiteParams | G2PlusPlusParams,
+    rates: RatesModel,
     *,
     level: float,
     dividend_yield: float,
@@ -339,7 +223,7 @@ class EquityVolFitReport:
 
     volatility: PiecewiseEquityVolatility
     correlation: float | tuple[float, float]
-    rates: HullWhiteParams | G2PlusPlusParams
+    rates: RatesModel
     rows: tuple[EquityVolFitRow, ...]
     max_abs_vol_error: float
 
@@ -369,7 +253,7 @@ def _positive_root(c2: float, c1: float, c0: float) -> float | None:
 
 def calibrate_equity_volatility(
     curve: DiscountCurve,
-    rates: HullWhiteParams | G2PlusPlusParams,
+    rates: RatesModel,
     *,
     level: float,
     dividend_yield: float,
@@ -386,9 +270,7 @@ def calibrate_equity_volatility(
     """
     if not quotes:
         raise MarketDataError("no equity vol quotes to calibrate to")
-    correlation = _checked_correlation(rates, correlation, strict=True)
-    if not isinstance(rates, G2PlusPlusParams) and not -1.0 < correlation < 1.0:  # type: ignore[operator]
-        raise ValueError("equity-rate correlation must lie strictly inside (-1, 1)")
+    correlation = checked_correlation(rates, correlation, strict=True)
     ordered = sorted(quotes, key=lambda q: q.expiry)
     ends = np.array([q.expiry for q in ordered])
     if np.any(np.diff(ends) <= 0.0):
@@ -404,9 +286,9 @@ def calibrate_equity_volatility(
     starts = np.concatenate(([0.0], ends[:-1]))
     for j, q in enumerate(ordered):
         t = q.expiry
-        length, terms = _rate_terms(rates, correlation, ends[: j + 1], np.asarray(t))
-        known = float(np.sum(vols[:j] ** 2 * length[:j]) + _cross_variance(terms, vols[:j], j))
-        rate_var = float(_rate_variance(rates, t))
+        length, terms = rate_terms(rates, correlation, ends[: j + 1], np.asarray(t))
+        known = float(np.sum(vols[:j] ** 2 * length[:j]) + cross_variance(terms, vols[:j], j))
+        rate_var = float(rate_variance(rates, t))
         market_var = q.implied_vol**2 * t
         c2 = float(length[j])
         c1 = float(sum(w * float(k[j]) for w, k in terms))
@@ -418,7 +300,7 @@ def calibrate_equity_volatility(
                 f"equity vol quote {t:g}y ({q.implied_vol:.4%}): no positive equity volatility "
                 f"on ({starts[j]:g}, {t:g}] reprices it. The market total variance "
                 f"{market_var:.6g} is at or below {floor:.6g}, the least the model reaches with "
-                f"{_describe_rates(rates, correlation)} and the earlier buckets: the quote is "
+                f"{rates.describe_with_equity(correlation)} and the earlier buckets: the quote is "
                 "inconsistent with the rate volatility"
             )
         vols[j] = s
@@ -437,14 +319,14 @@ def calibrate_equity_volatility(
             volatility=volatility, expiry=t, strike=k, kind=kind,
         ))
         model_vol = float(black_implied_vol(model_price, fwd, k, t, annuity=df, kind=kind))
-        length, terms = _rate_terms(rates, correlation, ends, np.asarray(t))
+        length, terms = rate_terms(rates, correlation, ends, np.asarray(t))
         rows.append(EquityVolFitRow(
             expiry=t, strike=float(k), market_vol=q.implied_vol, model_vol=model_vol,
             vol_error=model_vol - q.implied_vol, market_price=market_price,
             model_price=model_price,
             equity_variance=float(np.sum(vols**2 * length)),
-            cross_variance=float(_cross_variance(terms, vols)),
-            rate_variance=float(_rate_variance(rates, t)),
+            cross_variance=float(cross_variance(terms, vols)),
+            rate_variance=float(rate_variance(rates, t)),
         ))
     return EquityVolFitReport(
         volatility=volatility,

@@ -144,7 +144,7 @@ def _pricing_label(rates, correlation, p: HestonParams, expiry: float) -> str:
     if rates is None:
         return "deterministic rates (exact)"
     exact = rate_log_cf_variance(p, rates, correlation, expiry)[1]
-    name = "G2++" if isinstance(rates, G2PlusPlusParams) else "Hull-White"
+    name = rates.label
     if exact:
         return f"{name} rates uncorrelated with the index (exact characteristic function)"
     return f"{name} rates correlated with the index (H1-HW approximation, Grzelak and Oosterlee 2011)"

@@ -38,7 +38,7 @@ def recoverable_drivers(config: RunConfig, rates) -> tuple[str, ...]:
     """The Gaussian drivers whose increments a Heston index can read from the economy's columns
     (:mod:`pqflow.simulation.heston_part`): the Hull-White driver and every deterministic-
     volatility index."""
-    out = [] if isinstance(rates, G2PlusPlusParams) else [RATES_DRIVER]
+    out = list(rates.recoverable_drivers)
     if config.equity.volatility_model != "heston":
         out.append(config.equity.name)
     out += [i.name for i in config.indices if i.volatility_model != "heston"]
@@ -107,7 +107,8 @@ def fit_heston_indices(
         if not mine:
             raise MarketDataError(f"{path}: no implied volatilities for index {name!r} (volatility_model = \"heston\")")
         loadings, explained = projection(name, correlation, recoverable_drivers(config, rates), corr_source)
-        rho_r = 0.0 if isinstance(rates, G2PlusPlusParams) else float(correlation.with_rates(name))
+        # the simulation reads back only the recoverable rate drivers: with none, no rate correlation
+        rho_r = float(correlation.with_rates(name)) if rates.recoverable_drivers else 0.0
         # the leverage correlation can only be what the Gaussian drivers leave: rho^2 < 1 - explained
         room = float(np.sqrt(max(1.0 - explained, 0.0))) - 0.01
         lo_i, hi_i = list(bounds.lower), list(bounds.upper)

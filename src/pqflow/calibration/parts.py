@@ -52,9 +52,9 @@ from pqflow.measure.cir_density import price_of_risk_for_long_run_mean
 from pqflow.measure.prices_of_risk import equity_price_of_risk
 from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve, real_world_cir
 from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER, InflationPart, TotalReturnIndex
-from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.jarrow_yildirim import JarrowYildirimParams
+from pqflow.models.rates import RatesModel
 from pqflow.models.schedule import PiecewiseConstant
 
 __all__ = [
@@ -167,7 +167,7 @@ def _checked_matrix(config: RunConfig) -> tuple[tuple[str, ...], np.ndarray, str
     return tuple(names), np.asarray(matrix, dtype=float), where, fit
 
 
-def driver_correlation(config: RunConfig, rates: HullWhiteParams | G2PlusPlusParams | None = None) -> tuple[DriverCorrelation, dict[str, Any]]:
+def driver_correlation(config: RunConfig, rates: RatesModel | None = None) -> tuple[DriverCorrelation, dict[str, Any]]:
     """The correlation of every configured driver, from its one source, checked. Under G2++
     the ``(rates_x, rates_y)`` entry is the model's ``rho`` (typed in or fitted to swaptions),
     whatever the matrix says."""
@@ -187,10 +187,13 @@ def driver_correlation(config: RunConfig, rates: HullWhiteParams | G2PlusPlusPar
     sub = np.array(matrix[np.ix_(pick, pick)], dtype=float)
     sub = 0.5 * (sub + sub.T)
     np.fill_diagonal(sub, 1.0)
-    if isinstance(rates, G2PlusPlusParams):
-        fit["rates_x_rates_y"] = {"from_matrix": float(sub[0, 1]), "used": rates.rho,
-                                  "note": "the G2++ rho of the rates fit replaces the matrix entry"}
-        sub[0, 1] = sub[1, 0] = rates.rho
+    fixed_pairs = rates.fixed_correlations() if rates is not None else {}
+    label = rates.label if rates is not None else ""
+    for (a, b), fixed in fixed_pairs.items():
+        i, j = needed.index(a), needed.index(b)
+        fit[f"{a}_{b}"] = {"from_matrix": float(sub[i, j]), "used": fixed,
+                           "note": f"the {label} rho of the rates fit replaces the matrix entry"}
+        sub[i, j] = sub[j, i] = fixed
     if np.linalg.eigvalsh(sub)[0] <= 1e-10:
         raise MarketDataError(
             f"{where}: the correlations of the configured drivers {list(needed)} are singular (a pair or "
@@ -269,7 +272,7 @@ def fit_index_volatility(
     kind: str,
     rows: list[EquityVolRow],
     curve: DiscountCurve,
-    rates: HullWhiteParams | G2PlusPlusParams,
+    rates: RatesModel,
     rho_rates: float | tuple[float, float],
     level: float,
     q: float,
@@ -295,7 +298,7 @@ def fit_index_volatility(
     schedule = PiecewiseConstant(knots=(0.0, *ends[:-1].tolist()), values=tuple(vols.tolist()))
     fit = {
         "method": "piecewise-constant volatility, bootstrapped bucket by bucket to reprice each implied "
-        f"volatility exactly under {'G2++' if isinstance(rates, G2PlusPlusParams) else 'Hull-White'} rates (closed form)",
+        f"volatility exactly under {rates.label} rates (closed form)",
         "bucket_ends": ends.tolist(),
         "bucket_volatilities": vols.tolist(),
         "max_abs_vol_error": report.max_abs_vol_error,
@@ -310,7 +313,7 @@ def fit_index_volatility(
 
 
 def calibrate_index(
-    config: RunConfig, section: IndexSection, curve: DiscountCurve, hw: HullWhiteParams | G2PlusPlusParams,
+    config: RunConfig, section: IndexSection, curve: DiscountCurve, hw: RatesModel,
     rho_rates: float | tuple[float, float],
 ) -> tuple[TotalReturnIndex, float | PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
     """One further index: its parameters, real-world price of risk, fit report and option quotes."""
@@ -386,7 +389,7 @@ def _flat_breakeven_curve(nominal: DiscountCurve, maturities: np.ndarray, rates:
 def calibrate_inflation(
     config: RunConfig,
     curve: DiscountCurve,
-    rates: HullWhiteParams | G2PlusPlusParams,
+    rates: RatesModel,
     correlation: DriverCorrelation,
 ) -> tuple[InflationPart, dict[str, float], dict[str, Any], list[dict[str, Any]]]:
     """The inflation part, its prices of risk (by driver), the fit report and the year-on-year

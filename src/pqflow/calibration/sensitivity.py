@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Callable
 from dataclasses import replace
 from typing import Any
 
@@ -24,8 +25,7 @@ from pqflow.calibration.parts import calibrate_inflation
 from pqflow.calibration.swaptions import forward_swap_rate, hull_white_swaption_price
 from pqflow.config.schema import RunConfig
 from pqflow.market.curve import DiscountCurve
-from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.rates import RatesModel
 
 __all__ = ["curve_only_calibration"]
 
@@ -70,12 +70,16 @@ def curve_only_calibration(base: Calibration, config: RunConfig) -> Calibration:
     )
 
 
+#: The closed-form swaption price of each rates model, by its key (Jamshidian's decomposition, G2++'s integral).
+_SWAPTION_PRICE: dict[str, Callable[..., float]] = {"hull_white": hull_white_swaption_price, "g2pp": g2pp_swaption_price}
+
+
 def _model_swaptions(
-    quotes: list[dict[str, Any]], curve: DiscountCurve, rates: HullWhiteParams | G2PlusPlusParams
+    quotes: list[dict[str, Any]], curve: DiscountCurve, rates: RatesModel
 ) -> list[dict[str, Any]]:
     """The base swaptions at the money on ``curve``, priced by the kept rates model (Jamshidian's
     decomposition, or G2++'s integral); no market quote."""
-    price = g2pp_swaption_price if isinstance(rates, G2PlusPlusParams) else hull_white_swaption_price
+    price = _SWAPTION_PRICE[rates.model]
     out = []
     for q in quotes:
         expiry, tenor = float(q["expiry"]), float(q["tenor"])

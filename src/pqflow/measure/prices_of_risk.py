@@ -104,9 +104,7 @@ def rates_price_of_risk_for_target(
 def g2_driver_weights(params: G2PlusPlusParams) -> tuple[float, float]:
     """``(w_x, w_y)``: the rates price of risk ``lambda`` shifts ``W1`` by ``w_x lambda`` and ``W2``
     by ``w_y lambda`` (module docstring: the price of the short-rate shock)."""
-    s, e, rho = params.sigma, params.eta, params.rho
-    s_r = float(np.sqrt(s * s + e * e + 2.0 * rho * s * e))
-    return (s + rho * e) / s_r, (rho * s + e) / s_r
+    return params.driver_weights()
 
 
 def equity_price_of_risk(

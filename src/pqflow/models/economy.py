@@ -27,9 +27,10 @@ real-world shift of the mean are exact closed forms, whatever the parts. Over a 
 
 with ``c = rho(real_rate, inflation) sigma_I sigma_r`` and ``int phi = ln P(0,t0)/P(0,t1) +
 (V(t1) - V(t0))/2`` (Brigo and Mercurio, *Interest Rate Models - Theory and Practice*, 2nd ed.,
-2006, ch. 3.3, 4.2 and 15.1). With one part at a time it is exactly the models of
-:mod:`pqflow.models.hull_white_equity`, :mod:`pqflow.models.g2pp_equity` and
-:mod:`pqflow.models.jarrow_yildirim` (tested to rounding); those are checked against QuantLib.
+2006, ch. 3.3, 4.2 and 15.1). This is the only simulation model. With one part at a time it is
+exactly the single-part models the tests keep as independent oracles (Hull-White or G2++ with
+one equity index, Jarrow-Yildirim; ``tests/oracles/``, checked to rounding), which are checked
+against QuantLib and quadrature.
 
 A new Gaussian part is a new file with a class satisfying :class:`GaussianPart` (its states,
 their exposures, transition rows, drift and columns; :mod:`pqflow.models.total_return` and
@@ -46,13 +47,12 @@ from typing import Protocol, runtime_checkable
 import numpy as np
 
 from pqflow.market.curve import DiscountCurve
-from pqflow.models import g2pp, hull_white
 from pqflow.models.base import StepLaw, StepLaws
-from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.hull_white import HullWhiteParams, b_factor
+from pqflow.models.hull_white import b_factor
 from pqflow.models.hull_white_equity import bond_column
 from pqflow.models.inflation import INFLATION_DRIVER, REAL_RATE_DRIVER, InflationPart
 from pqflow.models.kernels import Exposure, grid_moments
+from pqflow.models.rates import RATES_DRIVERS, RatesModel
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.models.total_return import INDEX_KINDS, TotalReturnIndex, index_column
 
@@ -68,9 +68,6 @@ __all__ = [
     "InflationPart",
     "EconomyModel",
 ]
-
-RATES_DRIVERS = {"hull_white": ("rates",), "g2pp": ("rates_x", "rates_y")}
-
 
 @dataclass(frozen=True, kw_only=True)
 class RatesStep:
@@ -133,7 +130,7 @@ class EconomyModel:
     """
 
     curve: DiscountCurve
-    rates: HullWhiteParams | G2PlusPlusParams
+    rates: RatesModel
     parts: tuple[GaussianPart, ...]
     correlation: np.ndarray
     prices_of_risk: dict[str, float | PiecewiseConstant]
@@ -156,8 +153,9 @@ class EconomyModel:
             raise ValueError("correlation must be symmetric with a unit diagonal")
         if np.linalg.eigvalsh(corr)[0] <= 1e-12:
             raise ValueError("the driver correlation matrix must be positive definite")
-        if isinstance(self.rates, G2PlusPlusParams) and corr[0, 1] != self.rates.rho:
-            raise ValueError("the (rates_x, rates_y) correlation must equal the G2++ rho")
+        for (a, b), fixed in self.rates.fixed_correlations().items():
+            if corr[drivers.index(a), drivers.index(b)] != fixed:
+                raise ValueError(f"the ({a}, {b}) correlation must equal the {self.rates.label} value {fixed:g}")
         unknown = set(self.prices_of_risk) - set(drivers)
         if unknown:
             raise ValueError(f"prices of risk for unknown drivers {sorted(unknown)}; drivers are {drivers}")
@@ -170,7 +168,7 @@ class EconomyModel:
 
     @property
     def rates_model(self) -> str:
-        return "g2pp" if isinstance(self.rates, G2PlusPlusParams) else "hull_white"
+        return self.rates.model
 
     @property
     def indices(self) -> tuple[TotalReturnIndex, ...]:
@@ -182,14 +180,11 @@ class EconomyModel:
 
     @property
     def driver_names(self) -> tuple[str, ...]:
-        return (*RATES_DRIVERS[self.rates_model], *(d for p in self.parts for d in p.drivers))
+        return (*self.rates.drivers, *(d for p in self.parts for d in p.drivers))
 
     def _factor_rates(self) -> tuple[tuple[float, float, str], ...]:
         """(mean reversion, volatility, driver) of each rate factor."""
-        r = self.rates
-        if isinstance(r, G2PlusPlusParams):
-            return ((r.a, r.sigma, "rates_x"), (r.b, r.eta, "rates_y"))
-        return ((r.mean_reversion, r.volatility, "rates"),)
+        return self.rates.factor_rates()
 
     @property
     def _n_rates_states(self) -> int:
@@ -205,8 +200,7 @@ class EconomyModel:
 
     @property
     def state_names(self) -> tuple[str, ...]:
-        factors = ("x",) if self.rates_model == "hull_white" else ("x", "y")
-        return (*factors, "integral_x", *(n for p in self.parts for n in p.state_names))
+        return (*self.rates.factor_names, "integral_x", *(n for p in self.parts for n in p.state_names))
 
     def _build_exposures(self) -> tuple[tuple[Exposure, ...], ...]:
         factors = self._factor_rates()
@@ -228,9 +222,7 @@ class EconomyModel:
     # ---------------------------------------------------------------- dynamics
 
     def _integrated_variance(self, u: np.ndarray | float) -> np.ndarray:
-        if isinstance(self.rates, G2PlusPlusParams):
-            return np.asarray(g2pp.integrated_variance(self.rates, u), dtype=float)
-        return np.asarray(hull_white.integrated_variance(self.rates, u), dtype=float)
+        return np.asarray(self.rates.integrated_variance(u), dtype=float)
 
     def _pair(self, a: str, b: str) -> float:
         names = self.driver_names
@@ -293,14 +285,7 @@ class EconomyModel:
     def _bond_exponents(self, times: np.ndarray, maturities: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """``ln A(t, m)`` ``(n_bonds, n_times)`` and the factor loadings ``B_f(m)`` ``(n_bonds, n_f)``
         of ``P(t, t+m) = A(t, m) exp(-sum_f B_f(m) f_t)``."""
-        t, m = times[None, :], maturities[:, None]
-        if isinstance(self.rates, G2PlusPlusParams):
-            log_a = np.log(g2pp.zcb_price(self.curve, self.rates, t, m, 0.0, 0.0))
-            loads = np.stack([b_factor(self.rates.a, maturities), b_factor(self.rates.b, maturities)], axis=1)
-        else:
-            log_a = np.log(hull_white.zcb_price(self.curve, self.rates, t, m, 0.0))
-            loads = b_factor(self.rates.mean_reversion, maturities)[:, None]
-        return log_a, loads
+        return self.rates.bond_exponents(self.curve, times, maturities)
 
     def columns(self, times: np.ndarray, states: np.ndarray, names: tuple[str, ...] | None = None) -> dict[str, np.ndarray]:
         """Output columns ``(n_paths, n_times)`` from states ``(n_paths, n_times, d)``."""
@@ -313,10 +298,7 @@ class EconomyModel:
         n_f = len(self._factor_rates())
         out: dict[str, np.ndarray] = {}
         if "short_rate" in wanted:
-            if isinstance(self.rates, G2PlusPlusParams):
-                shift = g2pp.phi(self.curve, self.rates, times)
-            else:
-                shift = hull_white.alpha(self.curve, self.rates, times)
+            shift = self.rates.short_rate_shift(self.curve, times)
             rate = np.add(states[:, :, 0], shift[None, :])
             for f in range(1, n_f):
                 rate += states[:, :, f]

@@ -46,6 +46,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from math import factorial
+from typing import Any, ClassVar
 
 import numpy as np
 from scipy.special import gammainc, ndtr
@@ -53,6 +54,7 @@ from scipy.stats import norm
 
 from pqflow.market.curve import DiscountCurve
 from pqflow.models.hull_white import b_factor, phi2
+from pqflow.models.schedule import PiecewiseConstant, as_schedule
 
 __all__ = [
     "G2PlusPlusParams",
@@ -78,13 +80,23 @@ _DEFAULT_RANGE = 10.0  # half-width of the swaption integral, in standard deviat
 class G2PlusPlusParams:
     """G2++ parameters: mean reversions ``a``, ``b`` (per year, > 0), volatilities ``sigma``,
     ``eta`` (absolute, per sqrt year, > 0) and the correlation ``rho`` of the two factor shocks
-    (strictly inside (-1, 1)). The model is symmetric under ``(a, sigma) <-> (b, eta)``."""
+    (strictly inside (-1, 1)). The model is symmetric under ``(a, sigma) <-> (b, eta)``.
+
+    Implements :class:`pqflow.models.rates.RatesModel` (factors ``x``, ``y`` on the drivers
+    ``rates_x``, ``rates_y``)."""
 
     a: float
     sigma: float
     b: float
     eta: float
     rho: float
+
+    model: ClassVar[str] = "g2pp"
+    label: ClassVar[str] = "G2++"
+    drivers: ClassVar[tuple[str, ...]] = ("rates_x", "rates_y")
+    factor_names: ClassVar[tuple[str, ...]] = ("x", "y")
+    #: Two factors, two rate columns: the increments of neither driver are read back.
+    recoverable_drivers: ClassVar[tuple[str, ...]] = ()
 
     def __post_init__(self) -> None:
         for name in ("a", "sigma", "b", "eta", "rho"):
@@ -100,6 +112,95 @@ class G2PlusPlusParams:
     def swapped(self) -> G2PlusPlusParams:
         """The same model with the factors relabelled: ``(b, eta, a, sigma, rho)``."""
         return G2PlusPlusParams(a=self.b, sigma=self.eta, b=self.a, eta=self.sigma, rho=self.rho)
+
+    # ------------------------------------------------------------- the RatesModel protocol
+
+    def factor_rates(self) -> tuple[tuple[float, float, str], ...]:
+        return ((self.a, self.sigma, "rates_x"), (self.b, self.eta, "rates_y"))
+
+    def integrated_variance(self, u: np.ndarray | float) -> np.ndarray:
+        return integrated_variance(self, u)
+
+    def short_rate_shift(self, curve: DiscountCurve, t: np.ndarray | float) -> np.ndarray:
+        return phi(curve, self, t)
+
+    def bond_exponents(
+        self, curve: DiscountCurve, times: np.ndarray, maturities: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        log_a = np.log(zcb_price(curve, self, times[None, :], maturities[:, None], 0.0, 0.0))
+        loads = np.stack([b_factor(self.a, maturities), b_factor(self.b, maturities)], axis=1)
+        return log_a, loads
+
+    def fixed_correlations(self) -> dict[tuple[str, str], float]:
+        return {("rates_x", "rates_y"): self.rho}
+
+    def equity_correlation(self, correlation: Any, *, strict: bool | None) -> tuple[float, float]:
+        if np.ndim(correlation) != 1 or len(correlation) != 2:
+            raise ValueError(
+                "under G2++ rates the equity correlation must be the pair (rho_xS, rho_yS) of "
+                f"correlations with the factor shocks W1 and W2, not {correlation!r}"
+            )
+        rx, ry = (float(c) for c in correlation)
+        if strict is None:
+            return (rx, ry)
+        for label, c in (("rho_xS", rx), ("rho_yS", ry)):
+            ok = -1.0 < c < 1.0 if strict else -1.0 <= c <= 1.0
+            if not ok:
+                where = "strictly inside (-1, 1)" if strict else "in [-1, 1]"
+                raise ValueError(f"equity-rate correlation {label} = {c!r} must lie {where}")
+        matrix = np.array([[1.0, self.rho, rx], [self.rho, 1.0, ry], [rx, ry, 1.0]])
+        least = float(np.linalg.eigvalsh(matrix)[0])
+        if (strict and least <= 1e-12) or (not strict and least < -1e-12):
+            kind = "positive definite" if strict else "positive semi-definite"
+            raise ValueError(
+                f"the correlations of (W1, W2, Z) = (rho {self.rho:g}, rho_xS {rx:g}, rho_yS "
+                f"{ry:g}) do not form a {kind} matrix"
+            )
+        return (rx, ry)
+
+    def equity_loadings(self, correlation: Any) -> tuple[tuple[float, float], ...]:
+        rx, ry = correlation
+        return ((rx * self.sigma, self.a), (ry * self.eta, self.b))
+
+    def describe_with_equity(self, correlation: Any) -> str:
+        rx, ry = correlation
+        return (
+            f"G2++ a {self.a:g}, sigma {self.sigma:g}, b {self.b:g}, eta {self.eta:g}, rho "
+            f"{self.rho:g}, equity correlations rho_xS {rx:g} and rho_yS {ry:g}"
+        )
+
+    def short_rate_correlation(self, correlation: Any) -> float:
+        """``(rho_x sigma + rho_y eta) / sqrt(sigma^2 + eta^2 + 2 rho sigma eta)`` (``dr`` loads
+        ``sigma dW1 + eta dW2``)."""
+        if not isinstance(correlation, tuple):
+            raise ValueError("under G2++ rates an index's correlation with the rates is the pair (rho_xS, rho_yS)")
+        s, e = self.sigma, self.eta
+        return float((correlation[0] * s + correlation[1] * e) / np.sqrt(s * s + e * e + 2.0 * self.rho * s * e))
+
+    def driver_weights(self) -> tuple[float, float]:
+        """``(w_x, w_y)``: the one rates price of risk ``lambda`` (of the short-rate shock) shifts
+        ``W1`` by ``w_x lambda`` and ``W2`` by ``w_y lambda`` (:mod:`pqflow.measure.prices_of_risk`)."""
+        s, e, rho = self.sigma, self.eta, self.rho
+        s_r = float(np.sqrt(s * s + e * e + 2.0 * rho * s * e))
+        return (s + rho * e) / s_r, (rho * s + e) / s_r
+
+    def split_price_of_risk(self, lam: float | PiecewiseConstant) -> dict[str, float | PiecewiseConstant]:
+        sched = as_schedule(lam)
+        return {
+            name: PiecewiseConstant(knots=sched.knots, values=tuple(wi * v for v in sched.values))
+            for name, wi in zip(self.drivers, self.driver_weights(), strict=True)
+        }
+
+    def zero_factor_mean(self, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        z = np.zeros_like(t)
+        return (z, z.copy())
+
+    def to_json(self) -> dict[str, Any]:
+        return {"g2pp": {"a": self.a, "sigma": self.sigma, "b": self.b, "eta": self.eta, "rho": self.rho}}
+
+    @classmethod
+    def from_json(cls, data: dict[str, Any]) -> G2PlusPlusParams:
+        return cls(**{k: float(v) for k, v in data.items()})
 
 
 # --------------------------------------------------------------------------------------------

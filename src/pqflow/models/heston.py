@@ -71,8 +71,8 @@ from scipy.integrate import quad_vec
 from scipy.special import gammaln, hyp1f1
 
 from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.g2pp import integrated_variance as g2_integrated_variance
-from pqflow.models.hull_white import HullWhiteParams, b_factor, integrated_variance
+from pqflow.models.hull_white import HullWhiteParams, b_factor
+from pqflow.models.rates import RatesModel
 
 __all__ = [
     "HestonParams",
@@ -202,16 +202,9 @@ def expected_sqrt_variance(p: HestonParams, t: np.ndarray | float) -> np.ndarray
     return out.reshape(shape)
 
 
-def _rate_loadings(rates: HullWhiteParams | G2PlusPlusParams, correlation) -> list[tuple[float, float]]:
+def _rate_loadings(rates: RatesModel, correlation) -> list[tuple[float, float]]:
     """``[(rho_kS s_k, a_k)]``: the equity-correlated loadings of ``ln F`` on the rate drivers."""
-    if isinstance(rates, G2PlusPlusParams):
-        if np.ndim(correlation) != 1 or len(correlation) != 2:
-            raise ValueError("under G2++ rates the equity correlation is the pair (rho_xS, rho_yS)")
-        rx, ry = (float(c) for c in correlation)
-        return [(rx * rates.sigma, rates.a), (ry * rates.eta, rates.b)]
-    if np.ndim(correlation) != 0:
-        raise ValueError("under Hull-White rates the equity correlation is one number")
-    return [(float(correlation) * rates.volatility, rates.mean_reversion)]
+    return list(rates.equity_loadings(rates.equity_correlation(correlation, strict=None)))
 
 
 def rate_log_cf_variance(
@@ -230,10 +223,7 @@ def rate_log_cf_variance(
     if rates is None:
         return 0.0, True
     t = float(expiry)
-    if isinstance(rates, G2PlusPlusParams):
-        total = float(g2_integrated_variance(rates, t))
-    else:
-        total = float(integrated_variance(rates, t))
+    total = float(rates.integrated_variance(t))
     loads = [(w, a) for w, a in _rate_loadings(rates, correlation) if w != 0.0]
     if not loads:
         return total, True

@@ -18,11 +18,13 @@ The functions take ``a > 0``; for small ``a u`` they switch to power series, so 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any, ClassVar
 
 import numpy as np
 from scipy.stats import norm
 
 from pqflow.market.curve import DiscountCurve
+from pqflow.models.schedule import PiecewiseConstant
 
 __all__ = [
     "HullWhiteParams",
@@ -41,16 +43,83 @@ _TERMS = 25
 
 @dataclass(frozen=True, kw_only=True)
 class HullWhiteParams:
-    """Mean reversion ``a`` (per year, > 0) and volatility ``sigma`` (absolute, per sqrt year)."""
+    """Mean reversion ``a`` (per year, > 0) and volatility ``sigma`` (absolute, per sqrt year).
+
+    Implements :class:`pqflow.models.rates.RatesModel` (one factor ``x`` on the driver
+    ``rates``)."""
 
     mean_reversion: float
     volatility: float
+
+    model: ClassVar[str] = "hull_white"
+    label: ClassVar[str] = "Hull-White"
+    drivers: ClassVar[tuple[str, ...]] = ("rates",)
+    factor_names: ClassVar[tuple[str, ...]] = ("x",)
+    #: ``x`` and ``int x`` (hence the driver's increments) follow from the short rate and the
+    #: cash account columns.
+    recoverable_drivers: ClassVar[tuple[str, ...]] = ("rates",)
 
     def __post_init__(self) -> None:
         if not self.mean_reversion > 0.0:
             raise ValueError("Hull-White mean reversion must be positive")
         if not self.volatility >= 0.0:
             raise ValueError("Hull-White volatility must not be negative")
+
+    # ------------------------------------------------------------- the RatesModel protocol
+
+    def factor_rates(self) -> tuple[tuple[float, float, str], ...]:
+        return ((self.mean_reversion, self.volatility, "rates"),)
+
+    def integrated_variance(self, u: np.ndarray | float) -> np.ndarray:
+        return integrated_variance(self, u)
+
+    def short_rate_shift(self, curve: DiscountCurve, t: np.ndarray | float) -> np.ndarray:
+        return alpha(curve, self, t)
+
+    def bond_exponents(
+        self, curve: DiscountCurve, times: np.ndarray, maturities: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        log_a = np.log(zcb_price(curve, self, times[None, :], maturities[:, None], 0.0))
+        return log_a, b_factor(self.mean_reversion, maturities)[:, None]
+
+    def fixed_correlations(self) -> dict[tuple[str, str], float]:
+        return {}
+
+    def equity_correlation(self, correlation: Any, *, strict: bool | None) -> float:
+        if np.ndim(correlation) != 0:
+            raise ValueError(
+                "under Hull-White rates the equity correlation is one number (with the short-rate "
+                f"shock), not {correlation!r}; a pair (rho_xS, rho_yS) goes with G2++ parameters"
+            )
+        if strict and not -1.0 < correlation < 1.0:
+            raise ValueError("equity-rate correlation must lie strictly inside (-1, 1)")
+        if strict is False and not -1.0 <= correlation <= 1.0:
+            raise ValueError("correlation must lie in [-1, 1]")
+        return correlation
+
+    def equity_loadings(self, correlation: Any) -> tuple[tuple[float, float], ...]:
+        return ((float(correlation) * self.volatility, self.mean_reversion),)
+
+    def describe_with_equity(self, correlation: Any) -> str:
+        return f"Hull-White sigma {self.volatility:g}, a {self.mean_reversion:g}, correlation {correlation:g}"
+
+    def short_rate_correlation(self, correlation: Any) -> float:
+        if isinstance(correlation, tuple):
+            raise ValueError("under Hull-White rates an index's correlation with the rates is one number")
+        return float(correlation)
+
+    def split_price_of_risk(self, lam: float | PiecewiseConstant) -> dict[str, float | PiecewiseConstant]:
+        return {self.drivers[0]: lam}
+
+    def zero_factor_mean(self, t: np.ndarray) -> np.ndarray:
+        return np.zeros_like(t)
+
+    def to_json(self) -> dict[str, Any]:
+        return {"hull_white": {"mean_reversion": self.mean_reversion, "volatility": self.volatility}}
+
+    @classmethod
+    def from_json(cls, data: dict[str, Any]) -> HullWhiteParams:
+        return cls(mean_reversion=data["mean_reversion"], volatility=data["volatility"])
 
 
 def _series(a: np.ndarray, u: np.ndarray, first: int, coef) -> np.ndarray:

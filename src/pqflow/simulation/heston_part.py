@@ -37,7 +37,6 @@ import math
 
 import numpy as np
 
-from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.heston import HestonIndex, HestonPaths, simulate_heston_paths
 from pqflow.models.hull_white import alpha, integrated_variance
 from pqflow.models.schedule import as_schedule, segments
@@ -80,8 +79,8 @@ def rates_driver_increments(model, times: np.ndarray, cols: dict[str, np.ndarray
     measure (module docstring). ``model``: the run's economy (curve, Hull-White rates, prices
     of risk); ``cols`` must hold ``short_rate`` and ``cash_account``."""
     rates = model.rates
-    if isinstance(rates, G2PlusPlusParams):
-        raise ValueError("the rates driver's increments are recovered under Hull-White rates only")
+    if RATES_DRIVER not in rates.recoverable_drivers:
+        raise ValueError(f"the rates driver's increments are not recovered under {rates.label} rates (Hull-White only)")
     a, sigma = rates.mean_reversion, rates.volatility
     x = cols["short_rate"] - alpha(model.curve, rates, times)[None, :]
     integ = np.log(cols["cash_account"]) + np.log(model.curve.discount(times))[None, :] - 0.5 * integrated_variance(rates, times)[None, :]

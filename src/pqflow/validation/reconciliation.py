@@ -52,8 +52,6 @@ import pandas as pd
 from pqflow.measure.blocks import column_drivers, smallest_block
 from pqflow.models.equity import EquityParams, equity_option_price
 from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.g2pp_equity import G2EquityParams
-from pqflow.models.g2pp_equity import equity_option_price as g2_equity_option_price
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.jarrow_yildirim import CPI_COLUMN
 from pqflow.models.schedule import PiecewiseConstant
@@ -86,8 +84,8 @@ def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: floa
     """Closed-form value of ``max(G - S_T, 0)`` on the total-return index (``q = 0``), from
     the rates (Hull-White or G2++) and equity parameters recorded in ``calibration.json`` (the
     equity volatility a number or a piecewise-constant schedule): Black on the forward with the
-    T-forward variance of :func:`pqflow.models.equity.equity_total_variance` or, under G2++,
-    :func:`pqflow.models.g2pp_equity.equity_total_variance`."""
+    T-forward variance of :func:`pqflow.models.equity.equity_total_variance` (Hull-White or
+    G2++ rates)."""
     par = inputs.parameters
     eq = par["equity"]
     sv = (par.get("stochastic_volatility") or {}).get(eq["name"])
@@ -115,9 +113,9 @@ def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: floa
         g = par["g2pp"]
         rx, ry = (float(v) for v in eq["correlation_with_rate_factors"])
         g2 = G2PlusPlusParams(**{k: float(g[k]) for k in ("a", "sigma", "b", "eta", "rho")})
-        g2_equity = G2EquityParams(name=str(eq["name"]), level=level, dividend_yield=0.0, volatility=volatility,
-                                   correlation_x=rx, correlation_y=ry)
-        return g2_equity_option_price(inputs.curve, g2, g2_equity, expiry=maturity, strike=guarantee, kind="put")
+        g2_equity = EquityParams(name=str(eq["name"]), level=level, dividend_yield=0.0, volatility=volatility,
+                                 correlation=(rx, ry))
+        return equity_option_price(inputs.curve, g2, g2_equity, expiry=maturity, strike=guarantee, kind="put")
     hw = par["hull_white"]
     rates = HullWhiteParams(mean_reversion=float(hw["mean_reversion"]), volatility=float(hw["volatility"]))
     equity = EquityParams(

@@ -1,4 +1,10 @@
-"""G2++ two-factor rates with one equity total-return index: exact joint transition.
+"""Test oracle: G2++ two-factor rates with one equity total-return index, exact joint
+transition and the equity option closed form written out for this one pair (independently of
+the economy model's kernels and of :mod:`pqflow.models.equity`).
+
+The production model is :class:`pqflow.models.economy.EconomyModel`; tests check it against
+this class to rounding, and this class against quadrature and Monte Carlo
+(tests/test_g2pp_transition.py).
 
 Rates as in :mod:`pqflow.models.g2pp` (``r = x + y + phi(t)``); the index follows
 ``d ln S = (r - sigma_S(t)^2 / 2) dt + sigma_S(t) dZ`` with three correlated drivers
@@ -33,7 +39,7 @@ Real world: with ``W^Q = W^P + int lambda ds`` on each correlated driver (prices
 ``int [sigma lambda_x B_a(u) + eta lambda_y B_b(u)]`` and ``int sigma_S lambda_S``: the same
 kernels integrated against the prices of risk. The covariance is unchanged (Girsanov).
 
-Output columns are named as those of :class:`pqflow.models.hull_white_equity.HullWhiteEquityModel`.
+Output columns are named as those of :class:`oracles.hull_white_equity.HullWhiteEquityModel`.
 """
 
 from __future__ import annotations
@@ -42,6 +48,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from oracles.hull_white_equity import bond_column, equity_column, rates_equity_units
 from pqflow.market.curve import DiscountCurve
 from pqflow.models.base import StepLaw
 from pqflow.models.equity import black_on_forward
@@ -54,7 +61,6 @@ from pqflow.models.g2pp import (
     zcb_price,
 )
 from pqflow.models.hull_white import b_factor, phi2
-from pqflow.models.hull_white_equity import bond_column, equity_column, rates_equity_units
 from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
 
 __all__ = [

@@ -1,0 +1,1 @@
+"""Independent single-part models the production economy model is tested against."""
