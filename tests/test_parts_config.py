@@ -399,7 +399,7 @@ def test_ratings_correlate_through_the_matrix_and_stay_independent_of_market_dri
     """The ratings' drivers take their correlation from the matrix; their simulated Euler
     increments correlate as configured (Fisher-z interval at 99%, common practice); a non-zero
     entry against a market driver, or naming only some ratings, is refused."""
-    from pqflow.models.cir_credit import simulate_credit
+    from pqflow.simulation.credit import simulate_credit
 
     cal = assemble_calibration(_load(tmp_path, _with_credit_drivers(full)))
     assert np.array_equal(cal.credit.correlation, np.array([[1.0, 0.6], [0.6, 1.0]]))
@@ -505,10 +505,10 @@ def test_whole_balance_sheet_writes_every_default_density_block(full_run):
 def test_density_blocks_are_configured_by_name_and_drivers(tmp_path, small_config):
     """[density_blocks] replaces the default blocks; a block that is not autonomous, or names an
     unknown driver, is refused before anything is fitted, naming the state or the driver."""
-    from pqflow.pipeline import run_in_process
     from pqflow.calibration import assemble
     from pqflow.config.loader import load_config
     from pqflow.jobs.steps import plan_run
+    from pqflow.pipeline import run_in_process
 
     cfg = small_config(density_blocks={"core": ["rates", "veldmark_all_share"], "curve": ["rates"]})
     assert [(b.name, b.drivers) for b in plan_run(load_config(cfg)).density_blocks] == [
