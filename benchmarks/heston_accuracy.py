@@ -18,8 +18,9 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 
-from pqflow.models.heston import HestonParams, heston_option_price, simulate_heston_paths  # noqa: E402
+from pqflow.models.heston import HestonParams, heston_option_price  # noqa: E402
 from pqflow.models.hull_white import HullWhiteParams  # noqa: E402
+from pqflow.simulation.heston_scheme import simulate_heston_paths  # noqa: E402
 
 
 def bias() -> None:

@@ -325,8 +325,10 @@ def quarter_child(runner: str, workdir: str) -> None:
     from prefect import flow
     from prefect.futures import as_completed
 
-    import pipeline  # noqa: F401  (quiet Prefect defaults, set before Prefect is imported)
-    from pipeline.flows import (
+    import pqflow.pipeline  # noqa: F401  (quiet Prefect defaults, set before Prefect is imported)
+    from pqflow.config import load_config
+    from pqflow.jobs.steps import plan_run
+    from pqflow.pipeline.flows import (
         _shared_api,
         calibrate_task,
         generate_part_task,
@@ -334,8 +336,6 @@ def quarter_child(runner: str, workdir: str) -> None:
         task_runner_for,
         validate_task,
     )
-    from pqflow.config import load_config
-    from pqflow.jobs.steps import plan_run
 
     work = Path(workdir)
     path = make_config(work / "quarter.toml", scenarios=10_000, batch_size=1000, horizon_years=50, steps_per_year=12)

@@ -27,6 +27,6 @@ def _prefect_defaults() -> None:
 
 _prefect_defaults()
 
-from pipeline.flows import quarterly_run, run_in_process, run_quarterly  # noqa: E402
+from pqflow.pipeline.flows import quarterly_run, run_in_process, run_quarterly  # noqa: E402
 
 __all__ = ["quarterly_run", "run_in_process", "run_quarterly"]

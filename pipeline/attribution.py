@@ -24,7 +24,7 @@ __all__ = ["attribute_change"]
 
 @task(name="attribution-step", cache_policy=NO_CACHE)
 def run_step_task(step: PlannedStep, liabilities: str) -> str:
-    from pipeline.flows import run_in_process
+    from pqflow.pipeline.flows import run_in_process
 
     run_in_process(step.config, step.run_dir)
     value_liabilities_cli(step.run_dir, liabilities)

@@ -5,7 +5,7 @@ with a running Prefect server (``PREFECT_API_URL``). A process worker polling th
 (``prefect worker start --pool NAME``) then runs it at every quarter end, or when it is
 triggered from the UI or ``prefect deployment run``.
 
-The worker loads the flow by module path (``pipeline.deployments.scheduled_quarterly_run``), so
+The worker loads the flow by module path (``pqflow.pipeline.deployments.scheduled_quarterly_run``), so
 the worker's Python must have pqflow installed (``pip install -e .``, which ``make`` does into
 ``.venv``); it runs each flow in a temporary working directory, so the deployment's paths are
 made absolute when it is registered.
@@ -60,7 +60,7 @@ def scheduled_quarterly_run(
 ) -> dict[str, Any]:
     """The deployed quarterly run: calibrate, generate both sets, validate, write the manifest
     into ``out_root/<valuation date>``; progress lines go to the worker's log."""
-    from pipeline.flows import run_quarterly
+    from pqflow.pipeline.flows import run_quarterly
 
     out_dir = run_folder(config_path, out_root)
     return run_quarterly(

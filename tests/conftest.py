@@ -95,7 +95,7 @@ def small_config(tmp_path: Path, demo_config_dict: dict[str, Any]):
 def prefect_harness():
     from prefect.testing.utilities import prefect_test_harness
 
-    import pipeline  # noqa: F401  (sets quiet Prefect defaults before the harness starts)
+    import pqflow.pipeline  # noqa: F401  (sets quiet Prefect defaults before the harness starts)
 
     with prefect_test_harness(server_startup_timeout=90):
         yield

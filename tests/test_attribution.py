@@ -72,8 +72,8 @@ def test_steps_follow_the_stated_order_and_end_at_the_new_configuration(tmp_path
 
 @pytest.fixture(scope="module")
 def two_quarters(tmp_path_factory, demo_config_dict):
-    from pipeline import run_in_process
     from pqflow.liabilities import value_liabilities_cli
+    from pqflow.pipeline import run_in_process
 
     root = tmp_path_factory.mktemp("attrib")
     old = _small(demo_config_dict)
@@ -93,7 +93,7 @@ def two_quarters(tmp_path_factory, demo_config_dict):
 
 @pytest.mark.flow
 def test_curve_only_change_is_all_curve_and_steps_sum_to_the_total(prefect_harness, two_quarters):
-    from pipeline.attribution import attribute_change
+    from pqflow.pipeline.attribution import attribute_change
 
     root, paths, runs = two_quarters
     res = attribute_change(str(runs["old"]), str(runs["curve"]), str(paths["old"]), str(paths["curve"]),
@@ -132,7 +132,7 @@ def test_curve_only_change_is_all_curve_and_steps_sum_to_the_total(prefect_harne
 
 @pytest.mark.flow
 def test_two_steps_sum_exactly_and_no_change_attributes_nothing(prefect_harness, two_quarters):
-    from pipeline.attribution import attribute_change
+    from pqflow.pipeline.attribution import attribute_change
 
     root, paths, runs = two_quarters
     res = attribute_change(str(runs["old"]), str(runs["two"]), str(paths["old"]), str(paths["two"]),

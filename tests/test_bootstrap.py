@@ -4,14 +4,14 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
-from pqflow.errors import MarketDataError
-from pqflow.market.bootstrap import (
+from curve_helpers import (
     bootstrap_par_swaps,
     max_par_repricing_error,
     par_rates_from_curve,
+    smith_wilson_from_par_rates,
 )
-from pqflow.market.smith_wilson import smith_wilson_from_par_rates
+
+from pqflow.errors import MarketDataError
 
 # An invented swap curve quoted at the usual pillars (annual fixed leg); 4, 6, 8, 9, 11, 13, 14,
 # 16-19 years are missing and get filled.

@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from conftest import DEMO, write_toml
+from curve_helpers import par_rates_from_curve
 from scipy.stats import norm
 from typer.testing import CliRunner
 
@@ -18,7 +19,6 @@ from pqflow.cli import app
 from pqflow.config import load_config
 from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.jobs import write_calibration
-from pqflow.market.bootstrap import par_rates_from_curve
 from pqflow.market.data_files import read_curve_inputs
 from pqflow.models.equity import EquityParams, equity_option_price
 from pqflow.simulation import batch_generator, simulate_batch, time_grid

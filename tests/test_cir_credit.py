@@ -28,6 +28,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import QuantLib as ql
+from credit_helpers import defaultable_bond_columns, survival_probability
 from scipy.integrate import quad, solve_ivp
 
 from pqflow.market.curve import LogDiscountCurve
@@ -41,16 +42,14 @@ from pqflow.models.cir_credit import (
     cir_laplace,
     credit_factor,
     cumulative_intensity_column,
-    defaultable_bond_columns,
     dzcb_column,
     intensity_column,
     real_world_cir,
     shift,
     shift_integral,
-    simulate_credit,
     spread_column,
-    survival_probability,
 )
+from pqflow.simulation.credit import simulate_credit
 
 __all__: list[str] = []
 

@@ -45,7 +45,7 @@ def test_check_command_and_caution_in_help(small_config):
 
 
 def test_reading_commands_check_the_manifest_first(small_config, tmp_path):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     out = tmp_path / "run"
     run_in_process(small_config(), out)
@@ -61,7 +61,7 @@ def test_reading_commands_check_the_manifest_first(small_config, tmp_path):
 def test_value_then_report_shows_the_liability_section(tmp_path):
     from conftest import REPO
 
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     out = tmp_path / "run"
     run_in_process(REPO / "scenario_configs" / "demo_typed.toml", out, scenarios=200)

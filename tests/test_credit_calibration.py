@@ -36,9 +36,9 @@ from pqflow.models.cir_credit import (
     cumulative_intensity_column,
     dzcb_column,
     shift,
-    simulate_credit,
     zero_spread,
 )
+from pqflow.simulation.credit import simulate_credit
 
 __all__: list[str] = []
 

@@ -32,7 +32,7 @@ def test_dask_workers_write_the_same_bytes(prefect_harness, small_config, tmp_pa
     monkeypatch.setenv("DASK_LOGGING__DISTRIBUTED", "warning")
     distributed = pytest.importorskip("distributed")
     logging.getLogger("distributed").setLevel(logging.WARNING)
-    from pipeline import run_in_process, run_quarterly
+    from pqflow.pipeline import run_in_process, run_quarterly
 
     cfg = small_config(simulation={"scenarios": 800, "batch_size": 100})  # 16 parts
     reference = tmp_path / "in-process"
@@ -53,7 +53,7 @@ def test_dask_workers_write_the_same_bytes(prefect_harness, small_config, tmp_pa
 
 
 def test_runner_choice_is_checked(small_config):
-    from pipeline.flows import task_runner_for
+    from pqflow.pipeline.flows import task_runner_for
 
     with pytest.raises(ValueError, match="unknown task runner"):
         task_runner_for("processes", workers=2)

@@ -26,10 +26,11 @@ from pqflow.measure.blocks import (
     model_structure,
     smallest_block,
 )
-from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve, simulate_credit
+from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve
 from pqflow.models.economy import EconomyModel, TotalReturnIndex
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
+from pqflow.simulation.credit import simulate_credit
 from pqflow.simulation.engine import block_laws, grid_laws, simulate_batch, simulate_states, time_grid
 
 PILLARS = np.arange(1, 80 * 12 + 1) / 12.0

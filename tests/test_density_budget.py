@@ -24,7 +24,8 @@ from conftest import DEMO_TYPED
 from pqflow.calibration import assemble_calibration, build_model
 from pqflow.config import load_config
 from pqflow.measure.budget import credit_log_variance_by_rating, density_budget, gaussian_log_variance_by_driver
-from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve, simulate_credit
+from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve
+from pqflow.simulation.credit import simulate_credit
 from pqflow.simulation.engine import grid_laws, simulate_batch
 
 

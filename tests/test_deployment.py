@@ -162,7 +162,7 @@ def test_deploy_trigger_and_a_worker_runs_it(prefect_server, small_config, tmp_p
 
     deployment = _api(url, "/deployments/name/scheduled-quarterly-run/cli-test")
     assert deployment["work_pool_name"] == pool
-    assert deployment["entrypoint"] == "pipeline.deployments.scheduled_quarterly_run"
+    assert deployment["entrypoint"] == "pqflow.pipeline.deployments.scheduled_quarterly_run"
     assert deployment["parameters"]["config_path"] == str(cfg)
     assert deployment["parameters"]["out_root"] == str(out_root)
     [sched] = deployment["schedules"]
@@ -279,8 +279,8 @@ def test_a_configured_server_that_does_not_answer_is_refused(small_config, tmp_p
     assert result.returncode == 2, result.stdout + result.stderr
     assert f"PREFECT_API_URL is {url}, but no Prefect server answers" in result.stderr
     assert not out.exists()
-    from pipeline.deployments import check_server  # what `pqflow deploy` calls first as well
     from pqflow.errors import PqflowError
+    from pqflow.pipeline.deployments import check_server  # what `pqflow deploy` calls first as well
 
     with pytest.raises(PqflowError, match="no Prefect server answers"):
         check_server(url)
@@ -289,13 +289,13 @@ def test_a_configured_server_that_does_not_answer_is_refused(small_config, tmp_p
 def test_deployment_definition_and_bad_input(small_config, tmp_path, monkeypatch):
     # Built without a server: module-path entrypoint, absolute paths, the quarter-end schedule;
     # a bad configuration, time zone or cron expression is refused before anything is registered.
-    from pipeline.deployments import quarterly_deployment, run_folder
     from pqflow.errors import PqflowError
+    from pqflow.pipeline.deployments import quarterly_deployment, run_folder
 
     cfg = small_config()
     monkeypatch.chdir(tmp_path)
     d = quarterly_deployment(cfg.name, "quarters", scenarios=300)
-    assert d.entrypoint == "pipeline.deployments.scheduled_quarterly_run"
+    assert d.entrypoint == "pqflow.pipeline.deployments.scheduled_quarterly_run"
     assert d.parameters == {"config_path": str(cfg), "out_root": str(tmp_path / "quarters"), "scenarios": 300,
                             "seed": None, "overwrite": False}
     [s] = d.schedules

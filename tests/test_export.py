@@ -23,7 +23,7 @@ from pqflow.storage.export import ExportError, export_slice, parse_scenario_rang
 
 @pytest.fixture
 def run_dir(small_config, tmp_path):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     out = tmp_path / "run"
     run_in_process(small_config(), out)

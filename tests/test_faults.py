@@ -77,7 +77,7 @@ def _harness_url() -> str:
 
 @pytest.mark.flow
 def test_disk_full_during_a_run_exits_3_and_keeps_the_earlier_run(prefect_harness, tiny_fs, tmp_path, demo_config_dict):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
     from pqflow.storage.manifest import verify_run
 
     out = tiny_fs / "q3"
@@ -100,7 +100,7 @@ def test_disk_full_during_a_run_exits_3_and_keeps_the_earlier_run(prefect_harnes
 def test_disk_full_in_calibrate_and_value_exits_3_and_leaves_nothing(tiny_fs, tmp_path, demo_config_dict):
     from conftest import REPO
 
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     run = tiny_fs / "run"
     run_in_process(_config(tmp_path, demo_config_dict, scenarios=20, batch_size=20), run)
@@ -132,7 +132,7 @@ def _must_not_run(*args, **kwargs):
 
 
 def test_a_busy_target_is_refused_before_calibration_and_prefect(tmp_path, monkeypatch):
-    import pipeline
+    import pqflow.pipeline as pipeline
     from pqflow.storage.rundir import acquire_lock, lock_path, release_lock
 
     out = tmp_path / "q3"
@@ -180,7 +180,7 @@ def test_an_unsafe_prefect_home_is_refused(tmp_path, monkeypatch, fault):
 
 
 def test_a_missing_prefect_home_is_created_owner_only(tmp_path):
-    from pipeline.home import check_prefect_home
+    from pqflow.pipeline.home import check_prefect_home
 
     home = tmp_path / "fresh" / "prefect"
     assert check_prefect_home(home) == home
@@ -288,7 +288,7 @@ def test_dask_workers_leave_ctrl_c_to_the_run(tmp_path):
     # Ctrl-C reaches every process of the terminal's group; a local Dask worker must not die
     # of it (printing its own traceback) but wait for the run to close the cluster.
     distributed = pytest.importorskip("distributed")
-    from pipeline.flows import local_cluster_without_ctrl_c
+    from pqflow.pipeline.flows import local_cluster_without_ctrl_c
 
     before = signal.getsignal(signal.SIGINT)
     cluster = local_cluster_without_ctrl_c(n_workers=1, processes=True, threads_per_worker=1,

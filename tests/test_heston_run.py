@@ -128,7 +128,7 @@ def test_projection_refuses_correlations_it_cannot_simulate() -> None:
 def test_demo_smile_run_writes_the_heston_index_and_its_variance(tmp_path) -> None:
     """A short run of demo_smile.toml (invented data): the index column and, when asked for,
     variance_<index>; the calibration round trip of the Heston part."""
-    from pipeline.flows import run_in_process
+    from pqflow.pipeline.flows import run_in_process
 
     shutil.copytree(DEMO.parent / "market_data", tmp_path / "market_data")
     data = tomllib.loads((DEMO.parent / "demo_smile.toml").read_text())

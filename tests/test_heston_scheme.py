@@ -1,5 +1,5 @@
 """The Heston index's simulation scheme and its density weights
-(``pqflow.models.heston.simulate_heston_paths``, ``pqflow.measure.heston_density``).
+(``pqflow.simulation.heston_scheme.simulate_heston_paths``, ``pqflow.measure.heston_density``).
 
 References used below:
 - Cox, Ingersoll and Ross (1985): the conditional mean and variance of the square-root
@@ -23,16 +23,32 @@ from pqflow.measure.heston_density import heston_prices_of_risk
 from pqflow.models.heston import (
     HestonParams,
     heston_option_price,
-    simulate_heston_paths,
-    variance_mean,
-    variance_variance,
 )
+from pqflow.simulation.heston_scheme import simulate_heston_paths
 
 __all__: list[str] = []
 
 P = HestonParams(v0=0.029, kappa=1.1, theta=0.042, xi=0.55, rho=-0.72)
 LAM = heston_prices_of_risk(kappa=P.kappa, theta=P.theta, xi=P.xi, equity_risk_premium=0.04,
                             real_world_long_run_volatility=0.18, rho=P.rho)
+
+
+
+# The variance's conditional moments over a step (test-only closed forms of the CIR process).
+
+
+def variance_mean(p: HestonParams, v: np.ndarray | float, h: np.ndarray | float) -> np.ndarray:
+    """``E[v_{t+h} | v_t = v] = theta + (v - theta) e^{-kappa h}`` (CIR; Cox, Ingersoll and Ross,
+    *Econometrica* 53 (1985))."""
+    return p.theta + (np.asarray(v, dtype=float) - p.theta) * np.exp(-p.kappa * np.asarray(h))
+
+
+def variance_variance(p: HestonParams, v: np.ndarray | float, h: np.ndarray | float) -> np.ndarray:
+    """``Var[v_{t+h} | v_t = v] = v xi^2 e^{-kh}(1 - e^{-kh})/k + theta xi^2 (1 - e^{-kh})^2/(2k)``
+    (Cox, Ingersoll and Ross 1985)."""
+    v = np.asarray(v, dtype=float)
+    e = np.exp(-p.kappa * np.asarray(h, dtype=float))
+    return v * p.xi**2 * e * (1.0 - e) / p.kappa + p.theta * p.xi**2 * (1.0 - e) ** 2 / (2.0 * p.kappa)
 
 
 def _run(p, times, *, measure, n, substeps, r=0.02, seed=1, lam=LAM, antithetic=False):

@@ -48,7 +48,7 @@ def _small_run(root):
 
 
 def test_flow_matches_library_job(prefect_harness, tmp_path):
-    from pipeline.valuation import value_liabilities
+    from pqflow.pipeline.valuation import value_liabilities
 
     run = _small_run(tmp_path)
     book = REPO / "scenario_configs" / "demo_liabilities.toml"

@@ -24,6 +24,13 @@ from pqflow.calibration.assemble import fit_curve, load_calibration
 from pqflow.cli import app
 from pqflow.config.loader import load_config, parse_config
 from pqflow.errors import ConfigError, MarketDataError
+from pqflow.jobs.sensitivities import (
+    calibrate_sensitivity,
+    generate_sensitivity_part,
+    record_sensitivities,
+    sensitivity_tasks,
+    validate_sensitivity,
+)
 from pqflow.jobs.steps import calibrate_step, generate_part, plan_run, validate_staged_run
 from pqflow.market.last_liquid_forward import LastLiquidForwardCurve
 from pqflow.storage.jsonio import read_json
@@ -152,6 +159,22 @@ def test_curve_command_writes_whole_maturities(tmp_path):
     assert result.exit_code == 2 and "sum to 1.01" in result.output and not (tmp_path / "none.csv").exists()
 
 
+def _run_sensitivities(config, base, plan, run_dir, *, source: str = "configuration"):
+    """Every sensitivity one after another in this process (no scheduler), with the library's
+    steps: calibrate, generate, validate, record. Returns the part records and the updated run
+    summary (``None`` without sensitivities)."""
+    if not config.sensitivities:
+        return [], None
+    parts = []
+    summaries = {}
+    for sens in config.sensitivities:
+        cal = calibrate_sensitivity(config, sens, base, run_dir, source=source)
+        for m, b in sensitivity_tasks(plan, sens):
+            parts.append(generate_sensitivity_part(cal, plan, sens.name, m, b, run_dir))
+        summaries[sens.name] = validate_sensitivity(run_dir, sens, config)
+    return parts, record_sensitivities(run_dir, config, summaries)
+
+
 def test_curve_only_sensitivity_on_the_llfr_curve_reprices_the_kept_rates_model(tmp_path):
     """A +100 bp sensitivity with the base volatility parameters kept: the LLFR curve refitted on
     the shifted inputs, the swaptions recorded at the money on it with the kept Hull-White model's
@@ -159,7 +182,6 @@ def test_curve_only_sensitivity_on_the_llfr_curve_reprices_the_kept_rates_model(
     model-price cells; a planted 20% error in one recorded price must fail)."""
     import json
 
-    from pqflow.jobs.sensitivities import run_sensitivities
     from pqflow.validation.sensitivity_checks import run_market_consistent_checks
 
     data = _small(DEMO_LLFR)
@@ -172,7 +194,7 @@ def test_curve_only_sensitivity_on_the_llfr_curve_reprices_the_kept_rates_model(
     for measure, batch in plan.tasks():
         generate_part(cal, plan, measure, batch, root)
     validate_staged_run(root, cfg)
-    _, summary = run_sensitivities(cfg, cal, plan, root)
+    _, summary = _run_sensitivities(cfg, cal, plan, root)
     assert summary is not None and summary["sensitivities"]["rates_up_100bp"]["verdict"] in ("pass", "inconclusive")
     set_dir = root / "sensitivities" / "rates_up_100bp"
     sens_cal = read_json(set_dir / "calibration.json")

@@ -17,9 +17,9 @@ from pathlib import Path
 
 from typer.testing import CliRunner
 
-from pipeline.progress import LineProgress, StageLines, format_seconds, progress_reporter, stage_reporter
 from pqflow import __version__
 from pqflow.cli import _self_command, app
+from pqflow.pipeline.progress import LineProgress, StageLines, format_seconds, progress_reporter, stage_reporter
 
 runner = CliRunner()
 

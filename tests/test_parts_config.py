@@ -162,7 +162,7 @@ def test_a_stored_calibration_must_match_the_configured_parts(tmp_path, full):
 @pytest.fixture(scope="module")
 def full_run(tmp_path_factory, demo_config_dict):
     """A small run of the whole typed balance sheet, without Prefect (same files as the flow)."""
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     root = tmp_path_factory.mktemp("full")
     data = copy.deepcopy(demo_config_dict)
@@ -194,7 +194,7 @@ def test_every_part_writes_its_columns_to_both_sets(full_run):
 
 
 def test_columns_of_parts_not_configured_are_absent(tmp_path, small_config):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     out = tmp_path / "core"
     run_in_process(small_config(), out, scenarios=200)
@@ -224,7 +224,7 @@ def test_reweighted_real_world_expectations_match_market_consistent_ones(full_ru
 
 
 def test_outputs_columns_selects_what_is_written(tmp_path, small_config):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     cfg = small_config(outputs={"columns": ["zcb_10y", "equity_*"]})
     run_in_process(cfg, tmp_path / "sel", scenarios=200)
@@ -238,7 +238,7 @@ def test_outputs_columns_selects_what_is_written(tmp_path, small_config):
 
 
 def test_outputs_columns_naming_nothing_is_refused_before_anything_is_written(tmp_path, small_config):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     cfg = small_config(outputs={"columns": ["zcb_10y", "cpi"]})
     with pytest.raises(ConfigError, match="'cpi' matches no column of the configured models"):
@@ -268,7 +268,7 @@ def test_g2pp_runs_the_whole_balance_sheet_and_reconciles_in_closed_form(tmp_pat
     is the G2++ one (Brigo and Mercurio 2006, ch. 4.2 and the equity extension of
     oracles.g2pp_equity, checked against quadrature in tests/test_g2pp_transition.py), and
     the real-world expected short rate meets the target year's rate (house view)."""
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
     from pqflow.storage.jsonio import read_json
 
     data = copy.deepcopy(demo_config_dict)
@@ -321,7 +321,7 @@ def test_inflation_volatility_is_recovered_from_year_on_year_caps(tmp_path, full
     """Quotes priced at sigma_I = 1.35%: the fit from a 1% start recovers it (parameter
     recovery, to 1e-8), and the written run reprices every cap from its cpi column within the
     Monte Carlo interval (the market-consistency check)."""
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     cal = assemble_calibration(_load(tmp_path, full))
     data = copy.deepcopy(full)
@@ -345,7 +345,7 @@ def test_a_mispriced_cap_quote_fails_market_consistency(tmp_path, full):
     to catch (the other quotes still pass)."""
     import json
 
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
     from pqflow.validation.market_consistency import market_consistency_check
     from pqflow.validation.run_files import load_run_inputs
 
@@ -399,7 +399,7 @@ def test_ratings_correlate_through_the_matrix_and_stay_independent_of_market_dri
     """The ratings' drivers take their correlation from the matrix; their simulated Euler
     increments correlate as configured (Fisher-z interval at 99%, common practice); a non-zero
     entry against a market driver, or naming only some ratings, is refused."""
-    from pqflow.models.cir_credit import simulate_credit
+    from pqflow.simulation.credit import simulate_credit
 
     cal = assemble_calibration(_load(tmp_path, _with_credit_drivers(full)))
     assert np.array_equal(cal.credit.correlation, np.array([[1.0, 0.6], [0.6, 1.0]]))
@@ -505,10 +505,10 @@ def test_whole_balance_sheet_writes_every_default_density_block(full_run):
 def test_density_blocks_are_configured_by_name_and_drivers(tmp_path, small_config):
     """[density_blocks] replaces the default blocks; a block that is not autonomous, or names an
     unknown driver, is refused before anything is fitted, naming the state or the driver."""
-    from pipeline import run_in_process
     from pqflow.calibration import assemble
     from pqflow.config.loader import load_config
     from pqflow.jobs.steps import plan_run
+    from pqflow.pipeline import run_in_process
 
     cfg = small_config(density_blocks={"core": ["rates", "veldmark_all_share"], "curve": ["rates"]})
     assert [(b.name, b.drivers) for b in plan_run(load_config(cfg)).density_blocks] == [

@@ -136,7 +136,7 @@ def test_nice_ticks_are_round_numbers():
 def test_artifact_builders_and_publish(finished_run, monkeypatch):
     import prefect.artifacts as artifacts
 
-    import pipeline.artifacts as mod
+    import pqflow.pipeline.artifacts as mod
     from pqflow.storage.jsonio import read_json
 
     summary = read_json(finished_run / "validation" / "summary.json")

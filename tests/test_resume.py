@@ -45,9 +45,10 @@ def _kill_part_way(config: Path, out: Path) -> None:
         f"""
         import os, sys, time
         from pathlib import Path
-        import pipeline.flows as flows
+        import pqflow.jobs.run as run
+        import pqflow.pipeline.flows as flows
         from pqflow.storage.parquet import part_name
-        real, done = flows.generate_part, [0]
+        real, done = run.generate_part, [0]
         def gated(calibration, plan, measure, batch, run_dir):
             if done[0] == {STOP_AFTER}:
                 tmp = Path(run_dir) / "scenarios" / measure / f".{{part_name(batch.index)}}.tmp-{{os.getpid()}}"
@@ -57,7 +58,7 @@ def _kill_part_way(config: Path, out: Path) -> None:
                 time.sleep(300)
             done[0] += 1
             return real(calibration, plan, measure, batch, run_dir)
-        flows.generate_part = gated
+        run.generate_part = gated
         flows.run_in_process({str(config)!r}, {str(out)!r})
         """
     )
@@ -74,7 +75,7 @@ def _kill_part_way(config: Path, out: Path) -> None:
 
 
 def test_killed_run_resumes_to_identical_bytes(small_config, tmp_path):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     cfg = small_config()
     reference = tmp_path / "uninterrupted"
@@ -117,7 +118,7 @@ def test_killed_run_resumes_to_identical_bytes(small_config, tmp_path):
 
 
 def test_interrupted_run_without_resume_starts_afresh(small_config, tmp_path):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     cfg = small_config()
     out = tmp_path / "run"
@@ -128,7 +129,7 @@ def test_interrupted_run_without_resume_starts_afresh(small_config, tmp_path):
 
 
 def test_second_writer_is_refused_while_the_first_holds_the_lock(small_config, tmp_path):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     cfg = small_config()
     out = tmp_path / "run"
@@ -142,7 +143,7 @@ def test_second_writer_is_refused_while_the_first_holds_the_lock(small_config, t
 
 
 def test_stale_and_foreign_locks(small_config, tmp_path):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     cfg = small_config()
     out = tmp_path / "run"
@@ -163,7 +164,7 @@ def test_stale_and_foreign_locks(small_config, tmp_path):
 @pytest.mark.flow
 def test_flow_resume_after_a_kill(prefect_harness, small_config, tmp_path):
     # The flow (what `pqflow run --resume` calls) finishes what the killed attempt left.
-    from pipeline import run_in_process, run_quarterly
+    from pqflow.pipeline import run_in_process, run_quarterly
 
     cfg = small_config()
     reference = tmp_path / "uninterrupted"
@@ -191,7 +192,8 @@ def test_interrupted_flow_keeps_every_finished_part_and_counts_right(prefect_har
     # because parts were recorded by the flow's loop, not where they were written.
     from typer.testing import CliRunner
 
-    import pipeline.flows as flows
+    import pqflow.jobs.run as run
+    import pqflow.pipeline.flows as flows
     from pqflow.cli import app
 
     cfg = small_config()  # 4 + 4 parts
@@ -199,7 +201,7 @@ def test_interrupted_flow_keeps_every_finished_part_and_counts_right(prefect_har
     flows.run_in_process(cfg, reference)
     out = tmp_path / "run"
     finished = {("real_world", 0), ("real_world", 1), ("real_world", 2), ("real_world", 3), ("market_consistent", 0)}
-    real, real_loop = flows.generate_part, flows.as_completed
+    real, real_loop = run.generate_part, flows.as_completed
 
     def failing(calibration, plan, measure, batch, staging):
         if (measure, batch.index) not in finished:
@@ -212,12 +214,12 @@ def test_interrupted_flow_keeps_every_finished_part_and_counts_right(prefect_har
         yield from [f for f in futures if f.state.is_completed()][:2]
         raise _Interrupted
 
-    monkeypatch.setattr(flows, "generate_part", failing)
+    monkeypatch.setattr(run, "generate_part", failing)
     monkeypatch.setattr(flows, "as_completed", interrupted)
     monkeypatch.delenv("COLUMNS", raising=False)
     with pytest.raises(_Interrupted):
         CliRunner().invoke(app, ["run", str(cfg), "--out", str(out), "--workers", "2"])
-    monkeypatch.setattr(flows, "generate_part", real)  # the real part generator and loop again
+    monkeypatch.setattr(run, "generate_part", real)  # the real part generator and loop again
     monkeypatch.setattr(flows, "as_completed", real_loop)
     staging = staging_path(out)
     recorded = [json.loads(x) for x in (staging / PROGRESS).read_text().splitlines()]

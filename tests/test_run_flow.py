@@ -23,7 +23,7 @@ def _digests(run_dir: Path) -> dict[str, str]:
 
 
 def test_flow_writes_both_sets_and_is_reproducible(prefect_harness, small_config, tmp_path, monkeypatch):
-    from pipeline import run_quarterly
+    from pqflow.pipeline import run_quarterly
 
     cfg = small_config()
     first = tmp_path / "run-a"
@@ -61,7 +61,7 @@ def test_flow_writes_both_sets_and_is_reproducible(prefect_harness, small_config
         run_quarterly(cfg, first)
 
     # A run that fails part-way leaves the earlier run exactly as it was, and no debris.
-    import pipeline.flows as flows
+    import pqflow.jobs.run as flows  # the run's steps, which the flow's tasks wrap
 
     real = flows.generate_part
 

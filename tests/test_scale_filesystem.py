@@ -23,7 +23,7 @@ def _local_digests(run_dir):
 
 
 def test_run_to_a_non_local_filesystem_matches_the_local_run(small_config, tmp_path, monkeypatch):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     monkeypatch.chdir(tmp_path)  # the local staging folder goes to ./.pqflow/staging
     cfg = small_config()
@@ -55,7 +55,7 @@ def test_run_to_a_non_local_filesystem_matches_the_local_run(small_config, tmp_p
 
 
 def test_in_memory_store_and_unfinished_prefix(small_config, tmp_path, monkeypatch):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     monkeypatch.chdir(tmp_path)
     store = pafs._MockFileSystem()

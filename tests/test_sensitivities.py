@@ -61,7 +61,7 @@ def _write(root: Path, data: dict[str, Any]) -> Path:
 
 @pytest.fixture(scope="module")
 def run(tmp_path_factory) -> Path:
-    from pipeline.flows import run_in_process
+    from pqflow.pipeline.flows import run_in_process
 
     root = tmp_path_factory.mktemp("sens")
     out = root / "run"
@@ -166,7 +166,7 @@ def test_value_reports_every_sensitivity_with_paired_and_independent_se(run, tmp
 
 
 def test_shocks_that_find_nothing_or_bad_files_are_refused(tmp_path):
-    from pipeline.flows import run_in_process
+    from pqflow.pipeline.flows import run_in_process
 
     data = copy.deepcopy(BASE)
     data["sensitivities"] = [{"name": "vols", "swaption_vol_relative": 0.2}]  # Hull-White typed in: no quotes
@@ -211,7 +211,7 @@ def test_prefect_flow_writes_the_same_sensitivity_sets(prefect_harness, run, tmp
     very bytes the in-process run writes (each part depends on its seed, measure and batch only)."""
     from conftest import run_digests
 
-    from pipeline import run_quarterly
+    from pqflow.pipeline import run_quarterly
 
     result = run_quarterly(_write(tmp_path, BASE), tmp_path / "flow", workers=2)
     assert result["summary"]["verdict"] in ("pass", "inconclusive") and set(result["summary"]["sensitivities"]) == {

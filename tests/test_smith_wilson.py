@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from curve_helpers import par_rates_from_curve, smith_wilson_from_par_rates, smith_wilson_from_zero_rates
 
 from pqflow.errors import MarketDataError
-from pqflow.market.bootstrap import par_rates_from_curve
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.smith_wilson import (
     EXTRAPOLATION_METHODS,
@@ -15,8 +15,6 @@ from pqflow.market.smith_wilson import (
     fit_smith_wilson,
     par_swap_instruments,
     register_extrapolation_method,
-    smith_wilson_from_par_rates,
-    smith_wilson_from_zero_rates,
     zero_coupon_instruments,
 )
 

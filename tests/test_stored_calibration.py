@@ -10,8 +10,8 @@ import pytest
 
 import pqflow.calibration.assemble as assemble
 import pqflow.jobs.steps as steps
-from pipeline import run_in_process
 from pqflow.errors import ConfigError
+from pqflow.pipeline import run_in_process
 
 
 def _digests(run_dir):

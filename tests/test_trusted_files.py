@@ -26,7 +26,7 @@ READERS = ("verify", "report", "value", "compare", "export")
 
 @pytest.fixture(scope="module")
 def finished_run(tmp_path_factory, demo_config_dict) -> Path:
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
 
     root = tmp_path_factory.mktemp("trusted")
     data = copy.deepcopy(demo_config_dict)
@@ -167,7 +167,7 @@ HOSTILE = '<img src=x onerror="alert(1)">&\''
 
 
 def test_report_escapes_hostile_names_in_every_field_it_shows(tmp_path, monkeypatch):
-    from pipeline import run_in_process
+    from pqflow.pipeline import run_in_process
     from pqflow.report import build_report_html
 
     demo = REPO / "scenario_configs" / "demo.toml"

@@ -228,10 +228,10 @@ def run(
     os.environ.setdefault("PREFECT_LOGGING_HANDLERS_CONSOLE_LEVEL", "CRITICAL")
     import tempfile
 
-    from pipeline.home import check_prefect_home
     from pqflow.calibration.assemble import assemble_calibration, check_calibration_fits, load_calibration
     from pqflow.config.loader import apply_overrides, load_config
     from pqflow.jobs.steps import plan_run
+    from pqflow.pipeline.home import check_prefect_home
     from pqflow.storage.filesystem import check_remote_target, resolve_target, target_lock_path
     from pqflow.storage.jsonio import write_json_atomic
     from pqflow.storage.rundir import acquire_lock, check_target, release_lock
@@ -253,7 +253,7 @@ def run(
         kind = runner or ("dask" if dask_address else cfg.execution.runner)
         if kind != "dask" and (dask_address or dask_workers):
             raise PqflowError("--dask-address and --dask-workers go with --runner dask")
-        from pipeline.deployments import api_url, check_server
+        from pqflow.pipeline.deployments import api_url, check_server
 
         check_prefect_home()
         server = api_url()
@@ -298,7 +298,7 @@ def run(
         )
         where = f"the Prefect server at {server}" if server else "Prefect in local mode (temporary server)"
         console.print(f"starting the flow on {where}, {kind} runner...", style="dim", highlight=False, markup=False)
-        from pipeline import run_quarterly
+        from pqflow.pipeline import run_quarterly
 
         with terminate_as_interrupt():
             result = run_quarterly(
@@ -832,7 +832,7 @@ def compare(
 
             target = attribution_dir or new_run.parent / f"{new_run.name}-attribution"
             check_attribution(old_run, new_run, old_config, new_config, target)  # before Prefect starts
-            from pipeline.attribution import attribute_change
+            from pqflow.pipeline.attribution import attribute_change
 
             (err_console if as_json else console).print(
                 f"attribution: one run and valuation per step into {target} (Prefect tasks)...", style="dim", highlight=False)
@@ -922,7 +922,7 @@ def deploy(
     paused: Annotated[bool, typer.Option("--paused", help="Register with the schedule paused.")] = False,
 ) -> None:
     """Register the quarterly run as a Prefect deployment on the server at PREFECT_API_URL."""
-    from pipeline.deployments import deploy_quarterly
+    from pqflow.pipeline.deployments import deploy_quarterly
 
     try:
         info = deploy_quarterly(

@@ -83,7 +83,10 @@ from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.jsonio import read_json
 from pqflow.storage.parquet import file_sha256
 
-__all__ = ["Calibration", "assemble_calibration", "build_model", "fit_curve", "load_calibration", "RATES_DRIVER"]
+__all__ = [
+    "Calibration", "assemble_calibration", "build_model", "fit_curve", "load_calibration", "RATES_DRIVER",
+    "curve_from_calibration_file",
+]
 
 _REL_TOL = 1e-12
 _schedule_json = schedule_json
@@ -301,6 +304,11 @@ def load_calibration(path: str | Path) -> Calibration:
         raise ConfigError(f"{path}: calibration file not found") from None
     except (KeyError, TypeError, ValueError, json.JSONDecodeError) as exc:
         raise ConfigError(f"{path}: not a pqflow calibration file ({exc!r})") from None
+
+
+def curve_from_calibration_file(run_dir: str | Path) -> DiscountCurve:
+    """Today's curve as recorded in the run's ``calibration.json`` (an input, not the model)."""
+    return curve_from_json(read_json(Path(run_dir) / "calibration.json")["parameters"]["curve"])
 
 
 def _non_finite_key(value: Any, key: str) -> str | None:

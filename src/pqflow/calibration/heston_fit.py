@@ -42,7 +42,6 @@ __all__ = [
     "HestonFitRow",
     "HestonFitReport",
     "calibrate_heston",
-    "heston_params_from_json",
 ]
 
 PARAMETERS = ("v0", "kappa", "theta", "xi", "rho")
@@ -134,10 +133,6 @@ class HestonFitReport:
             "at_bounds": list(self.at_bounds),
             "rows": [dict(vars(r)) for r in self.rows],
         }
-
-
-def heston_params_from_json(data: dict[str, Any]) -> HestonParams:
-    return HestonParams(**{k: float(data[k]) for k in PARAMETERS})
 
 
 def _pricing_label(rates, correlation, p: HestonParams, expiry: float) -> str:

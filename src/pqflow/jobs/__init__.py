@@ -1,4 +1,5 @@
-"""The steps of a quarterly run as plain functions; ``pipeline/`` wraps each in a Prefect task."""
+"""The steps of a quarterly run as plain functions, and the run itself (``run.py``: serially here;
+``pqflow.pipeline`` runs each step as a Prefect task)."""
 
 from __future__ import annotations
 

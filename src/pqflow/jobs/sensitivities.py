@@ -36,7 +36,6 @@ __all__ = [
     "generate_sensitivity_part",
     "validate_sensitivity",
     "record_sensitivities",
-    "run_sensitivities",
     "check_sensitivity_inputs",
 ]
 
@@ -161,24 +160,6 @@ def manifest_entry(config: RunConfig) -> dict[str, Any]:
             for s in config.sensitivities
         ]
     }
-
-
-def run_sensitivities(
-    config: RunConfig, base: Calibration, plan: RunPlan, run_dir: str | Path, *, source: str = "configuration"
-) -> tuple[list[PartRecord], dict[str, Any] | None]:
-    """Every sensitivity one after another in this process (no scheduler): calibrate, generate,
-    validate, record. Returns the part records and the updated run summary (``None`` without
-    sensitivities)."""
-    if not config.sensitivities:
-        return [], None
-    parts: list[PartRecord] = []
-    summaries = {}
-    for sens in config.sensitivities:
-        cal = calibrate_sensitivity(config, sens, base, run_dir, source=source)
-        for m, b in sensitivity_tasks(plan, sens):
-            parts.append(generate_sensitivity_part(cal, plan, sens.name, m, b, run_dir))
-        summaries[sens.name] = validate_sensitivity(run_dir, sens, config)
-    return parts, record_sensitivities(run_dir, config, summaries)
 
 
 def check_sensitivity_inputs(config: RunConfig, *, source: str = "configuration") -> None:

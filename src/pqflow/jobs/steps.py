@@ -24,8 +24,6 @@ from pqflow.calibration.assemble import Calibration, build_model
 from pqflow.config.loader import config_hash
 from pqflow.config.schema import RunConfig
 from pqflow.errors import ConfigError
-from pqflow.market.curve import DiscountCurve
-from pqflow.market.serialize import curve_from_json
 from pqflow.measure.blocks import DensityBlock, check_blocks, default_blocks, density_block_column, economy_structure
 from pqflow.models.economy import EconomyModel
 from pqflow.models.heston import variance_column
@@ -270,11 +268,6 @@ def generate_part(
         rows=table.num_rows,
         sha256=file_sha256(path),
     )
-
-
-def curve_from_calibration_file(run_dir: str | Path) -> DiscountCurve:
-    """Today's curve as recorded in the run's ``calibration.json`` (an input, not the model)."""
-    return curve_from_json(read_json(Path(run_dir) / "calibration.json")["parameters"]["curve"])
 
 
 def validate_staged_run(run_dir: str | Path, config: RunConfig) -> dict[str, Any]:

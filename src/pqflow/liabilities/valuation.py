@@ -30,8 +30,8 @@ from pathlib import Path
 
 import numpy as np
 
+from pqflow.calibration.assemble import curve_from_calibration_file
 from pqflow.errors import RunDirectoryError
-from pqflow.jobs.steps import curve_from_calibration_file
 from pqflow.liabilities.portfolio import LiabilityDataError, Portfolio, load_portfolio
 from pqflow.liabilities.products import needed_bond_maturities, needed_columns, project_model_point
 from pqflow.liabilities.scenarios import (

@@ -55,8 +55,6 @@ __all__ = [
     "SmithWilsonCurve",
     "SmithWilsonReport",
     "fit_smith_wilson",
-    "smith_wilson_from_zero_rates",
-    "smith_wilson_from_par_rates",
     "convergence_point",
     "ExtrapolationMethod",
     "EXTRAPOLATION_METHODS",
@@ -502,42 +500,6 @@ def fit_smith_wilson(
         n_instruments=int(instruments.market_values.size),
     )
     return curve, report
-
-
-def smith_wilson_from_zero_rates(
-    maturities: np.ndarray,
-    zero_rates: np.ndarray,
-    *,
-    ufr: float,
-    credit_risk_adjustment_bp: float = 0.0,
-    **options: Any,
-) -> tuple[SmithWilsonCurve, SmithWilsonReport]:
-    """:func:`fit_smith_wilson` on annually compounded zero rates ``(n,)`` at maturities ``(n,)``.
-
-    ``options`` are passed on to :func:`fit_smith_wilson`.
-    """
-    inst = zero_coupon_instruments(
-        maturities, zero_rates, credit_risk_adjustment_bp=credit_risk_adjustment_bp
-    )
-    return fit_smith_wilson(inst, ufr=ufr, **options)
-
-
-def smith_wilson_from_par_rates(
-    maturities: np.ndarray,
-    par_rates: np.ndarray,
-    *,
-    ufr: float,
-    credit_risk_adjustment_bp: float = 0.0,
-    **options: Any,
-) -> tuple[SmithWilsonCurve, SmithWilsonReport]:
-    """:func:`fit_smith_wilson` on annual-fixed-leg par swap rates ``(n,)``, whole-year maturities.
-
-    ``options`` are passed on to :func:`fit_smith_wilson`.
-    """
-    inst = par_swap_instruments(
-        maturities, par_rates, credit_risk_adjustment_bp=credit_risk_adjustment_bp
-    )
-    return fit_smith_wilson(inst, ufr=ufr, **options)
 
 
 # --------------------------------------------------------------------------------------------

@@ -51,6 +51,8 @@ from __future__ import annotations
 import numpy as np
 from scipy.linalg import solve_triangular
 
+from pqflow.models.cir_credit import real_world_square_root_drift
+
 __all__ = [
     "real_world_square_root_drift",
     "price_of_risk_for_long_run_mean",
@@ -58,24 +60,6 @@ __all__ = [
     "cir_log_density_increment",
     "cir_marginal_log_density_increment",
 ]
-
-
-def real_world_square_root_drift(
-    mean_reversion: float, long_run_mean: float, volatility: float, price_of_risk: float
-) -> tuple[float, float]:
-    """``(kappa^P, mu^P)`` for the price of risk ``lambda = theta sqrt(y)`` (see module doc).
-
-    Raises ``ValueError`` if ``kappa^P = kappa - nu theta`` is not positive: the real-world
-    factor would not revert to a mean (it is still a valid process, but ``mu^P`` has no meaning
-    and the projections would explode); choose a smaller ``theta``.
-    """
-    kappa_p = mean_reversion - volatility * price_of_risk
-    if not kappa_p > 0.0:
-        raise ValueError(
-            f"price of risk {price_of_risk:g} makes the real-world mean reversion "
-            f"kappa - nu theta = {kappa_p:g} not positive; it must stay above 0"
-        )
-    return kappa_p, mean_reversion * long_run_mean / kappa_p
 
 
 def price_of_risk_for_long_run_mean(

@@ -30,7 +30,7 @@ change of ``kappa theta`` (a variance price of risk not proportional to ``sqrt(v
 measures singular whenever the variance can reach 0; and a real-world volatility of variance
 different from ``xi`` can never be reached by a change of drift.
 
-Density weights of the scheme (:func:`pqflow.models.heston.simulate_heston_paths`): each
+Density weights of the scheme (:func:`pqflow.simulation.heston_scheme.simulate_heston_paths`): each
 substep moves the index and the variance with the part's own independent normals (and the
 projection's increments from the economy, whose shift is in the economy's density). Given the
 past, the two measures' substep laws are Gaussian with the same covariance and means that
@@ -47,9 +47,9 @@ of the two discretised chains given the economy, so it multiplies the economy's 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
+
+from pqflow.models.heston import HestonPricesOfRisk  # the parameter record; its derivation is here
 
 __all__ = [
     "HestonPricesOfRisk",
@@ -58,18 +58,6 @@ __all__ = [
     "heston_log_density_increment",
     "stationary_mean_sqrt_variance",
 ]
-
-
-@dataclass(frozen=True, kw_only=True)
-class HestonPricesOfRisk:
-    """``lambda_perp`` (``equity``) and ``lambda_B`` (``variance``): the prices of risk of the
-    index's and the variance's own independent shocks, both multiplying ``sqrt(v)``, with the
-    real-world ``kappa^P`` and ``theta^P`` they imply (module docstring)."""
-
-    equity: float
-    variance: float
-    kappa_real_world: float
-    theta_real_world: float
 
 
 def stationary_mean_sqrt_variance(kappa: float, theta: float, xi: float) -> float:

@@ -70,9 +70,10 @@ Simulation: full-truncation Euler (Lord, Koekkoek and van Dijk, *Quantitative Fi
 
 with ``kappa_m = kappa`` (market consistent) or ``kappa^P`` (real world, see
 :mod:`pqflow.measure.cir_density`, which also gives the density weights from the same normals,
-exact for the discretised chain). The factor and therefore the intensity minus its shift is
-never negative. The scheme is biased (weak order one in the substep; Lord et al. find full
-truncation the least biased of the simple Euler fixes). Most of the bias is the Euler drift's
+exact for the discretised chain; the scheme itself: :mod:`pqflow.simulation.credit`). The
+factor and therefore the intensity minus its shift is never negative. The scheme is biased
+(weak order one in the substep; Lord et al. find full truncation the least biased of the
+simple Euler fixes). Most of the bias is the Euler drift's
 mean reversion (``1 - kappa h`` in place of ``e^{-kappa h}``) and the truncation, which lifts
 the mean of the factor; both make the intensity integral too large and the simulated credit
 factor too small. Stated bounds, for the bias of the 10-year credit factor ``S_L(0, 10)``
@@ -100,35 +101,24 @@ import numpy as np
 
 from pqflow.market.correlation import check_correlation_matrix
 from pqflow.market.curve import DiscountCurve
-from pqflow.measure.cir_density import (
-    cir_density_coefficients,
-    cir_log_density_increment,
-    cir_marginal_log_density_increment,
-    real_world_square_root_drift,
-)
-from pqflow.models.hull_white_equity import bond_column
 
 __all__ = [
     "CirParams",
     "HazardCurve",
     "CreditRating",
     "CirCreditModel",
-    "CreditPaths",
     "cir_laplace",
     "cir_forward",
     "real_world_cir",
     "shift",
     "shift_integral",
     "credit_factor",
-    "survival_probability",
     "zero_spread",
-    "defaultable_zcb_price",
     "intensity_column",
     "cumulative_intensity_column",
     "dzcb_column",
     "spread_column",
-    "defaultable_bond_columns",
-    "simulate_credit",
+    "real_world_square_root_drift",
 ]
 
 MEASURES = ("real_world", "market_consistent")
@@ -293,6 +283,24 @@ def cir_forward(p: CirParams, c: float, u: np.ndarray | float) -> np.ndarray:
     return 2.0 * c * kappa * mu * om / dm + 4.0 * c * h**2 * p.initial * e / dm**2
 
 
+def real_world_square_root_drift(
+    mean_reversion: float, long_run_mean: float, volatility: float, price_of_risk: float
+) -> tuple[float, float]:
+    """``(kappa^P, mu^P)`` for the price of risk ``lambda = theta sqrt(y)`` (see :mod:`pqflow.measure.cir_density`).
+
+    Raises ``ValueError`` if ``kappa^P = kappa - nu theta`` is not positive: the real-world
+    factor would not revert to a mean (it is still a valid process, but ``mu^P`` has no meaning
+    and the projections would explode); choose a smaller ``theta``.
+    """
+    kappa_p = mean_reversion - volatility * price_of_risk
+    if not kappa_p > 0.0:
+        raise ValueError(
+            f"price of risk {price_of_risk:g} makes the real-world mean reversion "
+            f"kappa - nu theta = {kappa_p:g} not positive; it must stay above 0"
+        )
+    return kappa_p, mean_reversion * long_run_mean / kappa_p
+
+
 def real_world_cir(rating: CreditRating) -> CirParams:
     """The rating's factor under the real-world measure: ``kappa^P = kappa - nu theta``,
     ``mu^P = kappa mu / kappa^P``, same ``nu`` and ``y_0``."""
@@ -334,26 +342,6 @@ def credit_factor(
     return np.exp(log_a - loss * shift_part - b * np.asarray(y, dtype=float))
 
 
-def survival_probability(
-    rating: CreditRating,
-    t: np.ndarray | float,
-    maturity: np.ndarray | float,
-    y: np.ndarray | float,
-    *,
-    measure: str = "market_consistent",
-) -> np.ndarray:
-    """``E[exp(-int_t^{t+m} lambda) | y_t]`` under ``measure``: the probability of surviving
-    to ``t + m`` given survival to ``t`` (the real-world one uses ``kappa^P, mu^P``)."""
-    if measure not in MEASURES:
-        raise ValueError(f"unknown measure {measure!r}: use one of {MEASURES}")
-    p = rating.cir if measure == "market_consistent" else real_world_cir(rating)
-    t = np.asarray(t, dtype=float)
-    m = np.asarray(maturity, dtype=float)
-    log_a, b = cir_laplace(p, 1.0, m)
-    shift_part = shift_integral(rating, t + m) - shift_integral(rating, t)
-    return np.exp(log_a - shift_part - b * np.asarray(y, dtype=float))
-
-
 def zero_spread(
     rating: CreditRating, t: np.ndarray | float, maturity: np.ndarray | float, y: np.ndarray | float
 ) -> np.ndarray:
@@ -362,17 +350,6 @@ def zero_spread(
     if np.any(m <= 0.0):
         raise ValueError("spread maturities must be positive")
     return -np.log(credit_factor(rating, t, m, y)) / m
-
-
-def defaultable_zcb_price(
-    rating: CreditRating,
-    risk_free_bond: np.ndarray | float,
-    t: np.ndarray | float,
-    maturity: np.ndarray | float,
-    y: np.ndarray | float,
-) -> np.ndarray:
-    """Pre-default price ``P(t, t+m) S_L(t, t+m)`` (independence of rates and intensity)."""
-    return np.asarray(risk_free_bond, dtype=float) * credit_factor(rating, t, maturity, y)
 
 
 # --------------------------------------------------------------------------- columns
@@ -543,163 +520,3 @@ def _risk_free_bonds(
         p0 = risk_free.discount(times)
         return [(risk_free.discount(times + m) / p0)[None, :] for m in mats]
     raise TypeError("risk_free must be None, a DiscountCurve or a mapping of maturity to bond prices")
-
-
-def defaultable_bond_columns(
-    model: CirCreditModel,
-    credit_columns: Mapping[str, np.ndarray],
-    rates_columns: Mapping[str, np.ndarray],
-) -> dict[str, np.ndarray]:
-    """``dzcb_{rating}_{m}y = zcb_{m}y x exp(-m spread_{rating}_{m}y)`` from a credit set and an
-    independent rates set of the same shape (``zcb_{m}y`` as the Hull-White models name them)."""
-    out = {}
-    for r in model.names:
-        for m in model.bond_maturities:
-            zcb = rates_columns.get(bond_column(m))
-            if zcb is None:
-                raise ValueError(f"the rates set has no column {bond_column(m)}")
-            out[dzcb_column(r, m)] = zcb * np.exp(-m * credit_columns[spread_column(r, m)])
-    return out
-
-
-# --------------------------------------------------------------------------- simulation
-
-
-@dataclass(frozen=True, kw_only=True)
-class CreditPaths:
-    """One simulated credit set (``d`` ratings, ``n`` paths, ``n_times`` output times).
-
-    times: ``(n_times,)``; factor: ``y_t = x_t^+``, ``(n, n_times, d)``;
-    integrated_factor: trapezoid ``int_0^t y ds`` over the substeps, ``(n, n_times, d)``;
-    log_density_increments: per output step, ``(n, n_times - 1)`` (``log dQ/dP`` in the
-    real-world set, ``log dP/dQ`` in the market-consistent set);
-    density: ``exp`` of their running sums, ``(n, n_times)``, 1 at time 0;
-    columns: :meth:`CirCreditModel.columns`, each ``(n, n_times)``;
-    rating_density: each rating's own density (its marginal chain's likelihood ratio,
-    :func:`pqflow.measure.cir_density.cir_marginal_log_density_increment`), ``(d, n, n_times)``;
-    equal to ``density`` for a single rating.
-    """
-
-    measure: str
-    times: np.ndarray
-    factor: np.ndarray
-    integrated_factor: np.ndarray
-    log_density_increments: np.ndarray
-    density: np.ndarray
-    columns: dict[str, np.ndarray]
-    rating_density: np.ndarray | None = None
-
-
-def simulate_credit(
-    params: CirCreditModel,
-    times: np.ndarray,
-    rng_normals_or_generator: np.random.Generator | np.ndarray,
-    *,
-    measure: str,
-    n_paths: int,
-    substeps: int,
-    risk_free: DiscountCurve | Mapping[float, np.ndarray] | None = None,
-) -> CreditPaths:
-    """Simulate the ratings' intensities on ``times`` (start at 0, increasing) under ``measure``
-    with the full-truncation Euler scheme on ``substeps`` equal substeps per output step.
-
-    rng_normals_or_generator: a ``numpy.random.Generator`` (draws ``(substeps, d, n_paths)``
-    standard normals per output step, in order: the same numbers as one C-order draw of shape
-    ``(n_steps * substeps, d, n_paths)``) or that array itself.
-    risk_free: as in :meth:`CirCreditModel.columns` (``None``: no ``dzcb`` columns).
-    The density weights come from the same normals (:mod:`pqflow.measure.cir_density`); a
-    rating with ``price_of_risk = 0`` contributes nothing to them.
-    """
-    if measure not in MEASURES:
-        raise ValueError(f"unknown measure {measure!r}: use one of {MEASURES}")
-    if not (isinstance(n_paths, (int, np.integer)) and n_paths > 0):
-        raise ValueError("n_paths must be a positive integer")
-    if not (isinstance(substeps, (int, np.integer)) and substeps >= 1):
-        raise ValueError("substeps must be a positive integer")
-    times = np.ascontiguousarray(times, dtype=float)
-    if times.ndim != 1 or times.size < 1 or times[0] != 0.0 or np.any(np.diff(times) <= 0.0):
-        raise ValueError("times must be a 1-d array that starts at 0 and increases")
-    d, n, n_steps = len(params.ratings), int(n_paths), times.size - 1
-    normals = None
-    if isinstance(rng_normals_or_generator, np.random.Generator):
-        rng = rng_normals_or_generator
-    else:
-        rng = None
-        normals = np.asarray(rng_normals_or_generator, dtype=float)
-        if normals.shape != (n_steps * substeps, d, n):
-            raise ValueError(
-                f"normals must have shape (n_steps * substeps, n_ratings, n_paths) = "
-                f"{(n_steps * substeps, d, n)}, not {normals.shape}"
-            )
-
-    p_q = [r.cir for r in params.ratings]
-    kappa_mu = np.array([p.mean_reversion * p.long_run_mean for p in p_q])[:, None]
-    if measure == "market_consistent":
-        kappa_m = np.array([p.mean_reversion for p in p_q])[:, None]
-    else:
-        kappa_m = np.array([real_world_cir(r).mean_reversion for r in params.ratings])[:, None]
-    nu = np.array([p.volatility for p in p_q])[:, None]
-    theta = np.array([r.price_of_risk for r in params.ratings])
-    with_density = bool(np.any(theta != 0.0))
-    chol = params.chol
-
-    x = np.repeat(np.array([p.initial for p in p_q])[:, None], n, axis=1)  # (d, n)
-    yp = x.copy()
-    integ = np.zeros((d, n))
-    n_times = times.size
-    factor = np.empty((n, n_times, d))
-    integrated = np.empty((n, n_times, d))
-    log_inc = np.zeros((n, n_steps))
-    rating_inc = np.zeros((d, n, n_steps)) if with_density else None
-    factor[:, 0, :] = yp.T
-    integrated[:, 0, :] = 0.0
-    sq = np.empty((d, n))
-    dw = np.empty((d, n))
-    for k in range(n_steps):
-        h = (times[k + 1] - times[k]) / substeps
-        sqrt_h = np.sqrt(h)
-        if rng is not None:
-            block = rng.standard_normal((substeps, d, n))
-        else:
-            block = normals[k * substeps : (k + 1) * substeps]
-        step_log = np.zeros(n)
-        rating_log = np.zeros((d, n)) if rating_inc is not None else None
-        for j in range(substeps):
-            z = block[j]
-            np.sqrt(yp, out=sq)
-            if chol is None:
-                dw[...] = z
-            else:
-                np.matmul(chol, z, out=dw)
-            if with_density:
-                eta = cir_density_coefficients(theta, yp, h, chol)
-                step_log += cir_log_density_increment(z, eta, measure=measure)
-                if rating_log is not None:
-                    rating_log += cir_marginal_log_density_increment(dw, theta, yp, h, measure=measure)
-            # x += (kappa mu - kappa_m y^+) h + nu sqrt(y^+) sqrt(h) dw
-            x += (kappa_mu - kappa_m * yp) * h + (nu * sqrt_h) * sq * dw
-            y_new = np.maximum(x, 0.0)
-            integ += (0.5 * h) * (yp + y_new)
-            yp = y_new
-        factor[:, k + 1, :] = yp.T
-        integrated[:, k + 1, :] = integ.T
-        log_inc[:, k] = step_log
-        if rating_inc is not None:
-            rating_inc[:, :, k] = rating_log
-    density = np.ones((n, n_times))
-    if n_steps:
-        density[:, 1:] = np.exp(np.cumsum(log_inc, axis=1))
-    rating_density = np.ones((d, n, n_times))
-    if rating_inc is not None and n_steps:
-        rating_density[:, :, 1:] = np.exp(np.cumsum(rating_inc, axis=2))
-    cols = params.columns(times, factor, integrated, risk_free=risk_free)
-    return CreditPaths(
-        measure=measure,
-        times=times,
-        factor=factor,
-        integrated_factor=integrated,
-        log_density_increments=log_inc,
-        density=density,
-        columns=cols,
-        rating_density=rating_density,
-    )

@@ -81,11 +81,8 @@ __all__ = [
     "rate_log_cf_variance",
     "heston_forward_option",
     "heston_option_price",
-    "variance_mean",
-    "variance_variance",
     "variance_column",
-    "HestonPaths",
-    "simulate_heston_paths",
+    "HestonPricesOfRisk",
     "HestonIndex",
     "real_world_log_excess_growth",
     "heston_indices_to_json",
@@ -145,20 +142,6 @@ def heston_log_cf(p: HestonParams, u: np.ndarray | complex, expiry: np.ndarray |
     c = p.kappa * p.theta / p.xi**2 * ((b - d) * t - 2.0 * np.log((1.0 - g * e) / (1.0 - g)))
     dd = (b - d) / p.xi**2 * (1.0 - e) / (1.0 - g * e)
     return c + dd * p.v0
-
-
-def variance_mean(p: HestonParams, v: np.ndarray | float, h: np.ndarray | float) -> np.ndarray:
-    """``E[v_{t+h} | v_t = v] = theta + (v - theta) e^{-kappa h}`` (CIR; Cox, Ingersoll and Ross,
-    *Econometrica* 53 (1985))."""
-    return p.theta + (np.asarray(v, dtype=float) - p.theta) * np.exp(-p.kappa * np.asarray(h))
-
-
-def variance_variance(p: HestonParams, v: np.ndarray | float, h: np.ndarray | float) -> np.ndarray:
-    """``Var[v_{t+h} | v_t = v] = v xi^2 e^{-kh}(1 - e^{-kh})/k + theta xi^2 (1 - e^{-kh})^2/(2k)``
-    (Cox, Ingersoll and Ross 1985)."""
-    v = np.asarray(v, dtype=float)
-    e = np.exp(-p.kappa * np.asarray(h, dtype=float))
-    return v * p.xi**2 * e * (1.0 - e) / p.kappa + p.theta * p.xi**2 * (1.0 - e) ** 2 / (2.0 * p.kappa)
 
 
 def expected_sqrt_variance(p: HestonParams, t: np.ndarray | float) -> np.ndarray:
@@ -317,144 +300,16 @@ def variance_column(name: str) -> str:
 
 
 @dataclass(frozen=True, kw_only=True)
-class HestonPaths:
-    """One simulated Heston index (``n`` paths, ``n_times`` output times).
+class HestonPricesOfRisk:
+    """``lambda_perp`` (``equity``) and ``lambda_B`` (``variance``): the prices of risk of the
+    index's and the variance's own independent shocks, both multiplying ``sqrt(v)``, with the
+    real-world ``kappa^P`` and ``theta^P`` they imply (:mod:`pqflow.measure.heston_density`,
+    which derives them)."""
 
-    log_return: ``ln(S_t / S_0)`` of the total-return index, ``(n, n_times)``; variance: ``v^+``
-    at the output times, ``(n, n_times)``; log_density: the running sum of the scheme's log
-    likelihood ratio (``log dQ/dP`` real world, ``log dP/dQ`` market consistent), ``(n, n_times)``.
-    """
-
-    log_return: np.ndarray
-    variance: np.ndarray
-    log_density: np.ndarray
-
-
-def simulate_heston_paths(
-    p: HestonParams,
-    times: np.ndarray,
-    rng: np.random.Generator,
-    *,
-    measure: str,
-    n_paths: int,
-    substeps: int,
-    log_carry: np.ndarray,
-    prices_of_risk=None,
-    antithetic: bool = False,
-    explained: float = 0.0,
-    projection_increments: np.ndarray | None = None,
-    projection_shift: np.ndarray | None = None,
-) -> HestonPaths:
-    """The Heston index on ``times`` with ``substeps`` equal substeps per output step.
-
-    Drivers. The index's driver is ``B_S = P + s B_perp``: ``P = sum_j beta_j B_j`` its
-    projection on Gaussian drivers of the economy (variance ``explained = 1 - s^2`` per year) and
-    ``B_perp`` independent of every Gaussian driver; the variance's driver is
-    ``W_v = (rho / s) B_perp + c B_v`` (``c = sqrt(1 - rho^2 / s^2)``), so that
-    ``corr(B_S, W_v) = rho``, ``corr(B_S, B_j)`` is the configured correlation and
-    ``corr(W_v, B_j) = 0`` for every Gaussian driver. ``projection_increments`` ``(n, n_steps)``:
-    ``P``'s increment over each output step (in the set's measure, from the economy); within the
-    step ``P`` is filled in by a Brownian bridge from this part's own normals ``u_j``:
-    ``dP_j = dP / m + sqrt(explained h) (u_j - mean(u))`` (exact in law for Brownian increments
-    given their sum).
-
-    Scheme (full truncation for the variance, Lord, Koekkoek and van Dijk, *Quantitative Finance*
-    10 (2010); log-Euler for the index), per substep ``h`` with independent normals
-    ``(z_perp, z_v[, u])`` from ``rng`` (drawn as ``(substeps, 2 or 3, n)`` per output step):
-
-        dB_S = dP_j + s sqrt(h) z_perp,   dW_v = sqrt(h) ((rho / s) z_perp + c z_v),
-        ln S += carry_k h / Dt_k + (sqrt(v^+) mu_j + s lambda_perp v^+) h - v^+ h / 2 + sqrt(v^+) dB_S,
-        x    += (kappa theta - kappa_m v^+) h + xi sqrt(v^+) dW_v,     v^+ = max(x, 0),
-
-    ``kappa_m = kappa`` (market consistent) or ``kappa^P`` (real world); the premium term
-    (:mod:`pqflow.measure.heston_density`, ``mu_j`` the projection's shift per year over the
-    substep) only in the real-world set; ``S`` is the total-return index (income reinvested; the price index
-    is ``S e^{-qt}``). ``log_carry``: ``(n, n_steps)``, the log growth of the cash account over
-    each output step, ``int r dt`` (from the economy's cash account, or deterministic), spread
-    evenly over the substeps (the deflated index does not depend on it). ``projection_shift``
-    ``(n_steps, substeps)``: ``sum_j beta_j int lambda_j dt`` over each substep, the real-world
-    shift the economy gives ``P`` (``dB^Q_j = dB^P_j + lambda_j dt``).
-    ``prices_of_risk``: :class:`pqflow.measure.heston_density.HestonPricesOfRisk` (``None``: no
-    change of measure, density 1). The deflated index ``S_t / B_t`` is a martingale of the
-    scheme in the market-consistent set: each substep's factor ``exp(sqrt(v^+) dB_S - v^+ h / 2)``
-    has conditional mean 1 because ``v^+`` is known at the substep's start.
-
-    Antithetic: paths ``(2j, 2j+1)`` use ``z`` and ``-z`` (and the economy's mirrored drivers);
-    the partner is simulated (the scheme is not linear in ``z``), not mirrored.
-    """
-    from pqflow.measure.heston_density import heston_density_coefficients, heston_log_density_increment
-
-    if measure not in ("real_world", "market_consistent"):
-        raise ValueError(f"unknown measure {measure!r}")
-    times = np.ascontiguousarray(times, dtype=float)
-    n_steps = times.size - 1
-    if log_carry.shape != (n_paths, n_steps):
-        raise ValueError(f"log_carry must have shape {(n_paths, n_steps)}, not {log_carry.shape}")
-    if antithetic and n_paths % 2:
-        raise ValueError("antithetic sampling needs an even number of paths")
-    with_rates = explained != 0.0
-    if with_rates and (projection_increments is None or projection_increments.shape != (n_paths, n_steps)):
-        raise ValueError(f"a projection on the economy needs projection_increments of shape {(n_paths, n_steps)}")
-    shift = np.zeros((n_steps, substeps)) if projection_shift is None else np.asarray(projection_shift, dtype=float)
-    if shift.shape != (n_steps, substeps):
-        raise ValueError(f"projection_shift must have shape {(n_steps, substeps)}, not {shift.shape}")
-    if not (0.0 <= explained < 1.0 and p.rho**2 < 1.0 - explained):
-        raise ValueError(f"needs 0 <= explained < 1 - rho^2, got explained {explained!r} and rho {p.rho!r}")
-    n_draw = n_paths // 2 if antithetic else n_paths
-    lam = prices_of_risk
-    real = measure == "real_world"
-    kappa_m = lam.kappa_real_world if (real and lam is not None) else p.kappa
-    lam_s = np.sqrt(1.0 - explained) * lam.equity if (real and lam is not None) else 0.0
-    kappa_theta = p.kappa * p.theta
-    s_perp = np.sqrt(1.0 - explained)
-    s_proj = np.sqrt(explained)
-    a_v = p.rho / s_perp
-    c_v = np.sqrt(1.0 - a_v * a_v)
-    rows = 3 if with_rates else 2
-    x = np.full(n_paths, p.v0)
-    vp = x.copy()
-    lnS = np.zeros(n_paths)
-    logw = np.zeros(n_paths)
-    out_s = np.zeros((n_paths, times.size))
-    out_v = np.empty((n_paths, times.size))
-    out_w = np.zeros((n_paths, times.size))
-    out_v[:, 0] = vp
-    for k in range(n_steps):
-        dt = times[k + 1] - times[k]
-        h = dt / substeps
-        sqrt_h = np.sqrt(h)
-        draw = rng.standard_normal((substeps, rows, n_draw))
-        if antithetic:
-            z_all = np.empty((substeps, rows, n_paths))
-            z_all[:, :, 0::2] = draw
-            z_all[:, :, 1::2] = -draw
-        else:
-            z_all = draw
-        carry = log_carry[:, k] / substeps
-        if with_rates:
-            u = z_all[:, 2, :]
-            bridge = projection_increments[:, k] / substeps + s_proj * sqrt_h * (u - u.mean(axis=0))
-            c_shift = shift[k] - shift[k].mean()  # the bridge's own shift between the measures
-        for j in range(substeps):
-            zp, zv = z_all[j, 0], z_all[j, 1]
-            sq = np.sqrt(vp)
-            if lam is not None:
-                es, ep = heston_density_coefficients(lam, vp, h)
-                logw += heston_log_density_increment(zp, zv, es, ep, measure=measure)
-                if with_rates and c_shift[j] != 0.0:
-                    eu = c_shift[j] / (s_proj * sqrt_h)
-                    logw += heston_log_density_increment(z_all[j, 2], 0.0, eu, 0.0, measure=measure)
-            d_bs = s_perp * sqrt_h * zp
-            if with_rates:
-                d_bs = d_bs + bridge[j]
-            premium = (lam_s * vp + sq * (shift[k, j] / h)) * h if (real and lam is not None) else 0.0
-            lnS += carry + premium - 0.5 * vp * h + sq * d_bs
-            x += (kappa_theta - kappa_m * vp) * h + p.xi * sq * sqrt_h * (a_v * zp + c_v * zv)
-            vp = np.maximum(x, 0.0)
-        out_s[:, k + 1] = lnS
-        out_v[:, k + 1] = vp
-        out_w[:, k + 1] = logw
-    return HestonPaths(log_return=out_s, variance=out_v, log_density=out_w)
+    equity: float
+    variance: float
+    kappa_real_world: float
+    theta_real_world: float
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -539,8 +394,6 @@ def heston_indices_to_json(indices: dict[str, HestonIndex]) -> dict[str, Any]:
 
 def heston_indices_from_json(data: dict[str, Any]) -> dict[str, HestonIndex]:
     """Inverse of :func:`heston_indices_to_json` (``ValueError`` naming the entry otherwise)."""
-    from pqflow.measure.heston_density import HestonPricesOfRisk
-
     out = {}
     for name, entry in data.items():
         if entry.get("model") != "heston":

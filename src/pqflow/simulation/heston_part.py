@@ -37,10 +37,11 @@ import math
 
 import numpy as np
 
-from pqflow.models.heston import HestonIndex, HestonPaths, simulate_heston_paths
+from pqflow.models.heston import HestonIndex
 from pqflow.models.hull_white import alpha, integrated_variance
 from pqflow.models.schedule import as_schedule, segments
 from pqflow.models.total_return import TotalReturnIndex
+from pqflow.simulation.heston_scheme import HestonPaths, simulate_heston_paths
 
 __all__ = [
     "heston_generator",

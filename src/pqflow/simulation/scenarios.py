@@ -23,9 +23,10 @@ import numpy as np
 from pqflow.measure.blocks import DensityBlock, block_states, density_block_column, model_structure
 from pqflow.measure.density import deflator
 from pqflow.models.base import ScenarioModel
-from pqflow.models.cir_credit import CirCreditModel, simulate_credit
+from pqflow.models.cir_credit import CirCreditModel
 from pqflow.models.heston import HestonIndex, variance_column
 from pqflow.models.hull_white_equity import bond_column
+from pqflow.simulation.credit import simulate_credit
 from pqflow.simulation.engine import DENSITY_COLUMN, Workspace, simulate_batch
 from pqflow.simulation.heston_part import heston_generator, simulate_heston_index
 from pqflow.simulation.streams import batch_generator, credit_generator

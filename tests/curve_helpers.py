@@ -1,5 +1,8 @@
-"""Discount factors from par swap rates with an annual fixed leg, and a repricing check.
+"""Curve helpers the tests use as references (no production path uses them): discount factors
+bootstrapped from par swap rates with an annual fixed leg, a repricing check, and Smith-Wilson
+fitted to typed-in zero or par rates.
 
+Par bootstrap.
 A par swap of ``n`` years with fixed rate ``s_n`` paid annually is worth zero, i.e. the fixed leg
 is a par bond:
 
@@ -17,17 +20,27 @@ filling (its cash-flow-matrix form).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
 from pqflow.errors import MarketDataError
 from pqflow.market.curve import DiscountCurve, LogDiscountCurve
+from pqflow.market.smith_wilson import (
+    SmithWilsonCurve,
+    SmithWilsonReport,
+    fit_smith_wilson,
+    par_swap_instruments,
+    zero_coupon_instruments,
+)
 
 __all__ = [
     "BootstrapResult",
     "bootstrap_par_swaps",
     "par_rates_from_curve",
     "max_par_repricing_error",
+    "smith_wilson_from_zero_rates",
+    "smith_wilson_from_par_rates",
 ]
 
 _WHOLE_YEAR_TOL = 1e-9
@@ -143,3 +156,37 @@ def max_par_repricing_error(
     years, s = _whole_years(maturities, par_rates)
     target = s - credit_risk_adjustment_bp * 1e-4
     return float(np.max(np.abs(par_rates_from_curve(curve, years) - target)))
+
+
+def smith_wilson_from_zero_rates(
+    maturities: np.ndarray,
+    zero_rates: np.ndarray,
+    *,
+    ufr: float,
+    credit_risk_adjustment_bp: float = 0.0,
+    **options: Any,
+) -> tuple[SmithWilsonCurve, SmithWilsonReport]:
+    """:func:`~pqflow.market.smith_wilson.fit_smith_wilson` on annually compounded zero rates
+    ``(n,)`` at maturities ``(n,)``; ``options`` are passed on to it.
+    """
+    inst = zero_coupon_instruments(
+        maturities, zero_rates, credit_risk_adjustment_bp=credit_risk_adjustment_bp
+    )
+    return fit_smith_wilson(inst, ufr=ufr, **options)
+
+
+def smith_wilson_from_par_rates(
+    maturities: np.ndarray,
+    par_rates: np.ndarray,
+    *,
+    ufr: float,
+    credit_risk_adjustment_bp: float = 0.0,
+    **options: Any,
+) -> tuple[SmithWilsonCurve, SmithWilsonReport]:
+    """:func:`~pqflow.market.smith_wilson.fit_smith_wilson` on annual-fixed-leg par swap rates
+    ``(n,)``, whole-year maturities; ``options`` are passed on to it.
+    """
+    inst = par_swap_instruments(
+        maturities, par_rates, credit_risk_adjustment_bp=credit_risk_adjustment_bp
+    )
+    return fit_smith_wilson(inst, ufr=ufr, **options)
