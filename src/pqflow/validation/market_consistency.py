@@ -62,6 +62,7 @@ inconclusive with the count shown (``paying_units``; its raw score stays in
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -70,9 +71,10 @@ import pandas as pd
 
 from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_price
 from pqflow.errors import MarketDataError
+from pqflow.storage.scenario_set import SetPass
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
 from pqflow.validation.martingale import index_columns
-from pqflow.validation.run_files import RunInputs, stream_moments, time_index
+from pqflow.validation.run_files import RunInputs, Steps, add_moments, run_steps, set_passes, time_index
 from pqflow.validation.summary import family_critical_z, inconclusive_mask
 
 __all__ = [
@@ -375,22 +377,46 @@ def quote_cells(
     })
 
 
+def _payoff_derive(testable: list[InstrumentSpec], antithetic: bool):
+    """Per part: each testable instrument's deflated payoff, and whether it pays."""
+
+    def derive(t: np.ndarray, c: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+        v = _payoffs(testable, t, c)
+        paying = (v != 0.0).astype(float)
+        if antithetic:  # a pair pays when either path does: its unit mean is then exactly 1
+            paying = np.repeat(np.maximum(paying[0::2], paying[1::2]), 2, axis=0)
+        return {"v": v, "paying": paying}
+
+    return derive
+
+
 def market_consistency_table(
     inputs: RunInputs, *, vol_tolerance: dict[str, float] | None = None,
     measures: tuple[str, ...] = _MEASURES,
 ) -> tuple[pd.DataFrame, list[InstrumentSpec]]:
     """One row per (testable instrument, set); and every instrument read (testable or not).
     ``measures``: the sets to reprice from (a sensitivity may have the market-consistent one only)."""
+    passes = set_passes(inputs, measures)
+    return run_steps(passes, market_consistency_table_steps(inputs, passes, vol_tolerance=vol_tolerance,
+                                                            measures=measures))
+
+
+def market_consistency_table_steps(
+    inputs: RunInputs, passes: Mapping[str, SetPass], *, vol_tolerance: dict[str, float] | None = None,
+    measures: tuple[str, ...] = _MEASURES,
+) -> Steps[tuple[pd.DataFrame, list[InstrumentSpec]]]:
+    """:func:`market_consistency_table` as steps on the sets' shared passes."""
     tol = {**DEFAULT_VOL_TOLERANCE, **(vol_tolerance or {})}
     rows: list[dict[str, Any]] = []
     specs_all: list[InstrumentSpec] = []
+    pending = []
     for measure in measures:
-        reader = inputs.reader(measure)
+        reader = passes[measure].scenario_set
         columns = reader.column_names()
-        first_times, first_cols = next(reader.iter_arrays(["deflator", *index_columns(columns)]))
+        first_times, first = reader.head(["deflator", *index_columns(columns)])
         specs = parse_instruments(inputs, columns, first_times)
         specs = [
-            _with_equity_forward(s, inputs, float(first_cols[s.column_names[0]][0, 0]))
+            _with_equity_forward(s, inputs, first[s.column_names[0]])
             if s.kind == "equity_option" and s.untestable is None else s
             for s in specs
         ]
@@ -400,16 +426,11 @@ def market_consistency_table(
         if not testable:
             continue
         needed = ["deflator", *dict.fromkeys(c for s in testable for c in s.column_names)]
-        antithetic = reader.antithetic
-
-        def derive(t: np.ndarray, c: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
-            v = _payoffs(testable, t, c)
-            paying = (v != 0.0).astype(float)
-            if antithetic:  # a pair pays when either path does: its unit mean is then exactly 1
-                paying = np.repeat(np.maximum(paying[0::2], paying[1::2]), 2, axis=0)
-            return {"v": v, "paying": paying}
-
-        _, acc = stream_moments(reader, needed, derive)
+        derive = _payoff_derive(testable, reader.antithetic)
+        pending.append((measure, testable, add_moments(passes[measure], needed, derive)))
+    yield
+    for measure, testable, result in pending:
+        _, acc = result()
         mean, se = acc["v"].mean, acc["v"].std_error
         units = int(acc["paying"].count)
         paying_units = np.rint(acc["paying"].mean * units).astype(int)
@@ -452,11 +473,23 @@ def market_consistency_check(
     measures: tuple[str, ...] = _MEASURES,
 ) -> CheckResult:
     """The check's table and its ``summary.json`` entry (``not_applicable`` without instruments)."""
+    passes = set_passes(inputs, measures)
+    return run_steps(passes, market_consistency_steps(inputs, passes, vol_tolerance=vol_tolerance,
+                                                      measures=measures))
+
+
+def market_consistency_steps(
+    inputs: RunInputs, passes: Mapping[str, SetPass], *, vol_tolerance: dict[str, float] | None = None,
+    measures: tuple[str, ...] = _MEASURES,
+) -> Steps[CheckResult]:
+    """:func:`market_consistency_check` as steps on the sets' shared passes
+    (:func:`pqflow.validation.run_files.run_steps`)."""
     section = inputs.calibration.get("instruments") or {}
     if not (section.get("swaptions") or section.get("equity_options") or section.get("inflation_caps")):
         return CheckResult(name=CHECK, summary=not_applicable_entry(
             kind=KIND, reason="not applicable: no instruments in calibration.json"))
-    table, specs = market_consistency_table(inputs, vol_tolerance=vol_tolerance, measures=measures)
+    table, specs = yield from market_consistency_table_steps(inputs, passes, vol_tolerance=vol_tolerance,
+                                                             measures=measures)
     untestable = [{"instrument": s.label, "reason": s.untestable} for s in specs if s.untestable]
     if table.empty:
         entry = not_applicable_entry(kind=KIND, reason="no instrument is testable from the files")
