@@ -33,7 +33,7 @@ from pqflow.simulation.scenarios import simulate_part
 from pqflow.simulation.streams import MEASURE_STREAM
 from pqflow.storage.jsonio import read_json, write_json_atomic
 from pqflow.storage.manifest import MANIFEST, build_manifest
-from pqflow.storage.parquet import batch_table, file_sha256, part_name, units_metadata, write_part
+from pqflow.storage.parquet import batch_table, part_name, units_metadata, write_part_hashed
 
 __all__ = [
     "RunPlan",
@@ -260,13 +260,13 @@ def generate_part(
         first_scenario=batch.first,
         metadata=_part_metadata(calibration, plan, measure, batch, {c: units[c] for c in order}),
     )
-    path = write_part(table, Path(run_dir) / "scenarios" / measure / part_name(batch.index))
+    path, sha256 = write_part_hashed(table, Path(run_dir) / "scenarios" / measure / part_name(batch.index))
     return PartRecord(
         measure=measure,
         batch=batch.index,
         path=path.relative_to(Path(run_dir)).as_posix(),
         rows=table.num_rows,
-        sha256=file_sha256(path),
+        sha256=sha256,
     )
 
 

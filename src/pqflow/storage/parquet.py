@@ -35,6 +35,7 @@ __all__ = [
     "part_name",
     "batch_table",
     "write_part",
+    "write_part_hashed",
     "read_part",
     "part_paths",
     "iter_parts",
@@ -103,26 +104,41 @@ def write_part(table: pa.Table, path: str | Path, *, filesystem: pafs.FileSystem
     the local disk. On object stores the final "rename" is a copy (no atomic rename exists
     there): a run's readers trust only files listed in its manifest, which is written last.
     """
+    return write_part_hashed(table, path, filesystem=filesystem)[0]
+
+
+def write_part_hashed(
+    table: pa.Table, path: str | Path, *, filesystem: pafs.FileSystem | None = None
+) -> tuple[Path, str]:
+    """As :func:`write_part`, and the sha256 of the file's bytes, taken from the bytes as they
+    are written: the part is encoded into memory (one part, tens of MB), hashed there and
+    written out in one piece, so the file is never read back. The bytes are those
+    ``pyarrow.parquet.write_table`` writes to a path with the same options."""
     kwargs = parquet_write_kwargs(table)
+    sink = pa.BufferOutputStream()
+    pq.write_table(table, sink, **kwargs)
+    data = sink.getvalue()
+    digest = hashlib.sha256(memoryview(data)).hexdigest()
     if filesystem is None:
         path = Path(path)
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}-{threading.get_ident()}")
         try:
-            with naming(path):
-                pq.write_table(table, tmp, **kwargs)
+            with naming(path), open(tmp, "wb") as fh:
+                fh.write(memoryview(data))
             os.replace(tmp, path)
         except BaseException:
             tmp.unlink(missing_ok=True)
             raise
-        return path
+        return path, digest
     target = str(path)
     parent, _, name = target.rpartition("/")
     tmp = f"{parent}/.{name}.tmp-{os.getpid()}-{threading.get_ident()}"
     filesystem.create_dir(parent, recursive=True)
-    pq.write_table(table, tmp, filesystem=filesystem, **kwargs)
+    with filesystem.open_output_stream(tmp) as out:
+        out.write(data)
     filesystem.move(tmp, target)
-    return Path(target)
+    return Path(target), digest
 
 
 def read_part(path: str | Path, columns: Sequence[str] | None = None) -> pa.Table:

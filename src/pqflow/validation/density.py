@@ -20,16 +20,18 @@ ESS share falls below ``validation.ess_warning_share`` (:func:`usable_horizons`)
 from __future__ import annotations
 
 import re
+from collections.abc import Generator
 from typing import Any
 
 import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
+from pqflow.storage.scenario_set import ScenarioSet, SetPass
 from pqflow.validation.mean_tests import DENSITY_DEVIATION, CellMoments, mean_test, rule_for_density
-from pqflow.validation.reader import ScenarioSetReader
+from pqflow.validation.run_files import run_steps
 
-__all__ = ["density_table", "density_columns", "density_block", "usable_horizons", "DENSITY_COLUMNS"]
+__all__ = ["density_table", "density_steps", "density_columns", "density_block", "usable_horizons", "DENSITY_COLUMNS"]
 
 DENSITY_COLUMNS = {"real_world": "q_density", "market_consistent": "p_density"}
 
@@ -54,11 +56,18 @@ def density_block(column: str) -> str | None:
     raise ValueError(f"{column!r} is not a density column")
 
 
-def density_table(reader: ScenarioSetReader, *, credit_density: bool = False) -> pd.DataFrame:
+def density_table(reader: ScenarioSet, *, credit_density: bool = False) -> pd.DataFrame:
     """One row per (density column, output time): mean weight, its test, ESS and largest share.
 
     credit_density: whether the full density carries the CIR credit part (then it is judged by
     the robust t)."""
+    scan = SetPass(scenario_set=reader)
+    return run_steps({reader.measure: scan}, density_steps(scan, credit_density=credit_density))
+
+
+def density_steps(scan: SetPass, *, credit_density: bool = False) -> Generator[None, None, pd.DataFrame]:
+    """:func:`density_table` as steps of a shared pass (:func:`pqflow.validation.run_files.run_steps`)."""
+    reader = scan.scenario_set
     columns = density_columns(reader.measure, reader.column_names())
     if not columns:
         raise ValueError(f"{reader.set_dir}: no {DENSITY_COLUMNS[reader.measure]} column")
@@ -67,9 +76,10 @@ def density_table(reader: ScenarioSetReader, *, credit_density: bool = False) ->
     total: dict[str, np.ndarray] = {}
     total_sq: dict[str, np.ndarray] = {}
     largest: dict[str, np.ndarray] = {}
-    n_paths = 0
-    times = None
-    for times, cols in reader.iter_arrays(columns):
+    counted = {"n_paths": 0}
+    seen: list[np.ndarray] = []
+
+    def feed(times: np.ndarray, cols: dict[str, np.ndarray]) -> None:
         for c in columns:
             w = cols[c]
             m = CellMoments.of(w, antithetic, acc[c].shift if c in acc else None)
@@ -78,8 +88,13 @@ def density_table(reader: ScenarioSetReader, *, credit_density: bool = False) ->
             total[c] = total[c] + s if c in total else s
             total_sq[c] = total_sq[c] + s2 if c in total_sq else s2
             largest[c] = np.maximum(largest[c], mx) if c in largest else mx
-        n_paths += next(iter(cols.values())).shape[0]
-    assert times is not None
+        counted["n_paths"] += next(iter(cols.values())).shape[0]
+        seen[:] = [times]
+
+    scan.add(columns, feed)
+    yield
+    assert seen
+    times, n_paths = seen[0], counted["n_paths"]
     frames = []
     z99 = norm.ppf(0.995)
     for c in columns:

@@ -32,12 +32,12 @@ from typing import Any
 import pandas as pd
 
 from pqflow.validation.assets import martingale_assets
-from pqflow.validation.market_consistency import market_consistency_check
+from pqflow.validation.market_consistency import market_consistency_steps
 from pqflow.validation.mean_tests import credit_in_density, stochastic_volatility_assets
-from pqflow.validation.real_world import real_world_check
-from pqflow.validation.reconciliation import reconciliation_check
-from pqflow.validation.run_files import json_safe, load_run_inputs
-from pqflow.validation.summary import VERDICT_RULE, combine_verdicts, inconclusive_totals, validate_run
+from pqflow.validation.real_world import real_world_steps
+from pqflow.validation.reconciliation import reconciliation_steps
+from pqflow.validation.run_files import all_steps, json_safe, load_run_inputs, run_steps, set_passes
+from pqflow.validation.summary import VERDICT_RULE, combine_verdicts, inconclusive_totals, validate_run_steps
 
 __all__ = ["RunValidation", "run_checks", "overall_verdict", "RULE"]
 
@@ -92,8 +92,7 @@ def density_budget_for_run(inputs) -> tuple[pd.DataFrame | None, dict[str, dict[
         return None, {}
     grids = {}
     for measure in ("real_world", "market_consistent"):
-        times, _ = next(inputs.reader(measure).iter_arrays([]))
-        grids[measure] = times
+        grids[measure], _ = inputs.reader(measure).head()
     table = density_budget(model, cal.credit, grids)
     at_horizon: dict[str, dict[str, float]] = {}
     for measure, rows in table.groupby("measure", sort=False):
@@ -121,10 +120,17 @@ def run_checks(
     """
     inputs = load_run_inputs(run_dir)
     credit = credit_in_density(inputs.parameters, inputs.reader("real_world").column_names())
-    mart, dens, base = validate_run(run_dir, inputs.curve.discount, ess_warning_share=ess_warning_share,
-                                    extra_assets=partial(martingale_assets, inputs), credit_density=credit,
-                                    rates_drivers=inputs.rates_drivers,
-                                    non_lognormal=tuple(stochastic_volatility_assets(inputs.parameters)))
+    # every check registers what it reads of each set; each part is then read once for all of them
+    passes = set_passes(inputs)
+    (mart, dens, base), *results = run_steps(passes, all_steps([
+        validate_run_steps(passes, inputs.curve.discount, ess_warning_share=ess_warning_share,
+                           extra_assets=partial(martingale_assets, inputs), credit_density=credit,
+                           rates_drivers=inputs.rates_drivers,
+                           non_lognormal=tuple(stochastic_volatility_assets(inputs.parameters))),
+        market_consistency_steps(inputs, passes, vol_tolerance=vol_tolerance),
+        real_world_steps(inputs, passes, wealth_benchmark_gating=wealth_benchmark_gating),
+        reconciliation_steps(inputs, passes, maturity=guarantee_maturity, guarantee=guarantee),
+    ]))
     checks: dict[str, dict[str, Any]] = {}
     for name, entry in base["checks"].items():
         family = name.split("_", 1)[0]
@@ -132,11 +138,6 @@ def run_checks(
         checks[name] = {**entry, "kind": kind, "source": source, "counts_toward_verdict": True,
                         "warnings": list(entry.get("warnings", []))}
     tables: dict[str, pd.DataFrame] = {}
-    results = [
-        market_consistency_check(inputs, vol_tolerance=vol_tolerance),
-        real_world_check(inputs, wealth_benchmark_gating=wealth_benchmark_gating),
-        reconciliation_check(inputs, maturity=guarantee_maturity, guarantee=guarantee),
-    ]
     for result in results:
         checks[result.name] = result.summary
         tables.update(result.tables)

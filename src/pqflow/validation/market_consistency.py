@@ -74,6 +74,7 @@ inconclusive with the count shown (``paying_units``; its raw score stays in
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -82,10 +83,11 @@ import pandas as pd
 
 from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_price
 from pqflow.errors import MarketDataError
+from pqflow.storage.scenario_set import SetPass
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
 from pqflow.validation.martingale import index_columns, restricted_blocks
 from pqflow.validation.moments import spread_from_other_measure
-from pqflow.validation.run_files import RunInputs, stream_moments, time_index
+from pqflow.validation.run_files import RunInputs, Steps, add_moments, run_steps, set_passes, time_index
 from pqflow.validation.summary import family_critical_z, inconclusive_mask
 
 __all__ = [
@@ -390,23 +392,59 @@ def quote_cells(
     })
 
 
+def _payoff_derive(testable: list[InstrumentSpec], antithetic: bool,
+                   weight_columns: list[tuple[str, ...]] | None = None, *, restricted: bool = False,
+                   spread_source: bool = False):
+    """Per part: each testable instrument's deflated payoff, and whether it pays.
+    restricted: deflate instrument ``j`` by the product of ``weight_columns[j]`` over the cash
+    account (a real-world set's density block) instead of the written deflator; spread_source:
+    also ``Y^2 / w`` at each expiry with ``w`` that product (a market-consistent set's
+    ``p_density`` block), for the real-world estimate's standard error."""
+
+    def derive(t: np.ndarray, c: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+        weights = [np.prod([c[w] for w in cols], axis=0) for cols in weight_columns or []] \
+            if restricted or spread_source else []
+        deflators = [w / c["cash_account"] for w in weights] if restricted else None
+        v = _payoffs(testable, t, c, deflators)
+        paying = (v != 0.0).astype(float)
+        if antithetic:  # a pair pays when either path does: its unit mean is then exactly 1
+            paying = np.repeat(np.maximum(paying[0::2], paying[1::2]), 2, axis=0)
+        out = {"v": v, "paying": paying}
+        if spread_source:  # Y^2 / p_density(block) at each instrument's expiry
+            w = np.stack([wj[:, time_index(t, s.expiry)] for wj, s in zip(weights, testable, strict=True)], axis=1)
+            out["v2_over_p"] = v * v / w
+        return out
+
+    return derive
+
+
 def market_consistency_table(
     inputs: RunInputs, *, vol_tolerance: dict[str, float] | None = None,
     measures: tuple[str, ...] = _MEASURES,
 ) -> tuple[pd.DataFrame, list[InstrumentSpec]]:
     """One row per (testable instrument, set); and every instrument read (testable or not).
     ``measures``: the sets to reprice from (a sensitivity may have the market-consistent one only)."""
+    passes = set_passes(inputs, measures)
+    return run_steps(passes, market_consistency_table_steps(inputs, passes, vol_tolerance=vol_tolerance,
+                                                            measures=measures))
+
+
+def market_consistency_table_steps(
+    inputs: RunInputs, passes: Mapping[str, SetPass], *, vol_tolerance: dict[str, float] | None = None,
+    measures: tuple[str, ...] = _MEASURES,
+) -> Steps[tuple[pd.DataFrame, list[InstrumentSpec]]]:
+    """:func:`market_consistency_table` as steps on the sets' shared passes."""
     tol = {**DEFAULT_VOL_TOLERANCE, **(vol_tolerance or {})}
     rows: list[dict[str, Any]] = []
     specs_all: list[InstrumentSpec] = []
-    cross_moments: dict[tuple[str, tuple[str, ...]], tuple[float, float]] = {}
+    pending = []
     for measure in measures:
-        reader = inputs.reader(measure)
+        reader = passes[measure].scenario_set
         columns = reader.column_names()
-        first_times, first_cols = next(reader.iter_arrays(["deflator", *index_columns(columns)]))
+        first_times, first = reader.head(["deflator", *index_columns(columns)])
         specs = parse_instruments(inputs, columns, first_times)
         specs = [
-            _with_equity_forward(s, inputs, float(first_cols[s.column_names[0]][0, 0]))
+            _with_equity_forward(s, inputs, first[s.column_names[0]])
             if s.kind == "equity_option" and s.untestable is None else s
             for s in specs
         ]
@@ -416,8 +454,8 @@ def market_consistency_table(
         if not testable:
             continue
         # Each payoff is weighted by the density of the smallest written block that carries its
-        # columns (rates for a swaption, rates and the index for an equity option): the
-        # full density's other drivers add spread and nothing else.
+        # columns (rates for a swaption, rates and the index for an equity option): the full
+        # density's other drivers add spread and nothing else.
         blocks = [restricted_blocks(reader, s.column_names, inputs.rates_drivers) for s in testable]
         full = "q_density" if measure == "real_world" else "p_density"
         weight_columns = [tuple(f"{full}_{b}" for b in bs) or ((full,) if full in columns else ()) for bs in blocks]
@@ -426,25 +464,14 @@ def market_consistency_table(
         needed = ["deflator", *dict.fromkeys(c for s in testable for c in s.column_names)]
         if restricted or spread_source:
             needed += [*dict.fromkeys(c for w in weight_columns for c in w), "cash_account"]
-        antithetic = reader.antithetic
-
-        def derive(t: np.ndarray, c: dict[str, np.ndarray], testable=testable, antithetic=antithetic,
-                   weight_columns=weight_columns, restricted=restricted,
-                   spread_source=spread_source) -> dict[str, np.ndarray]:
-            weights = [np.prod([c[w] for w in cols], axis=0) for cols in weight_columns] \
-                if restricted or spread_source else None
-            deflators = [w / c["cash_account"] for w in weights] if restricted and weights else None
-            v = _payoffs(testable, t, c, deflators)
-            paying = (v != 0.0).astype(float)
-            if antithetic:  # a pair pays when either path does: its unit mean is then exactly 1
-                paying = np.repeat(np.maximum(paying[0::2], paying[1::2]), 2, axis=0)
-            out = {"v": v, "paying": paying}
-            if spread_source and weights:  # Y^2 / p_density(block) at each instrument's expiry
-                w = np.stack([wj[:, time_index(t, s.expiry)] for wj, s in zip(weights, testable, strict=True)], axis=1)
-                out["v2_over_p"] = v * v / w
-            return out
-
-        _, acc = stream_moments(reader, needed, derive)
+        derive = _payoff_derive(testable, reader.antithetic, weight_columns, restricted=restricted,
+                                spread_source=spread_source)
+        pending.append((measure, testable, blocks, spread_source, reader.antithetic,
+                        add_moments(passes[measure], needed, derive)))
+    yield
+    cross_moments: dict[tuple[str, tuple[str, ...]], tuple[float, float]] = {}
+    for measure, testable, blocks, spread_source, antithetic, result in pending:
+        _, acc = result()
         mean, se = acc["v"].mean, acc["v"].std_error
         units = int(acc["paying"].count)
         paths = units * (2 if antithetic else 1)
@@ -482,8 +509,7 @@ def market_consistency_table(
                 "z_market": (mc - s.market_price) / err if s.market_price is not None and err > 0 else None,
                 "z_model": (mc - s.model_price) / err if s.model_price is not None and err > 0 else None,
                 "sampling_units": units, "paying_units": int(paying_units[j]),
-                "weight": (" * ".join(f"{'q_density' if measure == 'real_world' else 'p_density'}_{b}"
-                                      for b in blocks[j]) + " / cash_account")
+                "weight": (" * ".join(f"q_density_{b}" for b in blocks[j]) + " / cash_account")
                 if measure == "real_world" and blocks[j] else "deflator",
                 "sample_std_error": sample_err, "std_error_from_market_consistent": cross_err,
                 "tolerance_price": tol_price, "material_price": material,
@@ -503,11 +529,23 @@ def market_consistency_check(
     measures: tuple[str, ...] = _MEASURES,
 ) -> CheckResult:
     """The check's table and its ``summary.json`` entry (``not_applicable`` without instruments)."""
+    passes = set_passes(inputs, measures)
+    return run_steps(passes, market_consistency_steps(inputs, passes, vol_tolerance=vol_tolerance,
+                                                      measures=measures))
+
+
+def market_consistency_steps(
+    inputs: RunInputs, passes: Mapping[str, SetPass], *, vol_tolerance: dict[str, float] | None = None,
+    measures: tuple[str, ...] = _MEASURES,
+) -> Steps[CheckResult]:
+    """:func:`market_consistency_check` as steps on the sets' shared passes
+    (:func:`pqflow.validation.run_files.run_steps`)."""
     section = inputs.calibration.get("instruments") or {}
     if not (section.get("swaptions") or section.get("equity_options") or section.get("inflation_caps")):
         return CheckResult(name=CHECK, summary=not_applicable_entry(
             kind=KIND, reason="not applicable: no instruments in calibration.json"))
-    table, specs = market_consistency_table(inputs, vol_tolerance=vol_tolerance, measures=measures)
+    table, specs = yield from market_consistency_table_steps(inputs, passes, vol_tolerance=vol_tolerance,
+                                                             measures=measures)
     untestable = [{"instrument": s.label, "reason": s.untestable} for s in specs if s.untestable]
     if table.empty:
         entry = not_applicable_entry(kind=KIND, reason="no instrument is testable from the files")

@@ -25,7 +25,7 @@ whether the cell has the power to judge (:func:`pqflow.validation.summary.cells_
 from __future__ import annotations
 
 import re
-from collections.abc import Callable, Collection, Sequence
+from collections.abc import Callable, Collection, Generator, Sequence
 
 import numpy as np
 import pandas as pd
@@ -33,11 +33,13 @@ from scipy.stats import norm
 
 from pqflow.errors import IntegrityError
 from pqflow.measure.blocks import CREDIT_PREFIX, column_drivers, density_factors
+from pqflow.storage.scenario_set import ScenarioSet, SetPass
 from pqflow.validation.assets import MartingaleAsset
 from pqflow.validation.mean_tests import MARTINGALE_DEVIATION, ROBUST, CellMoments, mean_test, rule_for_asset
-from pqflow.validation.reader import ScenarioSetReader
+from pqflow.validation.run_files import run_steps
 
-__all__ = ["martingale_table", "bond_maturity_of", "index_columns", "restricted_blocks", "INDEX_PREFIXES", "LEVELS"]
+__all__ = ["martingale_table", "martingale_steps", "bond_maturity_of", "index_columns", "restricted_blocks",
+           "INDEX_PREFIXES", "LEVELS"]
 
 LEVELS = (0.95, 0.99)
 INDEX_PREFIXES = ("equity_", "property_")
@@ -83,7 +85,7 @@ def _builtin_assets(names: list[str], discount: Callable[[np.ndarray], np.ndarra
 
 
 def _asset_weights(
-    reader: ScenarioSetReader, assets: Sequence[MartingaleAsset], rates_drivers: Sequence[str]
+    reader: ScenarioSet, assets: Sequence[MartingaleAsset], rates_drivers: Sequence[str]
 ) -> dict[str, tuple[str, ...]]:
     """For each asset of a real-world set, the restricted density columns whose product deflates
     it (empty: the written ``deflator``); always empty in a market-consistent set."""
@@ -101,7 +103,7 @@ def _asset_weights(
 
 
 def restricted_blocks(
-    reader: ScenarioSetReader, columns: Sequence[str], rates_drivers: Sequence[str]
+    reader: ScenarioSet, columns: Sequence[str], rates_drivers: Sequence[str]
 ) -> tuple[str, ...]:
     """The written density blocks whose product is a restricted density for a quantity built
     from ``columns`` and the cash account (:func:`pqflow.measure.blocks.density_factors`);
@@ -120,7 +122,7 @@ def restricted_blocks(
 
 
 def martingale_table(
-    reader: ScenarioSetReader,
+    reader: ScenarioSet,
     discount: Callable[[np.ndarray], np.ndarray],
     extra: Sequence[MartingaleAsset] = (),
     *,
@@ -128,6 +130,22 @@ def martingale_table(
     rates_drivers: Sequence[str] = ("rates",),
     non_lognormal: Collection[str] = (),
 ) -> pd.DataFrame:
+    """The table of :func:`martingale_steps` on a pass of its own over ``reader``'s parts."""
+    scan = SetPass(scenario_set=reader)
+    return run_steps({reader.measure: scan}, martingale_steps(
+        scan, discount, extra, credit_density=credit_density, rates_drivers=rates_drivers,
+        non_lognormal=non_lognormal))
+
+
+def martingale_steps(
+    scan: SetPass,
+    discount: Callable[[np.ndarray], np.ndarray],
+    extra: Sequence[MartingaleAsset] = (),
+    *,
+    credit_density: bool = False,
+    rates_drivers: Sequence[str] = ("rates",),
+    non_lognormal: Collection[str] = (),
+) -> Generator[None, None, pd.DataFrame]:
     """One row per (asset, time > 0). ``discount`` is today's curve ``t -> P(0, t)``; ``extra``
     are further assets (their columns must be in the files, their names new); credit_density:
     whether the set's density carries the CIR credit part (its cells are then not lognormal);
@@ -141,6 +159,7 @@ def martingale_table(
     longer than the full density's. The written ``deflator`` column (the full density over the
     cash account) is tested as the asset "deflator" (``E[D_t] = P(0, t)``) and the full density
     itself by the density check."""
+    reader = scan.scenario_set
     names = reader.column_names()
     start: dict[str, float] = {}
     assets = [*_builtin_assets(names, discount, start), *extra]
@@ -158,8 +177,9 @@ def martingale_table(
     antithetic = reader.antithetic
 
     acc: dict[str, CellMoments | None] = {a.name: None for a in assets}
-    times = None
-    for times, cols in reader.iter_arrays(needed):
+    seen: list[np.ndarray] = []
+
+    def feed(times: np.ndarray, cols: dict[str, np.ndarray]) -> None:
         for a in assets:
             factors = weights[a.name]
             if factors:
@@ -172,7 +192,12 @@ def martingale_table(
             acc[a.name] = m if prev is None else prev.merge(m)
         for e in indices:
             start.setdefault(e, float(cols[e][0, 0]))
-    assert times is not None
+        seen[:] = [times]
+
+    scan.add(needed, feed)
+    yield
+    assert seen
+    times = seen[0]
 
     rows = []
     for a in assets:

@@ -54,10 +54,20 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from pqflow.storage.scenario_set import SetPass
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
 from pqflow.validation.martingale import bond_maturity_of
 from pqflow.validation.mean_tests import LOGNORMAL, MARTINGALE_DEVIATION, MIN_UNITS, mean_test
-from pqflow.validation.run_files import RunInputs, gather_at_times, stream_cells, stream_moments, time_index
+from pqflow.validation.run_files import (
+    RunInputs,
+    Steps,
+    add_cells,
+    add_gather,
+    add_moments,
+    run_steps,
+    set_passes,
+    time_index,
+)
 from pqflow.validation.summary import family_critical_z
 
 __all__ = [
@@ -157,15 +167,27 @@ def real_world_statistics(inputs: RunInputs) -> tuple[pd.DataFrame, pd.DataFrame
     statistic); the second one row per (measure, quantity, horizon) with the mean and the percentiles :data:`PERCENTILES` (unweighted: the
     distribution of each set under its own measure).
     """
+    passes = set_passes(inputs)
+    return run_steps(passes, real_world_statistics_steps(inputs, passes))
+
+
+def real_world_statistics_steps(
+    inputs: RunInputs, passes: Mapping[str, SetPass]
+) -> Steps[tuple[pd.DataFrame, pd.DataFrame]]:
+    """:func:`real_world_statistics` as steps on the sets' shared passes."""
     stats_rows, pct_rows = [], []
+    pending = []
     for measure in ("real_world", "market_consistent"):
-        reader = inputs.reader(measure)
+        reader = passes[measure].scenario_set
         names = reader.column_names()
         equity = [c for c in names if c.startswith("equity_")]
         bonds = sorted((bond_maturity_of(c), c) for c in names if bond_maturity_of(c) is not None)
         cols = ["short_rate", *equity, *([bonds[-1][1]] if bonds else [])]
-        grid, _ = next(reader.iter_arrays(["short_rate"]))
-        times, data = gather_at_times(reader, cols, grid[_annual_points(grid)].tolist())
+        grid, _ = reader.head()
+        pending.append((measure, equity, bonds, add_gather(passes[measure], cols, grid[_annual_points(grid)].tolist())))
+    yield
+    for measure, equity, bonds, gathered in pending:
+        times, data = gathered()
         annual = np.arange(times.size)
         r = data["short_rate"][:, annual]
         dr = np.diff(r, axis=1).ravel()
@@ -287,7 +309,17 @@ def _premium_row(label: str, t: float, expected: float, excess, total, cash, k: 
 
 def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False) -> CheckResult:
     """Targets (z-score cells), benchmark and report tables of the real-world set."""
-    reader = inputs.reader("real_world")
+    passes = set_passes(inputs)
+    return run_steps(passes, real_world_steps(inputs, passes, wealth_benchmark_gating=wealth_benchmark_gating))
+
+
+def real_world_steps(
+    inputs: RunInputs, passes: Mapping[str, SetPass], *, wealth_benchmark_gating: bool = False
+) -> Steps[CheckResult]:
+    """:func:`real_world_check` as steps on the sets' shared passes
+    (:func:`pqflow.validation.run_files.run_steps`)."""
+    scan = passes["real_world"]
+    reader = scan.scenario_set
     names = reader.column_names()
     equity = [c for c in names if c.startswith("equity_")]
     eq_name = inputs.parameters.get("equity", {}).get("name")
@@ -301,12 +333,28 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
             out[f"total:{c}"] = cols[c] / cols[c][:, :1]
         return out
 
-    times, acc = stream_moments(reader, ["short_rate", "cash_account", *premium_cols], derive)
-    excess_cells: dict[str, Any] = {}
-    if premium_cols:
-        _, excess_cells = stream_cells(
-            reader, ["cash_account", *premium_cols],
-            lambda t, cols: {c: cols[c] / cols[c][:, :1] / cols["cash_account"] for c in premium_cols})
+    moments = add_moments(scan, ["short_rate", "cash_account", *premium_cols], derive)
+    cells = add_cells(
+        scan, ["cash_account", *premium_cols],
+        lambda t, cols: {c: cols[c] / cols[c][:, :1] / cols["cash_account"] for c in premium_cols},
+    ) if premium_cols else None
+    # everything below reads the same pass: register it all before the parts are read
+    view = inputs.parameters.get("real_world_view", {}) or {}
+    target = (inputs.calibration.get("expected_short_rate") or {}).get("target") or {}
+    maturity = view.get("target_maturity")
+    y_col = f"zcb_{float(maturity):g}y" if view.get("target") == "zero_yield" and maturity else None
+    yields = None
+    if y_col is not None and y_col in names and target.get("real_world"):
+        m_y = float(maturity)
+        yields = add_moments(scan, [y_col], lambda t, c: {"y": -np.log(c[y_col]) / m_y})
+    statistics = real_world_statistics_steps(inputs, passes)
+    next(statistics)
+    horizons = sorted({h for by_h in AAA_2005_WEALTH_RATIOS.values() for h in by_h})
+    wealth_core = add_gather(scan, [e_col], [0.0, *horizons]) if e_col is not None else None
+    wealth_all = add_gather(scan, equity, [0.0, *horizons]) if e_col is not None else None
+    yield
+    times, acc = moments()
+    excess_cells: dict[str, Any] = cells()[1] if cells is not None else {}
 
     target_rows = []
     esr = inputs.calibration.get("expected_short_rate") or {}
@@ -330,9 +378,9 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
                      "note": "the model's real-world expectation against the house-view path (no sampling error)"}
     maturity = view.get("target_maturity")
     y_col = f"zcb_{float(maturity):g}y" if view.get("target") == "zero_yield" and maturity else None
-    if y_col is not None and y_col in names and target.get("real_world"):
+    if yields is not None:
         m = float(maturity)
-        yt, yacc = stream_moments(reader, [y_col], lambda t, c: {"y": -np.log(c[y_col]) / m})
+        yt, yacc = yields()
         for t, value in zip(target.get("time", []), target["real_world"]):
             k = time_index(yt, float(t))
             if k is None or k == 0:
@@ -358,7 +406,11 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
                 f"risk premium of {col}: (1/t) ln E[S_t/(S_0 B_t)]", t, heston[col](t) if col in heston else premium,
                 excess_cells[col], acc[f"total:{col}"], acc["cash"], k))
     targets = pd.DataFrame(target_rows)
-    stats, pct = real_world_statistics(inputs)
+    try:
+        next(statistics)
+        raise AssertionError("real_world_statistics_steps needs one pass")
+    except StopIteration as stop:
+        stats, pct = stop.value
     tables = {"real_world_targets": targets, "real_world_statistics": stats,
               "real_world_percentiles": pct}
 
@@ -366,8 +418,8 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
     bench_frame, bench = pd.DataFrame(), {"verdict": "not_applicable", "source": AAA_SOURCE,
                                           "warnings": ["no equity index in the files"]}
     if e_col is not None:
-        horizons = sorted({h for by_h in AAA_2005_WEALTH_RATIOS.values() for h in by_h})
-        wt, wdata = gather_at_times(reader, [e_col], [0.0, *horizons])
+        assert wealth_core is not None and wealth_all is not None
+        wt, wdata = wealth_core()
         s0 = wdata[e_col][:, 0]
         wealth = {float(t): wdata[e_col][:, j] / s0 for j, t in enumerate(wt) if t > 0}
         bench_frame, bench = wealth_ratio_benchmark(wealth)
@@ -375,7 +427,7 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
         # every equity index beside the core one (e.g. a Heston index beside a deterministic one)
         heston_cols = {h.get("column") for h in (inputs.parameters.get("stochastic_volatility") or {}).values()}
         by_index, frames = {}, []
-        wt_all, wdata_all = gather_at_times(reader, equity, [0.0, *horizons])
+        wt_all, wdata_all = wealth_all()
         for col in equity:
             s0_col = wdata_all[col][:, 0]
             frame_col, summary_col = wealth_ratio_benchmark(

@@ -43,7 +43,7 @@ returns differ by measure through the prices of risk, which is what the table sh
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -55,13 +55,13 @@ from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.jarrow_yildirim import CPI_COLUMN
 from pqflow.models.schedule import PiecewiseConstant
+from pqflow.storage.scenario_set import PartFeed, ScenarioSet, SetPass
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
 from pqflow.validation.control_variates import controlled_mean
 from pqflow.validation.market_consistency import MIN_PAYING_UNITS
 from pqflow.validation.martingale import bond_maturity_of, index_columns
 from pqflow.validation.moments import sampling_units, spread_from_other_measure
-from pqflow.validation.reader import ScenarioSetReader
-from pqflow.validation.run_files import RunInputs, stream_moments, time_index
+from pqflow.validation.run_files import RunInputs, Steps, add_moments, all_steps, run_steps, set_passes, time_index
 from pqflow.validation.summary import family_critical_z
 
 __all__ = [
@@ -130,7 +130,7 @@ def _equity_column(inputs: RunInputs, names: list[str]) -> str | None:
     return col if col in names else None
 
 
-def density_for(reader: ScenarioSetReader, columns: Sequence[str], rates_drivers: Sequence[str]) -> tuple[str, str | None]:
+def density_for(reader: ScenarioSet, columns: Sequence[str], rates_drivers: Sequence[str]) -> tuple[str, str | None]:
     """The density column to weight quantities built from ``columns`` with: the smallest
     restricted block the set carries that contains every driver they depend on
     (:mod:`pqflow.measure.blocks`), or the full density. Returns ``(column, block or None)``."""
@@ -154,34 +154,59 @@ def guarantee_values(
     (``E[D_T] = P(0, T)``), the deflated index (``E[D_T S_T] = S_0``) and, in the real-world
     set, the density itself (``E[w_T] = 1``). The plain estimates are kept beside them.
     """
+    passes = set_passes(inputs)
+    return run_steps(passes, guarantee_values_steps(inputs, passes, maturity=maturity, guarantee=guarantee))
+
+
+def _put_units(
+    measure: str, col: str, density: str, k: int, g: float, antithetic: bool, units: list[np.ndarray]
+) -> PartFeed:
+    """Per part: the sampling units of the deflated put, its second-moment term and the controls."""
+
+    def feed(_: np.ndarray, c: dict[str, np.ndarray]) -> None:
+        w = c[density][:, k]
+        deflator = (w if measure == "real_world" else 1.0) / c["cash_account"][:, k]
+        s_t = c[col][:, k]
+        put = deflator * np.maximum(g - s_t, 0.0)
+        cols = [put, put**2 / w, deflator, deflator * s_t]
+        if measure == "real_world":
+            cols.append(w)
+        units.append(sampling_units(np.stack(cols, axis=1), antithetic))
+
+    return feed
+
+
+def guarantee_values_steps(
+    inputs: RunInputs, passes: Mapping[str, SetPass], *, maturity: float = 10.0, guarantee: float | None = None
+) -> Steps[dict[str, Any] | None]:
+    """:func:`guarantee_values` as steps on the sets' shared passes."""
     out: dict[str, Any] = {}
     rates = inputs.rates_drivers
+    setup = []
     for measure in ("market_consistent", "real_world"):
-        reader = inputs.reader(measure)
+        reader = passes[measure].scenario_set
         col = _equity_column(inputs, reader.column_names())
         if col is None:
             return None
-        times0, first = next(reader.iter_arrays([col]))
-        level = float(first[col][0, 0])
+        times0, first = reader.head([col])
+        level = first[col]
         k = time_index(times0, maturity)
         if k is None:
             below = np.flatnonzero(times0 <= maturity)
             if below.size < 2:
                 return None
             k = int(below[-1])
-        t = float(times0[k])
+        setup.append((measure, reader, col, level, k, float(times0[k])))
+    registered = []
+    for measure, reader, col, level, k, t in setup:
         g = level if guarantee is None else float(guarantee)
         density, block = density_for(reader, [col, "cash_account"], rates)
         units: list[np.ndarray] = []
-        for _, c in reader.iter_arrays(["cash_account", col, density]):
-            w = c[density][:, k]
-            deflator = (w if measure == "real_world" else 1.0) / c["cash_account"][:, k]
-            s_t = c[col][:, k]
-            put = deflator * np.maximum(g - s_t, 0.0)
-            cols = [put, put**2 / w, deflator, deflator * s_t]
-            if measure == "real_world":
-                cols.append(w)
-            units.append(sampling_units(np.stack(cols, axis=1), reader.antithetic))
+        passes[measure].add(["cash_account", col, density], _put_units(measure, col, density, k, g, reader.antithetic,
+                                                                      units))
+        registered.append((measure, reader, level, t, g, density, block, units))
+    yield
+    for measure, reader, level, t, g, density, block, units in registered:
         data = np.concatenate(units)
         known = [float(inputs.curve.discount(t)), level] + ([1.0] if measure == "real_world" else [])
         est = controlled_mean(data[:, :1], data[:, 2:], np.array(known))
@@ -219,17 +244,31 @@ def guarantee_values(
 
 def expected_returns_table(inputs: RunInputs, horizons: tuple[float, ...] = RETURN_HORIZONS) -> pd.DataFrame:
     """Annualised expected returns by asset and horizon, both measures side by side."""
+    passes = set_passes(inputs)
+    return run_steps(passes, expected_returns_steps(inputs, passes, horizons))
+
+
+def _relative_values(assets: list[str], relative: list[str]):
+    return lambda t, c: {a: c[a] / (c[a][:, :1] if a in relative else 1.0) for a in assets}
+
+
+def expected_returns_steps(
+    inputs: RunInputs, passes: Mapping[str, SetPass], horizons: tuple[float, ...] = RETURN_HORIZONS
+) -> Steps[pd.DataFrame]:
+    """:func:`expected_returns_table` as steps on the sets' shared passes."""
     per: dict[str, dict[tuple[str, float], tuple[float, float]]] = {}
+    registered = []
     for measure in ("market_consistent", "real_world"):
-        reader = inputs.reader(measure)
+        reader = passes[measure].scenario_set
         names = reader.column_names()
         bonds = [c for c in names if bond_maturity_of(c) is not None]
         relative = [*index_columns(names), *([_CPI] if _CPI in names else [])]  # A_h / A_0 per path
         assets = ["cash_account", *relative, *bonds]
-        times, acc = stream_moments(
-            reader, assets,
-            lambda t, c: {a: c[a] / (c[a][:, :1] if a in relative else 1.0) for a in assets},
-        )
+        registered.append((measure, bonds, assets,
+                           add_moments(passes[measure], assets, _relative_values(assets, relative))))
+    yield
+    for measure, bonds, assets, moments in registered:
+        times, acc = moments()
         values: dict[tuple[str, float], tuple[float, float]] = {}
         for h in horizons:
             k = time_index(times, h)
@@ -272,8 +311,19 @@ def reconciliation_check(
     inputs: RunInputs, *, maturity: float = 10.0, guarantee: float | None = None
 ) -> CheckResult:
     """The guarantee three ways (cells), and the expected-returns table."""
-    values = guarantee_values(inputs, maturity=maturity, guarantee=guarantee)
-    returns = expected_returns_table(inputs)
+    passes = set_passes(inputs)
+    return run_steps(passes, reconciliation_steps(inputs, passes, maturity=maturity, guarantee=guarantee))
+
+
+def reconciliation_steps(
+    inputs: RunInputs, passes: Mapping[str, SetPass], *, maturity: float = 10.0, guarantee: float | None = None
+) -> Steps[CheckResult]:
+    """:func:`reconciliation_check` as steps on the sets' shared passes
+    (:func:`pqflow.validation.run_files.run_steps`)."""
+    values, returns = yield from all_steps([
+        guarantee_values_steps(inputs, passes, maturity=maturity, guarantee=guarantee),
+        expected_returns_steps(inputs, passes),
+    ])
     if values is None:
         entry = not_applicable_entry(kind=KIND, reason="no equity index or maturity in the files")
         return CheckResult(name=CHECK, summary=entry, tables={"expected_returns": returns})

@@ -1,19 +1,25 @@
 """What the checks may read of a run: its ``calibration.json`` and its scenario parts.
 
 Every check of :mod:`pqflow.validation` is computed from the written files, never from the
-model's internals: the scenario parts through :class:`ScenarioSetReader` and the calibration
-record through :func:`load_run_inputs`. The helpers here stream the parts one at a time
-(running moments of derived quantities) or gather a few columns at a few times (for
-percentiles), so a check over a large set keeps little in memory.
+model's internals: the scenario parts through :class:`pqflow.storage.scenario_set.ScenarioSet`
+and the calibration record through :func:`load_run_inputs`. The helpers here stream the parts
+one at a time (running moments of derived quantities) or gather a few columns at a few times
+(for percentiles), so a check over a large set keeps little in memory.
+
+Every check is also written as *steps* (a generator: it registers its readers on the sets'
+passes with :func:`add_moments`, :func:`add_cells` and :func:`add_gather`, yields, and
+computes its result once the parts have been read). :func:`run_steps` over :func:`all_steps`
+of every check reads each part of a set once for all of them; the plain functions
+(:func:`stream_moments`, ...) are the same readers on a pass of their own.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Generator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
 
@@ -21,9 +27,9 @@ from pqflow.errors import IntegrityError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.serialize import curve_from_json
 from pqflow.storage.jsonio import read_json
+from pqflow.storage.scenario_set import ScenarioSet, SetPass
 from pqflow.validation.mean_tests import CellMoments
 from pqflow.validation.moments import Moments, sampling_units
-from pqflow.validation.reader import ScenarioSetReader
 
 __all__ = [
     "RunInputs",
@@ -32,10 +38,18 @@ __all__ = [
     "stream_moments",
     "stream_cells",
     "gather_at_times",
+    "add_moments",
+    "add_cells",
+    "add_gather",
+    "all_steps",
+    "run_steps",
+    "set_passes",
+    "Steps",
     "json_safe",
     "MEASURE_LABEL",
 ]
 
+T = TypeVar("T")
 MEASURE_LABEL = {"market_consistent": "market consistent (Q)", "real_world": "real world (P)"}
 _TIME_TOL = 1e-9
 
@@ -48,8 +62,8 @@ class RunInputs:
     calibration: dict[str, Any]
     curve: DiscountCurve
 
-    def reader(self, measure: str) -> ScenarioSetReader:
-        return ScenarioSetReader(run_dir=self.run_dir, measure=measure)
+    def reader(self, measure: str) -> ScenarioSet:
+        return ScenarioSet(run_dir=self.run_dir, measure=measure)
 
     @property
     def parameters(self) -> dict[str, Any]:
@@ -81,10 +95,142 @@ def time_index(times: np.ndarray, t: float) -> int | None:
     return k if times.size and abs(float(times[k]) - t) <= _TIME_TOL * max(1.0, abs(t)) else None
 
 
+Derive = Callable[[np.ndarray, dict[str, np.ndarray]], Mapping[str, np.ndarray]]
+#: A check computed in one pass over the sets: a generator that registers its readers on the
+#: passes, yields while the parts are read, and returns its result (:func:`run_steps`).
+Steps = Generator[None, None, T]
+
+
+def add_moments(
+    scan: SetPass, columns: Sequence[str], derive: Derive
+) -> Callable[[], tuple[np.ndarray, dict[str, Moments]]]:
+    """Register :func:`stream_moments` on a pass; the returned function gives its result once
+    the pass has run."""
+    antithetic = scan.scenario_set.antithetic
+    acc: dict[str, Moments] = {}
+    seen: list[np.ndarray] = []
+
+    def feed(times: np.ndarray, cols: dict[str, np.ndarray]) -> None:
+        for name, values in derive(times, cols).items():
+            values = np.asarray(values, dtype=float)
+            if values.ndim == 1:
+                values = values[:, None]
+            m = Moments.of(sampling_units(values, antithetic))
+            acc[name] = m if name not in acc else acc[name].merge(m)
+        seen[:] = [times]
+
+    scan.add(columns, feed)
+
+    def result() -> tuple[np.ndarray, dict[str, Moments]]:
+        if not seen:
+            raise IntegrityError(f"{scan.scenario_set.set_dir}: no scenario parts found")
+        return seen[0], acc
+
+    return result
+
+
+def add_cells(
+    scan: SetPass, columns: Sequence[str], derive: Derive
+) -> Callable[[], tuple[np.ndarray, dict[str, CellMoments]]]:
+    """Register :func:`stream_cells` on a pass (as :func:`add_moments`)."""
+    antithetic = scan.scenario_set.antithetic
+    acc: dict[str, CellMoments] = {}
+    seen: list[np.ndarray] = []
+
+    def feed(times: np.ndarray, cols: dict[str, np.ndarray]) -> None:
+        for name, values in derive(times, cols).items():
+            values = np.asarray(values, dtype=float)
+            if values.ndim == 1:
+                values = values[:, None]
+            prev = acc.get(name)
+            m = CellMoments.of(values, antithetic, None if prev is None else prev.shift)
+            acc[name] = m if prev is None else prev.merge(m)
+        seen[:] = [times]
+
+    scan.add(columns, feed)
+
+    def result() -> tuple[np.ndarray, dict[str, CellMoments]]:
+        if not seen:
+            raise IntegrityError(f"{scan.scenario_set.set_dir}: no scenario parts found")
+        return seen[0], acc
+
+    return result
+
+
+def add_gather(
+    scan: SetPass, columns: Sequence[str], at: Sequence[float] | None = None
+) -> Callable[[], tuple[np.ndarray, dict[str, np.ndarray]]]:
+    """Register :func:`gather_at_times` on a pass (as :func:`add_moments`)."""
+    chunks: dict[str, list[np.ndarray]] = {c: [] for c in columns}
+    state: dict[str, np.ndarray] = {}
+
+    def feed(times: np.ndarray, cols: dict[str, np.ndarray]) -> None:
+        if "keep" not in state:
+            if at is None:
+                state["keep"] = np.arange(times.size)
+            else:
+                found = [time_index(times, float(t)) for t in at]
+                state["keep"] = np.array(sorted({k for k in found if k is not None}), dtype=int)
+        keep = state["keep"]
+        for c in columns:
+            chunks[c].append(cols[c][:, keep])
+        state["times"] = times
+
+    scan.add(columns, feed)
+
+    def result() -> tuple[np.ndarray, dict[str, np.ndarray]]:
+        if "times" not in state:
+            raise IntegrityError(f"{scan.scenario_set.set_dir}: no scenario parts found")
+        return state["times"][state["keep"]], {c: np.concatenate(v, axis=0) for c, v in chunks.items()}
+
+    return result
+
+
+def all_steps(steps: Sequence[Steps[Any]]) -> Steps[list[Any]]:
+    """Several checks as one: each registers its readers, the passes run once for all of
+    them (this generator yields), and their results come back in order."""
+    results: list[Any] = [None] * len(steps)
+    active = []
+    for i, step in enumerate(steps):
+        try:
+            next(step)
+            active.append(i)
+        except StopIteration as stop:
+            results[i] = stop.value
+    while active:
+        yield
+        still = []
+        for i in active:
+            try:
+                next(steps[i])
+                still.append(i)
+            except StopIteration as stop:
+                results[i] = stop.value
+        active = still
+    return results
+
+
+def run_steps(passes: Mapping[str, SetPass], step: Steps[T]) -> T:
+    """Drive a check (or :func:`all_steps` of several): between its yields, every set's pass
+    reads its parts once for every reader registered on it."""
+    while True:
+        try:
+            next(step)
+        except StopIteration as stop:
+            return stop.value
+        for scan in passes.values():
+            scan.run()
+
+
+def set_passes(inputs: RunInputs, measures: Sequence[str] = ("market_consistent", "real_world")) -> dict[str, SetPass]:
+    """One pass per scenario set of a run."""
+    return {m: SetPass(scenario_set=inputs.reader(m)) for m in measures}
+
+
 def stream_moments(
-    reader: ScenarioSetReader,
+    reader: ScenarioSet,
     columns: Sequence[str],
-    derive: Callable[[np.ndarray, dict[str, np.ndarray]], Mapping[str, np.ndarray]],
+    derive: Derive,
 ) -> tuple[np.ndarray, dict[str, Moments]]:
     """Running means and variances of derived quantities, one part at a time.
 
@@ -93,67 +239,37 @@ def stream_moments(
     ``k``, fixed per name). Antithetic pairs are averaged before the moments (independent
     sampling units), so the standard errors are right under antithetic sampling.
     """
-    antithetic = reader.antithetic
-    acc: dict[str, Moments] = {}
-    times = None
-    for times, cols in reader.iter_arrays(list(dict.fromkeys(columns))):
-        for name, values in derive(times, cols).items():
-            values = np.asarray(values, dtype=float)
-            if values.ndim == 1:
-                values = values[:, None]
-            m = Moments.of(sampling_units(values, antithetic))
-            acc[name] = m if name not in acc else acc[name].merge(m)
-    if times is None:
-        raise IntegrityError(f"{reader.set_dir}: no scenario parts found")
-    return times, acc
+    scan = SetPass(scenario_set=reader)
+    result = add_moments(scan, columns, derive)
+    scan.run()
+    return result()
 
 
 def stream_cells(
-    reader: ScenarioSetReader,
+    reader: ScenarioSet,
     columns: Sequence[str],
-    derive: Callable[[np.ndarray, dict[str, np.ndarray]], Mapping[str, np.ndarray]],
+    derive: Derive,
 ) -> tuple[np.ndarray, dict[str, CellMoments]]:
     """As :func:`stream_moments`, with the moments the tests of a mean need
     (:class:`pqflow.validation.mean_tests.CellMoments`: also of ``log X``)."""
-    antithetic = reader.antithetic
-    acc: dict[str, CellMoments] = {}
-    times = None
-    for times, cols in reader.iter_arrays(list(dict.fromkeys(columns))):
-        for name, values in derive(times, cols).items():
-            values = np.asarray(values, dtype=float)
-            if values.ndim == 1:
-                values = values[:, None]
-            prev = acc.get(name)
-            m = CellMoments.of(values, antithetic, None if prev is None else prev.shift)
-            acc[name] = m if prev is None else prev.merge(m)
-    if times is None:
-        raise IntegrityError(f"{reader.set_dir}: no scenario parts found")
-    return times, acc
+    scan = SetPass(scenario_set=reader)
+    result = add_cells(scan, columns, derive)
+    scan.run()
+    return result()
 
 
 def gather_at_times(
-    reader: ScenarioSetReader, columns: Sequence[str], at: Sequence[float] | None = None
+    reader: ScenarioSet, columns: Sequence[str], at: Sequence[float] | None = None
 ) -> tuple[np.ndarray, dict[str, np.ndarray]]:
     """Every path of ``columns`` at the output times ``at`` (all times if ``None``).
 
     Returns ``(times_kept, {column: (n_paths_total, len(times_kept))})``; requested times
     that are not output times are left out.
     """
-    chunks: dict[str, list[np.ndarray]] = {c: [] for c in columns}
-    keep = None
-    times = None
-    for times, cols in reader.iter_arrays(list(dict.fromkeys(columns))):
-        if keep is None:
-            if at is None:
-                keep = np.arange(times.size)
-            else:
-                found = [time_index(times, float(t)) for t in at]
-                keep = np.array(sorted({k for k in found if k is not None}), dtype=int)
-        for c in columns:
-            chunks[c].append(cols[c][:, keep])
-    if times is None or keep is None:
-        raise IntegrityError(f"{reader.set_dir}: no scenario parts found")
-    return times[keep], {c: np.concatenate(v, axis=0) for c, v in chunks.items()}
+    scan = SetPass(scenario_set=reader)
+    result = add_gather(scan, columns, at)
+    scan.run()
+    return result()
 
 
 def json_safe(obj: Any) -> Any:

@@ -19,7 +19,7 @@ its checks. A table without those two columns has no power rule (its cells pass 
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Generator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -27,18 +27,20 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
+from pqflow.storage.scenario_set import ScenarioSet, SetPass
 from pqflow.validation.assets import MartingaleAsset
-from pqflow.validation.density import density_table, usable_horizons
-from pqflow.validation.martingale import martingale_table
+from pqflow.validation.density import density_steps, usable_horizons
+from pqflow.validation.martingale import martingale_steps
 from pqflow.validation.mean_tests import DENSITY_DEVIATION, MARTINGALE_DEVIATION
-from pqflow.validation.reader import ScenarioSetReader
+from pqflow.validation.run_files import all_steps, run_steps
 
 __all__ = [
-    "summarise", "validate_run", "cells_summary", "family_critical_z", "FAMILY_ALPHA", "combine_verdicts",
-    "VERDICT_RULE", "power_rule_text", "inconclusive_mask", "inconclusive_totals",
+    "summarise", "validate_run", "validate_run_steps", "cells_summary", "family_critical_z", "FAMILY_ALPHA",
+    "combine_verdicts", "VERDICT_RULE", "power_rule_text", "inconclusive_mask", "inconclusive_totals",
 ]
 
 FAMILY_ALPHA = 0.01
+_MEASURES = ("market_consistent", "real_world")
 VERDICT_RULE = (
     "a cell fails when it lies outside its Bonferroni-corrected interval at family level 99%; it is "
     "inconclusive when it does not fail but its test could not detect a material deviation (5% of "
@@ -198,12 +200,34 @@ def validate_run(
     judged by the robust t (:func:`pqflow.validation.mean_tests.stochastic_volatility_assets`).
     """
     run_dir = Path(run_dir)
-    mart, dens = {}, {}
-    for measure in ("market_consistent", "real_world"):
-        reader = ScenarioSetReader(run_dir=run_dir, measure=measure)
-        extra = extra_assets(reader.column_names()) if extra_assets is not None else ()
-        mart[measure] = martingale_table(reader, discount, extra, credit_density=credit_density,
-                                         rates_drivers=rates_drivers, non_lognormal=non_lognormal)
-        dens[measure] = density_table(reader, credit_density=credit_density)
+    passes = {m: SetPass(scenario_set=ScenarioSet(run_dir=run_dir, measure=m)) for m in _MEASURES}
+    return run_steps(passes, validate_run_steps(
+        passes, discount, ess_warning_share=ess_warning_share, extra_assets=extra_assets,
+        credit_density=credit_density, rates_drivers=rates_drivers, non_lognormal=non_lognormal))
+
+
+def validate_run_steps(
+    passes: Mapping[str, SetPass],
+    discount,
+    *,
+    ess_warning_share: float,
+    extra_assets: Callable[[list[str]], Sequence[MartingaleAsset]] | None = None,
+    credit_density: bool = False,
+    rates_drivers: Sequence[str] = ("rates",),
+    non_lognormal: Sequence[str] = (),
+) -> Generator[None, None, tuple[dict[str, pd.DataFrame], dict[str, pd.DataFrame], dict[str, Any]]]:
+    """:func:`validate_run` as steps on the sets' shared passes
+    (:func:`pqflow.validation.run_files.run_steps`)."""
+    steps = []
+    for measure in _MEASURES:
+        scan = passes[measure]
+        names = scan.scenario_set.column_names()
+        extra = extra_assets(names) if extra_assets is not None else ()
+        steps.append(martingale_steps(scan, discount, extra, credit_density=credit_density,
+                                      rates_drivers=rates_drivers, non_lognormal=non_lognormal))
+        steps.append(density_steps(scan, credit_density=credit_density))
+    tables = yield from all_steps(steps)
+    mart = {m: tables[2 * i] for i, m in enumerate(_MEASURES)}
+    dens = {m: tables[2 * i + 1] for i, m in enumerate(_MEASURES)}
     summary = summarise(mart, dens, ess_warning_share=ess_warning_share)
     return mart, dens, summary
