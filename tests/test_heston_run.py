@@ -150,6 +150,15 @@ def test_demo_smile_run_writes_the_heston_index_and_its_variance(tmp_path) -> No
     assert by_index["equity_veldmark_all_share"]["volatility_model"] == "heston"
     assert by_index["equity_world_equity"]["volatility_model"] == "deterministic"
     assert (tmp_path / "run" / "validation" / "wealth_ratio_by_index.csv").exists()
+    # densities holding the Heston part are judged by the robust t, the others by the lognormal
+    # identity (sizes measured in tests/test_heston_density_rule.py)
+    import pandas as pd
+
+    dens = pd.read_csv(tmp_path / "run" / "validation" / "density.csv")
+    rules = dens.groupby("column")["test"].agg(lambda t: set(x.split(" (")[0] for x in t))
+    assert rules["q_density"] == {"robust t"} and rules["p_density"] == {"robust t"}
+    assert rules["q_density_rates_veldmark_all_share"] == {"robust t"}
+    assert rules["q_density_rates"] == {"lognormal identity"}
 
 
 def test_blocks_with_a_heston_index_carry_their_restricted_density(demo) -> None:

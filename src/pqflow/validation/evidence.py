@@ -33,7 +33,11 @@ import pandas as pd
 
 from pqflow.validation.assets import martingale_assets
 from pqflow.validation.market_consistency import market_consistency_check
-from pqflow.validation.mean_tests import credit_in_density, stochastic_volatility_assets
+from pqflow.validation.mean_tests import (
+    credit_in_density,
+    stochastic_volatility_assets,
+    stochastic_volatility_drivers,
+)
 from pqflow.validation.real_world import real_world_check
 from pqflow.validation.reconciliation import reconciliation_check
 from pqflow.validation.run_files import json_safe, load_run_inputs
@@ -124,7 +128,8 @@ def run_checks(
     mart, dens, base = validate_run(run_dir, inputs.curve.discount, ess_warning_share=ess_warning_share,
                                     extra_assets=partial(martingale_assets, inputs), credit_density=credit,
                                     rates_drivers=inputs.rates_drivers,
-                                    non_lognormal=tuple(stochastic_volatility_assets(inputs.parameters)))
+                                    non_lognormal=tuple(stochastic_volatility_assets(inputs.parameters)),
+                                    heston_drivers=tuple(stochastic_volatility_drivers(inputs.parameters)))
     checks: dict[str, dict[str, Any]] = {}
     for name, entry in base["checks"].items():
         family = name.split("_", 1)[0]

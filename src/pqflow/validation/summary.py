@@ -187,6 +187,7 @@ def validate_run(
     credit_density: bool = False,
     rates_drivers: Sequence[str] = ("rates",),
     non_lognormal: Sequence[str] = (),
+    heston_drivers: Sequence[str] = (),
 ) -> tuple[dict[str, pd.DataFrame], dict[str, pd.DataFrame], dict[str, Any]]:
     """Compute every table and the summary for a run directory (nothing is written here).
 
@@ -196,6 +197,8 @@ def validate_run(
     whether the full densities carry the CIR credit part
     (:func:`pqflow.validation.mean_tests.credit_in_density`). non_lognormal: martingale assets
     judged by the robust t (:func:`pqflow.validation.mean_tests.stochastic_volatility_assets`).
+    heston_drivers: the stochastic-volatility indices, whose part makes a density (and a cell it
+    deflates) not lognormal (:func:`pqflow.validation.mean_tests.stochastic_volatility_drivers`).
     """
     run_dir = Path(run_dir)
     mart, dens = {}, {}
@@ -203,7 +206,8 @@ def validate_run(
         reader = ScenarioSetReader(run_dir=run_dir, measure=measure)
         extra = extra_assets(reader.column_names()) if extra_assets is not None else ()
         mart[measure] = martingale_table(reader, discount, extra, credit_density=credit_density,
-                                         rates_drivers=rates_drivers, non_lognormal=non_lognormal)
-        dens[measure] = density_table(reader, credit_density=credit_density)
+                                         rates_drivers=rates_drivers, non_lognormal=non_lognormal,
+                                         heston_drivers=heston_drivers)
+        dens[measure] = density_table(reader, credit_density=credit_density, heston_drivers=heston_drivers)
     summary = summarise(mart, dens, ess_warning_share=ess_warning_share)
     return mart, dens, summary
