@@ -159,6 +159,10 @@ def test_demo_smile_run_writes_the_heston_index_and_its_variance(tmp_path) -> No
     assert rules["q_density"] == {"robust t"} and rules["p_density"] == {"robust t"}
     assert rules["q_density_rates_veldmark_all_share"] == {"robust t"}
     assert rules["q_density_rates"] == {"lognormal identity"}
+    # the sign-off page shows the smile fit and the wealth ratios by index (pqflow.report.smile)
+    page = (tmp_path / "run" / "validation" / "report.html").read_text()
+    assert "Smile fit: veldmark all share (Heston)" in page and "Feller ratio" in page
+    assert "Wealth-ratio percentiles by equity index" in page and "equity_world_equity (deterministic)" in page
 
 
 def test_blocks_with_a_heston_index_carry_their_restricted_density(demo) -> None:
