@@ -150,19 +150,39 @@ def test_demo_smile_run_writes_the_heston_index_and_its_variance(tmp_path) -> No
     assert by_index["equity_veldmark_all_share"]["volatility_model"] == "heston"
     assert by_index["equity_world_equity"]["volatility_model"] == "deterministic"
     assert (tmp_path / "run" / "validation" / "wealth_ratio_by_index.csv").exists()
+    # densities holding the Heston part are judged by the robust t, the others by the lognormal
+    # identity (sizes measured in tests/test_heston_density_rule.py)
+    import pandas as pd
+
+    dens = pd.read_csv(tmp_path / "run" / "validation" / "density.csv")
+    rules = dens.groupby("column")["test"].agg(lambda t: set(x.split(" (")[0] for x in t))
+    assert rules["q_density"] == {"robust t"} and rules["p_density"] == {"robust t"}
+    assert rules["q_density_rates_veldmark_all_share"] == {"robust t"}
+    assert rules["q_density_rates"] == {"lognormal identity"}
+    # the sign-off page shows the smile fit and the wealth ratios by index (pqflow.report.smile)
+    page = (tmp_path / "run" / "validation" / "report.html").read_text()
+    assert "Smile fit: veldmark all share (Heston)" in page and "Feller ratio" in page
+    assert "Wealth-ratio percentiles by equity index" in page and "equity_world_equity (deterministic)" in page
 
 
-def test_blocks_with_a_heston_index_carry_the_full_density(demo) -> None:
-    """A block holding the Heston index's driver carries the full density (exact; its restricted
-    density is not built), and a block without it keeps its restricted density."""
+def test_blocks_with_a_heston_index_carry_their_restricted_density(demo) -> None:
+    """A block holding the Heston index's driver carries its own restricted density (the Gaussian
+    ratio of its rates and the index's projection, times the Heston part's own ratio), not the
+    full density; a block without it keeps its Gaussian restricted density. The density's
+    properties (mean 1, the xi -> 0 Girsanov limit, ESS) are in tests/test_heston_blocks.py."""
     from pqflow.measure.blocks import DensityBlock
 
     model = build_model(demo, (1.0,))
     spec = _spec(demo, model)
     blocks = (DensityBlock(name="rates", drivers=("rates",)),
               DensityBlock(name="rates_veldmark_all_share", drivers=("rates", "veldmark_all_share")))
-    cols = simulate_part(model, np.arange(0.0, 4.0), measure="real_world", n_paths=200, seed=5, batch=0,
+    times = np.arange(0.0, 4.0)
+    cols = simulate_part(model, times, measure="real_world", n_paths=200, seed=5, batch=0,
                          antithetic=True, heston=(spec,), density_blocks=blocks)
-    assert np.array_equal(cols["q_density_rates_veldmark_all_share"], cols["q_density"])
+    assert not np.array_equal(cols["q_density_rates_veldmark_all_share"], cols["q_density"])
     assert not np.array_equal(cols["q_density_rates"], cols["q_density"])
-
+    # without the Heston index the rates block is the same restricted density (to rounding: the
+    # blocks' exponents are accumulated together)
+    plain = simulate_part(model, times, measure="real_world", n_paths=200, seed=5, batch=0,
+                          antithetic=True, density_blocks=blocks[:1])
+    assert np.allclose(plain["q_density_rates"], cols["q_density_rates"], rtol=1e-12, atol=0.0)

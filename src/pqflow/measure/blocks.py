@@ -52,6 +52,8 @@ __all__ = [
     "default_blocks",
     "check_blocks",
     "gaussian_block_coefficients",
+    "ObservedRows",
+    "observed_block_coefficients",
     "column_drivers",
     "smallest_block",
     "density_factors",
@@ -215,6 +217,38 @@ def gaussian_block_coefficients(
     m_b = shift[:, rows]
     solved = np.linalg.solve(sigma, m_b[:, :, None])[:, :, 0]  # Sigma_BB^{-1} m_B, (K, b)
     return np.einsum("kbd,kb->kd", l_b, solved)
+
+
+@dataclass(frozen=True, kw_only=True, eq=False)
+class ObservedRows:
+    """A block seen through its own states' step noise (``rows``) and ``p`` further linear
+    functionals of the step noise, ``extra`` ``(K, p, d)``: row ``i`` of step ``k`` gives
+    ``extra[k, i] . e_k`` (``e_k`` the states' noise). A non-Gaussian part that reads such a
+    functional of the economy (a Heston index reads its driver's projection on the Gaussian
+    drivers, :mod:`pqflow.simulation.heston_part`) makes it part of its block's information."""
+
+    rows: tuple[int, ...]
+    extra: np.ndarray
+
+
+def observed_block_coefficients(
+    chol: np.ndarray, shift: np.ndarray, rows: Sequence[int], extra: np.ndarray
+) -> np.ndarray:
+    """``g_k`` (module doc) of a block observed through ``y_k = A_k e_k``, ``A_k`` the selection
+    of ``rows`` stacked on ``extra[k]`` (:class:`ObservedRows`): with ``M = A L`` and the
+    observation's real-world shift ``A m``, ``g = M^T (M M^T)^+ A m``, the projection of the
+    full coefficient ``L^{-1} m`` on the rows of ``M`` (the likelihood ratio of the Gaussian
+    vector ``y``: same covariance ``M M^T`` under both measures, means ``0`` and ``A m``). The
+    pseudo-inverse drops directions already seen (an extra functional in the span of the rows).
+
+    chol ``(K, d, d)``, shift ``(K, d)``, extra ``(K, p, d)``; returns ``(K, d)``."""
+    rows = list(rows)
+    extra = np.asarray(extra, dtype=float)
+    m_rows = np.concatenate([chol[:, rows, :], np.einsum("kpd,kde->kpe", extra, chol)], axis=1)
+    m_y = np.concatenate([shift[:, rows], np.einsum("kpd,kd->kp", extra, shift)], axis=1)
+    sigma = np.einsum("kid,kjd->kij", m_rows, m_rows)
+    solved = np.einsum("kij,kj->ki", np.linalg.pinv(sigma, rcond=1e-10, hermitian=True), m_y)
+    return np.einsum("kbd,kb->kd", m_rows, solved)
 
 
 _INDEX_PREFIXES = ("equity_", "property_")

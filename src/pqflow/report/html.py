@@ -31,7 +31,7 @@ import pandas as pd
 from pqflow import CAUTION, __version__
 from pqflow.errors import IntegrityError
 from pqflow.report import numbers as fmt
-from pqflow.report import svg
+from pqflow.report import smile, svg
 from pqflow.storage.jsonio import read_json
 from pqflow.validation.martingale import bond_maturity_of
 from pqflow.validation.reader import ScenarioSetReader
@@ -725,6 +725,8 @@ def _calibration(cal: dict[str, Any]) -> str:
     for name, fit in (cal.get("fit") or {}).items():
         if name == "indices" and isinstance(fit, dict):
             fits += [(f"index {k}", v) for k, v in fit.items()]
+        elif name == "heston":  # the smile fit: pqflow.report.smile
+            continue
         elif name == "credit" and isinstance(fit, dict):
             fits.append(("credit", {k: v for k, v in fit.items() if k != "ratings"}))
             fits += [(f"credit {r.get('rating')}", r) for r in fit.get("ratings", [])]
@@ -753,6 +755,7 @@ def _calibration(cal: dict[str, Any]) -> str:
             html.append("<h3>Fit: year-on-year caps and floors</h3>")
             html.append(_kv([(k.replace("_", " "), _fit_scalar(k, v)) for k, v in caps.items() if k != "rows"]))
             html.append(_fit_table(caps["rows"], vols_in_bp=False))
+    html.append(smile.smile_fit_html((cal.get("fit") or {}).get("heston")))
     if not cal.get("fit"):
         html.append('<p class="note">No fit record in calibration.json (parameters typed in).</p>')
     html.append(_grid(charts))
@@ -1168,6 +1171,8 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
             "requirement": lambda r: escape(str(r["requirement"])), "benchmark": lambda r: escape(fmt.number(r["benchmark"], 3)),
             "pass": lambda r: "met" if str(r.get("pass")) in ("True", "true", "1") else "<strong>missed</strong>"}))
     html.append(_files(run_dir, ["wealth_ratio_benchmark.csv"]))
+    by_index = smile.wealth_ratio_by_index_html(_records(_csv(run_dir, "wealth_ratio_by_index")), bench.get("by_index"))
+    html.append(by_index + (_files(run_dir, ["wealth_ratio_by_index.csv"]) if by_index else ""))
     stats = _records(_csv(run_dir, "real_world_statistics"))
     if stats:
         html.append("<h3>Moments (pooled annual steps; reported)</h3>")

@@ -38,7 +38,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from pqflow.measure.blocks import gaussian_block_coefficients
+from pqflow.measure.blocks import ObservedRows, gaussian_block_coefficients, observed_block_coefficients
 from pqflow.measure.density import accumulate_exponent, deflator, density_coefficients, signed_coefficients
 from pqflow.models.base import ScenarioModel
 
@@ -196,12 +196,23 @@ class BlockLaws:
 _BLOCK_LAWS: OrderedDict[bytes, BlockLaws] = OrderedDict()
 
 
-def block_laws(model: ScenarioModel, times: np.ndarray, block_rows: Sequence[Sequence[int]]) -> BlockLaws:
-    """Restricted-density coefficients of each block (state indices ``block_rows``) on ``times``,
-    computed once per process for each model, grid and set of blocks."""
+BlockRows = Sequence[int] | ObservedRows
+
+
+def _block_key(r: BlockRows) -> tuple:
+    if isinstance(r, ObservedRows):
+        return (tuple(int(i) for i in r.rows), np.ascontiguousarray(r.extra, dtype=float).tobytes(), r.extra.shape)
+    return tuple(int(i) for i in r)
+
+
+def block_laws(model: ScenarioModel, times: np.ndarray, block_rows: Sequence[BlockRows]) -> BlockLaws:
+    """Restricted-density coefficients of each block (state indices ``block_rows``, or
+    :class:`pqflow.measure.blocks.ObservedRows` for a block that also sees further functionals
+    of the step noise) on ``times``, computed once per process for each model, grid and set of
+    blocks."""
     times = np.ascontiguousarray(times, dtype=float)
     laws = grid_laws(model, times)
-    rows = tuple(tuple(int(i) for i in r) for r in block_rows)
+    rows = tuple(_block_key(r) for r in block_rows)
     key = hashlib.sha256(pickle.dumps((model, rows), protocol=5) + times.tobytes()).digest()
     with _LAWS_LOCK:
         found = _BLOCK_LAWS.get(key)
@@ -211,8 +222,13 @@ def block_laws(model: ScenarioModel, times: np.ndarray, block_rows: Sequence[Seq
     shift = np.einsum("kij,kj->ki", laws.chol, laws.eta)  # m = L eta
     k_steps = times.size - 1
     coef = np.empty((k_steps, len(rows), laws.eta.shape[1]))
-    for b, r in enumerate(rows):
-        coef[:, b, :] = gaussian_block_coefficients(laws.chol, shift, r) if k_steps else 0.0
+    for b, r in enumerate(block_rows):
+        if not k_steps:
+            coef[:, b, :] = 0.0
+        elif isinstance(r, ObservedRows):
+            coef[:, b, :] = observed_block_coefficients(laws.chol, shift, r.rows, r.extra)
+        else:
+            coef[:, b, :] = gaussian_block_coefficients(laws.chol, shift, rows[b])
     half_sq_cum = np.zeros((k_steps + 1, len(rows)))
     np.cumsum(0.5 * np.einsum("kbd,kbd->kb", coef, coef), axis=0, out=half_sq_cum[1:])
     coef.flags.writeable = False
@@ -234,7 +250,7 @@ def simulate_states(
     rng: np.random.Generator,
     antithetic: bool,
     workspace: Workspace | None = None,
-    block_rows: Sequence[Sequence[int]] = (),
+    block_rows: Sequence[BlockRows] = (),
 ) -> SimulatedStates:
     """The simulation core: states and density weights of ``n_paths`` paths under ``measure``.
 
@@ -345,7 +361,7 @@ def simulate_batch(
     antithetic: bool,
     columns: Sequence[str] | None = None,
     workspace: Workspace | None = None,
-    density_blocks: Mapping[str, Sequence[int]] | None = None,
+    density_blocks: Mapping[str, BlockRows] | None = None,
 ) -> dict[str, np.ndarray]:
     """Simulate ``n_paths`` paths on ``times`` under ``measure``.
 
@@ -353,12 +369,15 @@ def simulate_batch(
     computed) plus ``deflator`` and the density column (``q_density`` = dQ/dP in the
     real-world set, ``p_density`` = dP/dQ in the market-consistent set), each of shape
     ``(n_paths, n_times)``; antithetic pairs are paths ``(2j, 2j+1)``. ``density_blocks``: block
-    name -> its state indices; each adds the restricted density ``<density column>_<name>``
+    name -> its state indices (or :class:`pqflow.measure.blocks.ObservedRows`); each adds the
+    restricted density ``<density column>_<name>``
     (a block of every state has the full density, which is reused).
     """
     blocks = dict(density_blocks or {})
     d = len(model.state_names)
-    whole = [name for name, rows in blocks.items() if sorted(rows) == list(range(d))]
+    whole = [
+        name for name, rows in blocks.items() if not isinstance(rows, ObservedRows) and sorted(rows) == list(range(d))
+    ]
     partial = {name: rows for name, rows in blocks.items() if name not in whole}
     core = simulate_states(
         model, times, measure=measure, n_paths=n_paths, rng=rng, antithetic=antithetic, workspace=workspace,

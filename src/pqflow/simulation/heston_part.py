@@ -14,8 +14,16 @@ A Heston index reads from the economy's batch what its scheme needs and nothing 
 Everything else comes from the part's own random stream (``heston_generator``, a child of the
 batch's seed sequence beside credit's), so the Gaussian drivers' numbers are the same with or
 without it. The part's density (:mod:`pqflow.measure.heston_density`) is the likelihood ratio of
-its own normals given the economy: it multiplies the economy's full density exactly (a density
-block that contains the index's driver carries the full density, ``simulation/scenarios.py``).
+its own normals given the economy: it multiplies the economy's full density exactly.
+
+Density blocks. A block that holds the index's driver (with the rates: the index reads the cash
+account) sees the index, its variance and what the index reads from the economy: the block's
+rate states and the projection's increment ``sum_j beta_j dB_j`` over each output step, a linear
+functional of the economy's step noise (:func:`projection_noise_rows`, exact because each ``dB_j``
+is recovered exactly from the states). Its restricted density is the Gaussian likelihood ratio
+of those (:class:`pqflow.measure.blocks.ObservedRows`; the index's Gaussian stand-in state is not
+part of it) times the part's own density: the exact likelihood ratio of the block's own
+transitions, without the other drivers' noise (``simulation/scenarios.py``).
 
 * the increments of every deterministic-volatility total-return index it correlates with:
   ``sigma dB = d ln S - d ln B + sigma^2 dt / 2`` (less ``sigma lambda dt`` in the real world),
@@ -49,6 +57,7 @@ __all__ = [
     "rates_driver_increments",
     "index_driver_increments",
     "driver_increments",
+    "projection_noise_rows",
     "simulate_heston_index",
 ]
 
@@ -130,6 +139,33 @@ def driver_increments(model, name: str, times: np.ndarray, cols: dict[str, np.nd
         if isinstance(part, TotalReturnIndex) and part.name == name:
             return index_driver_increments(model, part, times, cols, measure=measure)
     raise ValueError(f"driver {name!r}: its increments cannot be recovered from the economy's columns")
+
+
+def projection_noise_rows(model, spec: HestonIndex, times: np.ndarray) -> np.ndarray:
+    """``a_k`` ``(K, d)`` with ``sum_j beta_j dB_j = a_k . e_k`` over step ``k`` (``e_k``: the
+    economy's state noise, ``d`` states; the deterministic parts aside): the index's projection
+    increment as a functional of the step noise, from the joint step moments of the states and
+    the projection (:func:`pqflow.models.kernels.grid_moments` with the projection as one more
+    row of constant kernels), ``a_k = Cov(e_k)^{-1} Cov(e_k, dP_k)``. ``ValueError`` when the
+    projection is not a function of the states (its residual variance is not 0)."""
+    from pqflow.models.kernels import Exposure, grid_moments
+
+    exposures = getattr(model, "_exposures", None)
+    if exposures is None:
+        raise ValueError(f"index {spec.name}: its density block needs a model that lists its states' exposures")
+    times = np.asarray(times, dtype=float)
+    row = tuple(Exposure(driver=d, kind="one", scale=float(b)) for d, b in spec.loadings)
+    cov, _ = grid_moments(times, (*exposures, row), model.correlation, model.driver_names, model.prices_of_risk)
+    d = len(exposures)
+    a = np.linalg.solve(cov[:, :d, :d], cov[:, :d, d][:, :, None])[:, :, 0]
+    residual = cov[:, d, d] - np.einsum("kd,kd->k", a, cov[:, :d, d])
+    worst = int(np.argmax(np.abs(residual) / np.maximum(cov[:, d, d], 1e-300)))
+    if abs(residual[worst]) > 1e-8 * max(cov[worst, d, d], 1e-300):
+        raise ValueError(
+            f"index {spec.name}: its projection on {', '.join(n for n, _ in spec.loadings)} is not a function of "
+            f"the economy's states over step {worst} (residual variance {residual[worst]:.3g})"
+        )
+    return a
 
 
 def simulate_heston_index(

@@ -20,7 +20,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from pqflow.measure.blocks import DensityBlock, block_states, density_block_column, model_structure
+from pqflow.measure.blocks import DensityBlock, ObservedRows, block_states, density_block_column, model_structure
 from pqflow.measure.density import deflator
 from pqflow.models.base import ScenarioModel
 from pqflow.models.cir_credit import CirCreditModel
@@ -28,10 +28,10 @@ from pqflow.models.heston import HestonIndex, variance_column
 from pqflow.models.hull_white_equity import bond_column
 from pqflow.simulation.credit import simulate_credit
 from pqflow.simulation.engine import DENSITY_COLUMN, Workspace, simulate_batch
-from pqflow.simulation.heston_part import heston_generator, simulate_heston_index
+from pqflow.simulation.heston_part import heston_generator, projection_noise_rows, simulate_heston_index
 from pqflow.simulation.streams import batch_generator, credit_generator
 
-__all__ = ["credit_substeps", "simulate_part", "block_layout"]
+__all__ = ["credit_substeps", "simulate_part", "block_layout", "heston_block_rows"]
 
 
 def credit_substeps(times: np.ndarray, substeps_per_year: int) -> int:
@@ -85,9 +85,13 @@ def simulate_part(
     own densities (credit is independent of the Gaussian drivers). ``heston``: indices with
     Heston variance, simulated conditionally on the economy (:mod:`pqflow.simulation.heston_part`);
     each replaces its index column, adds ``variance_<name>`` and multiplies its density into the
-    full density; a block that contains its driver carries the full density (:func:`_heston_blocks`)."""
+    full density and into the density of each block that holds its driver (:func:`heston_block_rows`)."""
     layout = block_layout(model, credit, density_blocks) if density_blocks else {}
-    gaussian = {name: rows for name, (rows, _) in layout.items() if rows}
+    by_name = {b.name: b for b in density_blocks}
+    gaussian = {
+        name: heston_block_rows(model, np.asarray(times, dtype=float), by_name[name], rows, heston)
+        for name, (rows, _) in layout.items() if rows
+    }
     cols = simulate_batch(
         model, times, measure=measure, n_paths=n_paths, rng=batch_generator(seed, measure, batch),
         antithetic=antithetic, workspace=workspace, density_blocks=gaussian,
@@ -103,11 +107,16 @@ def simulate_part(
         )
         cols[spec.column] = spec.level * np.exp(paths.log_return)
         cols[variance_column(spec.name)] = paths.variance
-        cols[density] = cols[density] * np.exp(paths.log_density)
+        own = np.exp(paths.log_density)
+        cols[density] = cols[density] * own
+        for block in density_blocks:
+            if spec.name in block.drivers:
+                column = density_block_column(measure, block.name)
+                cols[column] = cols[column] * own
     if heston:
         cols["deflator"] = deflator(measure, cols[density], cols["cash_account"])
     if credit is None:
-        return _heston_blocks(cols, measure, density_blocks, heston)
+        return cols
     missing = [m for m in credit.bond_maturities if bond_column(m) not in cols]
     if missing:
         raise ValueError(f"credit bonds need the risk-free bonds {missing} among the output columns")
@@ -123,18 +132,24 @@ def simulate_part(
             cols[column] = cols[column] * np.prod(paths.rating_density[list(ratings)], axis=0)
     cols[density] = cols[density] * paths.density
     cols["deflator"] = deflator(measure, cols[density], cols["cash_account"])
-    return _heston_blocks(cols, measure, density_blocks, heston)
-
-
-def _heston_blocks(
-    cols: dict[str, np.ndarray], measure: str, blocks: Sequence[DensityBlock], heston: Sequence[HestonIndex]
-) -> dict[str, np.ndarray]:
-    """A block that holds a Heston index's driver carries the full density: the index reads
-    the increments of the drivers it projects on, and its Gaussian stand-in's restricted
-    density is not its law, so the block's own restricted density is not built (the full
-    density is exact for every column, only less efficient)."""
-    names = {spec.name for spec in heston}
-    for block in blocks:
-        if names & set(block.drivers):
-            cols[density_block_column(measure, block.name)] = cols[DENSITY_COLUMN[measure]]
     return cols
+
+
+def heston_block_rows(
+    model: ScenarioModel, times: np.ndarray, block: DensityBlock, rows: Sequence[int], heston: Sequence[HestonIndex]
+) -> tuple[int, ...] | ObservedRows:
+    """What the Gaussian factor of ``block``'s density sees. Without a Heston index in the block:
+    its states ``rows``. With one: its states less the index's Gaussian stand-in (the Heston part
+    writes the index), plus the increments of the index's projection on the economy's drivers,
+    which the index reads (:func:`pqflow.simulation.heston_part.projection_noise_rows`); the
+    Heston part's own density multiplies it after the simulation (:func:`simulate_part`)."""
+    mine = [spec for spec in heston if spec.name in block.drivers]
+    if not mine:
+        return tuple(rows)
+    names = {spec.name for spec in mine}
+    drivers = model.state_drivers()  # type: ignore[attr-defined]
+    kept = tuple(i for i in rows if not names & set(drivers[i]))
+    extra = [projection_noise_rows(model, spec, times)[:, None, :] for spec in mine if spec.loadings]
+    if not extra:
+        return kept
+    return ObservedRows(rows=kept, extra=np.concatenate(extra, axis=1))

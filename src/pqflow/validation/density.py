@@ -7,7 +7,7 @@ set) and every density restricted to a block of drivers written beside it
 
 The mean is judged by the test its ``test`` column names (:mod:`pqflow.validation.mean_tests`:
 the lognormal identity for a Gaussian density, the robust t for one carrying the CIR credit
-part); the plain t is kept as ``z_score_plain_t``. ``lower_99`` and ``upper_99`` are the plain
+part or a Heston index's part); the plain t is kept as ``z_score_plain_t``. ``lower_99`` and ``upper_99`` are the plain
 99% interval ``mean +- z_{0.995} se`` for the reader.
 
 The effective sample size ``ESS = (sum w)^2 / sum w^2`` (Kong, "A note on importance sampling
@@ -20,7 +20,7 @@ ESS share falls below ``validation.ess_warning_share`` (:func:`usable_horizons`)
 from __future__ import annotations
 
 import re
-from collections.abc import Generator
+from collections.abc import Generator, Sequence
 from typing import Any
 
 import numpy as np
@@ -56,18 +56,26 @@ def density_block(column: str) -> str | None:
     raise ValueError(f"{column!r} is not a density column")
 
 
-def density_table(reader: ScenarioSet, *, credit_density: bool = False) -> pd.DataFrame:
+def density_table(
+    reader: ScenarioSet, *, credit_density: bool = False, heston_drivers: Sequence[str] = ()
+) -> pd.DataFrame:
     """One row per (density column, output time): mean weight, its test, ESS and largest share.
 
-    credit_density: whether the full density carries the CIR credit part (then it is judged by
-    the robust t)."""
+    credit_density: whether the full density carries the CIR credit part; heston_drivers: the
+    run's stochastic-volatility indices (their part is in the full density and in every block
+    that holds their driver). Such densities are judged by the robust t
+    (:func:`pqflow.validation.mean_tests.rule_for_density`)."""
     scan = SetPass(scenario_set=reader)
-    return run_steps({reader.measure: scan}, density_steps(scan, credit_density=credit_density))
+    return run_steps({reader.measure: scan}, density_steps(scan, credit_density=credit_density,
+                                                           heston_drivers=heston_drivers))
 
 
-def density_steps(scan: SetPass, *, credit_density: bool = False) -> Generator[None, None, pd.DataFrame]:
+def density_steps(
+    scan: SetPass, *, credit_density: bool = False, heston_drivers: Sequence[str] = ()
+) -> Generator[None, None, pd.DataFrame]:
     """:func:`density_table` as steps of a shared pass (:func:`pqflow.validation.run_files.run_steps`)."""
     reader = scan.scenario_set
+    block_drivers = reader.density_blocks() if heston_drivers else {}
     columns = density_columns(reader.measure, reader.column_names())
     if not columns:
         raise ValueError(f"{reader.set_dir}: no {DENSITY_COLUMNS[reader.measure]} column")
@@ -98,7 +106,9 @@ def density_steps(scan: SetPass, *, credit_density: bool = False) -> Generator[N
     frames = []
     z99 = norm.ppf(0.995)
     for c in columns:
-        rule = rule_for_density(c, credit_density=credit_density)
+        block = density_block(c)
+        rule = rule_for_density(c, credit_density=credit_density, heston_drivers=heston_drivers,
+                                block_drivers=None if block is None else block_drivers.get(block))
         res = mean_test(acc[c], 1.0, rule, deviation=DENSITY_DEVIATION)
         ess = total[c] ** 2 / total_sq[c]  # Kong (1992)
         frames.append(pd.DataFrame({

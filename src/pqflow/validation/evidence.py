@@ -33,7 +33,11 @@ import pandas as pd
 
 from pqflow.validation.assets import martingale_assets
 from pqflow.validation.market_consistency import market_consistency_steps
-from pqflow.validation.mean_tests import credit_in_density, stochastic_volatility_assets
+from pqflow.validation.mean_tests import (
+    credit_in_density,
+    stochastic_volatility_assets,
+    stochastic_volatility_drivers,
+)
 from pqflow.validation.real_world import real_world_steps
 from pqflow.validation.reconciliation import reconciliation_steps
 from pqflow.validation.run_files import all_steps, json_safe, load_run_inputs, run_steps, set_passes
@@ -126,7 +130,8 @@ def run_checks(
         validate_run_steps(passes, inputs.curve.discount, ess_warning_share=ess_warning_share,
                            extra_assets=partial(martingale_assets, inputs), credit_density=credit,
                            rates_drivers=inputs.rates_drivers,
-                           non_lognormal=tuple(stochastic_volatility_assets(inputs.parameters))),
+                           non_lognormal=tuple(stochastic_volatility_assets(inputs.parameters)),
+                           heston_drivers=tuple(stochastic_volatility_drivers(inputs.parameters))),
         market_consistency_steps(inputs, passes, vol_tolerance=vol_tolerance),
         real_world_steps(inputs, passes, wealth_benchmark_gating=wealth_benchmark_gating),
         reconciliation_steps(inputs, passes, maturity=guarantee_maturity, guarantee=guarantee),

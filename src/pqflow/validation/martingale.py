@@ -129,12 +129,13 @@ def martingale_table(
     credit_density: bool = False,
     rates_drivers: Sequence[str] = ("rates",),
     non_lognormal: Collection[str] = (),
+    heston_drivers: Collection[str] = (),
 ) -> pd.DataFrame:
     """The table of :func:`martingale_steps` on a pass of its own over ``reader``'s parts."""
     scan = SetPass(scenario_set=reader)
     return run_steps({reader.measure: scan}, martingale_steps(
         scan, discount, extra, credit_density=credit_density, rates_drivers=rates_drivers,
-        non_lognormal=non_lognormal))
+        non_lognormal=non_lognormal, heston_drivers=heston_drivers))
 
 
 def martingale_steps(
@@ -145,12 +146,15 @@ def martingale_steps(
     credit_density: bool = False,
     rates_drivers: Sequence[str] = ("rates",),
     non_lognormal: Collection[str] = (),
+    heston_drivers: Collection[str] = (),
 ) -> Generator[None, None, pd.DataFrame]:
     """One row per (asset, time > 0). ``discount`` is today's curve ``t -> P(0, t)``; ``extra``
     are further assets (their columns must be in the files, their names new); credit_density:
     whether the set's density carries the CIR credit part (its cells are then not lognormal);
     non_lognormal: assets judged by the robust t whatever the density (a stochastic-volatility
-    index, :func:`pqflow.validation.mean_tests.stochastic_volatility_assets`).
+    index, :func:`pqflow.validation.mean_tests.stochastic_volatility_assets`); heston_drivers:
+    the stochastic-volatility indices, whose part in a real-world weight (the full density, or a
+    block that holds their driver) makes the cell not lognormal (robust t).
 
     In a real-world set that carries restricted densities (:mod:`pqflow.measure.blocks`) every
     asset but the deflator itself is deflated with the density of the smallest block(s) holding
@@ -171,6 +175,7 @@ def martingale_steps(
         raise IntegrityError(f"{reader.set_dir}: columns {', '.join(missing)} are not in the files")
     indices = index_columns(names)
     weights = _asset_weights(reader, assets, rates_drivers)
+    block_drivers = reader.density_blocks() if heston_drivers and reader.measure == "real_world" else {}
     factor_cols = [c for w in weights.values() for c in w]
     needed = list(dict.fromkeys(["deflator", *(c for a in assets for c in a.columns), *factor_cols,
                                  *(["cash_account"] if factor_cols else [])]))
@@ -205,12 +210,14 @@ def martingale_steps(
         assert moments is not None
         ref = np.asarray(a.reference(times), dtype=float)
         factors = weights[a.name]
-        if factors:  # a restricted density: lognormal unless a credit block is among its factors
+        if factors:  # a restricted density: lognormal unless a credit or Heston block is among its factors
             with_credit = any(c.split("_density_", 1)[1].startswith(CREDIT_PREFIX) for c in factors)
+            with_heston = any(set(heston_drivers) & set(block_drivers.get(c.split("_density_", 1)[1], ()))
+                              for c in factors)
             rule = rule_for_asset(a.name, measure=reader.measure, credit_density=False, non_lognormal=non_lognormal)
-            rule = ROBUST if with_credit else rule
+            rule = ROBUST if with_credit or with_heston else rule
         else:
-            rule = rule_for_asset(a.name, measure=reader.measure, credit_density=credit_density,
+            rule = rule_for_asset(a.name, measure=reader.measure, credit_density=credit_density or bool(heston_drivers),
                                   non_lognormal=non_lognormal)
         res = mean_test(moments, ref, rule, deviation=MARTINGALE_DEVIATION)
         for k in range(1, times.size):
