@@ -30,7 +30,8 @@ import numpy as np
 import pytest
 
 from pqflow.measure.heston_density import HestonPricesOfRisk, heston_prices_of_risk
-from pqflow.models.heston import HestonParams, simulate_heston_paths
+from pqflow.models.heston import HestonParams
+from pqflow.simulation.heston_scheme import simulate_heston_paths
 from pqflow.validation.mean_tests import (
     DENSITY_DEVIATION,
     LOGNORMAL,
