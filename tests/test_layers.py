@@ -50,10 +50,7 @@ RANK = {name: i for i, name in enumerate(LAYERS)}
 
 #: Edges allowed for now, each with the reason and the change that removes it. A listed edge that
 #: no longer exists fails the test, so that the list only shrinks.
-KNOWN: dict[tuple[str, str], str] = {
-    ("models/hull_white_equity.py", "pqflow.measure.prices_of_risk"):
-        "the single-part Hull-White/equity transition moves to tests/ as an oracle (one economy model)",
-}
+KNOWN: dict[tuple[str, str], str] = {}
 
 
 def _modules() -> list[tuple[str, str, Path]]:
