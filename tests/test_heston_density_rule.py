@@ -10,13 +10,17 @@ families of the 10 yearly cells of one simulated set of 1,000 antithetic pairs, 
 Bonferroni family level 1% (as the density check judges a column's times):
 
 - the demo_smile fit (invented data; its prices of risk are small, ``S`` has a small spread);
-- the same fit with a house-view real-world long-run volatility of 15% (allowed; it moves
-  ``kappa^P`` and gives the index's and the variance's own shocks large prices of risk).
+- the same fit with a house-view real-world long-run volatility of 20% (against the fit's 20.5%:
+  ``kappa^P`` and ``theta^P`` about 5% from the market-consistent ones) and of 15% (allowed; it
+  moves them by 65% and 39% and gives the index's and the variance's own shocks large prices of
+  risk).
 
-Finding: on the demo_smile fit both rules hold the level over 10 years; with the 15% house view
-the lognormal identity raises false alarms in nearly every family and the robust t (which the
-check now uses for every density holding a Heston part) in about a quarter: no rule here holds
-its size there (stated in the README as a limitation).
+Finding: on the demo_smile fit and at 20% both rules hold the level over 10 years; with the 15%
+house view the lognormal identity raises false alarms in nearly every family and the robust t
+(which the check uses for every density holding a Heston part) in about a quarter (probed, 100
+families each: 3% at 19%, 8% at 18%, 15% at 17%, 20% at 16%). So the check judges such
+densities only within :data:`pqflow.validation.mean_tests.HESTON_MEASURED_SHIFT` of the
+market-consistent kappa and theta, and reports the cells inconclusive beyond it.
 
 Sources: the lognormal mean identity and Bonferroni's inequality (common practice); the binomial
 standard error of a simulated rejection rate ``sqrt(p (1 - p) / R)`` (common practice in Monte
@@ -39,6 +43,7 @@ from pqflow.validation.mean_tests import (
     CellMoments,
     mean_test,
     rule_for_density,
+    unmeasured_heston_drivers,
 )
 from pqflow.validation.summary import FAMILY_ALPHA, family_critical_z
 
@@ -89,7 +94,16 @@ def _verdicts(x: np.ndarray, rule: str):
     return failed, weak
 
 
-@pytest.mark.parametrize("real_world_vol", [None, 0.15], ids=["demo_smile", "house_view_15pct"])
+def _parameters(real_world_vol) -> dict:
+    """The calibration.json entry the check reads for this fit and house view."""
+    lam = _prices(real_world_vol)
+    return {"stochastic_volatility": {"veldmark_all_share": {
+        "kappa": FIT.kappa, "theta": FIT.theta,
+        "prices_of_risk": {"equity": lam.equity, "variance": lam.variance,
+                           "kappa_real_world": lam.kappa_real_world, "theta_real_world": lam.theta_real_world}}}}
+
+
+@pytest.mark.parametrize("real_world_vol", [None, 0.20, 0.15], ids=["demo_smile", "house_view_20pct", "house_view_15pct"])
 def test_size_and_power_on_heston_densities(real_world_vol, report_statistic) -> None:
     """Size: the share of correct families with a false alarm, for both rules; the rule the
     density check uses for a Heston density must stay within the family level (plus 3 binomial
@@ -105,14 +119,22 @@ def test_size_and_power_on_heston_densities(real_world_vol, report_statistic) ->
         rate[rule] = float(np.concatenate(alarms).mean())
     used = rule_for_density("q_density", credit_density=False, heston_drivers=("veldmark_all_share",))
     line = report_statistic(
-        f"Heston density ({'demo_smile fit' if real_world_vol is None else 'real-world long-run vol 15%'}; "
+        f"Heston density ({'demo_smile fit' if real_world_vol is None else f'real-world long-run vol {real_world_vol:.0%}'}; "
         f"prices of risk {lam.equity:.2f}, {lam.variance:.2f}), {FAMILIES} families of {YEARS} yearly cells, "
         f"{PAIRS} pairs: false alarms lognormal identity {rate[LOGNORMAL]:.3f}, robust t {rate[ROBUST]:.3f} "
         f"(nominal {FAMILY_ALPHA:.2f}, limit {limit:.3f}); the check uses the {used}")
     assert used == ROBUST
-    if real_world_vol is None:
+    unmeasured = unmeasured_heston_drivers(_parameters(real_world_vol))
+    line += f"; outside the measured range: {bool(unmeasured)}"
+    if not unmeasured:  # within HESTON_MEASURED_SHIFT the rule judges, and holds its level
         assert rate[ROBUST] <= limit, line
     else:
+        # Beyond the measured range the cells are not judged: inconclusive, with the reason.
+        res = mean_test(CellMoments.of(chunks[0][:, :YEARS], True), 1.0, ROBUST, deviation=DENSITY_DEVIATION,
+                        not_judged=unmeasured["veldmark_all_share"])
+        assert np.all(res.z_score == 0.0) and np.all(np.isinf(res.statistic_se)), line
+        assert all("not judged" in str(t) for t in res.test), line
+    if real_world_vol == 0.15:
         # Measured limitation, stated in the README: with a large variance price of risk the
         # Heston part's feedback (a low index raises v, which raises the weight's own
         # volatility) gives tails heavier than the robust t's lognormal floor assumes, and its
@@ -123,7 +145,7 @@ def test_size_and_power_on_heston_densities(real_world_vol, report_statistic) ->
         failed, weak = _verdicts(bias * x, ROBUST)
         passed = ~failed & ~weak
         line = report_statistic(
-            f"power of the robust t on Heston densities ({'demo_smile' if real_world_vol is None else 'vol 15%'}), "
+            f"power of the robust t on Heston densities ({'demo_smile' if real_world_vol is None else f'vol {real_world_vol:.0%}'}), "
             f"mean x {bias:.2f}: fail {failed.mean():.3f}, inconclusive {weak.mean():.3f}, pass {passed.mean():.3f}")
         conclusive = ~weak
         if conclusive.sum() >= 50:

@@ -20,7 +20,7 @@ ESS share falls below ``validation.ess_warning_share`` (:func:`usable_horizons`)
 from __future__ import annotations
 
 import re
-from collections.abc import Generator, Sequence
+from collections.abc import Generator, Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -57,21 +57,27 @@ def density_block(column: str) -> str | None:
 
 
 def density_table(
-    reader: ScenarioSet, *, credit_density: bool = False, heston_drivers: Sequence[str] = ()
+    reader: ScenarioSet, *, credit_density: bool = False, heston_drivers: Sequence[str] = (),
+    heston_unjudged: Mapping[str, str] | None = None,
 ) -> pd.DataFrame:
     """One row per (density column, output time): mean weight, its test, ESS and largest share.
 
     credit_density: whether the full density carries the CIR credit part; heston_drivers: the
     run's stochastic-volatility indices (their part is in the full density and in every block
     that holds their driver). Such densities are judged by the robust t
-    (:func:`pqflow.validation.mean_tests.rule_for_density`)."""
+    (:func:`pqflow.validation.mean_tests.rule_for_density`); heston_unjudged: those of them beyond
+    the range in which that rule's size is measured, with the reason
+    (:func:`pqflow.validation.mean_tests.unmeasured_heston_drivers`): the densities holding them
+    are not judged (inconclusive)."""
     scan = SetPass(scenario_set=reader)
     return run_steps({reader.measure: scan}, density_steps(scan, credit_density=credit_density,
-                                                           heston_drivers=heston_drivers))
+                                                           heston_drivers=heston_drivers,
+                                                           heston_unjudged=heston_unjudged))
 
 
 def density_steps(
-    scan: SetPass, *, credit_density: bool = False, heston_drivers: Sequence[str] = ()
+    scan: SetPass, *, credit_density: bool = False, heston_drivers: Sequence[str] = (),
+    heston_unjudged: Mapping[str, str] | None = None,
 ) -> Generator[None, None, pd.DataFrame]:
     """:func:`density_table` as steps of a shared pass (:func:`pqflow.validation.run_files.run_steps`)."""
     reader = scan.scenario_set
@@ -109,7 +115,9 @@ def density_steps(
         block = density_block(c)
         rule = rule_for_density(c, credit_density=credit_density, heston_drivers=heston_drivers,
                                 block_drivers=None if block is None else block_drivers.get(block))
-        res = mean_test(acc[c], 1.0, rule, deviation=DENSITY_DEVIATION)
+        held = heston_drivers if block is None else block_drivers.get(block, heston_drivers)
+        unjudged = [r for d, r in (heston_unjudged or {}).items() if d in held]
+        res = mean_test(acc[c], 1.0, rule, deviation=DENSITY_DEVIATION, not_judged="; ".join(unjudged) or None)
         ess = total[c] ** 2 / total_sq[c]  # Kong (1992)
         frames.append(pd.DataFrame({
             "column": c,

@@ -37,6 +37,7 @@ from pqflow.validation.mean_tests import (
     credit_in_density,
     stochastic_volatility_assets,
     stochastic_volatility_drivers,
+    unmeasured_heston_drivers,
 )
 from pqflow.validation.real_world import real_world_steps
 from pqflow.validation.reconciliation import reconciliation_steps
@@ -131,7 +132,8 @@ def run_checks(
                            extra_assets=partial(martingale_assets, inputs), credit_density=credit,
                            rates_drivers=inputs.rates_drivers,
                            non_lognormal=tuple(stochastic_volatility_assets(inputs.parameters)),
-                           heston_drivers=tuple(stochastic_volatility_drivers(inputs.parameters))),
+                           heston_drivers=tuple(stochastic_volatility_drivers(inputs.parameters)),
+                           heston_unjudged=unmeasured_heston_drivers(inputs.parameters)),
         market_consistency_steps(inputs, passes, vol_tolerance=vol_tolerance),
         real_world_steps(inputs, passes, wealth_benchmark_gating=wealth_benchmark_gating),
         reconciliation_steps(inputs, passes, maturity=guarantee_maturity, guarantee=guarantee),

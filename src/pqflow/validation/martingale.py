@@ -25,7 +25,7 @@ whether the cell has the power to judge (:func:`pqflow.validation.summary.cells_
 from __future__ import annotations
 
 import re
-from collections.abc import Callable, Collection, Generator, Sequence
+from collections.abc import Callable, Collection, Generator, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -130,12 +130,13 @@ def martingale_table(
     rates_drivers: Sequence[str] = ("rates",),
     non_lognormal: Collection[str] = (),
     heston_drivers: Collection[str] = (),
+    heston_unjudged: Mapping[str, str] | None = None,
 ) -> pd.DataFrame:
     """The table of :func:`martingale_steps` on a pass of its own over ``reader``'s parts."""
     scan = SetPass(scenario_set=reader)
     return run_steps({reader.measure: scan}, martingale_steps(
         scan, discount, extra, credit_density=credit_density, rates_drivers=rates_drivers,
-        non_lognormal=non_lognormal, heston_drivers=heston_drivers))
+        non_lognormal=non_lognormal, heston_drivers=heston_drivers, heston_unjudged=heston_unjudged))
 
 
 def martingale_steps(
@@ -147,6 +148,7 @@ def martingale_steps(
     rates_drivers: Sequence[str] = ("rates",),
     non_lognormal: Collection[str] = (),
     heston_drivers: Collection[str] = (),
+    heston_unjudged: Mapping[str, str] | None = None,
 ) -> Generator[None, None, pd.DataFrame]:
     """One row per (asset, time > 0). ``discount`` is today's curve ``t -> P(0, t)``; ``extra``
     are further assets (their columns must be in the files, their names new); credit_density:
@@ -154,7 +156,10 @@ def martingale_steps(
     non_lognormal: assets judged by the robust t whatever the density (a stochastic-volatility
     index, :func:`pqflow.validation.mean_tests.stochastic_volatility_assets`); heston_drivers:
     the stochastic-volatility indices, whose part in a real-world weight (the full density, or a
-    block that holds their driver) makes the cell not lognormal (robust t).
+    block that holds their driver) makes the cell not lognormal (robust t); heston_unjudged:
+    those beyond the range in which that rule's size is measured, with the reason
+    (:func:`pqflow.validation.mean_tests.unmeasured_heston_drivers`): real-world cells whose
+    weight holds them are not judged (inconclusive).
 
     In a real-world set that carries restricted densities (:mod:`pqflow.measure.blocks`) every
     asset but the deflator itself is deflated with the density of the smallest block(s) holding
@@ -212,14 +217,16 @@ def martingale_steps(
         factors = weights[a.name]
         if factors:  # a restricted density: lognormal unless a credit or Heston block is among its factors
             with_credit = any(c.split("_density_", 1)[1].startswith(CREDIT_PREFIX) for c in factors)
-            with_heston = any(set(heston_drivers) & set(block_drivers.get(c.split("_density_", 1)[1], ()))
-                              for c in factors)
+            held = set().union(*(block_drivers.get(c.split("_density_", 1)[1], ()) for c in factors)) \
+                & set(heston_drivers)
             rule = rule_for_asset(a.name, measure=reader.measure, credit_density=False, non_lognormal=non_lognormal)
-            rule = ROBUST if with_credit or with_heston else rule
+            rule = ROBUST if with_credit or held else rule
         else:
+            held = set(heston_drivers) if reader.measure == "real_world" else set()
             rule = rule_for_asset(a.name, measure=reader.measure, credit_density=credit_density or bool(heston_drivers),
                                   non_lognormal=non_lognormal)
-        res = mean_test(moments, ref, rule, deviation=MARTINGALE_DEVIATION)
+        unjudged = [r for d, r in (heston_unjudged or {}).items() if d in held]
+        res = mean_test(moments, ref, rule, deviation=MARTINGALE_DEVIATION, not_judged="; ".join(unjudged) or None)
         for k in range(1, times.size):
             z = res.z_score[k]
             row = {

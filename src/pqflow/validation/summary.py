@@ -190,6 +190,7 @@ def validate_run(
     rates_drivers: Sequence[str] = ("rates",),
     non_lognormal: Sequence[str] = (),
     heston_drivers: Sequence[str] = (),
+    heston_unjudged: Mapping[str, str] | None = None,
 ) -> tuple[dict[str, pd.DataFrame], dict[str, pd.DataFrame], dict[str, Any]]:
     """Compute every table and the summary for a run directory (nothing is written here).
 
@@ -200,14 +201,15 @@ def validate_run(
     (:func:`pqflow.validation.mean_tests.credit_in_density`). non_lognormal: martingale assets
     judged by the robust t (:func:`pqflow.validation.mean_tests.stochastic_volatility_assets`).
     heston_drivers: the stochastic-volatility indices, whose part makes a density (and a cell it
-    deflates) not lognormal (:func:`pqflow.validation.mean_tests.stochastic_volatility_drivers`).
+    deflates) not lognormal (:func:`pqflow.validation.mean_tests.stochastic_volatility_drivers`);
+    heston_unjudged: those beyond the measured range, with the reason (their cells are not judged).
     """
     run_dir = Path(run_dir)
     passes = {m: SetPass(scenario_set=ScenarioSet(run_dir=run_dir, measure=m)) for m in _MEASURES}
     return run_steps(passes, validate_run_steps(
         passes, discount, ess_warning_share=ess_warning_share, extra_assets=extra_assets,
         credit_density=credit_density, rates_drivers=rates_drivers, non_lognormal=non_lognormal,
-        heston_drivers=heston_drivers))
+        heston_drivers=heston_drivers, heston_unjudged=heston_unjudged))
 
 
 def validate_run_steps(
@@ -220,6 +222,7 @@ def validate_run_steps(
     rates_drivers: Sequence[str] = ("rates",),
     non_lognormal: Sequence[str] = (),
     heston_drivers: Sequence[str] = (),
+    heston_unjudged: Mapping[str, str] | None = None,
 ) -> Generator[None, None, tuple[dict[str, pd.DataFrame], dict[str, pd.DataFrame], dict[str, Any]]]:
     """:func:`validate_run` as steps on the sets' shared passes
     (:func:`pqflow.validation.run_files.run_steps`)."""
@@ -230,8 +233,9 @@ def validate_run_steps(
         extra = extra_assets(names) if extra_assets is not None else ()
         steps.append(martingale_steps(scan, discount, extra, credit_density=credit_density,
                                       rates_drivers=rates_drivers, non_lognormal=non_lognormal,
-                                      heston_drivers=heston_drivers))
-        steps.append(density_steps(scan, credit_density=credit_density, heston_drivers=heston_drivers))
+                                      heston_drivers=heston_drivers, heston_unjudged=heston_unjudged))
+        steps.append(density_steps(scan, credit_density=credit_density, heston_drivers=heston_drivers,
+                                   heston_unjudged=heston_unjudged))
     tables = yield from all_steps(steps)
     mart = {m: tables[2 * i] for i, m in enumerate(_MEASURES)}
     dens = {m: tables[2 * i + 1] for i, m in enumerate(_MEASURES)}
