@@ -32,8 +32,9 @@ from pqflow.measure.prices_of_risk import PricesOfRisk, expected_short_rate
 from pqflow.models.base import StepLaw
 from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams, b_factor
-from pqflow.models.hull_white_equity import HullWhiteEquityModel, bond_column, equity_column
+from pqflow.models.hull_white_equity import HullWhiteEquityModel
 from pqflow.simulation.engine import simulate_batch
+from pqflow.storage.names import bond_column, equity_column
 
 __all__: list[str] = []
 

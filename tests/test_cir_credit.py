@@ -40,17 +40,14 @@ from pqflow.models.cir_credit import (
     cir_forward,
     cir_laplace,
     credit_factor,
-    cumulative_intensity_column,
     defaultable_bond_columns,
-    dzcb_column,
-    intensity_column,
     real_world_cir,
     shift,
     shift_integral,
     simulate_credit,
-    spread_column,
     survival_probability,
 )
+from pqflow.storage.names import cumulative_intensity_column, dzcb_column, intensity_column, spread_column
 
 __all__: list[str] = []
 

@@ -16,10 +16,11 @@ from pqflow.measure.density import density_coefficients
 from pqflow.measure.prices_of_risk import PricesOfRisk
 from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams, cash_account, zcb_price
-from pqflow.models.hull_white_equity import HullWhiteEquityModel, bond_column, equity_column
+from pqflow.models.hull_white_equity import HullWhiteEquityModel
 from pqflow.models.schedule import PiecewiseConstant
 from pqflow.simulation import engine
 from pqflow.simulation.engine import simulate_batch, simulate_states
+from pqflow.storage.names import bond_column, equity_column
 
 
 def _model(schedule: bool = False) -> HullWhiteEquityModel:

@@ -106,7 +106,13 @@ from pqflow.measure.cir_density import (
     cir_marginal_log_density_increment,
     real_world_square_root_drift,
 )
-from pqflow.models.hull_white_equity import bond_column
+from pqflow.storage.names import (
+    bond_column,
+    cumulative_intensity_column,
+    dzcb_column,
+    intensity_column,
+    spread_column,
+)
 
 __all__ = [
     "CirParams",
@@ -123,10 +129,6 @@ __all__ = [
     "survival_probability",
     "zero_spread",
     "defaultable_zcb_price",
-    "intensity_column",
-    "cumulative_intensity_column",
-    "dzcb_column",
-    "spread_column",
     "defaultable_bond_columns",
     "simulate_credit",
 ]
@@ -378,24 +380,7 @@ def defaultable_zcb_price(
 # --------------------------------------------------------------------------- columns
 
 
-def intensity_column(rating: str) -> str:
-    """``intensity_{rating}``: ``lambda_t`` per year."""
-    return f"intensity_{rating}"
-
-
-def cumulative_intensity_column(rating: str) -> str:
-    """``cumulative_intensity_{rating}``: ``int_0^t lambda ds``."""
-    return f"cumulative_intensity_{rating}"
-
-
-def dzcb_column(rating: str, maturity: float) -> str:
-    """``dzcb_{rating}_{m}y``: pre-default price of the defaultable zero-coupon bond."""
-    return f"dzcb_{rating}_{maturity:g}y"
-
-
-def spread_column(rating: str, maturity: float) -> str:
-    """``spread_{rating}_{m}y``: its zero-coupon spread."""
-    return f"spread_{rating}_{maturity:g}y"
+# (their names: pqflow.storage.names)
 
 
 @dataclass(frozen=True, kw_only=True)

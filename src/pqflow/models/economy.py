@@ -50,18 +50,16 @@ from pqflow.models import g2pp, hull_white
 from pqflow.models.base import StepLaw, StepLaws
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams, b_factor
-from pqflow.models.hull_white_equity import bond_column
 from pqflow.models.inflation import INFLATION_DRIVER, REAL_RATE_DRIVER, InflationPart
 from pqflow.models.kernels import Exposure, grid_moments
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
-from pqflow.models.total_return import INDEX_KINDS, TotalReturnIndex, index_column
+from pqflow.models.total_return import TotalReturnIndex
+from pqflow.storage.names import CASH_ACCOUNT, SHORT_RATE, bond_column
 
 __all__ = [
-    "INDEX_KINDS",
     "RATES_DRIVERS",
     "REAL_RATE_DRIVER",
     "INFLATION_DRIVER",
-    "index_column",
     "RatesStep",
     "GaussianPart",
     "TotalReturnIndex",
@@ -285,7 +283,7 @@ class EconomyModel:
     # ---------------------------------------------------------------- outputs
 
     def known_columns(self) -> tuple[str, ...]:
-        out = ["short_rate", "cash_account", *(bond_column(m) for m in self.bond_maturities)]
+        out = [SHORT_RATE, CASH_ACCOUNT, *(bond_column(m) for m in self.bond_maturities)]
         for part in self.parts:
             out += part.known_columns()
         return tuple(out)

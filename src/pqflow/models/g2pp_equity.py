@@ -54,8 +54,9 @@ from pqflow.models.g2pp import (
     zcb_price,
 )
 from pqflow.models.hull_white import b_factor, phi2
-from pqflow.models.hull_white_equity import bond_column, equity_column, rates_equity_units
+from pqflow.models.hull_white_equity import rates_equity_units
 from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
+from pqflow.storage.names import bond_column, equity_column
 
 __all__ = [
     "G2PricesOfRisk",

@@ -83,7 +83,6 @@ __all__ = [
     "heston_option_price",
     "variance_mean",
     "variance_variance",
-    "variance_column",
     "HestonPaths",
     "simulate_heston_paths",
     "HestonIndex",
@@ -319,11 +318,6 @@ def heston_option_price(
 
 
 # --------------------------------------------------------------------------- simulation
-
-
-def variance_column(name: str) -> str:
-    """Column of an index's instantaneous variance ``v_t`` (the truncated ``v^+``)."""
-    return f"variance_{name}"
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -40,30 +40,21 @@ from pqflow.models.hull_white import (
     zcb_price,
 )
 from pqflow.models.schedule import segments
+from pqflow.storage.names import CASH_ACCOUNT, SHORT_RATE, bond_column, equity_column
 
-__all__ = ["HullWhiteEquityModel", "bond_column", "equity_column", "rates_equity_units"]
-
-
-def bond_column(maturity: float) -> str:
-    """Column name of the zero-coupon bond with ``maturity`` years to run: ``zcb_10y``."""
-    return f"zcb_{maturity:g}y"
+__all__ = ["HullWhiteEquityModel", "rates_equity_units"]
 
 
 def rates_equity_units(bond_maturities: tuple[float, ...], equity_name: str) -> dict[str, str]:
     """Units of the columns every rates-plus-equity model writes."""
     units = {
-        "short_rate": "per year, continuously compounded",
-        "cash_account": "currency units per unit invested at time 0",
+        SHORT_RATE: "per year, continuously compounded",
+        CASH_ACCOUNT: "currency units per unit invested at time 0",
     }
     for m in bond_maturities:
         units[bond_column(m)] = f"price of a zero-coupon bond paying 1 at time + {m:g} years"
     units[equity_column(equity_name)] = "total-return index level (dividends reinvested)"
     return units
-
-
-def equity_column(name: str) -> str:
-    """Column name of an equity total-return index: ``equity_{name}``."""
-    return f"equity_{name}"
 
 
 @dataclass(frozen=True, kw_only=True)

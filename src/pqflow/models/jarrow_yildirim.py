@@ -81,13 +81,12 @@ from pqflow.models.hull_white import (
     phi2,
     zcb_price,
 )
-from pqflow.models.hull_white_equity import bond_column
 from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
+from pqflow.storage.names import CPI, REAL_SHORT_RATE, bond_column, real_bond_column
 
 __all__ = [
     "CPI_COLUMN",
     "REAL_SHORT_RATE_COLUMN",
-    "real_bond_column",
     "JarrowYildirimParams",
     "InflationPricesOfRisk",
     "JarrowYildirimModel",
@@ -102,13 +101,8 @@ __all__ = [
     "yoy_swap_rate",
 ]
 
-CPI_COLUMN = "cpi"
-REAL_SHORT_RATE_COLUMN = "real_short_rate"
-
-
-def real_bond_column(maturity: float) -> str:
-    """Column name of the real zero-coupon bond with ``maturity`` years to run: ``real_zcb_10y``."""
-    return f"real_zcb_{maturity:g}y"
+CPI_COLUMN = CPI
+REAL_SHORT_RATE_COLUMN = REAL_SHORT_RATE
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -20,15 +20,16 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from pqflow.measure.blocks import DensityBlock, block_states, density_block_column, model_structure
+from pqflow.measure.blocks import DensityBlock, block_states, model_structure
 from pqflow.measure.density import deflator
 from pqflow.models.base import ScenarioModel
 from pqflow.models.cir_credit import CirCreditModel, simulate_credit
-from pqflow.models.heston import HestonIndex, variance_column
+from pqflow.models.heston import HestonIndex
 from pqflow.models.hull_white_equity import bond_column
-from pqflow.simulation.engine import DENSITY_COLUMN, Workspace, simulate_batch
+from pqflow.simulation.engine import Workspace, simulate_batch
 from pqflow.simulation.heston_part import heston_generator, simulate_heston_index
 from pqflow.simulation.streams import batch_generator, credit_generator
+from pqflow.storage.names import DENSITY_COLUMN, density_block_column, variance_column
 
 __all__ = ["credit_substeps", "simulate_part", "block_layout"]
 

@@ -31,6 +31,7 @@ from typing import Any
 
 import pandas as pd
 
+from pqflow.storage.calibration_file import calibration_path, calibration_record
 from pqflow.validation.assets import martingale_assets
 from pqflow.validation.market_consistency import market_consistency_check
 from pqflow.validation.mean_tests import credit_in_density, stochastic_volatility_assets
@@ -86,7 +87,7 @@ def density_budget_for_run(inputs) -> tuple[pd.DataFrame | None, dict[str, dict[
     from pqflow.measure.budget import density_budget
 
     try:
-        cal = load_calibration(inputs.run_dir / "calibration.json")
+        cal = load_calibration(calibration_path(inputs.run_dir))
         model = build_model(cal, ())
     except (KeyError, TypeError, ValueError):
         return None, {}
@@ -120,11 +121,12 @@ def run_checks(
     level at time 0).
     """
     inputs = load_run_inputs(run_dir)
-    credit = credit_in_density(inputs.parameters, inputs.reader("real_world").column_names())
+    record = calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
+    credit = credit_in_density(record.credit, inputs.reader("real_world").column_names())
     mart, dens, base = validate_run(run_dir, inputs.curve.discount, ess_warning_share=ess_warning_share,
                                     extra_assets=partial(martingale_assets, inputs), credit_density=credit,
                                     rates_drivers=inputs.rates_drivers,
-                                    non_lognormal=tuple(stochastic_volatility_assets(inputs.parameters)))
+                                    non_lognormal=tuple(stochastic_volatility_assets(record.stochastic_volatility)))
     checks: dict[str, dict[str, Any]] = {}
     for name, entry in base["checks"].items():
         family = name.split("_", 1)[0]

@@ -70,8 +70,9 @@ import pandas as pd
 
 from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_price
 from pqflow.errors import MarketDataError
+from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
+from pqflow.storage.names import bond_column, index_columns
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
-from pqflow.validation.martingale import index_columns
 from pqflow.validation.run_files import RunInputs, stream_moments, time_index
 from pqflow.validation.summary import family_critical_z, inconclusive_mask
 
@@ -146,7 +147,7 @@ def _num(x: Any) -> float | None:
 
 
 def _bond(k: float) -> str:
-    return f"zcb_{k:g}y"
+    return bond_column(k)
 
 
 def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option, shift) -> tuple[float | None, str | None]:
@@ -164,28 +165,31 @@ def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option
     return price, note
 
 
+def _record(inputs: RunInputs) -> CalibrationRecord:
+    """The run's calibration record, read through storage (version checked)."""
+    return calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
+
+
 def _income_yields(inputs: RunInputs) -> dict[str, float]:
     """Index name -> recorded income yield: the core equity's dividend yield and each further
     index's income yield."""
-    par = inputs.parameters
+    cal = _record(inputs)
     out: dict[str, float] = {}
-    for idx in par.get("indices", []) or []:
+    for idx in cal.indices:
         if isinstance(idx, dict) and "name" in idx and idx.get("income_yield") is not None:
             out[str(idx["name"])] = float(idx["income_yield"])
-    equity = par.get("equity", {}) or {}
-    if equity.get("name") is not None:  # as before: no recorded dividend yield reads as 0
-        out[str(equity["name"])] = float(equity.get("dividend_yield", 0.0) or 0.0)
+    if cal.equity_name is not None:
+        out[cal.equity_name] = cal.equity.dividend_yield
     return out
 
 
 def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) -> list[InstrumentSpec]:
     """Read ``calibration.json["instruments"]`` into specs, marking what the files cannot test."""
-    section = inputs.calibration.get("instruments") or {}
+    cal = _record(inputs)
     curve = inputs.curve
     out: list[InstrumentSpec] = []
-    equity_par = inputs.parameters.get("equity", {})
     yields = _income_yields(inputs)
-    for raw in section.get("swaptions", []) or []:
+    for raw in cal.instrument_list("swaptions"):
         expiry, tenor = float(raw["expiry"]), float(raw["tenor"])
         strike = float(raw["strike"])
         convention = str(raw.get("convention", "normal"))
@@ -217,9 +221,9 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
             stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
             column_names=needed, untestable=reason, note=note,
         ))
-    for raw in section.get("equity_options", []) or []:
+    for raw in cal.instrument_list("equity_options"):
         expiry, strike = float(raw["expiry"]), float(raw["strike"])
-        index = str(raw.get("index", equity_par.get("name", "")))
+        index = str(raw.get("index", cal.equity_name or ""))
         option = str(raw.get("kind", "call"))
         convention = str(raw.get("convention", "lognormal"))
         column_kind = str(raw.get("column_kind", "equity"))
@@ -243,7 +247,7 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
             stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
             column_names=(col,), untestable=reason, income_yield=q,
         ))
-    for raw in section.get("inflation_caps", []) or []:
+    for raw in cal.instrument_list("inflation_caps"):
         n, strike, option = int(round(float(raw["maturity"]))), float(raw["strike"]), str(raw["kind"])
         label = f"year-on-year inflation {option} {n}y K={strike:.2%}"
         reason = None
@@ -452,8 +456,9 @@ def market_consistency_check(
     measures: tuple[str, ...] = _MEASURES,
 ) -> CheckResult:
     """The check's table and its ``summary.json`` entry (``not_applicable`` without instruments)."""
-    section = inputs.calibration.get("instruments") or {}
-    if not (section.get("swaptions") or section.get("equity_options") or section.get("inflation_caps")):
+    cal = _record(inputs)
+    if not (cal.instrument_list("swaptions") or cal.instrument_list("equity_options")
+            or cal.instrument_list("inflation_caps")):
         return CheckResult(name=CHECK, summary=not_applicable_entry(
             kind=KIND, reason="not applicable: no instruments in calibration.json"))
     table, specs = market_consistency_table(inputs, vol_tolerance=vol_tolerance, measures=measures)

@@ -50,10 +50,13 @@ The moments are streamed part by part (:class:`CellMoments`): sums, never the ar
 
 from __future__ import annotations
 
-from collections.abc import Collection
+from collections.abc import Collection, Iterable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
+
+from pqflow.storage.names import INDEX_KINDS, density_block_or_none, index_column
 
 __all__ = [
     "LOGNORMAL",
@@ -312,29 +315,27 @@ def rule_for_density(column: str, *, credit_density: bool) -> str:
     """The full density (``q_density``, ``p_density``) is lognormal unless it carries the credit
     density; a block column (``q_density_<block>``) is lognormal unless its block is a credit
     block (name starting with ``credit``)."""
-    for prefix in ("q_density_", "p_density_"):
-        if column.startswith(prefix):
-            return ROBUST if column[len(prefix):].startswith("credit") else LOGNORMAL
+    block = density_block_or_none(column)
+    if block is not None:
+        return ROBUST if block.startswith("credit") else LOGNORMAL
     return ROBUST if credit_density else LOGNORMAL
 
 
-def stochastic_volatility_assets(parameters: dict) -> frozenset[str]:
+def stochastic_volatility_assets(heston_indices: Iterable[str]) -> frozenset[str]:
     """Index columns (``equity_<name>``, ``property_<name>``) of the indices that
-    ``calibration.json`` gives a stochastic volatility (``parameters["stochastic_volatility"]``,
-    the Heston indices). Their deflated values are variance mixtures of lognormals, not
+    ``calibration.json`` gives a stochastic volatility (the names of
+    ``CalibrationRecord.stochastic_volatility``, the Heston indices). Their deflated values are
+    variance mixtures of lognormals, not
     lognormal: ``log X`` is not Gaussian and the lognormal identity is biased upward for them
     (``E[L] + Var(L)/2 - log E[X] = Var(s^2)/8`` for ``X = exp(s Z - s^2/2)`` with a random
     ``s``), measured in ``tests/test_mean_tests.py``."""
-    sv = parameters.get("stochastic_volatility") if isinstance(parameters, dict) else None
-    if not isinstance(sv, dict):
-        return frozenset()
-    return frozenset(f"{kind}_{name}" for name in sv for kind in ("equity", "property"))
+    return frozenset(index_column(kind, str(name)) for name in heston_indices for kind in INDEX_KINDS)
 
 
-def credit_in_density(parameters: dict, column_names: list[str] | None = None) -> bool:
+def credit_in_density(credit: Any, column_names: list[str] | None = None) -> bool:
     """Whether the full density carries a CIR credit part: a rating with a non-zero price of
-    risk in ``calibration.json`` (or, without a readable record, credit columns in the files)."""
-    credit = parameters.get("credit") if isinstance(parameters, dict) else None
+    risk in the credit part of ``calibration.json`` (``CalibrationRecord.credit``; or, without
+    a readable record, credit columns in the files)."""
     if isinstance(credit, dict) and isinstance(credit.get("ratings"), list):
         try:
             return any(float(r.get("price_of_risk", 0.0)) != 0.0 for r in credit["ratings"])
