@@ -23,7 +23,7 @@ import math
 
 import numpy as np
 import pytest
-from oracles.hull_white_equity import HullWhiteEquityModel, equity_column
+from oracles.hull_white_equity import HullWhiteEquityModel
 from scipy.integrate import quad
 from scipy.stats import norm
 
@@ -33,8 +33,8 @@ from pqflow.measure.prices_of_risk import PricesOfRisk, expected_short_rate
 from pqflow.models.base import StepLaw
 from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams, b_factor
-from pqflow.models.hull_white_equity import bond_column
 from pqflow.simulation.engine import simulate_batch
+from pqflow.storage.names import bond_column, equity_column
 
 __all__: list[str] = []
 

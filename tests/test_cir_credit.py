@@ -41,15 +41,12 @@ from pqflow.models.cir_credit import (
     cir_forward,
     cir_laplace,
     credit_factor,
-    cumulative_intensity_column,
-    dzcb_column,
-    intensity_column,
     real_world_cir,
     shift,
     shift_integral,
-    spread_column,
 )
 from pqflow.simulation.credit import simulate_credit
+from pqflow.storage.names import cumulative_intensity_column, dzcb_column, intensity_column, spread_column
 
 __all__: list[str] = []
 

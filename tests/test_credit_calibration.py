@@ -33,12 +33,11 @@ from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.models.cir_credit import (
     CirParams,
     cir_forward,
-    cumulative_intensity_column,
-    dzcb_column,
     shift,
     zero_spread,
 )
 from pqflow.simulation.credit import simulate_credit
+from pqflow.storage.names import cumulative_intensity_column, dzcb_column
 
 __all__: list[str] = []
 

@@ -20,13 +20,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import QuantLib as ql
-from oracles.hull_white_equity import HullWhiteEquityModel, equity_column
+from oracles.hull_white_equity import HullWhiteEquityModel
 
 from pqflow.market.curve import LogDiscountCurve
 from pqflow.measure.prices_of_risk import PricesOfRisk
 from pqflow.models.equity import EquityParams, equity_option_price
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.simulation.engine import simulate_batch
+from pqflow.storage.names import equity_column
 
 __all__: list[str] = []
 

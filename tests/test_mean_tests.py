@@ -345,7 +345,7 @@ def test_a_variance_mixture_is_judged_by_the_robust_t(report_statistic):
     # rule_for_asset gives an index named in non_lognormal, keeps its size.
     from pqflow.validation.mean_tests import stochastic_volatility_assets
 
-    assert stochastic_volatility_assets({"stochastic_volatility": {"x": {}}}) == {"equity_x", "property_x"}
+    assert stochastic_volatility_assets({"x": {}}) == {"equity_x", "property_x"}
     assert stochastic_volatility_assets({}) == frozenset()
     assert rule_for_asset("equity_x", measure="market_consistent", credit_density=False,
                           non_lognormal={"equity_x"}) == ROBUST

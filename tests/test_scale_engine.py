@@ -10,17 +10,17 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from oracles.hull_white_equity import HullWhiteEquityModel, equity_column
+from oracles.hull_white_equity import HullWhiteEquityModel
 
 from pqflow.market.curve import LogDiscountCurve
 from pqflow.measure.density import density_coefficients
 from pqflow.measure.prices_of_risk import PricesOfRisk
 from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams, cash_account, zcb_price
-from pqflow.models.hull_white_equity import bond_column
 from pqflow.models.schedule import PiecewiseConstant
 from pqflow.simulation import engine
 from pqflow.simulation.engine import simulate_batch, simulate_states
+from pqflow.storage.names import bond_column, equity_column
 
 
 def _model(schedule: bool = False) -> HullWhiteEquityModel:

@@ -31,7 +31,7 @@ import math
 import numpy as np
 import pytest
 from conftest import assert_gaussian_moments
-from oracles.hull_white_equity import HullWhiteEquityModel, equity_column
+from oracles.hull_white_equity import HullWhiteEquityModel
 from scipy.integrate import quad
 
 from pqflow.market.curve import LogDiscountCurve
@@ -39,6 +39,7 @@ from pqflow.measure.prices_of_risk import PricesOfRisk
 from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.simulation.engine import simulate_batch
+from pqflow.storage.names import equity_column
 
 __all__: list[str] = []
 

@@ -12,7 +12,7 @@ from __future__ import annotations
 import sys
 import time
 from pathlib import Path
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
@@ -31,6 +31,10 @@ from pqflow.cli_errors import (
 )
 from pqflow.errors import PqflowError
 from pqflow.report import numbers as fmt
+from pqflow.storage.names import density_column
+
+if TYPE_CHECKING:
+    from pqflow.storage.calibration_file import CalibrationRecord
 
 __all__ = ["app", "main"]
 
@@ -232,8 +236,8 @@ def run(
     from pqflow.config.loader import apply_overrides, load_config
     from pqflow.jobs.steps import plan_run
     from pqflow.pipeline.home import check_prefect_home
+    from pqflow.storage.calibration_file import calibration_path, write_calibration_file
     from pqflow.storage.filesystem import check_remote_target, resolve_target, target_lock_path
-    from pqflow.storage.jsonio import write_json_atomic
     from pqflow.storage.rundir import acquire_lock, check_target, release_lock
 
     started = time.perf_counter()
@@ -276,7 +280,7 @@ def run(
                 check_sensitivity_inputs(cfg, source=str(config))
             scratch = Path(tempfile.mkdtemp(prefix="pqflow-calibration-"))
             try:
-                calibration_file = write_json_atomic(scratch / "calibration.json", cal.to_json())
+                calibration_file = write_calibration_file(calibration_path(scratch), cal.to_json())
             except BaseException:
                 shutil.rmtree(scratch, ignore_errors=True)
                 raise
@@ -443,12 +447,14 @@ def check(
         _fail(exc)
     import json
 
-    payload = cal.to_json()
+    from pqflow.storage.calibration_file import calibration_record
+
+    record = calibration_record(cal.to_json(), "the calibration")
     if as_json:  # only the JSON on standard output, so it can be piped into a parser
-        sys.stdout.write(json.dumps(payload["parameters"], indent=2) + "\n")
+        sys.stdout.write(json.dumps(record.parameters, indent=2) + "\n")
         return
     else:
-        _print_fit(payload)
+        _print_fit(record)
         drivers = cal.driver_correlation.names
         console.print(Text(f"drivers ({len(drivers)}): {', '.join(drivers)}"), highlight=False)
         if cal.credit is not None:
@@ -487,7 +493,7 @@ def calibrate(
     """
     from pqflow.calibration.assemble import assemble_calibration
     from pqflow.config.loader import load_config
-    from pqflow.storage.jsonio import write_json_atomic
+    from pqflow.storage.calibration_file import calibration_record, write_calibration_file
 
     if out.exists() and not overwrite:
         _fail(PqflowError(f"{out} exists; pass --overwrite to replace it"))
@@ -496,8 +502,8 @@ def calibrate(
     except PqflowError as exc:
         _fail(exc)
     payload = cal.to_json()
-    write_json_atomic(out, payload)
-    _print_fit(payload)
+    write_calibration_file(out, payload)
+    _print_fit(calibration_record(payload, out))
     console.print(Text(f"calibration written to {out}", style="green"))
     _caution()
 
@@ -523,29 +529,27 @@ def _print_heston_fits(fits: dict[str, Any]) -> None:
         console.print(table)
 
 
-def _print_fit(payload: dict[str, Any]) -> None:
-    fit, par = payload.get("fit", {}), payload["parameters"]
-    model = par.get("rates_model", "hull_white")
-    rates_fit = fit.get(model, {})
+def _print_fit(record: CalibrationRecord) -> None:
+    model = record.rates_model
+    rates_fit = record.part_fit(model)
     rmse = f"  (swaption fit RMSE {fmt.bp(rates_fit['rmse_bp'], 2)} normal vol)" if "rmse_bp" in rates_fit else ""
-    if model == "g2pp":
-        g = par["g2pp"]
+    g, hw = record.g2pp, record.hull_white
+    if model == "g2pp" and g is not None:
         console.print(
-            f"G2++: a = {fmt.plain(g['a'])}, sigma = {fmt.bp(1e4 * g['sigma'])}, b = {fmt.plain(g['b'])}, "
-            f"eta = {fmt.bp(1e4 * g['eta'])}, rho = {fmt.plain(g['rho'])}{rmse}",
+            f"G2++: a = {fmt.plain(g.a)}, sigma = {fmt.bp(1e4 * g.sigma)}, b = {fmt.plain(g.b)}, "
+            f"eta = {fmt.bp(1e4 * g.eta)}, rho = {fmt.plain(g.rho)}{rmse}",
             highlight=False,
         )
-    else:
-        hw = par["hull_white"]
-        console.print(f"Hull-White: a = {fmt.plain(hw['mean_reversion'])}, sigma = {fmt.bp(1e4 * hw['volatility'])} "
+    elif hw is not None:
+        console.print(f"Hull-White: a = {fmt.plain(hw.mean_reversion)}, sigma = {fmt.bp(1e4 * hw.volatility)} "
                       f"(normal){rmse}", highlight=False)
-    _print_curve_fit(fit.get("curve", {}))
-    eq = fit.get("equity", {})
+    _print_curve_fit(record.part_fit("curve"))
+    eq = record.part_fit("equity")
     if "bucket_volatilities" in eq:
         buckets = ", ".join(fmt.vol_points(v) for v in eq["bucket_volatilities"])
         ends = ", ".join(fmt.years(t) for t in eq["bucket_ends"])
         console.print(f"equity volatility by bucket (ends {ends} years), points: {buckets}", highlight=False)
-    for item in par.get("indices", []):
+    for item in record.indices:
         vol = item["volatility"]
         vol_text = (fmt.vol_points(vol) if isinstance(vol, (int, float)) else ", ".join(fmt.vol_points(v) for v in vol["values"])) + " pts"
         console.print(
@@ -553,10 +557,10 @@ def _print_fit(payload: dict[str, Any]) -> None:
             f"{fmt.percent(item['income_yield'], 2)}, volatility {vol_text}, risk premium {fmt.percent(item['risk_premium'], 2)}",
             highlight=False,
         )
-    _print_heston_fits(fit.get("heston", {}))
-    inf = fit.get("inflation")
-    if inf:
-        p_inf = par["inflation"]
+    _print_heston_fits(dict(record.part_fit("heston")))
+    inf = record.part_fit("inflation")
+    p_inf = record.inflation
+    if inf and p_inf is not None:
         console.print(
             f"inflation (Jarrow-Yildirim): real curve from {len(inf['rows'])} zero-coupon inflation swaps, "
             f"max repricing error {fmt.bp(inf['max_abs_difference_bp'], 2)}; a_r = {fmt.plain(p_inf['real_mean_reversion'])}, "
@@ -569,7 +573,7 @@ def _print_fit(payload: dict[str, Any]) -> None:
                 f"price RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional",
                 highlight=False,
             )
-    for r in fit.get("credit", {}).get("ratings", []):
+    for r in record.part_fit("credit").get("ratings", []):
         console.print(
             f"credit {escape(str(r['rating']))}: spreads repriced to {fmt.bp(r['max_abs_error_bp'], 2)}; CIR++ shift in "
             f"[{fmt.percent(r['min_shift'])}, {fmt.percent(r['max_shift'])}]; Feller ratio {r['feller_ratio']:.2f}"
@@ -578,10 +582,10 @@ def _print_fit(payload: dict[str, Any]) -> None:
                f"(market consistent {fmt.percent(r['market_consistent_long_run_mean'])})" if r.get("price_of_risk") else ""),
             highlight=False,
         )
-    corr = fit.get("correlation", {})
+    corr = record.part_fit("correlation")
     if corr.get("repaired"):
         console.print(f"correlation matrix repaired (Higham 2002), Frobenius distance {fmt.number(corr['frobenius_distance'])}", style="yellow")
-    paths = payload.get("expected_short_rate", {})
+    paths = record.expected_short_rate
     if paths:
         target = paths.get("target")
         table = Table(title="Expected short rate by measure (and the house-view target)")
@@ -724,7 +728,8 @@ def value(
     products: dict[str, list[str]] = {}
     for line in summary["lines"]:
         if line.get("level") == "product" and line.get("quantity") == "best_estimate":
-            products.setdefault(str(line.get("real_world_density", "q_density")), []).append(line["name"])
+            density = str(line.get("real_world_density", density_column("real_world")))
+            products.setdefault(density, []).append(line["name"])
     for density, names in products.items():
         used = [f"{d} / cash_account" for d in density.split(", ")]
         which = used[0] if len(used) == 1 else " or ".join(used) + " (by model point)"

@@ -48,7 +48,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from oracles.hull_white_equity import bond_column, equity_column, rates_equity_units
+from oracles.hull_white_equity import rates_equity_units
 from pqflow.market.curve import DiscountCurve
 from pqflow.models.base import StepLaw
 from pqflow.models.equity import black_on_forward
@@ -62,6 +62,7 @@ from pqflow.models.g2pp import (
 )
 from pqflow.models.hull_white import b_factor, phi2
 from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
+from pqflow.storage.names import bond_column, equity_column
 
 __all__ = [
     "G2PricesOfRisk",

@@ -44,8 +44,8 @@ from pqflow.models.hull_white import (
     phi2,
     zcb_price,
 )
-from pqflow.models.hull_white_equity import bond_column
 from pqflow.models.schedule import segments
+from pqflow.storage.names import bond_column, equity_column
 
 __all__ = ["HullWhiteEquityModel", "bond_column", "equity_column", "rates_equity_units"]
 
@@ -61,10 +61,6 @@ def rates_equity_units(bond_maturities: tuple[float, ...], equity_name: str) -> 
     units[equity_column(equity_name)] = "total-return index level (dividends reinvested)"
     return units
 
-
-def equity_column(name: str) -> str:
-    """Column name of an equity total-return index: ``equity_{name}``."""
-    return f"equity_{name}"
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -80,7 +80,7 @@ from pqflow.models.heston import HestonIndex
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.rates import RatesModel, as_short_rate_params, rates_from_json
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
-from pqflow.storage.jsonio import read_json
+from pqflow.storage.calibration_file import calibration_document, calibration_path, read_calibration_file
 from pqflow.storage.parquet import file_sha256
 
 __all__ = [
@@ -184,13 +184,13 @@ class Calibration:
 
     def to_json(self) -> dict[str, Any]:
         """The content of ``calibration.json``."""
-        return {
-            "pqflow_version": __version__,
-            "valuation_date": self.valuation_date,
-            "horizon_years": self.horizon_years,
-            "inputs_sha256": self.inputs_hash,
-            "inputs": self.inputs,
-            "parameters": {
+        return calibration_document(
+            pqflow_version=__version__,
+            valuation_date=self.valuation_date,
+            horizon_years=self.horizon_years,
+            inputs_sha256=self.inputs_hash,
+            inputs=self.inputs,
+            parameters={
                 "curve": curve_to_json(self.curve),
                 "rates_model": self.rates_model,
                 **self.rates.to_json(),
@@ -211,10 +211,10 @@ class Calibration:
                 "real_world_view": self.real_world_view,
                 **self._parts_json(),
             },
-            "fit": self.fit,
-            "instruments": self.instruments,
-            "expected_short_rate": self.expected_paths(),
-        }
+            fit=self.fit,
+            instruments=self.instruments,
+            expected_short_rate=self.expected_paths(),
+        )
 
 
     def _parts_json(self) -> dict[str, Any]:
@@ -273,14 +273,14 @@ def _parts_from_json(par: dict[str, Any]) -> dict[str, Any]:
 def load_calibration(path: str | Path) -> Calibration:
     """Read a stored ``calibration.json`` back into a :class:`Calibration` (no refitting)."""
     path = Path(path)
+    record = read_calibration_file(path)  # the version checked, the file named in every error
     try:
-        data = read_json(path)
-        par = data["parameters"]
-        _refuse_non_finite(path, {"horizon_years": data["horizon_years"], "parameters": par})
+        par = record.required_parameters
+        _refuse_non_finite(path, {"horizon_years": record.horizon_years, "parameters": par})
         return Calibration(
-            valuation_date=data["valuation_date"],
-            horizon_years=float(data["horizon_years"]),
-            curve=curve_from_json(par["curve"]),
+            valuation_date=record.required("valuation_date"),
+            horizon_years=record.horizon_years,
+            curve=curve_from_json(record.curve),
             rates=rates_from_json(par),
             equity=EquityParams(
                 name=par["equity"]["name"],
@@ -293,10 +293,10 @@ def load_calibration(path: str | Path) -> Calibration:
                 rates=_load_schedule(par["market_prices_of_risk"]["rates"]),
                 equity=_load_schedule(par["market_prices_of_risk"]["equity"]),
             ),
-            inputs=data["inputs"],
-            inputs_hash=data["inputs_sha256"],
-            fit=data.get("fit", {}),
-            instruments=data.get("instruments", {"swaptions": [], "equity_options": []}),
+            inputs=record.required("inputs"),
+            inputs_hash=record.required("inputs_sha256"),
+            fit=dict(record.fit),
+            instruments=dict(record.instruments) if record.has_instruments else {"swaptions": [], "equity_options": []},
             real_world_view=par.get("real_world_view", {}),
             **_parts_from_json(par),
         )
@@ -308,7 +308,7 @@ def load_calibration(path: str | Path) -> Calibration:
 
 def curve_from_calibration_file(run_dir: str | Path) -> DiscountCurve:
     """Today's curve as recorded in the run's ``calibration.json`` (an input, not the model)."""
-    return curve_from_json(read_json(Path(run_dir) / "calibration.json")["parameters"]["curve"])
+    return curve_from_json(read_calibration_file(calibration_path(run_dir)).curve)
 
 
 def _non_finite_key(value: Any, key: str) -> str | None:

@@ -21,7 +21,7 @@ from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.heston import HestonIndex, heston_indices_from_json, heston_indices_to_json
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.schedule import as_schedule
-from pqflow.models.total_return import index_column
+from pqflow.storage.names import index_column
 
 __all__ = ["heston_indices", "fit_heston_indices", "heston_to_json", "heston_from_json"]
 

@@ -99,6 +99,7 @@ def generate_sensitivity_part(
 def validate_sensitivity(run_dir: str | Path, sens: SensitivitySection, config: RunConfig) -> dict[str, Any]:
     """The checks of one sensitivity set, written to its ``validation/``; returns its summary."""
     from pqflow.jobs.steps import _stack
+    from pqflow.storage.results import write_csv_atomic
     from pqflow.validation.evidence import run_checks
     from pqflow.validation.sensitivity_checks import run_market_consistent_checks
 
@@ -110,9 +111,7 @@ def validate_sensitivity(run_dir: str | Path, sens: SensitivitySection, config: 
     out.mkdir(parents=True, exist_ok=True)
     tables = {"martingale": _stack(result.martingale), "density": _stack(result.density), **result.tables}
     for name, frame in tables.items():
-        tmp = out / f".{name}.csv.tmp"
-        frame.to_csv(tmp, index=False, float_format="%.10g")
-        tmp.replace(out / f"{name}.csv")
+        write_csv_atomic(frame, out / f"{name}.csv")
     summary = {"caution": CAUTION, "sensitivity": sens.name, **result.summary}
     write_json_atomic(out / "summary.json", summary)
     return summary

@@ -24,15 +24,24 @@ from pqflow.calibration.assemble import Calibration, build_model
 from pqflow.config.loader import config_hash
 from pqflow.config.schema import RunConfig
 from pqflow.errors import ConfigError
-from pqflow.measure.blocks import DensityBlock, check_blocks, default_blocks, density_block_column, economy_structure
+from pqflow.measure.blocks import DensityBlock, check_blocks, default_blocks, economy_structure
 from pqflow.models.economy import EconomyModel
-from pqflow.models.heston import variance_column
-from pqflow.simulation.engine import DENSITY_COLUMN, MEASURES, time_grid
+from pqflow.simulation.engine import time_grid
 from pqflow.simulation.plan import Batch, plan_batches
 from pqflow.simulation.scenarios import simulate_part
 from pqflow.simulation.streams import MEASURE_STREAM
+from pqflow.storage import names
+from pqflow.storage.calibration_file import calibration_path, write_calibration_file
 from pqflow.storage.jsonio import read_json, write_json_atomic
 from pqflow.storage.manifest import MANIFEST, build_manifest
+from pqflow.storage.names import (
+    DENSITY_UNIT,
+    MEASURES,
+    VARIANCE_UNIT,
+    density_block_column,
+    density_column,
+    variance_column,
+)
 from pqflow.storage.parquet import batch_table, part_name, units_metadata, write_part_hashed
 
 __all__ = [
@@ -114,8 +123,8 @@ def run_density_blocks(config: RunConfig) -> tuple[DensityBlock, ...]:
     from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER
 
     rates = RATES_DRIVERS[config.rates.model]
-    indices = [(config.equity.name, f"equity_{config.equity.name}")]
-    indices += [(i.name, f"{i.kind}_{i.name}") for i in config.indices]
+    indices = [(config.equity.name, names.equity_column(config.equity.name))]
+    indices += [(i.name, names.index_column(i.kind, i.name)) for i in config.indices]
     inflation = (REAL_RATE_DRIVER, INFLATION_DRIVER) if config.inflation is not None else None
     ratings = {r.name: credit_driver(r.name) for r in (config.credit.ratings if config.credit is not None else ())}
     structure = economy_structure(rates, indices, inflation, ratings)
@@ -154,7 +163,7 @@ def plan_run(config: RunConfig) -> RunPlan:
 
 
 #: Columns every part carries whatever ``outputs.columns`` says (the density is added by measure).
-REQUIRED_COLUMNS = ("short_rate", "cash_account", "deflator")
+REQUIRED_COLUMNS = (names.SHORT_RATE, names.CASH_ACCOUNT, names.DEFLATOR)
 
 
 def written_columns(calibration: Calibration, plan: RunPlan, model: EconomyModel | None = None) -> list[str]:
@@ -178,20 +187,20 @@ def written_columns(calibration: Calibration, plan: RunPlan, model: EconomyModel
         )
     chosen = [c for c in known if any(fnmatch.fnmatchcase(c, p) for p in plan.column_patterns)]
     needs = []  # a claim's martingale test needs the columns that make its currency value
-    if any(c.startswith("real_zcb_") for c in chosen) and "cpi" not in chosen:
+    if any(c.startswith(names.REAL_BOND_PREFIX) for c in chosen) and names.CPI not in chosen:
         needs.append("real bonds need 'cpi' (their currency price is cpi times the real bond)")
     for c in chosen:
-        if c.startswith("dzcb_"):
-            rating = c[len("dzcb_"):].rsplit("_", 1)[0]
-            if f"cumulative_intensity_{rating}" not in chosen:
-                needs.append(f"{c} needs 'cumulative_intensity_{rating}' (its default losses)")
+        if c.startswith(names.DZCB_PREFIX):
+            losses = names.cumulative_intensity_column(names.dzcb_rating(c))
+            if losses not in chosen:
+                needs.append(f"{c} needs '{losses}' (its default losses)")
     if needs:
         raise ConfigError("outputs.columns: " + "; ".join(dict.fromkeys(needs)))
     return [*REQUIRED_COLUMNS, *chosen]
 
 
 def write_calibration(run_dir: str | Path, calibration: Calibration) -> Path:
-    return write_json_atomic(Path(run_dir) / "calibration.json", calibration.to_json())
+    return write_calibration_file(calibration_path(run_dir), calibration.to_json())
 
 
 def calibrate_step(config: RunConfig, run_dir: str | Path, calibration_file: str | Path | None = None) -> Calibration:
@@ -210,19 +219,19 @@ def calibrate_step(config: RunConfig, run_dir: str | Path, calibration_file: str
 
 def _part_metadata(calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, units: dict[str, str]) -> dict[str, str]:
     return {
-        "pqflow.version": __version__,
-        "pqflow.measure": measure,
-        "pqflow.measure_description": MEASURE_TEXT[measure],
-        "pqflow.valuation_date": calibration.valuation_date,
-        "pqflow.time_unit": "years from the valuation date (output grid k / steps_per_year)",
-        "pqflow.compounding": "short_rate is continuously compounded per year; prices are not rates",
-        "pqflow.units": units_metadata(units),
-        "pqflow.density_column": DENSITY_COLUMN[measure],
-        "pqflow.antithetic": "true" if plan.antithetic else "false",
-        "pqflow.batch": str(batch.index),
-        "pqflow.first_scenario": str(batch.first),
-        "pqflow.calibration_sha256": calibration.inputs_hash,
-        "pqflow.density_blocks": json.dumps({b.name: list(b.drivers) for b in plan.density_blocks}),
+        names.META_VERSION: __version__,
+        names.META_MEASURE: measure,
+        names.META_MEASURE_DESCRIPTION: MEASURE_TEXT[measure],
+        names.META_VALUATION_DATE: calibration.valuation_date,
+        names.META_TIME_UNIT: "years from the valuation date (output grid k / steps_per_year)",
+        names.META_COMPOUNDING: "short_rate is continuously compounded per year; prices are not rates",
+        names.META_UNITS: units_metadata(units),
+        names.META_DENSITY_COLUMN: density_column(measure),
+        names.META_ANTITHETIC: "true" if plan.antithetic else "false",
+        names.META_BATCH: str(batch.index),
+        names.META_FIRST_SCENARIO: str(batch.first),
+        names.META_CALIBRATION_SHA256: calibration.inputs_hash,
+        names.META_DENSITY_BLOCKS: json.dumps({b.name: list(b.drivers) for b in plan.density_blocks}),
     }
 
 
@@ -239,13 +248,11 @@ def generate_part(
     )
     units = model.column_units()
     for spec in calibration.stochastic_volatility.values():
-        units[variance_column(spec.name)] = "instantaneous variance of the index's log-return per year (Heston v, truncated at 0)"
+        units[variance_column(spec.name)] = VARIANCE_UNIT
     if credit is not None:
         units.update(credit.column_units())
-    units["deflator"] = (
-        "state-price deflator q_density / cash_account" if measure == "real_world" else "1 / cash_account"
-    )
-    units[DENSITY_COLUMN[measure]] = "density on the grid up to time (dimensionless, mean 1)"
+    units[names.DEFLATOR] = names.deflator_unit(measure)
+    units[density_column(measure)] = DENSITY_UNIT
     blocks = [density_block_column(measure, b.name) for b in plan.density_blocks]
     for b, column in zip(plan.density_blocks, blocks):
         units[column] = (
@@ -253,7 +260,7 @@ def generate_part(
             "(dimensionless, mean 1)"
         )
     order = written_columns(calibration, plan, model)
-    order += [DENSITY_COLUMN[measure], *blocks]
+    order += [density_column(measure), *blocks]
     table = batch_table(
         {c: cols[c] for c in order},
         plan.times_for(measure),
@@ -282,31 +289,15 @@ def write_validation(run_dir: str | Path, *, ess_warning_share: float) -> dict[s
     the old one (:func:`pqflow.storage.results.replace_directory`), so a failed check run leaves
     the earlier ``validation/`` whole. An existing ``report.html`` is carried over (the caller
     re-renders it)."""
-    import shutil
-    import uuid
-
-    from pqflow.storage.results import replace_directory, write_csv_atomic
+    from pqflow.storage.results import discard_folder_scratch, write_table_folder
     from pqflow.validation.evidence import run_checks
 
     run_dir = Path(run_dir)
-    for stale in run_dir.glob(".validation.new-*"):  # left by a process killed mid-write
-        shutil.rmtree(stale, ignore_errors=True)
+    discard_folder_scratch(run_dir, "validation")  # left by a process killed mid-write
     result = run_checks(run_dir, ess_warning_share=ess_warning_share)
-    out = run_dir / "validation"
-    fresh = run_dir / f".validation.new-{uuid.uuid4().hex[:12]}"
-    try:
-        fresh.mkdir(parents=True)
-        tables = {"martingale": _stack(result.martingale), "density": _stack(result.density), **result.tables}
-        for name, frame in tables.items():
-            write_csv_atomic(frame, fresh / f"{name}.csv")
-        summary = {"caution": CAUTION, **result.summary}
-        write_json_atomic(fresh / "summary.json", summary)
-        if (out / "report.html").is_file():
-            shutil.copy2(out / "report.html", fresh / "report.html")
-        replace_directory(fresh, out)
-    finally:
-        if fresh.exists():
-            shutil.rmtree(fresh, ignore_errors=True)
+    tables = {"martingale": _stack(result.martingale), "density": _stack(result.density), **result.tables}
+    summary = {"caution": CAUTION, **result.summary}
+    write_table_folder(run_dir, "validation", tables, summary, carry_over=("report.html",))
     return summary
 
 
@@ -316,13 +307,12 @@ def revalidate_run(run_dir: str | Path, *, ess_warning_share: float | None = Non
     files in the manifest again (the scenario files are unchanged; the header gains
     ``revalidated_utc``). ``ess_warning_share``: default the one the run's earlier summary
     records, else 0.10."""
-    import shutil
-
     from pqflow.storage.manifest import verify_run
+    from pqflow.storage.results import discard_folder_scratch
 
     run_dir = Path(run_dir)
-    for stale in run_dir.glob(".validation.new-*"):  # our own scratch, left by a validate killed mid-write:
-        shutil.rmtree(stale, ignore_errors=True)  # removed before the manifest check lists unlisted files
+    # our own scratch, left by a validate killed mid-write: removed before the manifest check lists unlisted files
+    discard_folder_scratch(run_dir, "validation")
     manifest = verify_run(run_dir)
     if ess_warning_share is None:
         ess_warning_share = 0.10

@@ -19,6 +19,7 @@ from pqflow.liabilities.portfolio import Portfolio, load_portfolio
 from pqflow.liabilities.sensitivities import sensitivity_names, sensitivity_summary, value_sensitivities
 from pqflow.liabilities.tables import cash_flow_frame, results_frame, valuation_summary, valuation_table_rows
 from pqflow.liabilities.valuation import RunInfo, SetValuation, check_portfolio_against_run, inspect_run, value_run
+from pqflow.storage import names
 from pqflow.storage.jsonio import write_json_atomic
 from pqflow.storage.parquet import file_sha256
 from pqflow.storage.results import write_result_tables
@@ -75,12 +76,12 @@ def publish_valuation(
     summary["portfolio_sha256"] = file_sha256(source) if source.is_file() else None
     summary["pqflow_version"] = __version__
     metadata = {
-        "pqflow.version": __version__,
-        "pqflow.insurer": portfolio.insurer,
-        "pqflow.currency": portfolio.currency,
-        "pqflow.valuation_date": info.valuation_date,
-        "pqflow.run_id": info.run_id or "",
-        "pqflow.caution": summary["caution"],
+        names.META_VERSION: __version__,
+        names.META_INSURER: portfolio.insurer,
+        names.META_CURRENCY: portfolio.currency,
+        names.META_VALUATION_DATE: info.valuation_date,
+        names.META_RUN_ID: info.run_id or "",
+        names.META_CAUTION: summary["caution"],
     }
     header = {
         "run_id": info.run_id,

@@ -32,6 +32,7 @@ from pqflow.liabilities.products import project_model_point
 from pqflow.liabilities.scenarios import BondInterpolation, annual_scenarios, certainty_equivalent_scenario
 from pqflow.liabilities.valuation import QUANTITIES, RunInfo, check_portfolio_against_run, portfolio_reads
 from pqflow.market.serialize import curve_from_json
+from pqflow.storage.calibration_file import calibration_path, read_calibration_file
 from pqflow.storage.jsonio import read_json
 from pqflow.validation.moments import Moments, sampling_units
 from pqflow.validation.reader import ScenarioSetReader
@@ -79,9 +80,9 @@ def _path_values(portfolio: Portfolio, lines: _Lines, scen) -> np.ndarray:
 
 
 def _ce_values(portfolio: Portfolio, lines: _Lines, run_dir: Path, last: int, interp: BondInterpolation) -> np.ndarray:
-    par = read_json(run_dir / "calibration.json")["parameters"]
+    cal = read_calibration_file(calibration_path(run_dir))
     scen = certainty_equivalent_scenario(
-        curve_from_json(par["curve"]), last_year=last, interpolation=interp, equity_level=float(par["equity"]["level"])
+        curve_from_json(cal.curve), last_year=last, interpolation=interp, equity_level=cal.equity.level
     )
     return _path_values(portfolio, lines, scen)[0]
 

@@ -29,6 +29,7 @@ import pandas as pd
 from pqflow import CAUTION
 from pqflow.liabilities.portfolio import Portfolio
 from pqflow.liabilities.valuation import QUANTITIES, RunInfo, SetValuation
+from pqflow.storage.names import density_column
 from pqflow.validation.reconciliation import MATERIAL_SHARE as RECONCILIATION_MATERIAL_SHARE
 from pqflow.validation.summary import FAMILY_ALPHA, family_critical_z
 
@@ -76,7 +77,7 @@ def _check_pair(mc: SetValuation, rw: SetValuation) -> None:
 def _densities_of(rw: SetValuation, group) -> str:
     """The density columns the real-world deflators of a line's model points carry."""
     if not rw.densities:
-        return "q_density"
+        return density_column("real_world")
     return ", ".join(dict.fromkeys(str(rw.densities[i]) for i in group.members))
 
 
@@ -217,7 +218,7 @@ def valuation_summary(
             for v in (mc, rw)
         },
         "densities": {
-            mp.id: d for mp, d in zip(portfolio.model_points, rw.densities or ("q_density",) * len(portfolio.model_points))
+            mp.id: d for mp, d in zip(portfolio.model_points, rw.densities or (density_column("real_world"),) * len(portfolio.model_points))
         },
         "control_variates": (
             "values and standard errors use control variates from known martingales (deflated "

@@ -42,9 +42,16 @@ from pqflow.liabilities.scenarios import (
 )
 from pqflow.market.curve import DiscountCurve
 from pqflow.measure.blocks import column_drivers, smallest_block
+from pqflow.storage.calibration_file import calibration_path, read_calibration_file
 from pqflow.storage.jsonio import read_json
+from pqflow.storage.names import (
+    META_VALUATION_DATE,
+    bond_maturity_of,
+    density_block_column,
+    density_column,
+    equity_column,
+)
 from pqflow.validation.control_variates import controlled_mean, summed
-from pqflow.validation.martingale import bond_maturity_of
 from pqflow.validation.moments import Moments, sampling_units
 from pqflow.validation.reader import ScenarioSetReader
 
@@ -88,7 +95,7 @@ class RunInfo:
 def inspect_run(run_dir: str | Path) -> RunInfo:
     """Times, columns, curve and equity of a run (both sets must share grid and columns)."""
     run_dir = Path(run_dir)
-    if not (run_dir / "calibration.json").is_file():
+    if not calibration_path(run_dir).is_file():
         raise RunDirectoryError(f"{run_dir}: no calibration.json; not a pqflow run directory")
     readers = {m: ScenarioSetReader(run_dir=run_dir, measure=m) for m in MEASURES}
     names = {m: r.column_names() for m, r in readers.items()}
@@ -103,20 +110,20 @@ def inspect_run(run_dir: str | Path) -> RunInfo:
         missing -= set(names[m])
         if missing:
             raise LiabilityDataError(f"{run_dir}: the {m} set lacks columns {sorted(missing)}")
-    cal = read_json(run_dir / "calibration.json")["parameters"]["equity"]
+    equity = read_calibration_file(calibration_path(run_dir)).equity
     manifest = run_dir / "manifest.json"
     run_id = read_json(manifest).get("run_id") if manifest.exists() else None
     t = times["market_consistent"]
     return RunInfo(
         run_dir=str(run_dir),
         run_id=run_id,
-        valuation_date=readers["market_consistent"].metadata().get("pqflow.valuation_date", ""),
+        valuation_date=readers["market_consistent"].metadata().get(META_VALUATION_DATE, ""),
         times=t,
         last_whole_year=int(np.floor(t[-1] + 1e-9)),
         bond_columns={float(k): v for k, v in sorted(bonds.items())},
         equity_columns=equities,
-        equity_level=float(cal["level"]),
-        equity_name=str(cal["name"]),
+        equity_level=equity.level,
+        equity_name=equity.name,
         curve=curve_from_calibration_file(run_dir),
     )
 
@@ -169,7 +176,7 @@ def check_portfolio_against_run(portfolio: Portfolio, info: RunInfo) -> str | No
                 f"{len(info.equity_columns)} equity indices ({', '.join(info.equity_columns)}); name one"
             )
         return info.equity_columns[0]
-    column = f"equity_{name}"
+    column = equity_column(name)
     if column not in info.equity_columns:
         raise LiabilityDataError(
             f"{src}: [valuation] equity = {name!r}, but the run carries "
@@ -261,8 +268,8 @@ def _discounted(portfolio: Portfolio, scen, discount: np.ndarray) -> np.ndarray:
 
 
 def _rates_drivers(run_dir: Path) -> tuple[str, ...]:
-    par = read_json(run_dir / "calibration.json").get("parameters", {})
-    return ("rates_x", "rates_y") if "g2pp" in par else ("rates",)
+    cal = read_calibration_file(calibration_path(run_dir))
+    return ("rates_x", "rates_y") if cal.rates_model == "g2pp" else ("rates",)
 
 
 def model_point_densities(
@@ -281,7 +288,7 @@ def model_point_densities(
         if "equity" in needed_columns(mp) and equity_col is not None:
             needed |= column_drivers(equity_col, rates)
         block = smallest_block(frozenset(needed), blocks)
-        out.append("q_density" if block is None else f"q_density_{block}")
+        out.append(density_column("real_world") if block is None else density_block_column("real_world", block))
     return tuple(out)
 
 

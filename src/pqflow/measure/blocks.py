@@ -41,11 +41,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from pqflow.storage.names import CREDIT_PREFIX, intensity_column
+
 __all__ = [
     "DensityBlock",
     "StateLink",
     "BLOCK_NAME",
-    "density_block_column",
     "block_states",
     "economy_structure",
     "model_structure",
@@ -57,18 +58,10 @@ __all__ = [
     "column_drivers",
     "smallest_block",
     "density_factors",
-    "CREDIT_PREFIX",
 ]
 
-CREDIT_PREFIX = "credit_"
 
 BLOCK_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
-_DENSITY = {"real_world": "q_density", "market_consistent": "p_density"}
-
-
-def density_block_column(measure: str, block: str) -> str:
-    """``q_density_<block>`` in the real-world set, ``p_density_<block>`` in the other."""
-    return f"{_DENSITY[measure]}_{block}"
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -122,7 +115,7 @@ def economy_structure(
         out.append(StateLink(name="x_real", drivers=frozenset({real}), reads=frozenset()))
         out.append(StateLink(name="log_cpi", drivers=rates | {real, infl}, reads=frozenset([*factors, "x_real"])))
     for rating, driver in ratings.items():
-        out.append(StateLink(name=f"intensity_{rating}", drivers=frozenset({driver}), reads=frozenset()))
+        out.append(StateLink(name=intensity_column(rating), drivers=frozenset({driver}), reads=frozenset()))
     return tuple(out)
 
 
@@ -141,7 +134,7 @@ def model_structure(
         others = frozenset(state_names[j] for j in np.flatnonzero(reads[i]) if j != i)
         out.append(StateLink(name=name, drivers=frozenset(exposure_drivers[i]), reads=others))
     for rating, driver in (ratings or {}).items():
-        out.append(StateLink(name=f"intensity_{rating}", drivers=frozenset({driver}), reads=frozenset()))
+        out.append(StateLink(name=intensity_column(rating), drivers=frozenset({driver}), reads=frozenset()))
     return tuple(out)
 
 

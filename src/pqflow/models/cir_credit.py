@@ -101,6 +101,12 @@ import numpy as np
 
 from pqflow.market.correlation import check_correlation_matrix
 from pqflow.market.curve import DiscountCurve
+from pqflow.storage.names import (
+    cumulative_intensity_column,
+    dzcb_column,
+    intensity_column,
+    spread_column,
+)
 
 __all__ = [
     "CirParams",
@@ -114,10 +120,6 @@ __all__ = [
     "shift_integral",
     "credit_factor",
     "zero_spread",
-    "intensity_column",
-    "cumulative_intensity_column",
-    "dzcb_column",
-    "spread_column",
     "real_world_square_root_drift",
 ]
 
@@ -355,24 +357,7 @@ def zero_spread(
 # --------------------------------------------------------------------------- columns
 
 
-def intensity_column(rating: str) -> str:
-    """``intensity_{rating}``: ``lambda_t`` per year."""
-    return f"intensity_{rating}"
-
-
-def cumulative_intensity_column(rating: str) -> str:
-    """``cumulative_intensity_{rating}``: ``int_0^t lambda ds``."""
-    return f"cumulative_intensity_{rating}"
-
-
-def dzcb_column(rating: str, maturity: float) -> str:
-    """``dzcb_{rating}_{m}y``: pre-default price of the defaultable zero-coupon bond."""
-    return f"dzcb_{rating}_{maturity:g}y"
-
-
-def spread_column(rating: str, maturity: float) -> str:
-    """``spread_{rating}_{m}y``: its zero-coupon spread."""
-    return f"spread_{rating}_{maturity:g}y"
+# (their names: pqflow.storage.names)
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -49,19 +49,17 @@ import numpy as np
 from pqflow.market.curve import DiscountCurve
 from pqflow.models.base import StepLaw, StepLaws
 from pqflow.models.hull_white import b_factor
-from pqflow.models.hull_white_equity import bond_column
 from pqflow.models.inflation import INFLATION_DRIVER, REAL_RATE_DRIVER, InflationPart
 from pqflow.models.kernels import Exposure, grid_moments
 from pqflow.models.rates import RATES_DRIVERS, RatesModel
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
-from pqflow.models.total_return import INDEX_KINDS, TotalReturnIndex, index_column
+from pqflow.models.total_return import TotalReturnIndex
+from pqflow.storage.names import CASH_ACCOUNT, SHORT_RATE, bond_column
 
 __all__ = [
-    "INDEX_KINDS",
     "RATES_DRIVERS",
     "REAL_RATE_DRIVER",
     "INFLATION_DRIVER",
-    "index_column",
     "RatesStep",
     "GaussianPart",
     "TotalReturnIndex",
@@ -277,7 +275,7 @@ class EconomyModel:
     # ---------------------------------------------------------------- outputs
 
     def known_columns(self) -> tuple[str, ...]:
-        out = ["short_rate", "cash_account", *(bond_column(m) for m in self.bond_maturities)]
+        out = [SHORT_RATE, CASH_ACCOUNT, *(bond_column(m) for m in self.bond_maturities)]
         for part in self.parts:
             out += part.known_columns()
         return tuple(out)

@@ -81,7 +81,6 @@ __all__ = [
     "rate_log_cf_variance",
     "heston_forward_option",
     "heston_option_price",
-    "variance_column",
     "HestonPricesOfRisk",
     "HestonIndex",
     "real_world_log_excess_growth",
@@ -292,11 +291,6 @@ def heston_option_price(
 
 
 # --------------------------------------------------------------------------- simulation
-
-
-def variance_column(name: str) -> str:
-    """Column of an index's instantaneous variance ``v_t`` (the truncated ``v^+``)."""
-    return f"variance_{name}"
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -27,8 +27,10 @@ import numpy as np
 from pqflow.market.curve import DiscountCurve
 from pqflow.models import hull_white
 from pqflow.models.hull_white import HullWhiteParams, b_factor, phi2
-from pqflow.models.jarrow_yildirim import CPI_COLUMN, REAL_SHORT_RATE_COLUMN, real_bond_column
 from pqflow.models.kernels import Exposure
+from pqflow.storage.names import CPI as CPI_COLUMN
+from pqflow.storage.names import REAL_SHORT_RATE as REAL_SHORT_RATE_COLUMN
+from pqflow.storage.names import real_bond_column
 
 __all__ = ["REAL_RATE_DRIVER", "INFLATION_DRIVER", "InflationPart"]
 

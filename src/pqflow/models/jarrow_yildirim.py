@@ -82,11 +82,11 @@ from pqflow.models.hull_white import (
     phi2,
     zcb_price,
 )
+from pqflow.storage.names import CPI, REAL_SHORT_RATE
 
 __all__ = [
     "CPI_COLUMN",
     "REAL_SHORT_RATE_COLUMN",
-    "real_bond_column",
     "JarrowYildirimParams",
     "real_zcb_price",
     "real_short_rate_shift",
@@ -99,13 +99,8 @@ __all__ = [
     "yoy_swap_rate",
 ]
 
-CPI_COLUMN = "cpi"
-REAL_SHORT_RATE_COLUMN = "real_short_rate"
-
-
-def real_bond_column(maturity: float) -> str:
-    """Column name of the real zero-coupon bond with ``maturity`` years to run: ``real_zcb_10y``."""
-    return f"real_zcb_{maturity:g}y"
+CPI_COLUMN = CPI
+REAL_SHORT_RATE_COLUMN = REAL_SHORT_RATE
 
 
 @dataclass(frozen=True, kw_only=True)

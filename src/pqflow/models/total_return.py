@@ -25,18 +25,11 @@ import numpy as np
 
 from pqflow.models.kernels import Exposure, grid_pieces
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
+from pqflow.storage.names import INDEX_KINDS, index_column
 
-__all__ = ["INDEX_KINDS", "index_column", "TotalReturnIndex"]
+__all__ = ["TotalReturnIndex"]
 
-INDEX_KINDS = ("equity", "property")
 _NAME = re.compile(r"^[a-z][a-z0-9_]*$")
-
-
-def index_column(kind: str, name: str) -> str:
-    """Column of a total-return index: ``equity_{name}`` or ``property_{name}``."""
-    if kind not in INDEX_KINDS:
-        raise ValueError(f"index kind must be one of {INDEX_KINDS}, not {kind!r}")
-    return f"{kind}_{name}"
 
 
 @dataclass(frozen=True, kw_only=True)

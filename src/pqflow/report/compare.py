@@ -30,8 +30,9 @@ from typing import Any
 
 import numpy as np
 
-from pqflow.errors import IntegrityError
+from pqflow.errors import IntegrityError, PqflowError
 from pqflow.report import numbers as fmt
+from pqflow.storage.calibration_file import CALIBRATION_FILE, CalibrationRecord, calibration_path, read_calibration_file
 from pqflow.storage.jsonio import read_json
 
 __all__ = [
@@ -150,10 +151,10 @@ def _move(group: str, item: str, old: Any, new: Any, unit: str, *, relative: boo
 
 
 def _load(run: Path) -> dict[str, Any]:
-    cal_path = run / "calibration.json"
+    cal_path = calibration_path(run)
     if not cal_path.is_file():
-        raise IntegrityError(f"{run}: no calibration.json; not a pqflow run directory")
-    out = {"cal": read_json(cal_path)}
+        raise IntegrityError(f"{run}: no {CALIBRATION_FILE}; not a pqflow run directory")
+    out: dict[str, Any] = {"cal": read_calibration_file(cal_path)}
     for key, rel in (("summary", "validation/summary.json"), ("manifest", "manifest.json"),
                      ("valuation", "valuation/summary.json")):
         path = run / rel
@@ -161,12 +162,12 @@ def _load(run: Path) -> dict[str, Any]:
     return out
 
 
-def _curve(cal: dict[str, Any]) -> Any:
+def _curve(cal: CalibrationRecord) -> Any:
     try:
         from pqflow.market.serialize import curve_from_json
 
-        return curve_from_json(cal["parameters"]["curve"])
-    except (KeyError, TypeError, ValueError):
+        return curve_from_json(cal.curve)
+    except (KeyError, TypeError, ValueError, PqflowError):
         return None
 
 
@@ -189,7 +190,7 @@ def _schedule_items(name: str, v: Any, unit: str) -> dict[str, tuple[Any, str]]:
     return {name: (v, unit)}
 
 
-def _curve_points(cal: dict[str, Any]) -> dict[str, tuple[Any, str]]:
+def _curve_points(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
     curve = _curve(cal)
     if curve is None:
         return {}
@@ -197,9 +198,9 @@ def _curve_points(cal: dict[str, Any]) -> dict[str, tuple[Any, str]]:
             for m in _ZERO_MATURITIES if m <= float(curve.max_maturity)}
 
 
-def _forward(cal: dict[str, Any], index: str, expiry: float) -> float | None:
+def _forward(cal: CalibrationRecord, index: str, expiry: float) -> float | None:
     """Equity forward ``S e^{-qT} / P(0, T)`` of an index, from the run's own parameters."""
-    par = cal.get("parameters") or {}
+    par = cal.parameters
     curve = _curve(cal)
     eq = par.get("equity") or {}
     if eq.get("name") == index:
@@ -214,11 +215,11 @@ def _forward(cal: dict[str, Any], index: str, expiry: float) -> float | None:
     return float(level) * math.exp(-float(q) * expiry) / float(curve.discount(expiry))
 
 
-def _inputs(cal: dict[str, Any]) -> dict[str, dict[str, tuple[Any, str]]]:
+def _inputs(cal: CalibrationRecord) -> dict[str, dict[str, tuple[Any, str]]]:
     """Every input by meaning, per group: ``{group: {item: (value, unit)}}``."""
     out: dict[str, dict[str, tuple[Any, str]]] = {g: {} for g, _ in GROUPS}
     out["curve"] = _curve_points(cal)
-    inst = cal.get("instruments") or {}
+    inst = cal.instruments
     for s in inst.get("swaptions", []) or []:
         key = f"swaption {fmt.years(s.get('expiry'))}y x {fmt.years(s.get('tenor'))}y"
         conv = str(s.get("convention", "normal"))
@@ -239,13 +240,13 @@ def _inputs(cal: dict[str, Any]) -> dict[str, dict[str, tuple[Any, str]]]:
     for c in inst.get("inflation_caps", []) or []:
         out["inflation"][f"year-on-year {c.get('kind')} {fmt.years(c.get('maturity'))}y strike "
                          f"{fmt.percent(c.get('strike'), 2)} (premium)"] = (1e4 * float(c["market_price"]), "bp")
-    fit = cal.get("fit") or {}
+    fit = cal.fit
     for r in ((fit.get("inflation") or {}).get("rows") or []):
         out["inflation"][f"zero-coupon inflation swap {fmt.years(r.get('maturity'))}y"] = (r.get("market_rate"), "rate")
     for rating in ((fit.get("credit") or {}).get("ratings") or []):
         for r in rating.get("rows") or []:
             out["credit"][f"{rating.get('rating')} spread {fmt.years(r.get('maturity'))}y"] = (r.get("market_spread"), "rate")
-    par = cal.get("parameters") or {}
+    par = cal.parameters
     eq = par.get("equity") or {}
     if eq:
         out["levels"][f"{eq.get('name')} level"] = (eq.get("level"), "level")
@@ -253,7 +254,7 @@ def _inputs(cal: dict[str, Any]) -> dict[str, dict[str, tuple[Any, str]]]:
     for item in par.get("indices", []) or []:
         out["levels"][f"{item.get('name')} level"] = (item.get("level"), "level")
         out["levels"][f"{item.get('name')} income yield"] = (item.get("income_yield"), "rate")
-    inputs = cal.get("inputs") or {}
+    inputs = cal.inputs
     for kind, f in (inputs.get("files") or {}).items():  # by content: a moved folder is no change
         out["files"][f"{kind.replace('_', ' ')} ({Path(str(f.get('path'))).name}), sha256"] = \
             (str(f.get("sha256", "")) or None, "text")
@@ -304,9 +305,9 @@ def _settings(inputs: dict[str, Any]) -> dict[str, tuple[Any, str]]:
     return out
 
 
-def _parameters(cal: dict[str, Any]) -> dict[str, tuple[Any, str]]:
+def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
     """Calibrated parameters under readable names (unit: rate, vol, plain, level)."""
-    par = cal.get("parameters") or {}
+    par = cal.parameters
     out: dict[str, tuple[Any, str]] = {}
     if "hull_white" in par and par.get("rates_model", "hull_white") == "hull_white":
         hw = par["hull_white"]
@@ -346,7 +347,7 @@ def _parameters(cal: dict[str, Any]) -> dict[str, tuple[Any, str]]:
         for j in range(i + 1, len(names)):
             if i < len(matrix) and j < len(matrix[i]):
                 out[f"correlation {a} / {names[j]}"] = (matrix[i][j], "plain")
-    cfit = (cal.get("fit") or {}).get("curve") or {}
+    cfit = (cal.fit).get("curve") or {}
     if "alpha" in cfit:
         out["Smith-Wilson convergence speed alpha"] = (cfit.get("alpha"), "plain")
     return out
@@ -389,13 +390,13 @@ def _identity(run: dict[str, Any]) -> dict[str, tuple[Any, str]]:
     return {
         "run name": (man.get("run_name"), "text"),
         "run id": (man.get("run_id"), "text"),
-        "valuation date": (cal.get("valuation_date"), "text"),
+        "valuation date": (cal.valuation_date, "text"),
         "configuration sha256": (man.get("config_sha256"), "text"),
-        "calibration inputs sha256": (cal.get("inputs_sha256"), "text"),
+        "calibration inputs sha256": (cal.inputs_sha256, "text"),
         "root seed": (str((man.get("seeds") or {}).get("root_seed")) if man else None, "text"),
         "scenarios per set": (", ".join(f"{k.replace('_', ' ')} {fmt.count(v)}" for k, v in (man.get("scenarios") or {}).items())
                               or None, "text"),
-        "pqflow version": (man.get("pqflow_version", cal.get("pqflow_version")), "text"),
+        "pqflow version": (man.get("pqflow_version", cal.pqflow_version), "text"),
     }
 
 

@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import datetime as dt
 import math
-import os
 from collections.abc import Callable
 from dataclasses import dataclass
 from html import escape
@@ -29,11 +28,17 @@ import numpy as np
 import pandas as pd
 
 from pqflow import CAUTION, __version__
-from pqflow.errors import IntegrityError
+from pqflow.errors import IntegrityError, PqflowError
 from pqflow.report import numbers as fmt
 from pqflow.report import smile, svg
-from pqflow.storage.jsonio import read_json
-from pqflow.validation.martingale import bond_maturity_of
+from pqflow.storage.calibration_file import (
+    CALIBRATION_FILE,
+    CalibrationRecord,
+    calibration_path,
+    read_calibration_file,
+)
+from pqflow.storage.jsonio import read_json, write_text_atomic
+from pqflow.storage.names import bond_maturity_of, density_column, spread_prefix
 from pqflow.validation.reader import ScenarioSetReader
 from pqflow.validation.run_files import gather_at_times
 
@@ -244,15 +249,7 @@ def page(title: str, body: str) -> str:
 
 def write_html_atomic(path: str | Path, html: str) -> Path:
     """Write ``html`` to ``path`` through a temporary name in the same folder, then rename."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
-    with open(tmp, "w", encoding="utf-8") as fh:
-        fh.write(html)
-        fh.flush()
-        os.fsync(fh.fileno())
-    os.replace(tmp, path)
-    return path
+    return write_text_atomic(path, html)
 
 
 def _grid(charts: list[str]) -> str:
@@ -293,7 +290,7 @@ def _short(text: Any) -> str:
     return t[:12] if len(t) >= 32 else t or fmt.DASH
 
 
-def _one_line(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any]) -> str:
+def _one_line(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRecord) -> str:
     """The run's identity in one line."""
     m = manifest or {}
     scen = m.get("scenarios")
@@ -303,23 +300,23 @@ def _one_line(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any
     h = max(horizon.values()) if isinstance(horizon, dict) and horizon else None
     parts = [
         f"<strong>{escape(str(m.get('run_name', run_dir.name)))}</strong>",
-        f"valuation date {escape(str(cal.get('valuation_date', fmt.DASH)))}",
+        f"valuation date {escape(str(cal.valuation_date or fmt.DASH))}",
         f"run {escape(_short(m.get('run_id')))}" if m else "manifest not written yet",
         f"created {escape(str(m.get('created_utc', fmt.DASH)).replace('T', ' ').replace('+00:00', ' UTC'))}" if m else "",
         f"configuration {escape(_short(m.get('config_sha256')))}" if m else "",
         f"seed {escape(str((m.get('seeds') or {}).get('root_seed', fmt.DASH)))}" if m else "",
         escape(scen_text) if scen_text else "",
         f"{fmt.years(h)} years" if h is not None else "",
-        f"pqflow {escape(str(m.get('pqflow_version', cal.get('pqflow_version', '?'))))}",
+        f"pqflow {escape(str(m.get('pqflow_version', cal.pqflow_version or '?')))}",
     ]
     return '<p class="oneline">' + " · ".join(p for p in parts if p) + "</p>"
 
 
-def _identity(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any]) -> str:
+def _identity(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRecord) -> str:
     if manifest is None:
         pairs: list[tuple[str, Any]] = [
             ("manifest", "not written yet: identity from calibration.json only"),
-            ("valuation date", str(cal.get("valuation_date", fmt.DASH))),
+            ("valuation date", str(cal.valuation_date or fmt.DASH)),
         ]
     else:
         seeds = manifest.get("seeds", {})
@@ -339,7 +336,7 @@ def _identity(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any
                          f"numpy {manifest.get('numpy', '?')}, pyarrow {manifest.get('pyarrow', '?')}"),
             ("files in manifest", len(manifest.get("files", []))),
         ]
-    pairs.append(("calibration inputs sha256", str(cal.get("inputs_sha256", fmt.DASH))))
+    pairs.append(("calibration inputs sha256", str(cal.inputs_sha256 or fmt.DASH)))
     return _kv(pairs)
 
 
@@ -383,7 +380,7 @@ def _densities(summary: dict[str, Any], manifest: dict[str, Any] | None) -> list
             continue
         below = c.get("ess_below_warning_from_time")
         at = c.get("at_horizon") or {}
-        col = "q_density" if measure == "real_world" else "p_density"
+        col = density_column(measure)
         rows.append({
             "density": f"{col}, {MEASURE_NAME[measure]} set",
             "block": "full density",
@@ -492,20 +489,20 @@ def _verdicts(run_dir: Path, summary: dict[str, Any], valuation: dict[str, Any] 
 
 # -- today's curve ------------------------------------------------------------------------------
 
-def _curve_object(cal: dict[str, Any]) -> Any:
+def _curve_object(cal: CalibrationRecord) -> Any:
     try:
         from pqflow.market.serialize import curve_from_json
 
-        return curve_from_json(cal["parameters"]["curve"])
-    except (KeyError, TypeError, ValueError):
+        return curve_from_json(cal.curve)
+    except (KeyError, TypeError, ValueError, PqflowError):
         return None
 
 
-def _curve_facts(cal: dict[str, Any]) -> dict[str, Any]:
+def _curve_facts(cal: CalibrationRecord) -> dict[str, Any]:
     """Zero rates at standard maturities, the UFR, the last liquid point, the method."""
     curve = _curve_object(cal)
-    cfit = (cal.get("fit") or {}).get("curve") or {}
-    par = (cal.get("parameters") or {}).get("curve") or {}
+    cfit = cal.part_fit("curve")
+    par = cal.stored_curve
     zeros = {}
     if curve is not None:
         for m in _CURVE_MATURITIES:
@@ -519,7 +516,7 @@ def _curve_facts(cal: dict[str, Any]) -> dict[str, Any]:
             "gap_bp": cfit.get("gap_to_omega_bp"), "repricing": cfit.get("max_repricing_error")}
 
 
-def _curve_section(cal: dict[str, Any]) -> str:
+def _curve_section(cal: CalibrationRecord) -> str:
     facts = _curve_facts(cal)
     curve = facts["curve"]
     if curve is None:
@@ -581,46 +578,43 @@ def _sched_text(v: Any, show: Callable[[Any], str]) -> str:
     return show(v)
 
 
-def _key_parameters(cal: dict[str, Any]) -> list[dict[str, str]]:
+def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
     """Calibrated parameters with their fit error, one row per model part."""
-    par, fit = cal.get("parameters") or {}, cal.get("fit") or {}
     rows: list[dict[str, str]] = []
-    if "g2pp" in par:
-        g = par["g2pp"]
-        f = fit.get("g2pp") or {}
+    if (g := cal.g2pp) is not None:
+        f = cal.part_fit("g2pp")
         rows.append({"part": "rates, G2++",
-                     "values": f"a {fmt.plain(g.get('a'))}, σ {fmt.bp(1e4 * g.get('sigma', float('nan')), 1)}, "
-                               f"b {fmt.plain(g.get('b'))}, η {fmt.bp(1e4 * g.get('eta', float('nan')), 1)}, "
-                               f"ρ {fmt.plain(g.get('rho'), 3)}",
+                     "values": f"a {fmt.plain(g.a)}, σ {fmt.bp(1e4 * g.sigma, 1)}, "
+                               f"b {fmt.plain(g.b)}, η {fmt.bp(1e4 * g.eta, 1)}, "
+                               f"ρ {fmt.plain(g.rho, 3)}",
                      "fit": (f"swaption RMSE {fmt.bp(f['rmse_bp'], 2)} normal vol" if "rmse_bp" in f else "typed in")})
-    elif "hull_white" in par:
-        hw = par["hull_white"]
-        f = fit.get("hull_white") or {}
+    elif (hw := cal.hull_white) is not None:
+        f = cal.part_fit("hull_white")
         n = len(f.get("rows") or [])
         rows.append({"part": "rates, Hull-White",
-                     "values": f"a {fmt.plain(hw.get('mean_reversion'))}, σ {fmt.bp(1e4 * float(hw.get('volatility', 'nan')), 1)} "
+                     "values": f"a {fmt.plain(hw.mean_reversion)}, σ {fmt.bp(1e4 * hw.volatility, 1)} "
                                "(normal, per year)",
                      "fit": (f"swaption RMSE {fmt.bp(f['rmse_bp'], 2)} normal vol over {n} quotes"
                              if "rmse_bp" in f else "typed in")})
-    eq = par.get("equity") or {}
-    if eq:
-        f = fit.get("equity") or {}
-        rows.append({"part": f"equity {eq.get('name', '')}",
-                     "values": f"level {fmt.plain(eq.get('level'), 6)}, dividend yield {fmt.percent(eq.get('dividend_yield'), 2)}, "
-                               f"vol {_sched_text(eq.get('volatility'), fmt.vol_points)} pts",
+    if cal.has_equity:
+        eq = cal.equity
+        f = cal.part_fit("equity")
+        rows.append({"part": f"equity {eq.name}",
+                     "values": f"level {fmt.plain(eq.level, 6)}, dividend yield {fmt.percent(eq.dividend_yield, 2)}, "
+                               f"vol {_sched_text(eq.volatility, fmt.vol_points)} pts",
                      "fit": (f"max vol error {fmt.vol_points(f['max_abs_vol_error'])} pts"
                              if "max_abs_vol_error" in f else "typed in")})
-    ifit = fit.get("indices") or {}
-    for item in par.get("indices", []) or []:
-        f = ifit.get(item.get("name")) or {}
+    ifit = cal.part_fit("indices")
+    for item in cal.indices:
+        f = ifit.get(str(item.get("name"))) or {}
         rows.append({"part": f"{item.get('kind', 'index')} {item.get('name', '')}",
                      "values": f"level {fmt.plain(item.get('level'), 6)}, income yield {fmt.percent(item.get('income_yield'), 2)}, "
                                f"vol {_sched_text(item.get('volatility'), fmt.vol_points)} pts, "
                                f"risk premium {fmt.percent(item.get('risk_premium'), 2)}",
                      "fit": (f"max vol error {fmt.vol_points(f['max_abs_vol_error'])} pts"
                              if "max_abs_vol_error" in f else "typed in")})
-    if "inflation" in par:
-        inf, f = par["inflation"], fit.get("inflation") or {}
+    if (inf := cal.inflation) is not None:
+        f = cal.part_fit("inflation")
         caps = f.get("caps") or {}
         fit_text = []
         if "max_abs_difference_bp" in f:
@@ -631,15 +625,15 @@ def _key_parameters(cal: dict[str, Any]) -> list[dict[str, str]]:
                      "values": f"a_r {fmt.plain(inf.get('real_mean_reversion'))}, σ_r {fmt.bp(1e4 * float(inf.get('real_volatility', 'nan')), 1)}, "
                                f"σ_I {fmt.vol_points(inf.get('inflation_volatility'))} pts",
                      "fit": "; ".join(fit_text) or "typed in"})
-    cfits = {r.get("rating"): r for r in ((fit.get("credit") or {}).get("ratings") or [])}
-    for r in ((par.get("credit") or {}).get("ratings") or []):
+    cfits = {r.get("rating"): r for r in (cal.part_fit("credit").get("ratings") or [])}
+    for r in ((cal.credit or {}).get("ratings") or []):
         c, f = r.get("cir") or {}, cfits.get(r.get("name")) or {}
         rows.append({"part": f"credit {r.get('name')}, CIR++",
                      "values": f"κ {fmt.plain(c.get('mean_reversion'))}, μ {fmt.percent(c.get('long_run_mean'), 2)}, "
                                f"ν {fmt.plain(c.get('volatility'))}, y0 {fmt.percent(c.get('initial'), 2)}, "
                                f"recovery {fmt.share(r.get('recovery'), 0)}",
                      "fit": (f"spreads repriced to {fmt.bp(f['max_abs_error_bp'], 2)}" if "max_abs_error_bp" in f else "typed in")})
-    mpr = par.get("market_prices_of_risk") or {}
+    mpr = cal.market_prices_of_risk
     if mpr:
         rows.append({"part": "real world: prices of risk",
                      "values": f"rates {_sched_text(mpr.get('rates'), lambda x: fmt.plain(x, 3))}; "
@@ -711,18 +705,16 @@ def _fit_scalar(key: str, v: Any) -> str:
     return _column_format(key)(v)
 
 
-def _calibration(cal: dict[str, Any]) -> str:
+def _calibration(cal: CalibrationRecord) -> str:
     html = ["<h3>Calibrated parameters and fit</h3>",
             _table(_key_parameters(cal), [("part", "part"), ("values", "parameters"), ("fit", "fit error")],
                    fmts={k: (lambda r, k=k: escape(r[k])) for k in ("part", "values", "fit")})]
-    par = cal.get("parameters") or {}
-    if "driver_correlation" in par:
-        dc = par["driver_correlation"]
+    if (dc := cal.driver_correlation) is not None:
         html.append(f'<p class="note">Drivers (correlation matrix in calibration.json): '
                     f'{escape(", ".join(map(str, dc.get("drivers", []))))}.</p>')
     charts: list[str] = []
     fits: list[tuple[str, Any]] = []
-    for name, fit in (cal.get("fit") or {}).items():
+    for name, fit in cal.fit.items():
         if name == "indices" and isinstance(fit, dict):
             fits += [(f"index {k}", v) for k, v in fit.items()]
         elif name == "heston":  # the smile fit: pqflow.report.smile
@@ -755,8 +747,8 @@ def _calibration(cal: dict[str, Any]) -> str:
             html.append("<h3>Fit: year-on-year caps and floors</h3>")
             html.append(_kv([(k.replace("_", " "), _fit_scalar(k, v)) for k, v in caps.items() if k != "rows"]))
             html.append(_fit_table(caps["rows"], vols_in_bp=False))
-    html.append(smile.smile_fit_html((cal.get("fit") or {}).get("heston")))
-    if not cal.get("fit"):
+    html.append(smile.smile_fit_html(cal.part_fit("heston") or None))
+    if not cal.fit:
         html.append('<p class="note">No fit record in calibration.json (parameters typed in).</p>')
     html.append(_grid(charts))
     html.append(_files_cal())
@@ -827,7 +819,7 @@ def _drivers(names: list[str]) -> list[_Driver]:
             rating = c[len("intensity_"):]
             out.append(_Driver("Credit", f"{rating} default intensity", (c,), "rate", lambda d, c=c: d[c]))
             spreads = sorted((float(s.rsplit("_", 1)[1][:-1]), s) for s in names
-                             if s.startswith(f"spread_{rating}_") and s.endswith("y")
+                             if s.startswith(spread_prefix(rating)) and s.endswith("y")
                              and s.rsplit("_", 1)[1][:-1].replace(".", "").isdigit())
             if spreads:
                 m, s = spreads[-1]
@@ -1342,7 +1334,7 @@ def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
 
 # -- the sign-off page -------------------------------------------------------------------------
 
-def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any], summary: dict[str, Any],
+def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRecord, summary: dict[str, Any],
              val: dict[str, Any] | None, signoff: SignOff, today: str) -> str:
     html = [_one_line(run_dir, manifest, cal)]
     html.append(f'<p class="verdict-line">Overall verdict {_badge(summary.get("verdict"))}</p>')
@@ -1419,11 +1411,11 @@ def build_report_html(run_dir: str | Path, signoff: SignOff | None = None, *, to
     """The report of a run directory as one HTML string (reads the run's files only)."""
     run_dir = Path(run_dir)
     summary_path = run_dir / "validation" / "summary.json"
-    cal_path = run_dir / "calibration.json"
+    cal_path = calibration_path(run_dir)
     if not summary_path.is_file() or not cal_path.is_file():
-        raise IntegrityError(f"{run_dir}: needs calibration.json and validation/summary.json to write a report")
+        raise IntegrityError(f"{run_dir}: needs {CALIBRATION_FILE} and validation/summary.json to write a report")
     summary = read_json(summary_path)
-    cal = read_json(cal_path)
+    cal = read_calibration_file(cal_path)
     manifest_path = run_dir / "manifest.json"
     manifest = read_json(manifest_path) if manifest_path.is_file() else None
     val = _valuation(run_dir)

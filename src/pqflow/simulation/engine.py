@@ -41,10 +41,10 @@ import numpy as np
 from pqflow.measure.blocks import ObservedRows, gaussian_block_coefficients, observed_block_coefficients
 from pqflow.measure.density import accumulate_exponent, deflator, density_coefficients, signed_coefficients
 from pqflow.models.base import ScenarioModel
+from pqflow.storage.names import CASH_ACCOUNT, DEFLATOR, MEASURES, density_block_column, density_column
 
 __all__ = [
     "MEASURES",
-    "DENSITY_COLUMN",
     "GridLaws",
     "SimulatedStates",
     "Workspace",
@@ -56,8 +56,6 @@ __all__ = [
     "simulate_batch",
 ]
 
-MEASURES = ("real_world", "market_consistent")
-DENSITY_COLUMN = {"real_world": "q_density", "market_consistent": "p_density"}
 
 
 def time_grid(horizon_years: float, steps_per_year: int) -> np.ndarray:
@@ -389,14 +387,14 @@ def simulate_batch(
     else:
         names = tuple(dict.fromkeys(("cash_account", *columns)))
         out = model.columns(times, core.path_states, names=names)  # type: ignore[call-arg]
-    cash = out["cash_account"]
+    cash = out[CASH_ACCOUNT]
     density = core.density
-    buffer = None if workspace is None else workspace.array("deflator", cash.shape)
-    out["deflator"] = deflator(measure, density, cash, out=buffer)
-    out[DENSITY_COLUMN[measure]] = density
+    buffer = None if workspace is None else workspace.array(DEFLATOR, cash.shape)
+    out[DEFLATOR] = deflator(measure, density, cash, out=buffer)
+    out[density_column(measure)] = density
     for name in whole:
-        out[f"{DENSITY_COLUMN[measure]}_{name}"] = density
+        out[density_block_column(measure, name)] = density
     for i, name in enumerate(partial):
         assert core.block_density is not None
-        out[f"{DENSITY_COLUMN[measure]}_{name}"] = core.block_density[i]
+        out[density_block_column(measure, name)] = core.block_density[i]
     return out

@@ -20,16 +20,16 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from pqflow.measure.blocks import DensityBlock, ObservedRows, block_states, density_block_column, model_structure
+from pqflow.measure.blocks import DensityBlock, ObservedRows, block_states, model_structure
 from pqflow.measure.density import deflator
 from pqflow.models.base import ScenarioModel
 from pqflow.models.cir_credit import CirCreditModel
-from pqflow.models.heston import HestonIndex, variance_column
-from pqflow.models.hull_white_equity import bond_column
+from pqflow.models.heston import HestonIndex
 from pqflow.simulation.credit import simulate_credit
-from pqflow.simulation.engine import DENSITY_COLUMN, Workspace, simulate_batch
+from pqflow.simulation.engine import Workspace, simulate_batch
 from pqflow.simulation.heston_part import heston_generator, projection_noise_rows, simulate_heston_index
 from pqflow.simulation.streams import batch_generator, credit_generator
+from pqflow.storage.names import DENSITY_COLUMN, bond_column, density_block_column, variance_column
 
 __all__ = ["credit_substeps", "simulate_part", "block_layout", "heston_block_rows"]
 

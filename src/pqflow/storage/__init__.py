@@ -1,21 +1,12 @@
-"""Storage: every byte pqflow writes or reads goes through here."""
+"""Storage: every byte pqflow writes or reads goes through here.
+
+The names below are loaded on first use, so that ``pqflow.storage.names`` (the column names and
+metadata keys, standard library only) can be imported by any layer without pyarrow.
+"""
 
 from __future__ import annotations
 
-from pqflow.storage.export import export_slice
-from pqflow.storage.filesystem import OutputTarget, resolve_target, verify_target
-from pqflow.storage.jsonio import read_json, write_json_atomic
-from pqflow.storage.manifest import build_manifest, verify_run
-from pqflow.storage.parquet import (
-    batch_table,
-    file_sha256,
-    iter_parts,
-    part_name,
-    part_paths,
-    read_part,
-    write_part,
-)
-from pqflow.storage.rundir import discard_staging, prepare_staging, publish_staging, run_lock
+from typing import Any
 
 __all__ = [
     "OutputTarget",
@@ -38,3 +29,21 @@ __all__ = [
     "write_json_atomic",
     "write_part",
 ]
+
+_WHERE = {
+    "export_slice": "export",
+    "OutputTarget": "filesystem", "resolve_target": "filesystem", "verify_target": "filesystem",
+    "read_json": "jsonio", "write_json_atomic": "jsonio",
+    "build_manifest": "manifest", "verify_run": "manifest",
+    "batch_table": "parquet", "file_sha256": "parquet", "iter_parts": "parquet", "part_name": "parquet",
+    "part_paths": "parquet", "read_part": "parquet", "write_part": "parquet",
+    "discard_staging": "rundir", "prepare_staging": "rundir", "publish_staging": "rundir", "run_lock": "rundir",
+}
+
+
+def __getattr__(name: str) -> Any:
+    if name in _WHERE:
+        import importlib
+
+        return getattr(importlib.import_module(f"pqflow.storage.{_WHERE[name]}"), name)
+    raise AttributeError(f"module 'pqflow.storage' has no attribute {name!r}")

@@ -7,7 +7,7 @@ import os
 from pathlib import Path
 from typing import Any
 
-__all__ = ["write_json_atomic", "read_json"]
+__all__ = ["write_json_atomic", "write_text_atomic", "read_json"]
 
 
 def write_json_atomic(path: str | Path, obj: Any) -> Path:
@@ -24,6 +24,25 @@ def write_json_atomic(path: str | Path, obj: Any) -> Path:
             os.fsync(fh.fileno())
         os.replace(tmp, path)
     except BaseException:  # disk full, interrupted: no temporary file is left behind
+        tmp.unlink(missing_ok=True)
+        raise
+    return path
+
+
+def write_text_atomic(path: str | Path, text: str) -> Path:
+    """Write ``text`` (UTF-8) to ``path`` through a temporary name in the same folder, then
+    rename: readers never see a half-written page, and a failed write leaves neither a
+    temporary file nor a changed ``path``."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
+    try:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
         tmp.unlink(missing_ok=True)
         raise
     return path

@@ -25,6 +25,7 @@ import pyarrow as pa
 import pyarrow.fs as pafs
 import pyarrow.parquet as pq
 
+from pqflow.storage.names import KEY_COLUMNS
 from pqflow.storage.oserror import naming
 
 __all__ = [
@@ -43,7 +44,6 @@ __all__ = [
 ]
 
 PART_GLOB = "part-*.parquet"
-KEY_COLUMNS = ("scenario", "time")
 
 #: How parts are encoded (chosen by ``benchmarks/run.py``, see its Parquet table): zstd at level 1
 #: over byte-stream-split doubles compresses simulated floats best at little cost; dictionary

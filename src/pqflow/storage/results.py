@@ -16,7 +16,14 @@ import pyarrow.parquet as pq
 from pqflow.storage.jsonio import write_json_atomic
 from pqflow.storage.oserror import naming
 
-__all__ = ["write_parquet_atomic", "write_csv_atomic", "write_result_tables", "replace_directory"]
+__all__ = [
+    "write_parquet_atomic",
+    "write_csv_atomic",
+    "write_result_tables",
+    "replace_directory",
+    "write_table_folder",
+    "discard_folder_scratch",
+]
 
 
 def _tmp(path: Path) -> Path:
@@ -95,3 +102,44 @@ def replace_directory(fresh: str | Path, target: str | Path) -> Path:
     if old is not None:
         shutil.rmtree(old, ignore_errors=True)
     return target
+
+
+def _scratch_glob(name: str) -> str:
+    return f".{name}.new-*"
+
+
+def discard_folder_scratch(parent: str | Path, name: str) -> None:
+    """Remove the scratch folders of :func:`write_table_folder` left by a process killed mid-write."""
+    for stale in Path(parent).glob(_scratch_glob(name)):
+        shutil.rmtree(stale, ignore_errors=True)
+
+
+def write_table_folder(
+    parent: str | Path,
+    name: str,
+    tables: dict[str, pd.DataFrame],
+    summary: dict[str, Any],
+    *,
+    carry_over: tuple[str, ...] = (),
+) -> Path:
+    """Put a fresh folder ``parent/name`` in place: one CSV per table and ``summary.json``,
+    written to a sibling scratch folder first, which then replaces the old one
+    (:func:`replace_directory`), so a failure leaves the earlier folder whole. Files named in
+    ``carry_over`` that the old folder holds are copied into the new one."""
+    parent = Path(parent)
+    discard_folder_scratch(parent, name)
+    out = parent / name
+    fresh = parent / _scratch_glob(name).replace("*", uuid.uuid4().hex[:12])
+    try:
+        fresh.mkdir(parents=True)
+        for table, frame in tables.items():
+            write_csv_atomic(frame, fresh / f"{table}.csv")
+        write_json_atomic(fresh / "summary.json", summary)
+        for kept in carry_over:
+            if (out / kept).is_file():
+                shutil.copy2(out / kept, fresh / kept)
+        replace_directory(fresh, out)
+    finally:
+        if fresh.exists():
+            shutil.rmtree(fresh, ignore_errors=True)
+    return out

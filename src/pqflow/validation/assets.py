@@ -49,8 +49,10 @@ import numpy as np
 from pqflow.calibration.parts import credit_from_json
 from pqflow.errors import IntegrityError
 from pqflow.market.serialize import curve_from_json
-from pqflow.models.cir_credit import CreditRating, cumulative_intensity_column
-from pqflow.models.jarrow_yildirim import CPI_COLUMN
+from pqflow.models.cir_credit import CreditRating
+from pqflow.storage.calibration_file import calibration_path, calibration_record
+from pqflow.storage.names import CPI as CPI_COLUMN
+from pqflow.storage.names import cumulative_intensity_column
 from pqflow.validation.run_files import RunInputs
 
 __all__ = [
@@ -107,7 +109,7 @@ def inflation_assets(inputs: RunInputs, columns: Sequence[str]) -> list[Martinga
                 "column: their currency prices cannot be formed"
             )
         return []
-    par = inputs.parameters.get("inflation")
+    par = calibration_record(inputs.calibration, calibration_path(inputs.run_dir)).inflation
     try:
         real_curve = curve_from_json(par["real_curve"])
         cpi_base = float(par["cpi_base"])
@@ -145,7 +147,7 @@ def inflation_assets(inputs: RunInputs, columns: Sequence[str]) -> list[Martinga
 
 
 def _ratings(inputs: RunInputs) -> dict[str, CreditRating]:
-    par = inputs.parameters.get("credit")
+    par = calibration_record(inputs.calibration, calibration_path(inputs.run_dir)).credit
     try:
         model, _ = credit_from_json(par)
     except (KeyError, TypeError, ValueError) as exc:

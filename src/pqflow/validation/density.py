@@ -19,7 +19,6 @@ ESS share falls below ``validation.ess_warning_share`` (:func:`usable_horizons`)
 
 from __future__ import annotations
 
-import re
 from collections.abc import Generator, Mapping, Sequence
 from typing import Any
 
@@ -27,34 +26,12 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
+from pqflow.storage.names import density_block, density_column, density_columns
 from pqflow.storage.scenario_set import ScenarioSet, SetPass
 from pqflow.validation.mean_tests import DENSITY_DEVIATION, CellMoments, mean_test, rule_for_density
 from pqflow.validation.run_files import run_steps
 
-__all__ = ["density_table", "density_steps", "density_columns", "density_block", "usable_horizons", "DENSITY_COLUMNS"]
-
-DENSITY_COLUMNS = {"real_world": "q_density", "market_consistent": "p_density"}
-
-
-def density_columns(measure: str, names: list[str]) -> list[str]:
-    """The density columns of a set, full density first: ``^q_density(_.+)?$`` in the
-    real-world set, ``^p_density(_.+)?$`` in the market-consistent set."""
-    base = DENSITY_COLUMNS[measure]
-    pattern = re.compile(rf"^{base}(_.+)?$")
-    found = [c for c in names if pattern.match(c)]
-    return sorted(found, key=lambda c: (c != base, c))
-
-
-def density_block(column: str) -> str | None:
-    """The block of a density column (the suffix after ``q_density_`` / ``p_density_``), or
-    ``None`` for the full density."""
-    for base in DENSITY_COLUMNS.values():
-        if column == base:
-            return None
-        if column.startswith(base + "_"):
-            return column[len(base) + 1:]
-    raise ValueError(f"{column!r} is not a density column")
-
+__all__ = ["density_table", "density_steps", "usable_horizons"]
 
 def density_table(
     reader: ScenarioSet, *, credit_density: bool = False, heston_drivers: Sequence[str] = (),
@@ -84,7 +61,7 @@ def density_steps(
     block_drivers = reader.density_blocks() if heston_drivers else {}
     columns = density_columns(reader.measure, reader.column_names())
     if not columns:
-        raise ValueError(f"{reader.set_dir}: no {DENSITY_COLUMNS[reader.measure]} column")
+        raise ValueError(f"{reader.set_dir}: no {density_column(reader.measure)} column")
     antithetic = reader.antithetic
     acc: dict[str, CellMoments] = {}
     total: dict[str, np.ndarray] = {}

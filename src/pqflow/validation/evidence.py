@@ -31,6 +31,7 @@ from typing import Any
 
 import pandas as pd
 
+from pqflow.storage.calibration_file import calibration_path, calibration_record
 from pqflow.validation.assets import martingale_assets
 from pqflow.validation.market_consistency import market_consistency_steps
 from pqflow.validation.mean_tests import (
@@ -91,7 +92,7 @@ def density_budget_for_run(inputs) -> tuple[pd.DataFrame | None, dict[str, dict[
     from pqflow.measure.budget import density_budget
 
     try:
-        cal = load_calibration(inputs.run_dir / "calibration.json")
+        cal = load_calibration(calibration_path(inputs.run_dir))
         model = build_model(cal, ())
     except (KeyError, TypeError, ValueError):
         return None, {}
@@ -124,16 +125,17 @@ def run_checks(
     level at time 0).
     """
     inputs = load_run_inputs(run_dir)
-    credit = credit_in_density(inputs.parameters, inputs.reader("real_world").column_names())
+    record = calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
+    credit = credit_in_density(record.credit, inputs.reader("real_world").column_names())
     # every check registers what it reads of each set; each part is then read once for all of them
     passes = set_passes(inputs)
     (mart, dens, base), *results = run_steps(passes, all_steps([
         validate_run_steps(passes, inputs.curve.discount, ess_warning_share=ess_warning_share,
                            extra_assets=partial(martingale_assets, inputs), credit_density=credit,
                            rates_drivers=inputs.rates_drivers,
-                           non_lognormal=tuple(stochastic_volatility_assets(inputs.parameters)),
-                           heston_drivers=tuple(stochastic_volatility_drivers(inputs.parameters)),
-                           heston_unjudged=unmeasured_heston_drivers(inputs.parameters)),
+                           non_lognormal=tuple(stochastic_volatility_assets(record.stochastic_volatility)),
+                           heston_drivers=tuple(stochastic_volatility_drivers(record.stochastic_volatility)),
+                           heston_unjudged=unmeasured_heston_drivers(record.stochastic_volatility)),
         market_consistency_steps(inputs, passes, vol_tolerance=vol_tolerance),
         real_world_steps(inputs, passes, wealth_benchmark_gating=wealth_benchmark_gating),
         reconciliation_steps(inputs, passes, maturity=guarantee_maturity, guarantee=guarantee),

@@ -83,9 +83,11 @@ import pandas as pd
 
 from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_price
 from pqflow.errors import MarketDataError
+from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
+from pqflow.storage.names import bond_column, density_block_column, density_column, index_columns
 from pqflow.storage.scenario_set import SetPass
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
-from pqflow.validation.martingale import index_columns, restricted_blocks
+from pqflow.validation.martingale import restricted_blocks
 from pqflow.validation.moments import spread_from_other_measure
 from pqflow.validation.run_files import RunInputs, Steps, add_moments, run_steps, set_passes, time_index
 from pqflow.validation.summary import family_critical_z, inconclusive_mask
@@ -161,7 +163,7 @@ def _num(x: Any) -> float | None:
 
 
 def _bond(k: float) -> str:
-    return f"zcb_{k:g}y"
+    return bond_column(k)
 
 
 def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option, shift) -> tuple[float | None, str | None]:
@@ -179,28 +181,31 @@ def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option
     return price, note
 
 
+def _record(inputs: RunInputs) -> CalibrationRecord:
+    """The run's calibration record, read through storage (version checked)."""
+    return calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
+
+
 def _income_yields(inputs: RunInputs) -> dict[str, float]:
     """Index name -> recorded income yield: the core equity's dividend yield and each further
     index's income yield."""
-    par = inputs.parameters
+    cal = _record(inputs)
     out: dict[str, float] = {}
-    for idx in par.get("indices", []) or []:
+    for idx in cal.indices:
         if isinstance(idx, dict) and "name" in idx and idx.get("income_yield") is not None:
             out[str(idx["name"])] = float(idx["income_yield"])
-    equity = par.get("equity", {}) or {}
-    if equity.get("name") is not None:  # as before: no recorded dividend yield reads as 0
-        out[str(equity["name"])] = float(equity.get("dividend_yield", 0.0) or 0.0)
+    if cal.equity_name is not None:
+        out[cal.equity_name] = cal.equity.dividend_yield
     return out
 
 
 def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) -> list[InstrumentSpec]:
     """Read ``calibration.json["instruments"]`` into specs, marking what the files cannot test."""
-    section = inputs.calibration.get("instruments") or {}
+    cal = _record(inputs)
     curve = inputs.curve
     out: list[InstrumentSpec] = []
-    equity_par = inputs.parameters.get("equity", {})
     yields = _income_yields(inputs)
-    for raw in section.get("swaptions", []) or []:
+    for raw in cal.instrument_list("swaptions"):
         expiry, tenor = float(raw["expiry"]), float(raw["tenor"])
         strike = float(raw["strike"])
         convention = str(raw.get("convention", "normal"))
@@ -232,9 +237,9 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
             stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
             column_names=needed, untestable=reason, note=note,
         ))
-    for raw in section.get("equity_options", []) or []:
+    for raw in cal.instrument_list("equity_options"):
         expiry, strike = float(raw["expiry"]), float(raw["strike"])
-        index = str(raw.get("index", equity_par.get("name", "")))
+        index = str(raw.get("index", cal.equity_name or ""))
         option = str(raw.get("kind", "call"))
         convention = str(raw.get("convention", "lognormal"))
         column_kind = str(raw.get("column_kind", "equity"))
@@ -258,7 +263,7 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
             stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
             column_names=(col,), untestable=reason, income_yield=q,
         ))
-    for raw in section.get("inflation_caps", []) or []:
+    for raw in cal.instrument_list("inflation_caps"):
         n, strike, option = int(round(float(raw["maturity"]))), float(raw["strike"]), str(raw["kind"])
         label = f"year-on-year inflation {option} {n}y K={strike:.2%}"
         reason = None
@@ -457,8 +462,9 @@ def market_consistency_table_steps(
         # columns (rates for a swaption, rates and the index for an equity option): the full
         # density's other drivers add spread and nothing else.
         blocks = [restricted_blocks(reader, s.column_names, inputs.rates_drivers) for s in testable]
-        full = "q_density" if measure == "real_world" else "p_density"
-        weight_columns = [tuple(f"{full}_{b}" for b in bs) or ((full,) if full in columns else ()) for bs in blocks]
+        full = density_column(measure)
+        weight_columns = [tuple(density_block_column(measure, b) for b in bs) or ((full,) if full in columns else ())
+                          for bs in blocks]
         restricted = measure == "real_world" and any(blocks)
         spread_source = measure == "market_consistent" and all(weight_columns)
         needed = ["deflator", *dict.fromkeys(c for s in testable for c in s.column_names)]
@@ -509,7 +515,7 @@ def market_consistency_table_steps(
                 "z_market": (mc - s.market_price) / err if s.market_price is not None and err > 0 else None,
                 "z_model": (mc - s.model_price) / err if s.model_price is not None and err > 0 else None,
                 "sampling_units": units, "paying_units": int(paying_units[j]),
-                "weight": (" * ".join(f"q_density_{b}" for b in blocks[j]) + " / cash_account")
+                "weight": (" * ".join(density_block_column(measure, b) for b in blocks[j]) + " / cash_account")
                 if measure == "real_world" and blocks[j] else "deflator",
                 "sample_std_error": sample_err, "std_error_from_market_consistent": cross_err,
                 "tolerance_price": tol_price, "material_price": material,
@@ -540,8 +546,9 @@ def market_consistency_steps(
 ) -> Steps[CheckResult]:
     """:func:`market_consistency_check` as steps on the sets' shared passes
     (:func:`pqflow.validation.run_files.run_steps`)."""
-    section = inputs.calibration.get("instruments") or {}
-    if not (section.get("swaptions") or section.get("equity_options") or section.get("inflation_caps")):
+    cal = _record(inputs)
+    if not (cal.instrument_list("swaptions") or cal.instrument_list("equity_options")
+            or cal.instrument_list("inflation_caps")):
         return CheckResult(name=CHECK, summary=not_applicable_entry(
             kind=KIND, reason="not applicable: no instruments in calibration.json"))
     table, specs = yield from market_consistency_table_steps(inputs, passes, vol_tolerance=vol_tolerance,

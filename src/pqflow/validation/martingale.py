@@ -24,7 +24,6 @@ whether the cell has the power to judge (:func:`pqflow.validation.summary.cells_
 
 from __future__ import annotations
 
-import re
 from collections.abc import Callable, Collection, Generator, Mapping, Sequence
 
 import numpy as np
@@ -33,28 +32,15 @@ from scipy.stats import norm
 
 from pqflow.errors import IntegrityError
 from pqflow.measure.blocks import CREDIT_PREFIX, column_drivers, density_factors
+from pqflow.storage.names import bond_maturity_of, density_block_column, index_columns
 from pqflow.storage.scenario_set import ScenarioSet, SetPass
 from pqflow.validation.assets import MartingaleAsset
 from pqflow.validation.mean_tests import MARTINGALE_DEVIATION, ROBUST, CellMoments, mean_test, rule_for_asset
 from pqflow.validation.run_files import run_steps
 
-__all__ = ["martingale_table", "martingale_steps", "bond_maturity_of", "index_columns", "restricted_blocks",
-           "INDEX_PREFIXES", "LEVELS"]
+__all__ = ["martingale_table", "martingale_steps", "restricted_blocks", "LEVELS"]
 
 LEVELS = (0.95, 0.99)
-INDEX_PREFIXES = ("equity_", "property_")
-_BOND = re.compile(r"^zcb_(?P<m>[0-9.eE+-]+)y$")
-
-
-def bond_maturity_of(column: str) -> float | None:
-    """``zcb_10y`` -> 10.0; ``None`` for a column that is not a bond."""
-    match = _BOND.match(column)
-    return float(match.group("m")) if match else None
-
-
-def index_columns(names: Sequence[str]) -> list[str]:
-    """The total-return index columns (``equity_*``, ``property_*``) among ``names``, in order."""
-    return [c for c in names if c.startswith(INDEX_PREFIXES)]
 
 
 def _builtin_assets(names: list[str], discount: Callable[[np.ndarray], np.ndarray],
@@ -98,7 +84,7 @@ def _asset_weights(
     for a in assets:
         if a.name == "deflator" or not a.columns:
             continue
-        out[a.name] = tuple(f"q_density_{f}" for f in restricted_blocks(reader, a.columns, rates_drivers))
+        out[a.name] = tuple(density_block_column("real_world", f) for f in restricted_blocks(reader, a.columns, rates_drivers))
     return out
 
 

@@ -50,10 +50,13 @@ The moments are streamed part by part (:class:`CellMoments`): sums, never the ar
 
 from __future__ import annotations
 
-from collections.abc import Collection
+from collections.abc import Collection, Iterable, Mapping
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
+
+from pqflow.storage.names import INDEX_KINDS, density_block_or_none, index_column
 
 __all__ = [
     "LOGNORMAL",
@@ -331,13 +334,13 @@ def rule_for_density(
     A Heston part makes ``log w`` a variance mixture of Gaussians: the lognormal identity's size
     on such densities is measured in ``tests/test_heston_density_rule.py`` (far above its level
     for an allowed house view), the robust t's is within it."""
-    for prefix in ("q_density_", "p_density_"):
-        if column.startswith(prefix):
-            if column[len(prefix):].startswith("credit"):
-                return ROBUST
-            if heston_drivers and (block_drivers is None or set(block_drivers) & set(heston_drivers)):
-                return ROBUST
-            return LOGNORMAL
+    block = density_block_or_none(column)
+    if block is not None:
+        if block.startswith("credit"):
+            return ROBUST
+        if heston_drivers and (block_drivers is None or set(block_drivers) & set(heston_drivers)):
+            return ROBUST
+        return LOGNORMAL
     return ROBUST if credit_density or heston_drivers else LOGNORMAL
 
 
@@ -350,13 +353,13 @@ def rule_for_density(
 HESTON_MEASURED_SHIFT = 0.06
 
 
-def unmeasured_heston_drivers(parameters: dict) -> dict[str, str]:
-    """The stochastic-volatility indices whose real-world variance dynamics lie beyond the range
-    in which the density rule's size is measured (:data:`HESTON_MEASURED_SHIFT`), each with the
-    reason printed beside its unjudged cells."""
-    sv = parameters.get("stochastic_volatility") if isinstance(parameters, dict) else None
+def unmeasured_heston_drivers(heston: Mapping[str, Any]) -> dict[str, str]:
+    """The stochastic-volatility indices (``CalibrationRecord.stochastic_volatility``: the Heston
+    entries by name) whose real-world variance dynamics lie beyond the range in which the density
+    rule's size is measured (:data:`HESTON_MEASURED_SHIFT`), each with the reason printed beside
+    its unjudged cells."""
     out: dict[str, str] = {}
-    for name, entry in (sv or {}).items() if isinstance(sv, dict) else ():
+    for name, entry in heston.items():
         lam = entry.get("prices_of_risk") or {} if isinstance(entry, dict) else {}
         try:
             shifts = [abs(float(lam[f"{k}_real_world"]) / float(entry[k]) - 1.0) for k in ("kappa", "theta")]
@@ -369,30 +372,27 @@ def unmeasured_heston_drivers(parameters: dict) -> dict[str, str]:
     return out
 
 
-def stochastic_volatility_drivers(parameters: dict) -> frozenset[str]:
+def stochastic_volatility_drivers(heston: Mapping[str, Any]) -> frozenset[str]:
     """Names (drivers) of the indices that ``calibration.json`` gives a stochastic volatility
-    (``parameters["stochastic_volatility"]``): the densities that hold them carry a Heston part."""
-    sv = parameters.get("stochastic_volatility") if isinstance(parameters, dict) else None
-    return frozenset(sv) if isinstance(sv, dict) else frozenset()
+    (``CalibrationRecord.stochastic_volatility``): the densities that hold them carry a Heston part."""
+    return frozenset(str(name) for name in heston)
 
 
-def stochastic_volatility_assets(parameters: dict) -> frozenset[str]:
+def stochastic_volatility_assets(heston_indices: Iterable[str]) -> frozenset[str]:
     """Index columns (``equity_<name>``, ``property_<name>``) of the indices that
-    ``calibration.json`` gives a stochastic volatility (``parameters["stochastic_volatility"]``,
-    the Heston indices). Their deflated values are variance mixtures of lognormals, not
+    ``calibration.json`` gives a stochastic volatility (the names of
+    ``CalibrationRecord.stochastic_volatility``, the Heston indices). Their deflated values are
+    variance mixtures of lognormals, not
     lognormal: ``log X`` is not Gaussian and the lognormal identity is biased upward for them
     (``E[L] + Var(L)/2 - log E[X] = Var(s^2)/8`` for ``X = exp(s Z - s^2/2)`` with a random
     ``s``), measured in ``tests/test_mean_tests.py``."""
-    sv = parameters.get("stochastic_volatility") if isinstance(parameters, dict) else None
-    if not isinstance(sv, dict):
-        return frozenset()
-    return frozenset(f"{kind}_{name}" for name in sv for kind in ("equity", "property"))
+    return frozenset(index_column(kind, str(name)) for name in heston_indices for kind in INDEX_KINDS)
 
 
-def credit_in_density(parameters: dict, column_names: list[str] | None = None) -> bool:
+def credit_in_density(credit: Any, column_names: list[str] | None = None) -> bool:
     """Whether the full density carries a CIR credit part: a rating with a non-zero price of
-    risk in ``calibration.json`` (or, without a readable record, credit columns in the files)."""
-    credit = parameters.get("credit") if isinstance(parameters, dict) else None
+    risk in the credit part of ``calibration.json`` (``CalibrationRecord.credit``; or, without
+    a readable record, credit columns in the files)."""
     if isinstance(credit, dict) and isinstance(credit.get("ratings"), list):
         try:
             return any(float(r.get("price_of_risk", 0.0)) != 0.0 for r in credit["ratings"])

@@ -54,9 +54,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
+from pqflow.storage.names import INDEX_PREFIXES, bond_column, bond_maturity_of, equity_column, index_column
 from pqflow.storage.scenario_set import SetPass
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
-from pqflow.validation.martingale import bond_maturity_of
 from pqflow.validation.mean_tests import LOGNORMAL, MARTINGALE_DEVIATION, MIN_UNITS, mean_test
 from pqflow.validation.run_files import (
     RunInputs,
@@ -233,8 +234,13 @@ def _z(difference: float, std_error: float, scale: float) -> float:
     return float(difference / max(std_error, floor))
 
 
+
+def _record(inputs: RunInputs) -> CalibrationRecord:
+    """The run's calibration record, read through storage (version checked)."""
+    return calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
+
 def _erp_input(inputs: RunInputs) -> float | None:
-    value = inputs.calibration.get("inputs", {}).get("real_world", {}).get("equity_risk_premium")
+    value = (_record(inputs).inputs.get("real_world") or {}).get("equity_risk_premium")
     return float(value) if isinstance(value, (int, float)) and not isinstance(value, bool) else None
 
 
@@ -242,9 +248,9 @@ def _index_premia(inputs: RunInputs, names: list[str], core: str | None) -> list
     """``(column, risk_premium)`` of each further index recorded in ``parameters["indices"]``
     whose column is in the files (the core equity's column left out)."""
     out = []
-    for idx in inputs.parameters.get("indices", []) or []:
+    for idx in _record(inputs).indices:
         try:
-            col = f"{idx['kind']}_{idx['name']}"
+            col = index_column(idx["kind"], idx["name"])
             premium = float(idx["risk_premium"])
         except (KeyError, TypeError, ValueError):
             continue
@@ -274,7 +280,7 @@ def _heston_premia(inputs: RunInputs) -> dict[str, Any]:
     from pqflow.models.heston import real_world_log_excess_growth
 
     try:
-        specs = heston_from_json(inputs.parameters.get("stochastic_volatility", {}) or {})
+        specs = heston_from_json(dict(_record(inputs).stochastic_volatility))
     except (KeyError, TypeError, ValueError):
         return {}
     out = {}
@@ -321,9 +327,10 @@ def real_world_steps(
     scan = passes["real_world"]
     reader = scan.scenario_set
     names = reader.column_names()
-    equity = [c for c in names if c.startswith("equity_")]
-    eq_name = inputs.parameters.get("equity", {}).get("name")
-    e_col = f"equity_{eq_name}" if f"equity_{eq_name}" in equity else (equity[0] if equity else None)
+    equity = [c for c in names if c.startswith(INDEX_PREFIXES[0])]
+    eq_name = _record(inputs).equity_name
+    core = None if eq_name is None else equity_column(eq_name)
+    e_col = core if core in equity else (equity[0] if equity else None)
     premia = _index_premia(inputs, names, e_col)
     premium_cols = [*([e_col] if e_col else []), *(c for c, _ in premia)]
 
@@ -342,7 +349,7 @@ def real_world_steps(
     view = inputs.parameters.get("real_world_view", {}) or {}
     target = (inputs.calibration.get("expected_short_rate") or {}).get("target") or {}
     maturity = view.get("target_maturity")
-    y_col = f"zcb_{float(maturity):g}y" if view.get("target") == "zero_yield" and maturity else None
+    y_col = bond_column(float(maturity)) if view.get("target") == "zero_yield" and maturity else None
     yields = None
     if y_col is not None and y_col in names and target.get("real_world"):
         m_y = float(maturity)
@@ -357,7 +364,7 @@ def real_world_steps(
     excess_cells: dict[str, Any] = cells()[1] if cells is not None else {}
 
     target_rows = []
-    esr = inputs.calibration.get("expected_short_rate") or {}
+    esr = _record(inputs).expected_short_rate
     skipped = []
     for t, target in zip(esr.get("time", []) or [], esr.get("real_world", []) or []):
         k = time_index(times, float(t))
@@ -370,14 +377,13 @@ def real_world_steps(
         target_rows.append(_gaussian_row("expected short rate", float(times[k]), float(target), mean, se,
                                          acc["short_rate"].count))
     target = esr.get("target") or {}
-    view = inputs.parameters.get("real_world_view", {}) or {}
+    view = _record(inputs).real_world_view
     house_fit = None
     if target.get("house_view") and target.get("real_world"):
         gap = np.abs(np.array(target["house_view"], dtype=float) - np.array(target["real_world"], dtype=float))
         house_fit = {"quantity": target.get("quantity"), "max_abs_gap_bp": float(gap.max() / 1e-4),
                      "note": "the model's real-world expectation against the house-view path (no sampling error)"}
     maturity = view.get("target_maturity")
-    y_col = f"zcb_{float(maturity):g}y" if view.get("target") == "zero_yield" and maturity else None
     if yields is not None:
         m = float(maturity)
         yt, yacc = yields()
@@ -425,7 +431,7 @@ def real_world_steps(
         bench_frame, bench = wealth_ratio_benchmark(wealth)
         tables["wealth_ratio_benchmark"] = bench_frame
         # every equity index beside the core one (e.g. a Heston index beside a deterministic one)
-        heston_cols = {h.get("column") for h in (inputs.parameters.get("stochastic_volatility") or {}).values()}
+        heston_cols = {h.get("column") for h in _record(inputs).stochastic_volatility.values()}
         by_index, frames = {}, []
         wt_all, wdata_all = wealth_all()
         for col in equity:

@@ -49,17 +49,18 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from pqflow.errors import ConfigError
 from pqflow.measure.blocks import column_drivers, smallest_block
 from pqflow.models.equity import EquityParams, equity_option_price
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
-from pqflow.models.jarrow_yildirim import CPI_COLUMN
 from pqflow.models.schedule import PiecewiseConstant
+from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
+from pqflow.storage.names import CPI, bond_maturity_of, density_column, equity_column, index_columns
 from pqflow.storage.scenario_set import PartFeed, ScenarioSet, SetPass
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
 from pqflow.validation.control_variates import controlled_mean
 from pqflow.validation.market_consistency import MIN_PAYING_UNITS
-from pqflow.validation.martingale import bond_maturity_of, index_columns
 from pqflow.validation.moments import sampling_units, spread_from_other_measure
 from pqflow.validation.run_files import RunInputs, Steps, add_moments, all_steps, run_steps, set_passes, time_index
 from pqflow.validation.summary import family_critical_z
@@ -77,7 +78,7 @@ KIND = "maturity guarantee valued in closed form, from the Q set and from the P 
 RETURN_HORIZONS = (1.0, 5.0, 10.0, 20.0)
 #: Material deviation of a guarantee value: 2% of its closed-form value (common practice).
 MATERIAL_SHARE = 0.02
-_CPI = CPI_COLUMN
+_CPI = CPI
 
 
 def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: float, level: float) -> float:
@@ -86,47 +87,57 @@ def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: floa
     equity volatility a number or a piecewise-constant schedule): Black on the forward with the
     T-forward variance of :func:`pqflow.models.equity.equity_total_variance` (Hull-White or
     G2++ rates)."""
-    par = inputs.parameters
-    eq = par["equity"]
-    sv = (par.get("stochastic_volatility") or {}).get(eq["name"])
+    cal = _record(inputs)
+    eq = cal.equity
+    g, hw = cal.g2pp, cal.hull_white
+    sv = cal.stochastic_volatility.get(eq.name)
     if sv is not None:  # a Heston core equity: the semi-closed form (exact, or H1-HW when correlated)
         from pqflow.models.heston import heston_indices_from_json as heston_from_json
         from pqflow.models.heston import heston_option_price
 
-        spec = heston_from_json({eq["name"]: sv})[eq["name"]]
+        spec = heston_from_json({eq.name: sv})[eq.name]
         rates_sv: HullWhiteParams | G2PlusPlusParams
-        if par.get("rates_model") == "g2pp":
-            g = par["g2pp"]
-            rates_sv = G2PlusPlusParams(a=float(g["a"]), sigma=float(g["sigma"]), b=float(g["b"]), eta=float(g["eta"]),
-                                        rho=float(g["rho"]))
-            corr = tuple(float(c) for c in eq.get("correlation_with_rate_factors", (0.0, 0.0)))
+        corr: float | tuple[float, ...]
+        if cal.rates_model == "g2pp":
+            if g is None:
+                raise KeyError("g2pp")
+            rates_sv = G2PlusPlusParams(a=g.a, sigma=g.sigma, b=g.b, eta=g.eta, rho=g.rho)
+            corr = eq.correlation_with_rate_factors or (0.0, 0.0)
         else:
-            hw = par["hull_white"]
-            rates_sv = HullWhiteParams(mean_reversion=float(hw["mean_reversion"]), volatility=float(hw["volatility"]))
-            corr = float(eq["correlation_with_rates"])
+            if hw is None:
+                raise KeyError("hull_white")
+            rates_sv = HullWhiteParams(mean_reversion=hw.mean_reversion, volatility=hw.volatility)
+            corr = eq.correlation_with_rates
         return float(heston_option_price(spec.params, level=level, dividend_yield=0.0,
                                          discount=float(inputs.curve.discount(maturity)), expiry=maturity,
                                          strike=guarantee, kind="put", rates=rates_sv, correlation=corr))
-    vol = eq["volatility"]
+    vol = eq.volatility
     volatility = float(vol) if isinstance(vol, (int, float)) else PiecewiseConstant.from_json(vol)
-    if "g2pp" in par:
-        g = par["g2pp"]
-        rx, ry = (float(v) for v in eq["correlation_with_rate_factors"])
-        g2 = G2PlusPlusParams(**{k: float(g[k]) for k in ("a", "sigma", "b", "eta", "rho")})
-        g2_equity = EquityParams(name=str(eq["name"]), level=level, dividend_yield=0.0, volatility=volatility,
+    if g is not None:
+        if eq.correlation_with_rate_factors is None:
+            raise KeyError("correlation_with_rate_factors")
+        rx, ry = eq.correlation_with_rate_factors
+        g2 = G2PlusPlusParams(a=g.a, sigma=g.sigma, b=g.b, eta=g.eta, rho=g.rho)
+        g2_equity = EquityParams(name=eq.name, level=level, dividend_yield=0.0, volatility=volatility,
                                  correlation=(rx, ry))
         return equity_option_price(inputs.curve, g2, g2_equity, expiry=maturity, strike=guarantee, kind="put")
-    hw = par["hull_white"]
-    rates = HullWhiteParams(mean_reversion=float(hw["mean_reversion"]), volatility=float(hw["volatility"]))
+    if hw is None:
+        raise KeyError("hull_white")
+    rates = HullWhiteParams(mean_reversion=hw.mean_reversion, volatility=hw.volatility)
     equity = EquityParams(
-        name=str(eq["name"]), level=level, dividend_yield=0.0, volatility=volatility,
-        correlation=float(eq["correlation_with_rates"]),
+        name=eq.name, level=level, dividend_yield=0.0, volatility=volatility,
+        correlation=eq.correlation_with_rates,
     )
     return equity_option_price(inputs.curve, rates, equity, expiry=maturity, strike=guarantee, kind="put")
 
 
+def _record(inputs: RunInputs) -> CalibrationRecord:
+    return calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
+
+
 def _equity_column(inputs: RunInputs, names: list[str]) -> str | None:
-    col = f"equity_{inputs.parameters.get('equity', {}).get('name')}"
+    name = _record(inputs).equity_name
+    col = None if name is None else equity_column(name)
     return col if col in names else None
 
 
@@ -134,7 +145,7 @@ def density_for(reader: ScenarioSet, columns: Sequence[str], rates_drivers: Sequ
     """The density column to weight quantities built from ``columns`` with: the smallest
     restricted block the set carries that contains every driver they depend on
     (:mod:`pqflow.measure.blocks`), or the full density. Returns ``(column, block or None)``."""
-    full = "q_density" if reader.measure == "real_world" else "p_density"
+    full = density_column(reader.measure)
     needed = frozenset().union(*(column_drivers(c, rates_drivers) for c in columns))
     block = smallest_block(needed, reader.density_blocks())
     return (full if block is None else f"{full}_{block}"), block
@@ -237,7 +248,7 @@ def guarantee_values_steps(
     try:
         out["closed_form"] = guarantee_closed_form(
             inputs, maturity=out["maturity"], guarantee=out["guarantee"], level=out["level"])
-    except (KeyError, TypeError, ValueError):  # a model without a rates + equity record
+    except (KeyError, TypeError, ValueError, ConfigError):  # a model without a rates + equity record
         out["closed_form"] = None
     return out
 
@@ -380,7 +391,7 @@ def reconciliation_steps(
         "control_variates": {m: values[f"{m}_controls"] for m in ("market_consistent", "real_world")},
     }
     values_table = pd.DataFrame([
-        *([{"method": f"closed form ({'G2++' if 'g2pp' in inputs.parameters else 'Hull-White'} + Black)", "value": cf, "std_error": 0.0}] if cf is not None else []),
+        *([{"method": f"closed form ({'G2++' if _record(inputs).g2pp is not None else 'Hull-White'} + Black)", "value": cf, "std_error": 0.0}] if cf is not None else []),
         {"method": "market-consistent set (control variates)", "value": q, "std_error": q_se},
         {"method": f"real-world set with deflators ({values['real_world_density']}, control variates)",
          "value": p, "std_error": p_se},

@@ -12,6 +12,7 @@ from __future__ import annotations
 from functools import partial
 from pathlib import Path
 
+from pqflow.storage.calibration_file import calibration_path, calibration_record
 from pqflow.validation.assets import martingale_assets
 from pqflow.validation.checks import not_applicable_entry
 from pqflow.validation.density import density_table
@@ -34,7 +35,9 @@ def run_market_consistent_checks(run_dir: str | Path, *, ess_warning_share: floa
     reader = ScenarioSetReader(run_dir=Path(run_dir), measure=MEASURE)
     extra = partial(martingale_assets, inputs)(reader.column_names())
     mart = {MEASURE: martingale_table(reader, inputs.curve.discount, extra,
-                                      non_lognormal=stochastic_volatility_assets(inputs.parameters))}
+                                      non_lognormal=stochastic_volatility_assets(
+                                          calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
+                                          .stochastic_volatility))}
     dens = {MEASURE: density_table(reader)}
     base = summarise(mart, dens, ess_warning_share=ess_warning_share)
     checks = {}

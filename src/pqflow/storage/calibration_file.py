@@ -1,0 +1,343 @@
+"""``calibration.json``: the one reader and writer of a run's calibration record.
+
+The file is written by :func:`write_calibration_file` from the content the calibration builds
+(``Calibration.to_json``), with ``format_version`` put in front; nothing else changes a byte.
+Every reader goes through :func:`read_calibration_file` (or :func:`calibration_record` for a
+record already read) and gets a :class:`CalibrationRecord`: the top-level sections, and typed
+views of what the checks, the report and the command line read (rates, core equity, instruments,
+fit records). The content of a model part (indices, inflation, credit, Heston indices, the
+driver correlation) is handed to its owner in ``calibration/`` as the nested object it wrote.
+
+Versions: a file without ``format_version`` is version 1 (every run written before the field
+existed); a version this pqflow does not know is refused with the file's name, never guessed.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from pqflow.errors import ConfigError
+from pqflow.storage.jsonio import read_json, write_json_atomic
+
+__all__ = [
+    "CALIBRATION_FILE",
+    "FORMAT_VERSION",
+    "CalibrationRecord",
+    "HullWhiteRecord",
+    "G2ppRecord",
+    "EquityRecord",
+    "calibration_path",
+    "calibration_content",
+    "calibration_document",
+    "calibration_record",
+    "read_calibration_file",
+    "write_calibration_file",
+]
+
+CALIBRATION_FILE = "calibration.json"
+#: The version this pqflow writes and the newest it reads.
+FORMAT_VERSION = 1
+_VERSION_KEY = "format_version"
+_RATES_MODELS = ("hull_white", "g2pp")
+
+
+@dataclass(frozen=True, kw_only=True)
+class HullWhiteRecord:
+    """Hull-White one-factor parameters as recorded (``parameters.hull_white``)."""
+
+    mean_reversion: float
+    volatility: float
+
+
+@dataclass(frozen=True, kw_only=True)
+class G2ppRecord:
+    """G2++ parameters as recorded (``parameters.g2pp``)."""
+
+    a: float
+    sigma: float
+    b: float
+    eta: float
+    rho: float
+
+
+@dataclass(frozen=True, kw_only=True)
+class EquityRecord:
+    """The core equity index as recorded (``parameters.equity``); ``volatility`` is the stored
+    schedule (a number or ``{knots, values}``)."""
+
+    name: str
+    level: float
+    dividend_yield: float
+    volatility: Any
+    correlation_with_rates: float
+    correlation_with_rate_factors: tuple[float, ...] | None = None
+
+    @property
+    def column(self) -> str:
+        from pqflow.storage.names import equity_column
+
+        return equity_column(self.name)
+
+
+@dataclass(frozen=True, kw_only=True)
+class CalibrationRecord:
+    """A ``calibration.json`` read and checked for its version. ``source`` names the file in
+    every error; a section the file does not carry reads as empty (``{}`` / ``None``), a value a
+    reader needs and the file lacks raises :class:`~pqflow.errors.ConfigError` naming the key."""
+
+    source: str
+    format_version: int
+    data: dict[str, Any] = field(repr=False)
+
+    # ------------------------------------------------------------------ top level
+
+    def required(self, key: str) -> Any:
+        """A top-level value the reader cannot do without (error naming the file and key)."""
+        return self._need(self.data, key)
+
+    @property
+    def required_parameters(self) -> dict[str, Any]:
+        return self._need(self.data, "parameters")
+
+    @property
+    def pqflow_version(self) -> str | None:
+        return self.data.get("pqflow_version")
+
+    @property
+    def valuation_date(self) -> str | None:
+        return self.data.get("valuation_date")
+
+    @property
+    def horizon_years(self) -> float:
+        return float(self._need(self.data, "horizon_years"))
+
+    @property
+    def inputs_sha256(self) -> str | None:
+        return self.data.get("inputs_sha256")
+
+    @property
+    def inputs(self) -> dict[str, Any]:
+        """The configuration's inputs as recorded (its own form, written by ``config/``)."""
+        return self.data.get("inputs") or {}
+
+    @property
+    def parameters(self) -> dict[str, Any]:
+        return self.data.get("parameters") or {}
+
+    @property
+    def fit(self) -> dict[str, Any]:
+        """One fit record per part (``curve``, ``hull_white``/``g2pp``, ``equity``, ...)."""
+        return self.data.get("fit") or {}
+
+    def part_fit(self, part: str) -> dict[str, Any]:
+        return self.fit.get(part) or {}
+
+    @property
+    def has_instruments(self) -> bool:
+        return "instruments" in self.data and self.data["instruments"] is not None
+
+    @property
+    def instruments(self) -> dict[str, Any]:
+        return self.data.get("instruments") or {}
+
+    def instrument_list(self, kind: str) -> list[dict[str, Any]]:
+        """``swaptions``, ``equity_options`` or ``inflation_caps`` as recorded (empty if none)."""
+        return list(self.instruments.get(kind) or [])
+
+    @property
+    def expected_short_rate(self) -> dict[str, Any]:
+        """The model's expected short rate under both measures (and the house-view target)."""
+        return self.data.get("expected_short_rate") or {}
+
+    @property
+    def equity_risk_premium(self) -> float | None:
+        """The real-world input ``real_world.equity_risk_premium``, if recorded."""
+        value = (self.inputs.get("real_world") or {}).get("equity_risk_premium")
+        return None if value is None else float(value)
+
+    # ------------------------------------------------------------------ parameters
+
+    @property
+    def curve(self) -> dict[str, Any]:
+        """Today's curve in its stored form (``market.serialize.curve_from_json`` reads it)."""
+        return self._need(self._need(self.data, "parameters"), "curve", "parameters")
+
+    @property
+    def stored_curve(self) -> dict[str, Any]:
+        """The stored curve, ``{}`` when the file has none (for views that show what exists)."""
+        return self.parameters.get("curve") or {}
+
+    @property
+    def rates_model(self) -> str:
+        """``hull_white`` or ``g2pp`` (a file that does not say holds Hull-White)."""
+        par = self.parameters
+        model = par.get("rates_model") or ("g2pp" if "g2pp" in par else "hull_white")
+        if model not in _RATES_MODELS:
+            raise ConfigError(f"{self.source}: parameters.rates_model {model!r} is not one of {_RATES_MODELS}")
+        return str(model)
+
+    @property
+    def has_rates(self) -> bool:
+        return "g2pp" in self.parameters or "hull_white" in self.parameters
+
+    @property
+    def hull_white(self) -> HullWhiteRecord | None:
+        hw = self.parameters.get("hull_white")
+        if hw is None:
+            return None
+        where = "parameters.hull_white"
+        return HullWhiteRecord(mean_reversion=float(self._need(hw, "mean_reversion", where)),
+                               volatility=float(self._need(hw, "volatility", where)))
+
+    @property
+    def g2pp(self) -> G2ppRecord | None:
+        g = self.parameters.get("g2pp")
+        if g is None:
+            return None
+        return G2ppRecord(**{k: float(self._need(g, k, "parameters.g2pp")) for k in ("a", "sigma", "b", "eta", "rho")})
+
+    @property
+    def rates_parameters(self) -> dict[str, Any]:
+        """The recorded rates section (``hull_white`` or ``g2pp``) as stored, ``{}`` if none."""
+        return self.parameters.get("g2pp") or self.parameters.get("hull_white") or {}
+
+    @property
+    def has_equity(self) -> bool:
+        return bool(self.parameters.get("equity"))
+
+    @property
+    def equity(self) -> EquityRecord:
+        eq = self._need(self._need(self.data, "parameters"), "equity", "parameters")
+        where = "parameters.equity"
+        factors = eq.get("correlation_with_rate_factors")
+        return EquityRecord(
+            name=str(self._need(eq, "name", where)),
+            level=float(self._need(eq, "level", where)),
+            dividend_yield=float(self._need(eq, "dividend_yield", where)),
+            volatility=self._need(eq, "volatility", where),
+            correlation_with_rates=float(self._need(eq, "correlation_with_rates", where)),
+            correlation_with_rate_factors=None if factors is None else tuple(float(v) for v in factors),
+        )
+
+    @property
+    def equity_name(self) -> str | None:
+        """The core equity's name, or ``None`` when the file records no equity."""
+        name = (self.parameters.get("equity") or {}).get("name")
+        return None if name is None else str(name)
+
+    @property
+    def market_prices_of_risk(self) -> dict[str, Any]:
+        return self.parameters.get("market_prices_of_risk") or {}
+
+    @property
+    def real_world_view(self) -> dict[str, Any]:
+        return self.parameters.get("real_world_view") or {}
+
+    # model parts: the nested object their owner in calibration/ wrote (None when absent)
+
+    @property
+    def indices(self) -> list[dict[str, Any]]:
+        return list(self.parameters.get("indices") or [])
+
+    @property
+    def inflation(self) -> dict[str, Any] | None:
+        return self.parameters.get("inflation")
+
+    @property
+    def credit(self) -> dict[str, Any] | None:
+        return self.parameters.get("credit")
+
+    @property
+    def stochastic_volatility(self) -> dict[str, Any]:
+        """Heston indices by name (``{}`` when none)."""
+        return self.parameters.get("stochastic_volatility") or {}
+
+    @property
+    def driver_correlation(self) -> dict[str, Any] | None:
+        return self.parameters.get("driver_correlation")
+
+    # ------------------------------------------------------------------ helpers
+
+    def _need(self, obj: Any, key: str, where: str = "") -> Any:
+        name = f"{where}.{key}" if where else key
+        if not isinstance(obj, Mapping):
+            raise ConfigError(f"{self.source}: {where or 'the file'} is not a JSON object")
+        if key not in obj or obj[key] is None:
+            raise ConfigError(f"{self.source}: not a pqflow calibration file (no {name})")
+        return obj[key]
+
+
+def calibration_path(run_dir: str | Path) -> Path:
+    """Where a run (or a sensitivity set) keeps its calibration record."""
+    return Path(run_dir) / CALIBRATION_FILE
+
+
+def calibration_record(data: Any, source: str | Path) -> CalibrationRecord:
+    """Check the version of a calibration record already read (``source`` names it in errors)."""
+    source = str(source)
+    if not isinstance(data, Mapping):
+        raise ConfigError(f"{source}: not a pqflow calibration file (not a JSON object)")
+    version = data.get(_VERSION_KEY, 1)
+    if isinstance(version, bool) or not isinstance(version, int) or version < 1:
+        raise ConfigError(f"{source}: {_VERSION_KEY} {version!r} is not a calibration file version")
+    if version > FORMAT_VERSION:
+        raise ConfigError(
+            f"{source}: calibration file format_version {version} is newer than this pqflow reads "
+            f"(up to {FORMAT_VERSION}); use the pqflow that wrote it or calibrate again"
+        )
+    return CalibrationRecord(source=source, format_version=version, data=dict(data))
+
+
+def read_calibration_file(path: str | Path) -> CalibrationRecord:
+    """Read ``calibration.json`` (a run directory's, or any path to one)."""
+    path = Path(path)
+    if path.is_dir():
+        path = calibration_path(path)
+    try:
+        data = read_json(path)
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: calibration file not found") from None
+    except ValueError as exc:  # json.JSONDecodeError, bad UTF-8
+        raise ConfigError(f"{path}: not a pqflow calibration file ({exc})") from None
+    return calibration_record(data, path)
+
+
+def calibration_document(
+    *,
+    pqflow_version: str,
+    valuation_date: str,
+    horizon_years: float,
+    inputs_sha256: str,
+    inputs: Mapping[str, Any],
+    parameters: Mapping[str, Any],
+    fit: Mapping[str, Any],
+    instruments: Mapping[str, Any],
+    expected_short_rate: Mapping[str, Any],
+) -> dict[str, Any]:
+    """The top level of a calibration record, in file order (``calibration/`` fills the
+    sections: ``parameters`` holds each model part's own form)."""
+    return {
+        "pqflow_version": pqflow_version,
+        "valuation_date": valuation_date,
+        "horizon_years": horizon_years,
+        "inputs_sha256": inputs_sha256,
+        "inputs": inputs,
+        "parameters": parameters,
+        "fit": fit,
+        "instruments": instruments,
+        "expected_short_rate": expected_short_rate,
+    }
+
+
+def calibration_content(content: Mapping[str, Any]) -> dict[str, Any]:
+    """What is written: ``format_version`` first, then ``content`` in its own key order."""
+    rest = {k: v for k, v in content.items() if k != _VERSION_KEY}
+    return {_VERSION_KEY: FORMAT_VERSION, **rest}
+
+
+def write_calibration_file(path: str | Path, content: Mapping[str, Any]) -> Path:
+    """Write a calibration record atomically to ``path`` (see :func:`calibration_path`)."""
+    return write_json_atomic(Path(path), calibration_content(content))
