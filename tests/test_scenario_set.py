@@ -82,3 +82,20 @@ def test_an_empty_set_names_its_folder(tmp_path):
     scan.add(["a"], lambda t, c: None)
     with pytest.raises(IntegrityError, match="no scenario parts"):
         scan.run()
+
+
+def test_the_manifest_uses_the_digest_taken_while_writing_only_while_the_size_holds(tmp_path, monkeypatch):
+    from pqflow.storage import manifest as manifest_mod
+
+    rng = np.random.default_rng(3)
+    table = batch_table({"x": rng.standard_normal((20, TIMES.size))}, TIMES, first_scenario=0, metadata={})
+    path, digest = write_part_hashed(table, tmp_path / "scenarios" / "real_world" / "part-00000.parquet")
+    rel = "scenarios/real_world/part-00000.parquet"
+    hashed = []
+    real = manifest_mod.file_sha256
+    monkeypatch.setattr(manifest_mod, "file_sha256", lambda p: hashed.append(p) or real(p))
+    entry = manifest_mod.build_manifest(tmp_path, header={}, known={rel: (digest, path.stat().st_size)})["files"][0]
+    assert entry["sha256"] == digest and hashed == []  # not read again
+    # a file whose size is not the size written is hashed afresh (here the record says otherwise)
+    entry = manifest_mod.build_manifest(tmp_path, header={}, known={rel: ("0" * 64, 10**9)})["files"][0]
+    assert len(hashed) == 1 and entry["sha256"] == hashlib.sha256(path.read_bytes()).hexdigest() == digest

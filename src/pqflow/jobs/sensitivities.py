@@ -92,7 +92,8 @@ def generate_sensitivity_part(
     record's path is relative to the run directory."""
     rec = generate_part(calibration, plan, measure, batch, sensitivity_dir(run_dir, name))
     return PartRecord(
-        measure=rec.measure, batch=rec.batch, path=f"{SENSITIVITY_DIR}/{name}/{rec.path}", rows=rec.rows, sha256=rec.sha256
+        measure=rec.measure, batch=rec.batch, path=f"{SENSITIVITY_DIR}/{name}/{rec.path}", rows=rec.rows,
+        sha256=rec.sha256, bytes=rec.bytes,
     )
 
 

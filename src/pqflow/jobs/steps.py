@@ -114,6 +114,10 @@ class PartRecord:
     path: str
     rows: int
     sha256: str
+    #: the size written, with ``sha256`` taken from the bytes as written (None: not known, e.g. a
+    #: part kept from an interrupted attempt); the manifest then trusts the digest while the
+    #: file keeps that size instead of reading the part again
+    bytes: int | None = None
 
 
 def run_density_blocks(config: RunConfig) -> tuple[DensityBlock, ...]:
@@ -274,6 +278,7 @@ def generate_part(
         path=path.relative_to(Path(run_dir)).as_posix(),
         rows=table.num_rows,
         sha256=sha256,
+        bytes=path.stat().st_size,
     )
 
 
@@ -369,7 +374,10 @@ def write_run_manifest(
     }
     if config.signoff is not None:  # names for the report's sign-off page
         header["signoff"] = config.signoff.model_dump(mode="json")
-    manifest = build_manifest(run_dir, header=header)
+    # a part's digest as its writer took it, trusted while the file keeps the size written (the
+    # staging folder is the run's own, under its lock); every other file is hashed
+    written = {rec.path: (rec.sha256, int(rec.bytes)) for rec in parts if rec.bytes is not None}
+    manifest = build_manifest(run_dir, header=header, known=written)
     by_path = {f["path"]: f for f in manifest["files"]}
     for rec in parts:
         entry = by_path.get(rec.path)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from pathlib import Path, PurePosixPath
 from typing import Any
 
@@ -26,24 +27,33 @@ DERIVED_VIEWS = frozenset({"validation/report.html"})
 VALUATION_DIR = "valuation/"
 
 
-def _entry(root: Path, path: Path) -> dict[str, Any]:
+def _entry(root: Path, path: Path, known: Mapping[str, tuple[str, int]]) -> dict[str, Any]:
     rel = path.relative_to(root).as_posix()
-    entry: dict[str, Any] = {"path": rel, "bytes": path.stat().st_size, "sha256": file_sha256(path)}
+    size = path.stat().st_size
+    digest, written = known.get(rel, ("", -1))
+    sha = digest if digest and written == size else file_sha256(path)
+    entry: dict[str, Any] = {"path": rel, "bytes": size, "sha256": sha}
     if path.suffix == ".parquet":
         entry["rows"] = pq.read_metadata(path).num_rows
     return entry
 
 
-def build_manifest(root: str | Path, *, header: dict[str, Any]) -> dict[str, Any]:
+def build_manifest(
+    root: str | Path, *, header: dict[str, Any], known: Mapping[str, tuple[str, int]] | None = None
+) -> dict[str, Any]:
     """Manifest of every file below ``root`` (the manifest itself and the derived views of
-    :data:`DERIVED_VIEWS` excepted)."""
+    :data:`DERIVED_VIEWS` excepted).
+
+    ``known``: path (relative to ``root``) -> ``(sha256, bytes)`` its writer took from the bytes
+    as it wrote them (:func:`pqflow.storage.parquet.write_part_hashed`); such a file is not read
+    again when its size is still the size written. Every other file is hashed here."""
     root = Path(root)
     files = sorted(
         p for p in root.rglob("*")
         if p.is_file() and p.name != MANIFEST and not p.name.startswith(".")
         and p.relative_to(root).as_posix() not in DERIVED_VIEWS
     )
-    return {**header, "files": [_entry(root, p) for p in files]}
+    return {**header, "files": [_entry(root, p, known or {}) for p in files]}
 
 
 def _entry_problem(root: Path, index: int, entry: Any) -> str | None:

@@ -173,7 +173,7 @@ def martingale_steps(
     antithetic = reader.antithetic
 
     acc: dict[str, CellMoments | None] = {a.name: None for a in assets}
-    seen: list[np.ndarray] = []
+    last_times: list[np.ndarray] = []
 
     def feed(times: np.ndarray, cols: dict[str, np.ndarray]) -> None:
         for a in assets:
@@ -188,12 +188,12 @@ def martingale_steps(
             acc[a.name] = m if prev is None else prev.merge(m)
         for e in indices:
             start.setdefault(e, float(cols[e][0, 0]))
-        seen[:] = [times]
+        last_times[:] = [times]
 
     scan.add(needed, feed)
     yield
-    assert seen
-    times = seen[0]
+    assert last_times
+    times = last_times[0]
 
     rows = []
     for a in assets:

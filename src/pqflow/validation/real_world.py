@@ -313,6 +313,10 @@ def _premium_row(label: str, t: float, expected: float, excess, total, cash, k: 
     }
 
 
+def _zero_yield(column: str, maturity: float):
+    return lambda t, c: {"y": -np.log(c[column]) / maturity}
+
+
 def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False) -> CheckResult:
     """Targets (z-score cells), benchmark and report tables of the real-world set."""
     passes = set_passes(inputs)
@@ -352,8 +356,7 @@ def real_world_steps(
     y_col = bond_column(float(maturity)) if view.get("target") == "zero_yield" and maturity else None
     yields = None
     if y_col is not None and y_col in names and target.get("real_world"):
-        m_y = float(maturity)
-        yields = add_moments(scan, [y_col], lambda t, c: {"y": -np.log(c[y_col]) / m_y})
+        yields = add_moments(scan, [y_col], _zero_yield(y_col, float(maturity)))
     statistics = real_world_statistics_steps(inputs, passes)
     next(statistics)
     horizons = sorted({h for by_h in AAA_2005_WEALTH_RATIOS.values() for h in by_h})
@@ -384,7 +387,7 @@ def real_world_steps(
         house_fit = {"quantity": target.get("quantity"), "max_abs_gap_bp": float(gap.max() / 1e-4),
                      "note": "the model's real-world expectation against the house-view path (no sampling error)"}
     maturity = view.get("target_maturity")
-    if yields is not None:
+    if yields is not None and maturity:
         m = float(maturity)
         yt, yacc = yields()
         for t, value in zip(target.get("time", []), target["real_world"]):
