@@ -208,7 +208,7 @@ def task_runner_for(runner: str, *, workers: int, dask_address: str | None = Non
 
 
 #: What a part's task imports on a fresh Dask worker (seconds of work at its first task).
-_WORKER_MODULES = ("pipeline.flows", "prefect.task_engine", "prefect_dask.task_runners", "pqflow.jobs.steps",
+_WORKER_MODULES = ("pqflow.pipeline.flows", "prefect.task_engine", "prefect_dask.task_runners", "pqflow.jobs.steps",
                    "pqflow.simulation.engine", "pyarrow.parquet", "scipy.stats")
 
 
