@@ -489,8 +489,9 @@ def bench_heston(tmp: Path) -> dict[str, Any]:
         spec = HestonIndex(name="heston_bench", column="equity_heston_bench", level=1000.0, income_yield=0.028, params=p,
                            prices_of_risk=lam, loadings=(("rates", rho_r),), explained=rho_r**2, rates_correlation=rho_r,
                            substeps_per_year=sub)
-        base = _best(lambda: simulate_part(model, times, measure="real_world", n_paths=n, seed=1, batch=0, antithetic=False), 3)
-        with_h = _best(lambda: simulate_part(model, times, measure="real_world", n_paths=n, seed=1, batch=0, antithetic=False,
+        base = _best(lambda times=times: simulate_part(model, times, measure="real_world", n_paths=n, seed=1, batch=0,
+                                                      antithetic=False), 3)
+        with_h = _best(lambda times=times, spec=spec: simulate_part(model, times, measure="real_world", n_paths=n, seed=1, batch=0, antithetic=False,
                                              heston=(spec,)), 3)
         det_index = base / ps
         heston = (with_h - base) / ps

@@ -229,7 +229,7 @@ def test_signals_end_the_run_promptly_and_take_the_server_along(tmp_path, demo_c
     try:
         servers = {}
         deadline = time.monotonic() + 300  # two server starts at once on a loaded machine
-        for name, (proc, sig, out) in runs.items():
+        for name, (proc, _sig, _out) in runs.items():
             progress = tmp_path / f".{name}.staging" / ".progress.jsonl"
             while time.monotonic() < deadline:  # a part recorded: server up, parts in flight
                 if progress.exists() and len(progress.read_text().splitlines()) >= 2:
@@ -239,7 +239,7 @@ def test_signals_end_the_run_promptly_and_take_the_server_along(tmp_path, demo_c
             servers[name] = [k for k in _children(proc.pid) if "uvicorn" in Path(f"/proc/{k}/cmdline").read_text()]
             assert len(servers[name]) == 1, name
         sent = {}
-        for name, (proc, sig, out) in runs.items():
+        for name, (proc, sig, _out) in runs.items():
             if sig == signal.SIGINT:
                 os.killpg(proc.pid, sig)  # what Ctrl-C in a terminal does
             else:

@@ -145,7 +145,7 @@ def _exact_cov(t0: float, t1: float) -> np.ndarray:
     cov = np.empty((4, 4))
     for i in range(4):
         for j in range(i, 4):
-            cov[i, j] = cov[j, i] = _q(lambda s: _loadings(t1, s)[i] @ CORR @ _loadings(t1, s)[j], t0, t1)
+            cov[i, j] = cov[j, i] = _q(lambda s, i=i, j=j: _loadings(t1, s)[i] @ CORR @ _loadings(t1, s)[j], t0, t1)
     return cov
 
 

@@ -350,7 +350,6 @@ def test_a_variance_mixture_is_judged_by_the_robust_t(report_statistic):
     assert rule_for_asset("equity_x", measure="market_consistent", credit_density=False,
                           non_lognormal={"equity_x"}) == ROBUST
     rng = np.random.default_rng(20261206)
-    crit = family_critical_z(CELLS)
     rates = {}
     for rule in (LOGNORMAL, ROBUST):
         alarms = []

@@ -105,9 +105,12 @@ def instrument_section(run_dir: Path) -> dict[str, Any]:
         fwd = float((curve.discount(expiry) - curve.discount(pay[-1])) / annuity)
         price = jamshidian_payer(curve, hw, expiry, tenor, fwd)
         if convention == "normal":
-            vol = _implied(lambda v: _bachelier(fwd, fwd, v, expiry, annuity), price)
+            vol = _implied(lambda v, fwd=fwd, expiry=expiry, annuity=annuity: _bachelier(fwd, fwd, v, expiry, annuity), price)
         else:
-            vol = _implied(lambda v: _black(fwd, fwd, v, expiry, annuity, shift), price)
+            vol = _implied(
+                lambda v, fwd=fwd, expiry=expiry, annuity=annuity, shift=shift: _black(fwd, fwd, v, expiry, annuity, shift),
+                price,
+            )
         swaptions.append({"expiry": expiry, "tenor": float(tenor), "strike": fwd, "convention": convention,
                           "shift": shift, "market_vol": vol, "market_price": price, "model_price": price,
                           "weight": 1.0})
@@ -121,7 +124,7 @@ def instrument_section(run_dir: Path) -> dict[str, Any]:
         price = equity_option_price(curve, hw, params, expiry=expiry, strike=fwd, kind=kind)
         # At the money forward a call and a put are worth the same (put-call parity), so the
         # call formula inverts either.
-        vol = _implied(lambda v: _black(fwd, fwd, v, expiry, df), price)
+        vol = _implied(lambda v, fwd=fwd, expiry=expiry, df=df: _black(fwd, fwd, v, expiry, df), price)
         options.append({"index": eq["name"], "expiry": expiry, "strike": fwd, "kind": kind,
                         "market_vol": vol, "market_price": price, "model_price": price})
     return {"swaptions": swaptions, "equity_options": options}

@@ -69,7 +69,8 @@ def density_table(reader: ScenarioSetReader, *, credit_density: bool = False) ->
     largest: dict[str, np.ndarray] = {}
     n_paths = 0
     times = None
-    for times, cols in reader.iter_arrays(columns):
+    for batch_times, cols in reader.iter_arrays(columns):
+        times = batch_times
         for c in columns:
             w = cols[c]
             m = CellMoments.of(w, antithetic, acc[c].shift if c in acc else None)

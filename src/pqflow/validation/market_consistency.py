@@ -402,7 +402,10 @@ def market_consistency_table(
         needed = ["deflator", *dict.fromkeys(c for s in testable for c in s.column_names)]
         antithetic = reader.antithetic
 
-        def derive(t: np.ndarray, c: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+        def derive(
+            t: np.ndarray, c: dict[str, np.ndarray],
+            testable: list[InstrumentSpec] = testable, antithetic: bool = antithetic,
+        ) -> dict[str, np.ndarray]:
             v = _payoffs(testable, t, c)
             paying = (v != 0.0).astype(float)
             if antithetic:  # a pair pays when either path does: its unit mean is then exactly 1

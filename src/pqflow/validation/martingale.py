@@ -148,7 +148,8 @@ def martingale_table(
 
     acc: dict[str, CellMoments | None] = {a.name: None for a in assets}
     times = None
-    for times, cols in reader.iter_arrays(needed):
+    for batch_times, cols in reader.iter_arrays(needed):
+        times = batch_times
         for a in assets:
             factors = weights[a.name]
             if factors:

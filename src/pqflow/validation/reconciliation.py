@@ -230,7 +230,9 @@ def expected_returns_table(inputs: RunInputs, horizons: tuple[float, ...] = RETU
         assets = ["cash_account", *relative, *bonds]
         times, acc = stream_moments(
             reader, assets,
-            lambda t, c: {a: c[a] / (c[a][:, :1] if a in relative else 1.0) for a in assets},
+            lambda t, c, relative=relative, assets=assets: {
+                a: c[a] / (c[a][:, :1] if a in relative else 1.0) for a in assets
+            },
         )
         values: dict[tuple[str, float], tuple[float, float]] = {}
         for h in horizons:
