@@ -113,7 +113,7 @@ def _table(title: str, header: list[str], rows: list[list[Any]]) -> None:
     widths = [max(len(r[i]) for r in cells) for i in range(len(header))]
     print(f"\n{title}")
     for k, r in enumerate(cells):
-        print("  " + "  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths))))
+        print("  " + "  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths, strict=True))))
         if k == 0:
             print("  " + "  ".join("-" * w for w in widths))
 

@@ -318,7 +318,7 @@ def _settle(futures: list[Any], timeout: float = 60.0) -> None:
     deadline = time.monotonic() + timeout
     local = [w for w in inner if isinstance(w, concurrent.futures.Future)]
     concurrent.futures.wait(local, timeout=timeout)
-    for f, w in zip(futures, inner):
+    for f, w in zip(futures, inner, strict=True):
         if not isinstance(w, concurrent.futures.Future):
             try:
                 f.wait(timeout=max(0.0, deadline - time.monotonic()))

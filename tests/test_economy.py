@@ -194,7 +194,7 @@ def test_several_indices_each_price_and_reweight_consistently():
     times = np.linspace(0.0, 10.0, 41)
     mean = model.initial_state()
     cov = np.zeros((mean.size, mean.size))
-    for t0, t1 in zip(times[:-1], times[1:]):
+    for t0, t1 in zip(times[:-1], times[1:], strict=True):
         law = model.step_law(t0, t1)
         mean = law.transition @ mean + law.drift
         cov = law.transition @ cov @ law.transition.T + law.chol @ law.chol.T

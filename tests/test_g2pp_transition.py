@@ -90,7 +90,7 @@ def _model(bond_maturities=(1.0, 10.0)) -> G2PlusPlusEquityModel:
 def _q(fn, lo: float, hi: float) -> float:
     """quad split at the schedules' knots."""
     cuts = [lo, *[k for k in KNOTS if lo < k < hi], hi]
-    return sum(quad(fn, u0, u1, epsabs=0.0, epsrel=1e-13, limit=200)[0] for u0, u1 in zip(cuts, cuts[1:]))
+    return sum(quad(fn, u0, u1, epsabs=0.0, epsrel=1e-13, limit=200)[0] for u0, u1 in zip(cuts, cuts[1:], strict=False))
 
 
 def _ba(u: float) -> float:

@@ -237,7 +237,7 @@ def test_risk_premium_false_alarms_before_and_after(report_statistic):
     after = np.zeros(reps, dtype=bool)
     low_before = low_after = 0
     chunk = 50
-    for rp, sig in zip(premia, vols):
+    for rp, sig in zip(premia, vols, strict=True):
         for r0 in range(0, reps, chunk):
             w = np.cumsum(rng.standard_normal((pairs, chunk, times.size)), axis=2)  # W at whole years
             w = np.stack([w, -w], axis=1).reshape(2 * pairs, chunk * times.size)

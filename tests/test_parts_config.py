@@ -75,7 +75,7 @@ def test_full_balance_sheet_calibrates_and_reprices_its_inputs(tmp_path, full):
     # beyond the last quote the breakeven is held flat (common practice)
     assert zciis_rate(cal.curve, cal.inflation.real_curve, np.array([45.0, 80.0])) == pytest.approx([0.0218] * 2, abs=1e-12)
     # every spread repriced by the CIR++ shift (Brigo and Mercurio 2006, ch. 3.9; exact fit)
-    for rating, spec in zip(cal.credit.ratings, CREDIT["ratings"]):
+    for rating, spec in zip(cal.credit.ratings, CREDIT["ratings"], strict=True):
         mats = np.array(spec["spread_maturities"], float)
         model = zero_spread(rating, 0.0, mats, rating.cir.initial)
         assert np.max(np.abs(model - np.array(spec["spreads_bp"]) * 1e-4)) < 1e-12
@@ -98,7 +98,7 @@ def test_the_calibration_record_rebuilds_every_part(tmp_path, full):
     assert again.to_json() == cal.to_json()
     times = np.linspace(0.0, 10.0, 11)
     a, b = build_model(cal, (5.0,)), build_model(again, (5.0,))
-    for t0, t1 in zip(times[:-1], times[1:]):
+    for t0, t1 in zip(times[:-1], times[1:], strict=True):
         la, lb = a.step_law(t0, t1), b.step_law(t0, t1)
         assert np.array_equal(la.chol, lb.chol) and np.array_equal(la.drift, lb.drift)
         assert np.array_equal(la.real_world_shift, lb.real_world_shift)

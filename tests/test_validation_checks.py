@@ -69,7 +69,7 @@ def jamshidian_payer(curve, hw: HullWhiteParams, expiry: float, tenor: int, stri
     x_star = brentq(excess, -1.0, 1.0, xtol=1e-14)
     strikes = zcb_price(curve, hw, expiry, times - expiry, x_star)
     return float(sum(c * zero_bond_option(curve, hw, expiry=expiry, bond_maturity=float(t), strike=float(k), kind="put")
-                     for c, t, k in zip(coupons, times, strikes)))
+                     for c, t, k in zip(coupons, times, strikes, strict=True)))
 
 
 def _bachelier(f: float, k: float, vol: float, t: float, annuity: float) -> float:
@@ -446,7 +446,7 @@ def test_real_world_martingale_cells_use_the_smallest_density_block(good_run, tm
     A rates block whose weights are 5% too high everywhere after time 0 fails the real-world
     martingale check (the lognormal identity judges these cells)."""
     table = run_checks(good_run, ess_warning_share=0.10).martingale["real_world"]
-    weight = dict(zip(table.asset, table.weight))
+    weight = dict(zip(table.asset, table.weight, strict=True))
     assert weight["deflator"] == "deflator"
     assert weight["zcb_10y"] == "q_density_rates / cash_account"
     assert weight["equity_veldmark_all_share"] == "q_density_rates_veldmark_all_share / cash_account"

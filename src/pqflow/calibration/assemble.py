@@ -735,7 +735,7 @@ def _rates_prices_of_risk(
     sched = as_schedule(lam)
     return {
         name: PiecewiseConstant(knots=sched.knots, values=tuple(wi * v for v in sched.values))
-        for name, wi in zip(RATES_DRIVERS["g2pp"], w)
+        for name, wi in zip(RATES_DRIVERS["g2pp"], w, strict=True)
     }
 
 
@@ -778,5 +778,5 @@ def _implied_price_of_risk(
     beta = np.linalg.solve(corr.matrix[np.ix_(others, others)], corr.matrix[others, i])
     scheds = [as_schedule(lams.get(names[j], 0.0)) for j in others]
     knots = sorted({k for s in scheds for k in s.knots})
-    values = [float(sum(b * float(s(k)) for b, s in zip(beta, scheds))) for k in knots]
+    values = [float(sum(b * float(s(k)) for b, s in zip(beta, scheds, strict=True))) for k in knots]
     return PiecewiseConstant(knots=tuple(knots), values=tuple(values))

@@ -67,7 +67,7 @@ def projection(name: str, correlation, recoverable: tuple[str, ...], path_hint: 
             f"built from the drivers whose increments the economy gives ({', '.join(names[j] for j in g) or 'none'}) "
             f"and an independent part, so its correlation with any other driver is implied by those; set {want}"
         )
-    return tuple((names[j], float(b)) for j, b in zip(g, beta) if b != 0.0), explained
+    return tuple((names[j], float(b)) for j, b in zip(g, beta, strict=True) if b != 0.0), explained
 
 
 def fit_heston_indices(

@@ -147,7 +147,7 @@ def real_curve_from_zc_inflation_swaps(
             maturity=float(ti), market_rate=float(ki), model_rate=float(mi), difference_bp=float(di),
             nominal_discount_factor=float(pn), real_discount_factor=float(pr),
         )
-        for ti, ki, mi, di, pn, pr in zip(t, k, model, diff, p_n, curve.discount(t))
+        for ti, ki, mi, di, pn, pr in zip(t, k, model, diff, p_n, curve.discount(t), strict=True)
     )
     return RealCurveFit(curve=curve, rows=rows, max_abs_difference_bp=float(np.max(np.abs(diff))))
 
@@ -332,7 +332,7 @@ class InflationFitReport:
 
 
 def _with(params: JarrowYildirimParams, names: tuple[str, ...], theta: np.ndarray) -> JarrowYildirimParams:
-    values = dict(zip(names, (float(v) for v in theta)))
+    values = dict(zip(names, (float(v) for v in theta), strict=True))
     real = params.real
     if "real_mean_reversion" in values or "real_volatility" in values:
         real = HullWhiteParams(
@@ -429,7 +429,7 @@ def calibrate_jarrow_yildirim(
     prices = model_prices(params)
     rows = []
     vol_diffs = []
-    for q, mp, p in zip(quotes, market, prices):
+    for q, mp, p in zip(quotes, market, prices, strict=True):
         model_vol = vol_diff = None
         if q.vol is not None:
             model_vol = _implied_flat_vol(nominal_curve, q, float(p))
@@ -448,7 +448,7 @@ def calibrate_jarrow_yildirim(
         price_rmse_bp=float(np.sqrt(np.mean(((prices - market) / _BP) ** 2))),
         vol_rmse_bp=float(np.sqrt(np.mean(np.square(vol_diffs)))) if vol_diffs else None,
         fitted=names,
-        at_bound=tuple(n for n, m in zip(names, result.active_mask) if m != 0),
+        at_bound=tuple(n for n, m in zip(names, result.active_mask, strict=True) if m != 0),
         success=bool(result.success),
         status=int(result.status),
         message=str(result.message),

@@ -403,7 +403,7 @@ def calibrate_inflation(
         mats, zc, source = np.array([r.maturity for r in rows]), np.array([r.rate for r in rows]), str(path)
     try:
         quoted = real_curve_from_zc_inflation_swaps(
-            curve, [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k)) for t, k in zip(mats, zc)]
+            curve, [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k)) for t, k in zip(mats, zc, strict=True)]
         )
     except MarketDataError as exc:
         raise MarketDataError(f"{source}: {exc}") from None
@@ -507,7 +507,7 @@ def calibrate_credit_part(config: RunConfig) -> tuple[CirCreditModel, dict[str, 
     fits = {r.name: tuple(r.fit) for r in sec.ratings}
     reports = []
     ratings = []
-    for r, c in zip(sec.ratings, curves):
+    for r, c in zip(sec.ratings, curves, strict=True):
         cal = calibrate_credit(
             [c],
             cir={r.name: CirParams(mean_reversion=r.mean_reversion, long_run_mean=r.long_run_mean,

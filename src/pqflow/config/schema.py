@@ -108,7 +108,7 @@ class CurveSection(_Section):
             )
         if any(m <= 0 for m in self.maturities):
             raise ValueError("maturities must be positive")
-        if any(b <= a for a, b in zip(self.maturities, self.maturities[1:])):
+        if any(b <= a for a, b in zip(self.maturities, self.maturities[1:], strict=False)):
             raise ValueError("maturities must be strictly increasing")
         if self.kind == "discount_factors" and any(v <= 0 for v in self.values):
             raise ValueError("discount factors must be positive")
@@ -447,7 +447,7 @@ class HestonFitSection(_Section):
         upper = tuple(getattr(self, f"{n}_bounds")[1] for n in names)
         initial = tuple(
             self.initial.get(n, min(max(defaults[n], lo), hi))  # type: ignore[call-overload]
-            for n, lo, hi in zip(names, lower, upper)
+            for n, lo, hi in zip(names, lower, upper, strict=True)
         )
         return lower, upper, initial
 

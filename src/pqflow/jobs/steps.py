@@ -249,7 +249,7 @@ def generate_part(
     )
     units[DENSITY_COLUMN[measure]] = "density on the grid up to time (dimensionless, mean 1)"
     blocks = [density_block_column(measure, b.name) for b in plan.density_blocks]
-    for b, column in zip(plan.density_blocks, blocks):
+    for b, column in zip(plan.density_blocks, blocks, strict=True):
         units[column] = (
             f"density restricted to the states of drivers {', '.join(b.drivers)}, on the grid up to time "
             "(dimensionless, mean 1)"

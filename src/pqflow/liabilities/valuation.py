@@ -314,7 +314,7 @@ def portfolio_reads(portfolio: Portfolio, info: RunInfo, equity_col: str | None,
         used = np.any(interp.weights(sorted(set(targets))) != 0.0, axis=0)
         if np.any(used):
             bond_cols = [info.bond_columns[m] for m in info.bond_maturities]
-            read_bonds = [c for c, u in zip(bond_cols, used) if u]
+            read_bonds = [c for c, u in zip(bond_cols, used, strict=True) if u]
     columns = ["deflator"]
     if "cash_account" in kinds or with_cash:
         columns.append("cash_account")

@@ -268,7 +268,7 @@ class EconomyModel:
             self._integrated_variance(t1) - self._integrated_variance(t0)
         )
         rates_step = RatesStep(b_rows=b_rows, int_phi=int_phi)
-        for part, rows in zip(self.parts, self._part_slices()):
+        for part, rows in zip(self.parts, self._part_slices(), strict=True):
             to_factors, own, part_drift = part.step_rows(times, rates_step, self._pair)
             transition[:, rows, :n_f] = to_factors
             transition[:, rows, rows] = own
@@ -336,7 +336,7 @@ class EconomyModel:
             np.exp(prices, out=prices)
             for i, (name, _) in enumerate(chosen):
                 out[name] = prices[i]
-        for part, rows in zip(self.parts, self._part_slices()):
+        for part, rows in zip(self.parts, self._part_slices(), strict=True):
             out.update(part.columns(times, states[:, :, rows], wanted))
         return {c: out[c] for c in wanted}
 

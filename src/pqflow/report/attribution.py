@@ -182,13 +182,13 @@ def attribution_rows(
     """
     from pqflow.liabilities.paired import paired_difference
 
-    labels = [lab for lab, lev in zip(units[0].labels, units[0].levels) if lev in ("product", "total")]
+    labels = [lab for lab, lev in zip(units[0].labels, units[0].levels, strict=True) if lev in ("product", "total")]
     idx = [units[0].labels.index(lab) for lab in labels]
     rows = []
     be0 = units[0].mean()[:, 0]
     for k in range(1, len(units)):
         d, se, paired = paired_difference(units[k - 1], units[k])
-        for g, lab in zip(idx, labels):
+        for g, lab in zip(idx, labels, strict=True):
             d_ce = ce[k][lab] - ce[k - 1][lab]
             rows.append({"step": k, "name": steps[k][0], "title": steps[k][1], "line": lab,
                          "best_estimate_change": float(d[g, 0]), "best_estimate_se": float(se[g, 0]),
@@ -197,7 +197,7 @@ def attribution_rows(
                          "paired": paired})
     be_last = units[-1].mean()[:, 0]
     totals = {}
-    for g, lab in zip(idx, labels):
+    for g, lab in zip(idx, labels, strict=True):
         total = float(be_last[g] - be0[g])
         tvog_total = float((be_last[g] - ce[-1][lab]) - (be0[g] - ce[0][lab]))
         steps_sum = float(sum(r["best_estimate_change"] for r in rows if r["line"] == lab))

@@ -571,7 +571,7 @@ def _sched_text(v: Any, show: Callable[[Any], str]) -> str:
         if not vals:
             return fmt.DASH
         if len(vals) <= 6:
-            return ", ".join(f"{show(x)} from {fmt.years(k)}y" for k, x in zip(v["knots"], vals))
+            return ", ".join(f"{show(x)} from {fmt.years(k)}y" for k, x in zip(v["knots"], vals, strict=True))
         return (f"{show(vals[0])} at 0y to {show(vals[-1])} at {float(v['knots'][-1]):.0f}y "
                 f"({len(vals)} pieces between {show(min(vals))} and {show(max(vals))})")
     return show(v)
@@ -849,7 +849,7 @@ def _fan_data(run_dir: Path) -> tuple[list[_Driver], dict[str, dict[str, Any]]]:
         item: dict[str, Any] = {"times": times, "quantities": {}}
         for d in mine:
             x = d.transform(values)
-            item["quantities"][d.label] = dict(zip(_PCTS, np.percentile(x, _PCTS, axis=0)))
+            item["quantities"][d.label] = dict(zip(_PCTS, np.percentile(x, _PCTS, axis=0), strict=True))
         data[measure] = item
     return drivers or [], data
 

@@ -149,13 +149,13 @@ def _svg(parts: list[str], title: str, width: int = _W, height: int = _H, data: 
 
 
 def _path(frame: _Frame, x: Sequence[float], y: Sequence[float]) -> str:
-    pts = [(frame.px(float(a)), frame.py(float(b))) for a, b in zip(x, y) if math.isfinite(float(b))]
+    pts = [(frame.px(float(a)), frame.py(float(b))) for a, b in zip(x, y, strict=True) if math.isfinite(float(b))]
     return " ".join(("M" if i == 0 else "L") + f"{a:.1f},{b:.1f}" for i, (a, b) in enumerate(pts))
 
 
 def _polygon(frame: _Frame, x: Sequence[float], lo: Sequence[float], hi: Sequence[float]) -> str:
-    up = [f"{frame.px(float(a)):.1f},{frame.py(float(b)):.1f}" for a, b in zip(x, hi)]
-    dn = [f"{frame.px(float(a)):.1f},{frame.py(float(b)):.1f}" for a, b in zip(x, lo)][::-1]
+    up = [f"{frame.px(float(a)):.1f},{frame.py(float(b)):.1f}" for a, b in zip(x, hi, strict=True)]
+    dn = [f"{frame.px(float(a)):.1f},{frame.py(float(b)):.1f}" for a, b in zip(x, lo, strict=True)][::-1]
     return " ".join(up + dn)
 
 
@@ -298,7 +298,7 @@ def bar_chart(
     zero = f.py(0.0)
     parts.append(f'<line x1="{f.pl}" x2="{f.pr}" y1="{zero:.1f}" y2="{zero:.1f}" stroke="#666"/>')
     slot = (f.pr - f.pl) / n
-    for i, (v, e, label) in enumerate(zip(vals, errs, labels)):
+    for i, (v, e, label) in enumerate(zip(vals, errs, labels, strict=True)):
         x = f.pl + i * slot + slot * 0.15
         w = slot * 0.7
         top, bottom = sorted((f.py(v), zero))
@@ -333,8 +333,8 @@ def waterfall_chart(
     for d in vals:
         running.append(running[-1] + d)
     errs = [float(e) for e in errors] if errors is not None else [0.0] * len(vals)
-    lo = min(running + [r - e for r, e in zip(running[1:], errs)])
-    hi = max(running + [r + e for r, e in zip(running[1:], errs)])
+    lo = min(running + [r - e for r, e in zip(running[1:], errs, strict=True)])
+    hi = max(running + [r + e for r, e in zip(running[1:], errs, strict=True)])
     pad = 0.15 * (hi - lo or abs(hi) or 1.0)
     n = len(vals) + 2
     height = _H + 60

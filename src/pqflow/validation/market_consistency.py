@@ -289,7 +289,7 @@ def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.
             w = 1.0 if s.option == "cap" else -1.0
             ks = [time_index(times, float(i)) for i in range(int(round(s.expiry)) + 1)]
             total = np.zeros(deflator.shape[0])
-            for k0, k1 in zip(ks[:-1], ks[1:]):
+            for k0, k1 in zip(ks[:-1], ks[1:], strict=True):
                 assert k0 is not None and k1 is not None
                 total += deflator[:, k1] * np.maximum(w * (cpi[:, k1] / cpi[:, k0] - 1.0 - s.strike), 0.0)
             out[:, j] = total

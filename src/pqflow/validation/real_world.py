@@ -197,7 +197,7 @@ def real_world_statistics(inputs: RunInputs) -> tuple[pd.DataFrame, pd.DataFrame
             for q_name, values in quantities.items():
                 v = values[:, k]
                 row = {"measure": measure, "quantity": q_name, "horizon": h, "mean": float(v.mean())}
-                for p, x in zip(PERCENTILES, np.percentile(v, PERCENTILES)):
+                for p, x in zip(PERCENTILES, np.percentile(v, PERCENTILES), strict=True):
                     row[f"p{p:g}"] = float(x)
                 pct_rows.append(row)
     return pd.DataFrame(stats_rows), pd.DataFrame(pct_rows)
@@ -311,7 +311,7 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
     target_rows = []
     esr = inputs.calibration.get("expected_short_rate") or {}
     skipped = []
-    for t, target in zip(esr.get("time", []) or [], esr.get("real_world", []) or []):
+    for t, target in zip(esr.get("time", []) or [], esr.get("real_world", []) or [], strict=True):
         k = time_index(times, float(t))
         if k == 0:
             continue
@@ -333,7 +333,7 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
     if y_col is not None and y_col in names and target.get("real_world"):
         m = float(maturity)
         yt, yacc = stream_moments(reader, [y_col], lambda t, c: {"y": -np.log(c[y_col]) / m})
-        for t, value in zip(target.get("time", []), target["real_world"]):
+        for t, value in zip(target.get("time", []), target["real_world"], strict=True):
             k = time_index(yt, float(t))
             if k is None or k == 0:
                 continue
