@@ -191,7 +191,8 @@ def _attempt(
     acquire_lock(lock, target=target.text)
     try:
         state = prepare_staging(
-            where, overwrite=overwrite, resume=resume, fingerprint=_fingerprint(config, calibration_file), staging=staging
+            where, overwrite=overwrite, resume=resume, fingerprint=_fingerprint(config, calibration_file),
+            staging=staging
         )
         kept = {
             (r["measure"], int(r["batch"])): PartRecord(
@@ -208,7 +209,8 @@ def _attempt(
         release_lock(lock)
 
 
-def _generate_and_record(calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, staging: str) -> PartRecord:
+def _generate_and_record(calibration: Calibration, plan: RunPlan, measure: str, batch: Batch,
+                         staging: str) -> PartRecord:
     """Generate one part and record it in the progress file as soon as it is in place, where it
     was generated: a part finished while the caller is interrupted is then still kept by a
     resumed run (recording from the caller's loop lost every part finished after it stopped
@@ -290,7 +292,8 @@ def quarterly_run(
                     ui.advance()
                 sens_parts = [f.result() for f in sens_futures]
             except BaseException:
-                _settle([*futures, *sens_futures, *sens_cals.values()])  # no part may still be written once the staging folder goes
+                _settle([*futures, *sens_futures,
+                         *sens_cals.values()])  # no part may still be written once the staging folder goes
                 raise
         checks = {s.name: validate_sensitivity_task.submit(att.staging, s, config) for s in config.sensitivities}
         with stage_reporter("validating the written files", show_progress):

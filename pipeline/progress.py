@@ -16,7 +16,8 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from typing import TextIO
 
-__all__ = ["LineProgress", "StageLines", "ArtifactProgress", "progress_reporter", "stage_reporter", "format_seconds", "PROGRESS_INTERVAL_SECONDS"]
+__all__ = ["LineProgress", "StageLines", "ArtifactProgress", "progress_reporter", "stage_reporter", "format_seconds",
+           "PROGRESS_INTERVAL_SECONDS"]
 
 PROGRESS_INTERVAL_SECONDS = 5.0
 

@@ -119,7 +119,8 @@ def _model(params: JarrowYildirimParams = PARAMS) -> JarrowYildirimModel:
 def _q(fn, lo: float, hi: float) -> float:
     """quad split at the schedules' knots."""
     cuts = [lo, *[k for k in KNOTS if lo < k < hi], hi]
-    return sum(quad(fn, u0, u1, epsabs=1e-15, epsrel=1e-12, limit=200)[0] for u0, u1 in zip(cuts, cuts[1:], strict=False))
+    return sum(quad(fn, u0, u1, epsabs=1e-15, epsrel=1e-12, limit=200)[0] for u0, u1 in zip(cuts, cuts[1:],
+                                                                                            strict=False))
 
 
 def _bn(u: float) -> float:

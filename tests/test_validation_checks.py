@@ -105,10 +105,12 @@ def instrument_section(run_dir: Path) -> dict[str, Any]:
         fwd = float((curve.discount(expiry) - curve.discount(pay[-1])) / annuity)
         price = jamshidian_payer(curve, hw, expiry, tenor, fwd)
         if convention == "normal":
-            vol = _implied(lambda v, fwd=fwd, expiry=expiry, annuity=annuity: _bachelier(fwd, fwd, v, expiry, annuity), price)
+            vol = _implied(lambda v, fwd=fwd, expiry=expiry, annuity=annuity: _bachelier(fwd, fwd, v, expiry, annuity),
+                           price)
         else:
             vol = _implied(
-                lambda v, fwd=fwd, expiry=expiry, annuity=annuity, shift=shift: _black(fwd, fwd, v, expiry, annuity, shift),
+                lambda v, fwd=fwd, expiry=expiry, annuity=annuity, shift=shift: _black(fwd, fwd, v, expiry, annuity,
+                                                                                       shift),
                 price,
             )
         swaptions.append({"expiry": expiry, "tenor": float(tenor), "strike": fwd, "convention": convention,
@@ -418,7 +420,8 @@ def _lognormal_wealth(monthly_mean: float, monthly_sd: float, n: int, seed: int)
 
 def test_wealth_benchmark_fails_the_fitted_lognormal_and_passes_the_adjusted_one():
     # American Academy of Actuaries (2005): a lognormal with monthly mean 0.008356 and s.d.
-    # 0.042558 fails the criteria, 0.006667 / 0.050518 passes (the American Academy of Actuaries' 2005 report, from memory).
+    # 0.042558 fails the criteria, 0.006667 / 0.050518 passes (the American Academy of Actuaries'
+    # 2005 report, from memory).
     _, fitted = wealth_ratio_benchmark(_lognormal_wealth(0.008356, 0.042558, 40_000, 1))
     assert fitted["verdict"] == "fail"
     assert any(c["percentile"] < 0.5 for c in fitted["failed_cells"])  # its left tail is too thin

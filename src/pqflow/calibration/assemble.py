@@ -172,7 +172,8 @@ class Calibration:
                 "quantity": target if target == "short_rate" else f"zero yield, {maturity:g} years (continuous)",
                 "time": top_t.tolist(),
                 "house_view": target_path(view["start"], view["long_run_level"], view["speed"], top_t).tolist(),
-                "real_world": model_target_value(self.curve, self.rates, top_t, mean_p, target=target, maturity=maturity).tolist(),
+                "real_world": model_target_value(self.curve, self.rates, top_t, mean_p, target=target,
+                                                 maturity=maturity).tolist(),
                 "market_consistent": model_target_value(
                     self.curve, self.rates, top_t, self._zero_factor_mean(top_t), target=target, maturity=maturity
                 ).tolist(),
@@ -197,7 +198,8 @@ class Calibration:
                     "dividend_yield": self.equity.dividend_yield,
                     "volatility": _schedule_json(self.equity.volatility),
                     "correlation_with_rates": self.equity.correlation,
-                    **({"correlation_with_rate_factors": list(self.rates_correlation)} if self.rates_correlation else {}),
+                    **({"correlation_with_rate_factors": list(self.rates_correlation)} if self.rates_correlation
+                       else {}),
                 },
                 "market_prices_of_risk": {
                     "rates": _schedule_json(self.prices_of_risk.rates),
@@ -220,7 +222,8 @@ class Calibration:
             out["driver_correlation"] = self.correlation.to_json()
         if self.indices:
             out["indices"] = [
-                index_to_json(i, self.extra_prices_of_risk[i.name], self.index_risk_premia[i.name]) for i in self.indices
+                index_to_json(i, self.extra_prices_of_risk[i.name], self.index_risk_premia[i.name])
+                for i in self.indices
             ]
         if self.inflation is not None:
             out["inflation"] = {
@@ -257,7 +260,8 @@ def _rates_json(rates: HullWhiteParams | G2PlusPlusParams) -> dict[str, Any]:
 def _rates_from_json(par: dict[str, Any]) -> HullWhiteParams | G2PlusPlusParams:
     if "g2pp" in par:
         return G2PlusPlusParams(**{k: float(v) for k, v in par["g2pp"].items()})
-    return HullWhiteParams(mean_reversion=par["hull_white"]["mean_reversion"], volatility=par["hull_white"]["volatility"])
+    return HullWhiteParams(mean_reversion=par["hull_white"]["mean_reversion"],
+                           volatility=par["hull_white"]["volatility"])
 
 
 def _parts_from_json(par: dict[str, Any]) -> dict[str, Any]:
@@ -383,7 +387,8 @@ def check_calibration_fits(calibration: Calibration, config: RunConfig, *, sourc
             sorted(config.credit.bond_maturities)
         ) != calibration.credit.bond_maturities:
             raise ConfigError(f"{source}: calibration credit ratings or bond maturities differ from [credit]")
-    longest = max([*config.outputs.bond_maturities, *(config.inflation.real_bond_maturities if config.inflation else [])])
+    longest = max([*config.outputs.bond_maturities, *(config.inflation.real_bond_maturities if config.inflation
+                                                      else [])])
     need = config.simulation.max_horizon_years + longest
     if need > calibration.curve.max_maturity + 1e-9:
         raise ConfigError(
@@ -437,7 +442,8 @@ def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
     if config.curve is not None:
         c = config.curve
         if c.kind == "zero_rates":
-            curve = LogDiscountCurve.from_zero_rates(np.array(c.maturities), np.array(c.values), compounding=c.compounding)
+            curve = LogDiscountCurve.from_zero_rates(np.array(c.maturities), np.array(c.values),
+                                                     compounding=c.compounding)
         else:
             curve = LogDiscountCurve(maturities=np.array(c.maturities), discount_factors=np.array(c.values))
         return curve, {"method": "typed-in pillars, monotone cubic on -ln P(0,t)"}
@@ -457,7 +463,8 @@ def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
     if not keep.any():
         raise MarketDataError(f"{path}: no input maturity at or below the last liquid point {llp:g}")
     dropped = data.maturities[~keep].tolist()
-    liquid = type(data)(source=data.source, quantity=data.quantity, maturities=data.maturities[keep], values=data.values[keep])
+    liquid = type(data)(source=data.source, quantity=data.quantity, maturities=data.maturities[keep],
+                        values=data.values[keep])
     instruments = liquid.instruments(credit_risk_adjustment_bp=ext.credit_risk_adjustment_bp)
     curve, report = fit_smith_wilson(
         instruments,
@@ -499,7 +506,8 @@ def fit_curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
     return _curve(config)
 
 
-def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G2PlusPlusParams, dict[str, Any], list[dict[str, Any]]]:
+def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G2PlusPlusParams, dict[str, Any],
+                                                             list[dict[str, Any]]]:
     g2 = config.rates.model == "g2pp"
     if config.hull_white is not None:
         hw = HullWhiteParams(mean_reversion=config.hull_white.mean_reversion, volatility=config.hull_white.volatility)
@@ -509,7 +517,8 @@ def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G
     path = config.market_file("swaptions")
     assert path is not None
     rows = read_swaption_quotes(path)
-    quotes = [SwaptionQuote(expiry=r.expiry, tenor=r.tenor, vol=r.vol, convention=r.convention, shift=r.shift, weight=r.weight) for r in rows]
+    quotes = [SwaptionQuote(expiry=r.expiry, tenor=r.tenor, vol=r.vol, convention=r.convention, shift=r.shift,
+                            weight=r.weight) for r in rows]
     report: Any
     if g2:
         g2_opts = config.calibration.g2pp
@@ -599,7 +608,8 @@ def _real_world(
         view = {"kind": "constant_price_of_risk", "value": lam_r}
     elif rw.target_short_rate is not None:
         target_time = rw.target_year or horizon
-        lam_r = rates_price_of_risk_for_target(curve, hw, target_short_rate=rw.target_short_rate, target_time=target_time)
+        lam_r = rates_price_of_risk_for_target(curve, hw, target_short_rate=rw.target_short_rate,
+                                               target_time=target_time)
         view = {"kind": "short_rate_at_year", "target_short_rate": rw.target_short_rate, "target_year": target_time}
     else:
         assert rw.long_run_level is not None and rw.speed is not None
@@ -675,7 +685,8 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     fit = {"curve": curve_fit, "correlation": corr_fit, config.rates.model: rates_fit, "equity": equity_fit}
     indices, extra_lams, premia, index_fits = [], {}, {}, {}
     for section in config.indices:
-        index, lam, index_fit, options = calibrate_index(config, section, curve, rates, correlation.with_rates(section.name))
+        index, lam, index_fit, options = calibrate_index(config, section, curve, rates,
+                                                         correlation.with_rates(section.name))
         indices.append(index)
         extra_lams[section.name] = lam
         premia[section.name] = section.risk_premium
@@ -685,7 +696,8 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         fit["indices"] = index_fits
     inflation, inflation_caps = None, []
     if config.inflation is not None:
-        inflation, inflation_lams, fit["inflation"], inflation_caps = calibrate_inflation(config, curve, rates, correlation)
+        inflation, inflation_lams, fit["inflation"], inflation_caps = calibrate_inflation(config, curve, rates,
+                                                                                          correlation)
         extra_lams.update(inflation_lams)
     credit = None
     if config.credit is not None:
@@ -743,7 +755,8 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
     """The Gaussian scenario model both sets are simulated from (credit is simulated beside it,
     :mod:`pqflow.simulation.credit`)."""
     eq = calibration.equity
-    core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield, volatility=eq.volatility)
+    core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield,
+                            volatility=eq.volatility)
     lams = {
         **_rates_prices_of_risk(calibration.rates, calibration.prices_of_risk.rates),
         eq.name: calibration.prices_of_risk.equity,

@@ -172,7 +172,8 @@ def calibrate_heston(
         )
     t = np.array([q.expiry for q in quotes])
     if t.max() > curve.max_maturity * (1.0 + 1e-12):
-        raise MarketDataError(f"{label}: smile quotes run to {t.max():g} years but the curve ends at {curve.max_maturity:g}")
+        raise MarketDataError(f"{label}: smile quotes run to {t.max():g} years but the curve ends at "
+                              f"{curve.max_maturity:g}")
     m = np.array([q.moneyness for q in quotes])
     vol = np.array([q.implied_vol for q in quotes])
     w = np.array([q.weight for q in quotes])

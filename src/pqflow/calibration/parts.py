@@ -167,7 +167,9 @@ def _checked_matrix(config: RunConfig) -> tuple[tuple[str, ...], np.ndarray, str
     return tuple(names), np.asarray(matrix, dtype=float), where, fit
 
 
-def driver_correlation(config: RunConfig, rates: HullWhiteParams | G2PlusPlusParams | None = None) -> tuple[DriverCorrelation, dict[str, Any]]:
+def driver_correlation(config: RunConfig,
+                       rates: HullWhiteParams | G2PlusPlusParams | None = None) -> tuple[DriverCorrelation, dict[str,
+                                                                                                                 Any]]:
     """The correlation of every configured driver, from its one source, checked. Under G2++
     the ``(rates_x, rates_y)`` entry is the model's ``rho`` (typed in or fitted to swaptions),
     whatever the matrix says."""
@@ -234,8 +236,10 @@ def credit_correlation(config: RunConfig) -> tuple[np.ndarray | None, dict[str, 
         )
     sub = np.array(matrix[np.ix_(idx, idx)], dtype=float)
     if len(idx) > 1 and np.linalg.eigvalsh(sub)[0] <= 1e-10:
-        raise MarketDataError(f"{where}: the credit drivers' correlations are singular; the density needs them positive definite")
-    return sub, {"method": "from the correlation matrix (credit_<rating> drivers)", "drivers": wanted, "matrix": sub.tolist()}
+        raise MarketDataError(f"{where}: the credit drivers' correlations are singular; the density needs them "
+                              f"positive definite")
+    return sub, {"method": "from the correlation matrix (credit_<rating> drivers)", "drivers": wanted,
+                 "matrix": sub.tolist()}
 
 
 # ------------------------------------------------------------------------------- indices
@@ -285,7 +289,8 @@ def fit_index_volatility(
             curve, rates, level=level, dividend_yield=q, correlation=rho_rates,
             quotes=[EquityVolQuote(
                 expiry=r.expiry, implied_vol=r.implied_vol,
-                strike=None if r.moneyness is None else r.moneyness * level * np.exp(-q * r.expiry) / float(curve.discount(r.expiry)),
+                strike=None if r.moneyness is None
+                else r.moneyness * level * np.exp(-q * r.expiry) / float(curve.discount(r.expiry)),
             ) for r in rows],
         )
     except MarketDataError as exc:
@@ -295,7 +300,8 @@ def fit_index_volatility(
     schedule = PiecewiseConstant(knots=(0.0, *ends[:-1].tolist()), values=tuple(vols.tolist()))
     fit = {
         "method": "piecewise-constant volatility, bootstrapped bucket by bucket to reprice each implied "
-        f"volatility exactly under {'G2++' if isinstance(rates, G2PlusPlusParams) else 'Hull-White'} rates (closed form)",
+        f"volatility exactly under {'G2++' if isinstance(rates, G2PlusPlusParams) else 'Hull-White'} rates (closed "
+        f"form)",
         "bucket_ends": ends.tolist(),
         "bucket_volatilities": vols.tolist(),
         "max_abs_vol_error": report.max_abs_vol_error,
@@ -348,7 +354,8 @@ def calibrate_index(
     return index, lam, fit, instruments
 
 
-def index_to_json(index: TotalReturnIndex, price_of_risk: float | PiecewiseConstant, risk_premium: float) -> dict[str, Any]:
+def index_to_json(index: TotalReturnIndex, price_of_risk: float | PiecewiseConstant, risk_premium: float) -> dict[str,
+                                                                                                                  Any]:
     return {
         "name": index.name,
         "kind": index.kind,
@@ -403,7 +410,8 @@ def calibrate_inflation(
         mats, zc, source = np.array([r.maturity for r in rows]), np.array([r.rate for r in rows]), str(path)
     try:
         quoted = real_curve_from_zc_inflation_swaps(
-            curve, [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k)) for t, k in zip(mats, zc, strict=True)]
+            curve, [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k)) for t, k in zip(mats, zc,
+                                                                                                   strict=True)]
         )
     except MarketDataError as exc:
         raise MarketDataError(f"{source}: {exc}") from None
@@ -413,7 +421,8 @@ def calibrate_inflation(
     fit: dict[str, Any] = {
         "method": "real curve P_r(0,T) = P_n(0,T) (1 + k(T))^T at each zero-coupon inflation swap; breakeven "
         "flat beyond the last quote; Jarrow-Yildirim volatilities "
-        + (f"{', '.join(sec.fit)} fitted to year-on-year caps and floors (closed form), the rest typed in" if sec.fit else "typed in"),
+        + (f"{', '.join(sec.fit)} fitted to year-on-year caps and floors (closed form), the rest typed in" if sec.fit
+           else "typed in"),
         "source": source,
         "max_abs_difference_bp": quoted.max_abs_difference_bp,
         "rows": quoted.as_records(),
@@ -434,7 +443,8 @@ def calibrate_inflation(
         try:
             report = calibrate_jarrow_yildirim(
                 curve, real_curve,
-                [YoYCapFloorQuote(maturity=c.maturity, strike=c.strike, kind=c.kind, price=c.premium, weight=c.weight) for c in caps],
+                [YoYCapFloorQuote(maturity=c.maturity, strike=c.strike, kind=c.kind, price=c.premium, weight=c.weight)
+                 for c in caps],
                 initial=initial, fit=tuple(sec.fit),
             )
         except (MarketDataError, CalibrationError) as exc:
@@ -477,7 +487,8 @@ def inflation_to_json(part: InflationPart) -> dict[str, Any]:
 def inflation_from_json(data: dict[str, Any]) -> InflationPart:
     return InflationPart(
         real_curve=curve_from_json(data["real_curve"]),
-        real=HullWhiteParams(mean_reversion=float(data["real_mean_reversion"]), volatility=float(data["real_volatility"])),
+        real=HullWhiteParams(mean_reversion=float(data["real_mean_reversion"]),
+                             volatility=float(data["real_volatility"])),
         inflation_volatility=float(data["inflation_volatility"]),
         cpi_base=float(data["cpi_base"]),
         real_bond_maturities=tuple(float(m) for m in data["real_bond_maturities"]),
@@ -500,7 +511,8 @@ def calibrate_credit_part(config: RunConfig) -> tuple[CirCreditModel, dict[str, 
             mats, spreads = np.array(r.spread_maturities, float), np.array(r.spreads_bp, float) * 1e-4
         else:
             if r.name not in from_file:
-                raise MarketDataError(f"{path}: no spreads for rating {r.name!r} (has: {', '.join(from_file) or 'none'})")
+                raise MarketDataError(f"{path}: no spreads for rating {r.name!r} (has: "
+                                      f"{', '.join(from_file) or 'none'})")
             mats, spreads = from_file[r.name].maturities, from_file[r.name].spreads
         curves.append(ZeroSpreadCurve(rating=r.name, maturities=mats, spreads=spreads, recovery=r.recovery))
     unused = sorted(set(from_file) - {r.name for r in sec.ratings})
@@ -573,7 +585,8 @@ def credit_from_json(data: dict[str, Any]) -> tuple[CirCreditModel, int]:
         CreditRating(
             name=r["name"], recovery=float(r["recovery"]), price_of_risk=float(r["price_of_risk"]),
             cir=CirParams(**{k: float(v) for k, v in r["cir"].items()}),
-            hazard=HazardCurve(knots=np.array(r["hazard"]["knots"], float), hazards=np.array(r["hazard"]["hazards"], float)),
+            hazard=HazardCurve(knots=np.array(r["hazard"]["knots"], float), hazards=np.array(r["hazard"]["hazards"],
+                                                                                             float)),
         )
         for r in data["ratings"]
     )

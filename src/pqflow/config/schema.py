@@ -212,7 +212,8 @@ class IndexSection(_Section):
     @model_validator(mode="after")
     def _pair(self) -> IndexSection:
         if (self.level is None) != (self.income_yield is None):
-            raise ValueError("level and income_yield go together (both typed in, or both from market_data.equity_index)")
+            raise ValueError("level and income_yield go together (both typed in, or both from "
+                             "market_data.equity_index)")
         if self.name in RESERVED_DRIVERS:
             raise ValueError(f"{self.name!r} names a rates or inflation driver; choose another index name")
         return self
@@ -265,7 +266,8 @@ class InflationSection(_Section):
             assert self.swap_rates is not None
             if len(self.swap_maturities) != len(self.swap_rates) or not self.swap_maturities:
                 raise ValueError("swap_maturities and swap_rates need the same, non-zero number of entries")
-        if any(m <= 0 for m in self.real_bond_maturities) or len(set(self.real_bond_maturities)) != len(self.real_bond_maturities):
+        if any(m <= 0 for m in self.real_bond_maturities) \
+                or len(set(self.real_bond_maturities)) != len(self.real_bond_maturities):
             raise ValueError("real_bond_maturities must be positive and distinct")
         return self
 
@@ -755,10 +757,13 @@ class RunConfig(_Section):
             ("curve", self.curve is not None, "market_data.curve", md.curve is not None),
             (self.rates.model, (self.hull_white if self.rates.model == "hull_white" else self.g2pp) is not None,
              "market_data.swaptions", md.swaptions is not None),
-            ("equity.volatility", self.equity.volatility is not None, "market_data.equity_vols", md.equity_vols is not None),
-            ("equity.correlation_with_rates or [correlations]", self.equity.correlation_with_rates is not None or self.correlations is not None, "market_data.correlations", md.correlations is not None),
+            ("equity.volatility", self.equity.volatility is not None, "market_data.equity_vols",
+             md.equity_vols is not None),
+            ("equity.correlation_with_rates or [correlations]", self.equity.correlation_with_rates is not None
+             or self.correlations is not None, "market_data.correlations", md.correlations is not None),
             ("equity.level", self.equity.level is not None, "market_data.equity_index", md.equity_index is not None),
-            ("equity.dividend_yield", self.equity.dividend_yield is not None, "market_data.equity_index", md.equity_index is not None),
+            ("equity.dividend_yield", self.equity.dividend_yield is not None, "market_data.equity_index",
+             md.equity_index is not None),
         ]
         for typed, has_typed, fitted, has_fitted in pairs:
             if has_typed == has_fitted:

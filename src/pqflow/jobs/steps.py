@@ -172,7 +172,8 @@ def written_columns(calibration: Calibration, plan: RunPlan, model: EconomyModel
     if plan.column_patterns is None:
         return [*REQUIRED_COLUMNS, *known]
     known += on_request
-    unmatched = [p for p in plan.column_patterns if not any(fnmatch.fnmatchcase(c, p) for c in (*REQUIRED_COLUMNS, *known))]
+    unmatched = [p for p in plan.column_patterns if not any(fnmatch.fnmatchcase(c, p) for c in (*REQUIRED_COLUMNS,
+                                                                                                *known))]
     if unmatched:
         raise ConfigError(
             f"outputs.columns: {', '.join(repr(p) for p in unmatched)} matches no column of the configured "
@@ -210,7 +211,9 @@ def calibrate_step(config: RunConfig, run_dir: str | Path, calibration_file: str
     return calibration
 
 
-def _part_metadata(calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, units: dict[str, str]) -> dict[str, str]:
+def _part_metadata(calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, units: dict[str,
+                                                                                                    str]) -> dict[str,
+                                                                                                                  str]:
     return {
         "pqflow.version": __version__,
         "pqflow.measure": measure,
@@ -241,7 +244,8 @@ def generate_part(
     )
     units = model.column_units()
     for spec in calibration.stochastic_volatility.values():
-        units[variance_column(spec.name)] = "instantaneous variance of the index's log-return per year (Heston v, truncated at 0)"
+        units[variance_column(spec.name)] = ("instantaneous variance of the index's log-return per year "
+                                             "(Heston v, truncated at 0)")
     if credit is not None:
         units.update(credit.column_units())
     units["deflator"] = (

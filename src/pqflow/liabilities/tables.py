@@ -166,7 +166,9 @@ def valuation_summary(
             for v in (mc, rw)
         },
         "densities": {
-            mp.id: d for mp, d in zip(portfolio.model_points, rw.densities or ("q_density",) * len(portfolio.model_points), strict=True)
+            mp.id: d for mp, d in zip(portfolio.model_points, rw.densities or ("q_density",
+                                                                               ) * len(portfolio.model_points),
+                                                                               strict=True)
         },
         "control_variates": (
             "values and standard errors use control variates from known martingales (deflated "

@@ -299,7 +299,8 @@ class PortfolioReads:
     kinds: frozenset[str]
 
 
-def portfolio_reads(portfolio: Portfolio, info: RunInfo, equity_col: str | None, *, with_cash: bool = False) -> PortfolioReads:
+def portfolio_reads(portfolio: Portfolio, info: RunInfo, equity_col: str | None, *,
+                    with_cash: bool = False) -> PortfolioReads:
     """The columns a projection of ``portfolio`` reads (``with_cash``: the cash account even
     when no product needs it, e.g. for the real-world reconciliation)."""
     interp = BondInterpolation(written=info.bond_maturities, max_extrapolation=portfolio.bond_extrapolation_years)
@@ -347,10 +348,12 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
         info.curve, last_year=last, interpolation=interp, equity_level=info.equity_level
     )
     p0 = ce_scen.deflator[0]  # P(0, j)
-    ce_raw = np.stack([np.stack(f, axis=1) for f in (project_model_point(mp, ce_scen) for mp in portfolio.model_points)],
+    ce_raw = np.stack([np.stack(f, axis=1) for f in (project_model_point(mp, ce_scen)
+                                                     for mp in portfolio.model_points)],
                       axis=1)[0]  # (n_mp, 2, J + 1), undiscounted
     timing = np.abs(ce_raw[:, 0, :]) * p0[None, :]  # a_mp(j) P(0, j): CE present value by year
-    reads_equity = np.array(["equity" in needed_columns(mp) and equity_col is not None for mp in portfolio.model_points])
+    reads_equity = np.array(["equity" in needed_columns(mp) and equity_col is not None
+                             for mp in portfolio.model_points])
 
     groups = _groups(portfolio)
     member = _membership(groups, len(portfolio.model_points))

@@ -111,7 +111,8 @@ def economy_structure(
     :func:`model_structure` gives the same from a built model (tested equal)."""
     rates = frozenset(rates_drivers)
     factors = ("x", "y")[: len(rates_drivers)]
-    out = [StateLink(name=f, drivers=frozenset({d}), reads=frozenset()) for f, d in zip(factors, rates_drivers, strict=True)]
+    out = [StateLink(name=f, drivers=frozenset({d}), reads=frozenset()) for f, d in zip(factors, rates_drivers,
+                                                                                        strict=True)]
     out.append(StateLink(name="integral_x", drivers=rates, reads=frozenset(factors)))
     for driver, column in indices:
         out.append(StateLink(name=f"log_{column}", drivers=rates | {driver}, reads=frozenset(factors)))

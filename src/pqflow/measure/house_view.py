@@ -77,7 +77,8 @@ def _g2_log_a(curve: DiscountCurve, params: G2PlusPlusParams, t: np.ndarray, m: 
 
 
 def _g2_combination(
-    curve: DiscountCurve, params: G2PlusPlusParams, t: np.ndarray, path: np.ndarray, *, target: str, maturity: float | None
+    curve: DiscountCurve, params: G2PlusPlusParams, t: np.ndarray, path: np.ndarray, *, target: str,
+    maturity: float | None
 ) -> tuple[float, float, np.ndarray]:
     """``(c_x, c_y, h(t))`` with ``c_x E x_t + c_y E y_t = h(t)`` putting the target on ``path``."""
     if target == "short_rate":
@@ -145,7 +146,8 @@ def today_value(
 
 
 def factor_mean_for_target(
-    curve: DiscountCurve, params: HullWhiteParams, t: np.ndarray, path: np.ndarray, *, target: str, maturity: float | None
+    curve: DiscountCurve, params: HullWhiteParams, t: np.ndarray, path: np.ndarray, *, target: str,
+    maturity: float | None
 ) -> np.ndarray:
     """``g(t)``: the real-world factor mean that puts the target's expectation on ``path``
     (Hull-White only: under G2++ the path fixes only a combination of the two factor means,
@@ -165,7 +167,8 @@ def factor_mean_for_target(
 
 
 def _g2_path_lambdas(
-    curve: DiscountCurve, params: G2PlusPlusParams, knots: np.ndarray, path: np.ndarray, *, target: str, maturity: float | None
+    curve: DiscountCurve, params: G2PlusPlusParams, knots: np.ndarray, path: np.ndarray, *, target: str,
+    maturity: float | None
 ) -> np.ndarray:
     """Monthly ``lambda_j`` from the joint recursion of ``(E x, E y)`` (module docstring)."""
     c_x, c_y, h = _g2_combination(curve, params, knots, path, target=target, maturity=maturity)

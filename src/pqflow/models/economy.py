@@ -237,7 +237,8 @@ class EconomyModel:
         return float(self.correlation[names.index(a), names.index(b)])
 
     def step_covariance(self, t0: float, t1: float) -> np.ndarray:
-        cov, _ = grid_moments(np.array([t0, t1]), self._exposures, self.correlation, self.driver_names, self.prices_of_risk)
+        cov, _ = grid_moments(np.array([t0, t1]), self._exposures, self.correlation, self.driver_names,
+                              self.prices_of_risk)
         return cov[0]
 
     def step_law(self, t0: float, t1: float) -> StepLaw:
@@ -302,7 +303,8 @@ class EconomyModel:
             loads = b_factor(self.rates.mean_reversion, maturities)[:, None]
         return log_a, loads
 
-    def columns(self, times: np.ndarray, states: np.ndarray, names: tuple[str, ...] | None = None) -> dict[str, np.ndarray]:
+    def columns(self, times: np.ndarray, states: np.ndarray, names: tuple[str, ...] | None = None) -> dict[str,
+                                                                                                           np.ndarray]:
         """Output columns ``(n_paths, n_times)`` from states ``(n_paths, n_times, d)``."""
         times = np.asarray(times, dtype=float)
         known = self.known_columns()

@@ -170,7 +170,8 @@ def step_configs(old: RunConfig, new: RunConfig) -> list[tuple[Step | None, dict
 
 
 def attribution_rows(
-    steps: list[tuple[str, str]], units: list[Any], ce: list[dict[str, float]], *, old_value: dict[str, float] | None = None,
+    steps: list[tuple[str, str]], units: list[Any], ce: list[dict[str, float]], *, old_value: dict[str,
+                                                                                                   float] | None = None,
     new_value: dict[str, float] | None = None,
 ) -> dict[str, Any]:
     """The table of changes: per step and line, the change in best estimate and TVOG with the
@@ -207,10 +208,12 @@ def attribution_rows(
                        "start_best_estimate": float(be0[g]), "end_best_estimate": float(be_last[g])}
     checks = {}
     if old_value is not None:
-        checks["reproduces_old_run"] = all(np.isclose(totals[lab]["start_best_estimate"], old_value[lab], rtol=1e-9, atol=1e-6)
+        checks["reproduces_old_run"] = all(np.isclose(totals[lab]["start_best_estimate"], old_value[lab], rtol=1e-9,
+                                                      atol=1e-6)
                                            for lab in labels if lab in old_value)
     if new_value is not None:
-        checks["reproduces_new_run"] = all(np.isclose(totals[lab]["end_best_estimate"], new_value[lab], rtol=1e-9, atol=1e-6)
+        checks["reproduces_new_run"] = all(np.isclose(totals[lab]["end_best_estimate"], new_value[lab], rtol=1e-9,
+                                                      atol=1e-6)
                                            for lab in labels if lab in new_value)
     return {"steps": [{"step": k, "name": n, "title": t} for k, (n, t) in enumerate(steps)],
             "rows": rows, "totals": totals, "checks": checks, "lines": labels}
@@ -224,7 +227,8 @@ def check_attribution(old_run: str | Path, new_run: str | Path, old_config: str 
 
     out = Path(out_dir)
     if out.exists():
-        raise PqflowError(f"{out} exists; choose another --attribution-dir (an attribution is not written over another)")
+        raise PqflowError(f"{out} exists; choose another --attribution-dir "
+                          "(an attribution is not written over another)")
     manifests = []
     for run in (old_run, new_run):
         path = Path(run) / "manifest.json"
@@ -287,7 +291,8 @@ def summarise_attribution(old_run: str | Path, new_run: str | Path, planned: lis
     from pqflow.storage.results import write_csv_atomic
 
     units = [unit_values(p.run_dir, liabilities) for p in planned]
-    ce = [_line_values(read_json(p.run_dir / "valuation" / "summary.json"), "certainty_equivalent_value") for p in planned]
+    ce = [_line_values(read_json(p.run_dir / "valuation" / "summary.json"), "certainty_equivalent_value")
+          for p in planned]
     old_val = Path(old_run) / "valuation" / "summary.json"
     new_val = Path(new_run) / "valuation" / "summary.json"
     result = attribution_rows(

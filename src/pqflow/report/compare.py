@@ -244,7 +244,8 @@ def _inputs(cal: dict[str, Any]) -> dict[str, dict[str, tuple[Any, str]]]:
         out["inflation"][f"zero-coupon inflation swap {fmt.years(r.get('maturity'))}y"] = (r.get("market_rate"), "rate")
     for rating in ((fit.get("credit") or {}).get("ratings") or []):
         for r in rating.get("rows") or []:
-            out["credit"][f"{rating.get('rating')} spread {fmt.years(r.get('maturity'))}y"] = (r.get("market_spread"), "rate")
+            out["credit"][f"{rating.get('rating')} spread {fmt.years(r.get('maturity'))}y"] = (r.get("market_spread"),
+                                                                                               "rate")
     par = cal.get("parameters") or {}
     eq = par.get("equity") or {}
     if eq:
@@ -295,7 +296,9 @@ def _settings(inputs: dict[str, Any]) -> dict[str, tuple[Any, str]]:
                 walk({kk: vv for kk, vv in v.items() if kk != "name"}, f"{path}.{name if name else i + 1}")
         elif isinstance(obj, list):
             text = ", ".join(fmt.plain(x, 6) if _is_num(x) else str(x) for x in obj)
-            out[_readable(path)] = (text if len(obj) <= 12 else f"{len(obj)} values, sum {fmt.plain(sum(float(x) for x in obj if _is_num(x)), 6)}"
+            out[_readable(path)] = (text if len(obj) <= 12
+                                    else f"{len(obj)} values, sum "
+                                         f"{fmt.plain(sum(float(x) for x in obj if _is_num(x)), 6)}"
                                     if all(_is_num(x) for x in obj) else text, "text")
         else:
             out[_readable(path)] = (obj, _unit_of(path, obj))
@@ -393,7 +396,8 @@ def _identity(run: dict[str, Any]) -> dict[str, tuple[Any, str]]:
         "configuration sha256": (man.get("config_sha256"), "text"),
         "calibration inputs sha256": (cal.get("inputs_sha256"), "text"),
         "root seed": (str((man.get("seeds") or {}).get("root_seed")) if man else None, "text"),
-        "scenarios per set": (", ".join(f"{k.replace('_', ' ')} {fmt.count(v)}" for k, v in (man.get("scenarios") or {}).items())
+        "scenarios per set": (", ".join(f"{k.replace('_', ' ')} {fmt.count(v)}" for k, v in (man.get("scenarios")
+                                                                                             or {}).items())
                               or None, "text"),
         "pqflow version": (man.get("pqflow_version", cal.get("pqflow_version")), "text"),
     }
@@ -546,7 +550,8 @@ def _table_html(rows: list[Move], *, with_move: bool = True,
 
 
 _CMP_CSS = ("<style>table.cmp{table-layout:fixed;width:100%;max-width:1050px}table.cmp td.item{word-break:break-word}"
-            "table.cmp th.item{width:36%}table.cmp td.num{white-space:nowrap;overflow:hidden;text-overflow:ellipsis}</style>")
+            "table.cmp th.item{width:36%}table.cmp "
+            "td.num{white-space:nowrap;overflow:hidden;text-overflow:ellipsis}</style>")
 
 
 def _attribution_html(result: dict[str, Any], currency: str) -> str:
@@ -565,7 +570,8 @@ def _attribution_html(result: dict[str, Any], currency: str) -> str:
         f'<tr><td class="l">{r["step"]}. {escape(r["title"])}</td><td class="num">'
         f'{escape(fmt.money_se(r["best_estimate_change"], r["best_estimate_se"]))}</td><td class="num">'
         f'{escape(fmt.money_se(r["tvog_change"], r["tvog_se"]))}</td></tr>' for r in rows)
-    body += (f'<tr><th class="l">total change</th><th class="num">{escape(fmt.money(totals.get("best_estimate_total"), sign=True))}'
+    body += (f'<tr><th class="l">total change</th><th '
+             f'class="num">{escape(fmt.money(totals.get("best_estimate_total"), sign=True))}'
              f'</th><th class="num">{escape(fmt.money(totals.get("tvog_total"), sign=True))}</th></tr>')
     checks = "; ".join(f"{k.replace('_', ' ')}: {'yes' if v else 'no'}" for k, v in result.get("checks", {}).items())
     return (f'<div class="grid">{chart}</div><table class="cmp"><thead><tr><th class="l item">step (total line)</th>'
@@ -614,7 +620,8 @@ def write_compare_html(c: Comparison, path: str | Path, *, everything: bool = Fa
     params = list(c.parameters) if everything else [m for m in c.parameters if m.status != "same"]
     parts.append('<section id="compare-parameters"><h2>Calibrated parameters</h2>'
                  + (_table_html(params) if params else '<p class="note">Nothing differs.</p>')
-                 + f'<p class="note">{sum(m.status == "same" for m in c.parameters)} parameters unchanged.</p></section>')
+                 + f'<p class="note">{sum(m.status == "same" for m in c.parameters)} parameters '
+                   f'unchanged.</p></section>')
     changed = list(c.checks) if everything else [m for m in c.checks if m.status != "same"]
     parts.append('<section id="compare-checks"><h2>Checks</h2>'
                  + (_table_html(changed, with_move=False) if changed else '<p class="note">No verdict changed.</p>')

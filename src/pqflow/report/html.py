@@ -73,7 +73,8 @@ body{font:14px/1.45 system-ui,-apple-system,'Segoe UI',sans-serif;color:#1d1d1f;
 main{max-width:1100px;margin:0 auto;padding:16px 24px 40px}
 h1{font-size:22px;margin:8px 0 4px}h2{font-size:19px;border-bottom:2px solid #1f5f8b;padding-bottom:4px;margin-top:34px}
 h3{font-size:15px;margin:18px 0 6px}
-.caution{background:#fff6d6;border:1px solid #d9b441;border-left:6px solid #d9b441;padding:8px 14px;margin:10px 0;font-size:13px}
+.caution{background:#fff6d6;border:1px solid #d9b441;border-left:6px solid #d9b441;
+padding:8px 14px;margin:10px 0;font-size:13px}
 table{border-collapse:collapse;margin:6px 0 12px;background:#fff;font-size:12.5px}
 th,td{border:1px solid #ddd;padding:3px 8px;text-align:right;vertical-align:top}
 th{background:#eef2f5;text-align:center}td.l,th.l{text-align:left}
@@ -305,7 +306,8 @@ def _one_line(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any
         f"<strong>{escape(str(m.get('run_name', run_dir.name)))}</strong>",
         f"valuation date {escape(str(cal.get('valuation_date', fmt.DASH)))}",
         f"run {escape(_short(m.get('run_id')))}" if m else "manifest not written yet",
-        f"created {escape(str(m.get('created_utc', fmt.DASH)).replace('T', ' ').replace('+00:00', ' UTC'))}" if m else "",
+        f"created {escape(str(m.get('created_utc', fmt.DASH)).replace('T', ' ').replace('+00:00', ' UTC'))}" if m
+        else "",
         f"configuration {escape(_short(m.get('config_sha256')))}" if m else "",
         f"seed {escape(str((m.get('seeds') or {}).get('root_seed', fmt.DASH)))}" if m else "",
         escape(scen_text) if scen_text else "",
@@ -438,7 +440,8 @@ def _verdict_rows(summary: dict[str, Any]) -> list[tuple[str, str, str, str]]:
         bench = c.get("wealth_ratio_benchmark")
         if isinstance(bench, dict) and "verdict" in bench:
             rows.append((name, "equity wealth ratios vs 2005 benchmark",
-                         f"{fmt.count(bench.get('failed'))} of {fmt.count(bench.get('comparisons'))} percentiles missed",
+                         f"{fmt.count(bench.get('failed'))} of {fmt.count(bench.get('comparisons'))} "
+                         "percentiles missed",
                          _badge(bench.get("verdict"), bench.get("counts_toward_verdict", False))))
     return rows
 
@@ -463,9 +466,11 @@ def _verdicts(run_dir: Path, summary: dict[str, Any], valuation: dict[str, Any] 
             )
     power = [{"check": name.replace("_", " "),
               "deviation": (fmt.number(c["material_deviation"]) if fmt.is_number(c.get("material_deviation"))
-                            else str(c.get("material_deviation") if c.get("material_deviation") is not None else fmt.DASH)),
+                            else str(c.get("material_deviation") if c.get("material_deviation") is not None
+                                     else fmt.DASH)),
               "rule": str(c.get("power_rule") or fmt.DASH)}
-             for name, c in (summary.get("checks") or {}).items() if c.get("power_rule") or c.get("material_deviation") is not None]
+             for name, c in (summary.get("checks") or {}).items() if c.get("power_rule")
+             or c.get("material_deviation") is not None]
     power_html = ("<h3>What each check can detect</h3>" + _table(
         power, [("check", "check"), ("deviation", "material deviation"), ("rule", "power rule")],
         fmts={k: (lambda r, k=k: escape(r[k])) for k in ("check", "deviation", "rule")})) if power else ""
@@ -594,7 +599,8 @@ def _key_parameters(cal: dict[str, Any]) -> list[dict[str, str]]:
         f = fit.get("hull_white") or {}
         n = len(f.get("rows") or [])
         rows.append({"part": "rates, Hull-White",
-                     "values": f"a {fmt.plain(hw.get('mean_reversion'))}, σ {fmt.bp(1e4 * float(hw.get('volatility', 'nan')), 1)} "
+                     "values": f"a {fmt.plain(hw.get('mean_reversion'))}, σ "
+                               f"{fmt.bp(1e4 * float(hw.get('volatility', 'nan')), 1)} "
                                "(normal, per year)",
                      "fit": (f"swaption RMSE {fmt.bp(f['rmse_bp'], 2)} normal vol over {n} quotes"
                              if "rmse_bp" in f else "typed in")})
@@ -602,7 +608,8 @@ def _key_parameters(cal: dict[str, Any]) -> list[dict[str, str]]:
     if eq:
         f = fit.get("equity") or {}
         rows.append({"part": f"equity {eq.get('name', '')}",
-                     "values": f"level {fmt.plain(eq.get('level'), 6)}, dividend yield {fmt.percent(eq.get('dividend_yield'), 2)}, "
+                     "values": f"level {fmt.plain(eq.get('level'), 6)}, dividend yield "
+                               f"{fmt.percent(eq.get('dividend_yield'), 2)}, "
                                f"vol {_sched_text(eq.get('volatility'), fmt.vol_points)} pts",
                      "fit": (f"max vol error {fmt.vol_points(f['max_abs_vol_error'])} pts"
                              if "max_abs_vol_error" in f else "typed in")})
@@ -610,7 +617,8 @@ def _key_parameters(cal: dict[str, Any]) -> list[dict[str, str]]:
     for item in par.get("indices", []) or []:
         f = ifit.get(item.get("name")) or {}
         rows.append({"part": f"{item.get('kind', 'index')} {item.get('name', '')}",
-                     "values": f"level {fmt.plain(item.get('level'), 6)}, income yield {fmt.percent(item.get('income_yield'), 2)}, "
+                     "values": f"level {fmt.plain(item.get('level'), 6)}, income yield "
+                               f"{fmt.percent(item.get('income_yield'), 2)}, "
                                f"vol {_sched_text(item.get('volatility'), fmt.vol_points)} pts, "
                                f"risk premium {fmt.percent(item.get('risk_premium'), 2)}",
                      "fit": (f"max vol error {fmt.vol_points(f['max_abs_vol_error'])} pts"
@@ -624,7 +632,8 @@ def _key_parameters(cal: dict[str, Any]) -> list[dict[str, str]]:
         if "price_rmse_bp" in caps:
             fit_text.append(f"caps/floors RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional")
         rows.append({"part": "inflation, Jarrow-Yildirim",
-                     "values": f"a_r {fmt.plain(inf.get('real_mean_reversion'))}, σ_r {fmt.bp(1e4 * float(inf.get('real_volatility', 'nan')), 1)}, "
+                     "values": f"a_r {fmt.plain(inf.get('real_mean_reversion'))}, σ_r "
+                               f"{fmt.bp(1e4 * float(inf.get('real_volatility', 'nan')), 1)}, "
                                f"σ_I {fmt.vol_points(inf.get('inflation_volatility'))} pts",
                      "fit": "; ".join(fit_text) or "typed in"})
     cfits = {r.get("rating"): r for r in ((fit.get("credit") or {}).get("ratings") or [])}
@@ -634,7 +643,8 @@ def _key_parameters(cal: dict[str, Any]) -> list[dict[str, str]]:
                      "values": f"κ {fmt.plain(c.get('mean_reversion'))}, μ {fmt.percent(c.get('long_run_mean'), 2)}, "
                                f"ν {fmt.plain(c.get('volatility'))}, y0 {fmt.percent(c.get('initial'), 2)}, "
                                f"recovery {fmt.share(r.get('recovery'), 0)}",
-                     "fit": (f"spreads repriced to {fmt.bp(f['max_abs_error_bp'], 2)}" if "max_abs_error_bp" in f else "typed in")})
+                     "fit": (f"spreads repriced to {fmt.bp(f['max_abs_error_bp'], 2)}" if "max_abs_error_bp" in f
+                             else "typed in")})
     mpr = par.get("market_prices_of_risk") or {}
     if mpr:
         rows.append({"part": "real world: prices of risk",
@@ -740,7 +750,8 @@ def _calibration(cal: dict[str, Any]) -> str:
                 exact = err is not None and all(fmt.is_number(r.get(err)) and abs(float(r[err])) < 1e-8 for r in rows)
                 if exact:  # a bootstrap that reprices every quote: the rows are reference, folded
                     html.append(f'<details class="all-rows"><summary>All {len(rows)} quotes, each repriced exactly '
-                                f"(largest error &lt; 1e-10)</summary>{_fit_table(rows, vols_in_bp=vols_in_bp)}</details>")
+                                f"(largest error &lt; "
+                                f"1e-10)</summary>{_fit_table(rows, vols_in_bp=vols_in_bp)}</details>")
                 else:
                     html.append(_fit_table(rows, vols_in_bp=vols_in_bp))
                 charts += _fit_chart(name, rows)
@@ -810,7 +821,8 @@ def _drivers(names: list[str]) -> list[_Driver]:
         out.append(_Driver("Inflation and real rates", "real short rate", ("real_short_rate",), "rate",
                            lambda d: d["real_short_rate"]))
     reals = sorted((float(c[len("real_zcb_"):-1]), c) for c in names
-                   if c.startswith("real_zcb_") and c.endswith("y") and c[len("real_zcb_"):-1].replace(".", "").isdigit())
+                   if c.startswith("real_zcb_") and c.endswith("y") and c[len("real_zcb_"):-1].replace(".",
+                                                                                                       "").isdigit())
     if reals:
         m, c = reals[-1]
         out.append(_Driver("Inflation and real rates", f"{fmt.years(m)}-year real zero yield", (c,), "rate",
@@ -917,10 +929,13 @@ def _martingale(run_dir: Path, summary: dict[str, Any]) -> str:
         worst = c.get("worst_cell") or {}
         html.append(_kv([
             ("cells", fmt.count(c.get("cells"))),
-            ("outside 95% / by chance", f"{fmt.count(c.get('outside_95'))} / {fmt.number(c.get('expected_outside_95_by_chance'), 3)}"),
-            ("outside 99% / by chance", f"{fmt.count(c.get('outside_99'))} / {fmt.number(c.get('expected_outside_99_by_chance'), 3)}"),
+            ("outside 95% / by chance",
+             f"{fmt.count(c.get('outside_95'))} / {fmt.number(c.get('expected_outside_95_by_chance'), 3)}"),
+            ("outside 99% / by chance",
+             f"{fmt.count(c.get('outside_99'))} / {fmt.number(c.get('expected_outside_99_by_chance'), 3)}"),
             ("max |z| / family limit", f"{fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}"),
-            ("worst cell", ", ".join(f"{k} {fmt.zscore(v) if k == 'z_score' else fmt.number(v, 6) if not isinstance(v, str) else v}"
+            ("worst cell",
+             ", ".join(f"{k} {fmt.zscore(v) if k == 'z_score' else fmt.number(v, 6) if not isinstance(v, str) else v}"
                                      for k, v in worst.items())),
         ]))
     if table is not None:
@@ -969,7 +984,8 @@ def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | 
                     f"{_badge(c.get('verdict'))}</h3>")
         at = c.get("at_horizon") or {}
         pairs = [
-            ("max |z| of the mean weight / family limit", f"{fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}"),
+            ("max |z| of the mean weight / family limit",
+             f"{fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}"),
             ("lowest ESS share", fmt.share(c.get("min_ess_share"))),
             ("largest single-path weight share", fmt.share(c.get("max_weight_share"))),
             ("ESS below warning share from", "never" if c.get("ess_below_warning_from_time") is None
@@ -981,7 +997,8 @@ def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | 
         if c.get("power_rule"):
             pairs.append(("power rule", str(c["power_rule"])))
         if c.get("material_deviation") is not None:
-            pairs.append(("material deviation", fmt.number(c["material_deviation"]) if fmt.is_number(c["material_deviation"])
+            pairs.append(("material deviation", fmt.number(c["material_deviation"])
+                          if fmt.is_number(c["material_deviation"])
                           else str(c["material_deviation"])))
         html.append(_kv(pairs))
     dens = _densities(summary, manifest)
@@ -989,14 +1006,16 @@ def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | 
         html.append("<h3>Usable horizon of each density</h3>")
         html.append(_table(dens, [("density", "density"), ("block", "block"), ("usable", "usable"),
                                   ("ess", "ESS share at horizon"), ("max_w", "largest weight share at horizon")],
-                           fmts={k: (lambda r, k=k: escape(str(r[k]))) for k in ("density", "block", "usable", "ess", "max_w")}))
+                           fmts={k: (lambda r, k=k: escape(str(r[k]))) for k in ("density", "block", "usable", "ess",
+                                                                                 "max_w")}))
     budget = summary.get("density_budget")
     if isinstance(budget, dict) and budget:
         html.append("<h3>Density budget: share of the log-density variance by price of risk</h3>")
         rows = [{"measure": MEASURE_NAME.get(m, m), "price": p, "share": v}
                 for m, by in budget.items() if isinstance(by, dict) for p, v in by.items()]
         html.append(_table(rows, [("measure", "set"), ("price", "price of risk"), ("share", "share at the horizon")],
-                           fmts={"measure": lambda r: escape(str(r["measure"])), "price": lambda r: escape(str(r["price"])),
+                           fmts={"measure": lambda r: escape(str(r["measure"])),
+                                 "price": lambda r: escape(str(r["price"])),
                                  "share": lambda r: escape(fmt.share(r["share"]))}))
     if table is not None:
         series_ess, series_w, bands_w = [], [], []
@@ -1048,7 +1067,8 @@ def _market_consistency(run_dir: Path, summary: dict[str, Any]) -> str:
             if not sub:
                 continue
             html.append(f"<h3>{escape(MEASURE_NAME[measure])} set</h3>")
-            worst = sorted(sub, key=lambda r: -max(abs(float(r.get("z_market") or 0.0)), abs(float(r.get("z_model") or 0.0))))[:10]
+            worst = sorted(sub, key=lambda r: -max(abs(float(r.get("z_market") or 0.0)), abs(float(r.get("z_model")
+                                                                                                   or 0.0))))[:10]
             if len(worst) < len(sub):
                 html.append(f'<p class="note">The {len(worst)} instruments furthest from their quote or model price '
                             f"(largest |z|); all {len(sub)} below and in market_consistency.csv.</p>")
@@ -1091,10 +1111,12 @@ def _market_consistency(run_dir: Path, summary: dict[str, Any]) -> str:
                 labels = [r["instrument"].replace("swaption ", "").replace("equity call ", "").split(" K=")[0]
                           for r in sub]
                 pair.append(svg.bar_chart(
-                    title=f"{kind}: MC implied - market vol, {MEASURE_NAME[measure]} (bp; whiskers 2 SE; band: tolerance)",
+                    title=f"{kind}: MC implied - market vol, {MEASURE_NAME[measure]} (bp; whiskers 2 SE; band: "
+                          f"tolerance)",
                     labels=labels, values=[r["vol_difference_bp"] for r in sub],
                     errors=[2 * (r.get("vol_std_error_bp") or 0.0) for r in sub], y_label="bp of vol",
-                    tolerance=float(sub[0].get("vol_tolerance_bp") or 0.0) if len({r.get("convention") for r in sub}) == 1 else None,
+                    tolerance=float(sub[0].get("vol_tolerance_bp") or 0.0) if len({r.get("convention")
+                                                                                   for r in sub}) == 1 else None,
                     colour=svg.PALETTE[i], y_range=(lo, hi),
                 ))
             charts.append(_pair(f"market consistency {kind}", pair))
@@ -1119,7 +1141,8 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
     fit = c.get("house_view_fit")
     if fit:
         html.append(f'<p class="note">House view ({escape(str(fit.get("quantity")))}): the model\'s real-world '
-                    f'expectation lies within {escape(fmt.bp(fit.get("max_abs_gap_bp"), 2))} of the house-view path.</p>')
+                    f'expectation lies within {escape(fmt.bp(fit.get("max_abs_gap_bp"), 2))} of the house-view '
+                    f'path.</p>')
     targets = _csv(run_dir, "real_world_targets")
     charts = []
     if targets is not None and len(targets):
@@ -1159,17 +1182,21 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
         html.append(_table(b_rows, [("horizon", "horizon (y)"), ("percentile", "percentile"), ("tail", "tail"),
                                     ("model", "model"), ("requirement", "must be"), ("benchmark", "benchmark"),
                                     ("pass", "result")], fmts={
-            "horizon": lambda r: escape(fmt.years(r["horizon"])), "percentile": lambda r: escape(fmt.share(r["percentile"])),
+            "horizon": lambda r: escape(fmt.years(r["horizon"])),
+            "percentile": lambda r: escape(fmt.share(r["percentile"])),
             "tail": lambda r: escape(str(r["tail"])), "model": lambda r: escape(fmt.number(r["model"], 3)),
-            "requirement": lambda r: escape(str(r["requirement"])), "benchmark": lambda r: escape(fmt.number(r["benchmark"], 3)),
+            "requirement": lambda r: escape(str(r["requirement"])),
+            "benchmark": lambda r: escape(fmt.number(r["benchmark"], 3)),
             "pass": lambda r: "met" if str(r.get("pass")) in ("True", "true", "1") else "<strong>missed</strong>"}))
     html.append(_files(run_dir, ["wealth_ratio_benchmark.csv"]))
     stats = _records(_csv(run_dir, "real_world_statistics"))
     if stats:
         html.append("<h3>Moments (pooled annual steps; reported)</h3>")
         html.append(_table(stats, [("statistic", "statistic"), ("measure", "set"), ("value", "value")], fmts={
-            "statistic": lambda r: escape(str(r["statistic"])), "measure": lambda r: escape(MEASURE_NAME.get(r["measure"], str(r["measure"]))),
-            "value": lambda r: escape(_pct_format(str(r["statistic"]))(r["value"]) if "change" not in str(r["statistic"])
+            "statistic": lambda r: escape(str(r["statistic"])),
+            "measure": lambda r: escape(MEASURE_NAME.get(r["measure"], str(r["measure"]))),
+            "value": lambda r: escape(_pct_format(str(r["statistic"]))(r["value"])
+                                      if "change" not in str(r["statistic"])
                                       else fmt.percent(r["value"]))}))
         html.append(_files(run_dir, ["real_world_statistics.csv"]))
     pct = _records(_csv(run_dir, "real_world_percentiles"))
@@ -1178,7 +1205,8 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
         pcols = [k for k in pct[0] if k.startswith("p") and k[1:].replace(".", "").isdigit()]
         for quantity in dict.fromkeys(r["quantity"] for r in pct):
             show = _pct_format(quantity)
-            sub = {m: {r["horizon"]: r for r in pct if r["quantity"] == quantity and r["measure"] == m} for m in MEASURES}
+            sub = {m: {r["horizon"]: r for r in pct if r["quantity"] == quantity and r["measure"] == m}
+                   for m in MEASURES}
             horizons = sorted({h for by in sub.values() for h in by})
             head = ('<tr><th class="l" rowspan="2">year</th>' + "".join(
                 f'<th colspan="{len(pcols) + 1}">{escape(MEASURE_NAME[m])}</th>' for m in MEASURES if sub[m])
@@ -1218,12 +1246,14 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
         html.append(_table(values, [("method", "method"), ("value", "value ± SE")], fmts={
             "method": lambda r: escape(str(r["method"])),
             "value": lambda r: escape(fmt.price_se(r.get("value"), r.get("std_error")))}))
-        html.append(_table(diffs, [("comparison", "comparison"), ("difference", "difference ± SE"), ("z_score", "z")], fmts={
+        html.append(_table(diffs, [("comparison", "comparison"), ("difference", "difference ± SE"), ("z_score", "z")],
+                           fmts={
             "comparison": lambda r: escape(str(r["comparison"])),
             "difference": lambda r: escape(fmt.price_se(r.get("difference"), r.get("std_error"))),
             "z_score": lambda r: escape(fmt.zscore(r.get("z_score")))}))
     if v.get("real_world_sample_se") is not None:
-        html.append(f'<p class="note">Real-world SE: the larger of the sample value ({escape(fmt.number(v["real_world_sample_se"]))}) '
+        html.append(f'<p class="note">Real-world SE: the larger of the sample value '
+                    f'({escape(fmt.number(v["real_world_sample_se"]))}) '
                     "and the value implied by the market-consistent set's second moment.</p>")
     html.append(_files(run_dir, ["reconciliation.csv"]))
     ret = _records(_csv(run_dir, "expected_returns"))
@@ -1234,8 +1264,10 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
                                  ("market_consistent", "Q ± SE"), ("real_world", "P ± SE"), ("difference", "P - Q")],
                            fmts={"description": lambda r: escape(str(r["description"])),
                                  "horizon": lambda r: escape(fmt.years(r["horizon"])),
-                                 "market_consistent": lambda r: escape(f"{fmt.percent(r['market_consistent'])} ± {fmt.percent(r['market_consistent_se'])}"),
-                                 "real_world": lambda r: escape(f"{fmt.percent(r['real_world'])} ± {fmt.percent(r['real_world_se'])}"),
+                                 "market_consistent": lambda r: escape(f"{fmt.percent(r['market_consistent'])} ± "
+                                                                       f"{fmt.percent(r['market_consistent_se'])}"),
+                                 "real_world": lambda r: escape(f"{fmt.percent(r['real_world'])} ± "
+                                                                f"{fmt.percent(r['real_world_se'])}"),
                                  "difference": lambda r: escape(fmt.bp_move(r["difference"]))}))
         html.append(_files(run_dir, ["expected_returns.csv"]))
     return "".join(html)
@@ -1243,7 +1275,8 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
 
 # -- liabilities -------------------------------------------------------------------------------
 
-_LINE_NAME = {"unit_linked_gmmb": "unit-linked with maturity guarantee", "participating": "with-profits (participating)",
+_LINE_NAME = {"unit_linked_gmmb": "unit-linked with maturity guarantee",
+              "participating": "with-profits (participating)",
               "deferred_annuity_gao": "deferred annuity with GAO", "total": "total"}
 
 
@@ -1344,7 +1377,8 @@ def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any]
     curve_rows = ""
     if facts["zeros"]:
         curve_rows = ('<table><thead><tr><th class="l">maturity</th>' + "".join(
-            f"<th>{fmt.years(m)}y</th>" for m in facts["zeros"]) + '</tr></thead><tbody><tr><td class="l">zero rate</td>'
+            f"<th>{fmt.years(m)}y</th>" for m in facts["zeros"])
+            + '</tr></thead><tbody><tr><td class="l">zero rate</td>'
             + "".join(_cell(escape(fmt.percent(z))) for z in facts["zeros"].values()) + "</tr></tbody></table>")
     curve_text = facts["method"].split(" (")[0]
     if fmt.is_number(facts["ufr"]):
@@ -1352,7 +1386,8 @@ def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any]
                        f"{fmt.years(facts['llp'])}y, alpha {fmt.number(facts['alpha'], 3)}")
     dens = _densities(summary, manifest)
     dens_table = _table(dens, [("density", "density"), ("block", "block"), ("usable", "usable")],
-                        fmts={k: (lambda r, k=k: escape(str(r[k]))) for k in ("density", "block", "usable")}) if dens else ""
+                        fmts={k: (lambda r, k=k: escape(str(r[k]))) for k in ("density", "block",
+                                                                              "usable")}) if dens else ""
     params = _table(_key_parameters(cal), [("part", "part"), ("values", "parameters"), ("fit", "fit error")],
                     fmts={k: (lambda r, k=k: escape(r[k])) for k in ("part", "values", "fit")})
     html.append(f'<div class="cols"><div><h3>Verdicts</h3>{verdict_table}</div>'

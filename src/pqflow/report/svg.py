@@ -168,7 +168,8 @@ def _legend(frame: _Frame, items: list[tuple[str, str, str]]) -> list[str]:
             out.append(f'<rect x="{x}" y="{y - 8}" width="14" height="9" fill="{colour}" opacity="{opacity}"/>')
         else:
             dash = ' stroke-dasharray="5,3"' if kind == "dash" else ""
-            out.append(f'<line x1="{x}" x2="{x + 14}" y1="{y - 4}" y2="{y - 4}" stroke="{colour}" stroke-width="2"{dash}/>')
+            out.append(f'<line x1="{x}" x2="{x + 14}" y1="{y - 4}" y2="{y - 4}" stroke="{colour}" '
+                       f'stroke-width="2"{dash}/>')
         out.append(f'<text x="{x + 18}" y="{y}" class="legend">{escape(label)}</text>')
         x += 28 + 6.2 * len(label)
         if x > frame.pr - 120:

@@ -223,7 +223,8 @@ def export_slice(
         try:
             if fmt == "csv":
                 writer: Any = pacsv.CSVWriter(
-                    fh, out_schema.remove_metadata(), write_options=pacsv.WriteOptions(include_header=True, quoting_header="none")
+                    fh, out_schema.remove_metadata(), write_options=pacsv.WriteOptions(include_header=True,
+                                                                                       quoting_header="none")
                 )
             else:
                 kwargs = parquet_write_kwargs(out_schema)

@@ -49,7 +49,8 @@ tolerance (a check that forgives 5 bp must at least see 10 bp); for a quote give
 of notional and 10% of the premium. In price it is that premium share, or the smaller of the
 price moves of the quote for its volatility up and down by the material amount (the harder
 side: deep out of the money a price moves less down than up). The quote cell's test only sees
-what exceeds its tolerance, so its effect is ``material - tolerance`` in price and its standard error the Monte Carlo one: the cell is
+what exceeds its tolerance, so its effect is ``material - tolerance`` in price and its standard
+error the Monte Carlo one: the cell is
 inconclusive when ``(material - tolerance) / SE < z_f`` (columns ``material_effect`` and
 ``statistic_se``); the model-price cell has no tolerance, effect ``material``. A cell whose
 payoff is non-zero on fewer than :data:`MIN_PAYING_UNITS` sampling units (an antithetic pair is
@@ -149,7 +150,8 @@ def _bond(k: float) -> str:
     return f"zcb_{k:g}y"
 
 
-def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option, shift) -> tuple[float | None, str | None]:
+def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option, shift) -> tuple[float | None,
+                                                                                                  str | None]:
     """The quote's price from its volatility, and a note when a stated price disagrees."""
     vol = _num(spec.get("market_vol"))
     stated = _num(spec.get("market_price"))

@@ -154,7 +154,8 @@ def real_world_statistics(inputs: RunInputs) -> tuple[pd.DataFrame, pd.DataFrame
     """Report tables for both sets: pooled annual moments, and percentiles by horizon.
 
     Only whole-year output times are read. The first table has one row per (measure,
-    statistic); the second one row per (measure, quantity, horizon) with the mean and the percentiles :data:`PERCENTILES` (unweighted: the
+    statistic); the second one row per (measure, quantity, horizon) with the mean and the
+    percentiles :data:`PERCENTILES` (unweighted: the
     distribution of each set under its own measure).
     """
     stats_rows, pct_rows = [], []
@@ -422,6 +423,7 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
         entry["warnings"].append("no constant equity_risk_premium in calibration inputs: not tested")
     for col in untested:
         entry["warnings"].append(
-            f"risk premium of Heston index {col}: sqrt(v) mu(t) + s lambda v has no closed-form expectation, not tested")
+            f"risk premium of Heston index {col}: sqrt(v) mu(t) + s lambda v has no closed-form expectation, "
+            "not tested")
     entry["statistics"] = {r["statistic"] + f" ({r['measure']})": r["value"] for r in stats.to_dict("records")}
     return CheckResult(name=CHECK, summary=entry, tables=tables)

@@ -132,7 +132,8 @@ def _equity_column(inputs: RunInputs, names: list[str]) -> str | None:
     return col if col in names else None
 
 
-def density_for(reader: ScenarioSetReader, columns: Sequence[str], rates_drivers: Sequence[str]) -> tuple[str, str | None]:
+def density_for(reader: ScenarioSetReader, columns: Sequence[str], rates_drivers: Sequence[str]) -> tuple[str,
+                                                                                                          str | None]:
     """The density column to weight quantities built from ``columns`` with: the smallest
     restricted block the set carries that contains every driver they depend on
     (:mod:`pqflow.measure.blocks`), or the full density. Returns ``(column, block or None)``."""
@@ -300,7 +301,8 @@ def reconciliation_check(
     scale = abs(cf) if cf is not None else abs(q)
     paying = {m: values[f"{m}_paying_units"] for m in ("market_consistent", "real_world")}
     both_sets = min(paying.values())
-    cells["paying_units"] = ([paying["market_consistent"], paying["real_world"]] if cf is not None else []) + [both_sets]
+    cells["paying_units"] = ([paying["market_consistent"], paying["real_world"]] if cf is not None
+                             else []) + [both_sets]
     judged = (cells["paying_units"] >= MIN_PAYING_UNITS) & (cells["std_error"] > 0)
     cells["z_normal_approximation"] = cells["z_score"]
     cells["z_score"] = np.where(judged, cells["z_score"], 0.0)
@@ -315,7 +317,8 @@ def reconciliation_check(
                         deviation=MATERIAL_SHARE)
     entry["paying_units"] = paying
     if cf is None:
-        entry["warnings"].append("no closed form: calibration.json has no rates (Hull-White or G2++) and equity parameters")
+        entry["warnings"].append("no closed form: calibration.json has no rates (Hull-White or G2++) and equity "
+                                 "parameters")
     entry["guarantee"] = {
         "product": "unit-linked maturity guarantee: put on the equity total-return index",
         "maturity": values["maturity"], "guaranteed_amount": values["guarantee"],
@@ -334,7 +337,8 @@ def reconciliation_check(
         "control_variates": {m: values[f"{m}_controls"] for m in ("market_consistent", "real_world")},
     }
     values_table = pd.DataFrame([
-        *([{"method": f"closed form ({'G2++' if 'g2pp' in inputs.parameters else 'Hull-White'} + Black)", "value": cf, "std_error": 0.0}] if cf is not None else []),
+        *([{"method": f"closed form ({'G2++' if 'g2pp' in inputs.parameters else 'Hull-White'} + Black)", "value": cf,
+            "std_error": 0.0}] if cf is not None else []),
         {"method": "market-consistent set (control variates)", "value": q, "std_error": q_se},
         {"method": f"real-world set with deflators ({values['real_world_density']}, control variates)",
          "value": p, "std_error": p_se},
