@@ -244,9 +244,11 @@ def short_rate_correlation(rates: HullWhiteParams | G2PlusPlusParams, rho: float
     G2++ ``(rho_x sigma + rho_y eta) / sqrt(sigma^2 + eta^2 + 2 rho sigma eta)`` (``dr`` loads
     ``sigma dW1 + eta dW2``)."""
     if isinstance(rates, HullWhiteParams):
-        assert not isinstance(rho, tuple)
+        if isinstance(rho, tuple):
+            raise ValueError("under Hull-White rates an index has one correlation with the rates driver, not a pair")
         return float(rho)
-    assert isinstance(rho, tuple)
+    if not isinstance(rho, tuple):
+        raise ValueError("under G2++ rates an index has a pair of correlations (with rates_x and rates_y)")
     s, e = rates.sigma, rates.eta
     return float((rho[0] * s + rho[1] * e) / np.sqrt(s * s + e * e + 2.0 * rates.rho * s * e))
 
@@ -449,7 +451,8 @@ def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
         return curve, {"method": "typed-in pillars, monotone cubic on -ln P(0,t)"}
     ext = config.curve_extrapolation
     path = config.market_file("curve")
-    assert ext is not None and path is not None
+    if ext is None or path is None:
+        raise ConfigError("curve: give [curve] pillars, or market_data.curve with [curve_extrapolation]")
     data = read_curve_inputs(path)
     if ext.method == "last_liquid_forward":
         return fit_llfr_curve(data, ext, path)
@@ -515,7 +518,8 @@ def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G
     if config.g2pp is not None:
         return G2PlusPlusParams(**config.g2pp.model_dump()), {"method": "typed in"}, []
     path = config.market_file("swaptions")
-    assert path is not None
+    if path is None:
+        raise ConfigError(f"{config.rates.model}: give the parameters, or market_data.swaptions to fit them")
     rows = read_swaption_quotes(path)
     quotes = [SwaptionQuote(expiry=r.expiry, tenor=r.tenor, vol=r.vol, convention=r.convention, shift=r.shift,
                             weight=r.weight) for r in rows]
@@ -574,10 +578,12 @@ def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G
 
 def _equity_spot(config: RunConfig) -> tuple[float, float]:
     if config.equity.level is not None:
-        assert config.equity.dividend_yield is not None
+        if config.equity.dividend_yield is None:
+            raise ConfigError("equity: level and dividend_yield go together")
         return config.equity.level, config.equity.dividend_yield
     path = config.market_file("equity_index")
-    assert path is not None
+    if path is None:
+        raise ConfigError("equity: give level and dividend_yield, or market_data.equity_index")
     rows = read_equity_indices(path)
     if config.equity.name not in rows:
         raise MarketDataError(f"{path}: no row for equity index {config.equity.name!r} (has: {', '.join(rows)})")
@@ -592,7 +598,8 @@ def _equity_vol(
     if config.equity.volatility is not None:
         return config.equity.volatility, {"method": "typed in"}, []
     path = config.market_file("equity_vols")
-    assert path is not None
+    if path is None:
+        raise ConfigError("equity: give volatility, or market_data.equity_vols")
     rows = [r for r in read_equity_vols(path) if r.index == config.equity.name]
     return fit_index_volatility(path, config.equity.name, "equity", rows, curve, hw, rho, level, q)
 
@@ -612,7 +619,8 @@ def _real_world(
                                                target_time=target_time)
         view = {"kind": "short_rate_at_year", "target_short_rate": rw.target_short_rate, "target_year": target_time}
     else:
-        assert rw.long_run_level is not None and rw.speed is not None
+        if rw.long_run_level is None or rw.speed is None:
+            raise ConfigError("real_world: give target_short_rate and target_year, or long_run_level and speed")
         maturity = rw.target_maturity if rw.target == "zero_yield" else None
         if maturity is not None and horizon + maturity > curve.max_maturity:
             raise ConfigError(

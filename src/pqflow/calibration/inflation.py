@@ -196,7 +196,8 @@ class YoYCapFloorQuote:
             if self.convention is not None or self.forwards is not None or self.shift != 0.0:
                 raise MarketDataError(f"{where}: a price quote takes no convention, shift or forwards")
         else:
-            assert self.vol is not None
+            if self.vol is None:
+                raise MarketDataError(f"{where}: give exactly one of price and vol")
             if self.convention not in VOL_CONVENTIONS:
                 raise MarketDataError(
                     f"{where}: convention must be one of {VOL_CONVENTIONS}, not {self.convention!r}"
@@ -242,7 +243,8 @@ class YoYCapFloorQuote:
 
 def _flat_vol_price(nominal_curve: DiscountCurve, quote: YoYCapFloorQuote, vol_decimal: float) -> float:
     """``sum_i P_n(0, i) option_price(convention, F_i, K, vol, i)`` (accrual 1)."""
-    assert quote.convention is not None and quote.forwards is not None
+    if quote.convention is None or quote.forwards is None:
+        raise RuntimeError("a volatility quote carries its convention and forwards (checked when it was read)")
     pay = np.arange(1, quote.n_caplets + 1, dtype=float)
     kind = "call" if quote.kind == "cap" else "put"
     prices = option_price(
@@ -258,7 +260,8 @@ def yoy_quote_price(nominal_curve: DiscountCurve, quote: YoYCapFloorQuote) -> fl
     if quote.price is not None:
         return float(quote.price)
     vol = quote.vol_decimal
-    assert vol is not None
+    if vol is None:
+        raise RuntimeError("a cap/floor quote has a price or a volatility (checked when it was read)")
     return _flat_vol_price(nominal_curve, quote, vol)
 
 

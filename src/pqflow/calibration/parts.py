@@ -35,7 +35,7 @@ from pqflow.calibration.inflation import (
     real_curve_from_zc_inflation_swaps,
 )
 from pqflow.config.schema import IndexSection, RunConfig
-from pqflow.errors import CalibrationError, MarketDataError
+from pqflow.errors import CalibrationError, ConfigError, MarketDataError
 from pqflow.market.correlation import check_correlation_matrix, nearest_correlation_matrix
 from pqflow.market.curve import DiscountCurve, LogDiscountCurve
 from pqflow.market.data_files import (
@@ -143,7 +143,8 @@ def _checked_matrix(config: RunConfig) -> tuple[tuple[str, ...], np.ndarray, str
             raise MarketDataError(f"{where}: the matrix must be symmetric, within [-1, 1], with a unit diagonal")
     else:
         path = config.market_file("correlations")
-        assert path is not None
+        if path is None:
+            raise ConfigError("correlations: give [correlations] or market_data.correlations")
         data = read_correlation_matrix(path)
         names, matrix, where = data.names, data.matrix, str(path)
         fit = {"method": "from file", "drivers": list(names), "repaired": False}
@@ -210,7 +211,8 @@ def credit_correlation(config: RunConfig) -> tuple[np.ndarray | None, dict[str, 
     the market drivers in this version: non-zero entries between a credit driver and a
     configured market driver are refused rather than ignored."""
     sec = config.credit
-    assert sec is not None
+    if sec is None:
+        raise RuntimeError("credit correlations asked for a configuration without [credit]")
     independent: dict[str, Any] = {"method": "independent ratings (no credit_<rating> drivers in the matrix)"}
     if config.correlations is None and config.market_file("correlations") is None:
         return None, independent
@@ -321,11 +323,13 @@ def calibrate_index(
 ) -> tuple[TotalReturnIndex, float | PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
     """One further index: its parameters, real-world price of risk, fit report and option quotes."""
     if section.level is not None:
-        assert section.income_yield is not None
+        if section.income_yield is None:
+            raise ConfigError(f"indices.{section.name}: level and income_yield go together")
         level, q = section.level, section.income_yield
     else:
         path = config.market_file("equity_index")
-        assert path is not None
+        if path is None:
+            raise ConfigError(f"indices.{section.name}: give level and income_yield, or market_data.equity_index")
         rows = read_equity_indices(path)
         if section.name not in rows:
             raise MarketDataError(f"{path}: no row for index {section.name!r} (has: {', '.join(rows)})")
@@ -343,7 +347,8 @@ def calibrate_index(
         vol: float | PiecewiseConstant = section.volatility
         fit = {"method": "typed in"}
     else:
-        assert vol_path is not None
+        if vol_path is None:
+            raise ConfigError(f"indices.{section.name}: give volatility, or market_data.equity_vols")
         vol, fit, instruments = fit_index_volatility(
             vol_path, section.name, section.kind, quotes, curve, hw, rho_rates, level, q
         )
@@ -399,13 +404,16 @@ def calibrate_inflation(
     """The inflation part, its prices of risk (by driver), the fit report and the year-on-year
     cap/floor instruments (empty when the volatilities are typed in)."""
     sec = config.inflation
-    assert sec is not None
+    if sec is None:
+        raise RuntimeError("the inflation part asked for a configuration without [inflation]")
     if sec.swap_maturities is not None:
-        assert sec.swap_rates is not None
+        if sec.swap_rates is None:
+            raise ConfigError("inflation: swap_maturities and swap_rates go together")
         mats, zc, source = np.array(sec.swap_maturities, float), np.array(sec.swap_rates, float), "typed in"
     else:
         path = config.market_file("inflation_swaps")
-        assert path is not None
+        if path is None:
+            raise ConfigError("inflation: give swap_maturities and swap_rates, or market_data.inflation_swaps")
         rows = read_inflation_swaps(path)
         mats, zc, source = np.array([r.maturity for r in rows]), np.array([r.rate for r in rows]), str(path)
     try:
@@ -430,9 +438,11 @@ def calibrate_inflation(
     }
     instruments: list[dict[str, Any]] = []
     if sec.fit:
-        assert isinstance(rates, HullWhiteParams)  # the schema refuses a fit under G2++
+        if not isinstance(rates, HullWhiteParams):  # the schema refuses a fit under G2++
+            raise ConfigError("inflation.fit: the inflation volatilities are fitted under Hull-White rates only")
         cap_path = config.market_file("inflation_caps")
-        assert cap_path is not None
+        if cap_path is None:
+            raise ConfigError("inflation.fit: needs market_data.inflation_caps")
         caps = read_inflation_caps(cap_path)
         initial = JarrowYildirimParams(
             nominal=rates, real=real, inflation_volatility=sigma_i,
@@ -501,13 +511,15 @@ def inflation_from_json(data: dict[str, Any]) -> InflationPart:
 def calibrate_credit_part(config: RunConfig) -> tuple[CirCreditModel, dict[str, Any]]:
     """The credit model (ratings independent of each other and of the Gaussian drivers)."""
     sec = config.credit
-    assert sec is not None
+    if sec is None:
+        raise RuntimeError("the credit part asked for a configuration without [credit]")
     path = config.market_file("credit_spreads")
     from_file = read_credit_spreads(path) if path is not None else {}
     curves = []
     for r in sec.ratings:
         if r.spread_maturities is not None:
-            assert r.spreads_bp is not None
+            if r.spreads_bp is None:
+                raise ConfigError(f"credit.ratings {r.name!r}: spread_maturities and spreads_bp go together")
             mats, spreads = np.array(r.spread_maturities, float), np.array(r.spreads_bp, float) * 1e-4
         else:
             if r.name not in from_file:

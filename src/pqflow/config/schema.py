@@ -263,7 +263,8 @@ class InflationSection(_Section):
         if (self.swap_maturities is None) != (self.swap_rates is None):
             raise ValueError("swap_maturities and swap_rates go together")
         if self.swap_maturities is not None:
-            assert self.swap_rates is not None
+            if self.swap_rates is None:
+                raise ValueError("swap_maturities and swap_rates go together")
             if len(self.swap_maturities) != len(self.swap_rates) or not self.swap_maturities:
                 raise ValueError("swap_maturities and swap_rates need the same, non-zero number of entries")
         if any(m <= 0 for m in self.real_bond_maturities) \
@@ -304,7 +305,8 @@ class CreditRatingSection(_Section):
         if (self.spread_maturities is None) != (self.spreads_bp is None):
             raise ValueError("spread_maturities and spreads_bp go together")
         if self.spread_maturities is not None:
-            assert self.spreads_bp is not None
+            if self.spreads_bp is None:
+                raise ValueError("spread_maturities and spreads_bp go together")
             if len(self.spread_maturities) != len(self.spreads_bp) or not self.spread_maturities:
                 raise ValueError("spread_maturities and spreads_bp need the same, non-zero number of entries")
         return self
@@ -868,7 +870,8 @@ class RunConfig(_Section):
         if self.curve is not None:
             have, key = self.curve.maturities[-1], "curve.maturities ends at"
         else:
-            assert self.curve_extrapolation is not None
+            if self.curve_extrapolation is None:
+                raise ValueError("give the curve: [curve] pillars, or market_data.curve with [curve_extrapolation]")
             have, key = self.curve_extrapolation.long_end_years, "curve_extrapolation.long_end_years is"
         if need > have + 1e-9:
             raise ValueError(

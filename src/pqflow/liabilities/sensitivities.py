@@ -125,7 +125,8 @@ def value_sensitivities(run_dir: str | Path, portfolio: Portfolio, info: RunInfo
             stacked = np.concatenate([vals[0], vals[1], vals[1] - vals[0]], axis=1)
             m = Moments.of(sampling_units(stacked, antithetic))
             acc = m if acc is None else acc.merge(m)
-        assert acc is not None
+        if acc is None:
+            raise RunDirectoryError(f"{sens_dir}: no scenario parts to value")
         k = len(lines.names) * len(QUANTITIES)
         mean, se = acc.mean, acc.std_error
         ce_s = _ce_values(portfolio, lines, sens_dir, last, interp)

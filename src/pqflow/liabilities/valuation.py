@@ -393,7 +393,8 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
         stats["value"] = by_group.sum(axis=-1).reshape(scen.n_paths, -1)
         stats["profile"] = by_group[:, profile_idx].reshape(scen.n_paths, -1)
         if real_world:
-            assert scen.cash_account is not None
+            if scen.cash_account is None:
+                raise RuntimeError("the real-world valuation reads the cash account, but it was not read")
             undeflated = _discounted(portfolio, scen, 1.0 / scen.cash_account)
             stats["undeflated"] = np.einsum("gm,nmq->ngq", member, undeflated.sum(axis=-1)).reshape(
                 scen.n_paths, -1)

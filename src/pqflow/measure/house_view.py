@@ -85,7 +85,8 @@ def _g2_combination(
         return 1.0, 1.0, path - g2pp.phi(curve, params, t)
     if target == "zero_yield":
         _need_maturity(maturity)
-        assert maturity is not None
+        if maturity is None:
+            raise ValueError("a zero-yield target needs a positive maturity, got None")
         c_x = float(b_factor(params.a, maturity))
         c_y = float(b_factor(params.b, maturity))
         return c_x, c_y, maturity * path + _g2_log_a(curve, params, t, maturity)
@@ -127,12 +128,14 @@ def model_target_value(
         if target != "zero_yield":
             raise ValueError(f"unknown target {target!r}: use 'short_rate' or 'zero_yield'")
         _need_maturity(maturity)
-        assert maturity is not None
+        if maturity is None:
+            raise ValueError("a zero-yield target needs a positive maturity, got None")
         loadings = float(b_factor(params.a, maturity)) * mx + float(b_factor(params.b, maturity)) * my
         return (-_g2_log_a(curve, params, t, maturity) + loadings) / maturity
     if target == "short_rate":
         return factor_mean + alpha(curve, params, t)
-    assert maturity is not None
+    if maturity is None:
+        raise ValueError("a zero-yield target needs a positive maturity, got None")
     return (-_log_a(curve, params, t, maturity) + b_factor(params.mean_reversion, maturity) * factor_mean) / maturity
 
 
@@ -161,7 +164,8 @@ def factor_mean_for_target(
     if target == "short_rate":
         return path - alpha(curve, params, t)
     if target == "zero_yield":
-        assert maturity is not None
+        if maturity is None:
+            raise ValueError("a zero-yield target needs a positive maturity, got None")
         return (maturity * path + _log_a(curve, params, t, maturity)) / b_factor(params.mean_reversion, maturity)
     raise ValueError(f"unknown target {target!r}: use 'short_rate' or 'zero_yield'")
 

@@ -187,7 +187,8 @@ def shocked_config(config: RunConfig, sens: SensitivitySection, set_dir: str | P
     spread = sens.credit_spread_shift_bp
     for kind in list(md):
         path = config.market_file(kind)
-        assert path is not None
+        if path is None:
+            raise ConfigError(f"market_data.{kind}: no file given")
         if not path.is_file():
             raise MarketDataError(f"{path}: market-data file not found (market_data.{kind})")
         header, rows = read_csv_table(path)

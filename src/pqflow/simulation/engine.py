@@ -378,6 +378,7 @@ def simulate_batch(
     for name in whole:
         out[f"{DENSITY_COLUMN[measure]}_{name}"] = density
     for i, name in enumerate(partial):
-        assert core.block_density is not None
+        if core.block_density is None:
+            raise RuntimeError("partial density blocks were asked for but the core gave no block densities")
         out[f"{DENSITY_COLUMN[measure]}_{name}"] = core.block_density[i]
     return out

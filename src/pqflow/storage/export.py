@@ -72,7 +72,8 @@ def parse_scenario_range(text: str | None) -> tuple[int | None, int | None]:
         )
     first = int(m.group(1)) if m.group(1) else None
     if not m.group(2):
-        assert first is not None
+        if first is None:
+            raise ExportError(f"--scenarios {text!r}: give FIRST, FIRST:STOP, FIRST: or :STOP")
         return first, first + 1
     stop = int(m.group(3)) if m.group(3) else None
     if first is not None and stop is not None and stop <= first:

@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
+from pqflow.errors import RunDirectoryError
 from pqflow.validation.mean_tests import DENSITY_DEVIATION, CellMoments, mean_test, rule_for_density
 from pqflow.validation.reader import ScenarioSetReader
 
@@ -80,7 +81,8 @@ def density_table(reader: ScenarioSetReader, *, credit_density: bool = False) ->
             total_sq[c] = total_sq[c] + s2 if c in total_sq else s2
             largest[c] = np.maximum(largest[c], mx) if c in largest else mx
         n_paths += next(iter(cols.values())).shape[0]
-    assert times is not None
+    if times is None:
+        raise RunDirectoryError(f"{reader.set_dir}: the scenario set has no parts to read")
     frames = []
     z99 = norm.ppf(0.995)
     for c in columns:

@@ -285,14 +285,17 @@ def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.
     out = np.empty((deflator.shape[0], len(specs)))
     for j, s in enumerate(specs):
         k = time_index(times, s.expiry)
-        assert k is not None
+        if k is None:
+            raise RuntimeError(f"instrument expiry {s.expiry:g} is not an output time (a testable instrument must be)")
         if s.kind == "yoy_option":  # annual caplets tau (I_i / I_{i-1} - 1 - K)^+ paid at i, tau = 1
             cpi = cols["cpi"]
             w = 1.0 if s.option == "cap" else -1.0
             ks = [time_index(times, float(i)) for i in range(int(round(s.expiry)) + 1)]
             total = np.zeros(deflator.shape[0])
             for k0, k1 in zip(ks[:-1], ks[1:], strict=True):
-                assert k0 is not None and k1 is not None
+                if k0 is None or k1 is None:
+                    raise RuntimeError(f"a caplet date of the {s.expiry:g}-year cap is not an output time "
+                                       "(a testable cap has all of them)")
                 total += deflator[:, k1] * np.maximum(w * (cpi[:, k1] / cpi[:, k0] - 1.0 - s.strike), 0.0)
             out[:, j] = total
             continue
@@ -335,7 +338,8 @@ def _material_price(s: InstrumentSpec, vega: float | None, tol: dict[str, float]
     """The material deviation in price (module docstring), ``None`` without a price to scale."""
     if vega is not None and s.kind != "yoy_option":
         vol = max(MATERIAL_VOL.get(s.convention, MATERIAL_VOL["lognormal"]), 2.0 * tol.get(s.convention, 0.0))
-        assert s.market_vol is not None and s.forward is not None
+        if s.market_vol is None or s.forward is None:
+            raise RuntimeError("an instrument with a vega has a market volatility and a forward")
         args = dict(annuity=s.annuity, kind=s.option, shift=s.shift)
         at = float(option_price(s.convention, s.forward, s.strike, s.market_vol, s.expiry, **args))
         moves = [abs(float(option_price(s.convention, s.forward, s.strike, v, s.expiry, **args)) - at)

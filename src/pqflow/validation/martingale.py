@@ -31,7 +31,7 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
-from pqflow.errors import IntegrityError
+from pqflow.errors import IntegrityError, RunDirectoryError
 from pqflow.measure.blocks import CREDIT_PREFIX, column_drivers, density_factors
 from pqflow.validation.assets import MartingaleAsset
 from pqflow.validation.mean_tests import MARTINGALE_DEVIATION, ROBUST, CellMoments, mean_test, rule_for_asset
@@ -162,12 +162,14 @@ def martingale_table(
             acc[a.name] = m if prev is None else prev.merge(m)
         for e in indices:
             start.setdefault(e, float(cols[e][0, 0]))
-    assert times is not None
+    if times is None:
+        raise RunDirectoryError(f"{reader.set_dir}: the scenario set has no parts to read")
 
     rows = []
     for a in assets:
         moments = acc[a.name]
-        assert moments is not None
+        if moments is None:
+            raise RuntimeError(f"no moments accumulated for asset {a.name!r} although parts were read")
         ref = np.asarray(a.reference(times), dtype=float)
         factors = weights[a.name]
         if factors:  # a restricted density: lognormal unless a credit block is among its factors

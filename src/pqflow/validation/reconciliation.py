@@ -243,7 +243,8 @@ def expected_returns_table(inputs: RunInputs, horizons: tuple[float, ...] = RETU
             for a in assets:
                 if a in bonds:
                     m = bond_maturity_of(a)
-                    assert m is not None
+                    if m is None:
+                        raise RuntimeError(f"{a!r} was listed as a bond column but names no maturity")
                     if h + m > inputs.curve.max_maturity:
                         continue
                     a0 = float(inputs.curve.discount(h + m))
