@@ -175,6 +175,27 @@ def _table(rows: list[dict[str, Any]], columns: list[tuple[str, str]], *,
     return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
+# Cell formatters for _table's ``fmts``, one closure per column (a lambda with a default argument
+# would not match the one-argument signature).
+_CellFormat = Callable[[dict[str, Any]], str]
+
+
+def _text_cell(key: str) -> _CellFormat:
+    return lambda r: escape(r[key])
+
+
+def _str_cell(key: str) -> _CellFormat:
+    return lambda r: escape(str(r[key]))
+
+
+def _money_cell(key: str) -> _CellFormat:
+    return lambda r: escape(fmt.money(r.get(key)))
+
+
+def _formatted_cell(key: str, f: Callable[[Any], str]) -> _CellFormat:
+    return lambda r: escape(str(r.get(key))) if isinstance(r.get(key), str) else escape(f(r.get(key)))
+
+
 def _long_table(rows: list[dict[str, Any]], shown: list[dict[str, Any]], columns: list[tuple[str, str]], *,
                 fmts: dict[str, Callable[[dict[str, Any]], str]] | None = None, what: str = "rows") -> str:
     """A table of ``shown`` (the rows a reviewer reads first) and, folded below it, every row;
@@ -214,7 +235,7 @@ def _files(run_dir: Path, names: list[str]) -> str:
 def _records(frame: pd.DataFrame | None) -> list[dict[str, Any]]:
     if frame is None:
         return []
-    return [{k: (None if isinstance(v, float) and math.isnan(v) else v) for k, v in r.items()}
+    return [{str(k): (None if isinstance(v, float) and math.isnan(v) else v) for k, v in r.items()}
             for r in frame.to_dict(orient="records")]
 
 
@@ -473,7 +494,7 @@ def _verdicts(run_dir: Path, summary: dict[str, Any], valuation: dict[str, Any] 
              or c.get("material_deviation") is not None]
     power_html = ("<h3>What each check can detect</h3>" + _table(
         power, [("check", "check"), ("deviation", "material deviation"), ("rule", "power rule")],
-        fmts={k: (lambda r, k=k: escape(r[k])) for k in ("check", "deviation", "rule")})) if power else ""
+        fmts={k: _text_cell(k) for k in ("check", "deviation", "rule")})) if power else ""
     warnings = _warnings(summary, valuation)
     warn_html = ("<h3>Warnings</h3><ul class=\"warn\">" + "".join(f"<li>{escape(w)}</li>" for w in warnings)
                  + "</ul>") if warnings else '<p class="note">No warnings.</p>'
@@ -687,12 +708,12 @@ def _column_format(col: str, *, vols_in_bp: bool = False) -> Callable[[Any], str
 def _fit_table(rows: list[dict[str, Any]], *, vols_in_bp: bool) -> str:
     cols = [k for k in rows[0].keys() if not isinstance(rows[0][k], (list, dict))
             and any(r.get(k) is not None for r in rows)]  # a column empty in every row says nothing
-    fmts = {}
+    fmts: dict[str, _CellFormat] = {}
     for k in cols:
         f = _column_format(k, vols_in_bp=vols_in_bp)
         if k == "strike" and all(fmt.is_number(r.get(k)) and abs(float(r[k])) < 1 for r in rows):
             f = fmt.percent  # a rate strike (caps, floors); index strikes are levels
-        fmts[k] = (lambda r, k=k, f=f: escape(str(r.get(k))) if isinstance(r.get(k), str) else escape(f(r.get(k))))
+        fmts[k] = _formatted_cell(k, f)
     return _table(rows, [(k, k.replace("_", " ")) for k in cols], fmts=fmts)
 
 
@@ -720,7 +741,7 @@ def _fit_scalar(key: str, v: Any) -> str:
 def _calibration(cal: dict[str, Any]) -> str:
     html = ["<h3>Calibrated parameters and fit</h3>",
             _table(_key_parameters(cal), [("part", "part"), ("values", "parameters"), ("fit", "fit error")],
-                   fmts={k: (lambda r, k=k: escape(r[k])) for k in ("part", "values", "fit")})]
+                   fmts={k: _text_cell(k) for k in ("part", "values", "fit")})]
     par = cal.get("parameters") or {}
     if "driver_correlation" in par:
         dc = par["driver_correlation"]
@@ -796,25 +817,33 @@ class _Driver:
     transform: Callable[[dict[str, np.ndarray]], np.ndarray]
 
 
+def _column_of(c: str) -> Callable[[dict[str, np.ndarray]], np.ndarray]:
+    return lambda d: d[c]
+
+
+def _zero_yield_of(c: str, m: float) -> Callable[[dict[str, np.ndarray]], np.ndarray]:
+    return lambda d: -np.log(d[c]) / m
+
+
 def _drivers(names: list[str]) -> list[_Driver]:
     """Every modelled driver of a set, grouped by asset class, from its column names."""
     out: list[_Driver] = []
     have = set(names)
-    bonds = sorted((bond_maturity_of(c), c) for c in names if bond_maturity_of(c) is not None)
+    bonds = sorted((m, c) for c in names if (m := bond_maturity_of(c)) is not None)
     if "short_rate" in have:
         out.append(_Driver("Nominal rates", "short rate", ("short_rate",), "rate", lambda d: d["short_rate"]))
     if bonds:
         m, c = bonds[-1]
         out.append(_Driver("Nominal rates", f"{fmt.years(m)}-year zero yield", (c,), "rate",
-                           lambda d, c=c, m=m: -np.log(d[c]) / m))
+                           _zero_yield_of(c, m)))
     for c in names:
         if c.startswith("equity_"):
             out.append(_Driver("Equity", f"{c[len('equity_'):]} (total return index)", (c,), "level",
-                               lambda d, c=c: d[c]))
+                               _column_of(c)))
     for c in names:
         if c.startswith("property_"):
             out.append(_Driver("Property", f"{c[len('property_'):]} (total return index)", (c,), "level",
-                               lambda d, c=c: d[c]))
+                               _column_of(c)))
     if "cpi" in have:
         out.append(_Driver("Inflation and real rates", "CPI", ("cpi",), "level", lambda d: d["cpi"]))
     if "real_short_rate" in have:
@@ -826,18 +855,18 @@ def _drivers(names: list[str]) -> list[_Driver]:
     if reals:
         m, c = reals[-1]
         out.append(_Driver("Inflation and real rates", f"{fmt.years(m)}-year real zero yield", (c,), "rate",
-                           lambda d, c=c, m=m: -np.log(d[c]) / m))
+                           _zero_yield_of(c, m)))
     for c in names:
         if c.startswith("intensity_"):
             rating = c[len("intensity_"):]
-            out.append(_Driver("Credit", f"{rating} default intensity", (c,), "rate", lambda d, c=c: d[c]))
+            out.append(_Driver("Credit", f"{rating} default intensity", (c,), "rate", _column_of(c)))
             spreads = sorted((float(s.rsplit("_", 1)[1][:-1]), s) for s in names
                              if s.startswith(f"spread_{rating}_") and s.endswith("y")
                              and s.rsplit("_", 1)[1][:-1].replace(".", "").isdigit())
             if spreads:
                 m, s = spreads[-1]
                 out.append(_Driver("Credit", f"{rating} {fmt.years(m)}-year credit spread", (s,), "rate",
-                                   lambda d, s=s: d[s]))
+                                   _column_of(s)))
     return out
 
 
@@ -1006,7 +1035,7 @@ def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | 
         html.append("<h3>Usable horizon of each density</h3>")
         html.append(_table(dens, [("density", "density"), ("block", "block"), ("usable", "usable"),
                                   ("ess", "ESS share at horizon"), ("max_w", "largest weight share at horizon")],
-                           fmts={k: (lambda r, k=k: escape(str(r[k]))) for k in ("density", "block", "usable", "ess",
+                           fmts={k: _str_cell(k) for k in ("density", "block", "usable", "ess",
                                                                                  "max_w")}))
     budget = summary.get("density_budget")
     if isinstance(budget, dict) and budget:
@@ -1344,7 +1373,7 @@ def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
                                   ("change", f"change ({cur})"), ("change_se_paired", "SE"),
                                   ("change_se_independent", "SE, independent sets")],
                            fmts={"quantity": lambda r: escape(str(r["quantity"]).replace("_", " ")),
-                                 **{k: (lambda r, k=k: escape(fmt.money(r.get(k))))
+                                 **{k: _money_cell(k)
                                     for k in ("value", "change", "change_se_paired", "change_se_independent")}}))
         be = [r for r in sens if r["quantity"] == "best_estimate"]
         if be:
@@ -1386,10 +1415,10 @@ def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: dict[str, Any]
                        f"{fmt.years(facts['llp'])}y, alpha {fmt.number(facts['alpha'], 3)}")
     dens = _densities(summary, manifest)
     dens_table = _table(dens, [("density", "density"), ("block", "block"), ("usable", "usable")],
-                        fmts={k: (lambda r, k=k: escape(str(r[k]))) for k in ("density", "block",
+                        fmts={k: _str_cell(k) for k in ("density", "block",
                                                                               "usable")}) if dens else ""
     params = _table(_key_parameters(cal), [("part", "part"), ("values", "parameters"), ("fit", "fit error")],
-                    fmts={k: (lambda r, k=k: escape(r[k])) for k in ("part", "values", "fit")})
+                    fmts={k: _text_cell(k) for k in ("part", "values", "fit")})
     html.append(f'<div class="cols"><div><h3>Verdicts</h3>{verdict_table}</div>'
                 f'<div><h3>Today\'s curve</h3><p class="note">{escape(curve_text)}</p>{curve_rows}'
                 f'<h3>Density weights</h3>{dens_table}</div></div>')

@@ -17,6 +17,9 @@ import numpy as np
 
 from pqflow.report import numbers
 
+# a run's figures arrive as numpy arrays or plain lists
+Floats = Sequence[float] | np.ndarray
+
 __all__ = [
     "PALETTE",
     "nice_ticks",
@@ -38,8 +41,8 @@ class Series:
     """A line: ``x``, ``y`` of one length; ``dashed`` for reference lines."""
 
     label: str
-    x: Sequence[float]
-    y: Sequence[float]
+    x: Floats
+    y: Floats
     colour: str = PALETTE[0]
     dashed: bool = False
 
@@ -49,9 +52,9 @@ class Band:
     """A filled band between ``lower`` and ``upper`` over ``x``."""
 
     label: str
-    x: Sequence[float]
-    lower: Sequence[float]
-    upper: Sequence[float]
+    x: Floats
+    lower: Floats
+    upper: Floats
     colour: str = PALETTE[0]
     opacity: float = 0.2
 
@@ -148,12 +151,12 @@ def _svg(parts: list[str], title: str, width: int = _W, height: int = _H, data: 
     )
 
 
-def _path(frame: _Frame, x: Sequence[float], y: Sequence[float]) -> str:
+def _path(frame: _Frame, x: Floats, y: Floats) -> str:
     pts = [(frame.px(float(a)), frame.py(float(b))) for a, b in zip(x, y, strict=True) if math.isfinite(float(b))]
     return " ".join(("M" if i == 0 else "L") + f"{a:.1f},{b:.1f}" for i, (a, b) in enumerate(pts))
 
 
-def _polygon(frame: _Frame, x: Sequence[float], lo: Sequence[float], hi: Sequence[float]) -> str:
+def _polygon(frame: _Frame, x: Floats, lo: Floats, hi: Floats) -> str:
     up = [f"{frame.px(float(a)):.1f},{frame.py(float(b)):.1f}" for a, b in zip(x, hi, strict=True)]
     dn = [f"{frame.px(float(a)):.1f},{frame.py(float(b)):.1f}" for a, b in zip(x, lo, strict=True)][::-1]
     return " ".join(up + dn)
@@ -197,7 +200,7 @@ def line_chart(
     if y_range is not None and log_y:
         y_range = tuple(math.log10(v) if v > 0 else float("nan") for v in y_range)  # type: ignore[assignment]
     if log_y:
-        def lg(v: Sequence[float]) -> list[float]:
+        def lg(v: Floats) -> list[float]:
             return [math.log10(float(a)) if float(a) > 0 else float("nan") for a in v]
 
         series = [Series(label=s.label, x=s.x, y=lg(s.y), colour=s.colour, dashed=s.dashed) for s in series]
@@ -240,8 +243,8 @@ def line_chart(
 def fan_chart(
     *,
     title: str,
-    times: Sequence[float],
-    percentiles: dict[float, Sequence[float]],
+    times: Floats,
+    percentiles: dict[float, Floats],
     colour: str = PALETTE[0],
     y_label: str = "",
     y_format: Callable[[float], str] = _fmt_default,
@@ -267,8 +270,8 @@ def bar_chart(
     *,
     title: str,
     labels: Sequence[str],
-    values: Sequence[float],
-    errors: Sequence[float] | None = None,
+    values: Floats,
+    errors: Floats | None = None,
     y_label: str = "",
     tolerance: float | None = None,
     colour: str = PALETTE[0],
@@ -321,8 +324,8 @@ def waterfall_chart(
     start_label: str,
     start: float,
     labels: Sequence[str],
-    deltas: Sequence[float],
-    errors: Sequence[float] | None = None,
+    deltas: Floats,
+    errors: Floats | None = None,
     end_label: str = "end",
     y_label: str = "",
     y_format: Callable[[float], str] = _fmt_default,
