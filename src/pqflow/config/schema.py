@@ -439,7 +439,7 @@ class HestonFitSection(_Section):
                     f"{name}_bounds must satisfy {floor:g} < lower < upper{' < 1' if name == 'rho' else ''}, "
                     f"got [{lo:g}, {hi:g}]"
                 )
-            x0 = self.initial.get(name, min(max(defaults[name], lo), hi))  # type: ignore[call-overload]
+            x0 = self.initial.get(name, min(max(defaults[name], lo), hi))
             if not lo <= x0 <= hi:
                 raise ValueError(f"initial {name} = {x0:g} lies outside {name}_bounds [{lo:g}, {hi:g}]")
         return self
@@ -767,10 +767,10 @@ class RunConfig(_Section):
             ("equity.dividend_yield", self.equity.dividend_yield is not None, "market_data.equity_index",
              md.equity_index is not None),
         ]
-        for typed, has_typed, fitted, has_fitted in pairs:
+        for typed_key, has_typed, fitted, has_fitted in pairs:
             if has_typed == has_fitted:
                 raise ValueError(
-                    f"give exactly one of {typed} (typed in) or {fitted} (from a market-data file)"
+                    f"give exactly one of {typed_key} (typed in) or {fitted} (from a market-data file)"
                     + ("; both are given" if has_typed else "; neither is given")
                 )
         if (md.curve is not None) != (self.curve_extrapolation is not None):
@@ -838,9 +838,9 @@ class RunConfig(_Section):
                     f"credit.bond_maturities {missing} are not in outputs.bond_maturities: each "
                     "defaultable bond needs the risk-free bond of the same maturity"
                 )
-        for label, model, typed in (("equity", self.equity.volatility_model, self.equity.volatility),
+        for label, model, typed_vol in (("equity", self.equity.volatility_model, self.equity.volatility),
                                     *((f"index {i.name}", i.volatility_model, i.volatility) for i in self.indices)):
-            if model == "heston" and (typed is not None or md.equity_vols is None):
+            if model == "heston" and (typed_vol is not None or md.equity_vols is None):
                 raise ValueError(
                     f"{label}: volatility_model = \"heston\" is fitted to the smile in market_data.equity_vols; "
                     "give that file and no typed-in volatility"

@@ -137,7 +137,7 @@ def model_structure(
     reads = np.any(transition != 0.0, axis=0)
     out = []
     for i, name in enumerate(state_names):
-        others = frozenset(state_names[j] for j in np.flatnonzero(reads[i]) if j != i)
+        others = frozenset(state_names[int(j)] for j in np.flatnonzero(reads[i]) if j != i)
         out.append(StateLink(name=name, drivers=frozenset(exposure_drivers[i]), reads=others))
     for rating, driver in (ratings or {}).items():
         out.append(StateLink(name=f"intensity_{rating}", drivers=frozenset({driver}), reads=frozenset()))

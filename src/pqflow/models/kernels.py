@@ -132,8 +132,9 @@ def grid_moments(
     index = {name: k for k, name in enumerate(drivers)}
     flat = [(i, e) for i, row in enumerate(exposures) for e in row]
     lam = {name: as_schedule(prices_of_risk[name]) for name in drivers if name in prices_of_risk}
-    pieces = grid_pieces(times, *(e.scale for _, e in flat), *lam.values())
-    scale = [pieces.values(e.scale) for _, e in flat]
+    # Exposure.scale is a schedule after __post_init__; as_schedule returns it unchanged (and types it)
+    pieces = grid_pieces(times, *(as_schedule(e.scale) for _, e in flat), *lam.values())
+    scale = [pieces.values(as_schedule(e.scale)) for _, e in flat]
     lam_values = {name: pieces.values(sched) for name, sched in lam.items()}
     d = len(exposures)
     cov = np.zeros((n_steps, d, d))

@@ -46,7 +46,8 @@ def relative_shift_function(path: Path) -> Callable[[np.ndarray], np.ndarray]:
     header, rows = read_csv_table(path)
     if header[:2] != ["maturity_years", "relative_shift"] or len(header) != 2:
         raise MarketDataError(f"{path}: the header must be 'maturity_years,relative_shift' (is {','.join(header)})")
-    t, s = [], []
+    t: list[float] = []
+    s: list[float] = []
     for k, row in enumerate(rows, start=1):
         where = f"{path}, data row {k}"
         if len(row) != 2:
@@ -165,11 +166,13 @@ class _Shocker:
                     f"quotes {next((c for c in _SWAPTION_VOLS if c in header), 'no volatility')}; use "
                     f"swaption_vol_relative"
                 )
-            rows = self.column(header, rows, "normal_vol_bp", lambda v: v + s.swaption_vol_shift_bp,
+            shift_bp = s.swaption_vol_shift_bp
+            rows = self.column(header, rows, "normal_vol_bp", lambda v: v + shift_bp,
                                "swaption_vol_shift_bp")
         if s.swaption_vol_relative is not None:
+            relative = s.swaption_vol_relative
             for col in _SWAPTION_VOLS:
-                rows = self.column(header, rows, col, lambda v: v * (1.0 + s.swaption_vol_relative),
+                rows = self.column(header, rows, col, lambda v: v * (1.0 + relative),
                                    "swaption_vol_relative")
         return rows
 

@@ -94,7 +94,7 @@ def _scenario_span(path: Path) -> tuple[int, int]:
             return int(pc.min(col).as_py()), int(pc.max(col).as_py())
         lo = stats.min if lo is None else min(lo, stats.min)
         hi = stats.max if hi is None else max(hi, stats.max)
-    if lo is None:
+    if lo is None or hi is None:
         return 0, -1
     return int(lo), int(hi)
 
@@ -158,7 +158,7 @@ class _Sink:
         return open(self.tmp, "wb")
 
     def commit(self) -> None:
-        if self.tmp is not None:
+        if self.tmp is not None and self.final is not None:
             os.replace(self.tmp, self.final)
 
     def abort(self) -> None:

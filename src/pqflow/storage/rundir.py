@@ -280,7 +280,7 @@ def prepare_staging(
     out_path = Path(out).absolute() if staging is None else None
     if out_path is not None:
         check_target(out_path, overwrite)
-    folder = staging_path(out_path) if staging is None else Path(staging).absolute()
+    folder = staging_path(out_path) if out_path is not None else Path(staging).absolute()
     folder.parent.mkdir(parents=True, exist_ok=True)
     header, records = _read_progress(folder) if folder.is_dir() else (None, [])
     if not resume or header is None:
