@@ -26,7 +26,7 @@ import math
 from dataclasses import dataclass
 from html import escape
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeGuard
 
 import numpy as np
 
@@ -130,7 +130,7 @@ class Comparison:
 
 # -- reading a run ----------------------------------------------------------------------------
 
-def _is_num(v: Any) -> bool:
+def _is_num(v: Any) -> TypeGuard[float | str]:  # what float() reads to a finite number
     return fmt.is_number(v)
 
 
@@ -523,11 +523,12 @@ def _moves_chart(moves: list[Move], title: str, unit_label: str, scale: float) -
     from pqflow.report import svg
 
     moved = [m for m in moves if m.status == "moved" and m.move is not None]
+    moves_by = [float(m.move) for m in moved if m.move is not None]
     if not moved:
         return ""
     labels = [m.item.replace("zero rate ", "").replace("swaption ", "").replace("moneyness ", "") for m in moved]
     labels = [t if len(t) <= 22 else "…" + t[-21:] for t in labels]  # the full name is in the table
-    return svg.bar_chart(title=title, labels=labels, values=[scale * float(m.move) for m in moved],
+    return svg.bar_chart(title=title, labels=labels, values=[scale * v for v in moves_by],
                          y_label=unit_label)
 
 

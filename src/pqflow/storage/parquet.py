@@ -118,10 +118,10 @@ def write_part(table: pa.Table, path: str | Path, *, filesystem: pafs.FileSystem
         return path
     target = str(path)
     parent, _, name = target.rpartition("/")
-    tmp = f"{parent}/.{name}.tmp-{os.getpid()}-{threading.get_ident()}"
+    tmp_key = f"{parent}/.{name}.tmp_key-{os.getpid()}-{threading.get_ident()}"
     filesystem.create_dir(parent, recursive=True)
-    pq.write_table(table, tmp, filesystem=filesystem, **kwargs)
-    filesystem.move(tmp, target)
+    pq.write_table(table, tmp_key, filesystem=filesystem, **kwargs)
+    filesystem.move(tmp_key, target)
     return Path(target)
 
 

@@ -43,6 +43,7 @@ from __future__ import annotations
 import re
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -107,7 +108,7 @@ def inflation_assets(inputs: RunInputs, columns: Sequence[str]) -> list[Martinga
                 "column: their currency prices cannot be formed"
             )
         return []
-    par = inputs.parameters.get("inflation")
+    par: Any = inputs.parameters.get("inflation")  # parsed JSON: its shape is checked below
     try:
         real_curve = curve_from_json(par["real_curve"])
         cpi_base = float(par["cpi_base"])
@@ -145,7 +146,7 @@ def inflation_assets(inputs: RunInputs, columns: Sequence[str]) -> list[Martinga
 
 
 def _ratings(inputs: RunInputs) -> dict[str, CreditRating]:
-    par = inputs.parameters.get("credit")
+    par: Any = inputs.parameters.get("credit")  # parsed JSON: its shape is checked below
     try:
         model, _ = credit_from_json(par)
     except (KeyError, TypeError, ValueError) as exc:
@@ -164,7 +165,7 @@ def credit_assets(inputs: RunInputs, columns: Sequence[str]) -> list[MartingaleA
         bond = defaultable_bond_of(c)
         if bond is not None:
             bonds.append((*bond, c))
-    cumulative = [m.group("r") for c in columns if (m := _CUMULATIVE.match(c))]
+    cumulative = [hit.group("r") for c in columns if (hit := _CUMULATIVE.match(c))]
     if not bonds and not cumulative:
         return []
     ratings = _ratings(inputs)

@@ -55,6 +55,18 @@ def index_columns(names: Sequence[str]) -> list[str]:
     return [c for c in names if c.startswith(INDEX_PREFIXES)]
 
 
+def _column_value(c: str) -> Callable[[dict[str, np.ndarray]], np.ndarray]:
+    return lambda cols: cols[c]
+
+
+def _bond_reference(discount: Callable[[np.ndarray], np.ndarray], m: float) -> Callable[[np.ndarray], np.ndarray]:
+    return lambda t: np.asarray(discount(np.asarray(t) + m))
+
+
+def _level_reference(start: dict[str, float], c: str) -> Callable[[np.ndarray], np.ndarray]:
+    return lambda t: np.full(np.shape(t), start[c])
+
+
 def _builtin_assets(names: list[str], discount: Callable[[np.ndarray], np.ndarray],
                     start: dict[str, float]) -> list[MartingaleAsset]:
     """The deflator, each nominal bond and each index; an index's ``S_0`` is read into ``start``
@@ -69,15 +81,15 @@ def _builtin_assets(names: list[str], discount: Callable[[np.ndarray], np.ndarra
             continue
         assets.append(MartingaleAsset(
             name=c, description=f"zero bond, {m:g} years to run", columns=(c,),
-            value=lambda cols, c=c: cols[c],
-            reference=lambda t, m=m: np.asarray(discount(np.asarray(t) + m)),
+            value=_column_value(c),
+            reference=_bond_reference(discount, m),
         ))
     for c in index_columns(names):
         kind = c.split("_", 1)[0]
         assets.append(MartingaleAsset(
             name=c, description=f"{kind} total-return index", columns=(c,),
-            value=lambda cols, c=c: cols[c],
-            reference=lambda t, c=c: np.full(np.shape(t), start[c]),
+            value=_column_value(c),
+            reference=_level_reference(start, c),
         ))
     return assets
 

@@ -134,9 +134,8 @@ def wealth_ratio_benchmark(
         "comparisons": int(len(frame)),
         "failed": int(len(failed)),
         "failed_cells": [
-            {"horizon": float(r.horizon), "percentile": float(r.percentile),
-             "model": float(r.model), "benchmark": float(r.benchmark)}
-            for r in failed.itertuples(index=False)
+            {"horizon": float(h), "percentile": float(p), "model": float(m), "benchmark": float(b)}
+            for h, p, m, b in failed[["horizon", "percentile", "model", "benchmark"]].to_numpy(dtype=float)
         ],
         "verdict": "not_applicable" if not len(frame) else ("pass" if not len(failed) else "fail"),
         "rule": "left-tail model percentiles at or below the table, right-tail at or above",
@@ -256,7 +255,7 @@ def _heston_premia(inputs: RunInputs) -> dict[str, Any]:
         specs = heston_from_json(inputs.parameters.get("stochastic_volatility", {}) or {})
     except (KeyError, TypeError, ValueError):
         return {}
-    out = {}
+    out: dict[str, Any] = {}
     for spec in specs.values():
         if spec.loadings:  # premium sqrt(v) mu(t) + s lambda v: no closed form, not tested
             out[spec.column] = None
@@ -331,7 +330,7 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
                      "note": "the model's real-world expectation against the house-view path (no sampling error)"}
     maturity = view.get("target_maturity")
     y_col = f"zcb_{float(maturity):g}y" if view.get("target") == "zero_yield" and maturity else None
-    if y_col is not None and y_col in names and target.get("real_world"):
+    if y_col is not None and maturity is not None and y_col in names and target.get("real_world"):
         m = float(maturity)
         yt, yacc = stream_moments(reader, [y_col], lambda t, c: {"y": -np.log(c[y_col]) / m})
         for t, value in zip(target.get("time", []), target["real_world"], strict=True):
@@ -364,8 +363,9 @@ def real_world_check(inputs: RunInputs, *, wealth_benchmark_gating: bool = False
               "real_world_percentiles": pct}
 
     # Gross wealth ratios at the benchmark's horizons, from the real-world set (unweighted).
-    bench_frame, bench = pd.DataFrame(), {"verdict": "not_applicable", "source": AAA_SOURCE,
-                                          "warnings": ["no equity index in the files"]}
+    bench_frame = pd.DataFrame()
+    bench: dict[str, Any] = {"verdict": "not_applicable", "source": AAA_SOURCE,
+                             "warnings": ["no equity index in the files"]}
     if e_col is not None:
         horizons = sorted({h for by_h in AAA_2005_WEALTH_RATIOS.values() for h in by_h})
         wt, wdata = gather_at_times(reader, [e_col], [0.0, *horizons])
