@@ -55,7 +55,7 @@ def _fit_width() -> None:
     import os
 
     for con in (console, err_console):
-        con.width = None  # type: ignore[assignment]  (back to detection: a test may reuse the console)
+        con.width = None  # type: ignore[assignment]  # rich types width as int; None: back to detection
         if not con.is_terminal and not os.environ.get("COLUMNS"):
             con.width = PIPED_WIDTH
 
@@ -316,7 +316,8 @@ def run(
     finally:
         if calibration is None:
             shutil.rmtree(calibration_file.parent, ignore_errors=True)
-        release_lock(lock)
+        if lock is not None:  # taken before this block
+            release_lock(lock)
     if resume:
         console.print(_resume_line(result), highlight=False, markup=False)
     summary = result["summary"]
@@ -856,7 +857,7 @@ def compare(
         if attribute:
             missing = [flag for flag, v in (("--liabilities", liabilities), ("--old-config", old_config),
                                              ("--new-config", new_config)) if v is None]
-            if missing:
+            if missing or old_config is None or new_config is None:
                 raise PqflowError(f"--attribute needs {', '.join(missing)}")
             from pqflow.report.attribution import check_attribution
 

@@ -97,7 +97,7 @@ class Calibration:
 
     valuation_date: str
     curve: DiscountCurve
-    rates: HullWhiteParams
+    rates: HullWhiteParams | G2PlusPlusParams  # as rates.model says
     equity: EquityParams
     prices_of_risk: PricesOfRisk
     inputs: dict[str, Any]
@@ -441,6 +441,7 @@ def _check_equivalence(config: RunConfig) -> None:
 
 
 def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
+    curve: DiscountCurve
     if config.curve is not None:
         c = config.curve
         if c.kind == "zero_rates":
@@ -533,7 +534,7 @@ def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G
             initial=G2PlusPlusParams(**g2_opts.initial.model_dump()) if g2_opts.initial is not None else None,
             mean_reversion_bounds=g2_opts.mean_reversion_bounds,
             volatility_bounds=g2_opts.volatility_bounds,
-            fixed=dict(g2_opts.fixed),
+            fixed={str(k): v for k, v in g2_opts.fixed.items()},
         )
         method = ("G2++ (a, sigma, b, eta, rho) to ATM swaptions, one-dimensional integral (Brigo and "
                   "Mercurio 2006, ch. 4.2), weighted least squares; rates_x is the factor with a >= b")
@@ -605,7 +606,7 @@ def _equity_vol(
 
 
 def _real_world(
-    config: RunConfig, curve: DiscountCurve, hw: HullWhiteParams, vol: float | PiecewiseConstant
+    config: RunConfig, curve: DiscountCurve, hw: HullWhiteParams | G2PlusPlusParams, vol: float | PiecewiseConstant
 ) -> tuple[PricesOfRisk, dict[str, Any]]:
     rw = config.real_world
     horizon = config.simulation.max_horizon_years
@@ -702,6 +703,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         equity_options = [*equity_options, *options]
     if index_fits:
         fit["indices"] = index_fits
+    inflation_caps: list[dict[str, Any]]
     inflation, inflation_caps = None, []
     if config.inflation is not None:
         inflation, inflation_lams, fit["inflation"], inflation_caps = calibrate_inflation(config, curve, rates,

@@ -251,7 +251,9 @@ def piecewise_equity_total_variance(
         s = volatility.volatilities
         equity = np.sum(s**2 * length, axis=-1)
         return equity + _cross_variance(terms, s) + _rate_variance(rates, t)
-    if not -1.0 <= correlation <= 1.0:  # type: ignore[operator]
+    if isinstance(correlation, tuple):  # _checked_correlation gives Hull-White rates one number
+        raise ValueError("Hull-White rates take one equity-rates correlation, not a pair")
+    if not -1.0 <= correlation <= 1.0:
         raise ValueError("correlation must lie in [-1, 1]")
     length, cross = _bucket_terms(volatility.bucket_ends, rates.mean_reversion, t)
     s = volatility.volatilities

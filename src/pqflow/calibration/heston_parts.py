@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 
 from pqflow.calibration.heston_fit import HestonBounds, HestonQuote, calibrate_heston
-from pqflow.config.schema import RunConfig
+from pqflow.config.schema import EquitySection, IndexSection, RunConfig
 from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.data_files import read_equity_vols
@@ -98,7 +98,8 @@ def fit_heston_indices(
         bounds = HestonBounds(lower=lower, upper=upper, initial=initial)  # type: ignore[arg-type]
     except ValueError as exc:
         raise CalibrationError(f"calibration.heston: {exc}") from None
-    sections = {config.equity.name: (config.equity, config.real_world.equity_risk_premium)}
+    sections: dict[str, tuple[EquitySection | IndexSection, float]] = {
+        config.equity.name: (config.equity, config.real_world.equity_risk_premium)}
     sections.update({i.name: (i, i.risk_premium) for i in config.indices})
     corr_source = str(config.market_file("correlations") or "[correlations]")
     out, fits, instruments = {}, {}, []

@@ -75,7 +75,12 @@ def _model_swaptions(
 ) -> list[dict[str, Any]]:
     """The base swaptions at the money on ``curve``, priced by the kept rates model (Jamshidian's
     decomposition, or G2++'s integral); no market quote."""
-    price = g2pp_swaption_price if isinstance(rates, G2PlusPlusParams) else hull_white_swaption_price
+    def price(curve: DiscountCurve, rates: HullWhiteParams | G2PlusPlusParams, *,
+              expiry: float, tenor: float, strike: float) -> float:
+        if isinstance(rates, G2PlusPlusParams):
+            return g2pp_swaption_price(curve, rates, expiry=expiry, tenor=tenor, strike=strike)
+        return hull_white_swaption_price(curve, rates, expiry=expiry, tenor=tenor, strike=strike)
+
     out = []
     for q in quotes:
         expiry, tenor = float(q["expiry"]), float(q["tenor"])

@@ -210,14 +210,13 @@ def rates_price_of_risk_for_path(
     """Monthly piecewise-constant ``lambda_r`` meeting the target path at every month end to
     ``horizon`` (the last value holds beyond it). Under G2++ the schedule is the price of risk
     of both factor drivers."""
-    g2 = isinstance(params, G2PlusPlusParams)
-    if not g2 and not params.volatility > 0.0:
+    if not isinstance(params, G2PlusPlusParams) and not params.volatility > 0.0:
         raise ValueError("a real-world rate view needs a positive Hull-White volatility")
     n = int(np.ceil(horizon * KNOTS_PER_YEAR - 1e-9))
     knots = np.arange(n + 1, dtype=float) / KNOTS_PER_YEAR
     start = today_value(curve, params, target=target, maturity=maturity)
     path = target_path(start, long_run_level, speed, knots)
-    if g2:
+    if isinstance(params, G2PlusPlusParams):
         lam = _g2_path_lambdas(curve, params, knots, path, target=target, maturity=maturity)
         return PiecewiseConstant(knots=tuple(knots[:-1]), values=tuple(lam))
     g = factor_mean_for_target(curve, params, knots, path, target=target, maturity=maturity)

@@ -119,7 +119,7 @@ def grid_moments(
     exposures: Sequence[Sequence[Exposure]],
     correlation: np.ndarray,
     drivers: Sequence[str],
-    prices_of_risk: Mapping[str, PiecewiseConstant],
+    prices_of_risk: Mapping[str, float | PiecewiseConstant],  # each read through as_schedule
 ) -> tuple[np.ndarray, np.ndarray]:
     """Covariance ``(K, d, d)`` of the step noise of ``d`` states over each of the ``K`` steps of
     ``times``, and the shift of its mean ``(K, d)`` under the real-world measure.

@@ -118,6 +118,8 @@ def simulate_part(
     cols.update(credit_paths.columns)
     for name, (_, ratings) in layout.items():
         if ratings:
+            if credit_paths.rating_density is None:
+                raise RuntimeError("simulate_credit gives each rating's own density; none came back")
             column = density_block_column(measure, name)
             cols[column] = cols[column] * np.prod(credit_paths.rating_density[list(ratings)], axis=0)
     cols[density] = cols[density] * credit_paths.density
