@@ -96,7 +96,7 @@ def inspect_run(run_dir: str | Path) -> RunInfo:
     if not np.array_equal(times["market_consistent"], times["real_world"]):
         raise LiabilityDataError(f"{run_dir}: the two scenario sets have different output times")
     cols = names["market_consistent"]
-    bonds = {bond_maturity_of(c): c for c in cols if bond_maturity_of(c) is not None}
+    bonds = {mat: c for c in cols if (mat := bond_maturity_of(c)) is not None}
     equities = tuple(c for c in cols if c.startswith("equity_"))
     for m in ("real_world",):
         missing = set(bonds.values()) | set(equities) | {"deflator", "cash_account"}
@@ -384,6 +384,8 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
         # the same scaled by the index's performance, and (real world) the density itself
         ctrl = [np.einsum("nmj,mj->nm", deflator, timing / p0[None, :])]
         if np.any(reads_equity):
+            if scen.equity is None:
+                raise RuntimeError("a model point reads the equity index, but it was not read")
             growth = scen.equity / info.equity_level * p0[None, :]  # S_j P(0, j) / S_0
             ctrl.append(np.einsum("nmj,mj->nm", deflator * growth[:, None, :], timing / p0[None, :]) * reads_equity)
         if weight is not None:
@@ -400,7 +402,8 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
                 scen.n_paths, -1)
         for key, values in stats.items():
             m = Moments.of(sampling_units(values, antithetic))
-            acc[key] = m if acc[key] is None else acc[key].merge(m)
+            prev = acc[key]
+            acc[key] = m if prev is None else prev.merge(m)
     if acc["value"] is None or acc["profile"] is None:
         raise RunDirectoryError(f"{run_dir}: the {measure} set has no scenarios")
 

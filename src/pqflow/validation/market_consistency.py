@@ -252,9 +252,9 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
         if "cpi" not in columns:
             reason = "not testable from the files (missing cpi)"
         else:
-            missing = [i for i in range(n + 1) if time_index(times, float(i)) is None]
-            if missing:
-                reason = f"not testable from the files (years {missing[:3]} are not output times)"
+            off_grid = [i for i in range(n + 1) if time_index(times, float(i)) is None]
+            if off_grid:
+                reason = f"not testable from the files (years {off_grid[:3]} are not output times)"
         out.append(InstrumentSpec(
             label=label, kind="yoy_option", option=option, expiry=float(n), strike=strike,
             convention="premium", shift=0.0, tenor=None, index=None, forward=None, annuity=None,
@@ -317,10 +317,11 @@ def _vega(s: InstrumentSpec) -> float | None:
     if s.market_vol is None or s.forward is None or s.annuity is None:
         return None
     h = max(1e-6, 1e-4 * s.market_vol)
-    args = dict(annuity=s.annuity, kind=s.option, shift=s.shift)
     lo = max(s.market_vol - h, 0.0)
-    up = float(option_price(s.convention, s.forward, s.strike, s.market_vol + h, s.expiry, **args))
-    dn = float(option_price(s.convention, s.forward, s.strike, lo, s.expiry, **args))
+    up = float(option_price(s.convention, s.forward, s.strike, s.market_vol + h, s.expiry,
+                            annuity=s.annuity, kind=s.option, shift=s.shift))
+    dn = float(option_price(s.convention, s.forward, s.strike, lo, s.expiry,
+                            annuity=s.annuity, kind=s.option, shift=s.shift))
     return (up - dn) / (s.market_vol + h - lo)
 
 
@@ -338,12 +339,14 @@ def _material_price(s: InstrumentSpec, vega: float | None, tol: dict[str, float]
     """The material deviation in price (module docstring), ``None`` without a price to scale."""
     if vega is not None and s.kind != "yoy_option":
         vol = max(MATERIAL_VOL.get(s.convention, MATERIAL_VOL["lognormal"]), 2.0 * tol.get(s.convention, 0.0))
-        if s.market_vol is None or s.forward is None:
-            raise RuntimeError("an instrument with a vega has a market volatility and a forward")
-        args = dict(annuity=s.annuity, kind=s.option, shift=s.shift)
-        at = float(option_price(s.convention, s.forward, s.strike, s.market_vol, s.expiry, **args))
-        moves = [abs(float(option_price(s.convention, s.forward, s.strike, v, s.expiry, **args)) - at)
-                 for v in (s.market_vol + vol, s.market_vol - vol) if v > 0]
+        if s.market_vol is None or s.forward is None or s.annuity is None:
+            raise RuntimeError("an instrument with a vega has a market volatility, a forward and an annuity")
+        fwd, ann, market_vol = s.forward, s.annuity, s.market_vol
+        at = float(option_price(s.convention, fwd, s.strike, market_vol, s.expiry, annuity=ann, kind=s.option,
+                                shift=s.shift))
+        moves = [abs(float(option_price(s.convention, fwd, s.strike, v, s.expiry, annuity=ann, kind=s.option,
+                                        shift=s.shift)) - at)
+                 for v in (market_vol + vol, market_vol - vol) if v > 0]
         return min(moves) if moves else abs(vega) * vol  # the harder side of a vol move
     price = s.market_price if s.market_price is not None else s.model_price
     if price is None:

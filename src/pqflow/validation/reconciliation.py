@@ -43,7 +43,7 @@ returns differ by measure through the prices of risk, which is what the table sh
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import Any
 
 import numpy as np
@@ -97,6 +97,7 @@ def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: floa
 
         spec = heston_from_json({eq["name"]: sv})[eq["name"]]
         rates_sv: HullWhiteParams | G2PlusPlusParams
+        corr: float | tuple[float, ...]
         if par.get("rates_model") == "g2pp":
             g = par["g2pp"]
             rates_sv = G2PlusPlusParams(a=float(g["a"]), sigma=float(g["sigma"]), b=float(g["b"]), eta=float(g["eta"]),
@@ -231,9 +232,7 @@ def expected_returns_table(inputs: RunInputs, horizons: tuple[float, ...] = RETU
         assets = ["cash_account", *relative, *bonds]
         times, acc = stream_moments(
             reader, assets,
-            lambda t, c, relative=relative, assets=assets: {
-                a: c[a] / (c[a][:, :1] if a in relative else 1.0) for a in assets
-            },
+            _relative_to_start(relative, assets),
         )
         values: dict[tuple[str, float], tuple[float, float]] = {}
         for h in horizons:
@@ -272,6 +271,13 @@ def expected_returns_table(inputs: RunInputs, horizons: tuple[float, ...] = RETU
             "real_world": p, "real_world_se": p_se, "difference": p - q,
         })
     return pd.DataFrame(rows)
+
+
+def _relative_to_start(
+    relative: list[str], assets: list[str]
+) -> Callable[[np.ndarray, dict[str, np.ndarray]], dict[str, np.ndarray]]:
+    """Each asset per path, the ``relative`` ones divided by their own start value (A_h / A_0)."""
+    return lambda t, c: {a: c[a] / (c[a][:, :1] if a in relative else 1.0) for a in assets}
 
 
 def reconciliation_check(
