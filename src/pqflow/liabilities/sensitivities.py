@@ -159,7 +159,7 @@ def sensitivity_summary(table: pd.DataFrame) -> list[dict[str, Any]]:
     for name, rows in total.groupby("sensitivity", sort=False):
         entry: dict[str, Any] = {"sensitivity": name, "scenarios": int(rows["scenarios"].iloc[0])}
         for r in rows.itertuples(index=False):
-            entry[r.quantity] = {
+            entry[str(r.quantity)] = {
                 "base": r.base_value, "value": r.value, "change": r.change,
                 "change_se_paired": r.change_se_paired, "change_se_independent": r.change_se_independent,
             }

@@ -147,7 +147,7 @@ def valuation_summary(
     lines = results[results.level != "model_point"]
     rec = lines["difference_in_se"].abs()
     und = lines["undeflated_difference_in_se"].abs() if "undeflated_difference_in_se" in lines else None
-    worst = lines.loc[rec.idxmax()] if len(lines) else None
+    worst = lines.loc[rec.idxmax()] if len(lines) else None  # type: ignore[call-overload]  # pandas-stubs: .loc refuses idxmax's Hashable label
     return {
         "caution": CAUTION,
         "insurer": portfolio.insurer,

@@ -163,8 +163,8 @@ def step_configs(old: RunConfig, new: RunConfig) -> list[tuple[Step | None, dict
         if nxt != current:
             out.append((step, nxt))
             current = nxt
-    for k, (step, data) in enumerate(out):
-        data["run"]["name"] = f"attribution-{k:02d}-{step.name if step else 'old_inputs'}"
+    for k, (done, data) in enumerate(out):
+        data["run"]["name"] = f"attribution-{k:02d}-{done.name if done else 'old_inputs'}"
         data.pop("signoff", None)
     return out
 
