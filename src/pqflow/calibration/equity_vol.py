@@ -388,7 +388,7 @@ def calibrate_equity_volatility(
     """
     if not quotes:
         raise MarketDataError("no equity vol quotes to calibrate to")
-    correlation = _checked_correlation(rates, correlation, strict=False)
+    correlation = _checked_correlation(rates, correlation, strict=True)
     if not isinstance(rates, G2PlusPlusParams) and not -1.0 < correlation < 1.0:  # type: ignore[operator]
         raise ValueError("equity-rate correlation must lie strictly inside (-1, 1)")
     ordered = sorted(quotes, key=lambda q: q.expiry)
