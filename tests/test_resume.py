@@ -70,6 +70,8 @@ def _kill_part_way(config: Path, out: Path) -> None:
     finally:
         os.kill(proc.pid, signal.SIGKILL)
         proc.wait(timeout=30)
+        proc.stdout.close()  # the pipes are ours to close (pytest reports unclosed files as errors)
+        proc.stderr.close()
     assert proc.returncode == -signal.SIGKILL
 
 
