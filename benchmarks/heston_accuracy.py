@@ -57,8 +57,10 @@ def h1hw() -> None:
             diffs.append(a - b)
         d = np.concatenate(diffs)
         df = np.exp(-r * t)
-        f = (heston_option_price(p, level=s0, dividend_yield=0.0, discount=df, expiry=t, strike=strikes, rates=hw, correlation=rho)
-             - heston_option_price(p, level=s0, dividend_yield=0.0, discount=df, expiry=t, strike=strikes, rates=hw, correlation=0.0))
+        f = (heston_option_price(p, level=s0, dividend_yield=0.0, discount=df, expiry=t, strike=strikes, rates=hw,
+                                 correlation=rho)
+             - heston_option_price(p, level=s0, dividend_yield=0.0, discount=df, expiry=t, strike=strikes, rates=hw,
+                                   correlation=0.0))
         print(f"rho_Sr {rho:+.1f}: MC {np.round(d.mean(0), 3)} (SE {np.round(d.std(0) / np.sqrt(len(d)), 3)}), "
               f"H1-HW {np.round(f, 3)}, H1-HW - MC {np.round(f - d.mean(0), 3)}", flush=True)
 

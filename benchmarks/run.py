@@ -113,7 +113,7 @@ def _table(title: str, header: list[str], rows: list[list[Any]]) -> None:
     widths = [max(len(r[i]) for r in cells) for i in range(len(header))]
     print(f"\n{title}")
     for k, r in enumerate(cells):
-        print("  " + "  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths))))
+        print("  " + "  ".join(c.rjust(w) if i else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths, strict=True))))
         if k == 0:
             print("  " + "  ".join("-" * w for w in widths))
 
@@ -168,12 +168,15 @@ def bench_core(tmp: Path) -> dict[str, Any]:
     rng = np.random.default_rng(1)
     ps = n * k_steps
     floor = _best(lambda: rng.standard_normal((k_steps, 3, n)), 7)
-    core = _best(lambda: simulate_batch(model, times, measure="real_world", n_paths=n, rng=rng, antithetic=False, columns=()), 7)
+    core = _best(lambda: simulate_batch(model, times, measure="real_world", n_paths=n, rng=rng, antithetic=False,
+                                        columns=()), 7)
     states = _best(lambda: simulate_states(model, times, measure="real_world", n_paths=n, rng=rng, antithetic=False), 7)
     full = _best(lambda: simulate_batch(model, times, measure="real_world", n_paths=n, rng=rng, antithetic=False), 7)
     ws = Workspace()
-    core_ws = _best(lambda: simulate_batch(model, times, measure="real_world", n_paths=n, rng=rng, antithetic=False, columns=(), workspace=ws), 7)
-    anti = _best(lambda: simulate_batch(model, times, measure="real_world", n_paths=n, rng=rng, antithetic=True, columns=()), 7)
+    core_ws = _best(lambda: simulate_batch(model, times, measure="real_world", n_paths=n, rng=rng, antithetic=False,
+                                           columns=(), workspace=ws), 7)
+    anti = _best(lambda: simulate_batch(model, times, measure="real_world", n_paths=n, rng=rng, antithetic=True,
+                                        columns=()), 7)
     from pqflow.jobs.steps import run_density_blocks
     from pqflow.simulation.scenarios import block_layout
 
@@ -214,7 +217,8 @@ def bench_core(tmp: Path) -> dict[str, Any]:
         "full_columns_over_core": full / core,
         "density_blocks_over_core": blocks / core,
     })
-    print(f"  core / numpy floor = {core / floor:.2f}, with reused buffers {core_ws / floor:.2f} (target <= 1.5); QuantLib (paths to numpy) / core = "
+    print(f"  core / numpy floor = {core / floor:.2f}, with reused buffers {core_ws / floor:.2f} (target <= 1.5); "
+          f"QuantLib (paths to numpy) / core = "
           f"{ql_user / (core / ps):.0f}x (target >= 30x), both antithetic {ql_anti / (anti / ps):.0f}x; QuantLib "
           f"generation only / core = {ql_gen / (core / ps):.1f}x")
     print(f"  core with the default density blocks / core = {blocks / core:.3f} (target <= 1.15)")
@@ -230,7 +234,8 @@ def bench_parquet(tmp: Path) -> dict[str, Any]:
     from pqflow.jobs.steps import generate_part, plan_run
     from pqflow.storage.parquet import KEY_COLUMNS, WRITE_OPTIONS, read_part, write_part
 
-    cfg, cal, _ = _model(make_config(tmp / "pq.toml", scenarios=1000, batch_size=1000, horizon_years=50, steps_per_year=12))
+    cfg, cal, _ = _model(make_config(tmp / "pq.toml", scenarios=1000, batch_size=1000, horizon_years=50,
+                                     steps_per_year=12))
     plan = plan_run(cfg)
     rec = generate_part(cal, plan, "real_world", plan.batches_for("real_world")[0], tmp / "pqsrc")
     table = read_part(tmp / "pqsrc" / rec.path)
@@ -238,7 +243,8 @@ def bench_parquet(tmp: Path) -> dict[str, Any]:
     floats = [f.name for f in table.schema if f.name not in KEY_COLUMNS and str(f.type) == "double"]
     target = tmp / "x.parquet"
     variants = {
-        "pqflow write_part (zstd-1, byte-stream-split, dict/stats on keys, temp+rename)": lambda: write_part(table, target),
+        "pqflow write_part (zstd-1, byte-stream-split, dict/stats on keys, temp+rename)": lambda: write_part(table,
+                                                                                                             target),
         "plain pyarrow write_table, defaults (snappy, dictionary)": lambda: pq.write_table(table, target),
         "pyarrow, same settings as pqflow, no temp+rename": lambda: pq.write_table(
             table, target, **WRITE_OPTIONS, use_dictionary=list(KEY_COLUMNS), write_statistics=list(KEY_COLUMNS),
@@ -256,7 +262,8 @@ def bench_parquet(tmp: Path) -> dict[str, Any]:
         size = target.stat().st_size
         read = _best(lambda: pq.read_table(target), 3)
         rows.append([name, raw / sec / 1e6, size / raw, raw / read / 1e6])
-        res[name] = {"seconds": sec, "mb_per_s": raw / sec / 1e6, "size_ratio": size / raw, "read_mb_per_s": raw / read / 1e6}
+        res[name] = {"seconds": sec, "mb_per_s": raw / sec / 1e6, "size_ratio": size / raw,
+                     "read_mb_per_s": raw / read / 1e6}
     _table(f"2. Parquet, one part: {table.num_rows:,} rows x {table.num_columns} columns, {raw / 1e6:.0f} MB in memory",
            ["writer", "write MB/s", "size / memory", "read MB/s"], rows)
     ours = res[next(iter(variants))]["mb_per_s"]
@@ -419,7 +426,8 @@ def scaling_child(scenarios: int, steps_per_year: int, workdir: str) -> None:
     shutil.rmtree(work)
     print(json.dumps({"generate_seconds": t1 - t0, "validate_seconds": t2 - t1, "bytes": size,
                       "vmhwm_mb": _vmhwm_mb(),
-                      "path_steps": scenarios * (plan.times_for("real_world").size - 1), "parts": len(plan.batches_for("real_world"))}))
+                      "path_steps": scenarios * (plan.times_for("real_world").size - 1),
+                      "parts": len(plan.batches_for("real_world"))}))
 
 
 def _vmhwm_mb() -> float:
@@ -435,7 +443,8 @@ def bench_scaling(tmp: Path) -> dict[str, Any]:
     cases = [(1_000, 12), (10_000, 12), (100_000, 12), (10_000, 1), (10_000, 4)]
     rows, res = [], []
     for n, spy in cases:
-        proc = subprocess.Popen([sys.executable, str(Path(__file__).resolve()), "--child-scaling", str(n), str(spy), str(tmp)],
+        proc = subprocess.Popen([sys.executable, str(Path(__file__).resolve()), "--child-scaling", str(n), str(spy),
+                                 str(tmp)],
                                 cwd=REPO, stdout=subprocess.PIPE, text=True)
         out = proc.stdout.read()
         _, status, usage = os.wait4(proc.pid, 0)
@@ -483,14 +492,19 @@ def bench_heston(tmp: Path) -> dict[str, Any]:
                                 real_world_long_run_volatility=None, rho=p.rho, explained=rho_r**2)
     n = 2000
     rows, out = [], {}
-    for label, spy, sub in (("50 years monthly, 1 substep per step", 12, 12), ("50 years annual, 12 substeps per step", 1, 12)):
+    for label, spy, sub in (("50 years monthly, 1 substep per step", 12, 12), ("50 years annual, 12 substeps per step",
+                                                                               1, 12)):
         times = time_grid(50, spy)
         ps = n * (times.size - 1)
-        spec = HestonIndex(name="heston_bench", column="equity_heston_bench", level=1000.0, income_yield=0.028, params=p,
-                           prices_of_risk=lam, loadings=(("rates", rho_r),), explained=rho_r**2, rates_correlation=rho_r,
+        spec = HestonIndex(name="heston_bench", column="equity_heston_bench", level=1000.0, income_yield=0.028,
+                           params=p,
+                           prices_of_risk=lam, loadings=(("rates", rho_r),), explained=rho_r**2,
+                           rates_correlation=rho_r,
                            substeps_per_year=sub)
-        base = _best(lambda: simulate_part(model, times, measure="real_world", n_paths=n, seed=1, batch=0, antithetic=False), 3)
-        with_h = _best(lambda: simulate_part(model, times, measure="real_world", n_paths=n, seed=1, batch=0, antithetic=False,
+        base = _best(lambda times=times: simulate_part(model, times, measure="real_world", n_paths=n, seed=1, batch=0,
+                                                      antithetic=False), 3)
+        with_h = _best(lambda times=times, spec=spec: simulate_part(model, times, measure="real_world", n_paths=n,
+                                                                    seed=1, batch=0, antithetic=False,
                                              heston=(spec,)), 3)
         det_index = base / ps
         heston = (with_h - base) / ps

@@ -31,7 +31,7 @@ def run_step_task(step: PlannedStep, liabilities: str) -> str:
     return str(step.run_dir)
 
 
-@flow(name="attribute_change", log_prints=False, task_runner=ThreadPoolTaskRunner(max_workers=2))
+@flow(name="attribute_change", log_prints=False, task_runner=ThreadPoolTaskRunner(max_workers=2))  # type: ignore[arg-type]  # prefect: a fresh ThreadPoolTaskRunner types as [Never]
 def attribute_change(old_run: str, new_run: str, old_config: str, new_config: str, liabilities: str,
                      out_dir: str) -> dict[str, Any]:
     """Step-wise attribution of the liability change from ``old_run`` to ``new_run``."""

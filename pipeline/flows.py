@@ -99,7 +99,7 @@ class PrefectExecutor:
 # -------------------------------------------------------------------------------- the flow
 
 
-@flow(name="quarterly_run", log_prints=False, task_runner=ThreadPoolTaskRunner(max_workers=2))
+@flow(name="quarterly_run", log_prints=False, task_runner=ThreadPoolTaskRunner(max_workers=2))  # type: ignore[arg-type]  # prefect: a fresh ThreadPoolTaskRunner types as [Never]
 def quarterly_run(
     config_path: str,
     out_dir: str,
@@ -130,6 +130,8 @@ def _settle(futures: list[Any], timeout: float = 60.0) -> None:
     writer. Their own results or errors no longer matter."""
     inner = [getattr(f, "wrapped_future", None) for f in futures]
     for w in inner:
+        if w is None:
+            continue
         try:
             w.cancel()
         except Exception:  # noqa: BLE001 (best effort)
@@ -137,7 +139,7 @@ def _settle(futures: list[Any], timeout: float = 60.0) -> None:
     deadline = time.monotonic() + timeout
     local = [w for w in inner if isinstance(w, concurrent.futures.Future)]
     concurrent.futures.wait(local, timeout=timeout)
-    for f, w in zip(futures, inner):
+    for f, w in zip(futures, inner, strict=True):
         if not isinstance(w, concurrent.futures.Future):
             try:
                 f.wait(timeout=max(0.0, deadline - time.monotonic()))
@@ -282,7 +284,10 @@ def _drain_prefect_clients() -> None:
         from prefect.events.worker import EventsWorker
         from prefect.logging.handlers import APILogHandler
 
-        APILogHandler.flush()
+        # Known defect, kept as it was (see DEVELOPERS.md, lint): flush is an instance method, so this
+        # call raises TypeError, caught below, and neither queue is drained. The fix would be
+        # APILogWorker.drain_all(timeout=5); it changes shutdown, so it is not made in a lint change.
+        APILogHandler.flush()  # type: ignore[call-arg]
         EventsWorker.drain_all(timeout=5)
     except Exception:  # noqa: BLE001 (best effort: the run itself has finished)
         pass

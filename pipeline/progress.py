@@ -16,7 +16,8 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from typing import TextIO
 
-__all__ = ["LineProgress", "StageLines", "ArtifactProgress", "progress_reporter", "stage_reporter", "format_seconds", "PROGRESS_INTERVAL_SECONDS"]
+__all__ = ["LineProgress", "StageLines", "ArtifactProgress", "progress_reporter", "stage_reporter", "format_seconds",
+           "PROGRESS_INTERVAL_SECONDS"]
 
 PROGRESS_INTERVAL_SECONDS = 5.0
 
@@ -205,4 +206,4 @@ class ArtifactProgress:
         from prefect.artifacts import update_progress_artifact
 
         self.done += 1
-        update_progress_artifact(self.artifact_id, progress=self.percent)
+        update_progress_artifact(self.artifact_id, progress=self.percent)  # type: ignore[arg-type]  # prefect: a sync call returns the UUID, its stub adds the coroutine

@@ -55,7 +55,7 @@ def publish_task(
     return publish_valuation(portfolio, info, mc, rw, out_dir, overwrite=overwrite, sensitivities=sensitivities)
 
 
-@flow(name="value_liabilities", log_prints=False, task_runner=ThreadPoolTaskRunner(max_workers=2))
+@flow(name="value_liabilities", log_prints=False, task_runner=ThreadPoolTaskRunner(max_workers=2))  # type: ignore[arg-type]  # prefect: a fresh ThreadPoolTaskRunner types as [Never]
 def value_liabilities(
     run_dir: str, liabilities_path: str, out_dir: str | None = None, overwrite: bool = False
 ) -> dict[str, Any]:

@@ -112,7 +112,8 @@ def test_curve_only_change_is_all_curve_and_steps_sum_to_the_total(prefect_harne
     import json
 
     val = json.loads((runs["old"] / "valuation" / "summary.json").read_text())
-    se_old = next(v["market_consistent_se"] for v in val["lines"] if v["name"] == "total" and v["quantity"] == "best_estimate")
+    se_old = next(v["market_consistent_se"] for v in val["lines"] if v["name"] == "total"
+                  and v["quantity"] == "best_estimate")
     print(f"curve step, total BE: change {total['best_estimate_change']:,.0f}, paired SE "
           f"{total['best_estimate_se']:,.0f}, one run's SE {se_old:,.0f}")
     assert total["best_estimate_se"] < se_old

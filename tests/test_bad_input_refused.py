@@ -47,7 +47,8 @@ def refused_before_work(tmp_path: Path, config: Path, *needles: str, extra: tupl
         ("demo_typed.toml", r"^bond_maturities = \[1,", "bond_maturities = [nan,", "outputs.bond_maturities[0]"),
         ("demo_typed.toml", r"^values = \[0.0215, 0.0228, 0.0239", "values = [0.0215, 0.0228, nan", "curve.values[2]"),
         ("demo_typed.toml", r"^maturities = \[1, 2, 3,", "maturities = [1, 2, inf,", "curve.maturities[2]"),
-        ("demo.toml", r"^real_bond_maturities = \[5,", "real_bond_maturities = [nan,", "inflation.real_bond_maturities[0]"),
+        ("demo.toml", r"^real_bond_maturities = \[5,", "real_bond_maturities = [nan,",
+         "inflation.real_bond_maturities[0]"),
         ("demo_g2pp.toml", r"^fixed = \{ rho = -0.7 \}", "fixed = { rho = nan }", "calibration.g2pp.fixed.rho"),
         ("demo_typed.toml", r"^volatility = 0.0090", "volatility = -inf", "hull_white.volatility"),
     ],
@@ -145,7 +146,11 @@ def test_square_brackets_in_messages_and_paths_are_printed_literally(tmp_path):
     cfg = edited(tmp_path, "demo_typed.toml", {r'^name = "veldmark_all_share"': 'name = "Bad-Name"'})
     assert "^[a-z][a-z0-9_]*$" in refused_before_work(tmp_path, cfg, "equity.name")
     # Both forms at once ([correlations] is a table name in the message).
-    cfg = edited(tmp_path, "demo_typed.toml", {r"^correlation_with_rates = -0.15": "correlation_with_rates = -0.15\n[correlations]\ndrivers = [\"rates\", \"veldmark_all_share\"]\nmatrix = [[1.0, -0.15], [-0.15, 1.0]]"}, name="both.toml")
+    cfg = edited(tmp_path, "demo_typed.toml", {
+        r"^correlation_with_rates = -0.15": "correlation_with_rates = -0.15\n[correlations]\n"
+                                            "drivers = [\"rates\", \"veldmark_all_share\"]\n"
+                                            "matrix = [[1.0, -0.15], [-0.15, 1.0]]",
+    }, name="both.toml")
     assert "[correlations]" in refused_before_work(tmp_path, cfg, "equity.correlation_with_rates")
     # A closing tag in a path crashed the terminal library; now it is part of the message.
     odd = tmp_path / "[/x] [bold]q3"

@@ -171,7 +171,8 @@ def _copy_demo(tmp_path: Path, data: dict, replace: dict[str, str] | None = None
 
 
 _BAD_FILES = [
-    ("swaptions.csv", "expiry_years,tenor_years,normal_vol_bp\n1,5,NaN\n", "data row 1 (line 2), column 'normal_vol_bp'"),
+    ("swaptions.csv", "expiry_years,tenor_years,normal_vol_bp\n1,5,NaN\n",
+     "data row 1 (line 2), column 'normal_vol_bp'"),
     ("swaptions.csv", "expiry_years,tenor_years,normal_vol_bp\n1,5,0.0085\n", "basis points"),
     ("curve.csv", "maturity_years,par_rate\n1,0.02\n3,0.025\n2,0.03\n", "strictly increasing"),
     ("curve.csv", "maturity_years,par_rate\n1,0.02\n2,\n", "missing value"),

@@ -129,7 +129,7 @@ def test_scaled_laplace_matches_riccati_ode(c: float) -> None:
 def test_forward_is_the_derivative_of_the_log_price() -> None:
     # Definition f_c(u) = -d/du [ln A_c(u) - B_c(u) y_0]; central difference, and f_c(0) = c y_0.
     for c in (0.6, 1.0):
-        def g(u: float) -> float:
+        def g(u: float, c: float = c) -> float:
             log_a, b = cir_laplace(IG, c, u)
             return float(-(log_a - b * IG.initial))
 

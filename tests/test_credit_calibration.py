@@ -187,7 +187,7 @@ def test_calibrated_model_reprices_spreads_by_monte_carlo() -> None:
         cal.model, times, np.random.default_rng(99), measure="market_consistent", n_paths=n, substeps=12
     )
     for rating in ("A", "BBB"):
-        s_market = dict(zip(MATURITIES, SPREADS[rating]))
+        s_market = dict(zip(MATURITIES, SPREADS[rating], strict=True))
         for t in (3.0, 5.0, 10.0):
             v = np.exp(-(1.0 - RECOVERY) * res.columns[cumulative_intensity_column(rating)][:, int(t)])
             mean, se = float(v.mean()), float(v.std(ddof=1) / np.sqrt(n))

@@ -172,7 +172,8 @@ def test_blocks_that_are_not_autonomous_are_refused_naming_the_state():
     structure = economy_structure(("rates",), [("eq", "equity_eq")], ("real_rate", "inflation"), {"BBB": "credit_BBB"})
     with pytest.raises(ValueError, match=r"state 'log_equity_eq' of driver 'eq' also moves with driver\(s\) rates"):
         block_states(DensityBlock(name="eq_only", drivers=("eq",)), structure)
-    with pytest.raises(ValueError, match=r"state 'log_cpi' of driver 'inflation' also moves with driver\(s\) real_rate"):
+    with pytest.raises(ValueError,
+                       match=r"state 'log_cpi' of driver 'inflation' also moves with driver\(s\) real_rate"):
         block_states(DensityBlock(name="x", drivers=("rates", "inflation")), structure)
     with pytest.raises(ValueError, match="unknown driver"):
         block_states(DensityBlock(name="x", drivers=("rates", "gold")), structure)

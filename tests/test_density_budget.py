@@ -84,7 +84,8 @@ def test_credit_budget_is_the_compensator_of_the_simulated_density(measure):
     priced = CreditRating(name="BBB", cir=cir, hazard=_hazard(), recovery=0.4, price_of_risk=-1.0)
     other = CreditRating(name="AA", cir=replace(cir, long_run_mean=0.01, initial=0.004), hazard=_hazard(),
                          recovery=0.4, price_of_risk=0.0)
-    credit = CirCreditModel(ratings=(priced, other), bond_maturities=(1.0,), correlation=np.array([[1.0, 0.6], [0.6, 1.0]]))
+    credit = CirCreditModel(ratings=(priced, other), bond_maturities=(1.0,), correlation=np.array([[1.0, 0.6], [0.6,
+                                                                                                                1.0]]))
     times = np.arange(0.0, 21.0)
     paths = simulate_credit(credit, times, np.random.default_rng(5), measure=measure, n_paths=10_000, substeps=12,
                             risk_free=None)
@@ -94,7 +95,8 @@ def test_credit_budget_is_the_compensator_of_the_simulated_density(measure):
     for t in (5, 10, 20):
         est = -2.0 * log_w[:, t].mean()
         se = 2.0 * log_w[:, t].std(ddof=1) / np.sqrt(log_w.shape[0])
-        assert abs(est - budget["credit_BBB"][t]) < 4 * se + 0.01 * budget["credit_BBB"][t], (t, est, budget["credit_BBB"][t])
+        assert abs(est - budget["credit_BBB"][t]) < 4 * se + 0.01 * budget["credit_BBB"][t], (t, est,
+                                                                                              budget["credit_BBB"][t])
 
 
 def test_budget_rows_are_those_of_the_table(model):

@@ -84,7 +84,8 @@ def test_g2pp_with_one_index_is_the_g2pp_equity_model():
     lx, ly = PiecewiseConstant(knots=(0.0, 3.0), values=(0.2, -0.1)), 0.1
     single = G2PlusPlusEquityModel(
         curve=NOMINAL, rates=g2,
-        equity=G2EquityParams(name="eq", level=50.0, dividend_yield=0.01, volatility=VOL, correlation_x=rx, correlation_y=ry),
+        equity=G2EquityParams(name="eq", level=50.0, dividend_yield=0.01, volatility=VOL, correlation_x=rx,
+                              correlation_y=ry),
         prices_of_risk=G2PricesOfRisk(x=lx, y=ly, equity=LAM_S), bond_maturities=(2.0, 10.0),
     )
     econ = EconomyModel(
@@ -195,7 +196,7 @@ def test_several_indices_each_price_and_reweight_consistently():
     times = np.linspace(0.0, 10.0, 41)
     mean = model.initial_state()
     cov = np.zeros((mean.size, mean.size))
-    for t0, t1 in zip(times[:-1], times[1:]):
+    for t0, t1 in zip(times[:-1], times[1:], strict=True):
         law = model.step_law(t0, t1)
         mean = law.transition @ mean + law.drift
         cov = law.transition @ cov @ law.transition.T + law.chol @ law.chol.T
@@ -267,7 +268,8 @@ def test_a_new_gaussian_part_plugs_in_without_touching_the_economy():
 
         def step_rows(self, times, rates, correlation):
             dt = np.diff(times)
-            return np.zeros((dt.size, 1, rates.b_rows.shape[1])), np.exp(-self.k * dt)[:, None, None], np.zeros((dt.size, 1))
+            return np.zeros((dt.size, 1, rates.b_rows.shape[1])), np.exp(-self.k * dt)[:, None,
+                                                                                       None], np.zeros((dt.size, 1))
 
         def known_columns(self):
             return ("spread_factor",)

@@ -71,7 +71,8 @@ def test_parquet_subset_and_cli(run_dir, tmp_path):
     for c in ref:
         assert np.array_equal(got.column(c).to_numpy(), ref[c]), c
     assert got.schema.metadata[b"pqflow.measure"] == b"market_consistent"
-    res = CliRunner().invoke(app, ["export", str(run_dir), "--measure", "real_world", "--scenarios", "7", "--columns", "deflator"])
+    res = CliRunner().invoke(app, ["export", str(run_dir), "--measure", "real_world", "--scenarios", "7", "--columns",
+                                   "deflator"])
     assert res.exit_code == 0, res.output
     lines = res.stdout.strip().splitlines()
     assert lines[0] == "scenario,time,deflator" and len(lines) == 1 + 21  # 20 years annual: 21 times

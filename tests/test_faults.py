@@ -211,25 +211,28 @@ def _alive(pid: int) -> bool:
     return state != "Z"
 
 
-@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc; the server's tie to its parent is Linux's prctl")
+@pytest.mark.skipif(not sys.platform.startswith("linux"),
+                    reason="reads /proc; the server's tie to its parent is Linux's prctl")
 def test_signals_end_the_run_promptly_and_take_the_server_along(tmp_path, demo_config_dict):
     # Two real runs at once, each with its own temporary Prefect server (no harness): Ctrl-C to
     # the whole process group, and SIGKILL, sent while parts are being written. SIGTERM takes
     # the Ctrl-C path (test below); before its handler is installed it kills like SIGKILL.
-    cfg = _config(tmp_path, demo_config_dict, scenarios=30000, batch_size=200)  # 300 parts: still running when signalled
+    cfg = _config(tmp_path, demo_config_dict, scenarios=30000,
+                  batch_size=200)  # 300 parts: still running when signalled
     runs = {}
     for name, sig in (("int", signal.SIGINT), ("kill", signal.SIGKILL)):
         out = tmp_path / name
         env = {**os.environ, "PREFECT_HOME": str(tmp_path / f"home-{name}")}
         env.pop("PREFECT_API_URL", None)
-        proc = subprocess.Popen([sys.executable, "-m", "pqflow.cli", "run", str(cfg), "--out", str(out), "--scenarios", "30000"],
+        proc = subprocess.Popen([sys.executable, "-m", "pqflow.cli", "run", str(cfg), "--out", str(out), "--scenarios",
+                                 "30000"],
                                 stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env,
                                 start_new_session=True)  # its own process group, as a terminal job
         runs[name] = (proc, sig, out)
     try:
         servers = {}
         deadline = time.monotonic() + 300  # two server starts at once on a loaded machine
-        for name, (proc, sig, out) in runs.items():
+        for name, (proc, _sig, _out) in runs.items():
             progress = tmp_path / f".{name}.staging" / ".progress.jsonl"
             while time.monotonic() < deadline:  # a part recorded: server up, parts in flight
                 if progress.exists() and len(progress.read_text().splitlines()) >= 2:
@@ -239,7 +242,7 @@ def test_signals_end_the_run_promptly_and_take_the_server_along(tmp_path, demo_c
             servers[name] = [k for k in _children(proc.pid) if "uvicorn" in Path(f"/proc/{k}/cmdline").read_text()]
             assert len(servers[name]) == 1, name
         sent = {}
-        for name, (proc, sig, out) in runs.items():
+        for name, (proc, sig, _out) in runs.items():
             if sig == signal.SIGINT:
                 os.killpg(proc.pid, sig)  # what Ctrl-C in a terminal does
             else:

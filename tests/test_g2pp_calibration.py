@@ -92,7 +92,7 @@ def test_fit_recovers_known_parameters_from_the_default_start():
     _assert_params(report.params, 1e-6)
     assert report.rmse_bp < 1e-4
     assert len(report.rows) == len(quotes)
-    for row, q in zip(report.rows, quotes):
+    for row, q in zip(report.rows, quotes, strict=True):
         assert row.market_vol == q.vol and row.convention == "normal"
         assert abs(row.vol_difference_bp) < 1e-4
         assert row.model_price == pytest.approx(row.market_price, rel=1e-7)
@@ -118,7 +118,8 @@ def test_bad_requests_are_rejected_clearly():
     with pytest.raises(ValueError, match="unknown G2"):
         calibrate_g2pp_to_swaptions(SLOPED, [q], fixed={"kappa": 0.1})
     with pytest.raises(ValueError, match="nothing to fit"):
-        calibrate_g2pp_to_swaptions(SLOPED, [q], fixed=dict(zip(G2_PARAMETER_NAMES, (0.5, 0.01, 0.05, 0.01, 0.0))))
+        calibrate_g2pp_to_swaptions(SLOPED, [q], fixed=dict(zip(G2_PARAMETER_NAMES, (0.5, 0.01, 0.05, 0.01, 0.0),
+                                                                strict=True)))
     with pytest.raises(MarketDataError, match="no swaption quotes"):
         calibrate_g2pp_to_swaptions(SLOPED, [])
     long = SwaptionQuote(expiry=20.0, tenor=20.0, vol=80.0, convention="normal")

@@ -94,7 +94,8 @@ def _variance_by_quadrature(vol, rx, ry, expiry):
                 + ETA**2 * bb**2 + 2.0 * RHO * SIGMA * ETA * ba * bb)
 
     cuts = [0.0, *[e for e in vol.bucket_ends if e < expiry], expiry]
-    return sum(quad(rate, u0, u1, epsabs=0.0, epsrel=1e-13, limit=200)[0] for u0, u1 in zip(cuts, cuts[1:]))
+    return sum(quad(rate, u0, u1, epsabs=0.0, epsrel=1e-13, limit=200)[0] for u0, u1 in zip(cuts, cuts[1:],
+                                                                                            strict=False))
 
 
 def _black(forward, strike, vol, t, df, kind):
@@ -117,7 +118,7 @@ def test_g2_total_variance_matches_quadrature(rx, ry):
     t = np.array([0.5, 2.0, 5.5, 12.0])  # 12y: beyond the last bucket, where the last vol holds
     ours = piecewise_equity_total_variance(G2, VOLS, (rx, ry), t)
     assert ours.shape == t.shape
-    for ti, v in zip(t, ours):
+    for ti, v in zip(t, ours, strict=True):
         # Reference: scipy.integrate.quad of the variance rate (Ito isometry).
         assert v == pytest.approx(_variance_by_quadrature(VOLS, rx, ry, ti), rel=1e-11)
 
@@ -137,7 +138,7 @@ def test_g2_bootstrap_reprices_every_quote_in_the_g2pp_closed_form(rx, ry):
         volatility=PiecewiseConstant(knots=(0.0, *ends[:-1]), values=tuple(vols)),
         correlation_x=rx, correlation_y=ry,
     )
-    for (t, vol, strike), row in zip(market, report.rows):
+    for (t, vol, strike), row in zip(market, report.rows, strict=True):
         df = float(CURVE.discount(t))
         fwd = S0 * math.exp(-Q_DIV * t) / df
         k = fwd if strike is None else strike
@@ -172,7 +173,7 @@ def test_g2_with_a_negligible_second_factor_is_hull_white(rho):
     one = calibrate_equity_volatility(CURVE, hw, level=S0, dividend_yield=0.0, correlation=rho, quotes=quotes)
     two = calibrate_equity_volatility(CURVE, g2, level=S0, dividend_yield=0.0, correlation=(rho, 0.0), quotes=quotes)
     np.testing.assert_allclose(two.bucket_vols, one.bucket_vols, rtol=1e-12)
-    for r1, r2 in zip(one.rows, two.rows):
+    for r1, r2 in zip(one.rows, two.rows, strict=True):
         assert r2.rate_variance == pytest.approx(r1.rate_variance, rel=1e-12)
         assert r2.cross_variance == pytest.approx(r1.cross_variance, rel=1e-12, abs=1e-18)
 
@@ -180,7 +181,8 @@ def test_g2_with_a_negligible_second_factor_is_hull_white(rho):
 def test_g2_rate_variance_above_the_market_variance_is_rejected():
     # With the equity uncorrelated with both factors, V_G2(10) alone exceeds 0.025^2 * 10
     # (V_G2 by quadrature, Ito isometry): no equity vol can lower it.
-    v = quad(lambda u: SIGMA**2 * _ba(u) ** 2 + ETA**2 * _bb(u) ** 2 + 2 * RHO * SIGMA * ETA * _ba(u) * _bb(u), 0.0, 10.0)[0]
+    v = quad(lambda u: SIGMA**2 * _ba(u) ** 2 + ETA**2 * _bb(u) ** 2 + 2 * RHO * SIGMA * ETA * _ba(u) * _bb(u), 0.0,
+             10.0)[0]
     assert v > 0.025**2 * 10.0
     with pytest.raises(MarketDataError, match=r"inconsistent with the rate volatility") as err:
         calibrate_equity_volatility(CURVE, G2, level=S0, dividend_yield=0.0, correlation=(0.0, 0.0),
@@ -196,7 +198,8 @@ def test_g2_market_variance_below_the_model_minimum_is_rejected():
     # a quadratic). phi2 and V by quadrature.
     rx, ry, t = -0.6, 0.1, 10.0  # (W1, W2, Z) correlation positive definite with rho = -0.7
     c1 = rx * SIGMA * quad(_ba, 0.0, t)[0] + ry * ETA * quad(_bb, 0.0, t)[0]
-    v = quad(lambda u: SIGMA**2 * _ba(u) ** 2 + ETA**2 * _bb(u) ** 2 + 2 * RHO * SIGMA * ETA * _ba(u) * _bb(u), 0.0, t)[0]
+    v = quad(lambda u: SIGMA**2 * _ba(u) ** 2 + ETA**2 * _bb(u) ** 2 + 2 * RHO * SIGMA * ETA * _ba(u) * _bb(u), 0.0,
+             t)[0]
     floor = v - c1**2 / t
     for factor, ok in ((0.999, False), (1.001, True)):
         quote = EquityVolQuote(expiry=t, implied_vol=math.sqrt(factor * floor / t))
@@ -359,7 +362,8 @@ def test_g2_constant_price_of_risk_meets_the_short_rate_target():
     out = _simulate(lam, seed=20250303)
     r = out["short_rate"][:, int(year)]
     assert _within_4_se(r, target)
-    q_mean = float(expected_short_rate(CURVE, G2, PricesOfRisk(rates=lam, equity=0.0), year, measure="market_consistent"))
+    q_mean = float(expected_short_rate(CURVE, G2, PricesOfRisk(rates=lam, equity=0.0), year,
+                                       measure="market_consistent"))
     assert _within_4_se(out["q_density"][:, int(year)] * r, q_mean)
 
 

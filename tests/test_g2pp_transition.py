@@ -90,7 +90,7 @@ def _model(bond_maturities=(1.0, 10.0)) -> G2PlusPlusEquityModel:
 def _q(fn, lo: float, hi: float) -> float:
     """quad split at the schedules' knots."""
     cuts = [lo, *[k for k in KNOTS if lo < k < hi], hi]
-    return sum(quad(fn, u0, u1, epsabs=0.0, epsrel=1e-13, limit=200)[0] for u0, u1 in zip(cuts, cuts[1:]))
+    return sum(quad(fn, u0, u1, epsabs=0.0, epsrel=1e-13, limit=200)[0] for u0, u1 in zip(cuts, cuts[1:], strict=False))
 
 
 def _ba(u: float) -> float:
@@ -117,7 +117,7 @@ def _exact_cov(t0: float, t1: float) -> np.ndarray:
     cov = np.empty((4, 4))
     for i in range(4):
         for j in range(i, 4):
-            cov[i, j] = cov[j, i] = _q(lambda s: _loadings(t1, s)[i] @ CORR @ _loadings(t1, s)[j], t0, t1)
+            cov[i, j] = cov[j, i] = _q(lambda s, i=i, j=j: _loadings(t1, s)[i] @ CORR @ _loadings(t1, s)[j], t0, t1)
     return cov
 
 
@@ -189,8 +189,8 @@ def test_real_world_factor_means_and_short_rate():
     model = _model()
     t = np.array([0.5, 2.0, 4.0, 12.0])
     mx, my = real_world_factor_means(model.rates, model.prices_of_risk, t)
-    ref_x = [_q(lambda s: SIGMA * float(LAM_X(s)) * math.exp(-A * (ti - s)), 0.0, ti) for ti in t]
-    ref_y = [_q(lambda s: ETA * float(LAM_Y(s)) * math.exp(-B * (ti - s)), 0.0, ti) for ti in t]
+    ref_x = [_q(lambda s, ti=ti: SIGMA * float(LAM_X(s)) * math.exp(-A * (ti - s)), 0.0, ti) for ti in t]
+    ref_y = [_q(lambda s, ti=ti: ETA * float(LAM_Y(s)) * math.exp(-B * (ti - s)), 0.0, ti) for ti in t]
     assert np.allclose(mx, ref_x, rtol=1e-11) and np.allclose(my, ref_y, rtol=1e-11)
     q_rate = expected_short_rate(model.curve, model.rates, model.prices_of_risk, t, measure="market_consistent")
     ref_q = [float(model.curve.forward(ti)) + _phi_convexity(ti) for ti in t]
@@ -274,8 +274,8 @@ def test_real_world_set_reweighted_by_q_density_gives_q_expectations():
     assert mean_within_se(w * out["short_rate"][:, 1:], phi_t)
     # the real-world set itself: expected short rate with the factor means, and an equity
     # drift that a martingale test would reject.
-    p_rate = phi_t + np.array([_q(lambda s: SIGMA * float(LAM_X(s)) * math.exp(-A * (ti - s)), 0.0, ti)
-                               + _q(lambda s: ETA * float(LAM_Y(s)) * math.exp(-B * (ti - s)), 0.0, ti)
+    p_rate = phi_t + np.array([_q(lambda s, ti=ti: SIGMA * float(LAM_X(s)) * math.exp(-A * (ti - s)), 0.0, ti)
+                               + _q(lambda s, ti=ti: ETA * float(LAM_Y(s)) * math.exp(-B * (ti - s)), 0.0, ti)
                                for ti in t])
     assert mean_within_se(out["short_rate"][:, 1:], p_rate)
     assert not mean_within_se(disc_s[:, -1:], np.array([S0]), n_se=10.0)

@@ -63,7 +63,8 @@ def test_fit_reports_the_misfit_of_a_smile_the_model_cannot_match() -> None:
     """A smile with a kink no Heston parameters produce: the fit's RMSE is reported (not zero)
     and the rows' differences are model minus market in vol points."""
     quotes = [HestonQuote(expiry=q.expiry, moneyness=q.moneyness,
-                          implied_vol=q.implied_vol + (0.03 if q.moneyness == 1.0 else 0.0)) for q in _quotes(TRUE, 0.0)]
+                          implied_vol=q.implied_vol + (0.03 if q.moneyness == 1.0 else 0.0)) for q in _quotes(TRUE,
+                                                                                                              0.0)]
     rep = calibrate_heston(CURVE, HW, level=100.0, dividend_yield=0.02, correlation=0.0, quotes=quotes)
     assert rep.rmse_vol_points > 0.5
     for r in rep.rows:

@@ -190,7 +190,7 @@ def test_expected_sqrt_variance_against_noncentral_chi_square() -> None:
         dof = 4 * p.kappa * p.theta / p.xi**2
         lam = 4 * p.kappa * p.v0 * np.exp(-p.kappa * t) / (p.xi**2 * one)
         ref = np.array([np.sqrt(ci) * ncx2(dof, float(li)).expect(np.sqrt, epsabs=1e-13, epsrel=1e-12)
-                        for ci, li in zip(c, lam)])
+                        for ci, li in zip(c, lam, strict=True)])
         np.testing.assert_allclose(got, ref, rtol=1e-7)
         # the stationary limit: sqrt(c) E sqrt(chi2_dof), c -> xi^2/(4 kappa) (central chi-square)
         stat = np.sqrt(2 * p.xi**2 / (4 * p.kappa)) * np.exp(gammaln((dof + 1) / 2) - gammaln(dof / 2))
@@ -266,7 +266,7 @@ def test_h1hw_error_against_monte_carlo_of_the_full_model(rho_sr: float) -> None
                - heston_option_price(p, level=s0, dividend_yield=0.0, discount=df, expiry=t, strike=strikes,
                                      rates=hw, correlation=0.0))
     err = mc - formula
-    for k, e, sd, f in zip(strikes, err, se, formula):
+    for k, e, sd, f in zip(strikes, err, se, formula, strict=True):
         print(f"K {k:5.0f}: correlation effect formula {f:.4f}, MC {f + e:.4f} (SE {sd:.4f}), error {e:+.4f}")
     assert np.all(np.abs(err) < 4.0 * se + 5e-3 * s0)
     # the correlation effect itself is resolved (the test has power)

@@ -71,7 +71,7 @@ def _spec(demo, model, name="veldmark_all_share"):
     lam = heston_prices_of_risk(kappa=p.kappa, theta=p.theta, xi=p.xi, equity_risk_premium=0.035,
                                 real_world_long_run_volatility=None, rho=p.rho, explained=explained)
     return HestonIndex(name=name, column=f"equity_{name}", level=1000.0, income_yield=0.028, params=p,
-                       prices_of_risk=lam, loadings=tuple(zip(g, beta.tolist())), explained=explained,
+                       prices_of_risk=lam, loadings=tuple(zip(g, beta.tolist(), strict=True)), explained=explained,
                        rates_correlation=float(c[i, ig[0]]), substeps_per_year=12)
 
 

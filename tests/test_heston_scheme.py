@@ -97,7 +97,8 @@ def test_density_has_mean_one_and_reweights_one_set_into_the_other() -> None:
     vq = (w * rw.variance[:, -1])
     diff = vq.mean() - mc.variance[:, -1].mean()
     se = np.sqrt(vq.var() / n + mc.variance[:, -1].var() / n)
-    print(f"E_Q[v_10]: reweighted real world {vq.mean():.5f}, market consistent {mc.variance[:, -1].mean():.5f} (SE {se:.1e})")
+    print(f"E_Q[v_10]: reweighted real world {vq.mean():.5f}, market consistent {mc.variance[:, -1].mean():.5f} (SE "
+          f"{se:.1e})")
     assert abs(diff) < 4 * se
     # the real-world variance does revert to its own level (0.18^2), the market-consistent one to theta
     assert abs(rw.variance[:, -1].mean() - 0.18**2) < abs(rw.variance[:, -1].mean() - P.theta)
@@ -163,7 +164,8 @@ def test_density_tends_to_closed_form_girsanov_as_xi_vanishes() -> None:
 
 def test_refused_prices_of_risk() -> None:
     with pytest.raises(ValueError, match="infinite variance price of risk"):
-        heston_prices_of_risk(kappa=1.0, theta=0.04, xi=0.5, equity_risk_premium=0.04, real_world_long_run_volatility=0.0,
+        heston_prices_of_risk(kappa=1.0, theta=0.04, xi=0.5, equity_risk_premium=0.04,
+                              real_world_long_run_volatility=0.0,
                               rho=0.0)
     lam = heston_prices_of_risk(kappa=1.0, theta=0.04, xi=0.5, equity_risk_premium=0.04,
                                 real_world_long_run_volatility=0.25, rho=0.0)
@@ -175,7 +177,8 @@ def test_refused_prices_of_risk() -> None:
 def test_scheme_bias_on_option_prices() -> None:
     """The scheme's bias on European prices against the semi-closed form (deterministic rates,
     P: v0 0.029, kappa 1.1, theta 0.042, xi 0.55, rho -0.72, Feller ratio 0.31). Measured with 200,000 paths
-    (README table; `python benchmarks/heston_accuracy.py bias`): with annual substeps the bias reaches 1.9 per 100 of spot (5 years, 130%
+    (README table; `python benchmarks/heston_accuracy.py bias`): with annual substeps the bias
+    reaches 1.9 per 100 of spot (5 years, 130%
     call); with monthly substeps at most 0.10 per 100 from 5 years on (0.21 at the 1-year
     forward). Checked here with 40,000 antithetic paths: monthly within 0.15 + 4 SE, and annual
     substeps visibly biased (the check can tell the two apart)."""
@@ -188,13 +191,15 @@ def test_scheme_bias_on_option_prices() -> None:
         ref = heston_option_price(P, level=1.0, dividend_yield=q, discount=df, expiry=t, strike=m * fwd, kind=kinds)
         bias = {}
         for sub in (1, 12):
-            paths = _run(P, times, measure="market_consistent", n=n, substeps=sub, r=r, seed=8, lam=None, antithetic=True)
+            paths = _run(P, times, measure="market_consistent", n=n, substeps=sub, r=r, seed=8, lam=None,
+                         antithetic=True)
             st = np.exp(paths.log_return[:, -1] - q * t)
             pay = df * np.where(m < 1, np.maximum(m * fwd - st[:, None], 0.0), np.maximum(st[:, None] - m * fwd, 0.0))
             pairs = 0.5 * (pay[0::2] + pay[1::2])
             se = 100 * pairs.std(axis=0) / np.sqrt(pairs.shape[0])
             bias[sub] = 100 * (pairs.mean(axis=0) - ref)
-            print(f"T {t:g}, {sub:2d} substeps a year: bias per 100 of spot {np.round(bias[sub], 3)} (SE {np.round(se, 3)})")
+            print(f"T {t:g}, {sub:2d} substeps a year: bias per 100 of spot {np.round(bias[sub], 3)} (SE "
+                  f"{np.round(se, 3)})")
             if sub == 12:
                 assert np.all(np.abs(bias[sub]) < 0.15 + 4 * se)
         assert np.max(np.abs(bias[1])) > 0.5

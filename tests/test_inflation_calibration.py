@@ -55,7 +55,7 @@ TRUE = JarrowYildirimParams(
 
 def _zc_quotes() -> list[ZeroCouponInflationSwapQuote]:
     return [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k))
-            for t, k in zip(ZC_MATURITIES, ZC_RATES)]
+            for t, k in zip(ZC_MATURITIES, ZC_RATES, strict=True)]
 
 
 REAL = real_curve_from_zc_inflation_swaps(NOMINAL, _zc_quotes()).curve
@@ -71,7 +71,7 @@ def test_real_curve_reprices_every_zciis_quote_exactly():
     # Reference: at a fair ZCIIS rate k the fixed leg P_n(0,T) ((1 + k)^T - 1) equals the index
     # leg P_r(0,T) - P_n(0,T), model independent (Brigo and Mercurio 2006, ch. 15.2; common
     # practice), so P_r(0,T) = P_n(0,T) (1 + k)^T at each quoted maturity.
-    for t, k, row in zip(ZC_MATURITIES, ZC_RATES, fit.rows):
+    for t, k, row in zip(ZC_MATURITIES, ZC_RATES, fit.rows, strict=True):
         p_n, p_r = float(NOMINAL.discount(t)), float(fit.curve.discount(t))
         fixed_leg = p_n * ((1.0 + k) ** t - 1.0)
         assert math.isclose(p_r - p_n, fixed_leg, rel_tol=1e-11, abs_tol=1e-15)
@@ -165,7 +165,7 @@ def test_fit_of_the_inflation_volatility_recovers_it():
     assert report.params.inflation_volatility == pytest.approx(TRUE.inflation_volatility, rel=1e-8)
     assert report.params.real == TRUE.real and report.params.nominal == TRUE.nominal
     assert report.price_rmse_bp < 1e-6 and report.vol_rmse_bp is None
-    for row, q in zip(report.rows, quotes):
+    for row, q in zip(report.rows, quotes, strict=True):
         assert row.market_price == q.price and row.model_price == pytest.approx(q.price, rel=1e-8)
         assert row.model_vol is None and row.vol_difference_bp is None
     assert len(report.as_records()) == len(quotes)
@@ -196,7 +196,7 @@ def _flat_normal_vol(maturity: int, strike: float, price: float, forwards: list[
     def cap(vol: float) -> float:
         return sum(ql.bachelierBlackFormula(ql.Option.Call, strike, f, vol * math.sqrt(i),
                                             float(NOMINAL.discount(i)))
-                   for i, f in zip(range(1, maturity + 1), forwards))
+                   for i, f in zip(range(1, maturity + 1), forwards, strict=True))
     return brentq(lambda v: cap(v) - price, 1e-8, 0.1, xtol=1e-16, rtol=1e-14) * 1e4
 
 
@@ -210,14 +210,14 @@ def test_fit_to_flat_normal_vol_quotes_on_market_forwards():
                                        convention="normal", forwards=tuple(fwds)))
         prices.append(price)
     # The quote's price is its flat vol on its forwards (QuantLib Bachelier, as inverted above).
-    for q, p in zip(quotes, prices):
+    for q, p in zip(quotes, prices, strict=True):
         assert yoy_quote_price(NOMINAL, q) == pytest.approx(p, rel=1e-10)
     initial = dataclasses.replace(TRUE, inflation_volatility=0.005)
     report = calibrate_jarrow_yildirim(NOMINAL, REAL, quotes, initial=initial)
     # Reference: the generating sigma_I; the model's flat vols on the market forwards match.
     assert report.params.inflation_volatility == pytest.approx(TRUE.inflation_volatility, rel=1e-8)
     assert report.vol_rmse_bp is not None and report.vol_rmse_bp < 1e-5
-    for row, q in zip(report.rows, quotes):
+    for row, q in zip(report.rows, quotes, strict=True):
         assert row.convention == "normal" and row.market_vol == q.vol
         assert row.model_vol == pytest.approx(q.vol, rel=1e-8)
 

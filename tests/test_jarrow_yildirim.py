@@ -118,7 +118,8 @@ def _model(params: JarrowYildirimParams = PARAMS) -> JarrowYildirimModel:
 def _q(fn, lo: float, hi: float) -> float:
     """quad split at the schedules' knots."""
     cuts = [lo, *[k for k in KNOTS if lo < k < hi], hi]
-    return sum(quad(fn, u0, u1, epsabs=1e-15, epsrel=1e-12, limit=200)[0] for u0, u1 in zip(cuts, cuts[1:]))
+    return sum(quad(fn, u0, u1, epsabs=1e-15, epsrel=1e-12, limit=200)[0] for u0, u1 in zip(cuts, cuts[1:],
+                                                                                            strict=False))
 
 
 def _bn(u: float) -> float:
@@ -144,7 +145,7 @@ def _exact_cov(t0: float, t1: float) -> np.ndarray:
     cov = np.empty((4, 4))
     for i in range(4):
         for j in range(i, 4):
-            cov[i, j] = cov[j, i] = _q(lambda s: _loadings(t1, s)[i] @ CORR @ _loadings(t1, s)[j], t0, t1)
+            cov[i, j] = cov[j, i] = _q(lambda s, i=i, j=j: _loadings(t1, s)[i] @ CORR @ _loadings(t1, s)[j], t0, t1)
     return cov
 
 
@@ -453,7 +454,7 @@ def test_cap_floor_parity_and_yoy_swap():
     n_curve, r_curve = model.nominal_curve, model.real_curve
     par = yoy_swap_rate(n_curve, r_curve, PARAMS, maturity=7.0)
     fwd = [yoy_forward(n_curve, r_curve, PARAMS, start=float(i - 1), end=float(i)) for i in range(1, 8)]
-    swap_at = lambda k: sum(float(_pn(i)) * (f - k) for i, f in zip(range(1, 8), fwd))  # noqa: E731
+    swap_at = lambda k: sum(float(_pn(i)) * (f - k) for i, f in zip(range(1, 8), fwd, strict=True))  # noqa: E731
     assert abs(swap_at(par)) < 1e-15
     for k in (0.0, 0.015, par, 0.03):
         cap = yoy_cap_price(n_curve, r_curve, PARAMS, maturity=7.0, strike=k, kind="cap")

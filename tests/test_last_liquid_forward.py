@@ -166,7 +166,8 @@ def test_llfr_is_the_weighted_average_of_the_defined_forwards():
     # [TD] 8.5.6: one-year forward into the FSP (20): the constant forward on (10, 20] equals
     # (L(20) - L(19)), with L(19) on the line between L(10) and L(20).
     f_in = (L[20.0] - L[10.0]) / 10.0
-    expected = 0.5 * f_in + 0.3 * (L[30.0] - L[20.0]) / 10 + 0.15 * (L[40.0] - L[20.0]) / 20 + 0.05 * (L[50.0] - L[20.0]) / 30
+    expected = (0.5 * f_in + 0.3 * (L[30.0] - L[20.0]) / 10 + 0.15 * (L[40.0] - L[20.0]) / 20
+                + 0.05 * (L[50.0] - L[20.0]) / 30)
     assert rep.first_smoothing_point == 20.0
     assert rep.last_liquid_forward_rate == pytest.approx(expected, abs=1e-15)
     # up to the FSP the curve is the bootstrapped one; beyond it, the inputs enter only via the LLFR
@@ -260,12 +261,17 @@ GOOD = ["1,0.02,", "5,0.025,", "10,0.03,", "20,0.031,0.6", "30,0.031,0.4"]
 @pytest.mark.parametrize(
     "rows, message",
     [
-        (["1,0.02,", "5,0.025,", "10,0.03,", "20,0.031,0.6", "30,0.031,0.5"], r"weights sum to 1\.1, not 1 \(data row 4 \(line 5\): maturity 20, weight 0\.6; data row 5"),
+        (["1,0.02,", "5,0.025,", "10,0.03,", "20,0.031,0.6", "30,0.031,0.5"],
+         r"weights sum to 1\.1, not 1 \(data row 4 \(line 5\): maturity 20, weight 0\.6; data row 5"),
         (["1,0.02,", "5,0.025,0", "10,0.03,", "20,0.031,", "30,0.031,"], "no row has a positive weight"),
-        (["1,0.02,", "5,0.025,", "10,0.03,-0.1", "20,0.031,0.7", "30,0.031,0.4"], r"data row 3 \(line 4\), column 'llfr_weight': weight -0\.1 must not be negative"),
-        (["1,0.02,", "5,0.025,", "10,0.03,", "20,0.031,0.6", "30,,0.4"], r"data row 5 \(line 6\), column 'llfr_weight': maturity 30 has a weight \(0\.4\) but no rate"),
-        (["1,0.02,", "5,0.025,", "10,0.03,abc", "20,0.031,0.6", "30,0.031,0.4"], r"data row 3 \(line 4\), column 'llfr_weight': 'abc' is not a number"),
-        (["0.5,0.02,0.5", "5,0.025,", "10,0.03,", "20,0.031,0.5", "zero"], r"data row 1 \(line 2\), column 'llfr_weight': the first smoothing point 0\.5"),
+        (["1,0.02,", "5,0.025,", "10,0.03,-0.1", "20,0.031,0.7", "30,0.031,0.4"],
+         r"data row 3 \(line 4\), column 'llfr_weight': weight -0\.1 must not be negative"),
+        (["1,0.02,", "5,0.025,", "10,0.03,", "20,0.031,0.6", "30,,0.4"],
+         r"data row 5 \(line 6\), column 'llfr_weight': maturity 30 has a weight \(0\.4\) but no rate"),
+        (["1,0.02,", "5,0.025,", "10,0.03,abc", "20,0.031,0.6", "30,0.031,0.4"],
+         r"data row 3 \(line 4\), column 'llfr_weight': 'abc' is not a number"),
+        (["0.5,0.02,0.5", "5,0.025,", "10,0.03,", "20,0.031,0.5", "zero"],
+         r"data row 1 \(line 2\), column 'llfr_weight': the first smoothing point 0\.5"),
     ],
     ids=["sum", "no-positive", "negative", "weight-without-rate", "not-a-number", "fsp-below-1y"],
 )

@@ -84,7 +84,8 @@ def small_run(tmp_path_factory):
     [
         ({"premium": -1000.0}, r"model point 2 \(id 'UL-BAD'\): premium = -1000 is negative"),
         ({"guarantee": -5.0}, r"model point 2 \(id 'UL-BAD'\): guarantee = -5 is negative"),
-        ({"product": "variable_annuity_glwb"}, r"model point 2 \(id 'UL-BAD'\): unknown product type 'variable_annuity_glwb'"),
+        ({"product": "variable_annuity_glwb"},
+         r"model point 2 \(id 'UL-BAD'\): unknown product type 'variable_annuity_glwb'"),
         ({"premium": None}, r"model point 2 \(id 'UL-BAD'\): missing field 'premium'"),
         ({"term": 7.5}, r"model point 2 \(id 'UL-BAD'\): term = 7.5 must be a whole number"),
         ({"mortality": "cmi_2099"}, r"model point 2 \(id 'UL-BAD'\): mortality = 'cmi_2099' names no mortality table"),
@@ -126,14 +127,18 @@ def test_retirement_beyond_horizon_and_short_bonds_are_refused(small_run, tmp_pa
     info = inspect_run(small_run)
     assert info.last_whole_year == 10 and info.bond_maturities == (1, 2, 3, 4, 5)
     late = _parse(GOOD_UL, {**GOOD_GAO, "term": 12})
-    with pytest.raises(LiabilityDataError, match=r"model point 2 \(id 'GAO-A'\): retirement at year 12 lies beyond the scenario horizon of 10 years"):
+    with pytest.raises(LiabilityDataError,
+                       match=r"model point 2 \(id 'GAO-A'\): retirement at year 12 lies beyond the scenario horizon of "
+                             r"10 years"):
         check_portfolio_against_run(late, info)
     mature = _parse({**GOOD_UL, "term": 11})
     with pytest.raises(LiabilityDataError, match=r"id 'UL-A'\): maturity at year 11 lies beyond"):
         value_run(small_run, mature, "market_consistent")
     # The annuity needs P(T, T+8) but the files stop at 5 years and no extrapolation is allowed.
     long_annuity = _parse({**GOOD_GAO, "annuity_term": 8})
-    with pytest.raises(LiabilityDataError, match=r"id 'GAO-A'\): the annuity factor at retirement needs bond prices 8 years to run.*allows 5 years"):
+    with pytest.raises(LiabilityDataError,
+                       match=r"id 'GAO-A'\): the annuity factor at retirement needs bond prices 8 years to run.*allows "
+                             r"5 years"):
         check_portfolio_against_run(long_annuity, info)
     allowed = parse_portfolio(
         {"portfolio": HEAD, "valuation": {"bond_extrapolation_years": 3},

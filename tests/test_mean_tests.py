@@ -110,7 +110,8 @@ def test_streamed_moments_equal_the_whole_sample():
     x = np.exp(rng.standard_normal((1000, 4)))
     whole = CellMoments.of(x, True)
     first = CellMoments.of(x[:300], True)
-    merged = first.merge(CellMoments.of(x[300:700], True, first.shift)).merge(CellMoments.of(x[700:], True, first.shift))
+    merged = first.merge(CellMoments.of(x[300:700], True, first.shift)).merge(CellMoments.of(x[700:], True,
+                                                                                             first.shift))
     assert merged.count == 500 and merged.paths == 1000
     assert np.allclose(merged.log_mean, whole.log_mean, rtol=1e-12)
     assert np.allclose(merged.log_mean_std_error, whole.log_mean_std_error, rtol=1e-9)
@@ -192,7 +193,8 @@ def test_power_against_planted_bias_and_the_promise_of_a_conclusive_cell(rule, k
                 conclusive = ~weak
                 line = report_statistic(
                     f"power of {rule} ({kind}), var(log w) = {v:g}, {'antithetic' if antithetic else 'independent'}, "
-                    f"mean x {bias:.2f}: fail {failed.mean():.3f}, inconclusive {weak.mean():.3f}, pass {passed.mean():.3f}")
+                    f"mean x {bias:.2f}: fail {failed.mean():.3f}, inconclusive {weak.mean():.3f}, pass "
+                    f"{passed.mean():.3f}")
                 if conclusive.sum() >= 50:
                     share = passed.sum() / conclusive.sum()
                     assert share <= _bound(0.5, int(conclusive.sum())), line
@@ -237,7 +239,7 @@ def test_risk_premium_false_alarms_before_and_after(report_statistic):
     after = np.zeros(reps, dtype=bool)
     low_before = low_after = 0
     chunk = 50
-    for rp, sig in zip(premia, vols):
+    for rp, sig in zip(premia, vols, strict=True):
         for r0 in range(0, reps, chunk):
             w = np.cumsum(rng.standard_normal((pairs, chunk, times.size)), axis=2)  # W at whole years
             w = np.stack([w, -w], axis=1).reshape(2 * pairs, chunk * times.size)
@@ -350,7 +352,6 @@ def test_a_variance_mixture_is_judged_by_the_robust_t(report_statistic):
     assert rule_for_asset("equity_x", measure="market_consistent", credit_density=False,
                           non_lognormal={"equity_x"}) == ROBUST
     rng = np.random.default_rng(20261206)
-    crit = family_critical_z(CELLS)
     rates = {}
     for rule in (LOGNORMAL, ROBUST):
         alarms = []

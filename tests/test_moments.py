@@ -20,7 +20,7 @@ def test_merged_moments_equal_the_moments_of_the_whole_sample():
     rng = np.random.default_rng(3)
     x = np.exp(rng.standard_normal((1000, 3)))
     cuts = [0, 17, 300, 301, 999, 1000]
-    parts = [Moments.of(x[a:b]) for a, b in zip(cuts[:-1], cuts[1:])]
+    parts = [Moments.of(x[a:b]) for a, b in zip(cuts[:-1], cuts[1:], strict=True)]
     merged = parts[0]
     for p in parts[1:]:
         merged = merged.merge(p)

@@ -35,12 +35,14 @@ class _Clock:
 def test_progress_lines_count_parts_elapsed_and_remaining():
     clock, out = _Clock(), io.StringIO()
     p = LineProgress(24, kept=4, interval=0, stream=out, clock=clock).start()
-    assert p.line() == "4 of 24 parts generated (4 kept from the interrupted run), 0 s elapsed, time remaining not known yet"
+    assert p.line() == ("4 of 24 parts generated (4 kept from the interrupted run), 0 s elapsed, "
+                        "time remaining not known yet")
     clock.now += 30.0
     p.advance()
     p.advance()
     # 2 new parts in 30 s: 15 s a part, 18 parts left -> 270 s (common practice: linear rate).
-    assert p.line() == "6 of 24 parts generated (4 kept from the interrupted run), 30 s elapsed, about 4 min 30 s remaining"
+    assert p.line() == ("6 of 24 parts generated (4 kept from the interrupted run), 30 s elapsed, "
+                        "about 4 min 30 s remaining")
     for _ in range(18):
         p.advance()
     clock.now += 5.0

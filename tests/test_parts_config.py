@@ -18,8 +18,10 @@ from pqflow.models.cir_credit import zero_spread
 from pqflow.models.jarrow_yildirim import zciis_rate
 
 INDICES = [
-    {"name": "world_equity", "kind": "equity", "level": 850.0, "income_yield": 0.019, "volatility": 0.18, "risk_premium": 0.04},
-    {"name": "veldmark_property", "kind": "property", "level": 500.0, "income_yield": 0.042, "volatility": 0.11, "risk_premium": 0.025},
+    {"name": "world_equity", "kind": "equity", "level": 850.0, "income_yield": 0.019, "volatility": 0.18,
+     "risk_premium": 0.04},
+    {"name": "veldmark_property", "kind": "property", "level": 500.0, "income_yield": 0.042, "volatility": 0.11,
+     "risk_premium": 0.025},
 ]
 DRIVERS = ["rates", "veldmark_all_share", "world_equity", "veldmark_property", "real_rate", "inflation"]
 MATRIX = [  # invented, positive definite (eigenvalues 0.22 .. 2.21)
@@ -40,7 +42,10 @@ CREDIT = {
     "substeps_per_year": 12,
     "ratings": [
         {"name": "AA", "recovery": 0.4, "mean_reversion": 0.4, "long_run_mean": 0.01, "volatility": 0.05,
-         "initial": 0.004, "fit": ["long_run_mean", "initial"], "spread_maturities": [1, 3, 5, 10], "spreads_bp": [28, 36, 43, 56]},
+         "initial": 0.004, "fit": ["long_run_mean", "initial"], "spread_maturities": [1, 3, 5, 10], "spreads_bp": [28,
+                                                                                                                   36,
+                                                                                                                   43,
+                                                                                                                   56]},
         {"name": "BBB", "recovery": 0.4, "mean_reversion": 0.3, "long_run_mean": 0.03, "volatility": 0.08,
          "initial": 0.012, "fit": ["long_run_mean", "initial"], "price_of_risk": 0.5,
          "spread_maturities": [1, 3, 5, 10], "spreads_bp": [95, 119, 136, 162]},
@@ -73,9 +78,10 @@ def test_full_balance_sheet_calibrates_and_reprices_its_inputs(tmp_path, full):
     k = zciis_rate(cal.curve, cal.inflation.real_curve, t)
     assert np.max(np.abs(k - np.array(INFLATION["swap_rates"]))) < 1e-12
     # beyond the last quote the breakeven is held flat (common practice)
-    assert zciis_rate(cal.curve, cal.inflation.real_curve, np.array([45.0, 80.0])) == pytest.approx([0.0218] * 2, abs=1e-12)
+    assert zciis_rate(cal.curve, cal.inflation.real_curve, np.array([45.0, 80.0])) == pytest.approx([0.0218] * 2,
+                                                                                                    abs=1e-12)
     # every spread repriced by the CIR++ shift (Brigo and Mercurio 2006, ch. 3.9; exact fit)
-    for rating, spec in zip(cal.credit.ratings, CREDIT["ratings"]):
+    for rating, spec in zip(cal.credit.ratings, CREDIT["ratings"], strict=True):
         mats = np.array(spec["spread_maturities"], float)
         model = zero_spread(rating, 0.0, mats, rating.cir.initial)
         assert np.max(np.abs(model - np.array(spec["spreads_bp"]) * 1e-4)) < 1e-12
@@ -98,7 +104,7 @@ def test_the_calibration_record_rebuilds_every_part(tmp_path, full):
     assert again.to_json() == cal.to_json()
     times = np.linspace(0.0, 10.0, 11)
     a, b = build_model(cal, (5.0,)), build_model(again, (5.0,))
-    for t0, t1 in zip(times[:-1], times[1:]):
+    for t0, t1 in zip(times[:-1], times[1:], strict=True):
         la, lb = a.step_law(t0, t1), b.step_law(t0, t1)
         assert np.array_equal(la.chol, lb.chol) and np.array_equal(la.drift, lb.drift)
         assert np.array_equal(la.real_world_shift, lb.real_world_shift)
@@ -119,7 +125,8 @@ def test_the_calibration_record_rebuilds_every_part(tmp_path, full):
          "index world_equity: give level and income_yield, or market_data.equity_index"),
         (lambda d: d["indices"][1].pop("volatility"),
          "index veldmark_property: give volatility, or market_data.equity_vols"),
-        (lambda d: d["credit"].update(bond_maturities=[1, 11]), "credit.bond_maturities [11.0] are not in outputs.bond_maturities"),
+        (lambda d: d["credit"].update(bond_maturities=[1, 11]),
+         "credit.bond_maturities [11.0] are not in outputs.bond_maturities"),
         (lambda d: d.pop("correlations") and d["equity"].update(correlation_with_rates=-0.1),
          "every pair of drivers needs a correlation"),
         (lambda d: d["indices"][0].update(name="veldmark_all_share"), "index names must not repeat"),
@@ -210,7 +217,8 @@ def test_reweighted_real_world_expectations_match_market_consistent_ones(full_ru
     p, q = _read(run, "real_world"), _read(run, "market_consistent")
     t = 10.0
     p, q = p[p.time == t], q[q.time == t]
-    for col in ("cpi", "real_zcb_10y", "property_veldmark_property", "equity_world_equity", "intensity_BBB", "dzcb_BBB_10y"):
+    for col in ("cpi", "real_zcb_10y", "property_veldmark_property", "equity_world_equity", "intensity_BBB",
+                "dzcb_BBB_10y"):
         wp = (p["q_density"] * p[col]).to_numpy()
         xq = q[col].to_numpy()
         wp = wp.reshape(-1, 2).mean(axis=1)  # antithetic pairs are the sampling units
@@ -378,7 +386,8 @@ def test_a_real_world_long_run_intensity_sets_the_price_of_risk(tmp_path, full):
     bbb = cal.credit.ratings[1]
     q = bbb.cir
     assert real_world_cir(bbb).long_run_mean == pytest.approx(0.02, rel=1e-12)
-    assert bbb.price_of_risk == pytest.approx((q.mean_reversion - q.mean_reversion * q.long_run_mean / 0.02) / q.volatility, rel=1e-12)
+    assert bbb.price_of_risk == pytest.approx(
+        (q.mean_reversion - q.mean_reversion * q.long_run_mean / 0.02) / q.volatility, rel=1e-12)
     data["credit"]["ratings"][1]["price_of_risk"] = 0.3
     with pytest.raises(ConfigError, match="at most one of price_of_risk and real_world_long_run_mean"):
         _load(tmp_path, data)
@@ -406,7 +415,8 @@ def test_ratings_correlate_through_the_matrix_and_stay_independent_of_market_dri
     again = load_calibration(__import__("pqflow.jobs.steps", fromlist=["x"]).write_calibration(tmp_path, cal))
     assert np.array_equal(again.credit.correlation, cal.credit.correlation)
     n = 20_000
-    paths = simulate_credit(cal.credit, np.array([0.0, 1.0 / 365.0]), np.random.default_rng(5), measure="market_consistent",
+    paths = simulate_credit(cal.credit, np.array([0.0, 1.0 / 365.0]), np.random.default_rng(5),
+                            measure="market_consistent",
                             n_paths=n, substeps=1)
     dy = paths.factor[:, 1, :] - paths.factor[:, 0, :]
     r = np.corrcoef(dy.T)[0, 1]
@@ -431,7 +441,8 @@ def test_a_stored_calibration_must_be_for_the_configured_rates_model(tmp_path, f
     del data["hull_white"]
     data.update(rates={"model": "g2pp"}, g2pp={"a": 0.6, "sigma": 0.006, "b": 0.04, "eta": 0.008, "rho": -0.7},
                 correlations={"drivers": G2_DRIVERS, "matrix": _g2_matrix()})
-    with pytest.raises(ConfigError, match="calibration is for rates model 'hull_white' but the configuration names 'g2pp'"):
+    with pytest.raises(ConfigError,
+                       match="calibration is for rates model 'hull_white' but the configuration names 'g2pp'"):
         check_calibration_fits(cal, _load(tmp_path, data), source="cal.json")
     assert assemble_calibration(_load(tmp_path, data)).inputs_hash != cal.inputs_hash
 
@@ -488,7 +499,8 @@ def test_whole_balance_sheet_writes_every_default_density_block(full_run):
     cal = load_calibration(run / "calibration.json")
     model = build_model(cal, plan.bond_maturities)
     ratings = {r: f"credit_{r}" for r in cal.credit.names}
-    built = model_structure(model.state_names, model.state_drivers(), model.step_laws(np.array([0.0, 1.0])).transition, ratings)
+    built = model_structure(model.state_names, model.state_drivers(), model.step_laws(np.array([0.0, 1.0])).transition,
+                            ratings)
     indices = [(p.name, p.column) for p in model.indices]
     assert built == economy_structure(("rates",), indices, ("real_rate", "inflation"), ratings)
     assert set(block_layout(model, cal.credit, plan.density_blocks)) == set(names)

@@ -71,6 +71,8 @@ def _kill_part_way(config: Path, out: Path) -> None:
     finally:
         os.kill(proc.pid, signal.SIGKILL)
         proc.wait(timeout=30)
+        proc.stdout.close()  # the pipes are ours to close (pytest reports unclosed files as errors)
+        proc.stderr.close()
     assert proc.returncode == -signal.SIGKILL
 
 
@@ -184,7 +186,8 @@ class _Interrupted(BaseException):
 
 
 @pytest.mark.flow
-def test_interrupted_flow_keeps_every_finished_part_and_counts_right(prefect_harness, small_config, tmp_path, monkeypatch):
+def test_interrupted_flow_keeps_every_finished_part_and_counts_right(prefect_harness, small_config, tmp_path,
+                                                                     monkeypatch):
     # The flow is interrupted after reading 2 results while the worker threads have finished 5
     # parts (the 4 real-world parts and the first market-consistent one); the other 3 fail
     # before writing anything. A resumed run must keep all 5 and regenerate the other 3: the

@@ -106,19 +106,25 @@ def test_columns_are_the_closed_forms():
     # one maturity at a time (Brigo and Mercurio 2006, ch. 3.3, as in pqflow.models.hull_white).
     model = _model()
     times = np.arange(0.0, 5.01, 1.0)
-    out = simulate_batch(model, times, measure="market_consistent", n_paths=5, rng=np.random.default_rng(9), antithetic=False)
-    core = simulate_states(model, times, measure="market_consistent", n_paths=5, rng=np.random.default_rng(9), antithetic=False)
+    out = simulate_batch(model, times, measure="market_consistent", n_paths=5, rng=np.random.default_rng(9),
+                         antithetic=False)
+    core = simulate_states(model, times, measure="market_consistent", n_paths=5, rng=np.random.default_rng(9),
+                           antithetic=False)
     x, integral, log_s = core.states
     for m in model.bond_maturities:
-        np.testing.assert_allclose(out[bond_column(m)], zcb_price(model.curve, model.rates, times[None, :], m, x), rtol=1e-13)
-    np.testing.assert_allclose(out["cash_account"], cash_account(model.curve, model.rates, times[None, :], integral), rtol=1e-13)
+        np.testing.assert_allclose(out[bond_column(m)], zcb_price(model.curve, model.rates, times[None, :], m, x),
+                                   rtol=1e-13)
+    np.testing.assert_allclose(out["cash_account"], cash_account(model.curve, model.rates, times[None, :], integral),
+                               rtol=1e-13)
     np.testing.assert_allclose(out[equity_column("eq")], np.exp(log_s), rtol=1e-15)
     np.testing.assert_allclose(out["deflator"], 1.0 / out["cash_account"], rtol=1e-15)
-    only = simulate_batch(model, times, measure="market_consistent", n_paths=5, rng=np.random.default_rng(9), antithetic=False, columns=("zcb_5y",))
+    only = simulate_batch(model, times, measure="market_consistent", n_paths=5, rng=np.random.default_rng(9),
+                          antithetic=False, columns=("zcb_5y",))
     assert set(only) == {"cash_account", "zcb_5y", "deflator", "p_density"}
     assert np.array_equal(only["zcb_5y"], out["zcb_5y"])
     with pytest.raises(ValueError, match="unknown output columns"):
-        simulate_batch(model, times, measure="market_consistent", n_paths=2, rng=np.random.default_rng(1), antithetic=False, columns=("zcb_7y",))
+        simulate_batch(model, times, measure="market_consistent", n_paths=2, rng=np.random.default_rng(1),
+                       antithetic=False, columns=("zcb_7y",))
 
 
 def test_warm_and_cold_law_cache_give_the_same_bits():
@@ -135,11 +141,14 @@ def test_warm_and_cold_law_cache_give_the_same_bits():
 def test_bad_inputs_are_refused():
     model = _model()
     with pytest.raises(ValueError, match="even number"):
-        simulate_states(model, np.array([0.0, 1.0]), measure="real_world", n_paths=3, rng=np.random.default_rng(0), antithetic=True)
+        simulate_states(model, np.array([0.0, 1.0]), measure="real_world", n_paths=3, rng=np.random.default_rng(0),
+                        antithetic=True)
     with pytest.raises(ValueError, match="starts at 0"):
-        simulate_states(model, np.array([0.5, 1.0]), measure="real_world", n_paths=2, rng=np.random.default_rng(0), antithetic=False)
+        simulate_states(model, np.array([0.5, 1.0]), measure="real_world", n_paths=2, rng=np.random.default_rng(0),
+                        antithetic=False)
     with pytest.raises(ValueError, match="unknown measure"):
-        simulate_states(model, np.array([0.0, 1.0]), measure="p", n_paths=2, rng=np.random.default_rng(0), antithetic=False)
+        simulate_states(model, np.array([0.0, 1.0]), measure="p", n_paths=2, rng=np.random.default_rng(0),
+                        antithetic=False)
 
 
 def test_reused_buffers_give_the_same_bits():

@@ -101,7 +101,8 @@ def test_curve_only_shift_moves_a_zero_coupon_bond_by_its_closed_form(run):
     P'(0,T)/P(0,T) = e^{-0.01 T} on every path (see the module docstring)."""
     for part in ("part-00000.parquet", "part-00001.parquet"):
         a = pq.read_table(run / "scenarios" / "market_consistent" / part).to_pandas()
-        b = pq.read_table(run / "sensitivities" / "rates_up_100bp" / "scenarios" / "market_consistent" / part).to_pandas()
+        shocked = run / "sensitivities" / "rates_up_100bp"
+        b = pq.read_table(shocked / "scenarios" / "market_consistent" / part).to_pandas()
         assert np.array_equal(a["scenario"], b["scenario"]) and np.array_equal(a["time"], b["time"])
         for T in (1.0, 10.0):
             ratio = b.loc[b.time == T, "deflator"].to_numpy() / a.loc[a.time == T, "deflator"].to_numpy()

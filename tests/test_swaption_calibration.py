@@ -115,7 +115,7 @@ def test_decomposition_matches_quantlib_bonds_and_bond_options_tightly(kind, mon
     r_star = split.critical_factor + float(alpha(FLAT, params, expiry))
     option = ql.Option.Put if kind == "payer" else ql.Option.Call
     total, bond = 0.0, 0.0
-    for c, t, x in zip(split.coupons, split.payment_times, split.bond_strikes):
+    for c, t, x in zip(split.coupons, split.payment_times, split.bond_strikes, strict=True):
         # Reference: QuantLib HullWhite.discountBond (the affine bond price, Brigo and Mercurio
         # 2006, ch. 3.3).
         assert x == pytest.approx(model.discountBond(expiry, t, r_star), rel=1e-10)
@@ -214,7 +214,7 @@ def test_calibration_recovers_known_parameters(convention, shift):
     assert report.params.volatility == pytest.approx(TRUE.volatility, rel=1e-6)
     assert report.rmse_bp < 1e-3
     assert len(report.rows) == len(quotes)
-    for row, q in zip(report.rows, quotes):
+    for row, q in zip(report.rows, quotes, strict=True):
         assert row.market_vol == q.vol and row.convention == convention
         assert row.model_price == pytest.approx(row.market_price, rel=1e-6)
         assert abs(row.vol_difference_bp) < 1e-3

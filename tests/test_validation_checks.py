@@ -69,7 +69,7 @@ def jamshidian_payer(curve, hw: HullWhiteParams, expiry: float, tenor: int, stri
     x_star = brentq(excess, -1.0, 1.0, xtol=1e-14)
     strikes = zcb_price(curve, hw, expiry, times - expiry, x_star)
     return float(sum(c * zero_bond_option(curve, hw, expiry=expiry, bond_maturity=float(t), strike=float(k), kind="put")
-                     for c, t, k in zip(coupons, times, strikes)))
+                     for c, t, k in zip(coupons, times, strikes, strict=True)))
 
 
 def _bachelier(f: float, k: float, vol: float, t: float, annuity: float) -> float:
@@ -105,9 +105,14 @@ def instrument_section(run_dir: Path) -> dict[str, Any]:
         fwd = float((curve.discount(expiry) - curve.discount(pay[-1])) / annuity)
         price = jamshidian_payer(curve, hw, expiry, tenor, fwd)
         if convention == "normal":
-            vol = _implied(lambda v: _bachelier(fwd, fwd, v, expiry, annuity), price)
+            vol = _implied(lambda v, fwd=fwd, expiry=expiry, annuity=annuity: _bachelier(fwd, fwd, v, expiry, annuity),
+                           price)
         else:
-            vol = _implied(lambda v: _black(fwd, fwd, v, expiry, annuity, shift), price)
+            vol = _implied(
+                lambda v, fwd=fwd, expiry=expiry, annuity=annuity, shift=shift: _black(fwd, fwd, v, expiry, annuity,
+                                                                                       shift),
+                price,
+            )
         swaptions.append({"expiry": expiry, "tenor": float(tenor), "strike": fwd, "convention": convention,
                           "shift": shift, "market_vol": vol, "market_price": price, "model_price": price,
                           "weight": 1.0})
@@ -121,7 +126,7 @@ def instrument_section(run_dir: Path) -> dict[str, Any]:
         price = equity_option_price(curve, hw, params, expiry=expiry, strike=fwd, kind=kind)
         # At the money forward a call and a put are worth the same (put-call parity), so the
         # call formula inverts either.
-        vol = _implied(lambda v: _black(fwd, fwd, v, expiry, df), price)
+        vol = _implied(lambda v, fwd=fwd, expiry=expiry, df=df: _black(fwd, fwd, v, expiry, df), price)
         options.append({"index": eq["name"], "expiry": expiry, "strike": fwd, "kind": kind,
                         "market_vol": vol, "market_price": price, "model_price": price})
     return {"swaptions": swaptions, "equity_options": options}
@@ -415,7 +420,8 @@ def _lognormal_wealth(monthly_mean: float, monthly_sd: float, n: int, seed: int)
 
 def test_wealth_benchmark_fails_the_fitted_lognormal_and_passes_the_adjusted_one():
     # American Academy of Actuaries (2005): a lognormal with monthly mean 0.008356 and s.d.
-    # 0.042558 fails the criteria, 0.006667 / 0.050518 passes (the American Academy of Actuaries' 2005 report, from memory).
+    # 0.042558 fails the criteria, 0.006667 / 0.050518 passes (the American Academy of Actuaries'
+    # 2005 report, from memory).
     _, fitted = wealth_ratio_benchmark(_lognormal_wealth(0.008356, 0.042558, 40_000, 1))
     assert fitted["verdict"] == "fail"
     assert any(c["percentile"] < 0.5 for c in fitted["failed_cells"])  # its left tail is too thin
@@ -443,7 +449,7 @@ def test_real_world_martingale_cells_use_the_smallest_density_block(good_run, tm
     A rates block whose weights are 5% too high everywhere after time 0 fails the real-world
     martingale check (the lognormal identity judges these cells)."""
     table = run_checks(good_run, ess_warning_share=0.10).martingale["real_world"]
-    weight = dict(zip(table.asset, table.weight))
+    weight = dict(zip(table.asset, table.weight, strict=True))
     assert weight["deflator"] == "deflator"
     assert weight["zcb_10y"] == "q_density_rates / cash_account"
     assert weight["equity_veldmark_all_share"] == "q_density_rates_veldmark_all_share / cash_account"

@@ -145,7 +145,8 @@ def test_references_come_from_the_market_inputs(full_run, full_checks):
         row = table[(table["asset"] == "cpi") & (table["time"] == t)]
         assert float(row["expected"].iloc[0]) == pytest.approx(100.0 * curve.discount(t) * (1 + k) ** t, rel=1e-10)
     row = table[(table["asset"] == "real_zcb_5y") & (table["time"] == 5.0)]  # matures at the 10y swap
-    assert float(row["expected"].iloc[0]) == pytest.approx(100.0 * curve.discount(10.0) * (1 + swaps[10.0]) ** 10, rel=1e-10)
+    assert float(row["expected"].iloc[0]) == pytest.approx(100.0 * curve.discount(10.0) * (1 + swaps[10.0]) ** 10,
+                                                           rel=1e-10)
     # Duffie and Singleton 1999 (recovery of market value): E_Q[exp(-L Lambda_t) Dbar(t, t+m) / B_t]
     # = P(0, t+m) exp(-s(0, t+m) (t+m)), s the quoted zero spread at a pillar.
     spreads = {(r["rating"], float(r["maturity_years"])): float(r["spread_bp"]) * 1e-4
@@ -176,7 +177,8 @@ def test_martingale_catches_a_drift_in_the_cpi(full_run, tmp_path):
     table = result.martingale["market_consistent"]
     crit = entry["family_critical_z"]
     assert (table[table["asset"] == "cpi"]["z_score"].abs() > crit).any()
-    assert (table[table["asset"].isin(["deflator", "zcb_10y"])]["z_score"].abs() <= crit).all()  # only the CPI's claims fail
+    assert (table[table["asset"].isin(["deflator",
+                                       "zcb_10y"])]["z_score"].abs() <= crit).all()  # only the CPI's claims fail
     assert result.summary["checks"]["martingale_real_world"]["verdict"] != "fail"  # the P set is untouched
     assert result.summary["verdict"] == "fail"
 
@@ -191,7 +193,8 @@ def test_martingale_catches_a_mispriced_defaultable_bond(full_run, tmp_path):
     assert entry["verdict"] == "fail"
     assert entry["worst_cell"]["asset"] == "dzcb_BBB_5y"
     table = result.martingale["market_consistent"]
-    others = table[table["asset"].str.startswith(("dzcb_", "cumulative_intensity_")) & (table["asset"] != "dzcb_BBB_5y")]
+    others = table[table["asset"].str.startswith(("dzcb_",
+                                                  "cumulative_intensity_")) & (table["asset"] != "dzcb_BBB_5y")]
     assert (others["z_score"].abs() <= entry["family_critical_z"]).all()
 
 

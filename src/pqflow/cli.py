@@ -59,7 +59,7 @@ def _fit_width() -> None:
     import os
 
     for con in (console, err_console):
-        con.width = None  # type: ignore[assignment]  (back to detection: a test may reuse the console)
+        con.width = None  # type: ignore[assignment]  # rich types width as int; None: back to detection
         if not con.is_terminal and not os.environ.get("COLUMNS"):
             con.width = PIPED_WIDTH
 
@@ -214,13 +214,26 @@ def run(
     out: Annotated[str, typer.Option("--out", help="Run directory to create: a local path, or a URI pyarrow can open (s3://bucket/prefix).")],
     scenarios: Annotated[int | None, typer.Option(help="Scenarios per set (overrides the file).")] = None,
     seed: Annotated[int | None, typer.Option(help="Root seed (overrides the file).")] = None,
-    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an earlier run in --out once this one succeeds.")] = False,
-    workers: Annotated[int | None, typer.Option(help="Worker threads generating parts (default: the configuration's \\[execution] workers, else 2).", min=1, max=64)] = None,
-    resume: Annotated[bool, typer.Option("--resume", help="Continue an interrupted run into the same --out: keep its parts whose checksums match, regenerate the rest.")] = False,
-    runner: Annotated[str | None, typer.Option("--runner", help="Task runner: threads or dask (default: the configuration's \\[execution] runner, else threads).")] = None,
-    dask_address: Annotated[str | None, typer.Option("--dask-address", help="Address of a running Dask scheduler (implies --runner dask).")] = None,
-    dask_workers: Annotated[int | None, typer.Option("--dask-workers", help="Worker processes of the local Dask cluster (default: --workers).", min=1, max=64)] = None,
-    calibration: Annotated[Path | None, typer.Option("--calibration", help="Use this stored calibration.json (from 'pqflow calibrate') instead of fitting.")] = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite",
+                                            help="Replace an earlier run in --out once this one succeeds.")] = False,
+    workers: Annotated[int | None,
+                       typer.Option(help="Worker threads generating parts (default: the configuration's \\[execution] "
+                                         "workers, else 2).", min=1, max=64)] = None,
+    resume: Annotated[bool, typer.Option("--resume",
+                                         help="Continue an interrupted run into the same --out: keep its parts whose "
+                                              "checksums match, regenerate the rest.")] = False,
+    runner: Annotated[str | None, typer.Option("--runner",
+                                               help="Task runner: threads or dask (default: the configuration's "
+                                                    "\\[execution] runner, else threads).")] = None,
+    dask_address: Annotated[str | None, typer.Option("--dask-address",
+                                                     help="Address of a running Dask scheduler (implies --runner "
+                                                          "dask).")] = None,
+    dask_workers: Annotated[int | None, typer.Option("--dask-workers",
+                                                     help="Worker processes of the local Dask cluster (default: "
+                                                          "--workers).", min=1, max=64)] = None,
+    calibration: Annotated[Path | None, typer.Option("--calibration",
+                                                     help="Use this stored calibration.json (from 'pqflow calibrate') "
+                                                          "instead of fitting.")] = None,
 ) -> None:
     """Calibrate, generate the real-world and market-consistent sets, validate, write the manifest."""
     import os
@@ -316,12 +329,14 @@ def run(
     except KeyboardInterrupt:
         again = {"--scenarios": scenarios, "--seed": seed, "--calibration": calibration, "--runner": runner,
                  "--workers": workers, "--dask-address": dask_address, "--dask-workers": dask_workers}
-        _interrupted(target, [str(config), "--out", out, *(t for k, v in again.items() if v is not None for t in (k, str(v))),
+        _interrupted(target, [str(config), "--out", out,
+                              *(t for k, v in again.items() if v is not None for t in (k, str(v))),
                               *(["--overwrite"] if overwrite else [])])
     finally:
         if calibration is None:
             shutil.rmtree(calibration_file.parent, ignore_errors=True)
-        release_lock(lock)
+        if lock is not None:  # taken before this block
+            release_lock(lock)
     if resume:
         console.print(_resume_line(result), highlight=False, markup=False)
     summary = result["summary"]
@@ -374,7 +389,10 @@ def _interrupted(target: Any, arguments: list[str]) -> None:
 @guarded(err_console)
 def validate(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory (e.g. copied or exported).")],
-    ess_warning_share: Annotated[float | None, typer.Option("--ess-warning-share", help="Effective sample size share below which a density is past its usable horizon (default: the run's own, else 0.10).", min=0.0, max=1.0)] = None,
+    ess_warning_share: Annotated[float | None, typer.Option("--ess-warning-share",
+                                                            help="Effective sample size share below which a density is "
+                                                                 "past its usable horizon (default: the run's own, "
+                                                                 "else 0.10).", min=0.0, max=1.0)] = None,
 ) -> None:
     """Re-run every check from the files: manifest first, then the checks, then a fresh validation/.
 
@@ -431,7 +449,8 @@ def _self_command() -> str:
 @guarded(err_console)
 def check(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
-    as_json: Annotated[bool, typer.Option("--json", help="Print every parameter as JSON instead of the summary.")] = False,
+    as_json: Annotated[bool, typer.Option("--json",
+                                          help="Print every parameter as JSON instead of the summary.")] = False,
 ) -> None:
     """Validate a configuration and show the parameters and columns it gives, without simulating."""
     from pqflow.calibration.assemble import assemble_calibration
@@ -460,7 +479,8 @@ def check(
         if cal.credit is not None:
             corr = "correlated with each other" if cal.credit.correlation is not None else "independent"
             console.print(
-                Text(f"credit drivers: {', '.join('credit_' + r for r in cal.credit.names)} ({corr}; independent of the "
+                Text(f"credit drivers: {', '.join('credit_' + r for r in cal.credit.names)} ({corr}; independent of "
+                     f"the "
                      f"drivers above), Euler substeps of at most 1/{cal.credit_substeps_per_year} year"),
                 highlight=False,
             )
@@ -551,10 +571,12 @@ def _print_fit(record: CalibrationRecord) -> None:
         console.print(f"equity volatility by bucket (ends {ends} years), points: {buckets}", highlight=False)
     for item in record.indices:
         vol = item["volatility"]
-        vol_text = (fmt.vol_points(vol) if isinstance(vol, (int, float)) else ", ".join(fmt.vol_points(v) for v in vol["values"])) + " pts"
+        vol_text = (fmt.vol_points(vol) if isinstance(vol, (int, float))
+                    else ", ".join(fmt.vol_points(v) for v in vol["values"])) + " pts"
         console.print(
             f"{item['kind']} index {escape(str(item['name']))}: level {fmt.plain(item['level'], 6)}, income yield "
-            f"{fmt.percent(item['income_yield'], 2)}, volatility {vol_text}, risk premium {fmt.percent(item['risk_premium'], 2)}",
+            f"{fmt.percent(item['income_yield'], 2)}, volatility {vol_text}, risk premium "
+            f"{fmt.percent(item['risk_premium'], 2)}",
             highlight=False,
         )
     _print_heston_fits(dict(record.part_fit("heston")))
@@ -563,8 +585,10 @@ def _print_fit(record: CalibrationRecord) -> None:
     if inf and p_inf is not None:
         console.print(
             f"inflation (Jarrow-Yildirim): real curve from {len(inf['rows'])} zero-coupon inflation swaps, "
-            f"max repricing error {fmt.bp(inf['max_abs_difference_bp'], 2)}; a_r = {fmt.plain(p_inf['real_mean_reversion'])}, "
-            f"sigma_r = {fmt.bp(1e4 * p_inf['real_volatility'])}, sigma_I = {fmt.vol_points(p_inf['inflation_volatility'])} pts",
+            f"max repricing error {fmt.bp(inf['max_abs_difference_bp'], 2)}; a_r = "
+            f"{fmt.plain(p_inf['real_mean_reversion'])}, "
+            f"sigma_r = {fmt.bp(1e4 * p_inf['real_volatility'])}, sigma_I = "
+            f"{fmt.vol_points(p_inf['inflation_volatility'])} pts",
             highlight=False,
         )
         if caps := inf.get("caps"):
@@ -575,11 +599,14 @@ def _print_fit(record: CalibrationRecord) -> None:
             )
     for r in record.part_fit("credit").get("ratings", []):
         console.print(
-            f"credit {escape(str(r['rating']))}: spreads repriced to {fmt.bp(r['max_abs_error_bp'], 2)}; CIR++ shift in "
+            f"credit {escape(str(r['rating']))}: spreads repriced to {fmt.bp(r['max_abs_error_bp'], 2)}; CIR++ shift "
+            f"in "
             f"[{fmt.percent(r['min_shift'])}, {fmt.percent(r['max_shift'])}]; Feller ratio {r['feller_ratio']:.2f}"
             + (f"; fitted {', '.join(r['fitted'])}" if r["fitted"] else "")
-            + (f"; real world: theta {fmt.plain(r['price_of_risk'])}, long-run level {fmt.percent(r['real_world_long_run_mean'])} "
-               f"(market consistent {fmt.percent(r['market_consistent_long_run_mean'])})" if r.get("price_of_risk") else ""),
+            + (f"; real world: theta {fmt.plain(r['price_of_risk'])}, long-run level "
+               f"{fmt.percent(r['real_world_long_run_mean'])} "
+               f"(market consistent {fmt.percent(r['market_consistent_long_run_mean'])})" if r.get("price_of_risk")
+               else ""),
             highlight=False,
         )
     corr = record.part_fit("correlation")
@@ -612,7 +639,8 @@ def _print_fit(record: CalibrationRecord) -> None:
         for col in ("expiry", "tenor", "market", "model", "diff bp"):
             table.add_column(col, justify="right")
         for r in rows:
-            table.add_row(fmt.years(r["expiry"]), fmt.years(r["tenor"]), fmt.bp(r["market_vol"]), fmt.bp(r["model_vol"]),
+            table.add_row(fmt.years(r["expiry"]), fmt.years(r["tenor"]), fmt.bp(r["market_vol"]),
+                          fmt.bp(r["model_vol"]),
                           fmt.bp(r["vol_difference_bp"], 2, sign=True))
         console.print(table)
 
@@ -622,13 +650,15 @@ def _print_curve_fit(curve: dict[str, Any]) -> None:
         freq = f", coupon frequency {curve['coupon_frequency']}" if curve.get("coupon_frequency") else ""
         console.print(
             f"last liquid forward (Solvency II review): {curve['input_kind']} inputs ({curve['inputs_used']}){freq}, "
-            f"CRA {curve['credit_risk_adjustment_bp']:g} bp; first smoothing point {curve['first_smoothing_point']:g}y, "
+            f"CRA {curve['credit_risk_adjustment_bp']:g} bp; first smoothing point "
+            f"{curve['first_smoothing_point']:g}y, "
             f"LLFR {curve['last_liquid_forward_rate']:.6%} (continuous), UFR {curve['ufr']:.4%} "
             f"(omega {curve['omega']:.6%}), alpha = {curve['alpha']:g} ({curve['alpha_source']})",
             highlight=False,
         )
         terms = ", ".join(
-            f"{t['weight']:g} x f({t['forward_from']:g},{t['maturity']:g}) = {t['forward']:.5%}" for t in curve["llfr_terms"]
+            f"{t['weight']:g} x f({t['forward_from']:g},{t['maturity']:g}) = {t['forward']:.5%}"
+            for t in curve["llfr_terms"]
         )
         console.print(f"  LLFR = {terms}", highlight=False)
     elif "alpha" in curve:
@@ -645,7 +675,8 @@ def _print_curve_fit(curve: dict[str, Any]) -> None:
 @app.command("curve")
 def curve_command(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML) with [curve] or market_data.curve.")],
-    out: Annotated[Path | None, typer.Option("--out", help="CSV file to write the curve to (whole maturities 1 to the long end).")] = None,
+    out: Annotated[Path | None, typer.Option("--out", help="CSV file to write the curve to (whole maturities 1 to "
+                                                           "the long end).")] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an existing file.")] = False,
 ) -> None:
     """Fit today's risk-free curve only: print the method's parameters and key maturities, and
@@ -682,7 +713,8 @@ def curve_command(
     _caution()
 
 
-_LINE_LABEL = {"unit_linked_gmmb": "unit-linked", "participating": "with-profits", "deferred_annuity_gao": "annuity+GAO"}
+_LINE_LABEL = {"unit_linked_gmmb": "unit-linked", "participating": "with-profits",
+               "deferred_annuity_gao": "annuity+GAO"}
 
 
 @app.command()
@@ -690,8 +722,11 @@ _LINE_LABEL = {"unit_linked_gmmb": "unit-linked", "participating": "with-profits
 def value(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
     liabilities: Annotated[Path, typer.Option("--liabilities", help="Liability portfolio file (TOML).")],
-    out: Annotated[Path | None, typer.Option("--out", help="Folder for the results (default RUN_DIR/valuation).")] = None,
-    overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace earlier valuation results (only once the new valuation has succeeded).")] = False,
+    out: Annotated[Path | None, typer.Option("--out",
+                                             help="Folder for the results (default RUN_DIR/valuation).")] = None,
+    overwrite: Annotated[bool, typer.Option("--overwrite",
+                                            help="Replace earlier valuation results (only once the new valuation has "
+                                                 "succeeded).")] = False,
 ) -> None:
     """Value liabilities with guarantees on both sets: best estimate, TVOG, reconciliation.
 
@@ -775,8 +810,12 @@ def value(
 @guarded(err_console)
 def report(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
-    prepared_by: Annotated[str | None, typer.Option("--prepared-by", help="Name on the sign-off page (default: the run configuration's [signoff] prepared_by).")] = None,
-    reviewed_by: Annotated[str | None, typer.Option("--reviewed-by", help="Reviewer's name on the sign-off page (default: [signoff] reviewed_by).")] = None,
+    prepared_by: Annotated[str | None, typer.Option("--prepared-by",
+                                                    help="Name on the sign-off page (default: the run configuration's "
+                                                         "[signoff] prepared_by).")] = None,
+    reviewed_by: Annotated[str | None, typer.Option("--reviewed-by",
+                                                    help="Reviewer's name on the sign-off page (default: [signoff] "
+                                                         "reviewed_by).")] = None,
 ) -> None:
     """Write validation/report.html: a sign-off page, then every check, plot and table."""
     from pqflow.report import write_report
@@ -807,14 +846,26 @@ def _short(cell: str) -> str:
 def compare(
     old_run: Annotated[Path, typer.Argument(help="The earlier run (e.g. last quarter).")],
     new_run: Annotated[Path, typer.Argument(help="The later run.")],
-    html: Annotated[Path | None, typer.Option("--html", help="Also write the comparison as an HTML page with charts.")] = None,
-    all_rows: Annotated[bool, typer.Option("--all", help="Every move (and unchanged items), not only the largest.")] = False,
-    as_json: Annotated[bool, typer.Option("--json", help="Print the comparison as JSON (for machines) instead of tables.")] = False,
-    attribute: Annotated[bool, typer.Option("--attribute", help="Step-wise attribution of the liability change (needs --liabilities, --old-config, --new-config).")] = False,
-    liabilities: Annotated[Path | None, typer.Option("--liabilities", help="Liability portfolio file (TOML) for --attribute.")] = None,
-    old_config: Annotated[Path | None, typer.Option("--old-config", help="The configuration the old run was made with (for --attribute).")] = None,
-    new_config: Annotated[Path | None, typer.Option("--new-config", help="The configuration the new run was made with (for --attribute).")] = None,
-    attribution_dir: Annotated[Path | None, typer.Option("--attribution-dir", help="Folder for the attribution's runs (default NEW_RUN-attribution beside NEW_RUN).")] = None,
+    html: Annotated[Path | None, typer.Option("--html",
+                                              help="Also write the comparison as an HTML page with charts.")] = None,
+    all_rows: Annotated[bool, typer.Option("--all",
+                                           help="Every move (and unchanged items), not only the largest.")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the comparison as JSON (for machines) instead of "
+                                                         "tables.")] = False,
+    attribute: Annotated[bool, typer.Option("--attribute",
+                                            help="Step-wise attribution of the liability change (needs --liabilities, "
+                                                 "--old-config, --new-config).")] = False,
+    liabilities: Annotated[Path | None, typer.Option("--liabilities",
+                                                     help="Liability portfolio file (TOML) for --attribute.")] = None,
+    old_config: Annotated[Path | None, typer.Option("--old-config",
+                                                    help="The configuration the old run was made with (for "
+                                                         "--attribute).")] = None,
+    new_config: Annotated[Path | None, typer.Option("--new-config",
+                                                    help="The configuration the new run was made with (for "
+                                                         "--attribute).")] = None,
+    attribution_dir: Annotated[Path | None, typer.Option("--attribution-dir",
+                                                         help="Folder for the attribution's runs (default "
+                                                              "NEW_RUN-attribution beside NEW_RUN).")] = None,
 ) -> None:
     """What moved between two runs: inputs matched by meaning (moves in bp and vol points,
     largest first), calibrated parameters, verdicts that changed, liabilities by line; with
@@ -831,7 +882,7 @@ def compare(
         if attribute:
             missing = [flag for flag, v in (("--liabilities", liabilities), ("--old-config", old_config),
                                              ("--new-config", new_config)) if v is None]
-            if missing:
+            if missing or old_config is None or new_config is None:
                 raise PqflowError(f"--attribute needs {', '.join(missing)}")
             from pqflow.report.attribution import check_attribution
 
@@ -840,7 +891,8 @@ def compare(
             from pqflow.pipeline.attribution import attribute_change
 
             (err_console if as_json else console).print(
-                f"attribution: one run and valuation per step into {target} (Prefect tasks)...", style="dim", highlight=False)
+                f"attribution: one run and valuation per step into {target} (Prefect tasks)...", style="dim",
+                highlight=False)
             attribution = attribute_change(str(old_run), str(new_run), str(old_config), str(new_config),
                                            str(liabilities), str(target))
     except PqflowError as exc:
@@ -874,7 +926,8 @@ def compare(
         _print_attribution(attribution)
     if html is not None:
         path = write_compare_html(comparison, html, everything=all_rows, attribution=attribution)
-        (err_console if as_json else console).print(f"comparison page written to {path}", style="green", highlight=False)
+        (err_console if as_json else console).print(f"comparison page written to {path}", style="green",
+                                                    highlight=False)
     if not as_json:
         _caution()
 
@@ -888,7 +941,8 @@ def _print_attribution(result: dict[str, Any]) -> None:
             table.add_row(f"{r['step']}. {r['title']}", fmt.money_se(r["best_estimate_change"], r["best_estimate_se"]),
                           fmt.money_se(r["tvog_change"], r["tvog_se"]))
     t = result["totals"].get("total", {})
-    table.add_row("total change", fmt.money(t.get("best_estimate_total"), sign=True), fmt.money(t.get("tvog_total"), sign=True))
+    table.add_row("total change", fmt.money(t.get("best_estimate_total"), sign=True), fmt.money(t.get("tvog_total"),
+                                                                                                sign=True))
     console.print(table)
     checks = ", ".join(f"{k.replace('_', ' ')}: {'yes' if v else 'NO'}" for k, v in result.get("checks", {}).items())
     if checks:
@@ -916,13 +970,16 @@ def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run director
 @app.command()
 def deploy(
     config: Annotated[Path, typer.Argument(help="Run configuration (TOML); stored as an absolute path.")],
-    out_root: Annotated[str, typer.Option("--out-root", help="Folder (or URI) under which each run writes OUT_ROOT/VALUATION_DATE.")],
+    out_root: Annotated[str, typer.Option("--out-root",
+                                          help="Folder (or URI) under which each run writes OUT_ROOT/VALUATION_DATE.")],
     scenarios: Annotated[int | None, typer.Option(help="Scenarios per set (overrides the file).")] = None,
     seed: Annotated[int | None, typer.Option(help="Root seed (overrides the file).")] = None,
-    overwrite: Annotated[bool, typer.Option("--overwrite", help="Let a run replace an earlier run of the same valuation date.")] = False,
+    overwrite: Annotated[bool, typer.Option("--overwrite", help="Let a run replace an earlier run of the same "
+                                                               "valuation date.")] = False,
     pool: Annotated[str, typer.Option("--pool", help="Process work pool (created if absent).")] = "pqflow",
     name: Annotated[str, typer.Option("--name", help="Deployment name.")] = "quarterly",
-    cron: Annotated[str, typer.Option("--cron", help="Schedule (cron); default 06:00 on the first day after each quarter end.")] = "0 6 1 1,4,7,10 *",
+    cron: Annotated[str, typer.Option("--cron", help="Schedule (cron); default 06:00 on the first day after each "
+                                                     "quarter end.")] = "0 6 1 1,4,7,10 *",
     timezone: Annotated[str, typer.Option("--timezone", help="Time zone of the schedule (IANA name).")] = "UTC",
     paused: Annotated[bool, typer.Option("--paused", help="Register with the schedule paused.")] = False,
 ) -> None:
@@ -937,7 +994,8 @@ def deploy(
     except PqflowError as exc:
         _fail(exc)
     created = " (created)" if info["work_pool_created"] else ""
-    console.print(f"deployment {info['deployment']} registered at {info['api_url']}", style="green", highlight=False, markup=False)
+    console.print(f"deployment {info['deployment']} registered at {info['api_url']}", style="green", highlight=False,
+                  markup=False)
     console.print(
         f"schedule: cron {info['schedule']['cron']} ({info['schedule']['timezone']}){' paused' if paused else ''}\n"
         f"work pool: {info['work_pool']}{created}, type process\n"
@@ -960,8 +1018,12 @@ def export(
     run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")],
     measure: Annotated[str, typer.Option("--measure", help="real_world or market_consistent.")],
     fmt: Annotated[str, typer.Option("--format", help="csv or parquet.")] = "csv",
-    columns: Annotated[str | None, typer.Option("--columns", help="Comma-separated columns (default: all); scenario and time always come first.")] = None,
-    scenarios: Annotated[str | None, typer.Option("--scenarios", help="Scenarios FIRST:STOP (FIRST to STOP-1, e.g. 0:100); default all.")] = None,
+    columns: Annotated[str | None, typer.Option("--columns",
+                                                help="Comma-separated columns (default: all); scenario and time always "
+                                                     "come first.")] = None,
+    scenarios: Annotated[str | None, typer.Option("--scenarios",
+                                                  help="Scenarios FIRST:STOP (FIRST to STOP-1, e.g. 0:100); default "
+                                                       "all.")] = None,
     out: Annotated[Path | None, typer.Option("--out", help="File to write (default: CSV on standard output).")] = None,
     overwrite: Annotated[bool, typer.Option("--overwrite", help="Replace an existing --out file.")] = False,
 ) -> None:

@@ -200,7 +200,8 @@ class Calibration:
                     "dividend_yield": self.equity.dividend_yield,
                     "volatility": _schedule_json(self.equity.volatility),
                     "correlation_with_rates": self.equity.correlation,
-                    **({"correlation_with_rate_factors": list(self.rates_correlation)} if self.rates_correlation else {}),
+                    **({"correlation_with_rate_factors": list(self.rates_correlation)} if self.rates_correlation
+                       else {}),
                 },
                 "market_prices_of_risk": {
                     "rates": _schedule_json(self.prices_of_risk.rates),
@@ -223,7 +224,8 @@ class Calibration:
             out["driver_correlation"] = self.correlation.to_json()
         if self.indices:
             out["indices"] = [
-                index_to_json(i, self.extra_prices_of_risk[i.name], self.index_risk_premia[i.name]) for i in self.indices
+                index_to_json(i, self.extra_prices_of_risk[i.name], self.index_risk_premia[i.name])
+                for i in self.indices
             ]
         if self.inflation is not None:
             out["inflation"] = {
@@ -374,7 +376,8 @@ def check_calibration_fits(calibration: Calibration, config: RunConfig, *, sourc
             sorted(config.credit.bond_maturities)
         ) != calibration.credit.bond_maturities:
             raise ConfigError(f"{source}: calibration credit ratings or bond maturities differ from [credit]")
-    longest = max([*config.outputs.bond_maturities, *(config.inflation.real_bond_maturities if config.inflation else [])])
+    longest = max([*config.outputs.bond_maturities, *(config.inflation.real_bond_maturities if config.inflation
+                                                      else [])])
     need = config.simulation.max_horizon_years + longest
     if need > calibration.curve.max_maturity + 1e-9:
         raise ConfigError(
@@ -425,16 +428,19 @@ def _check_equivalence(config: RunConfig) -> None:
 
 
 def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
+    curve: DiscountCurve
     if config.curve is not None:
         c = config.curve
         if c.kind == "zero_rates":
-            curve = LogDiscountCurve.from_zero_rates(np.array(c.maturities), np.array(c.values), compounding=c.compounding)
+            curve = LogDiscountCurve.from_zero_rates(np.array(c.maturities), np.array(c.values),
+                                                     compounding=c.compounding)
         else:
             curve = LogDiscountCurve(maturities=np.array(c.maturities), discount_factors=np.array(c.values))
         return curve, {"method": "typed-in pillars, monotone cubic on -ln P(0,t)"}
     ext = config.curve_extrapolation
     path = config.market_file("curve")
-    assert ext is not None and path is not None
+    if ext is None or path is None:
+        raise ConfigError("curve: give [curve] pillars, or market_data.curve with [curve_extrapolation]")
     data = read_curve_inputs(path)
     if ext.method == "last_liquid_forward":
         return fit_llfr_curve(data, ext, path)
@@ -448,7 +454,8 @@ def _curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
     if not keep.any():
         raise MarketDataError(f"{path}: no input maturity at or below the last liquid point {llp:g}")
     dropped = data.maturities[~keep].tolist()
-    liquid = type(data)(source=data.source, quantity=data.quantity, maturities=data.maturities[keep], values=data.values[keep])
+    liquid = type(data)(source=data.source, quantity=data.quantity, maturities=data.maturities[keep],
+                        values=data.values[keep])
     instruments = liquid.instruments(credit_risk_adjustment_bp=ext.credit_risk_adjustment_bp)
     curve, report = fit_smith_wilson(
         instruments,
@@ -490,7 +497,8 @@ def fit_curve(config: RunConfig) -> tuple[DiscountCurve, dict[str, Any]]:
     return _curve(config)
 
 
-def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G2PlusPlusParams, dict[str, Any], list[dict[str, Any]]]:
+def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G2PlusPlusParams, dict[str, Any],
+                                                             list[dict[str, Any]]]:
     g2 = config.rates.model == "g2pp"
     if config.hull_white is not None:
         hw = HullWhiteParams(mean_reversion=config.hull_white.mean_reversion, volatility=config.hull_white.volatility)
@@ -498,9 +506,11 @@ def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G
     if config.g2pp is not None:
         return G2PlusPlusParams(**config.g2pp.model_dump()), {"method": "typed in"}, []
     path = config.market_file("swaptions")
-    assert path is not None
+    if path is None:
+        raise ConfigError(f"{config.rates.model}: give the parameters, or market_data.swaptions to fit them")
     rows = read_swaption_quotes(path)
-    quotes = [SwaptionQuote(expiry=r.expiry, tenor=r.tenor, vol=r.vol, convention=r.convention, shift=r.shift, weight=r.weight) for r in rows]
+    quotes = [SwaptionQuote(expiry=r.expiry, tenor=r.tenor, vol=r.vol, convention=r.convention, shift=r.shift,
+                            weight=r.weight) for r in rows]
     report: Any
     if g2:
         g2_opts = config.calibration.g2pp
@@ -511,7 +521,7 @@ def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G
             initial=G2PlusPlusParams(**g2_opts.initial.model_dump()) if g2_opts.initial is not None else None,
             mean_reversion_bounds=g2_opts.mean_reversion_bounds,
             volatility_bounds=g2_opts.volatility_bounds,
-            fixed=dict(g2_opts.fixed),
+            fixed={str(k): v for k, v in g2_opts.fixed.items()},
         )
         method = ("G2++ (a, sigma, b, eta, rho) to ATM swaptions, one-dimensional integral (Brigo and "
                   "Mercurio 2006, ch. 4.2), weighted least squares; rates_x is the factor with a >= b")
@@ -556,10 +566,12 @@ def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G
 
 def _equity_spot(config: RunConfig) -> tuple[float, float]:
     if config.equity.level is not None:
-        assert config.equity.dividend_yield is not None
+        if config.equity.dividend_yield is None:
+            raise ConfigError("equity: level and dividend_yield go together")
         return config.equity.level, config.equity.dividend_yield
     path = config.market_file("equity_index")
-    assert path is not None
+    if path is None:
+        raise ConfigError("equity: give level and dividend_yield, or market_data.equity_index")
     rows = read_equity_indices(path)
     if config.equity.name not in rows:
         raise MarketDataError(f"{path}: no row for equity index {config.equity.name!r} (has: {', '.join(rows)})")
@@ -574,7 +586,8 @@ def _equity_vol(
     if config.equity.volatility is not None:
         return config.equity.volatility, {"method": "typed in"}, []
     path = config.market_file("equity_vols")
-    assert path is not None
+    if path is None:
+        raise ConfigError("equity: give volatility, or market_data.equity_vols")
     rows = [r for r in read_equity_vols(path) if r.index == config.equity.name]
     return fit_index_volatility(path, config.equity.name, "equity", rows, curve, hw, rho, level, q)
 
@@ -591,10 +604,12 @@ def _real_world(
         view = {"kind": "constant_price_of_risk", "value": lam_r}
     elif rw.target_short_rate is not None:
         target_time = rw.target_year or horizon
-        lam_r = rates_price_of_risk_for_target(curve, hw, target_short_rate=rw.target_short_rate, target_time=target_time)
+        lam_r = rates_price_of_risk_for_target(curve, hw, target_short_rate=rw.target_short_rate,
+                                               target_time=target_time)
         view = {"kind": "short_rate_at_year", "target_short_rate": rw.target_short_rate, "target_year": target_time}
     else:
-        assert rw.long_run_level is not None and rw.speed is not None
+        if rw.long_run_level is None or rw.speed is None:
+            raise ConfigError("real_world: give target_short_rate and target_year, or long_run_level and speed")
         maturity = rw.target_maturity if rw.target == "zero_yield" else None
         if maturity is not None and horizon + maturity > curve.max_maturity:
             raise ConfigError(
@@ -667,7 +682,8 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     fit = {"curve": curve_fit, "correlation": corr_fit, config.rates.model: rates_fit, "equity": equity_fit}
     indices, extra_lams, premia, index_fits = [], {}, {}, {}
     for section in config.indices:
-        index, lam, index_fit, options = calibrate_index(config, section, curve, rates, correlation.with_rates(section.name))
+        index, lam, index_fit, options = calibrate_index(config, section, curve, rates,
+                                                         correlation.with_rates(section.name))
         indices.append(index)
         extra_lams[section.name] = lam
         premia[section.name] = section.risk_premium
@@ -675,9 +691,11 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         equity_options = [*equity_options, *options]
     if index_fits:
         fit["indices"] = index_fits
+    inflation_caps: list[dict[str, Any]]
     inflation, inflation_caps = None, []
     if config.inflation is not None:
-        inflation, inflation_lams, fit["inflation"], inflation_caps = calibrate_inflation(config, curve, rates, correlation)
+        inflation, inflation_lams, fit["inflation"], inflation_caps = calibrate_inflation(config, curve, rates,
+                                                                                          correlation)
         extra_lams.update(inflation_lams)
     credit = None
     if config.credit is not None:
@@ -726,7 +744,8 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
     """The Gaussian scenario model both sets are simulated from (credit is simulated beside it,
     :mod:`pqflow.simulation.credit`)."""
     eq = calibration.equity
-    core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield, volatility=eq.volatility)
+    core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield,
+                            volatility=eq.volatility)
     lams = {
         **_rates_prices_of_risk(calibration.rates, calibration.prices_of_risk.rates),
         eq.name: calibration.prices_of_risk.equity,
@@ -761,5 +780,5 @@ def _implied_price_of_risk(
     beta = np.linalg.solve(corr.matrix[np.ix_(others, others)], corr.matrix[others, i])
     scheds = [as_schedule(lams.get(names[j], 0.0)) for j in others]
     knots = sorted({k for s in scheds for k in s.knots})
-    values = [float(sum(b * float(s(k)) for b, s in zip(beta, scheds))) for k in knots]
+    values = [float(sum(b * float(s(k)) for b, s in zip(beta, scheds, strict=True))) for k in knots]
     return PiecewiseConstant(knots=tuple(knots), values=tuple(values))

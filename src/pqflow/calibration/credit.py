@@ -290,7 +290,7 @@ def calibrate_rating(
         scale = 1.0 / max(float(np.max(hazard.hazards)), 1e-6)  # psi in units of the hazard
 
         def make(x: np.ndarray) -> CirParams:
-            return replace(cir, **{f: float(v) for f, v in zip(fit, x)})
+            return replace(cir, **{f: float(v) for f, v in zip(fit, x, strict=True)})
 
         def scaled_shift(x: np.ndarray) -> np.ndarray:
             return shift(_rating(curve.rating, make(x), hazard, curve.recovery, 0.0), grid) * scale
@@ -307,7 +307,7 @@ def calibrate_rating(
             objective,
             x0,
             method="SLSQP",
-            bounds=list(zip(lo, hi)),
+            bounds=list(zip(lo, hi, strict=True)),
             constraints=constraints,
             options={"ftol": 1e-14, "maxiter": 500},
         )
@@ -328,7 +328,7 @@ def calibrate_rating(
         )
         for t, s, m, e, h, p in zip(
             curve.maturities, curve.spreads, model_spreads, errors_bp, hazard.hazards,
-            shift(rating, curve.maturities),
+            shift(rating, curve.maturities), strict=True,
         )
     )
     min_shift = float(np.min(psi_grid))

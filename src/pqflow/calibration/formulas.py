@@ -171,7 +171,7 @@ def _invert(
     )
 
 
-def _elementwise(args: tuple[np.ndarray | float, ...], solve) -> np.ndarray | float:
+def _elementwise(args: tuple[np.ndarray | float, ...], solve) -> np.ndarray:
     arrays = np.broadcast_arrays(*(np.asarray(z, dtype=float) for z in args))
     out = np.empty(arrays[0].shape)
     for idx in np.ndindex(out.shape):

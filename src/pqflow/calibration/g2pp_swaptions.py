@@ -150,24 +150,24 @@ def calibrate_g2pp_to_swaptions(
     x0 = np.array([float(np.clip(getattr(start, n), *bounds[n])) for n in free])
     lower = np.array([bounds[n][0] for n in free])
     upper = np.array([bounds[n][1] for n in free])
-    scale = np.array([abs(v) if n != "rho" else 1.0 for n, v in zip(free, x0)])
+    scale = np.array([abs(v) if n != "rho" else 1.0 for n, v in zip(free, x0, strict=True)])
 
     def unpack(theta: np.ndarray) -> G2PlusPlusParams:
         values = dict(fixed)
-        values.update({n: float(v) for n, v in zip(free, theta)})
+        values.update({n: float(v) for n, v in zip(free, theta, strict=True)})
         return G2PlusPlusParams(**values)
 
     def model_prices(params: G2PlusPlusParams) -> np.ndarray:
         return np.array([
             swaption_price(curve, params, expiry=q.expiry, payment_times=t, accruals=tau,
                            strike=float(f), kind="payer")
-            for q, (t, tau), f in zip(quotes, schedules, forwards)
+            for q, (t, tau), f in zip(quotes, schedules, forwards, strict=True)
         ])
 
     def model_vols(prices: np.ndarray) -> np.ndarray:
         return np.array([
             float(implied_vol(q.convention, p, f, f, q.expiry, annuity=a, kind="payer", shift=q.shift))
-            for q, p, f, a in zip(quotes, prices, forwards, annuities)
+            for q, p, f, a in zip(quotes, prices, forwards, annuities, strict=True)
         ])
 
     def residuals(theta: np.ndarray) -> np.ndarray:
@@ -191,9 +191,9 @@ def calibrate_g2pp_to_swaptions(
             model_vol=_to_quote_units(q, float(v)), vol_difference_bp=float(d),
             market_price=float(mp), model_price=float(p), weight=q.weight,
         )
-        for q, f, a, v, d, mp, p in zip(quotes, forwards, annuities, vols, diff_bp, market_prices, prices)
+        for q, f, a, v, d, mp, p in zip(quotes, forwards, annuities, vols, diff_bp, market_prices, prices, strict=True)
     )
-    at_bound = {n for n, m in zip(free, result.active_mask) if m != 0}
+    at_bound = {n for n, m in zip(free, result.active_mask, strict=True) if m != 0}
     canonical = _canonical(params)
     if canonical is not params:  # relabel the factors in the names too
         relabel = {"a": "b", "b": "a", "sigma": "eta", "eta": "sigma", "rho": "rho"}

@@ -76,7 +76,7 @@ class HestonBounds:
     initial: tuple[float, float, float, float, float] = (0.04, 1.5, 0.04, 0.5, -0.5)
 
     def __post_init__(self) -> None:
-        for name, lo, hi, x0 in zip(PARAMETERS, self.lower, self.upper, self.initial):
+        for name, lo, hi, x0 in zip(PARAMETERS, self.lower, self.upper, self.initial, strict=True):
             if not lo < hi:
                 raise ValueError(f"Heston bounds for {name}: lower {lo:g} must be below upper {hi:g}")
             if not lo <= x0 <= hi:
@@ -167,7 +167,8 @@ def calibrate_heston(
         )
     t = np.array([q.expiry for q in quotes])
     if t.max() > curve.max_maturity * (1.0 + 1e-12):
-        raise MarketDataError(f"{label}: smile quotes run to {t.max():g} years but the curve ends at {curve.max_maturity:g}")
+        raise MarketDataError(f"{label}: smile quotes run to {t.max():g} years but the curve ends at "
+                              f"{curve.max_maturity:g}")
     m = np.array([q.moneyness for q in quotes])
     vol = np.array([q.implied_vol for q in quotes])
     w = np.array([q.weight for q in quotes])
@@ -176,13 +177,13 @@ def calibrate_heston(
     k = m * fwd
     kind = np.where(m >= 1.0, "call", "put")
     market = np.array([float(black_price(f, kk, v, tt, annuity=d, kind=str(c)))
-                       for f, kk, v, tt, d, c in zip(fwd, k, vol, t, df, kind)])
+                       for f, kk, v, tt, d, c in zip(fwd, k, vol, t, df, kind, strict=True)])
     sd = vol * np.sqrt(t)
     vega = df * fwd * norm.pdf(np.log(fwd / k) / sd + 0.5 * sd) * np.sqrt(t)
     sw = np.sqrt(w) / vega
 
     def model(x: np.ndarray, tight: bool = False) -> np.ndarray:
-        p = HestonParams(**dict(zip(PARAMETERS, (float(v) for v in x))))
+        p = HestonParams(**dict(zip(PARAMETERS, (float(v) for v in x), strict=True)))
         return heston_option_price(p, level=level, dividend_yield=dividend_yield, discount=df, expiry=t,
                                    strike=k, kind=kind, rates=rates, correlation=correlation)
 
@@ -195,7 +196,7 @@ def calibrate_heston(
                             xtol=1e-10, ftol=1e-12, gtol=1e-10, max_nfev=400)
     except (ValueError, FloatingPointError) as exc:
         raise CalibrationError(f"{label}: the Heston fit failed: {exc}") from None
-    params = HestonParams(**dict(zip(PARAMETERS, (float(v) for v in sol.x))))
+    params = HestonParams(**dict(zip(PARAMETERS, (float(v) for v in sol.x), strict=True)))
     prices = model(sol.x)
     rows = []
     for i in range(t.size):
@@ -211,7 +212,7 @@ def calibrate_heston(
     diffs = np.array([r.vol_points for r in rows])
     rmse = float(np.sqrt(np.sum(w * diffs**2) / np.sum(w)))
     span = hi - lo
-    at = tuple(n for n, x, a, b, s in zip(PARAMETERS, sol.x, lo, hi, span) if min(x - a, b - x) < 1e-6 * s)
+    at = tuple(n for n, x, a, b, s in zip(PARAMETERS, sol.x, lo, hi, span, strict=True) if min(x - a, b - x) < 1e-6 * s)
     return HestonFitReport(
         params=params, rows=tuple(rows), rmse_vol_points=rmse,
         max_abs_vol_points=float(np.nanmax(np.abs(diffs))),

@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 
 from pqflow.calibration.heston_fit import HestonBounds, HestonQuote, calibrate_heston
-from pqflow.config.schema import RunConfig
+from pqflow.config.schema import EquitySection, IndexSection, RunConfig
 from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.data_files import read_equity_vols
@@ -45,7 +45,8 @@ def recoverable_drivers(config: RunConfig, rates) -> tuple[str, ...]:
     return tuple(out)
 
 
-def projection(name: str, correlation, recoverable: tuple[str, ...], path_hint: str) -> tuple[tuple[tuple[str, float], ...], float]:
+def projection(name: str, correlation, recoverable: tuple[str, ...], path_hint: str) -> tuple[tuple[tuple[str, float],
+                                                                                                    ...], float]:
     """``(loadings, explained)``: the index driver's projection ``sum_j beta_j B_j`` on the
     recoverable drivers, ``beta = C_GG^{-1} rho_SG``, and its variance share. Every other entry
     of the index's row must be the implied ``sum_j beta_j C_jk`` (else a CalibrationError saying
@@ -67,7 +68,7 @@ def projection(name: str, correlation, recoverable: tuple[str, ...], path_hint: 
             f"built from the drivers whose increments the economy gives ({', '.join(names[j] for j in g) or 'none'}) "
             f"and an independent part, so its correlation with any other driver is implied by those; set {want}"
         )
-    return tuple((names[j], float(b)) for j, b in zip(g, beta) if b != 0.0), explained
+    return tuple((names[j], float(b)) for j, b in zip(g, beta, strict=True) if b != 0.0), explained
 
 
 def fit_heston_indices(
@@ -97,7 +98,8 @@ def fit_heston_indices(
         bounds = HestonBounds(lower=lower, upper=upper, initial=initial)  # type: ignore[arg-type]
     except ValueError as exc:
         raise CalibrationError(f"calibration.heston: {exc}") from None
-    sections = {config.equity.name: (config.equity, config.real_world.equity_risk_premium)}
+    sections: dict[str, tuple[EquitySection | IndexSection, float]] = {
+        config.equity.name: (config.equity, config.real_world.equity_risk_premium)}
     sections.update({i.name: (i, i.risk_premium) for i in config.indices})
     corr_source = str(config.market_file("correlations") or "[correlations]")
     out, fits, instruments = {}, {}, []
@@ -116,7 +118,8 @@ def fit_heston_indices(
         if not lo_i[4] < hi_i[4]:
             raise CalibrationError(
                 f"index {name!r}: the other drivers explain {explained:.3f} of its variance, leaving no room for the "
-                f"correlation of its variance within calibration.heston.rho_bounds {bounds.lower[4]:g}..{bounds.upper[4]:g}"
+                f"correlation of its variance within calibration.heston.rho_bounds "
+                f"{bounds.lower[4]:g}..{bounds.upper[4]:g}"
             )
         init = list(bounds.initial)
         init[4] = min(max(init[4], lo_i[4]), hi_i[4])
@@ -130,7 +133,8 @@ def fit_heston_indices(
         try:
             horizon = config.simulation.max_horizon_years
             inherited = sum(b * float(as_schedule(driver_prices_of_risk.get(d, 0.0))(horizon)) for d, b in loadings)
-            lam = heston_prices_of_risk(kappa=p.kappa, theta=p.theta, xi=p.xi, equity_risk_premium=float(premium or 0.0),
+            lam = heston_prices_of_risk(kappa=p.kappa, theta=p.theta, xi=p.xi, equity_risk_premium=float(premium
+                                                                                                         or 0.0),
                                         real_world_long_run_volatility=section.real_world_long_run_volatility,
                                         rho=p.rho, explained=explained, inherited=inherited)
             spec = HestonIndex(name=name, column=index_column(kind, name), level=level, income_yield=q, params=p,

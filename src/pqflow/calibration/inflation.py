@@ -147,7 +147,7 @@ def real_curve_from_zc_inflation_swaps(
             maturity=float(ti), market_rate=float(ki), model_rate=float(mi), difference_bp=float(di),
             nominal_discount_factor=float(pn), real_discount_factor=float(pr),
         )
-        for ti, ki, mi, di, pn, pr in zip(t, k, model, diff, p_n, curve.discount(t))
+        for ti, ki, mi, di, pn, pr in zip(t, k, model, diff, p_n, curve.discount(t), strict=True)
     )
     return RealCurveFit(curve=curve, rows=rows, max_abs_difference_bp=float(np.max(np.abs(diff))))
 
@@ -196,7 +196,8 @@ class YoYCapFloorQuote:
             if self.convention is not None or self.forwards is not None or self.shift != 0.0:
                 raise MarketDataError(f"{where}: a price quote takes no convention, shift or forwards")
         else:
-            assert self.vol is not None
+            if self.vol is None:
+                raise MarketDataError(f"{where}: give exactly one of price and vol")
             if self.convention not in VOL_CONVENTIONS:
                 raise MarketDataError(
                     f"{where}: convention must be one of {VOL_CONVENTIONS}, not {self.convention!r}"
@@ -242,7 +243,8 @@ class YoYCapFloorQuote:
 
 def _flat_vol_price(nominal_curve: DiscountCurve, quote: YoYCapFloorQuote, vol_decimal: float) -> float:
     """``sum_i P_n(0, i) option_price(convention, F_i, K, vol, i)`` (accrual 1)."""
-    assert quote.convention is not None and quote.forwards is not None
+    if quote.convention is None or quote.forwards is None:
+        raise RuntimeError("a volatility quote carries its convention and forwards (checked when it was read)")
     pay = np.arange(1, quote.n_caplets + 1, dtype=float)
     kind = "call" if quote.kind == "cap" else "put"
     prices = option_price(
@@ -258,7 +260,8 @@ def yoy_quote_price(nominal_curve: DiscountCurve, quote: YoYCapFloorQuote) -> fl
     if quote.price is not None:
         return float(quote.price)
     vol = quote.vol_decimal
-    assert vol is not None
+    if vol is None:
+        raise RuntimeError("a cap/floor quote has a price or a volatility (checked when it was read)")
     return _flat_vol_price(nominal_curve, quote, vol)
 
 
@@ -332,7 +335,7 @@ class InflationFitReport:
 
 
 def _with(params: JarrowYildirimParams, names: tuple[str, ...], theta: np.ndarray) -> JarrowYildirimParams:
-    values = dict(zip(names, (float(v) for v in theta)))
+    values = dict(zip(names, (float(v) for v in theta), strict=True))
     real = params.real
     if "real_mean_reversion" in values or "real_volatility" in values:
         real = HullWhiteParams(
@@ -429,7 +432,7 @@ def calibrate_jarrow_yildirim(
     prices = model_prices(params)
     rows = []
     vol_diffs = []
-    for q, mp, p in zip(quotes, market, prices):
+    for q, mp, p in zip(quotes, market, prices, strict=True):
         model_vol = vol_diff = None
         if q.vol is not None:
             model_vol = _implied_flat_vol(nominal_curve, q, float(p))
@@ -448,7 +451,7 @@ def calibrate_jarrow_yildirim(
         price_rmse_bp=float(np.sqrt(np.mean(((prices - market) / _BP) ** 2))),
         vol_rmse_bp=float(np.sqrt(np.mean(np.square(vol_diffs)))) if vol_diffs else None,
         fitted=names,
-        at_bound=tuple(n for n, m in zip(names, result.active_mask) if m != 0),
+        at_bound=tuple(n for n, m in zip(names, result.active_mask, strict=True) if m != 0),
         success=bool(result.success),
         status=int(result.status),
         message=str(result.message),

@@ -38,7 +38,8 @@ def llfr_instruments(data: CurveInputFile, ext: CurveExtrapolationSection) -> Cu
     return zero_coupon_instruments(data.maturities, rates, credit_risk_adjustment_bp=cra)
 
 
-def fit_llfr_curve(data: CurveInputFile, ext: CurveExtrapolationSection, path: Path) -> tuple[LastLiquidForwardCurve, dict[str, Any]]:
+def fit_llfr_curve(data: CurveInputFile, ext: CurveExtrapolationSection, path: Path) -> tuple[LastLiquidForwardCurve,
+                                                                                              dict[str, Any]]:
     """Fit the curve and the ``fit.curve`` entry of ``calibration.json``."""
     if data.llfr_weights is None:
         raise MarketDataError(
@@ -70,7 +71,8 @@ def fit_llfr_curve(data: CurveInputFile, ext: CurveExtrapolationSection, path: P
         "last_liquid_forward_rate": report.last_liquid_forward_rate,
         "last_liquid_forward_rate_compounding": "continuous",
         "llfr_terms": [
-            {"maturity": m, "weight": w, "forward": f, "forward_from": (m - 1.0 if m == report.first_smoothing_point else report.first_smoothing_point)}
+            {"maturity": m, "weight": w, "forward": f, "forward_from": (m - 1.0 if m == report.first_smoothing_point
+                                                                        else report.first_smoothing_point)}
             for m, w, f, u in zip(report.maturities, report.weights, report.forwards, used, strict=True) if u
         ],
         "ufr": report.ufr,

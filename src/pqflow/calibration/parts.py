@@ -35,7 +35,7 @@ from pqflow.calibration.inflation import (
     real_curve_from_zc_inflation_swaps,
 )
 from pqflow.config.schema import IndexSection, RunConfig
-from pqflow.errors import CalibrationError, MarketDataError
+from pqflow.errors import CalibrationError, ConfigError, MarketDataError
 from pqflow.market.correlation import check_correlation_matrix, nearest_correlation_matrix
 from pqflow.market.curve import DiscountCurve, LogDiscountCurve
 from pqflow.market.data_files import (
@@ -143,7 +143,8 @@ def _checked_matrix(config: RunConfig) -> tuple[tuple[str, ...], np.ndarray, str
             raise MarketDataError(f"{where}: the matrix must be symmetric, within [-1, 1], with a unit diagonal")
     else:
         path = config.market_file("correlations")
-        assert path is not None
+        if path is None:
+            raise ConfigError("correlations: give [correlations] or market_data.correlations")
         data = read_correlation_matrix(path)
         names, matrix, where = data.names, data.matrix, str(path)
         fit = {"method": "from file", "drivers": list(names), "repaired": False}
@@ -211,7 +212,8 @@ def credit_correlation(config: RunConfig) -> tuple[np.ndarray | None, dict[str, 
     the market drivers in this version: non-zero entries between a credit driver and a
     configured market driver are refused rather than ignored."""
     sec = config.credit
-    assert sec is not None
+    if sec is None:
+        raise RuntimeError("credit correlations asked for a configuration without [credit]")
     independent: dict[str, Any] = {"method": "independent ratings (no credit_<rating> drivers in the matrix)"}
     if config.correlations is None and config.market_file("correlations") is None:
         return None, independent
@@ -237,8 +239,10 @@ def credit_correlation(config: RunConfig) -> tuple[np.ndarray | None, dict[str, 
         )
     sub = np.array(matrix[np.ix_(idx, idx)], dtype=float)
     if len(idx) > 1 and np.linalg.eigvalsh(sub)[0] <= 1e-10:
-        raise MarketDataError(f"{where}: the credit drivers' correlations are singular; the density needs them positive definite")
-    return sub, {"method": "from the correlation matrix (credit_<rating> drivers)", "drivers": wanted, "matrix": sub.tolist()}
+        raise MarketDataError(f"{where}: the credit drivers' correlations are singular; the density needs them "
+                              f"positive definite")
+    return sub, {"method": "from the correlation matrix (credit_<rating> drivers)", "drivers": wanted,
+                 "matrix": sub.tolist()}
 
 
 # ------------------------------------------------------------------------------- indices
@@ -288,7 +292,8 @@ def fit_index_volatility(
             curve, rates, level=level, dividend_yield=q, correlation=rho_rates,
             quotes=[EquityVolQuote(
                 expiry=r.expiry, implied_vol=r.implied_vol,
-                strike=None if r.moneyness is None else r.moneyness * level * np.exp(-q * r.expiry) / float(curve.discount(r.expiry)),
+                strike=None if r.moneyness is None
+                else r.moneyness * level * np.exp(-q * r.expiry) / float(curve.discount(r.expiry)),
             ) for r in rows],
         )
     except MarketDataError as exc:
@@ -318,11 +323,13 @@ def calibrate_index(
 ) -> tuple[TotalReturnIndex, float | PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
     """One further index: its parameters, real-world price of risk, fit report and option quotes."""
     if section.level is not None:
-        assert section.income_yield is not None
+        if section.income_yield is None:
+            raise ConfigError(f"indices.{section.name}: level and income_yield go together")
         level, q = section.level, section.income_yield
     else:
         path = config.market_file("equity_index")
-        assert path is not None
+        if path is None:
+            raise ConfigError(f"indices.{section.name}: give level and income_yield, or market_data.equity_index")
         rows = read_equity_indices(path)
         if section.name not in rows:
             raise MarketDataError(f"{path}: no row for index {section.name!r} (has: {', '.join(rows)})")
@@ -340,7 +347,8 @@ def calibrate_index(
         vol: float | PiecewiseConstant = section.volatility
         fit = {"method": "typed in"}
     else:
-        assert vol_path is not None
+        if vol_path is None:
+            raise ConfigError(f"indices.{section.name}: give volatility, or market_data.equity_vols")
         vol, fit, instruments = fit_index_volatility(
             vol_path, section.name, section.kind, quotes, curve, hw, rho_rates, level, q
         )
@@ -351,7 +359,8 @@ def calibrate_index(
     return index, lam, fit, instruments
 
 
-def index_to_json(index: TotalReturnIndex, price_of_risk: float | PiecewiseConstant, risk_premium: float) -> dict[str, Any]:
+def index_to_json(index: TotalReturnIndex, price_of_risk: float | PiecewiseConstant, risk_premium: float) -> dict[str,
+                                                                                                                  Any]:
     return {
         "name": index.name,
         "kind": index.kind,
@@ -395,18 +404,22 @@ def calibrate_inflation(
     """The inflation part, its prices of risk (by driver), the fit report and the year-on-year
     cap/floor instruments (empty when the volatilities are typed in)."""
     sec = config.inflation
-    assert sec is not None
+    if sec is None:
+        raise RuntimeError("the inflation part asked for a configuration without [inflation]")
     if sec.swap_maturities is not None:
-        assert sec.swap_rates is not None
+        if sec.swap_rates is None:
+            raise ConfigError("inflation: swap_maturities and swap_rates go together")
         mats, zc, source = np.array(sec.swap_maturities, float), np.array(sec.swap_rates, float), "typed in"
     else:
         path = config.market_file("inflation_swaps")
-        assert path is not None
+        if path is None:
+            raise ConfigError("inflation: give swap_maturities and swap_rates, or market_data.inflation_swaps")
         rows = read_inflation_swaps(path)
         mats, zc, source = np.array([r.maturity for r in rows]), np.array([r.rate for r in rows]), str(path)
     try:
         quoted = real_curve_from_zc_inflation_swaps(
-            curve, [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k)) for t, k in zip(mats, zc)]
+            curve, [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k)) for t, k in zip(mats, zc,
+                                                                                                   strict=True)]
         )
     except MarketDataError as exc:
         raise MarketDataError(f"{source}: {exc}") from None
@@ -416,7 +429,8 @@ def calibrate_inflation(
     fit: dict[str, Any] = {
         "method": "real curve P_r(0,T) = P_n(0,T) (1 + k(T))^T at each zero-coupon inflation swap; breakeven "
         "flat beyond the last quote; Jarrow-Yildirim volatilities "
-        + (f"{', '.join(sec.fit)} fitted to year-on-year caps and floors (closed form), the rest typed in" if sec.fit else "typed in"),
+        + (f"{', '.join(sec.fit)} fitted to year-on-year caps and floors (closed form), the rest typed in" if sec.fit
+           else "typed in"),
         "source": source,
         "max_abs_difference_bp": quoted.max_abs_difference_bp,
         "rows": quoted.as_records(),
@@ -424,9 +438,11 @@ def calibrate_inflation(
     }
     instruments: list[dict[str, Any]] = []
     if sec.fit:
-        assert isinstance(rates, HullWhiteParams)  # the schema refuses a fit under G2++
+        if not isinstance(rates, HullWhiteParams):  # the schema refuses a fit under G2++
+            raise ConfigError("inflation.fit: the inflation volatilities are fitted under Hull-White rates only")
         cap_path = config.market_file("inflation_caps")
-        assert cap_path is not None
+        if cap_path is None:
+            raise ConfigError("inflation.fit: needs market_data.inflation_caps")
         caps = read_inflation_caps(cap_path)
         initial = JarrowYildirimParams(
             nominal=rates, real=real, inflation_volatility=sigma_i,
@@ -437,7 +453,8 @@ def calibrate_inflation(
         try:
             report = calibrate_jarrow_yildirim(
                 curve, real_curve,
-                [YoYCapFloorQuote(maturity=c.maturity, strike=c.strike, kind=c.kind, price=c.premium, weight=c.weight) for c in caps],
+                [YoYCapFloorQuote(maturity=c.maturity, strike=c.strike, kind=c.kind, price=c.premium, weight=c.weight)
+                 for c in caps],
                 initial=initial, fit=tuple(sec.fit),
             )
         except (MarketDataError, CalibrationError) as exc:
@@ -480,7 +497,8 @@ def inflation_to_json(part: InflationPart) -> dict[str, Any]:
 def inflation_from_json(data: dict[str, Any]) -> InflationPart:
     return InflationPart(
         real_curve=curve_from_json(data["real_curve"]),
-        real=HullWhiteParams(mean_reversion=float(data["real_mean_reversion"]), volatility=float(data["real_volatility"])),
+        real=HullWhiteParams(mean_reversion=float(data["real_mean_reversion"]),
+                             volatility=float(data["real_volatility"])),
         inflation_volatility=float(data["inflation_volatility"]),
         cpi_base=float(data["cpi_base"]),
         real_bond_maturities=tuple(float(m) for m in data["real_bond_maturities"]),
@@ -493,24 +511,27 @@ def inflation_from_json(data: dict[str, Any]) -> InflationPart:
 def calibrate_credit_part(config: RunConfig) -> tuple[CirCreditModel, dict[str, Any]]:
     """The credit model (ratings independent of each other and of the Gaussian drivers)."""
     sec = config.credit
-    assert sec is not None
+    if sec is None:
+        raise RuntimeError("the credit part asked for a configuration without [credit]")
     path = config.market_file("credit_spreads")
     from_file = read_credit_spreads(path) if path is not None else {}
     curves = []
     for r in sec.ratings:
         if r.spread_maturities is not None:
-            assert r.spreads_bp is not None
+            if r.spreads_bp is None:
+                raise ConfigError(f"credit.ratings {r.name!r}: spread_maturities and spreads_bp go together")
             mats, spreads = np.array(r.spread_maturities, float), np.array(r.spreads_bp, float) * 1e-4
         else:
             if r.name not in from_file:
-                raise MarketDataError(f"{path}: no spreads for rating {r.name!r} (has: {', '.join(from_file) or 'none'})")
+                raise MarketDataError(f"{path}: no spreads for rating {r.name!r} (has: "
+                                      f"{', '.join(from_file) or 'none'})")
             mats, spreads = from_file[r.name].maturities, from_file[r.name].spreads
         curves.append(ZeroSpreadCurve(rating=r.name, maturities=mats, spreads=spreads, recovery=r.recovery))
     unused = sorted(set(from_file) - {r.name for r in sec.ratings})
     fits = {r.name: tuple(r.fit) for r in sec.ratings}
     reports = []
     ratings = []
-    for r, c in zip(sec.ratings, curves):
+    for r, c in zip(sec.ratings, curves, strict=True):
         cal = calibrate_credit(
             [c],
             cir={r.name: CirParams(mean_reversion=r.mean_reversion, long_run_mean=r.long_run_mean,
@@ -576,7 +597,8 @@ def credit_from_json(data: dict[str, Any]) -> tuple[CirCreditModel, int]:
         CreditRating(
             name=r["name"], recovery=float(r["recovery"]), price_of_risk=float(r["price_of_risk"]),
             cir=CirParams(**{k: float(v) for k, v in r["cir"].items()}),
-            hazard=HazardCurve(knots=np.array(r["hazard"]["knots"], float), hazards=np.array(r["hazard"]["hazards"], float)),
+            hazard=HazardCurve(knots=np.array(r["hazard"]["knots"], float), hazards=np.array(r["hazard"]["hazards"],
+                                                                                             float)),
         )
         for r in data["ratings"]
     )

@@ -299,7 +299,7 @@ def hull_white_swaption_price(
             c * zero_bond_option(
                 curve, params, expiry=expiry, bond_maturity=float(t), strike=float(x), kind=option
             )
-            for c, t, x in zip(split.coupons, split.payment_times, split.bond_strikes)
+            for c, t, x in zip(split.coupons, split.payment_times, split.bond_strikes, strict=True)
         )
     )
 
@@ -379,13 +379,13 @@ def calibrate_hull_white_to_swaptions(
                          for q in quotes])
     annuities = np.array([swap_annuity(curve, q.expiry, q.tenor, frequency=frequency)
                           for q in quotes])
-    for q, f in zip(quotes, forwards):
+    for q, f in zip(quotes, forwards, strict=True):
         _check_forward(q, float(f))
     market_vols = np.array([q.vol_decimal for q in quotes])
     market_prices = np.array([
         float(option_price(q.convention, f, f, v, q.expiry, annuity=a, kind="payer",
                            shift=q.shift))
-        for q, f, a, v in zip(quotes, forwards, annuities, market_vols)
+        for q, f, a, v in zip(quotes, forwards, annuities, market_vols, strict=True)
     ])
     sqrt_w = np.sqrt(weights)
 
@@ -402,14 +402,14 @@ def calibrate_hull_white_to_swaptions(
         return np.array([
             hull_white_swaption_price(curve, params, expiry=q.expiry, tenor=q.tenor,
                                       strike=float(f), kind="payer", frequency=frequency)
-            for q, f in zip(quotes, forwards)
+            for q, f in zip(quotes, forwards, strict=True)
         ])
 
     def model_vols(prices: np.ndarray) -> np.ndarray:
         return np.array([
             float(implied_vol(q.convention, p, f, f, q.expiry, annuity=a, kind="payer",
                               shift=q.shift))
-            for q, p, f, a in zip(quotes, prices, forwards, annuities)
+            for q, p, f, a in zip(quotes, prices, forwards, annuities, strict=True)
         ])
 
     def residuals(theta: np.ndarray) -> np.ndarray:
@@ -446,7 +446,7 @@ def calibrate_hull_white_to_swaptions(
             weight=q.weight,
         )
         for q, f, a, v, d, mp, p in zip(quotes, forwards, annuities, vols, diff_bp,
-                                        market_prices, prices)
+                                        market_prices, prices, strict=True)
     )
     return SwaptionFitReport(
         params=params,
@@ -455,7 +455,7 @@ def calibrate_hull_white_to_swaptions(
         price_rmse_bp=float(np.sqrt(np.mean(((prices - market_prices) / _BP) ** 2))),
         objective=objective,
         fitted=names,
-        at_bound=tuple(n for n, m in zip(names, result.active_mask) if m != 0),
+        at_bound=tuple(n for n, m in zip(names, result.active_mask, strict=True) if m != 0),
         success=bool(result.success),
         status=int(result.status),
         message=str(result.message),

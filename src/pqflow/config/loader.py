@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 import json
 import tomllib
+from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
@@ -26,7 +27,7 @@ def _key_path(loc: tuple[Any, ...]) -> str:
     return ".".join(parts) or "(top level)"
 
 
-def _describe(err: dict[str, Any]) -> str:
+def _describe(err: Mapping[str, Any]) -> str:
     kind = err.get("type", "")
     msg = str(err.get("msg", "invalid value"))
     if kind == "extra_forbidden":

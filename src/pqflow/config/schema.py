@@ -108,7 +108,7 @@ class CurveSection(_Section):
             )
         if any(m <= 0 for m in self.maturities):
             raise ValueError("maturities must be positive")
-        if any(b <= a for a, b in zip(self.maturities, self.maturities[1:])):
+        if any(b <= a for a, b in zip(self.maturities, self.maturities[1:], strict=False)):
             raise ValueError("maturities must be strictly increasing")
         if self.kind == "discount_factors" and any(v <= 0 for v in self.values):
             raise ValueError("discount factors must be positive")
@@ -212,7 +212,8 @@ class IndexSection(_Section):
     @model_validator(mode="after")
     def _pair(self) -> IndexSection:
         if (self.level is None) != (self.income_yield is None):
-            raise ValueError("level and income_yield go together (both typed in, or both from market_data.equity_index)")
+            raise ValueError("level and income_yield go together (both typed in, or both from "
+                             "market_data.equity_index)")
         if self.name in RESERVED_DRIVERS:
             raise ValueError(f"{self.name!r} names a rates or inflation driver; choose another index name")
         return self
@@ -262,10 +263,12 @@ class InflationSection(_Section):
         if (self.swap_maturities is None) != (self.swap_rates is None):
             raise ValueError("swap_maturities and swap_rates go together")
         if self.swap_maturities is not None:
-            assert self.swap_rates is not None
+            if self.swap_rates is None:
+                raise ValueError("swap_maturities and swap_rates go together")
             if len(self.swap_maturities) != len(self.swap_rates) or not self.swap_maturities:
                 raise ValueError("swap_maturities and swap_rates need the same, non-zero number of entries")
-        if any(m <= 0 for m in self.real_bond_maturities) or len(set(self.real_bond_maturities)) != len(self.real_bond_maturities):
+        if any(m <= 0 for m in self.real_bond_maturities) \
+                or len(set(self.real_bond_maturities)) != len(self.real_bond_maturities):
             raise ValueError("real_bond_maturities must be positive and distinct")
         return self
 
@@ -302,7 +305,8 @@ class CreditRatingSection(_Section):
         if (self.spread_maturities is None) != (self.spreads_bp is None):
             raise ValueError("spread_maturities and spreads_bp go together")
         if self.spread_maturities is not None:
-            assert self.spreads_bp is not None
+            if self.spreads_bp is None:
+                raise ValueError("spread_maturities and spreads_bp go together")
             if len(self.spread_maturities) != len(self.spreads_bp) or not self.spread_maturities:
                 raise ValueError("spread_maturities and spreads_bp need the same, non-zero number of entries")
         return self
@@ -435,7 +439,7 @@ class HestonFitSection(_Section):
                     f"{name}_bounds must satisfy {floor:g} < lower < upper{' < 1' if name == 'rho' else ''}, "
                     f"got [{lo:g}, {hi:g}]"
                 )
-            x0 = self.initial.get(name, min(max(defaults[name], lo), hi))  # type: ignore[call-overload]
+            x0 = self.initial.get(name, min(max(defaults[name], lo), hi))
             if not lo <= x0 <= hi:
                 raise ValueError(f"initial {name} = {x0:g} lies outside {name}_bounds [{lo:g}, {hi:g}]")
         return self
@@ -447,7 +451,7 @@ class HestonFitSection(_Section):
         upper = tuple(getattr(self, f"{n}_bounds")[1] for n in names)
         initial = tuple(
             self.initial.get(n, min(max(defaults[n], lo), hi))  # type: ignore[call-overload]
-            for n, lo, hi in zip(names, lower, upper)
+            for n, lo, hi in zip(names, lower, upper, strict=True)
         )
         return lower, upper, initial
 
@@ -755,15 +759,18 @@ class RunConfig(_Section):
             ("curve", self.curve is not None, "market_data.curve", md.curve is not None),
             (self.rates.model, (self.hull_white if self.rates.model == "hull_white" else self.g2pp) is not None,
              "market_data.swaptions", md.swaptions is not None),
-            ("equity.volatility", self.equity.volatility is not None, "market_data.equity_vols", md.equity_vols is not None),
-            ("equity.correlation_with_rates or [correlations]", self.equity.correlation_with_rates is not None or self.correlations is not None, "market_data.correlations", md.correlations is not None),
+            ("equity.volatility", self.equity.volatility is not None, "market_data.equity_vols",
+             md.equity_vols is not None),
+            ("equity.correlation_with_rates or [correlations]", self.equity.correlation_with_rates is not None
+             or self.correlations is not None, "market_data.correlations", md.correlations is not None),
             ("equity.level", self.equity.level is not None, "market_data.equity_index", md.equity_index is not None),
-            ("equity.dividend_yield", self.equity.dividend_yield is not None, "market_data.equity_index", md.equity_index is not None),
+            ("equity.dividend_yield", self.equity.dividend_yield is not None, "market_data.equity_index",
+             md.equity_index is not None),
         ]
-        for typed, has_typed, fitted, has_fitted in pairs:
+        for typed_key, has_typed, fitted, has_fitted in pairs:
             if has_typed == has_fitted:
                 raise ValueError(
-                    f"give exactly one of {typed} (typed in) or {fitted} (from a market-data file)"
+                    f"give exactly one of {typed_key} (typed in) or {fitted} (from a market-data file)"
                     + ("; both are given" if has_typed else "; neither is given")
                 )
         if (md.curve is not None) != (self.curve_extrapolation is not None):
@@ -831,9 +838,9 @@ class RunConfig(_Section):
                     f"credit.bond_maturities {missing} are not in outputs.bond_maturities: each "
                     "defaultable bond needs the risk-free bond of the same maturity"
                 )
-        for label, model, typed in (("equity", self.equity.volatility_model, self.equity.volatility),
+        for label, model, typed_vol in (("equity", self.equity.volatility_model, self.equity.volatility),
                                     *((f"index {i.name}", i.volatility_model, i.volatility) for i in self.indices)):
-            if model == "heston" and (typed is not None or md.equity_vols is None):
+            if model == "heston" and (typed_vol is not None or md.equity_vols is None):
                 raise ValueError(
                     f"{label}: volatility_model = \"heston\" is fitted to the smile in market_data.equity_vols; "
                     "give that file and no typed-in volatility"
@@ -863,7 +870,8 @@ class RunConfig(_Section):
         if self.curve is not None:
             have, key = self.curve.maturities[-1], "curve.maturities ends at"
         else:
-            assert self.curve_extrapolation is not None
+            if self.curve_extrapolation is None:
+                raise ValueError("give the curve: [curve] pillars, or market_data.curve with [curve_extrapolation]")
             have, key = self.curve_extrapolation.long_end_years, "curve_extrapolation.long_end_years is"
         if need > have + 1e-9:
             raise ValueError(

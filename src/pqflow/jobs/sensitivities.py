@@ -55,7 +55,8 @@ def sensitivity_tasks(plan: RunPlan, sens: SensitivitySection) -> list[tuple[str
 
 
 def calibrate_sensitivity(
-    config: RunConfig, sens: SensitivitySection, base: Calibration, run_dir: str | Path, *, source: str = "configuration"
+    config: RunConfig, sens: SensitivitySection, base: Calibration, run_dir: str | Path, *,
+    source: str = "configuration"
 ) -> Calibration:
     """Shock the market data, calibrate (refit everything, or the curve only with
     ``keep_volatility_parameters``) and write ``sensitivities/<name>/calibration.json``."""
@@ -63,7 +64,8 @@ def calibrate_sensitivity(
     set_dir.mkdir(parents=True, exist_ok=True)
     shocked = shocked_config(config, sens, set_dir, source=f"{source} [[sensitivities]] {sens.name!r}")
     try:
-        cal = curve_only_calibration(base, shocked) if sens.keep_volatility_parameters else assemble_calibration(shocked)
+        cal = curve_only_calibration(base,
+                                     shocked) if sens.keep_volatility_parameters else assemble_calibration(shocked)
     except CalibrationError as exc:
         raise CalibrationError(f"sensitivity {sens.name!r}: {exc}") from None
     if cal.driver_correlation.names != base.driver_correlation.names or (cal.credit is None) != (base.credit is None):
@@ -118,7 +120,8 @@ def validate_sensitivity(run_dir: str | Path, sens: SensitivitySection, config: 
     return summary
 
 
-def record_sensitivities(run_dir: str | Path, config: RunConfig, summaries: dict[str, dict[str, Any]]) -> dict[str, Any]:
+def record_sensitivities(run_dir: str | Path, config: RunConfig, summaries: dict[str, dict[str, Any]]) -> dict[str,
+                                                                                                               Any]:
     """Add the sensitivities to the run's ``validation/summary.json`` (their verdicts count toward
     the run's) and write ``sensitivities/index.json``; return the updated run summary."""
     run_dir = Path(run_dir)
@@ -142,7 +145,8 @@ def record_sensitivities(run_dir: str | Path, config: RunConfig, summaries: dict
     path = run_dir / "validation" / "summary.json"
     summary = read_json(path)
     summary["sensitivities"] = {
-        s.name: {"verdict": summaries[s.name]["verdict"], "summary": f"{SENSITIVITY_DIR}/{s.name}/validation/summary.json"}
+        s.name: {"verdict": summaries[s.name]["verdict"],
+                 "summary": f"{SENSITIVITY_DIR}/{s.name}/validation/summary.json"}
         for s in config.sensitivities
     }
     if any(v["verdict"] == "fail" for v in summary["sensitivities"].values()):

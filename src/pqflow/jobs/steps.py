@@ -183,7 +183,8 @@ def written_columns(calibration: Calibration, plan: RunPlan, model: EconomyModel
     if plan.column_patterns is None:
         return [*REQUIRED_COLUMNS, *known]
     known += on_request
-    unmatched = [p for p in plan.column_patterns if not any(fnmatch.fnmatchcase(c, p) for c in (*REQUIRED_COLUMNS, *known))]
+    unmatched = [p for p in plan.column_patterns if not any(fnmatch.fnmatchcase(c, p) for c in (*REQUIRED_COLUMNS,
+                                                                                                *known))]
     if unmatched:
         raise ConfigError(
             f"outputs.columns: {', '.join(repr(p) for p in unmatched)} matches no column of the configured "
@@ -221,7 +222,9 @@ def calibrate_step(config: RunConfig, run_dir: str | Path, calibration_file: str
     return calibration
 
 
-def _part_metadata(calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, units: dict[str, str]) -> dict[str, str]:
+def _part_metadata(calibration: Calibration, plan: RunPlan, measure: str, batch: Batch, units: dict[str,
+                                                                                                    str]) -> dict[str,
+                                                                                                                  str]:
     return {
         names.META_VERSION: __version__,
         names.META_MEASURE: measure,
@@ -258,7 +261,7 @@ def generate_part(
     units[names.DEFLATOR] = names.deflator_unit(measure)
     units[density_column(measure)] = DENSITY_UNIT
     blocks = [density_block_column(measure, b.name) for b in plan.density_blocks]
-    for b, column in zip(plan.density_blocks, blocks):
+    for b, column in zip(plan.density_blocks, blocks, strict=True):
         units[column] = (
             f"density restricted to the states of drivers {', '.join(b.drivers)}, on the grid up to time "
             "(dimensionless, mean 1)"

@@ -48,7 +48,8 @@ class UnitValues:
         return self.values.mean(axis=0)
 
 
-def unit_values(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: str = "market_consistent") -> UnitValues:
+def unit_values(run_dir: str | Path, portfolio: Portfolio | str | Path,
+                measure: str = "market_consistent") -> UnitValues:
     """Present value of every line on every sampling unit of one set."""
     if not isinstance(portfolio, Portfolio):
         portfolio = load_portfolio(portfolio)

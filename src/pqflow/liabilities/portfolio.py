@@ -41,7 +41,7 @@ import math
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal, overload
 
 import numpy as np
 
@@ -180,6 +180,21 @@ class _Row:
     def fail(self, message: str) -> LiabilityDataError:
         return LiabilityDataError(f"{self.source}: {self.where}: {message}")
 
+    # A required field (or one with a default) is always a number; only an optional one may be None.
+    @overload
+    def number(
+        self, key: str, *, default: float | None = None, required: Literal[True] = True,
+        low: float | None = None, high: float | None = None, low_open: bool = False,
+        high_open: bool = False, what: str = "",
+    ) -> float: ...
+
+    @overload
+    def number(
+        self, key: str, *, default: float | None = None, required: bool,
+        low: float | None = None, high: float | None = None, low_open: bool = False,
+        high_open: bool = False, what: str = "",
+    ) -> float | None: ...
+
     def number(
         self, key: str, *, default: float | None = None, required: bool = True,
         low: float | None = None, high: float | None = None, low_open: bool = False,
@@ -204,6 +219,12 @@ class _Row:
         if high is not None and (value > high or (high_open and value == high)):
             raise self.fail(f"{key} = {value:g} must be {'<' if high_open else '<='} {high:g}")
         return value
+
+    @overload
+    def whole(self, key: str, *, low: int, high: int, required: Literal[True] = True) -> int: ...
+
+    @overload
+    def whole(self, key: str, *, low: int, high: int, required: bool) -> int | None: ...
 
     def whole(self, key: str, *, low: int, high: int, required: bool = True) -> int | None:
         value = self.number(key, required=required, low=low, high=high)
@@ -298,7 +319,9 @@ def _participating(row: _Row, common: dict[str, Any]) -> Participating:
         premium=row.number("premium", low=0.0, what="account value per policy at time 0"),
         guaranteed_rate=g,
         bonus_share=row.number("bonus_share", low=0.0, high=1.0),
-        **shares,
+        equity_share=shares["equity_share"],
+        bond_share=shares["bond_share"],
+        cash_share=shares["cash_share"],
         bond_maturity=bond_maturity,
         smoothing=row.number("smoothing", default=0.0, low=0.0, high=1.0, high_open=True),
         initial_smoothed_return=row.number(

@@ -39,6 +39,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from pqflow.errors import LiabilityDataError
 from pqflow.liabilities.decrements import decrement_table, survival_curve
 from pqflow.liabilities.portfolio import DeferredAnnuityGAO, ModelPoint, Participating, UnitLinkedGMMB
 from pqflow.liabilities.scenarios import AnnualScenarios
@@ -97,7 +98,8 @@ def fund_returns(mp: Participating, scen: AnnualScenarios) -> np.ndarray:
         b = scen.cash_account[:, : T + 1]
         ret += mp.cash_share * (b[:, 1:] / b[:, :-1] - 1.0)
     if mp.bond_share > 0.0:
-        assert mp.bond_maturity is not None
+        if mp.bond_maturity is None:
+            raise LiabilityDataError(f"model point {mp.id!r}: bond_share > 0 needs bond_maturity")
         m = float(mp.bond_maturity)
         prices = scen.bond_prices([m, m - 1.0])[:, : T + 1, :]
         ret += mp.bond_share * (prices[:, 1:, 1] / prices[:, :-1, 0] - 1.0)
@@ -144,11 +146,13 @@ def project_deferred_annuity(mp: DeferredAnnuityGAO, scen: AnnualScenarios) -> t
     T = mp.term
     dec = decrement_table(mp.mortality, mp.lapse_rate, mp.age, T)
     if mp.accumulation == "fixed":
-        assert mp.sum_at_retirement is not None
+        if mp.sum_at_retirement is None:
+            raise LiabilityDataError(f"model point {mp.id!r}: accumulation 'fixed' needs sum_at_retirement")
         fund = np.full((scen.n_paths, T + 1), mp.sum_at_retirement)
         benefits = np.zeros_like(fund)  # a pure endowment: exits before retirement get nothing
     else:
-        assert mp.premium is not None
+        if mp.premium is None:
+            raise LiabilityDataError(f"model point {mp.id!r}: accumulation {mp.accumulation!r} needs premium")
         charge = (1.0 - mp.fund_charge) ** np.arange(T + 1)
         fund = mp.premium * _equity_growth(scen, T) * charge[None, :]
         benefits = fund * (dec.deaths + dec.lapses)[None, :]
@@ -175,7 +179,8 @@ def project_model_point(mp: ModelPoint, scen: AnnualScenarios) -> tuple[np.ndarr
 def needed_bond_maturities(mp: ModelPoint) -> list[float]:
     """Bond maturities (years to run) the model point asks for."""
     if isinstance(mp, Participating) and mp.bond_share > 0.0:
-        assert mp.bond_maturity is not None
+        if mp.bond_maturity is None:
+            raise LiabilityDataError(f"model point {mp.id!r}: bond_share > 0 needs bond_maturity")
         return [float(mp.bond_maturity), float(mp.bond_maturity - 1)]
     if isinstance(mp, DeferredAnnuityGAO):
         return [float(k) for k in mp.annuity_maturities()]

@@ -23,6 +23,7 @@ the short rate follows today's forwards, so ``B_t = 1 / P(0, t)``, the deflator 
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -131,7 +132,7 @@ def annual_scenarios(
     *,
     last_year: int,
     equity_column: str | None,
-    bond_columns: list[str],
+    bond_columns: Sequence[str],
     interpolation: BondInterpolation,
     deflator_column: str = "deflator",
 ) -> AnnualScenarios:

@@ -126,7 +126,8 @@ def value_sensitivities(run_dir: str | Path, portfolio: Portfolio, info: RunInfo
             stacked = np.concatenate([vals[0], vals[1], vals[1] - vals[0]], axis=1)
             m = Moments.of(sampling_units(stacked, antithetic))
             acc = m if acc is None else acc.merge(m)
-        assert acc is not None
+        if acc is None:
+            raise RunDirectoryError(f"{sens_dir}: no scenario parts to value")
         k = len(lines.names) * len(QUANTITIES)
         mean, se = acc.mean, acc.std_error
         ce_s = _ce_values(portfolio, lines, sens_dir, last, interp)
@@ -159,7 +160,7 @@ def sensitivity_summary(table: pd.DataFrame) -> list[dict[str, Any]]:
     for name, rows in total.groupby("sensitivity", sort=False):
         entry: dict[str, Any] = {"sensitivity": name, "scenarios": int(rows["scenarios"].iloc[0])}
         for r in rows.itertuples(index=False):
-            entry[r.quantity] = {
+            entry[str(r.quantity)] = {
                 "base": r.base_value, "value": r.value, "change": r.change,
                 "change_se_paired": r.change_se_paired, "change_se_independent": r.change_se_independent,
             }

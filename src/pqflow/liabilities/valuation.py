@@ -103,7 +103,7 @@ def inspect_run(run_dir: str | Path) -> RunInfo:
     if not np.array_equal(times["market_consistent"], times["real_world"]):
         raise LiabilityDataError(f"{run_dir}: the two scenario sets have different output times")
     cols = names["market_consistent"]
-    bonds = {bond_maturity_of(c): c for c in cols if bond_maturity_of(c) is not None}
+    bonds = {mat: c for c in cols if (mat := bond_maturity_of(c)) is not None}
     equities = tuple(c for c in cols if c.startswith("equity_"))
     for m in ("real_world",):
         missing = set(bonds.values()) | set(equities) | {"deflator", "cash_account"}
@@ -306,7 +306,8 @@ class PortfolioReads:
     kinds: frozenset[str]
 
 
-def portfolio_reads(portfolio: Portfolio, info: RunInfo, equity_col: str | None, *, with_cash: bool = False) -> PortfolioReads:
+def portfolio_reads(portfolio: Portfolio, info: RunInfo, equity_col: str | None, *,
+                    with_cash: bool = False) -> PortfolioReads:
     """The columns a projection of ``portfolio`` reads (``with_cash``: the cash account even
     when no product needs it, e.g. for the real-world reconciliation)."""
     interp = BondInterpolation(written=info.bond_maturities, max_extrapolation=portfolio.bond_extrapolation_years)
@@ -321,7 +322,7 @@ def portfolio_reads(portfolio: Portfolio, info: RunInfo, equity_col: str | None,
         used = np.any(interp.weights(sorted(set(targets))) != 0.0, axis=0)
         if np.any(used):
             bond_cols = [info.bond_columns[m] for m in info.bond_maturities]
-            read_bonds = [c for c, u in zip(bond_cols, used) if u]
+            read_bonds = [c for c, u in zip(bond_cols, used, strict=True) if u]
     columns = ["deflator"]
     if "cash_account" in kinds or with_cash:
         columns.append("cash_account")
@@ -354,10 +355,12 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
         info.curve, last_year=last, interpolation=interp, equity_level=info.equity_level
     )
     p0 = ce_scen.deflator[0]  # P(0, j)
-    ce_raw = np.stack([np.stack(f, axis=1) for f in (project_model_point(mp, ce_scen) for mp in portfolio.model_points)],
+    ce_raw = np.stack([np.stack(f, axis=1) for f in (project_model_point(mp, ce_scen)
+                                                     for mp in portfolio.model_points)],
                       axis=1)[0]  # (n_mp, 2, J + 1), undiscounted
     timing = np.abs(ce_raw[:, 0, :]) * p0[None, :]  # a_mp(j) P(0, j): CE present value by year
-    reads_equity = np.array(["equity" in needed_columns(mp) and equity_col is not None for mp in portfolio.model_points])
+    reads_equity = np.array(["equity" in needed_columns(mp) and equity_col is not None
+                             for mp in portfolio.model_points])
 
     groups = _groups(portfolio)
     member = _membership(groups, len(portfolio.model_points))
@@ -388,6 +391,8 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
         # the same scaled by the index's performance, and (real world) the density itself
         ctrl = [np.einsum("nmj,mj->nm", deflator, timing / p0[None, :])]
         if np.any(reads_equity):
+            if scen.equity is None:
+                raise RuntimeError("a model point reads the equity index, but it was not read")
             growth = scen.equity / info.equity_level * p0[None, :]  # S_j P(0, j) / S_0
             ctrl.append(np.einsum("nmj,mj->nm", deflator * growth[:, None, :], timing / p0[None, :]) * reads_equity)
         if weight is not None:
@@ -397,13 +402,15 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
         stats["value"] = by_group.sum(axis=-1).reshape(scen.n_paths, -1)
         stats["profile"] = by_group[:, profile_idx].reshape(scen.n_paths, -1)
         if real_world:
-            assert scen.cash_account is not None
+            if scen.cash_account is None:
+                raise RuntimeError("the real-world valuation reads the cash account, but it was not read")
             undeflated = _discounted(portfolio, scen, 1.0 / scen.cash_account)
             stats["undeflated"] = np.einsum("gm,nmq->ngq", member, undeflated.sum(axis=-1)).reshape(
                 scen.n_paths, -1)
         for key, values in stats.items():
             m = Moments.of(sampling_units(values, antithetic))
-            acc[key] = m if acc[key] is None else acc[key].merge(m)
+            prev = acc[key]
+            acc[key] = m if prev is None else prev.merge(m)
     if acc["value"] is None or acc["profile"] is None:
         raise RunDirectoryError(f"{run_dir}: the {measure} set has no scenarios")
 

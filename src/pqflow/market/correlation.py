@@ -94,8 +94,8 @@ def check_correlation_matrix(
         )
     asym = np.abs(a - a.T)
     if np.max(asym) > symmetry_tolerance:
-        i, j = np.unravel_index(int(np.argmax(asym)), a.shape)
-        i, j = (i, j) if i > j else (j, i)
+        ii, jj = np.unravel_index(int(np.argmax(asym)), a.shape)
+        i, j = (int(ii), int(jj)) if ii > jj else (int(jj), int(ii))
         raise MarketDataError(
             f"correlation matrix{where} is not symmetric: row {_label(i, names)}, column "
             f"{_label(j, names)} is {a[i, j]:.12g} but row {_label(j, names)}, column "

@@ -332,7 +332,8 @@ def read_curve_inputs(path: str | PathLike[str]) -> CurveInputFile:
         total = math.fsum(weights)
         if abs(total - 1.0) > 1e-9:
             listed = "; ".join(f"{labels[k]}: maturity {maturities[k]:g}, weight {weights[k]:g}" for k in positive)
-            raise MarketDataError(f"{name}, column {WEIGHT_COLUMN!r}: the weights sum to {total:.10g}, not 1 ({listed})")
+            raise MarketDataError(f"{name}, column {WEIGHT_COLUMN!r}: the weights sum to {total:.10g}, "
+                                  f"not 1 ({listed})")
         if maturities[positive[0]] < 1.0:
             raise MarketDataError(
                 f"{name}, {labels[positive[0]]}, column {WEIGHT_COLUMN!r}: the first smoothing point "
@@ -397,7 +398,8 @@ def read_correlation_matrix(path: str | PathLike[str]) -> CorrelationFile:
     return CorrelationFile(source=name, names=tuple(names), matrix=matrix)
 
 
-def _header_index(name: str, header: list[str], header_line: int, required: tuple[str, ...], optional: tuple[str, ...]) -> dict[str, int]:
+def _header_index(name: str, header: list[str], header_line: int, required: tuple[str, ...],
+                  optional: tuple[str, ...]) -> dict[str, int]:
     seen: set[str] = set()
     for col in header:
         if col == "":
@@ -580,7 +582,8 @@ def read_equity_vols(path: str | PathLike[str]) -> tuple[EquityVolRow, ...]:
             )
         seen.add(key)
         if not 0.0 < v < 5.0:
-            raise MarketDataError(f"{_at(name, row, 'implied_vol')}: implied vol {v:g} must be a positive decimal (0.20 for 20%)")
+            raise MarketDataError(f"{_at(name, row, 'implied_vol')}: implied vol {v:g} must be a positive decimal "
+                                  f"(0.20 for 20%)")
         last[index] = t
         out.append(EquityVolRow(index=index, expiry=t, implied_vol=v, moneyness=moneyness, row=row.number,
                                 weight=weight))
@@ -611,7 +614,8 @@ def read_inflation_swaps(path: str | PathLike[str]) -> tuple[InflationSwapRow, .
                 f"{out[-1].maturity:g}; maturities must be strictly increasing"
             )
         if abs(k) >= 0.5:
-            raise MarketDataError(f"{_at(name, row, 'zc_rate')}: {k:g} is not a plausible decimal rate (0.025 for 2.5%)")
+            raise MarketDataError(f"{_at(name, row, 'zc_rate')}: {k:g} is not a plausible decimal rate "
+                                  "(0.025 for 2.5%)")
         out.append(InflationSwapRow(maturity=t, rate=k, row=row.number))
     return tuple(out)
 
@@ -677,14 +681,17 @@ def read_inflation_caps(path: str | PathLike[str]) -> tuple[InflationCapRow, ...
         p = _number(row.cells[idx["premium_bp"]], _at(name, row, "premium_bp"))
         w = _number(row.cells[idx["weight"]], _at(name, row, "weight")) if "weight" in idx else 1.0
         if t < 1.0 or abs(t - round(t)) > _WHOLE_YEAR_TOL:
-            raise MarketDataError(f"{_at(name, row, 'maturity_years')}: maturity {t:g} must be a whole number of years (at least 1)")
+            raise MarketDataError(f"{_at(name, row, 'maturity_years')}: maturity {t:g} must be a whole number of years "
+                                  f"(at least 1)")
         if kind not in ("cap", "floor"):
             raise MarketDataError(f"{_at(name, row, 'kind')}: kind {row.cells[idx['kind']]!r} must be cap or floor")
         if abs(k) >= 0.5:
-            raise MarketDataError(f"{_at(name, row, 'strike')}: strike {k:g} is not a plausible decimal rate (0.03 for 3%)")
+            raise MarketDataError(f"{_at(name, row, 'strike')}: strike {k:g} is not a plausible decimal rate (0.03 for "
+                                  f"3%)")
         if not p > 0.0:
             raise MarketDataError(f"{_at(name, row, 'premium_bp')}: premium {p:g} bp must be positive")
         if w < 0.0:
             raise MarketDataError(f"{_at(name, row, 'weight')}: weight {w:g} must not be negative")
-        out.append(InflationCapRow(maturity=float(round(t)), strike=k, kind=kind, premium=p * 1e-4, weight=w, row=row.number))
+        out.append(InflationCapRow(maturity=float(round(t)), strike=k, kind=kind, premium=p * 1e-4, weight=w,
+                                   row=row.number))
     return tuple(out)

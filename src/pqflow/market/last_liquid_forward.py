@@ -140,7 +140,8 @@ def periodic_par_swap_instruments(
     """
     m = int(coupon_frequency)
     if m < 1 or m != coupon_frequency:
-        raise MarketDataError(f"the coupon frequency must be a whole number of payments a year, got {coupon_frequency!r}")
+        raise MarketDataError(f"the coupon frequency must be a whole number of payments a year, got "
+                              f"{coupon_frequency!r}")
     t = np.asarray(maturities, dtype=float)
     s = np.asarray(par_rates, dtype=float)
     if t.ndim != 1 or t.shape != s.shape or t.size == 0:
@@ -155,7 +156,8 @@ def periodic_par_swap_instruments(
                 f"periods of a fixed leg paying {m} times a year"
             )
         if i and periods[i] <= periods[i - 1]:
-            raise MarketDataError(f"par swap rates: maturities must be strictly increasing (position {i + 1}, maturity {t[i]:g})")
+            raise MarketDataError(f"par swap rates: maturities must be strictly increasing (position {i + 1}, maturity "
+                                  f"{t[i]:g})")
     coupons = (s - credit_risk_adjustment_bp * BASIS_POINT) / m
     n_dates = int(periods[-1])
     u = np.arange(1, n_dates + 1, dtype=float) / m
@@ -233,7 +235,8 @@ def bootstrap_constant_forward(instruments: CurveInstruments) -> tuple[np.ndarra
                 slope = -float((flows * tau) @ disc)
                 if slope >= 0.0:
                     raise MarketDataError(
-                        f"instrument {k + 1} (maturity {t_k:g}): its price does not fall as rates rise; cannot bootstrap it"
+                        f"instrument {k + 1} (maturity {t_k:g}): its price does not fall as rates rise; cannot "
+                        f"bootstrap it"
                     )
                 step = (price - target) / slope
                 phi -= step
@@ -262,7 +265,8 @@ def check_llfr_weights(maturities: np.ndarray, weights: np.ndarray, *, where: st
     t = np.asarray(maturities, dtype=float)
     w = np.asarray(weights, dtype=float)
     if w.shape != t.shape:
-        raise MarketDataError(f"{where}: one weight per liquid maturity is needed ({w.size} weights, {t.size} maturities)")
+        raise MarketDataError(f"{where}: one weight per liquid maturity is needed ({w.size} weights, {t.size} "
+                              f"maturities)")
     for k in range(w.size):
         if not np.isfinite(w[k]) or w[k] < 0.0:
             raise MarketDataError(f"{where}: the weight {w[k]:g} at maturity {t[k]:g} must be a number not below 0")
@@ -507,7 +511,8 @@ def fit_last_liquid_forward(
     return curve, report
 
 
-def _fit(instruments: CurveInstruments, *, ufr: float, **options: Any) -> tuple[LastLiquidForwardCurve, LastLiquidForwardReport]:
+def _fit(instruments: CurveInstruments, *, ufr: float, **options: Any) -> tuple[LastLiquidForwardCurve,
+                                                                                LastLiquidForwardReport]:
     return fit_last_liquid_forward(instruments, ufr=ufr, **options)
 
 

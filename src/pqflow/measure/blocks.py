@@ -106,7 +106,8 @@ def economy_structure(
     :func:`model_structure` gives the same from a built model (tested equal)."""
     rates = frozenset(rates_drivers)
     factors = ("x", "y")[: len(rates_drivers)]
-    out = [StateLink(name=f, drivers=frozenset({d}), reads=frozenset()) for f, d in zip(factors, rates_drivers)]
+    out = [StateLink(name=f, drivers=frozenset({d}), reads=frozenset()) for f, d in zip(factors, rates_drivers,
+                                                                                        strict=True)]
     out.append(StateLink(name="integral_x", drivers=rates, reads=frozenset(factors)))
     for driver, column in indices:
         out.append(StateLink(name=f"log_{column}", drivers=rates | {driver}, reads=frozenset(factors)))
@@ -131,7 +132,7 @@ def model_structure(
     reads = np.any(transition != 0.0, axis=0)
     out = []
     for i, name in enumerate(state_names):
-        others = frozenset(state_names[j] for j in np.flatnonzero(reads[i]) if j != i)
+        others = frozenset(state_names[int(j)] for j in np.flatnonzero(reads[i]) if j != i)
         out.append(StateLink(name=name, drivers=frozenset(exposure_drivers[i]), reads=others))
     for rating, driver in (ratings or {}).items():
         out.append(StateLink(name=intensity_column(rating), drivers=frozenset({driver}), reads=frozenset()))

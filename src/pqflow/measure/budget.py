@@ -47,6 +47,7 @@ import pandas as pd
 from pqflow.measure.cir_density import real_world_square_root_drift
 from pqflow.models.cir_credit import CirCreditModel
 from pqflow.models.economy import EconomyModel
+from pqflow.models.schedule import PiecewiseConstant, as_schedule
 
 __all__ = ["gaussian_log_variance_by_driver", "credit_log_variance_by_rating", "density_budget", "BUDGET_COLUMNS"]
 
@@ -67,9 +68,9 @@ def gaussian_log_variance_by_driver(model: EconomyModel, times: np.ndarray) -> d
     laws = model.step_laws(times)
     chol = laws.chol
     eta = np.linalg.solve(chol, laws.real_world_shift[..., None])[..., 0]  # L^{-1} m, (K, d)
-    groups: dict[str, dict[str, object]] = {}
+    groups: dict[str, dict[str, float | PiecewiseConstant]] = {}
     for driver, sched in model.prices_of_risk.items():
-        if all(v == 0.0 for v in sched.values):
+        if all(v == 0.0 for v in as_schedule(sched).values):
             continue
         groups.setdefault(_driver_label(driver), {})[driver] = sched
     for label, prices in groups.items():

@@ -77,14 +77,16 @@ def _g2_log_a(curve: DiscountCurve, params: G2PlusPlusParams, t: np.ndarray, m: 
 
 
 def _g2_combination(
-    curve: DiscountCurve, params: G2PlusPlusParams, t: np.ndarray, path: np.ndarray, *, target: str, maturity: float | None
+    curve: DiscountCurve, params: G2PlusPlusParams, t: np.ndarray, path: np.ndarray, *, target: str,
+    maturity: float | None
 ) -> tuple[float, float, np.ndarray]:
     """``(c_x, c_y, h(t))`` with ``c_x E x_t + c_y E y_t = h(t)`` putting the target on ``path``."""
     if target == "short_rate":
         return 1.0, 1.0, path - g2pp.phi(curve, params, t)
     if target == "zero_yield":
         _need_maturity(maturity)
-        assert maturity is not None
+        if maturity is None:
+            raise ValueError("a zero-yield target needs a positive maturity, got None")
         c_x = float(b_factor(params.a, maturity))
         c_y = float(b_factor(params.b, maturity))
         return c_x, c_y, maturity * path + _g2_log_a(curve, params, t, maturity)
@@ -126,12 +128,14 @@ def model_target_value(
         if target != "zero_yield":
             raise ValueError(f"unknown target {target!r}: use 'short_rate' or 'zero_yield'")
         _need_maturity(maturity)
-        assert maturity is not None
+        if maturity is None:
+            raise ValueError("a zero-yield target needs a positive maturity, got None")
         loadings = float(b_factor(params.a, maturity)) * mx + float(b_factor(params.b, maturity)) * my
         return (-_g2_log_a(curve, params, t, maturity) + loadings) / maturity
     if target == "short_rate":
         return factor_mean + alpha(curve, params, t)
-    assert maturity is not None
+    if maturity is None:
+        raise ValueError("a zero-yield target needs a positive maturity, got None")
     return (-_log_a(curve, params, t, maturity) + b_factor(params.mean_reversion, maturity) * factor_mean) / maturity
 
 
@@ -145,7 +149,8 @@ def today_value(
 
 
 def factor_mean_for_target(
-    curve: DiscountCurve, params: HullWhiteParams, t: np.ndarray, path: np.ndarray, *, target: str, maturity: float | None
+    curve: DiscountCurve, params: HullWhiteParams, t: np.ndarray, path: np.ndarray, *, target: str,
+    maturity: float | None
 ) -> np.ndarray:
     """``g(t)``: the real-world factor mean that puts the target's expectation on ``path``
     (Hull-White only: under G2++ the path fixes only a combination of the two factor means,
@@ -159,13 +164,15 @@ def factor_mean_for_target(
     if target == "short_rate":
         return path - alpha(curve, params, t)
     if target == "zero_yield":
-        assert maturity is not None
+        if maturity is None:
+            raise ValueError("a zero-yield target needs a positive maturity, got None")
         return (maturity * path + _log_a(curve, params, t, maturity)) / b_factor(params.mean_reversion, maturity)
     raise ValueError(f"unknown target {target!r}: use 'short_rate' or 'zero_yield'")
 
 
 def _g2_path_lambdas(
-    curve: DiscountCurve, params: G2PlusPlusParams, knots: np.ndarray, path: np.ndarray, *, target: str, maturity: float | None
+    curve: DiscountCurve, params: G2PlusPlusParams, knots: np.ndarray, path: np.ndarray, *, target: str,
+    maturity: float | None
 ) -> np.ndarray:
     """Monthly ``lambda_j`` from the joint recursion of ``(E x, E y)`` (module docstring)."""
     c_x, c_y, h = _g2_combination(curve, params, knots, path, target=target, maturity=maturity)
@@ -203,14 +210,13 @@ def rates_price_of_risk_for_path(
     """Monthly piecewise-constant ``lambda_r`` meeting the target path at every month end to
     ``horizon`` (the last value holds beyond it). Under G2++ the schedule is the price of risk
     of both factor drivers."""
-    g2 = isinstance(params, G2PlusPlusParams)
-    if not g2 and not params.volatility > 0.0:
+    if not isinstance(params, G2PlusPlusParams) and not params.volatility > 0.0:
         raise ValueError("a real-world rate view needs a positive Hull-White volatility")
     n = int(np.ceil(horizon * KNOTS_PER_YEAR - 1e-9))
     knots = np.arange(n + 1, dtype=float) / KNOTS_PER_YEAR
     start = today_value(curve, params, target=target, maturity=maturity)
     path = target_path(start, long_run_level, speed, knots)
-    if g2:
+    if isinstance(params, G2PlusPlusParams):
         lam = _g2_path_lambdas(curve, params, knots, path, target=target, maturity=maturity)
         return PiecewiseConstant(knots=tuple(knots[:-1]), values=tuple(lam))
     g = factor_mean_for_target(curve, params, knots, path, target=target, maturity=maturity)

@@ -162,7 +162,7 @@ def expected_short_rate(
     """Closed-form expected short rate at ``t`` under ``measure``: ``alpha(t)`` (Hull-White) or
     ``phi(t)`` (G2++) under Q, plus the real-world factor mean(s) under P."""
     g2 = isinstance(params, G2PlusPlusParams)
-    base = g2pp.phi(curve, params, t) if g2 else alpha(curve, params, t)
+    base = g2pp.phi(curve, params, t) if isinstance(params, G2PlusPlusParams) else alpha(curve, params, t)
     if measure == "market_consistent":
         return base
     if measure == "real_world":

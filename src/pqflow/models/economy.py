@@ -227,7 +227,8 @@ class EconomyModel:
         return float(self.correlation[names.index(a), names.index(b)])
 
     def step_covariance(self, t0: float, t1: float) -> np.ndarray:
-        cov, _ = grid_moments(np.array([t0, t1]), self._exposures, self.correlation, self.driver_names, self.prices_of_risk)
+        cov, _ = grid_moments(np.array([t0, t1]), self._exposures, self.correlation, self.driver_names,
+                              self.prices_of_risk)
         return cov[0]
 
     def step_law(self, t0: float, t1: float) -> StepLaw:
@@ -258,7 +259,7 @@ class EconomyModel:
             self._integrated_variance(t1) - self._integrated_variance(t0)
         )
         rates_step = RatesStep(b_rows=b_rows, int_phi=int_phi)
-        for part, rows in zip(self.parts, self._part_slices()):
+        for part, rows in zip(self.parts, self._part_slices(), strict=True):
             to_factors, own, part_drift = part.step_rows(times, rates_step, self._pair)
             transition[:, rows, :n_f] = to_factors
             transition[:, rows, rows] = own
@@ -285,7 +286,8 @@ class EconomyModel:
         of ``P(t, t+m) = A(t, m) exp(-sum_f B_f(m) f_t)``."""
         return self.rates.bond_exponents(self.curve, times, maturities)
 
-    def columns(self, times: np.ndarray, states: np.ndarray, names: tuple[str, ...] | None = None) -> dict[str, np.ndarray]:
+    def columns(self, times: np.ndarray, states: np.ndarray, names: tuple[str, ...] | None = None) -> dict[str,
+                                                                                                           np.ndarray]:
         """Output columns ``(n_paths, n_times)`` from states ``(n_paths, n_times, d)``."""
         times = np.asarray(times, dtype=float)
         known = self.known_columns()
@@ -316,7 +318,7 @@ class EconomyModel:
             np.exp(prices, out=prices)
             for i, (name, _) in enumerate(chosen):
                 out[name] = prices[i]
-        for part, rows in zip(self.parts, self._part_slices()):
+        for part, rows in zip(self.parts, self._part_slices(), strict=True):
             out.update(part.columns(times, states[:, :, rows], wanted))
         return {c: out[c] for c in wanted}
 

@@ -393,7 +393,8 @@ def heston_indices_from_json(data: dict[str, Any]) -> dict[str, HestonIndex]:
         if entry.get("model") != "heston":
             raise ValueError(f"stochastic_volatility.{name}: unknown model {entry.get('model')!r}")
         out[name] = HestonIndex(
-            name=name, column=str(entry["column"]), level=float(entry["level"]), income_yield=float(entry["income_yield"]),
+            name=name, column=str(entry["column"]), level=float(entry["level"]),
+            income_yield=float(entry["income_yield"]),
             params=HestonParams(**{k: float(entry[k]) for k in ("v0", "kappa", "theta", "xi", "rho")}),
             prices_of_risk=HestonPricesOfRisk(**{k: float(v) for k, v in entry["prices_of_risk"].items()}),
             loadings=tuple((str(d), float(b)) for d, b in entry["loadings"]), explained=float(entry["explained"]),

@@ -305,7 +305,7 @@ def yoy_cap_price(
     return float(sum(
         yoy_caplet_price(nominal_curve, real_curve, params, start=float(s), end=float(e),
                          strike=strike, kind=kind)
-        for s, e in zip(edges[:-1], edges[1:])
+        for s, e in zip(edges[:-1], edges[1:], strict=True)
     ))
 
 
@@ -322,6 +322,6 @@ def yoy_swap_rate(
     dfs = nominal_curve.discount(edges[1:])
     fwds = np.array([
         yoy_forward(nominal_curve, real_curve, params, start=float(s), end=float(e))
-        for s, e in zip(edges[:-1], edges[1:])
+        for s, e in zip(edges[:-1], edges[1:], strict=True)
     ])
     return float(np.sum(dfs * fwds) / np.sum(dfs))

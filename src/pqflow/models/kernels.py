@@ -119,7 +119,7 @@ def grid_moments(
     exposures: Sequence[Sequence[Exposure]],
     correlation: np.ndarray,
     drivers: Sequence[str],
-    prices_of_risk: Mapping[str, PiecewiseConstant],
+    prices_of_risk: Mapping[str, float | PiecewiseConstant],  # each read through as_schedule
 ) -> tuple[np.ndarray, np.ndarray]:
     """Covariance ``(K, d, d)`` of the step noise of ``d`` states over each of the ``K`` steps of
     ``times``, and the shift of its mean ``(K, d)`` under the real-world measure.
@@ -132,8 +132,9 @@ def grid_moments(
     index = {name: k for k, name in enumerate(drivers)}
     flat = [(i, e) for i, row in enumerate(exposures) for e in row]
     lam = {name: as_schedule(prices_of_risk[name]) for name in drivers if name in prices_of_risk}
-    pieces = grid_pieces(times, *(e.scale for _, e in flat), *lam.values())
-    scale = [pieces.values(e.scale) for _, e in flat]
+    # Exposure.scale is a schedule after __post_init__; as_schedule returns it unchanged (and types it)
+    pieces = grid_pieces(times, *(as_schedule(e.scale) for _, e in flat), *lam.values())
+    scale = [pieces.values(as_schedule(e.scale)) for _, e in flat]
     lam_values = {name: pieces.values(sched) for name, sched in lam.items()}
     d = len(exposures)
     cov = np.zeros((n_steps, d, d))

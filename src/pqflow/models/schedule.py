@@ -28,7 +28,7 @@ class PiecewiseConstant:
         v = tuple(float(x) for x in self.values)
         if not k or len(k) != len(v):
             raise ValueError("a schedule needs as many values as knots, at least one")
-        if k[0] != 0.0 or any(b <= a for a, b in zip(k, k[1:])):
+        if k[0] != 0.0 or any(b <= a for a, b in zip(k, k[1:], strict=False)):
             raise ValueError("schedule knots must start at 0 and increase strictly")
         if not all(np.isfinite(v)):
             raise ValueError("schedule values must be finite")
@@ -73,7 +73,7 @@ def segments(t0: float, t1: float, *schedules: PiecewiseConstant) -> list[tuple[
         cuts.update(k for k in s.knots if t0 < k < t1)
     edges = sorted(cuts)
     out = []
-    for u0, u1 in zip(edges, edges[1:]):
+    for u0, u1 in zip(edges, edges[1:], strict=False):
         mid = 0.5 * (u0 + u1)
         out.append((u0, u1, tuple(s.value_at(mid) for s in schedules)))
     return out

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -78,7 +79,7 @@ class TotalReturnIndex:
     def exposures(self, integral: tuple[Exposure, ...]) -> tuple[tuple[Exposure, ...], ...]:
         return ((*integral, Exposure(driver=self.name, kind="one", scale=self.vol_schedule)),)
 
-    def step_rows(self, times: np.ndarray, rates: RatesStep, correlation) -> tuple[np.ndarray, np.ndarray, np.ndarray]:  # noqa: F821
+    def step_rows(self, times: np.ndarray, rates: RatesStep, correlation) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         n_steps = times.size - 1
         pieces = grid_pieces(times, self.vol_schedule)
         half_var = pieces.per_step(0.5 * pieces.values(self.vol_schedule) ** 2 * pieces.length, n_steps)

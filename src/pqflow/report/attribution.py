@@ -163,14 +163,15 @@ def step_configs(old: RunConfig, new: RunConfig) -> list[tuple[Step | None, dict
         if nxt != current:
             out.append((step, nxt))
             current = nxt
-    for k, (step, data) in enumerate(out):
-        data["run"]["name"] = f"attribution-{k:02d}-{step.name if step else 'old_inputs'}"
+    for k, (done, data) in enumerate(out):
+        data["run"]["name"] = f"attribution-{k:02d}-{done.name if done else 'old_inputs'}"
         data.pop("signoff", None)
     return out
 
 
 def attribution_rows(
-    steps: list[tuple[str, str]], units: list[Any], ce: list[dict[str, float]], *, old_value: dict[str, float] | None = None,
+    steps: list[tuple[str, str]], units: list[Any], ce: list[dict[str, float]], *, old_value: dict[str,
+                                                                                                   float] | None = None,
     new_value: dict[str, float] | None = None,
 ) -> dict[str, Any]:
     """The table of changes: per step and line, the change in best estimate and TVOG with the
@@ -182,13 +183,13 @@ def attribution_rows(
     """
     from pqflow.liabilities.paired import paired_difference
 
-    labels = [lab for lab, lev in zip(units[0].labels, units[0].levels) if lev in ("product", "total")]
+    labels = [lab for lab, lev in zip(units[0].labels, units[0].levels, strict=True) if lev in ("product", "total")]
     idx = [units[0].labels.index(lab) for lab in labels]
     rows = []
     be0 = units[0].mean()[:, 0]
     for k in range(1, len(units)):
         d, se, paired = paired_difference(units[k - 1], units[k])
-        for g, lab in zip(idx, labels):
+        for g, lab in zip(idx, labels, strict=True):
             d_ce = ce[k][lab] - ce[k - 1][lab]
             rows.append({"step": k, "name": steps[k][0], "title": steps[k][1], "line": lab,
                          "best_estimate_change": float(d[g, 0]), "best_estimate_se": float(se[g, 0]),
@@ -197,7 +198,7 @@ def attribution_rows(
                          "paired": paired})
     be_last = units[-1].mean()[:, 0]
     totals = {}
-    for g, lab in zip(idx, labels):
+    for g, lab in zip(idx, labels, strict=True):
         total = float(be_last[g] - be0[g])
         tvog_total = float((be_last[g] - ce[-1][lab]) - (be0[g] - ce[0][lab]))
         steps_sum = float(sum(r["best_estimate_change"] for r in rows if r["line"] == lab))
@@ -207,10 +208,12 @@ def attribution_rows(
                        "start_best_estimate": float(be0[g]), "end_best_estimate": float(be_last[g])}
     checks = {}
     if old_value is not None:
-        checks["reproduces_old_run"] = all(np.isclose(totals[lab]["start_best_estimate"], old_value[lab], rtol=1e-9, atol=1e-6)
+        checks["reproduces_old_run"] = all(np.isclose(totals[lab]["start_best_estimate"], old_value[lab], rtol=1e-9,
+                                                      atol=1e-6)
                                            for lab in labels if lab in old_value)
     if new_value is not None:
-        checks["reproduces_new_run"] = all(np.isclose(totals[lab]["end_best_estimate"], new_value[lab], rtol=1e-9, atol=1e-6)
+        checks["reproduces_new_run"] = all(np.isclose(totals[lab]["end_best_estimate"], new_value[lab], rtol=1e-9,
+                                                      atol=1e-6)
                                            for lab in labels if lab in new_value)
     return {"steps": [{"step": k, "name": n, "title": t} for k, (n, t) in enumerate(steps)],
             "rows": rows, "totals": totals, "checks": checks, "lines": labels}
@@ -224,7 +227,8 @@ def check_attribution(old_run: str | Path, new_run: str | Path, old_config: str 
 
     out = Path(out_dir)
     if out.exists():
-        raise PqflowError(f"{out} exists; choose another --attribution-dir (an attribution is not written over another)")
+        raise PqflowError(f"{out} exists; choose another --attribution-dir "
+                          "(an attribution is not written over another)")
     manifests = []
     for run in (old_run, new_run):
         path = Path(run) / "manifest.json"
@@ -287,7 +291,8 @@ def summarise_attribution(old_run: str | Path, new_run: str | Path, planned: lis
     from pqflow.storage.results import write_csv_atomic
 
     units = [unit_values(p.run_dir, liabilities) for p in planned]
-    ce = [_line_values(read_json(p.run_dir / "valuation" / "summary.json"), "certainty_equivalent_value") for p in planned]
+    ce = [_line_values(read_json(p.run_dir / "valuation" / "summary.json"), "certainty_equivalent_value")
+          for p in planned]
     old_val = Path(old_run) / "valuation" / "summary.json"
     new_val = Path(new_run) / "valuation" / "summary.json"
     result = attribution_rows(

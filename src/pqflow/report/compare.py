@@ -26,7 +26,7 @@ import math
 from dataclasses import dataclass
 from html import escape
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeGuard
 
 import numpy as np
 
@@ -131,7 +131,7 @@ class Comparison:
 
 # -- reading a run ----------------------------------------------------------------------------
 
-def _is_num(v: Any) -> bool:
+def _is_num(v: Any) -> TypeGuard[float | str]:  # what float() reads to a finite number
     return fmt.is_number(v)
 
 
@@ -296,7 +296,9 @@ def _settings(inputs: dict[str, Any]) -> dict[str, tuple[Any, str]]:
                 walk({kk: vv for kk, vv in v.items() if kk != "name"}, f"{path}.{name if name else i + 1}")
         elif isinstance(obj, list):
             text = ", ".join(fmt.plain(x, 6) if _is_num(x) else str(x) for x in obj)
-            out[_readable(path)] = (text if len(obj) <= 12 else f"{len(obj)} values, sum {fmt.plain(sum(float(x) for x in obj if _is_num(x)), 6)}"
+            out[_readable(path)] = (text if len(obj) <= 12
+                                    else f"{len(obj)} values, sum "
+                                         f"{fmt.plain(sum(float(x) for x in obj if _is_num(x)), 6)}"
                                     if all(_is_num(x) for x in obj) else text, "text")
         else:
             out[_readable(path)] = (obj, _unit_of(path, obj))
@@ -394,7 +396,8 @@ def _identity(run: dict[str, Any]) -> dict[str, tuple[Any, str]]:
         "configuration sha256": (man.get("config_sha256"), "text"),
         "calibration inputs sha256": (cal.inputs_sha256, "text"),
         "root seed": (str((man.get("seeds") or {}).get("root_seed")) if man else None, "text"),
-        "scenarios per set": (", ".join(f"{k.replace('_', ' ')} {fmt.count(v)}" for k, v in (man.get("scenarios") or {}).items())
+        "scenarios per set": (", ".join(f"{k.replace('_', ' ')} {fmt.count(v)}" for k, v in (man.get("scenarios")
+                                                                                             or {}).items())
                               or None, "text"),
         "pqflow version": (man.get("pqflow_version", cal.pqflow_version), "text"),
     }
@@ -520,11 +523,12 @@ def _moves_chart(moves: list[Move], title: str, unit_label: str, scale: float) -
     from pqflow.report import svg
 
     moved = [m for m in moves if m.status == "moved" and m.move is not None]
+    moves_by = [float(m.move) for m in moved if m.move is not None]
     if not moved:
         return ""
     labels = [m.item.replace("zero rate ", "").replace("swaption ", "").replace("moneyness ", "") for m in moved]
     labels = [t if len(t) <= 22 else "…" + t[-21:] for t in labels]  # the full name is in the table
-    return svg.bar_chart(title=title, labels=labels, values=[scale * float(m.move) for m in moved],
+    return svg.bar_chart(title=title, labels=labels, values=[scale * v for v in moves_by],
                          y_label=unit_label)
 
 
@@ -547,7 +551,8 @@ def _table_html(rows: list[Move], *, with_move: bool = True,
 
 
 _CMP_CSS = ("<style>table.cmp{table-layout:fixed;width:100%;max-width:1050px}table.cmp td.item{word-break:break-word}"
-            "table.cmp th.item{width:36%}table.cmp td.num{white-space:nowrap;overflow:hidden;text-overflow:ellipsis}</style>")
+            "table.cmp th.item{width:36%}table.cmp "
+            "td.num{white-space:nowrap;overflow:hidden;text-overflow:ellipsis}</style>")
 
 
 def _attribution_html(result: dict[str, Any], currency: str) -> str:
@@ -566,7 +571,8 @@ def _attribution_html(result: dict[str, Any], currency: str) -> str:
         f'<tr><td class="l">{r["step"]}. {escape(r["title"])}</td><td class="num">'
         f'{escape(fmt.money_se(r["best_estimate_change"], r["best_estimate_se"]))}</td><td class="num">'
         f'{escape(fmt.money_se(r["tvog_change"], r["tvog_se"]))}</td></tr>' for r in rows)
-    body += (f'<tr><th class="l">total change</th><th class="num">{escape(fmt.money(totals.get("best_estimate_total"), sign=True))}'
+    body += (f'<tr><th class="l">total change</th><th '
+             f'class="num">{escape(fmt.money(totals.get("best_estimate_total"), sign=True))}'
              f'</th><th class="num">{escape(fmt.money(totals.get("tvog_total"), sign=True))}</th></tr>')
     checks = "; ".join(f"{k.replace('_', ' ')}: {'yes' if v else 'no'}" for k, v in result.get("checks", {}).items())
     return (f'<div class="grid">{chart}</div><table class="cmp"><thead><tr><th class="l item">step (total line)</th>'
@@ -615,7 +621,8 @@ def write_compare_html(c: Comparison, path: str | Path, *, everything: bool = Fa
     params = list(c.parameters) if everything else [m for m in c.parameters if m.status != "same"]
     parts.append('<section id="compare-parameters"><h2>Calibrated parameters</h2>'
                  + (_table_html(params) if params else '<p class="note">Nothing differs.</p>')
-                 + f'<p class="note">{sum(m.status == "same" for m in c.parameters)} parameters unchanged.</p></section>')
+                 + f'<p class="note">{sum(m.status == "same" for m in c.parameters)} parameters '
+                   f'unchanged.</p></section>')
     changed = list(c.checks) if everything else [m for m in c.checks if m.status != "same"]
     parts.append('<section id="compare-checks"><h2>Checks</h2>'
                  + (_table_html(changed, with_move=False) if changed else '<p class="note">No verdict changed.</p>')

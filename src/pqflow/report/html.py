@@ -78,7 +78,8 @@ body{font:14px/1.45 system-ui,-apple-system,'Segoe UI',sans-serif;color:#1d1d1f;
 main{max-width:1100px;margin:0 auto;padding:16px 24px 40px}
 h1{font-size:22px;margin:8px 0 4px}h2{font-size:19px;border-bottom:2px solid #1f5f8b;padding-bottom:4px;margin-top:34px}
 h3{font-size:15px;margin:18px 0 6px}
-.caution{background:#fff6d6;border:1px solid #d9b441;border-left:6px solid #d9b441;padding:8px 14px;margin:10px 0;font-size:13px}
+.caution{background:#fff6d6;border:1px solid #d9b441;border-left:6px solid #d9b441;
+padding:8px 14px;margin:10px 0;font-size:13px}
 table{border-collapse:collapse;margin:6px 0 12px;background:#fff;font-size:12.5px}
 th,td{border:1px solid #ddd;padding:3px 8px;text-align:right;vertical-align:top}
 th{background:#eef2f5;text-align:center}td.l,th.l{text-align:left}
@@ -179,6 +180,27 @@ def _table(rows: list[dict[str, Any]], columns: list[tuple[str, str]], *,
     return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
+# Cell formatters for _table's ``fmts``, one closure per column (a lambda with a default argument
+# would not match the one-argument signature).
+_CellFormat = Callable[[dict[str, Any]], str]
+
+
+def _text_cell(key: str) -> _CellFormat:
+    return lambda r: escape(r[key])
+
+
+def _str_cell(key: str) -> _CellFormat:
+    return lambda r: escape(str(r[key]))
+
+
+def _money_cell(key: str) -> _CellFormat:
+    return lambda r: escape(fmt.money(r.get(key)))
+
+
+def _formatted_cell(key: str, f: Callable[[Any], str]) -> _CellFormat:
+    return lambda r: escape(str(r.get(key))) if isinstance(r.get(key), str) else escape(f(r.get(key)))
+
+
 def _long_table(rows: list[dict[str, Any]], shown: list[dict[str, Any]], columns: list[tuple[str, str]], *,
                 fmts: dict[str, Callable[[dict[str, Any]], str]] | None = None, what: str = "rows") -> str:
     """A table of ``shown`` (the rows a reviewer reads first) and, folded below it, every row;
@@ -218,7 +240,7 @@ def _files(run_dir: Path, names: list[str]) -> str:
 def _records(frame: pd.DataFrame | None) -> list[dict[str, Any]]:
     if frame is None:
         return []
-    return [{k: (None if isinstance(v, float) and math.isnan(v) else v) for k, v in r.items()}
+    return [{str(k): (None if isinstance(v, float) and math.isnan(v) else v) for k, v in r.items()}
             for r in frame.to_dict(orient="records")]
 
 
@@ -302,7 +324,8 @@ def _one_line(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRe
         f"<strong>{escape(str(m.get('run_name', run_dir.name)))}</strong>",
         f"valuation date {escape(str(cal.valuation_date or fmt.DASH))}",
         f"run {escape(_short(m.get('run_id')))}" if m else "manifest not written yet",
-        f"created {escape(str(m.get('created_utc', fmt.DASH)).replace('T', ' ').replace('+00:00', ' UTC'))}" if m else "",
+        f"created {escape(str(m.get('created_utc', fmt.DASH)).replace('T', ' ').replace('+00:00', ' UTC'))}" if m
+        else "",
         f"configuration {escape(_short(m.get('config_sha256')))}" if m else "",
         f"seed {escape(str((m.get('seeds') or {}).get('root_seed', fmt.DASH)))}" if m else "",
         escape(scen_text) if scen_text else "",
@@ -439,7 +462,8 @@ def _verdict_rows(summary: dict[str, Any]) -> list[tuple[str, str, str, str]]:
         bench = c.get("wealth_ratio_benchmark")
         if isinstance(bench, dict) and "verdict" in bench:
             rows.append((name, "equity wealth ratios vs 2005 benchmark",
-                         f"{fmt.count(bench.get('failed'))} of {fmt.count(bench.get('comparisons'))} percentiles missed",
+                         f"{fmt.count(bench.get('failed'))} of {fmt.count(bench.get('comparisons'))} "
+                         "percentiles missed",
                          _badge(bench.get("verdict"), bench.get("counts_toward_verdict", False))))
     return rows
 
@@ -464,12 +488,14 @@ def _verdicts(run_dir: Path, summary: dict[str, Any], valuation: dict[str, Any] 
             )
     power = [{"check": name.replace("_", " "),
               "deviation": (fmt.number(c["material_deviation"]) if fmt.is_number(c.get("material_deviation"))
-                            else str(c.get("material_deviation") if c.get("material_deviation") is not None else fmt.DASH)),
+                            else str(c.get("material_deviation") if c.get("material_deviation") is not None
+                                     else fmt.DASH)),
               "rule": str(c.get("power_rule") or fmt.DASH)}
-             for name, c in (summary.get("checks") or {}).items() if c.get("power_rule") or c.get("material_deviation") is not None]
+             for name, c in (summary.get("checks") or {}).items() if c.get("power_rule")
+             or c.get("material_deviation") is not None]
     power_html = ("<h3>What each check can detect</h3>" + _table(
         power, [("check", "check"), ("deviation", "material deviation"), ("rule", "power rule")],
-        fmts={k: (lambda r, k=k: escape(r[k])) for k in ("check", "deviation", "rule")})) if power else ""
+        fmts={k: _text_cell(k) for k in ("check", "deviation", "rule")})) if power else ""
     warnings = _warnings(summary, valuation)
     warn_html = ("<h3>Warnings</h3><ul class=\"warn\">" + "".join(f"<li>{escape(w)}</li>" for w in warnings)
                  + "</ul>") if warnings else '<p class="note">No warnings.</p>'
@@ -572,7 +598,7 @@ def _sched_text(v: Any, show: Callable[[Any], str]) -> str:
         if not vals:
             return fmt.DASH
         if len(vals) <= 6:
-            return ", ".join(f"{show(x)} from {fmt.years(k)}y" for k, x in zip(v["knots"], vals))
+            return ", ".join(f"{show(x)} from {fmt.years(k)}y" for k, x in zip(v["knots"], vals, strict=True))
         return (f"{show(vals[0])} at 0y to {show(vals[-1])} at {float(v['knots'][-1]):.0f}y "
                 f"({len(vals)} pieces between {show(min(vals))} and {show(max(vals))})")
     return show(v)
@@ -608,7 +634,8 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
     for item in cal.indices:
         f = ifit.get(str(item.get("name"))) or {}
         rows.append({"part": f"{item.get('kind', 'index')} {item.get('name', '')}",
-                     "values": f"level {fmt.plain(item.get('level'), 6)}, income yield {fmt.percent(item.get('income_yield'), 2)}, "
+                     "values": f"level {fmt.plain(item.get('level'), 6)}, income yield "
+                               f"{fmt.percent(item.get('income_yield'), 2)}, "
                                f"vol {_sched_text(item.get('volatility'), fmt.vol_points)} pts, "
                                f"risk premium {fmt.percent(item.get('risk_premium'), 2)}",
                      "fit": (f"max vol error {fmt.vol_points(f['max_abs_vol_error'])} pts"
@@ -622,7 +649,8 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
         if "price_rmse_bp" in caps:
             fit_text.append(f"caps/floors RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional")
         rows.append({"part": "inflation, Jarrow-Yildirim",
-                     "values": f"a_r {fmt.plain(inf.get('real_mean_reversion'))}, σ_r {fmt.bp(1e4 * float(inf.get('real_volatility', 'nan')), 1)}, "
+                     "values": f"a_r {fmt.plain(inf.get('real_mean_reversion'))}, σ_r "
+                               f"{fmt.bp(1e4 * float(inf.get('real_volatility', 'nan')), 1)}, "
                                f"σ_I {fmt.vol_points(inf.get('inflation_volatility'))} pts",
                      "fit": "; ".join(fit_text) or "typed in"})
     cfits = {r.get("rating"): r for r in (cal.part_fit("credit").get("ratings") or [])}
@@ -675,12 +703,12 @@ def _column_format(col: str, *, vols_in_bp: bool = False) -> Callable[[Any], str
 def _fit_table(rows: list[dict[str, Any]], *, vols_in_bp: bool) -> str:
     cols = [k for k in rows[0].keys() if not isinstance(rows[0][k], (list, dict))
             and any(r.get(k) is not None for r in rows)]  # a column empty in every row says nothing
-    fmts = {}
+    fmts: dict[str, _CellFormat] = {}
     for k in cols:
         f = _column_format(k, vols_in_bp=vols_in_bp)
         if k == "strike" and all(fmt.is_number(r.get(k)) and abs(float(r[k])) < 1 for r in rows):
             f = fmt.percent  # a rate strike (caps, floors); index strikes are levels
-        fmts[k] = (lambda r, k=k, f=f: escape(str(r.get(k))) if isinstance(r.get(k), str) else escape(f(r.get(k))))
+        fmts[k] = _formatted_cell(k, f)
     return _table(rows, [(k, k.replace("_", " ")) for k in cols], fmts=fmts)
 
 
@@ -738,7 +766,8 @@ def _calibration(cal: CalibrationRecord) -> str:
                 exact = err is not None and all(fmt.is_number(r.get(err)) and abs(float(r[err])) < 1e-8 for r in rows)
                 if exact:  # a bootstrap that reprices every quote: the rows are reference, folded
                     html.append(f'<details class="all-rows"><summary>All {len(rows)} quotes, each repriced exactly '
-                                f"(largest error &lt; 1e-10)</summary>{_fit_table(rows, vols_in_bp=vols_in_bp)}</details>")
+                                f"(largest error &lt; "
+                                f"1e-10)</summary>{_fit_table(rows, vols_in_bp=vols_in_bp)}</details>")
                 else:
                     html.append(_fit_table(rows, vols_in_bp=vols_in_bp))
                 charts += _fit_chart(name, rows)
@@ -784,47 +813,56 @@ class _Driver:
     transform: Callable[[dict[str, np.ndarray]], np.ndarray]
 
 
+def _column_of(c: str) -> Callable[[dict[str, np.ndarray]], np.ndarray]:
+    return lambda d: d[c]
+
+
+def _zero_yield_of(c: str, m: float) -> Callable[[dict[str, np.ndarray]], np.ndarray]:
+    return lambda d: -np.log(d[c]) / m
+
+
 def _drivers(names: list[str]) -> list[_Driver]:
     """Every modelled driver of a set, grouped by asset class, from its column names."""
     out: list[_Driver] = []
     have = set(names)
-    bonds = sorted((bond_maturity_of(c), c) for c in names if bond_maturity_of(c) is not None)
+    bonds = sorted((m, c) for c in names if (m := bond_maturity_of(c)) is not None)
     if "short_rate" in have:
         out.append(_Driver("Nominal rates", "short rate", ("short_rate",), "rate", lambda d: d["short_rate"]))
     if bonds:
         m, c = bonds[-1]
         out.append(_Driver("Nominal rates", f"{fmt.years(m)}-year zero yield", (c,), "rate",
-                           lambda d, c=c, m=m: -np.log(d[c]) / m))
+                           _zero_yield_of(c, m)))
     for c in names:
         if c.startswith("equity_"):
             out.append(_Driver("Equity", f"{c[len('equity_'):]} (total return index)", (c,), "level",
-                               lambda d, c=c: d[c]))
+                               _column_of(c)))
     for c in names:
         if c.startswith("property_"):
             out.append(_Driver("Property", f"{c[len('property_'):]} (total return index)", (c,), "level",
-                               lambda d, c=c: d[c]))
+                               _column_of(c)))
     if "cpi" in have:
         out.append(_Driver("Inflation and real rates", "CPI", ("cpi",), "level", lambda d: d["cpi"]))
     if "real_short_rate" in have:
         out.append(_Driver("Inflation and real rates", "real short rate", ("real_short_rate",), "rate",
                            lambda d: d["real_short_rate"]))
     reals = sorted((float(c[len("real_zcb_"):-1]), c) for c in names
-                   if c.startswith("real_zcb_") and c.endswith("y") and c[len("real_zcb_"):-1].replace(".", "").isdigit())
+                   if c.startswith("real_zcb_") and c.endswith("y") and c[len("real_zcb_"):-1].replace(".",
+                                                                                                       "").isdigit())
     if reals:
         m, c = reals[-1]
         out.append(_Driver("Inflation and real rates", f"{fmt.years(m)}-year real zero yield", (c,), "rate",
-                           lambda d, c=c, m=m: -np.log(d[c]) / m))
+                           _zero_yield_of(c, m)))
     for c in names:
         if c.startswith("intensity_"):
             rating = c[len("intensity_"):]
-            out.append(_Driver("Credit", f"{rating} default intensity", (c,), "rate", lambda d, c=c: d[c]))
+            out.append(_Driver("Credit", f"{rating} default intensity", (c,), "rate", _column_of(c)))
             spreads = sorted((float(s.rsplit("_", 1)[1][:-1]), s) for s in names
                              if s.startswith(spread_prefix(rating)) and s.endswith("y")
                              and s.rsplit("_", 1)[1][:-1].replace(".", "").isdigit())
             if spreads:
                 m, s = spreads[-1]
                 out.append(_Driver("Credit", f"{rating} {fmt.years(m)}-year credit spread", (s,), "rate",
-                                   lambda d, s=s: d[s]))
+                                   _column_of(s)))
     return out
 
 
@@ -848,7 +886,7 @@ def _fan_data(run_dir: Path) -> tuple[list[_Driver], dict[str, dict[str, Any]]]:
         item: dict[str, Any] = {"times": times, "quantities": {}}
         for d in mine:
             x = d.transform(values)
-            item["quantities"][d.label] = dict(zip(_PCTS, np.percentile(x, _PCTS, axis=0)))
+            item["quantities"][d.label] = dict(zip(_PCTS, np.percentile(x, _PCTS, axis=0), strict=True))
         data[measure] = item
     return drivers or [], data
 
@@ -916,10 +954,13 @@ def _martingale(run_dir: Path, summary: dict[str, Any]) -> str:
         worst = c.get("worst_cell") or {}
         html.append(_kv([
             ("cells", fmt.count(c.get("cells"))),
-            ("outside 95% / by chance", f"{fmt.count(c.get('outside_95'))} / {fmt.number(c.get('expected_outside_95_by_chance'), 3)}"),
-            ("outside 99% / by chance", f"{fmt.count(c.get('outside_99'))} / {fmt.number(c.get('expected_outside_99_by_chance'), 3)}"),
+            ("outside 95% / by chance",
+             f"{fmt.count(c.get('outside_95'))} / {fmt.number(c.get('expected_outside_95_by_chance'), 3)}"),
+            ("outside 99% / by chance",
+             f"{fmt.count(c.get('outside_99'))} / {fmt.number(c.get('expected_outside_99_by_chance'), 3)}"),
             ("max |z| / family limit", f"{fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}"),
-            ("worst cell", ", ".join(f"{k} {fmt.zscore(v) if k == 'z_score' else fmt.number(v, 6) if not isinstance(v, str) else v}"
+            ("worst cell",
+             ", ".join(f"{k} {fmt.zscore(v) if k == 'z_score' else fmt.number(v, 6) if not isinstance(v, str) else v}"
                                      for k, v in worst.items())),
         ]))
     if table is not None:
@@ -968,7 +1009,8 @@ def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | 
                     f"{_badge(c.get('verdict'))}</h3>")
         at = c.get("at_horizon") or {}
         pairs = [
-            ("max |z| of the mean weight / family limit", f"{fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}"),
+            ("max |z| of the mean weight / family limit",
+             f"{fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}"),
             ("lowest ESS share", fmt.share(c.get("min_ess_share"))),
             ("largest single-path weight share", fmt.share(c.get("max_weight_share"))),
             ("ESS below warning share from", "never" if c.get("ess_below_warning_from_time") is None
@@ -980,7 +1022,8 @@ def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | 
         if c.get("power_rule"):
             pairs.append(("power rule", str(c["power_rule"])))
         if c.get("material_deviation") is not None:
-            pairs.append(("material deviation", fmt.number(c["material_deviation"]) if fmt.is_number(c["material_deviation"])
+            pairs.append(("material deviation", fmt.number(c["material_deviation"])
+                          if fmt.is_number(c["material_deviation"])
                           else str(c["material_deviation"])))
         html.append(_kv(pairs))
     dens = _densities(summary, manifest)
@@ -988,14 +1031,16 @@ def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | 
         html.append("<h3>Usable horizon of each density</h3>")
         html.append(_table(dens, [("density", "density"), ("block", "block"), ("usable", "usable"),
                                   ("ess", "ESS share at horizon"), ("max_w", "largest weight share at horizon")],
-                           fmts={k: (lambda r, k=k: escape(str(r[k]))) for k in ("density", "block", "usable", "ess", "max_w")}))
+                           fmts={k: _str_cell(k) for k in ("density", "block", "usable", "ess",
+                                                                                 "max_w")}))
     budget = summary.get("density_budget")
     if isinstance(budget, dict) and budget:
         html.append("<h3>Density budget: share of the log-density variance by price of risk</h3>")
         rows = [{"measure": MEASURE_NAME.get(m, m), "price": p, "share": v}
                 for m, by in budget.items() if isinstance(by, dict) for p, v in by.items()]
         html.append(_table(rows, [("measure", "set"), ("price", "price of risk"), ("share", "share at the horizon")],
-                           fmts={"measure": lambda r: escape(str(r["measure"])), "price": lambda r: escape(str(r["price"])),
+                           fmts={"measure": lambda r: escape(str(r["measure"])),
+                                 "price": lambda r: escape(str(r["price"])),
                                  "share": lambda r: escape(fmt.share(r["share"]))}))
     if table is not None:
         series_ess, series_w, bands_w = [], [], []
@@ -1047,7 +1092,8 @@ def _market_consistency(run_dir: Path, summary: dict[str, Any]) -> str:
             if not sub:
                 continue
             html.append(f"<h3>{escape(MEASURE_NAME[measure])} set</h3>")
-            worst = sorted(sub, key=lambda r: -max(abs(float(r.get("z_market") or 0.0)), abs(float(r.get("z_model") or 0.0))))[:10]
+            worst = sorted(sub, key=lambda r: -max(abs(float(r.get("z_market") or 0.0)), abs(float(r.get("z_model")
+                                                                                                   or 0.0))))[:10]
             if len(worst) < len(sub):
                 html.append(f'<p class="note">The {len(worst)} instruments furthest from their quote or model price '
                             f"(largest |z|); all {len(sub)} below and in market_consistency.csv.</p>")
@@ -1090,10 +1136,12 @@ def _market_consistency(run_dir: Path, summary: dict[str, Any]) -> str:
                 labels = [r["instrument"].replace("swaption ", "").replace("equity call ", "").split(" K=")[0]
                           for r in sub]
                 pair.append(svg.bar_chart(
-                    title=f"{kind}: MC implied - market vol, {MEASURE_NAME[measure]} (bp; whiskers 2 SE; band: tolerance)",
+                    title=f"{kind}: MC implied - market vol, {MEASURE_NAME[measure]} (bp; whiskers 2 SE; band: "
+                          f"tolerance)",
                     labels=labels, values=[r["vol_difference_bp"] for r in sub],
                     errors=[2 * (r.get("vol_std_error_bp") or 0.0) for r in sub], y_label="bp of vol",
-                    tolerance=float(sub[0].get("vol_tolerance_bp") or 0.0) if len({r.get("convention") for r in sub}) == 1 else None,
+                    tolerance=float(sub[0].get("vol_tolerance_bp") or 0.0) if len({r.get("convention")
+                                                                                   for r in sub}) == 1 else None,
                     colour=svg.PALETTE[i], y_range=(lo, hi),
                 ))
             charts.append(_pair(f"market consistency {kind}", pair))
@@ -1118,7 +1166,8 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
     fit = c.get("house_view_fit")
     if fit:
         html.append(f'<p class="note">House view ({escape(str(fit.get("quantity")))}): the model\'s real-world '
-                    f'expectation lies within {escape(fmt.bp(fit.get("max_abs_gap_bp"), 2))} of the house-view path.</p>')
+                    f'expectation lies within {escape(fmt.bp(fit.get("max_abs_gap_bp"), 2))} of the house-view '
+                    f'path.</p>')
     targets = _csv(run_dir, "real_world_targets")
     charts = []
     if targets is not None and len(targets):
@@ -1158,9 +1207,11 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
         html.append(_table(b_rows, [("horizon", "horizon (y)"), ("percentile", "percentile"), ("tail", "tail"),
                                     ("model", "model"), ("requirement", "must be"), ("benchmark", "benchmark"),
                                     ("pass", "result")], fmts={
-            "horizon": lambda r: escape(fmt.years(r["horizon"])), "percentile": lambda r: escape(fmt.share(r["percentile"])),
+            "horizon": lambda r: escape(fmt.years(r["horizon"])),
+            "percentile": lambda r: escape(fmt.share(r["percentile"])),
             "tail": lambda r: escape(str(r["tail"])), "model": lambda r: escape(fmt.number(r["model"], 3)),
-            "requirement": lambda r: escape(str(r["requirement"])), "benchmark": lambda r: escape(fmt.number(r["benchmark"], 3)),
+            "requirement": lambda r: escape(str(r["requirement"])),
+            "benchmark": lambda r: escape(fmt.number(r["benchmark"], 3)),
             "pass": lambda r: "met" if str(r.get("pass")) in ("True", "true", "1") else "<strong>missed</strong>"}))
     html.append(_files(run_dir, ["wealth_ratio_benchmark.csv"]))
     by_index = smile.wealth_ratio_by_index_html(_records(_csv(run_dir, "wealth_ratio_by_index")), bench.get("by_index"))
@@ -1169,8 +1220,10 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
     if stats:
         html.append("<h3>Moments (pooled annual steps; reported)</h3>")
         html.append(_table(stats, [("statistic", "statistic"), ("measure", "set"), ("value", "value")], fmts={
-            "statistic": lambda r: escape(str(r["statistic"])), "measure": lambda r: escape(MEASURE_NAME.get(r["measure"], str(r["measure"]))),
-            "value": lambda r: escape(_pct_format(str(r["statistic"]))(r["value"]) if "change" not in str(r["statistic"])
+            "statistic": lambda r: escape(str(r["statistic"])),
+            "measure": lambda r: escape(MEASURE_NAME.get(r["measure"], str(r["measure"]))),
+            "value": lambda r: escape(_pct_format(str(r["statistic"]))(r["value"])
+                                      if "change" not in str(r["statistic"])
                                       else fmt.percent(r["value"]))}))
         html.append(_files(run_dir, ["real_world_statistics.csv"]))
     pct = _records(_csv(run_dir, "real_world_percentiles"))
@@ -1179,7 +1232,8 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
         pcols = [k for k in pct[0] if k.startswith("p") and k[1:].replace(".", "").isdigit()]
         for quantity in dict.fromkeys(r["quantity"] for r in pct):
             show = _pct_format(quantity)
-            sub = {m: {r["horizon"]: r for r in pct if r["quantity"] == quantity and r["measure"] == m} for m in MEASURES}
+            sub = {m: {r["horizon"]: r for r in pct if r["quantity"] == quantity and r["measure"] == m}
+                   for m in MEASURES}
             horizons = sorted({h for by in sub.values() for h in by})
             head = ('<tr><th class="l" rowspan="2">year</th>' + "".join(
                 f'<th colspan="{len(pcols) + 1}">{escape(MEASURE_NAME[m])}</th>' for m in MEASURES if sub[m])
@@ -1219,12 +1273,14 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
         html.append(_table(values, [("method", "method"), ("value", "value ± SE")], fmts={
             "method": lambda r: escape(str(r["method"])),
             "value": lambda r: escape(fmt.price_se(r.get("value"), r.get("std_error")))}))
-        html.append(_table(diffs, [("comparison", "comparison"), ("difference", "difference ± SE"), ("z_score", "z")], fmts={
+        html.append(_table(diffs, [("comparison", "comparison"), ("difference", "difference ± SE"), ("z_score", "z")],
+                           fmts={
             "comparison": lambda r: escape(str(r["comparison"])),
             "difference": lambda r: escape(fmt.price_se(r.get("difference"), r.get("std_error"))),
             "z_score": lambda r: escape(fmt.zscore(r.get("z_score")))}))
     if v.get("real_world_sample_se") is not None:
-        html.append(f'<p class="note">Real-world SE: the larger of the sample value ({escape(fmt.number(v["real_world_sample_se"]))}) '
+        html.append(f'<p class="note">Real-world SE: the larger of the sample value '
+                    f'({escape(fmt.number(v["real_world_sample_se"]))}) '
                     "and the value implied by the market-consistent set's second moment.</p>")
     html.append(_files(run_dir, ["reconciliation.csv"]))
     ret = _records(_csv(run_dir, "expected_returns"))
@@ -1235,8 +1291,10 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
                                  ("market_consistent", "Q ± SE"), ("real_world", "P ± SE"), ("difference", "P - Q")],
                            fmts={"description": lambda r: escape(str(r["description"])),
                                  "horizon": lambda r: escape(fmt.years(r["horizon"])),
-                                 "market_consistent": lambda r: escape(f"{fmt.percent(r['market_consistent'])} ± {fmt.percent(r['market_consistent_se'])}"),
-                                 "real_world": lambda r: escape(f"{fmt.percent(r['real_world'])} ± {fmt.percent(r['real_world_se'])}"),
+                                 "market_consistent": lambda r: escape(f"{fmt.percent(r['market_consistent'])} ± "
+                                                                       f"{fmt.percent(r['market_consistent_se'])}"),
+                                 "real_world": lambda r: escape(f"{fmt.percent(r['real_world'])} ± "
+                                                                f"{fmt.percent(r['real_world_se'])}"),
                                  "difference": lambda r: escape(fmt.bp_move(r["difference"]))}))
         html.append(_files(run_dir, ["expected_returns.csv"]))
     return "".join(html)
@@ -1244,7 +1302,8 @@ def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
 
 # -- liabilities -------------------------------------------------------------------------------
 
-_LINE_NAME = {"unit_linked_gmmb": "unit-linked with maturity guarantee", "participating": "with-profits (participating)",
+_LINE_NAME = {"unit_linked_gmmb": "unit-linked with maturity guarantee",
+              "participating": "with-profits (participating)",
               "deferred_annuity_gao": "deferred annuity with GAO", "total": "total"}
 
 
@@ -1317,7 +1376,7 @@ def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
                                   ("change", f"change ({cur})"), ("change_se_paired", "SE"),
                                   ("change_se_independent", "SE, independent sets")],
                            fmts={"quantity": lambda r: escape(str(r["quantity"]).replace("_", " ")),
-                                 **{k: (lambda r, k=k: escape(fmt.money(r.get(k))))
+                                 **{k: _money_cell(k)
                                     for k in ("value", "change", "change_se_paired", "change_se_independent")}}))
         be = [r for r in sens if r["quantity"] == "best_estimate"]
         if be:
@@ -1350,7 +1409,8 @@ def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRec
     curve_rows = ""
     if facts["zeros"]:
         curve_rows = ('<table><thead><tr><th class="l">maturity</th>' + "".join(
-            f"<th>{fmt.years(m)}y</th>" for m in facts["zeros"]) + '</tr></thead><tbody><tr><td class="l">zero rate</td>'
+            f"<th>{fmt.years(m)}y</th>" for m in facts["zeros"])
+            + '</tr></thead><tbody><tr><td class="l">zero rate</td>'
             + "".join(_cell(escape(fmt.percent(z))) for z in facts["zeros"].values()) + "</tr></tbody></table>")
     curve_text = facts["method"].split(" (")[0]
     if fmt.is_number(facts["ufr"]):
@@ -1358,9 +1418,10 @@ def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRec
                        f"{fmt.years(facts['llp'])}y, alpha {fmt.number(facts['alpha'], 3)}")
     dens = _densities(summary, manifest)
     dens_table = _table(dens, [("density", "density"), ("block", "block"), ("usable", "usable")],
-                        fmts={k: (lambda r, k=k: escape(str(r[k]))) for k in ("density", "block", "usable")}) if dens else ""
+                        fmts={k: _str_cell(k) for k in ("density", "block",
+                                                                              "usable")}) if dens else ""
     params = _table(_key_parameters(cal), [("part", "part"), ("values", "parameters"), ("fit", "fit error")],
-                    fmts={k: (lambda r, k=k: escape(r[k])) for k in ("part", "values", "fit")})
+                    fmts={k: _text_cell(k) for k in ("part", "values", "fit")})
     html.append(f'<div class="cols"><div><h3>Verdicts</h3>{verdict_table}</div>'
                 f'<div><h3>Today\'s curve</h3><p class="note">{escape(curve_text)}</p>{curve_rows}'
                 f'<h3>Density weights</h3>{dens_table}</div></div>')

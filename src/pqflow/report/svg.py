@@ -17,6 +17,9 @@ import numpy as np
 
 from pqflow.report import numbers
 
+# a run's figures arrive as numpy arrays or plain lists
+Floats = Sequence[float] | np.ndarray
+
 __all__ = [
     "PALETTE",
     "nice_ticks",
@@ -38,8 +41,8 @@ class Series:
     """A line: ``x``, ``y`` of one length; ``dashed`` for reference lines."""
 
     label: str
-    x: Sequence[float]
-    y: Sequence[float]
+    x: Floats
+    y: Floats
     colour: str = PALETTE[0]
     dashed: bool = False
 
@@ -49,9 +52,9 @@ class Band:
     """A filled band between ``lower`` and ``upper`` over ``x``."""
 
     label: str
-    x: Sequence[float]
-    lower: Sequence[float]
-    upper: Sequence[float]
+    x: Floats
+    lower: Floats
+    upper: Floats
     colour: str = PALETTE[0]
     opacity: float = 0.2
 
@@ -148,14 +151,14 @@ def _svg(parts: list[str], title: str, width: int = _W, height: int = _H, data: 
     )
 
 
-def _path(frame: _Frame, x: Sequence[float], y: Sequence[float]) -> str:
-    pts = [(frame.px(float(a)), frame.py(float(b))) for a, b in zip(x, y) if math.isfinite(float(b))]
+def _path(frame: _Frame, x: Floats, y: Floats) -> str:
+    pts = [(frame.px(float(a)), frame.py(float(b))) for a, b in zip(x, y, strict=True) if math.isfinite(float(b))]
     return " ".join(("M" if i == 0 else "L") + f"{a:.1f},{b:.1f}" for i, (a, b) in enumerate(pts))
 
 
-def _polygon(frame: _Frame, x: Sequence[float], lo: Sequence[float], hi: Sequence[float]) -> str:
-    up = [f"{frame.px(float(a)):.1f},{frame.py(float(b)):.1f}" for a, b in zip(x, hi)]
-    dn = [f"{frame.px(float(a)):.1f},{frame.py(float(b)):.1f}" for a, b in zip(x, lo)][::-1]
+def _polygon(frame: _Frame, x: Floats, lo: Floats, hi: Floats) -> str:
+    up = [f"{frame.px(float(a)):.1f},{frame.py(float(b)):.1f}" for a, b in zip(x, hi, strict=True)]
+    dn = [f"{frame.px(float(a)):.1f},{frame.py(float(b)):.1f}" for a, b in zip(x, lo, strict=True)][::-1]
     return " ".join(up + dn)
 
 
@@ -168,7 +171,8 @@ def _legend(frame: _Frame, items: list[tuple[str, str, str]]) -> list[str]:
             out.append(f'<rect x="{x}" y="{y - 8}" width="14" height="9" fill="{colour}" opacity="{opacity}"/>')
         else:
             dash = ' stroke-dasharray="5,3"' if kind == "dash" else ""
-            out.append(f'<line x1="{x}" x2="{x + 14}" y1="{y - 4}" y2="{y - 4}" stroke="{colour}" stroke-width="2"{dash}/>')
+            out.append(f'<line x1="{x}" x2="{x + 14}" y1="{y - 4}" y2="{y - 4}" stroke="{colour}" '
+                       f'stroke-width="2"{dash}/>')
         out.append(f'<text x="{x + 18}" y="{y}" class="legend">{escape(label)}</text>')
         x += 28 + 6.2 * len(label)
         if x > frame.pr - 120:
@@ -196,7 +200,7 @@ def line_chart(
     if y_range is not None and log_y:
         y_range = tuple(math.log10(v) if v > 0 else float("nan") for v in y_range)  # type: ignore[assignment]
     if log_y:
-        def lg(v: Sequence[float]) -> list[float]:
+        def lg(v: Floats) -> list[float]:
             return [math.log10(float(a)) if float(a) > 0 else float("nan") for a in v]
 
         series = [Series(label=s.label, x=s.x, y=lg(s.y), colour=s.colour, dashed=s.dashed) for s in series]
@@ -239,8 +243,8 @@ def line_chart(
 def fan_chart(
     *,
     title: str,
-    times: Sequence[float],
-    percentiles: dict[float, Sequence[float]],
+    times: Floats,
+    percentiles: dict[float, Floats],
     colour: str = PALETTE[0],
     y_label: str = "",
     y_format: Callable[[float], str] = _fmt_default,
@@ -266,8 +270,8 @@ def bar_chart(
     *,
     title: str,
     labels: Sequence[str],
-    values: Sequence[float],
-    errors: Sequence[float] | None = None,
+    values: Floats,
+    errors: Floats | None = None,
     y_label: str = "",
     tolerance: float | None = None,
     colour: str = PALETTE[0],
@@ -298,7 +302,7 @@ def bar_chart(
     zero = f.py(0.0)
     parts.append(f'<line x1="{f.pl}" x2="{f.pr}" y1="{zero:.1f}" y2="{zero:.1f}" stroke="#666"/>')
     slot = (f.pr - f.pl) / n
-    for i, (v, e, label) in enumerate(zip(vals, errs, labels)):
+    for i, (v, e, label) in enumerate(zip(vals, errs, labels, strict=True)):
         x = f.pl + i * slot + slot * 0.15
         w = slot * 0.7
         top, bottom = sorted((f.py(v), zero))
@@ -320,8 +324,8 @@ def waterfall_chart(
     start_label: str,
     start: float,
     labels: Sequence[str],
-    deltas: Sequence[float],
-    errors: Sequence[float] | None = None,
+    deltas: Floats,
+    errors: Floats | None = None,
     end_label: str = "end",
     y_label: str = "",
     y_format: Callable[[float], str] = _fmt_default,
@@ -333,8 +337,8 @@ def waterfall_chart(
     for d in vals:
         running.append(running[-1] + d)
     errs = [float(e) for e in errors] if errors is not None else [0.0] * len(vals)
-    lo = min(running + [r - e for r, e in zip(running[1:], errs)])
-    hi = max(running + [r + e for r, e in zip(running[1:], errs)])
+    lo = min(running + [r - e for r, e in zip(running[1:], errs, strict=True)])
+    hi = max(running + [r + e for r, e in zip(running[1:], errs, strict=True)])
     pad = 0.15 * (hi - lo or abs(hi) or 1.0)
     n = len(vals) + 2
     height = _H + 60

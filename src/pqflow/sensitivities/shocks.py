@@ -46,7 +46,8 @@ def relative_shift_function(path: Path) -> Callable[[np.ndarray], np.ndarray]:
     header, rows = read_csv_table(path)
     if header[:2] != ["maturity_years", "relative_shift"] or len(header) != 2:
         raise MarketDataError(f"{path}: the header must be 'maturity_years,relative_shift' (is {','.join(header)})")
-    t, s = [], []
+    t: list[float] = []
+    s: list[float] = []
     for k, row in enumerate(rows, start=1):
         where = f"{path}, data row {k}"
         if len(row) != 2:
@@ -139,7 +140,8 @@ class _Shocker:
 
     # -- the other files -------------------------------------------------------------------
 
-    def column(self, header: list[str], rows: list[list[str]], col: str, change: Callable[[float], float], key: str) -> list[list[str]]:
+    def column(self, header: list[str], rows: list[list[str]], col: str, change: Callable[[float], float],
+               key: str) -> list[list[str]]:
         if col not in header:
             return rows
         i = header.index(col)
@@ -161,12 +163,17 @@ class _Shocker:
             if "normal_vol_bp" not in header:
                 raise ConfigError(
                     f"sensitivity {s.name!r}: swaption_vol_shift_bp shifts normal volatility quotes, but {source} "
-                    f"quotes {next((c for c in _SWAPTION_VOLS if c in header), 'no volatility')}; use swaption_vol_relative"
+                    f"quotes {next((c for c in _SWAPTION_VOLS if c in header), 'no volatility')}; use "
+                    f"swaption_vol_relative"
                 )
-            rows = self.column(header, rows, "normal_vol_bp", lambda v: v + s.swaption_vol_shift_bp, "swaption_vol_shift_bp")
+            shift_bp = s.swaption_vol_shift_bp
+            rows = self.column(header, rows, "normal_vol_bp", lambda v: v + shift_bp,
+                               "swaption_vol_shift_bp")
         if s.swaption_vol_relative is not None:
+            relative = s.swaption_vol_relative
             for col in _SWAPTION_VOLS:
-                rows = self.column(header, rows, col, lambda v: v * (1.0 + s.swaption_vol_relative), "swaption_vol_relative")
+                rows = self.column(header, rows, col, lambda v: v * (1.0 + relative),
+                                   "swaption_vol_relative")
         return rows
 
 
@@ -183,7 +190,8 @@ def shocked_config(config: RunConfig, sens: SensitivitySection, set_dir: str | P
     spread = sens.credit_spread_shift_bp
     for kind in list(md):
         path = config.market_file(kind)
-        assert path is not None
+        if path is None:
+            raise ConfigError(f"market_data.{kind}: no file given")
         if not path.is_file():
             raise MarketDataError(f"{path}: market-data file not found (market_data.{kind})")
         header, rows = read_csv_table(path)
@@ -194,7 +202,8 @@ def shocked_config(config: RunConfig, sens: SensitivitySection, set_dir: str | P
         elif kind == "equity_vols" and points is not None:
             rows = shock.column(header, rows, "implied_vol", lambda v: v + points / 100.0, "equity_vol_shift_points")
         elif kind == "equity_index" and level is not None:
-            rows = shock.column(header, rows, "spot_level", lambda v: v * (1.0 + level / 100.0), "index_level_shift_pct")
+            rows = shock.column(header, rows, "spot_level", lambda v: v * (1.0 + level / 100.0),
+                                "index_level_shift_pct")
         elif kind == "credit_spreads" and spread is not None:
             rows = shock.column(header, rows, "spread_bp", lambda v: v + spread, "credit_spread_shift_bp")
         name = f"{kind}.csv"

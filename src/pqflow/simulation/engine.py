@@ -287,12 +287,14 @@ def simulate_states(
         states, density = ws.array("states", (d, n_paths, n_times)), ws.array("density", (n_paths, n_times))
     states[:, :, 0] = mean[0][:, None]
     density[:, 0] = 1.0
-    block_density = None
+    block_density: np.ndarray | None = None
+    blocks = np.empty((0, 0, 0))  # the restricted densities' array, written only when there are some
     if nb:
-        block_density = (
+        blocks = (
             np.empty((nb, n_paths, n_times)) if workspace is None else ws.array("block_density", (nb, n_paths, n_times))
         )
-        block_density[:, :, 0] = 1.0
+        blocks[:, :, 0] = 1.0
+        block_density = blocks
         lin_b = ws.array("lin_b", (_BLOCK + 1, nb, n))  # running sums of -/+ g_j . z_j per block
         out_wb = ws.array("out_wb", (_BLOCK, nb, n))
         lin_b[0] = 0.0
@@ -338,11 +340,11 @@ def simulate_states(
             hb_blk = half_sq_b[cols][:, :, None]
             np.subtract(lbb[1:], hb_blk, out=wbb)
             np.exp(wbb, out=wbb)
-            block_density[:, even, cols] = wbb.transpose(1, 2, 0)
+            blocks[:, even, cols] = wbb.transpose(1, 2, 0)
             if antithetic:
                 np.subtract(-hb_blk, lbb[1:], out=wbb)
                 np.exp(wbb, out=wbb)
-                block_density[:, 1::2, cols] = wbb.transpose(1, 2, 0)
+                blocks[:, 1::2, cols] = wbb.transpose(1, 2, 0)
             lin_b[0] = lbb[b]
         y[0] = yb[b]
         lin[0] = lb[b]

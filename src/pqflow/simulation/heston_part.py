@@ -93,7 +93,8 @@ def rates_driver_increments(model, times: np.ndarray, cols: dict[str, np.ndarray
         raise ValueError(f"the rates driver's increments are not recovered under {rates.label} rates (Hull-White only)")
     a, sigma = rates.mean_reversion, rates.volatility
     x = cols["short_rate"] - alpha(model.curve, rates, times)[None, :]
-    integ = np.log(cols["cash_account"]) + np.log(model.curve.discount(times))[None, :] - 0.5 * integrated_variance(rates, times)[None, :]
+    integ = (np.log(cols["cash_account"]) + np.log(model.curve.discount(times))[None, :]
+             - 0.5 * integrated_variance(rates, times)[None, :])
     inc = (np.diff(x, axis=1) + a * np.diff(integ, axis=1)) / sigma
     if measure == "real_world":
         lam = as_schedule(model.prices_of_risk.get(RATES_DRIVER, 0.0))

@@ -120,17 +120,19 @@ def simulate_part(
     missing = [m for m in credit.bond_maturities if bond_column(m) not in cols]
     if missing:
         raise ValueError(f"credit bonds need the risk-free bonds {missing} among the output columns")
-    paths = simulate_credit(
+    credit_paths = simulate_credit(
         credit, times, credit_generator(seed, measure, batch), measure=measure, n_paths=n_paths,
         substeps=credit_substeps(np.asarray(times, dtype=float), credit_substeps_per_year),
         risk_free={m: cols[bond_column(m)] for m in credit.bond_maturities},
     )
-    cols.update(paths.columns)
+    cols.update(credit_paths.columns)
     for name, (_, ratings) in layout.items():
         if ratings:
+            if credit_paths.rating_density is None:
+                raise RuntimeError("simulate_credit gives each rating's own density; none came back")
             column = density_block_column(measure, name)
-            cols[column] = cols[column] * np.prod(paths.rating_density[list(ratings)], axis=0)
-    cols[density] = cols[density] * paths.density
+            cols[column] = cols[column] * np.prod(credit_paths.rating_density[list(ratings)], axis=0)
+    cols[density] = cols[density] * credit_paths.density
     cols["deflator"] = deflator(measure, cols[density], cols["cash_account"])
     return cols
 

@@ -72,7 +72,8 @@ def parse_scenario_range(text: str | None) -> tuple[int | None, int | None]:
         )
     first = int(m.group(1)) if m.group(1) else None
     if not m.group(2):
-        assert first is not None
+        if first is None:
+            raise ExportError(f"--scenarios {text!r}: give FIRST, FIRST:STOP, FIRST: or :STOP")
         return first, first + 1
     stop = int(m.group(3)) if m.group(3) else None
     if first is not None and stop is not None and stop <= first:
@@ -93,7 +94,7 @@ def _scenario_span(path: Path) -> tuple[int, int]:
             return int(pc.min(col).as_py()), int(pc.max(col).as_py())
         lo = stats.min if lo is None else min(lo, stats.min)
         hi = stats.max if hi is None else max(hi, stats.max)
-    if lo is None:
+    if lo is None or hi is None:
         return 0, -1
     return int(lo), int(hi)
 
@@ -157,7 +158,7 @@ class _Sink:
         return open(self.tmp, "wb")
 
     def commit(self) -> None:
-        if self.tmp is not None:
+        if self.tmp is not None and self.final is not None:
             os.replace(self.tmp, self.final)
 
     def abort(self) -> None:
@@ -223,7 +224,8 @@ def export_slice(
         try:
             if fmt == "csv":
                 writer: Any = pacsv.CSVWriter(
-                    fh, out_schema.remove_metadata(), write_options=pacsv.WriteOptions(include_header=True, quoting_header="none")
+                    fh, out_schema.remove_metadata(), write_options=pacsv.WriteOptions(include_header=True,
+                                                                                       quoting_header="none")
                 )
             else:
                 kwargs = parquet_write_kwargs(out_schema)

@@ -125,7 +125,8 @@ def check_remote_target(target: OutputTarget, overwrite: bool) -> None:
     """The rules of a local target: refuse a prefix that holds files unless ``overwrite`` and it
     holds a pqflow run (a manifest)."""
     fs = target.filesystem
-    assert fs is not None
+    if fs is None:
+        raise RuntimeError(f"{target!r} is not a remote target (no filesystem)")
     kind = _info(fs, target.path).type
     if kind == pafs.FileType.File:
         raise RunDirectoryError(f"{target.text} exists and is a file, not a folder")
@@ -178,7 +179,8 @@ def verify_target(target: OutputTarget) -> dict[str, Any]:
 
         return verify_run(target.local)
     fs = target.filesystem
-    assert fs is not None
+    if fs is None:
+        raise RuntimeError(f"{target!r} is neither local nor remote (no filesystem)")
     mpath = target.join(_MANIFEST)
     if _info(fs, mpath).type != pafs.FileType.File:
         raise IntegrityError(f"{target.text}: no {_MANIFEST}; not a finished pqflow run")

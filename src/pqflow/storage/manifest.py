@@ -67,7 +67,8 @@ def _entry_problem(root: Path, index: int, entry: Any) -> str | None:
         return f"files[{index}].path is missing or not text"
     pure = PurePosixPath(rel)
     if pure.is_absolute() or "\\" in rel or ":" in pure.parts[0] or ".." in pure.parts:
-        return f"files[{index}].path {rel!r} is not a relative path inside the run (absolute paths and '..' are refused)"
+        return (f"files[{index}].path {rel!r} is not a relative path inside the run "
+                "(absolute paths and '..' are refused)")
     resolved = (root / rel).resolve()
     if resolved != root.resolve() and root.resolve() not in resolved.parents:
         return f"files[{index}].path {rel!r} leads outside the run (a link?)"

@@ -277,10 +277,12 @@ def prepare_staging(
     and the outputs of later steps (validation, manifest), which are cheap to recompute.
     ``staging`` overrides the folder's location (used for targets that are not local paths).
     """
-    out_path = Path(out).absolute() if staging is None else None
-    if out_path is not None:
+    if staging is None:
+        out_path = Path(out).absolute()
         check_target(out_path, overwrite)
-    folder = staging_path(out_path) if staging is None else Path(staging).absolute()
+        folder = staging_path(out_path)
+    else:
+        folder = Path(staging).absolute()
     folder.parent.mkdir(parents=True, exist_ok=True)
     header, records = _read_progress(folder) if folder.is_dir() else (None, [])
     if not resume or header is None:

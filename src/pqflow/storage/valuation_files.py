@@ -63,7 +63,8 @@ def check_valuation_target(out: str | Path, overwrite: bool) -> None:
             "only once the new valuation has succeeded) or choose another --out"
         )
     if not ((out / VALUATION_MANIFEST).is_file() or (out / "summary.json").is_file()):
-        raise RunDirectoryError(f"{out} holds files that are not pqflow valuation results; pqflow will not overwrite it")
+        raise RunDirectoryError(f"{out} holds files that are not pqflow valuation results; "
+                                "pqflow will not overwrite it")
 
 
 def fresh_valuation_staging(out: str | Path) -> Path:
@@ -75,7 +76,8 @@ def fresh_valuation_staging(out: str | Path) -> Path:
     return staging
 
 
-def publish_valuation_files(staging: str | Path, out: str | Path, *, header: dict[str, Any], overwrite: bool) -> dict[str, Any]:
+def publish_valuation_files(staging: str | Path, out: str | Path, *, header: dict[str, Any],
+                            overwrite: bool) -> dict[str, Any]:
     """Write the valuation manifest into ``staging`` (every file with bytes and sha256), then
     publish it to ``out`` by rename; returns the manifest."""
     staging = Path(staging)

@@ -43,6 +43,7 @@ from __future__ import annotations
 import re
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -166,7 +167,7 @@ def credit_assets(inputs: RunInputs, columns: Sequence[str]) -> list[MartingaleA
         bond = defaultable_bond_of(c)
         if bond is not None:
             bonds.append((*bond, c))
-    cumulative = [m.group("r") for c in columns if (m := _CUMULATIVE.match(c))]
+    cumulative = [hit.group("r") for c in columns if (hit := _CUMULATIVE.match(c))]
     if not bonds and not cumulative:
         return []
     ratings = _ratings(inputs)

@@ -128,7 +128,7 @@ def usable_horizons(measure: str, table: pd.DataFrame, ess_warning_share: float)
         out.append({
             "measure": measure,
             "column": column,
-            "block": density_block(column),
+            "block": density_block(str(column)),
             "usable_horizon": float(low["time"].iloc[0]) if len(low) else None,
             "ess_share_at_horizon": float(last["ess_share"]),
             "max_weight_share_at_horizon": float(last["max_weight_share"]),

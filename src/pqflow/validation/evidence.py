@@ -101,9 +101,10 @@ def density_budget_for_run(inputs) -> tuple[pd.DataFrame | None, dict[str, dict[
         grids[measure], _ = inputs.reader(measure).head()
     table = density_budget(model, cal.credit, grids)
     at_horizon: dict[str, dict[str, float]] = {}
-    for measure, rows in table.groupby("measure", sort=False):
+    for measure_key, rows in table.groupby("measure", sort=False):
         last = rows[rows["time"] == rows["time"].max()]
-        at_horizon[str(measure)] = {str(r.price_of_risk): float(r.share) for r in last.itertuples(index=False)}
+        at_horizon[str(measure_key)] = {str(p): float(v) for p, v in zip(last["price_of_risk"],
+                                                                      last["share"].to_numpy(dtype=float), strict=True)}
     return table, at_horizon
 
 

@@ -61,7 +61,8 @@ tolerance (a check that forgives 5 bp must at least see 10 bp); for a quote give
 of notional and 10% of the premium. In price it is that premium share, or the smaller of the
 price moves of the quote for its volatility up and down by the material amount (the harder
 side: deep out of the money a price moves less down than up). The quote cell's test only sees
-what exceeds its tolerance, so its effect is ``material - tolerance`` in price and its standard error the Monte Carlo one: the cell is
+what exceeds its tolerance, so its effect is ``material - tolerance`` in price and its standard
+error the Monte Carlo one: the cell is
 inconclusive when ``(material - tolerance) / SE < z_f`` (columns ``material_effect`` and
 ``statistic_se``); the model-price cell has no tolerance, effect ``material``. A cell whose
 payoff is non-zero on fewer than :data:`MIN_PAYING_UNITS` sampling units (an antithetic pair is
@@ -166,7 +167,8 @@ def _bond(k: float) -> str:
     return bond_column(k)
 
 
-def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option, shift) -> tuple[float | None, str | None]:
+def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option, shift) -> tuple[float | None,
+                                                                                                  str | None]:
     """The quote's price from its volatility, and a note when a stated price disagrees."""
     vol = _num(spec.get("market_vol"))
     stated = _num(spec.get("market_price"))
@@ -270,9 +272,9 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
         if "cpi" not in columns:
             reason = "not testable from the files (missing cpi)"
         else:
-            missing = [i for i in range(n + 1) if time_index(times, float(i)) is None]
-            if missing:
-                reason = f"not testable from the files (years {missing[:3]} are not output times)"
+            off_grid = [i for i in range(n + 1) if time_index(times, float(i)) is None]
+            if off_grid:
+                reason = f"not testable from the files (years {off_grid[:3]} are not output times)"
         out.append(InstrumentSpec(
             label=label, kind="yoy_option", option=option, expiry=float(n), strike=strike,
             convention="premium", shift=0.0, tenor=None, index=None, forward=None, annuity=None,
@@ -305,14 +307,17 @@ def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.
     for j, s in enumerate(specs):
         deflator = cols["deflator"] if deflators is None else deflators[j]
         k = time_index(times, s.expiry)
-        assert k is not None
+        if k is None:
+            raise RuntimeError(f"instrument expiry {s.expiry:g} is not an output time (a testable instrument must be)")
         if s.kind == "yoy_option":  # annual caplets tau (I_i / I_{i-1} - 1 - K)^+ paid at i, tau = 1
             cpi = cols["cpi"]
             w = 1.0 if s.option == "cap" else -1.0
             ks = [time_index(times, float(i)) for i in range(int(round(s.expiry)) + 1)]
             total = np.zeros(deflator.shape[0])
-            for k0, k1 in zip(ks[:-1], ks[1:]):
-                assert k0 is not None and k1 is not None
+            for k0, k1 in zip(ks[:-1], ks[1:], strict=True):
+                if k0 is None or k1 is None:
+                    raise RuntimeError(f"a caplet date of the {s.expiry:g}-year cap is not an output time "
+                                       "(a testable cap has all of them)")
                 total += deflator[:, k1] * np.maximum(w * (cpi[:, k1] / cpi[:, k0] - 1.0 - s.strike), 0.0)
             out[:, j] = total
             continue
@@ -334,10 +339,11 @@ def _vega(s: InstrumentSpec) -> float | None:
     if s.market_vol is None or s.forward is None or s.annuity is None:
         return None
     h = max(1e-6, 1e-4 * s.market_vol)
-    args = dict(annuity=s.annuity, kind=s.option, shift=s.shift)
     lo = max(s.market_vol - h, 0.0)
-    up = float(option_price(s.convention, s.forward, s.strike, s.market_vol + h, s.expiry, **args))
-    dn = float(option_price(s.convention, s.forward, s.strike, lo, s.expiry, **args))
+    up = float(option_price(s.convention, s.forward, s.strike, s.market_vol + h, s.expiry,
+                            annuity=s.annuity, kind=s.option, shift=s.shift))
+    dn = float(option_price(s.convention, s.forward, s.strike, lo, s.expiry,
+                            annuity=s.annuity, kind=s.option, shift=s.shift))
     return (up - dn) / (s.market_vol + h - lo)
 
 
@@ -355,11 +361,14 @@ def _material_price(s: InstrumentSpec, vega: float | None, tol: dict[str, float]
     """The material deviation in price (module docstring), ``None`` without a price to scale."""
     if vega is not None and s.kind != "yoy_option":
         vol = max(MATERIAL_VOL.get(s.convention, MATERIAL_VOL["lognormal"]), 2.0 * tol.get(s.convention, 0.0))
-        assert s.market_vol is not None and s.forward is not None
-        args = dict(annuity=s.annuity, kind=s.option, shift=s.shift)
-        at = float(option_price(s.convention, s.forward, s.strike, s.market_vol, s.expiry, **args))
-        moves = [abs(float(option_price(s.convention, s.forward, s.strike, v, s.expiry, **args)) - at)
-                 for v in (s.market_vol + vol, s.market_vol - vol) if v > 0]
+        if s.market_vol is None or s.forward is None or s.annuity is None:
+            raise RuntimeError("an instrument with a vega has a market volatility, a forward and an annuity")
+        fwd, ann, market_vol = s.forward, s.annuity, s.market_vol
+        at = float(option_price(s.convention, fwd, s.strike, market_vol, s.expiry, annuity=ann, kind=s.option,
+                                shift=s.shift))
+        moves = [abs(float(option_price(s.convention, fwd, s.strike, v, s.expiry, annuity=ann, kind=s.option,
+                                        shift=s.shift)) - at)
+                 for v in (market_vol + vol, market_vol - vol) if v > 0]
         return min(moves) if moves else abs(vega) * vol  # the harder side of a vol move
     price = s.market_price if s.market_price is not None else s.model_price
     if price is None:

@@ -30,7 +30,7 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
-from pqflow.errors import IntegrityError
+from pqflow.errors import IntegrityError, RunDirectoryError
 from pqflow.measure.blocks import CREDIT_PREFIX, column_drivers, density_factors
 from pqflow.storage.names import bond_maturity_of, density_block_column, index_columns
 from pqflow.storage.scenario_set import ScenarioSet, SetPass
@@ -41,6 +41,18 @@ from pqflow.validation.run_files import run_steps
 __all__ = ["martingale_table", "martingale_steps", "restricted_blocks", "LEVELS"]
 
 LEVELS = (0.95, 0.99)
+
+
+def _column_value(c: str) -> Callable[[dict[str, np.ndarray]], np.ndarray]:
+    return lambda cols: cols[c]
+
+
+def _bond_reference(discount: Callable[[np.ndarray], np.ndarray], m: float) -> Callable[[np.ndarray], np.ndarray]:
+    return lambda t: np.asarray(discount(np.asarray(t) + m))
+
+
+def _level_reference(start: dict[str, float], c: str) -> Callable[[np.ndarray], np.ndarray]:
+    return lambda t: np.full(np.shape(t), start[c])
 
 
 def _builtin_assets(names: list[str], discount: Callable[[np.ndarray], np.ndarray],
@@ -57,15 +69,15 @@ def _builtin_assets(names: list[str], discount: Callable[[np.ndarray], np.ndarra
             continue
         assets.append(MartingaleAsset(
             name=c, description=f"zero bond, {m:g} years to run", columns=(c,),
-            value=lambda cols, c=c: cols[c],
-            reference=lambda t, m=m: np.asarray(discount(np.asarray(t) + m)),
+            value=_column_value(c),
+            reference=_bond_reference(discount, m),
         ))
     for c in index_columns(names):
         kind = c.split("_", 1)[0]
         assets.append(MartingaleAsset(
             name=c, description=f"{kind} total-return index", columns=(c,),
-            value=lambda cols, c=c: cols[c],
-            reference=lambda t, c=c: np.full(np.shape(t), start[c]),
+            value=_column_value(c),
+            reference=_level_reference(start, c),
         ))
     return assets
 
@@ -198,7 +210,8 @@ def martingale_steps(
     rows = []
     for a in assets:
         moments = acc[a.name]
-        assert moments is not None
+        if moments is None:
+            raise RuntimeError(f"no moments accumulated for asset {a.name!r} although parts were read")
         ref = np.asarray(a.reference(times), dtype=float)
         factors = weights[a.name]
         if factors:  # a restricted density: lognormal unless a credit or Heston block is among its factors

@@ -145,9 +145,8 @@ def wealth_ratio_benchmark(
         "comparisons": int(len(frame)),
         "failed": int(len(failed)),
         "failed_cells": [
-            {"horizon": float(r.horizon), "percentile": float(r.percentile),
-             "model": float(r.model), "benchmark": float(r.benchmark)}
-            for r in failed.itertuples(index=False)
+            {"horizon": float(h), "percentile": float(p), "model": float(m), "benchmark": float(b)}
+            for h, p, m, b in failed[["horizon", "percentile", "model", "benchmark"]].to_numpy(dtype=float)
         ],
         "verdict": "not_applicable" if not len(frame) else ("pass" if not len(failed) else "fail"),
         "rule": "left-tail model percentiles at or below the table, right-tail at or above",
@@ -165,7 +164,8 @@ def real_world_statistics(inputs: RunInputs) -> tuple[pd.DataFrame, pd.DataFrame
     """Report tables for both sets: pooled annual moments, and percentiles by horizon.
 
     Only whole-year output times are read. The first table has one row per (measure,
-    statistic); the second one row per (measure, quantity, horizon) with the mean and the percentiles :data:`PERCENTILES` (unweighted: the
+    statistic); the second one row per (measure, quantity, horizon) with the mean and the
+    percentiles :data:`PERCENTILES` (unweighted: the
     distribution of each set under its own measure).
     """
     passes = set_passes(inputs)
@@ -220,7 +220,7 @@ def real_world_statistics_steps(
             for q_name, values in quantities.items():
                 v = values[:, k]
                 row = {"measure": measure, "quantity": q_name, "horizon": h, "mean": float(v.mean())}
-                for p, x in zip(PERCENTILES, np.percentile(v, PERCENTILES)):
+                for p, x in zip(PERCENTILES, np.percentile(v, PERCENTILES), strict=True):
                     row[f"p{p:g}"] = float(x)
                 pct_rows.append(row)
     return pd.DataFrame(stats_rows), pd.DataFrame(pct_rows)
@@ -283,7 +283,7 @@ def _heston_premia(inputs: RunInputs) -> dict[str, Any]:
         specs = heston_from_json(dict(_record(inputs).stochastic_volatility))
     except (KeyError, TypeError, ValueError):
         return {}
-    out = {}
+    out: dict[str, Any] = {}
     for spec in specs.values():
         if spec.loadings:  # premium sqrt(v) mu(t) + s lambda v: no closed form, not tested
             out[spec.column] = None
@@ -369,7 +369,7 @@ def real_world_steps(
     target_rows = []
     esr = _record(inputs).expected_short_rate
     skipped = []
-    for t, target in zip(esr.get("time", []) or [], esr.get("real_world", []) or []):
+    for t, target in zip(esr.get("time", []) or [], esr.get("real_world", []) or [], strict=True):
         k = time_index(times, float(t))
         if k == 0:
             continue
@@ -424,8 +424,9 @@ def real_world_steps(
               "real_world_percentiles": pct}
 
     # Gross wealth ratios at the benchmark's horizons, from the real-world set (unweighted).
-    bench_frame, bench = pd.DataFrame(), {"verdict": "not_applicable", "source": AAA_SOURCE,
-                                          "warnings": ["no equity index in the files"]}
+    bench_frame = pd.DataFrame()
+    bench: dict[str, Any] = {"verdict": "not_applicable", "source": AAA_SOURCE,
+                             "warnings": ["no equity index in the files"]}
     if e_col is not None:
         assert wealth_core is not None and wealth_all is not None
         wt, wdata = wealth_core()
@@ -483,6 +484,7 @@ def real_world_steps(
         entry["warnings"].append("no constant equity_risk_premium in calibration inputs: not tested")
     for col in untested:
         entry["warnings"].append(
-            f"risk premium of Heston index {col}: sqrt(v) mu(t) + s lambda v has no closed-form expectation, not tested")
+            f"risk premium of Heston index {col}: sqrt(v) mu(t) + s lambda v has no closed-form expectation, "
+            "not tested")
     entry["statistics"] = {r["statistic"] + f" ({r['measure']})": r["value"] for r in stats.to_dict("records")}
     return CheckResult(name=CHECK, summary=entry, tables=tables)

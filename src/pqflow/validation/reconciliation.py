@@ -288,7 +288,8 @@ def expected_returns_steps(
             for a in assets:
                 if a in bonds:
                     m = bond_maturity_of(a)
-                    assert m is not None
+                    if m is None:
+                        raise RuntimeError(f"{a!r} was listed as a bond column but names no maturity")
                     if h + m > inputs.curve.max_maturity:
                         continue
                     a0 = float(inputs.curve.discount(h + m))
@@ -316,6 +317,13 @@ def expected_returns_steps(
             "real_world": p, "real_world_se": p_se, "difference": p - q,
         })
     return pd.DataFrame(rows)
+
+
+def _relative_to_start(
+    relative: list[str], assets: list[str]
+) -> Callable[[np.ndarray, dict[str, np.ndarray]], dict[str, np.ndarray]]:
+    """Each asset per path, the ``relative`` ones divided by their own start value (A_h / A_0)."""
+    return lambda t, c: {a: c[a] / (c[a][:, :1] if a in relative else 1.0) for a in assets}
 
 
 def reconciliation_check(
@@ -357,7 +365,8 @@ def reconciliation_steps(
     scale = abs(cf) if cf is not None else abs(q)
     paying = {m: values[f"{m}_paying_units"] for m in ("market_consistent", "real_world")}
     both_sets = min(paying.values())
-    cells["paying_units"] = ([paying["market_consistent"], paying["real_world"]] if cf is not None else []) + [both_sets]
+    cells["paying_units"] = ([paying["market_consistent"], paying["real_world"]] if cf is not None
+                             else []) + [both_sets]
     judged = (cells["paying_units"] >= MIN_PAYING_UNITS) & (cells["std_error"] > 0)
     cells["z_normal_approximation"] = cells["z_score"]
     cells["z_score"] = np.where(judged, cells["z_score"], 0.0)
@@ -372,7 +381,8 @@ def reconciliation_steps(
                         deviation=MATERIAL_SHARE)
     entry["paying_units"] = paying
     if cf is None:
-        entry["warnings"].append("no closed form: calibration.json has no rates (Hull-White or G2++) and equity parameters")
+        entry["warnings"].append("no closed form: calibration.json has no rates (Hull-White or G2++) and equity "
+                                 "parameters")
     entry["guarantee"] = {
         "product": "unit-linked maturity guarantee: put on the equity total-return index",
         "maturity": values["maturity"], "guaranteed_amount": values["guarantee"],

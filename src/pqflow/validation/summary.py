@@ -93,7 +93,7 @@ def cells_summary(table: pd.DataFrame, label_cols: list[str], *, deviation: floa
     n = int(len(table))
     z = table["z_score"].abs()
     crit = family_critical_z(n)
-    worst = table.loc[z.idxmax()] if n else None
+    worst = table.loc[z.idxmax()] if n else None  # type: ignore[call-overload]  # pandas-stubs: .loc refuses idxmax's Hashable label
     weak = inconclusive_mask(table, crit)
     failed = n > 0 and float(z.max()) > crit
     from_time = None
@@ -106,7 +106,8 @@ def cells_summary(table: pd.DataFrame, label_cols: list[str], *, deviation: floa
         "outside_99": int((z > norm.ppf(0.995)).sum()),
         "expected_outside_99_by_chance": 0.01 * n,
         "max_abs_z": float(z.max()) if n else 0.0,
-        "worst_cell": {c: (worst[c].item() if hasattr(worst[c], "item") else worst[c]) for c in label_cols} if n else None,
+        "worst_cell": {c: (worst[c].item() if hasattr(worst[c], "item") else worst[c]) for c in label_cols}
+        if worst is not None else None,
         "family_level": 1.0 - FAMILY_ALPHA,
         "family_critical_z": crit,
         "verdict": "fail" if failed else ("inconclusive" if weak.any() else "pass"),
