@@ -103,7 +103,8 @@ def _parameters(real_world_vol) -> dict:
                            "kappa_real_world": lam.kappa_real_world, "theta_real_world": lam.theta_real_world}}}}
 
 
-@pytest.mark.parametrize("real_world_vol", [None, 0.20, 0.15], ids=["demo_smile", "house_view_20pct", "house_view_15pct"])
+@pytest.mark.parametrize("real_world_vol", [None, 0.20, 0.15],
+                         ids=["demo_smile", "house_view_20pct", "house_view_15pct"])
 def test_size_and_power_on_heston_densities(real_world_vol, report_statistic) -> None:
     """Size: the share of correct families with a false alarm, for both rules; the rule the
     density check uses for a Heston density must stay within the family level (plus 3 binomial
@@ -111,6 +112,7 @@ def test_size_and_power_on_heston_densities(real_world_vol, report_statistic) ->
     are inconclusive and pass; a conclusive cell with a material (10%) deviation passes at most
     half the time (the power rule's promise)."""
     lam = _prices(real_world_vol)
+    label = "demo_smile fit" if real_world_vol is None else f"real-world long-run vol {real_world_vol:.0%}"
     limit = FAMILY_ALPHA + 3.0 * np.sqrt(FAMILY_ALPHA * (1.0 - FAMILY_ALPHA) / FAMILIES)
     chunks = [_densities(real_world_vol, seed=100 + c, families=CHUNK) for c in range(FAMILIES // CHUNK)]
     rate = {}
@@ -119,7 +121,7 @@ def test_size_and_power_on_heston_densities(real_world_vol, report_statistic) ->
         rate[rule] = float(np.concatenate(alarms).mean())
     used = rule_for_density("q_density", credit_density=False, heston_drivers=("veldmark_all_share",))
     line = report_statistic(
-        f"Heston density ({'demo_smile fit' if real_world_vol is None else f'real-world long-run vol {real_world_vol:.0%}'}; "
+        f"Heston density ({label}; "
         f"prices of risk {lam.equity:.2f}, {lam.variance:.2f}), {FAMILIES} families of {YEARS} yearly cells, "
         f"{PAIRS} pairs: false alarms lognormal identity {rate[LOGNORMAL]:.3f}, robust t {rate[ROBUST]:.3f} "
         f"(nominal {FAMILY_ALPHA:.2f}, limit {limit:.3f}); the check uses the {used}")
@@ -145,7 +147,7 @@ def test_size_and_power_on_heston_densities(real_world_vol, report_statistic) ->
         failed, weak = _verdicts(bias * x, ROBUST)
         passed = ~failed & ~weak
         line = report_statistic(
-            f"power of the robust t on Heston densities ({'demo_smile' if real_world_vol is None else f'vol {real_world_vol:.0%}'}), "
+            f"power of the robust t on Heston densities ({label}), "
             f"mean x {bias:.2f}: fail {failed.mean():.3f}, inconclusive {weak.mean():.3f}, pass {passed.mean():.3f}")
         conclusive = ~weak
         if conclusive.sum() >= 50:

@@ -611,7 +611,8 @@ def _print_fit(record: CalibrationRecord) -> None:
         )
     corr = record.part_fit("correlation")
     if corr.get("repaired"):
-        console.print(f"correlation matrix repaired (Higham 2002), Frobenius distance {fmt.number(corr['frobenius_distance'])}", style="yellow")
+        console.print("correlation matrix repaired (Higham 2002), Frobenius distance "
+                      f"{fmt.number(corr['frobenius_distance'])}", style="yellow")
     paths = record.expected_short_rate
     if paths:
         target = paths.get("target")

@@ -175,7 +175,9 @@ class Calibration:
                 "quantity": target if target == "short_rate" else f"zero yield, {maturity:g} years (continuous)",
                 "time": top_t.tolist(),
                 "house_view": target_path(view["start"], view["long_run_level"], view["speed"], top_t).tolist(),
-                "real_world": model_target_value(self.curve, rates, top_t, mean_p, target=target, maturity=maturity).tolist(),
+                "real_world": model_target_value(
+                    self.curve, rates, top_t, mean_p, target=target, maturity=maturity
+                ).tolist(),
                 "market_consistent": model_target_value(
                     self.curve, rates, top_t, self._zero_factor_mean(top_t), target=target, maturity=maturity
                 ).tolist(),

@@ -71,7 +71,10 @@ def curve_only_calibration(base: Calibration, config: RunConfig) -> Calibration:
 
 
 #: The closed-form swaption price of each rates model, by its key (Jamshidian's decomposition, G2++'s integral).
-_SWAPTION_PRICE: dict[str, Callable[..., float]] = {"hull_white": hull_white_swaption_price, "g2pp": g2pp_swaption_price}
+_SWAPTION_PRICE: dict[str, Callable[..., float]] = {
+    "hull_white": hull_white_swaption_price,
+    "g2pp": g2pp_swaption_price,
+}
 
 
 def _model_swaptions(

@@ -218,7 +218,11 @@ def valuation_summary(
             for v in (mc, rw)
         },
         "densities": {
-            mp.id: d for mp, d in zip(portfolio.model_points, rw.densities or (density_column("real_world"),) * len(portfolio.model_points))
+            mp.id: d for mp, d in zip(
+                portfolio.model_points,
+                rw.densities or (density_column("real_world"),) * len(portfolio.model_points),
+                strict=True,
+            )
         },
         "control_variates": (
             "values and standard errors use control variates from known martingales (deflated "

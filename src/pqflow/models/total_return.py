@@ -28,6 +28,9 @@ from pqflow.models.kernels import Exposure, grid_pieces
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.names import INDEX_KINDS, index_column
 
+if TYPE_CHECKING:  # economy imports this module
+    from pqflow.models.economy import RatesStep
+
 __all__ = ["TotalReturnIndex"]
 
 _NAME = re.compile(r"^[a-z][a-z0-9_]*$")

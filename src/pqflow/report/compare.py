@@ -245,7 +245,8 @@ def _inputs(cal: CalibrationRecord) -> dict[str, dict[str, tuple[Any, str]]]:
         out["inflation"][f"zero-coupon inflation swap {fmt.years(r.get('maturity'))}y"] = (r.get("market_rate"), "rate")
     for rating in ((fit.get("credit") or {}).get("ratings") or []):
         for r in rating.get("rows") or []:
-            out["credit"][f"{rating.get('rating')} spread {fmt.years(r.get('maturity'))}y"] = (r.get("market_spread"), "rate")
+            label = f"{rating.get('rating')} spread {fmt.years(r.get('maturity'))}y"
+            out["credit"][label] = (r.get("market_spread"), "rate")
     par = cal.parameters
     eq = par.get("equity") or {}
     if eq:

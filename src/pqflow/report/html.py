@@ -660,7 +660,8 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
                      "values": f"κ {fmt.plain(c.get('mean_reversion'))}, μ {fmt.percent(c.get('long_run_mean'), 2)}, "
                                f"ν {fmt.plain(c.get('volatility'))}, y0 {fmt.percent(c.get('initial'), 2)}, "
                                f"recovery {fmt.share(r.get('recovery'), 0)}",
-                     "fit": (f"spreads repriced to {fmt.bp(f['max_abs_error_bp'], 2)}" if "max_abs_error_bp" in f else "typed in")})
+                     "fit": (f"spreads repriced to {fmt.bp(f['max_abs_error_bp'], 2)}"
+                             if "max_abs_error_bp" in f else "typed in")})
     mpr = cal.market_prices_of_risk
     if mpr:
         rows.append({"part": "real world: prices of risk",
@@ -736,7 +737,7 @@ def _fit_scalar(key: str, v: Any) -> str:
 def _calibration(cal: CalibrationRecord) -> str:
     html = ["<h3>Calibrated parameters and fit</h3>",
             _table(_key_parameters(cal), [("part", "part"), ("values", "parameters"), ("fit", "fit error")],
-                   fmts={k: (lambda r, k=k: escape(r[k])) for k in ("part", "values", "fit")})]
+                   fmts={k: _text_cell(k) for k in ("part", "values", "fit")})]
     if (dc := cal.driver_correlation) is not None:
         html.append(f'<p class="note">Drivers (correlation matrix in calibration.json): '
                     f'{escape(", ".join(map(str, dc.get("drivers", []))))}.</p>')
@@ -1336,7 +1337,8 @@ def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
     rec = val.get("reconciliation", {})
     verdict = {"agree": "pass", "differ": "fail"}.get(str(rec.get("verdict")), rec.get("verdict"))
     rule = (f'<p class="note">Rule: {escape(str(rec["rule"]))}.'
-            + (f' Inconclusive: {escape(", ".join(rec["inconclusive_lines"]))}.' if rec.get("inconclusive_lines") else "")
+            + (f' Inconclusive: {escape(", ".join(rec["inconclusive_lines"]))}.'
+               if rec.get("inconclusive_lines") else "")
             + "</p>") if rec.get("rule") else ""
     cur = str(val.get("currency", ""))
     html = [f"<h3>{escape(str(val.get('insurer', '')))}: best estimate and TVOG {_badge(verdict)}</h3>",

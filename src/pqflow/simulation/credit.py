@@ -78,7 +78,7 @@ def simulate_credit(
     if times.ndim != 1 or times.size < 1 or times[0] != 0.0 or np.any(np.diff(times) <= 0.0):
         raise ValueError("times must be a 1-d array that starts at 0 and increases")
     d, n, n_steps = len(params.ratings), int(n_paths), times.size - 1
-    normals = None
+    normals = np.empty((0, d, n))  # read only when no generator is given
     if isinstance(rng_normals_or_generator, np.random.Generator):
         rng = rng_normals_or_generator
     else:

@@ -93,6 +93,7 @@ def simulate_heston_paths(
     with_rates = explained != 0.0
     if with_rates and (projection_increments is None or projection_increments.shape != (n_paths, n_steps)):
         raise ValueError(f"a projection on the economy needs projection_increments of shape {(n_paths, n_steps)}")
+    proj = projection_increments if projection_increments is not None else np.empty((0, 0))  # read with rates only
     shift = np.zeros((n_steps, substeps)) if projection_shift is None else np.asarray(projection_shift, dtype=float)
     if shift.shape != (n_steps, substeps):
         raise ValueError(f"projection_shift must have shape {(n_steps, substeps)}, not {shift.shape}")
@@ -131,7 +132,7 @@ def simulate_heston_paths(
         carry = log_carry[:, k] / substeps
         if with_rates:
             u = z_all[:, 2, :]
-            bridge = projection_increments[:, k] / substeps + s_proj * sqrt_h * (u - u.mean(axis=0))
+            bridge = proj[:, k] / substeps + s_proj * sqrt_h * (u - u.mean(axis=0))
             c_shift = shift[k] - shift[k].mean()  # the bridge's own shift between the measures
         for j in range(substeps):
             zp, zv = z_all[j, 0], z_all[j, 1]

@@ -133,11 +133,11 @@ def write_part_hashed(
         return path, digest
     target = str(path)
     parent, _, name = target.rpartition("/")
-    tmp_key = f"{parent}/.{name}.tmp_key-{os.getpid()}-{threading.get_ident()}"
+    tmp_key = f"{parent}/.{name}.tmp-{os.getpid()}-{threading.get_ident()}"
     filesystem.create_dir(parent, recursive=True)
-    with filesystem.open_output_stream(tmp) as out:
+    with filesystem.open_output_stream(tmp_key) as out:
         out.write(data)
-    filesystem.move(tmp, target)
+    filesystem.move(tmp_key, target)
     return Path(target), digest
 
 

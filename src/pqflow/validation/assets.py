@@ -43,7 +43,6 @@ from __future__ import annotations
 import re
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 
@@ -110,7 +109,7 @@ def inflation_assets(inputs: RunInputs, columns: Sequence[str]) -> list[Martinga
                 "column: their currency prices cannot be formed"
             )
         return []
-    par = calibration_record(inputs.calibration, calibration_path(inputs.run_dir)).inflation
+    par = calibration_record(inputs.calibration, calibration_path(inputs.run_dir)).inflation or {}
     try:
         real_curve = curve_from_json(par["real_curve"])
         cpi_base = float(par["cpi_base"])
@@ -148,7 +147,7 @@ def inflation_assets(inputs: RunInputs, columns: Sequence[str]) -> list[Martinga
 
 
 def _ratings(inputs: RunInputs) -> dict[str, CreditRating]:
-    par = calibration_record(inputs.calibration, calibration_path(inputs.run_dir)).credit
+    par = calibration_record(inputs.calibration, calibration_path(inputs.run_dir)).credit or {}
     try:
         model, _ = credit_from_json(par)
     except (KeyError, TypeError, ValueError) as exc:

@@ -30,7 +30,7 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
-from pqflow.errors import IntegrityError, RunDirectoryError
+from pqflow.errors import IntegrityError
 from pqflow.measure.blocks import CREDIT_PREFIX, column_drivers, density_factors
 from pqflow.storage.names import bond_maturity_of, density_block_column, index_columns
 from pqflow.storage.scenario_set import ScenarioSet, SetPass
@@ -96,7 +96,8 @@ def _asset_weights(
     for a in assets:
         if a.name == "deflator" or not a.columns:
             continue
-        out[a.name] = tuple(density_block_column("real_world", f) for f in restricted_blocks(reader, a.columns, rates_drivers))
+        blocks = restricted_blocks(reader, a.columns, rates_drivers)
+        out[a.name] = tuple(density_block_column("real_world", f) for f in blocks)
     return out
 
 

@@ -355,7 +355,7 @@ def real_world_steps(
     maturity = view.get("target_maturity")
     y_col = bond_column(float(maturity)) if view.get("target") == "zero_yield" and maturity else None
     yields = None
-    if y_col is not None and y_col in names and target.get("real_world"):
+    if y_col is not None and maturity and y_col in names and target.get("real_world"):
         yields = add_moments(scan, [y_col], _zero_yield(y_col, float(maturity)))
     statistics = real_world_statistics_steps(inputs, passes)
     next(statistics)
@@ -390,7 +390,7 @@ def real_world_steps(
     if yields is not None and maturity:
         m = float(maturity)
         yt, yacc = yields()
-        for t, value in zip(target.get("time", []), target["real_world"]):
+        for t, value in zip(target.get("time", []), target["real_world"], strict=True):
             k = time_index(yt, float(t))
             if k is None or k == 0:
                 continue

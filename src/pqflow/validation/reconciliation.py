@@ -43,7 +43,7 @@ returns differ by measure through the prices of risk, which is what the table sh
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from typing import Any
 
 import numpy as np
@@ -237,8 +237,8 @@ def guarantee_values_steps(
         out.update(maturity=t, guarantee=g, level=level)
     value, sample_se = out["real_world"]
     plain_value, plain_se = out["real_world_plain"]
-    cross_se = float(spread_from_other_measure(*out["real_world_moments_from_market_consistent"],
-                                               out["real_world_paths"]))
+    second, first = out["real_world_moments_from_market_consistent"]
+    cross_se = float(spread_from_other_measure(second, first, out["real_world_paths"]))
     # A sample that misses the large weights understates its spread: inflate both standard
     # errors by the factor the market-consistent set's second moment implies for the plain one.
     inflate = max(1.0, cross_se / plain_se) if plain_se > 0 else 1.0
@@ -401,7 +401,8 @@ def reconciliation_steps(
         "control_variates": {m: values[f"{m}_controls"] for m in ("market_consistent", "real_world")},
     }
     values_table = pd.DataFrame([
-        *([{"method": f"closed form ({'G2++' if _record(inputs).g2pp is not None else 'Hull-White'} + Black)", "value": cf, "std_error": 0.0}] if cf is not None else []),
+        *([{"method": f"closed form ({'G2++' if _record(inputs).g2pp is not None else 'Hull-White'} + Black)",
+            "value": cf, "std_error": 0.0}] if cf is not None else []),
         {"method": "market-consistent set (control variates)", "value": q, "std_error": q_se},
         {"method": f"real-world set with deflators ({values['real_world_density']}, control variates)",
          "value": p, "std_error": p_se},
