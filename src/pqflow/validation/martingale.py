@@ -96,8 +96,8 @@ def _asset_weights(
     for a in assets:
         if a.name == "deflator" or not a.columns:
             continue
-        blocks = restricted_blocks(reader, a.columns, rates_drivers)
-        out[a.name] = tuple(density_block_column("real_world", f) for f in blocks)
+        found = restricted_blocks(reader, a.columns, rates_drivers)
+        out[a.name] = tuple(density_block_column("real_world", f) for f in found)
     return out
 
 
