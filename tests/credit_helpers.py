@@ -19,7 +19,7 @@ from pqflow.models.cir_credit import (
     shift_integral,
     spread_column,
 )
-from pqflow.models.hull_white_equity import bond_column
+from pqflow.storage.names import bond_column
 
 __all__ = ["survival_probability", "defaultable_bond_columns"]
 

@@ -24,7 +24,6 @@ from pqflow.models.hull_white import (
     phi2,
     zcb_price,
 )
-from pqflow.models.hull_white_equity import bond_column
 from pqflow.models.jarrow_yildirim import (
     CPI_COLUMN,
     REAL_SHORT_RATE_COLUMN,
@@ -33,6 +32,7 @@ from pqflow.models.jarrow_yildirim import (
     real_short_rate_shift,
 )
 from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
+from pqflow.storage.names import bond_column
 
 __all__ = ["InflationPricesOfRisk", "JarrowYildirimModel"]
 
