@@ -14,7 +14,6 @@ part depends only on the configuration, the seed, the measure and the batch inde
 from __future__ import annotations
 
 import concurrent.futures
-import functools
 import os
 import signal
 import tempfile
@@ -197,7 +196,7 @@ def task_runner_for(runner: str, *, workers: int, dask_address: str | None = Non
         raise ValueError("the dask runner needs prefect-dask: pip install 'pqflow[dask]'") from None
     if dask_address:
         return DaskTaskRunner(address=dask_address)
-    return _warm_dask_runner_class()(
+    return DaskTaskRunner(
         cluster_class=local_cluster_without_ctrl_c,
         cluster_kwargs={
             "n_workers": max(1, int(workers)),
@@ -207,48 +206,6 @@ def task_runner_for(runner: str, *, workers: int, dask_address: str | None = Non
             "local_directory": _dask_scratch(),
         }
     )
-
-
-#: What a part's task imports on a fresh Dask worker (seconds of work at its first task).
-_WORKER_MODULES = ("pqflow.pipeline.flows", "prefect.task_engine", "prefect_dask.task_runners", "pqflow.jobs.steps",
-                   "pqflow.simulation.engine", "pyarrow.parquet", "scipy.stats")
-
-
-def _warm_worker() -> int:
-    """Run on each fresh local Dask worker as the flow starts: import what a part's task needs, so
-    the imports overlap the calibration in the flow's process instead of delaying the first parts.
-    It runs in the worker's single task thread, before any part, so no import races another."""
-    import importlib
-
-    done = 0
-    for name in _WORKER_MODULES:
-        try:
-            importlib.import_module(name)
-            done += 1
-        except ImportError:  # an optional module: the part's task will say what is missing
-            pass
-    return done
-
-
-@functools.cache
-def _warm_dask_runner_class() -> type:
-    """``DaskTaskRunner`` whose local cluster starts as the flow starts (prefect-dask starts it
-    at the first submitted task, after the calibration) and warms each worker with
-    :func:`_warm_worker` while the calibration runs."""
-    from prefect_dask import DaskTaskRunner
-
-    class WarmDaskTaskRunner(DaskTaskRunner):
-        def __enter__(self):
-            runner = super().__enter__()
-            client = self.client  # starts the local cluster now
-            workers = list(client.scheduler_info().get("workers", {}))
-            self._warm_futures = [  # kept referenced so the scheduler runs them
-                client.submit(_warm_worker, key=f"pqflow-warm-{k}", workers=[w], allow_other_workers=False, pure=False)
-                for k, w in enumerate(workers)
-            ]
-            return runner
-
-    return WarmDaskTaskRunner
 
 
 @contextmanager
