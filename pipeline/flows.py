@@ -236,18 +236,19 @@ def _shared_api(needed: bool) -> Iterator[None]:
         server.stop()
 
 
-def _drain_prefect_clients() -> None:
-    try:
-        from prefect.events.worker import EventsWorker
-        from prefect.logging.handlers import APILogHandler
+def _drain_prefect_clients(timeout: float = 3.0) -> None:
+    """Send the logs and events Prefect still queues while the temporary server listens, each
+    queue waited on for at most ``timeout`` seconds (best effort: the run itself has finished).
+    It called ``APILogHandler.flush()`` on the class before, an instance method: that raised,
+    was swallowed, and neither queue was drained."""
+    from prefect.events.worker import EventsWorker
+    from prefect.logging.handlers import APILogWorker
 
-        # Known defect, kept as it was (see DEVELOPERS.md, lint): flush is an instance method, so this
-        # call raises TypeError, caught below, and neither queue is drained. The fix would be
-        # APILogWorker.drain_all(timeout=5); it changes shutdown, so it is not made in a lint change.
-        APILogHandler.flush()  # type: ignore[call-arg]
-        EventsWorker.drain_all(timeout=5)
-    except Exception:  # noqa: BLE001 (best effort: the run itself has finished)
-        pass
+    for worker in (APILogWorker, EventsWorker):
+        try:
+            worker.drain_all(timeout=timeout)
+        except Exception:  # noqa: BLE001 (best effort: a failed drain must not fail a finished run)
+            pass
 
 
 def run_quarterly(
