@@ -12,7 +12,18 @@ import re
 from pathlib import Path
 from typing import Annotated, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, PrivateAttr, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    PrivateAttr,
+    SerializeAsAny,
+    field_validator,
+    model_validator,
+)
+
+from pqflow.config.part_sections import validate_part_sections
 
 __all__ = [
     "RunSection",
@@ -722,11 +733,15 @@ class RunConfig(_Section):
     execution: ExecutionSection = ExecutionSection()
     #: ``[density_blocks]``: block name -> the drivers whose states carry a restricted density
     #: (``q_density_<name>`` / ``p_density_<name>``). Absent: ``rates``, ``rates_<index>`` per
-    #: index, ``rates_inflation`` and ``credit_<rating>``; an empty table writes none. Under
-    #: G2++ the driver name ``rates`` stands for both rate drivers.
+    #: index, ``rates_inflation``, ``credit_<rating>`` and ``rates_<section>`` per part plug-in;
+    #: an empty table writes none. Under G2++ the driver name ``rates`` stands for both rate drivers.
     density_blocks: dict[str, list[str]] | None = None
     sensitivities: list[SensitivitySection] = Field(default_factory=list, max_length=50)
     signoff: SignoffSection | None = None
+    #: ``[parts.<name>]``: the sections of registered part plug-ins (:mod:`pqflow.models.parts`),
+    #: each validated by its kind's model; an unregistered name is refused naming the section.
+    parts: Annotated[dict[str, SerializeAsAny[BaseModel]], BeforeValidator(validate_part_sections)] = Field(
+        default_factory=dict)
 
     _base_dir: Path = PrivateAttr(default=Path("."))
 
