@@ -10,7 +10,7 @@ from __future__ import annotations
 import datetime as dt
 import re
 from pathlib import Path
-from typing import Annotated, Literal
+from typing import Annotated, Any, Literal
 
 from pydantic import (
     BaseModel,
@@ -19,7 +19,9 @@ from pydantic import (
     Field,
     PrivateAttr,
     SerializeAsAny,
+    SerializerFunctionWrapHandler,
     field_validator,
+    model_serializer,
     model_validator,
 )
 
@@ -756,6 +758,15 @@ class RunConfig(_Section):
             if len(set(drivers)) != len(drivers):
                 raise ValueError(f"block {name!r} repeats a driver")
         return v
+
+    @model_serializer(mode="wrap")
+    def _without_empty_parts(self, handler: SerializerFunctionWrapHandler) -> dict[str, Any]:
+        # no [parts] table when no part plug-in is configured: the dump (hashes, fingerprints,
+        # written configurations) of every configuration without one is what it was before
+        data: dict[str, Any] = handler(self)
+        if not data.get("parts"):
+            data.pop("parts", None)
+        return data
 
     @property
     def base_dir(self) -> Path:

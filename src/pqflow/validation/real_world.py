@@ -351,7 +351,7 @@ def real_world_steps(
     ) if premium_cols else None
     # everything below reads the same pass: register it all before the parts are read
     view = inputs.parameters.get("real_world_view", {}) or {}
-    target = (inputs.calibration.get("expected_short_rate") or {}).get("target") or {}
+    target = _record(inputs).expected_short_rate.get("target") or {}
     maturity = view.get("target_maturity")
     y_col = bond_column(float(maturity)) if view.get("target") == "zero_yield" and maturity else None
     yields = None
