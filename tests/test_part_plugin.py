@@ -287,3 +287,19 @@ def test_pqflow_check_describes_the_part(spread_run):
     assert "part spread: Ornstein-Uhlenbeck spread factor (k 0.7, s 0.004)" in result.output
     assert "density block rates_spread: drivers rates, spread" in result.output
     assert "spread_factor" in result.output
+
+
+def test_a_sensitivity_set_rebuilds_the_part_on_its_curve(spread_run):
+    """A curve-only sensitivity (calibration/sensitivity.py) rebuilds the plug-in from its
+    section with the shocked curve and keeps its price of risk; the model then carries its driver."""
+    from pqflow.calibration.assemble import build_model
+    from pqflow.calibration.sensitivity import curve_only_calibration
+
+    _, cfg, cal, _ = spread_run
+    shocked = cfg.model_copy(update={"curve": cfg.curve.model_copy(
+        update={"values": [v + 0.01 for v in cfg.curve.values]})})
+    sens = curve_only_calibration(cal, shocked)
+    assert sens.curve.discount(10.0) < cal.curve.discount(10.0)  # the shock took effect
+    assert sens.plugin_parts == cal.plugin_parts and sens.extra_prices_of_risk[DRIVER] == LAM
+    model = build_model(sens, (1.0,))
+    assert DRIVER in model.driver_names and COLUMN in model.known_columns()
