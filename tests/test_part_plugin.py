@@ -271,6 +271,14 @@ def test_the_library_run_validates_with_the_part_and_no_assets(spread_run, tmp_p
     assert COLUMN in columns
     assert martingale_assets(inputs, columns) == []  # the spread factor declares none
     assert result["summary"]
+    # the density check judged the part's block in both sets, and the density budget carries its
+    # price of risk (the spread's lambda = 0.5 is most of the log-density variance here)
+    import pandas as pd
+
+    density = pd.read_csv(out / "validation" / "density.csv")
+    assert {"q_density_rates_spread", "p_density_rates_spread"} <= set(density.column)
+    budget = pd.read_csv(out / "validation" / "density_budget.csv")
+    assert DRIVER in set(budget.price_of_risk)
     # the report's parameter table describes the part through its kind
     report = (out / "validation" / "report.html").read_text(encoding="utf-8")
     assert "spread (part plug-in)" in report and "Ornstein-Uhlenbeck spread factor (k 0.7, s 0.004)" in report
