@@ -28,11 +28,10 @@ from pqflow.models.jarrow_yildirim import (
     CPI_COLUMN,
     REAL_SHORT_RATE_COLUMN,
     JarrowYildirimParams,
-    real_bond_column,
     real_short_rate_shift,
 )
 from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
-from pqflow.storage.names import bond_column
+from pqflow.storage.names import bond_column, real_bond_column
 
 __all__ = ["InflationPricesOfRisk", "JarrowYildirimModel"]
 
