@@ -126,7 +126,7 @@ def test_size_and_power_on_heston_densities(real_world_vol, report_statistic) ->
         f"{PAIRS} pairs: false alarms lognormal identity {rate[LOGNORMAL]:.3f}, robust t {rate[ROBUST]:.3f} "
         f"(nominal {FAMILY_ALPHA:.2f}, limit {limit:.3f}); the check uses the {used}")
     assert used == ROBUST
-    unmeasured = unmeasured_heston_drivers(_parameters(real_world_vol))
+    unmeasured = unmeasured_heston_drivers(_parameters(real_world_vol)["stochastic_volatility"])
     line += f"; outside the measured range: {bool(unmeasured)}"
     if not unmeasured:  # within HESTON_MEASURED_SHIFT the rule judges, and holds its level
         assert rate[ROBUST] <= limit, line
