@@ -48,6 +48,7 @@ ALLOWED: dict[str, str] = {
     # the Heston fit record is the owner's own nested form (calibration/heston_parts.py), its
     # "parameters" key is not the file's top-level key
     "cli.py::_print_heston_fits": "nested fit record of calibration/heston_parts.py",
+    # the same nested Heston fit record, shown by the report's smile section
     "report/smile.py::smile_fit_html": "nested fit record of calibration/heston_parts.py",
     # the Prefect deployment's own "parameters" (flow arguments), not the calibration file's
     "cli.py::deploy": "Prefect deployment description",

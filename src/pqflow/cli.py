@@ -476,6 +476,11 @@ def check(
         _print_fit(record)
         drivers = cal.driver_correlation.names
         console.print(Text(f"drivers ({len(drivers)}): {', '.join(drivers)}"), highlight=False)
+        if cfg.parts:
+            from pqflow.models.parts import describe_part
+
+            for name, section in cfg.parts.items():
+                console.print(Text(f"part {name}: {describe_part(name, section)}"), highlight=False)
         if cal.credit is not None:
             corr = "correlated with each other" if cal.credit.correlation is not None else "independent"
             console.print(

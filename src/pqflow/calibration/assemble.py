@@ -73,14 +73,23 @@ from pqflow.measure.prices_of_risk import (
     real_world_factor_mean,
 )
 from pqflow.models.cir_credit import CirCreditModel
-from pqflow.models.economy import EconomyModel, InflationPart, TotalReturnIndex
+from pqflow.models.economy import EconomyModel, GaussianPart, InflationPart, TotalReturnIndex
 from pqflow.models.equity import EquityParams
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.heston import HestonIndex
 from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.parts import PART_KINDS, PartContext
 from pqflow.models.rates import RatesModel, as_short_rate_params, rates_from_json
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
-from pqflow.storage.calibration_file import calibration_document, calibration_path, read_calibration_file
+from pqflow.storage.calibration_file import (
+    CALIBRATION_FILE,
+    PLUGIN_PARTS_KEY,
+    calibration_document,
+    calibration_path,
+    plugin_part_entry,
+    plugin_part_fields,
+    read_calibration_file,
+)
 from pqflow.storage.parquet import file_sha256
 
 __all__ = [
@@ -128,6 +137,9 @@ class Calibration:
     rates_correlation: tuple[float, float] | None = None
     #: Indices with stochastic (Heston) variance, by name (:mod:`pqflow.simulation.heston_part`).
     stochastic_volatility: dict[str, HestonIndex] = field(default_factory=dict)
+    #: Registered part plug-ins (:mod:`pqflow.models.parts`) by section, in model order after
+    #: the built-in parts; their prices of risk are in ``extra_prices_of_risk``.
+    plugin_parts: dict[str, GaussianPart] = field(default_factory=dict)
 
     @property
     def rates_model(self) -> str:
@@ -240,7 +252,23 @@ class Calibration:
             out["credit"] = credit_to_json(self.credit, self.credit_substeps_per_year)
         if self.stochastic_volatility:
             out["stochastic_volatility"] = heston_to_json(self.stochastic_volatility)
+        if self.plugin_parts:
+            out[PLUGIN_PARTS_KEY] = {
+                name: plugin_part_entry(
+                    _registered(name).to_json(part),
+                    {d: _schedule_json(self.extra_prices_of_risk.get(d, 0.0)) for d in part.drivers},
+                )
+                for name, part in self.plugin_parts.items()
+            }
         return out
+
+
+def _registered(name: str) -> Any:
+    kind = PART_KINDS.get(name)
+    if kind is None:
+        raise ConfigError(f"part {name!r}: no part kind of that name is registered (known: "
+                          f"{', '.join(sorted(PART_KINDS)) or 'none'})")
+    return kind
 
 
 def short_rate_correlation(rates: RatesModel, rho: float | tuple[float, float]) -> float:
@@ -250,7 +278,7 @@ def short_rate_correlation(rates: RatesModel, rho: float | tuple[float, float]) 
     return rates.short_rate_correlation(rho)
 
 
-def _parts_from_json(par: dict[str, Any]) -> dict[str, Any]:
+def _parts_from_json(par: dict[str, Any], source: str | Path = CALIBRATION_FILE) -> dict[str, Any]:
     out: dict[str, Any] = {"extra_prices_of_risk": {}, "index_risk_premia": {}}
     if "correlation_with_rate_factors" in par["equity"]:
         out["rates_correlation"] = tuple(float(v) for v in par["equity"]["correlation_with_rate_factors"])
@@ -271,6 +299,14 @@ def _parts_from_json(par: dict[str, Any]) -> dict[str, Any]:
         out["credit"], out["credit_substeps_per_year"] = credit_from_json(par["credit"])
     if "stochastic_volatility" in par:
         out["stochastic_volatility"] = heston_from_json(par["stochastic_volatility"])
+    plugged: dict[str, GaussianPart] = {}
+    for name, entry in (par.get(PLUGIN_PARTS_KEY) or {}).items():
+        form, lams = plugin_part_fields(entry, source, name)
+        plugged[name] = _registered(name).from_json(form)
+        for d, v in lams.items():
+            out["extra_prices_of_risk"][d] = _load_schedule(v)
+    if plugged:
+        out["plugin_parts"] = plugged
     return out
 
 
@@ -302,7 +338,7 @@ def load_calibration(path: str | Path) -> Calibration:
             fit=dict(record.fit),
             instruments=dict(record.instruments) if record.has_instruments else {"swaptions": [], "equity_options": []},
             real_world_view=par.get("real_world_view", {}),
-            **_parts_from_json(par),
+            **_parts_from_json(par, path),
         )
     except FileNotFoundError:
         raise ConfigError(f"{path}: calibration file not found") from None
@@ -353,6 +389,9 @@ def check_calibration_fits(calibration: Calibration, config: RunConfig, *, sourc
     want = [i.name for i in config.indices]
     if have != want:
         raise ConfigError(f"{source}: calibration has indices {have} but the configuration names {want}")
+    if list(calibration.plugin_parts) != list(config.parts):
+        raise ConfigError(f"{source}: calibration has parts {list(calibration.plugin_parts)} but the configuration "
+                          f"names {list(config.parts)} ([parts.<name>])")
     from pqflow.calibration.heston_parts import heston_indices
 
     have_sv, want_sv = sorted(calibration.stochastic_volatility), sorted(heston_indices(config))
@@ -646,6 +685,8 @@ def _inputs(config: RunConfig) -> dict[str, Any]:
             inputs[name] = value.model_dump(mode="json")
     if config.indices:
         inputs["indices"] = [i.model_dump(mode="json") for i in config.indices]
+    if config.parts:
+        inputs["parts"] = {name: section.model_dump(mode="json") for name, section in config.parts.items()}
     inputs["simulation_horizon_years"] = config.simulation.max_horizon_years
     files = {}
     if config.market_data is not None:
@@ -710,6 +751,13 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         fit["heston"] = heston_fits
         # a Heston index is repriced at every quoted strike, not at its ATMF quotes
         equity_options = [o for o in equity_options if o["index"] not in heston] + heston_options
+    plugin_parts: dict[str, GaussianPart] = {}
+    if config.parts:
+        context = PartContext(curve=curve, rates=rates, correlation=correlation.pair)
+        for name, part_section in config.parts.items():
+            part_kind = PART_KINDS[name]
+            plugin_parts[name] = part_kind.build(part_section, context)
+            extra_lams.update(part_kind.prices_of_risk(part_section))
     canon = json.dumps(inputs, sort_keys=True, separators=(",", ":")).encode("utf-8")
     return Calibration(
         valuation_date=config.run.valuation_date.isoformat(),
@@ -733,6 +781,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         credit=credit,
         credit_substeps_per_year=config.credit.substeps_per_year if config.credit is not None else 12,
         stochastic_volatility=heston,
+        plugin_parts=plugin_parts,
     )
 
 
@@ -762,7 +811,8 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
     return EconomyModel(
         curve=calibration.curve,
         rates=calibration.rates,
-        parts=(core, *calibration.indices, *((calibration.inflation,) if calibration.inflation is not None else ())),
+        parts=(core, *calibration.indices, *((calibration.inflation,) if calibration.inflation is not None else ()),
+               *calibration.plugin_parts.values()),
         correlation=corr.matrix,
         prices_of_risk=lams,
         bond_maturities=tuple(bond_maturities),

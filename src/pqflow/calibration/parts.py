@@ -54,6 +54,7 @@ from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, Ha
 from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER, InflationPart, TotalReturnIndex
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.jarrow_yildirim import JarrowYildirimParams
+from pqflow.models.parts import PART_KINDS
 from pqflow.models.rates import RatesModel
 from pqflow.models.schedule import PiecewiseConstant
 
@@ -124,6 +125,8 @@ def driver_names(config: RunConfig) -> tuple[str, ...]:
     out = [*RATES_DRIVERS[config.rates.model], config.equity.name, *(i.name for i in config.indices)]
     if config.inflation is not None:
         out += [REAL_RATE_DRIVER, INFLATION_DRIVER]
+    for name, section in config.parts.items():  # registered part plug-ins, in section order
+        out += PART_KINDS[name].drivers(section)
     return tuple(out)
 
 

@@ -25,6 +25,7 @@ from pqflow.calibration.parts import calibrate_inflation
 from pqflow.calibration.swaptions import forward_swap_rate, hull_white_swaption_price
 from pqflow.config.schema import RunConfig
 from pqflow.market.curve import DiscountCurve
+from pqflow.models.parts import PART_KINDS, PartContext
 from pqflow.models.rates import RatesModel
 
 __all__ = ["curve_only_calibration"]
@@ -48,6 +49,10 @@ def curve_only_calibration(base: Calibration, config: RunConfig) -> Calibration:
             config.model_copy(update={"inflation": kept}), curve, base.rates, base.driver_correlation
         )
         extra.update(lams)
+    plugin_parts = dict(base.plugin_parts)
+    if config.parts:  # a part plug-in is built from its (typed-in) section on the shocked curve
+        context = PartContext(curve=curve, rates=base.rates, correlation=base.driver_correlation.pair)
+        plugin_parts = {name: PART_KINDS[name].build(section, context) for name, section in config.parts.items()}
     fit["volatility_parameters"] = {
         "kept_from_base_calibration": base.inputs_hash,
         "note": "rates, index, inflation and credit volatility parameters are the base calibration's; only the "
@@ -61,6 +66,7 @@ def curve_only_calibration(base: Calibration, config: RunConfig) -> Calibration:
         prices_of_risk=prices_of_risk,
         real_world_view={**view},
         inflation=inflation,
+        plugin_parts=plugin_parts,
         extra_prices_of_risk=extra,
         fit=fit,
         inputs=inputs,

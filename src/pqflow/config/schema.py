@@ -10,9 +10,22 @@ from __future__ import annotations
 import datetime as dt
 import re
 from pathlib import Path
-from typing import Annotated, Literal
+from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, PrivateAttr, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    PrivateAttr,
+    SerializeAsAny,
+    SerializerFunctionWrapHandler,
+    field_validator,
+    model_serializer,
+    model_validator,
+)
+
+from pqflow.config.part_sections import validate_part_sections
 
 __all__ = [
     "RunSection",
@@ -722,11 +735,15 @@ class RunConfig(_Section):
     execution: ExecutionSection = ExecutionSection()
     #: ``[density_blocks]``: block name -> the drivers whose states carry a restricted density
     #: (``q_density_<name>`` / ``p_density_<name>``). Absent: ``rates``, ``rates_<index>`` per
-    #: index, ``rates_inflation`` and ``credit_<rating>``; an empty table writes none. Under
-    #: G2++ the driver name ``rates`` stands for both rate drivers.
+    #: index, ``rates_inflation``, ``credit_<rating>`` and ``rates_<section>`` per part plug-in;
+    #: an empty table writes none. Under G2++ the driver name ``rates`` stands for both rate drivers.
     density_blocks: dict[str, list[str]] | None = None
     sensitivities: list[SensitivitySection] = Field(default_factory=list, max_length=50)
     signoff: SignoffSection | None = None
+    #: ``[parts.<name>]``: the sections of registered part plug-ins (:mod:`pqflow.models.parts`),
+    #: each validated by its kind's model; an unregistered name is refused naming the section.
+    parts: Annotated[dict[str, SerializeAsAny[BaseModel]], BeforeValidator(validate_part_sections)] = Field(
+        default_factory=dict)
 
     _base_dir: Path = PrivateAttr(default=Path("."))
 
@@ -741,6 +758,15 @@ class RunConfig(_Section):
             if len(set(drivers)) != len(drivers):
                 raise ValueError(f"block {name!r} repeats a driver")
         return v
+
+    @model_serializer(mode="wrap")
+    def _without_empty_parts(self, handler: SerializerFunctionWrapHandler) -> dict[str, Any]:
+        # no [parts] table when no part plug-in is configured: the dump (hashes, fingerprints,
+        # written configurations) of every configuration without one is what it was before
+        data: dict[str, Any] = handler(self)
+        if not data.get("parts"):
+            data.pop("parts", None)
+        return data
 
     @property
     def base_dir(self) -> Path:

@@ -125,15 +125,17 @@ def run_density_blocks(config: RunConfig) -> tuple[DensityBlock, ...]:
     autonomous from the configured models' structure: nothing needs fitting for that."""
     from pqflow.calibration.parts import credit_driver
     from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER
+    from pqflow.models.parts import PART_KINDS
 
     rates = RATES_DRIVERS[config.rates.model]
     indices = [(config.equity.name, names.equity_column(config.equity.name))]
     indices += [(i.name, names.index_column(i.kind, i.name)) for i in config.indices]
     inflation = (REAL_RATE_DRIVER, INFLATION_DRIVER) if config.inflation is not None else None
     ratings = {r.name: credit_driver(r.name) for r in (config.credit.ratings if config.credit is not None else ())}
-    structure = economy_structure(rates, indices, inflation, ratings)
+    plugged = {name: PART_KINDS[name].drivers(section) for name, section in config.parts.items()}
+    structure = economy_structure(rates, indices, inflation, ratings, plugged)
     if config.density_blocks is None:
-        blocks = default_blocks(rates, [d for d, _ in indices], inflation, ratings)
+        blocks = default_blocks(rates, [d for d, _ in indices], inflation, ratings, plugged)
     else:
         blocks = tuple(
             DensityBlock(name=name, drivers=tuple(dict.fromkeys(

@@ -41,6 +41,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from pqflow.models.parts import part_column_drivers
 from pqflow.storage.names import CREDIT_PREFIX, intensity_column
 
 __all__ = [
@@ -93,6 +94,7 @@ def economy_structure(
     indices: Sequence[tuple[str, str]],
     inflation_drivers: Sequence[str] | None,
     ratings: Mapping[str, str],
+    plugged: Mapping[str, Sequence[str]] | None = None,
 ) -> tuple[StateLink, ...]:
     """The state structure of the economy model (:mod:`pqflow.models.economy`) and its credit
     part from names alone, so blocks can be checked before anything is fitted.
@@ -103,7 +105,12 @@ def economy_structure(
     own, and reads the factors; inflation's real factor loads on its driver and reads only
     itself, the log CPI loads on the rates and both inflation drivers and reads the rate factors
     and the real factor; a rating's factor loads on its own driver and reads itself.
-    :func:`model_structure` gives the same from a built model (tested equal)."""
+    :func:`model_structure` gives the same from a built model (tested equal). plugged: a
+    registered part plug-in's drivers by section (:mod:`pqflow.models.parts`); its states are
+    unknown before it is built, so it stands here as one state loading on the rates and its
+    drivers and reading the rate factors (a block is then judged at least as strictly as the
+    built model's own structure judges it when the set is simulated,
+    :func:`pqflow.simulation.scenarios.block_layout`)."""
     rates = frozenset(rates_drivers)
     factors = ("x", "y")[: len(rates_drivers)]
     out = [StateLink(name=f, drivers=frozenset({d}), reads=frozenset()) for f, d in zip(factors, rates_drivers,
@@ -117,6 +124,8 @@ def economy_structure(
         out.append(StateLink(name="log_cpi", drivers=rates | {real, infl}, reads=frozenset([*factors, "x_real"])))
     for rating, driver in ratings.items():
         out.append(StateLink(name=intensity_column(rating), drivers=frozenset({driver}), reads=frozenset()))
+    for section, drivers in (plugged or {}).items():
+        out.append(StateLink(name=f"part_{section}", drivers=rates | set(drivers), reads=frozenset(factors)))
     return tuple(out)
 
 
@@ -175,15 +184,18 @@ def default_blocks(
     index_drivers: Sequence[str],
     inflation_drivers: Sequence[str] | None,
     ratings_drivers: Mapping[str, str],
+    plugged: Mapping[str, Sequence[str]] | None = None,
 ) -> tuple[DensityBlock, ...]:
     """``rates``; ``rates_<index>`` per index; ``rates_inflation`` with inflation;
-    ``credit_<rating>`` per rating (``ratings_drivers``: rating name -> its driver)."""
+    ``credit_<rating>`` per rating (``ratings_drivers``: rating name -> its driver);
+    ``rates_<section>`` per part plug-in (``plugged``: section -> its drivers)."""
     rates = tuple(rates_drivers)
     out = [DensityBlock(name="rates", drivers=rates)]
     out += [DensityBlock(name=f"rates_{d}", drivers=(*rates, d)) for d in index_drivers]
     if inflation_drivers:
         out.append(DensityBlock(name="rates_inflation", drivers=(*rates, *inflation_drivers)))
     out += [DensityBlock(name=f"credit_{r}", drivers=(d,)) for r, d in ratings_drivers.items()]
+    out += [DensityBlock(name=f"rates_{name}", drivers=(*rates, *drivers)) for name, drivers in (plugged or {}).items()]
     return tuple(out)
 
 
@@ -254,7 +266,11 @@ def column_drivers(
     """The drivers the value of an output column depends on (the states it is a function of):
     rates columns on the rate drivers; an index on the rates and its own driver; inflation
     columns on the rates and both inflation drivers; a rating's columns on its driver (and its
-    defaultable bonds on the rates too)."""
+    defaultable bonds on the rates too); a registered part plug-in's column on what its kind
+    says (:func:`pqflow.models.parts.part_column_drivers`, asked first)."""
+    plugged = part_column_drivers(column)
+    if plugged is not None:
+        return plugged
     rates = frozenset(rates_drivers)
     if column in ("short_rate", "cash_account", "deflator") or column.startswith("zcb_"):
         return rates

@@ -29,12 +29,14 @@ import pandas as pd
 
 from pqflow import CAUTION, __version__
 from pqflow.errors import IntegrityError, PqflowError
+from pqflow.models.parts import describe_part
 from pqflow.report import numbers as fmt
 from pqflow.report import smile, svg
 from pqflow.storage.calibration_file import (
     CALIBRATION_FILE,
     CalibrationRecord,
     calibration_path,
+    plugin_part_fields,
     read_calibration_file,
 )
 from pqflow.storage.jsonio import read_json, write_text_atomic
@@ -662,6 +664,13 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
                                f"recovery {fmt.share(r.get('recovery'), 0)}",
                      "fit": (f"spreads repriced to {fmt.bp(f['max_abs_error_bp'], 2)}"
                              if "max_abs_error_bp" in f else "typed in")})
+    recorded_sections = cal.inputs.get("parts") or {}
+    for name, entry in cal.plugin_parts.items():
+        lams = plugin_part_fields(entry, CALIBRATION_FILE, name)[1]
+        rows.append({"part": f"{name} (part plug-in)", "values": describe_part(name, recorded_sections.get(name)),
+                     "fit": "built from its section" + (
+                         "; prices of risk " + ", ".join(f"{d} {_sched_text(v, lambda x: fmt.plain(x, 3))}"
+                                                         for d, v in lams.items()) if lams else "")})
     mpr = cal.market_prices_of_risk
     if mpr:
         rows.append({"part": "real world: prices of risk",

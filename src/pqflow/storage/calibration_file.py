@@ -24,6 +24,9 @@ from pqflow.storage.jsonio import read_json, write_json_atomic
 
 __all__ = [
     "CALIBRATION_FILE",
+    "PLUGIN_PARTS_KEY",
+    "plugin_part_entry",
+    "plugin_part_fields",
     "FORMAT_VERSION",
     "CalibrationRecord",
     "HullWhiteRecord",
@@ -41,6 +44,9 @@ CALIBRATION_FILE = "calibration.json"
 #: The version this pqflow writes and the newest it reads.
 FORMAT_VERSION = 1
 _VERSION_KEY = "format_version"
+#: the ``parameters`` key holding the registered part plug-ins, by section: each entry
+#: ``{"parameters": <the kind's to_json>, "market_prices_of_risk": {driver: schedule}}``
+PLUGIN_PARTS_KEY = "plugin_parts"
 _RATES_MODELS = ("hull_white", "g2pp")
 
 
@@ -256,6 +262,11 @@ class CalibrationRecord:
         return self.parameters.get("stochastic_volatility") or {}
 
     @property
+    def plugin_parts(self) -> dict[str, dict[str, Any]]:
+        """The part plug-ins' entries by section (``{}`` when none)."""
+        return dict(self.parameters.get(PLUGIN_PARTS_KEY) or {})
+
+    @property
     def driver_correlation(self) -> dict[str, Any] | None:
         return self.parameters.get("driver_correlation")
 
@@ -268,6 +279,20 @@ class CalibrationRecord:
         if key not in obj or obj[key] is None:
             raise ConfigError(f"{self.source}: not a pqflow calibration file (no {name})")
         return obj[key]
+
+
+def plugin_part_entry(parameters: dict[str, Any], prices_of_risk: dict[str, Any]) -> dict[str, Any]:
+    """One part plug-in's ``calibration.json`` entry: its kind's form and its prices of risk."""
+    return {"parameters": parameters, "market_prices_of_risk": prices_of_risk}
+
+
+def plugin_part_fields(entry: dict[str, Any], source: str | Path, section: str) -> tuple[dict[str, Any],
+                                                                                        dict[str, Any]]:
+    """``(parameters, market_prices_of_risk)`` of an entry; a malformed one names file and key."""
+    try:
+        return dict(entry["parameters"]), dict(entry.get("market_prices_of_risk") or {})
+    except (KeyError, TypeError, ValueError):
+        raise ConfigError(f"{source}: parameters.{PLUGIN_PARTS_KEY}.{section} is not a part entry") from None
 
 
 def calibration_path(run_dir: str | Path) -> Path:

@@ -50,7 +50,13 @@ from pqflow.calibration.parts import credit_from_json
 from pqflow.errors import IntegrityError
 from pqflow.market.serialize import curve_from_json
 from pqflow.models.cir_credit import CreditRating
-from pqflow.storage.calibration_file import calibration_path, calibration_record
+from pqflow.models.parts import PART_KINDS
+from pqflow.storage.calibration_file import (
+    PLUGIN_PARTS_KEY,
+    calibration_path,
+    calibration_record,
+    plugin_part_fields,
+)
 from pqflow.storage.names import CPI as CPI_COLUMN
 from pqflow.storage.names import cumulative_intensity_column
 from pqflow.validation.run_files import RunInputs
@@ -58,6 +64,7 @@ from pqflow.validation.run_files import RunInputs
 __all__ = [
     "MartingaleAsset",
     "martingale_assets",
+    "plugin_assets",
     "inflation_assets",
     "credit_assets",
     "real_bond_maturity_of",
@@ -226,7 +233,25 @@ def credit_assets(inputs: RunInputs, columns: Sequence[str]) -> list[MartingaleA
     return out
 
 
+def plugin_assets(inputs: RunInputs, columns: Sequence[str]) -> list[MartingaleAsset]:
+    """The traded claims of the registered part plug-ins recorded in ``calibration.json``
+    (:meth:`pqflow.models.parts.PartKind.martingale_assets`; a kind may declare none)."""
+    source = calibration_path(inputs.run_dir)
+    out = []
+    for name, entry in calibration_record(inputs.calibration, source).plugin_parts.items():
+        kind = PART_KINDS.get(name)
+        if kind is None:
+            raise IntegrityError(f"{source}: parameters.{PLUGIN_PARTS_KEY}.{name}: no part kind {name!r} is "
+                                 "registered, so its martingale assets cannot be formed")
+        form, _ = plugin_part_fields(entry, source, name)
+        for a in kind.martingale_assets(kind.from_json(form), inputs.curve, columns):
+            out.append(MartingaleAsset(name=a.name, description=a.description, columns=a.columns, value=a.value,
+                                       reference=a.reference))
+    return out
+
+
 def martingale_assets(inputs: RunInputs, columns: Sequence[str]) -> list[MartingaleAsset]:
-    """Every further asset the files' ``columns`` allow: inflation, then credit."""
+    """Every further asset the files' ``columns`` allow: inflation, credit, then the part
+    plug-ins'."""
     columns = list(columns)
-    return [*inflation_assets(inputs, columns), *credit_assets(inputs, columns)]
+    return [*inflation_assets(inputs, columns), *credit_assets(inputs, columns), *plugin_assets(inputs, columns)]
