@@ -101,13 +101,18 @@ Derive = Callable[[np.ndarray, dict[str, np.ndarray]], Mapping[str, np.ndarray]]
 Steps = Generator[None, None, T]
 
 
-def add_moments(
-    scan: SetPass, columns: Sequence[str], derive: Derive
-) -> Callable[[], tuple[np.ndarray, dict[str, Moments]]]:
-    """Register :func:`stream_moments` on a pass; the returned function gives its result once
-    the pass has run."""
-    antithetic = scan.scenario_set.antithetic
-    acc: dict[str, Moments] = {}
+A = TypeVar("A", Moments, CellMoments)
+
+
+def _add_accumulator(
+    scan: SetPass, columns: Sequence[str], derive: Derive,
+    accumulate: Callable[[np.ndarray, A | None], A],
+) -> Callable[[], tuple[np.ndarray, dict[str, A]]]:
+    """Register on a pass one running accumulator per quantity ``derive`` returns (values
+    ``(n_paths,)`` or ``(n_paths, k)``); ``accumulate(values, previous)`` merges a part's values
+    into what the earlier parts gave. The returned function gives the last part's times and the
+    accumulators once the pass has run."""
+    acc: dict[str, A] = {}
     seen: list[np.ndarray] = []
 
     def feed(times: np.ndarray, cols: dict[str, np.ndarray]) -> None:
@@ -115,18 +120,31 @@ def add_moments(
             values = np.asarray(values, dtype=float)
             if values.ndim == 1:
                 values = values[:, None]
-            m = Moments.of(sampling_units(values, antithetic))
-            acc[name] = m if name not in acc else acc[name].merge(m)
+            acc[name] = accumulate(values, acc.get(name))
         seen[:] = [times]
 
     scan.add(columns, feed)
 
-    def result() -> tuple[np.ndarray, dict[str, Moments]]:
+    def result() -> tuple[np.ndarray, dict[str, A]]:
         if not seen:
             raise IntegrityError(f"{scan.scenario_set.set_dir}: no scenario parts found")
         return seen[0], acc
 
     return result
+
+
+def add_moments(
+    scan: SetPass, columns: Sequence[str], derive: Derive
+) -> Callable[[], tuple[np.ndarray, dict[str, Moments]]]:
+    """Register :func:`stream_moments` on a pass; the returned function gives its result once
+    the pass has run."""
+    antithetic = scan.scenario_set.antithetic
+
+    def accumulate(values: np.ndarray, prev: Moments | None) -> Moments:
+        m = Moments.of(sampling_units(values, antithetic))
+        return m if prev is None else prev.merge(m)
+
+    return _add_accumulator(scan, columns, derive, accumulate)
 
 
 def add_cells(
@@ -134,27 +152,12 @@ def add_cells(
 ) -> Callable[[], tuple[np.ndarray, dict[str, CellMoments]]]:
     """Register :func:`stream_cells` on a pass (as :func:`add_moments`)."""
     antithetic = scan.scenario_set.antithetic
-    acc: dict[str, CellMoments] = {}
-    seen: list[np.ndarray] = []
 
-    def feed(times: np.ndarray, cols: dict[str, np.ndarray]) -> None:
-        for name, values in derive(times, cols).items():
-            values = np.asarray(values, dtype=float)
-            if values.ndim == 1:
-                values = values[:, None]
-            prev = acc.get(name)
-            m = CellMoments.of(values, antithetic, None if prev is None else prev.shift)
-            acc[name] = m if prev is None else prev.merge(m)
-        seen[:] = [times]
+    def accumulate(values: np.ndarray, prev: CellMoments | None) -> CellMoments:
+        m = CellMoments.of(values, antithetic, None if prev is None else prev.shift)
+        return m if prev is None else prev.merge(m)
 
-    scan.add(columns, feed)
-
-    def result() -> tuple[np.ndarray, dict[str, CellMoments]]:
-        if not seen:
-            raise IntegrityError(f"{scan.scenario_set.set_dir}: no scenario parts found")
-        return seen[0], acc
-
-    return result
+    return _add_accumulator(scan, columns, derive, accumulate)
 
 
 def add_gather(
