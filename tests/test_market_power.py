@@ -67,6 +67,15 @@ def _families(sigma_paths: float, n_families: int, seed: int, pairs: int = PAIRS
     for c0 in range(0, n_families, chunk):
         c1 = min(n_families, c0 + chunk)
         _simulate(specs, sigma_paths, rng, pairs, mc[:, c0:c1], se[:, c0:c1], paying[:, c0:c1])
+    failed, weak, thin = _judge(specs, mc, se, paying, crit)
+    return failed, weak, thin, failed.any(axis=0), crit
+
+
+def _judge(specs, mc, se, paying, crit):
+    """The check's rule on ``(cells, families)`` arrays: each quote judged against its market
+    price with the stated tolerance, then against the model price without one. Returns
+    ``(failed, weak, thin)``, each ``(2 * cells, families)``, quote cells first."""
+    n, n_families = mc.shape
     tol = np.array([abs(_vega(s)) * DEFAULT_VOL_TOLERANCE["lognormal"] for s in specs])
     material = np.array([_material_price(s, _vega(s), DEFAULT_VOL_TOLERANCE) for s in specs])
     price = np.array([s.market_price for s in specs])
@@ -79,7 +88,7 @@ def _families(sigma_paths: float, n_families: int, seed: int, pairs: int = PAIRS
     failed = (table["z_score"].abs() > crit).to_numpy().reshape(2 * n, n_families)
     weak = inconclusive_mask(table, crit).to_numpy().reshape(2 * n, n_families)
     thin = (~table["judged"].to_numpy()).reshape(2 * n, n_families)
-    return failed, weak, thin, failed.any(axis=0), crit
+    return failed, weak, thin
 
 
 def _simulate(specs, sigma_paths, rng, pairs, mc, se, paying) -> None:
@@ -232,22 +241,8 @@ def _weighted_families(sigma_paths: float, n_families: int, seed: int, pairs: in
                 second = np.mean([y * y / p for y, p in zip(yq, p_density, strict=True)], axis=(0, 1))
                 first = np.mean(yq, axis=(0, 1))
                 se_floor[j, c0:c1] = spread_from_other_measure(second, first, 2 * pairs)
-    tol = np.array([abs(_vega(s)) * DEFAULT_VOL_TOLERANCE["lognormal"] for s in specs])
-    material = np.array([_material_price(s, _vega(s), DEFAULT_VOL_TOLERANCE) for s in specs])
-    price = np.array([s.market_price for s in specs])
-
-    def judge(se: np.ndarray):
-        def cells(tolerance: np.ndarray):
-            rep = lambda v: np.repeat(v[:, None], n_families, axis=1).ravel()  # noqa: E731
-            return quote_cells(mc.ravel(), se.ravel(), rep(price), rep(tolerance), rep(material), paying.ravel())
-
-        table = pd.concat([cells(tol), cells(np.zeros(n))], ignore_index=True)
-        failed = (table["z_score"].abs() > crit).to_numpy().reshape(2 * n, n_families)
-        weak = inconclusive_mask(table, crit).to_numpy().reshape(2 * n, n_families)
-        return failed, weak
-
-    failed, weak = judge(np.maximum(se_sample, se_floor))
-    failed_plain, _ = judge(se_sample)
+    failed, weak, _ = _judge(specs, mc, np.maximum(se_sample, se_floor), paying, crit)
+    failed_plain, _, _ = _judge(specs, mc, se_sample, paying, crit)
     return failed, weak, failed_plain, failed.any(axis=0), failed_plain.any(axis=0), crit
 
 
