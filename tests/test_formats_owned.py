@@ -40,9 +40,6 @@ CALIBRATION_KEYS = frozenset({"parameters", "instruments", "expected_short_rate"
 
 #: Files outside storage/ allowed to keep a spelled format, each with its reason.
 ALLOWED: dict[str, str] = {
-    # the scenario-set reader is being replaced by a single-pass reader inside storage/ (in
-    # progress on another branch); until then it reads the metadata keys itself
-    "validation/reader.py": "scenario-set reader, moving into storage/",
     # reads calibration.json into the dict the checks receive (the same replacement as above)
     "validation/run_files.py": "the checks' run reader, moving into storage/",
     # the Heston fit record is the owner's own nested form (calibration/heston_parts.py), its

@@ -41,7 +41,7 @@ from pqflow.storage.calibration_file import (
 )
 from pqflow.storage.jsonio import read_json, write_text_atomic
 from pqflow.storage.names import bond_maturity_of, density_column, spread_prefix
-from pqflow.validation.reader import ScenarioSetReader
+from pqflow.storage.scenario_set import ScenarioSet
 from pqflow.validation.run_files import gather_at_times
 
 __all__ = [
@@ -884,7 +884,7 @@ def _fan_data(run_dir: Path) -> tuple[list[_Driver], dict[str, dict[str, Any]]]:
     data: dict[str, dict[str, Any]] = {}
     drivers: list[_Driver] | None = None
     for measure in MEASURES:
-        reader = ScenarioSetReader(run_dir=run_dir, measure=measure)
+        reader = ScenarioSet(run_dir=run_dir, measure=measure)
         names = reader.column_names()
         mine = _drivers(names)
         drivers = mine if drivers is None else [d for d in drivers if d.label in {x.label for x in mine}]
