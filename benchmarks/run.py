@@ -404,9 +404,9 @@ def scaling_child(scenarios: int, steps_per_year: int, workdir: str) -> None:
     from pqflow.calibration import assemble_calibration
     from pqflow.config import load_config
     from pqflow.jobs.steps import generate_part, plan_run
+    from pqflow.storage.scenario_set import ScenarioSet
     from pqflow.validation.density import density_table
     from pqflow.validation.martingale import martingale_table
-    from pqflow.validation.reader import ScenarioSetReader
 
     work = Path(workdir) / f"scale-{scenarios}-{steps_per_year}"
     work.mkdir()
@@ -418,7 +418,7 @@ def scaling_child(scenarios: int, steps_per_year: int, workdir: str) -> None:
     for b in plan.batches_for("real_world"):
         generate_part(cal, plan, "real_world", b, work)
     t1 = time.perf_counter()
-    reader = ScenarioSetReader(run_dir=work, measure="real_world")
+    reader = ScenarioSet(run_dir=work, measure="real_world")
     martingale_table(reader, cal.curve.discount)
     density_table(reader)
     t2 = time.perf_counter()

@@ -10,7 +10,13 @@ The check reads the source of every module of ``src/pqflow`` outside ``storage/`
   ``f"q_density_{block}"`` ...): the naming functions of ``pqflow.storage.names`` do that;
 * a subscript or ``.get`` of a top-level key only ``calibration.json`` has (``parameters``,
   ``instruments``, ``expected_short_rate``, ``inputs_sha256``, ``format_version``): readers use
-  ``pqflow.storage.calibration_file.CalibrationRecord``.
+  ``pqflow.storage.calibration_file.CalibrationRecord``;
+* a subscript or ``.get`` of a key of the file's credit, Heston, driver-correlation or fit
+  sections (``ratings``, ``cir``, ``prices_of_risk``, ``drivers``, ``rmse_bp``,
+  ``feller_ratio`` ...): readers use the typed records of
+  ``pqflow.storage.calibration_sections`` (``record.credit.ratings``, ``record.heston_fits``
+  ...); and a string subscript or ``.get`` directly on a record's section attribute
+  (``record.credit["ratings"]``, ``record.parameters.get("credit")``).
 
 Common practice (a single owner per format, enforced by a source scan) rather than a published
 source. Each check below is shown to fire on a planted line, so the scan cannot pass vacuously.
@@ -37,21 +43,38 @@ COLUMN_PREFIXES = (
     "spread_", "q_density_", "p_density_",
 )
 CALIBRATION_KEYS = frozenset({"parameters", "instruments", "expected_short_rate", "inputs_sha256", "format_version"})
+#: keys of the nested sections of calibration.json that storage/calibration_sections.py types
+#: (credit, Heston indices, driver correlation, the fit records of curve, rates, credit, Heston
+#: and correlation); distinctive enough that no other format this package reads spells them
+SECTION_KEYS = frozenset({
+    # parameters.credit
+    "ratings", "cir", "hazard", "hazards", "recovery", "bond_maturities", "substeps_per_year",
+    # parameters.stochastic_volatility
+    "stochastic_volatility", "prices_of_risk", "kappa_real_world", "theta_real_world", "loadings", "explained",
+    "rates_correlation",
+    # parameters.driver_correlation
+    "driver_correlation", "drivers", "matrix",
+    # fit.curve, fit.hull_white / fit.g2pp, fit.credit, fit.heston, fit.correlation
+    "rmse_bp", "max_abs_error_bp", "min_shift", "max_shift", "feller_ratio",
+    "real_world_long_run_mean", "market_consistent_long_run_mean", "market_spread", "rmse_vol_points",
+    "max_abs_vol_points", "at_bounds", "vol_points", "repaired", "frobenius_distance", "gap_to_omega_bp",
+    "llfr_terms", "alpha_floor", "alpha_source", "forward_at_convergence", "max_repricing_error",
+})
+# not listed although the sections hold them: "credit" (compare's group of the same name),
+# "convergence_point" (the report's curve facts), "vol_difference_bp" (a column of the
+# market-consistency table), "last_liquid_forward_rate" and "first_smoothing_point" (also keys
+# of the stored curve that market/serialize.py owns)
+#: attributes of CalibrationRecord holding a section: a string key read directly on them is a
+#: raw read of the file's form
+SECTION_ATTRIBUTES = frozenset({"parameters", "fit", "credit", "stochastic_volatility", "driver_correlation"})
 
 #: Files outside storage/ allowed to keep a spelled format, each with its reason.
 ALLOWED: dict[str, str] = {
-    # the scenario-set reader is being replaced by a single-pass reader inside storage/ (in
-    # progress on another branch); until then it reads the metadata keys itself
-    "validation/reader.py": "scenario-set reader, moving into storage/",
-    # reads calibration.json into the dict the checks receive (the same replacement as above)
-    "validation/run_files.py": "the checks' run reader, moving into storage/",
-    # the Heston fit record is the owner's own nested form (calibration/heston_parts.py), its
-    # "parameters" key is not the file's top-level key
-    "cli.py::_print_heston_fits": "nested fit record of calibration/heston_parts.py",
-    # the same nested Heston fit record, shown by the report's smile section
-    "report/smile.py::smile_fit_html": "nested fit record of calibration/heston_parts.py",
     # the Prefect deployment's own "parameters" (flow arguments), not the calibration file's
     "cli.py::deploy": "Prefect deployment description",
+    # the configuration's [credit] table as a TOML dict (its ratings' spreads shifted), not
+    # calibration.json's credit part
+    "sensitivities/shocks.py::shocked_config": "the configuration's own [credit] ratings",
 }
 
 
@@ -101,10 +124,27 @@ def violations(source: str, rel: str) -> list[str]:
             key = node.slice
             if isinstance(key, ast.Constant) and key.value in CALIBRATION_KEYS:
                 found.append(f"{rel}:{node.lineno}: calibration.json key [{key.value!r}]")
+            elif isinstance(key, ast.Constant) and key.value in SECTION_KEYS:
+                found.append(f"{rel}:{node.lineno}: calibration.json section key [{key.value!r}]")
+            elif isinstance(key, ast.Constant) and isinstance(key.value, str) and _on_section(node.value):
+                found.append(f"{rel}:{node.lineno}: string key [{key.value!r}] on a calibration.json section")
         elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.func.attr == "get"
-              and node.args and isinstance(node.args[0], ast.Constant) and node.args[0].value in CALIBRATION_KEYS):
-            found.append(f"{rel}:{node.lineno}: calibration.json key .get({node.args[0].value!r})")
+              and node.args and isinstance(node.args[0], ast.Constant)):
+            key_value = node.args[0].value
+            if key_value in CALIBRATION_KEYS:
+                found.append(f"{rel}:{node.lineno}: calibration.json key .get({key_value!r})")
+            elif key_value in SECTION_KEYS:
+                found.append(f"{rel}:{node.lineno}: calibration.json section key .get({key_value!r})")
+            elif isinstance(key_value, str) and _on_section(node.func.value):
+                found.append(f"{rel}:{node.lineno}: string key .get({key_value!r}) on a calibration.json section")
     return found
+
+
+def _on_section(node: ast.AST) -> bool:
+    """``x.credit``, ``x.parameters``, ``x.part_fit(...)`` ...: a section of a calibration record."""
+    if isinstance(node, ast.Attribute):
+        return node.attr in SECTION_ATTRIBUTES
+    return isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.func.attr == "part_fit"
 
 
 def _modules() -> list[Path]:
@@ -138,6 +178,18 @@ def test_every_allowed_entry_still_exists():
     ('col = f"p_density_{block}"', 'f"p_density_{...}"'),
     ('curve = cal["parameters"]["curve"]', "key ['parameters']"),
     ('quotes = cal.get("instruments") or {}', "key .get('instruments')"),
+    # the typed sections: credit, Heston indices, driver correlation, fit records
+    ('ratings = credit["ratings"]', "section key ['ratings']"),
+    ('kappa = rating.get("cir")["mean_reversion"]', "section key .get('cir')"),
+    ('lam = entry["prices_of_risk"]', "section key ['prices_of_risk']"),
+    ('names = dc.get("drivers", [])', "section key .get('drivers')"),
+    ('rmse = fit["rmse_bp"]', "section key ['rmse_bp']"),
+    ('feller = h.get("feller_ratio")', "section key .get('feller_ratio')"),
+    ('d = corr["frobenius_distance"]', "section key ['frobenius_distance']"),
+    ('terms = curve["llfr_terms"]', "section key ['llfr_terms']"),
+    ('aa = cal.credit["AA"]', "string key ['AA'] on a calibration.json section"),
+    ('eq = cal.parameters.get("equity")', "string key .get('equity') on a calibration.json section"),
+    ('rows = cal.part_fit("hull_white")["rows"]', "string key ['rows'] on a calibration.json section"),
 ])
 def test_the_scan_fires_on_a_planted_line(line, what):
     found = violations(f"def f(cal, run, m, name, block):\n    {line}\n", "planted.py")

@@ -36,6 +36,7 @@ import pytest
 from pqflow.measure.heston_density import HestonPricesOfRisk, heston_prices_of_risk
 from pqflow.models.heston import HestonParams
 from pqflow.simulation.heston_scheme import simulate_heston_paths
+from pqflow.storage.calibration_sections import heston_indices_record
 from pqflow.validation.mean_tests import (
     DENSITY_DEVIATION,
     LOGNORMAL,
@@ -98,9 +99,11 @@ def _parameters(real_world_vol) -> dict:
     """The calibration.json entry the check reads for this fit and house view."""
     lam = _prices(real_world_vol)
     return {"stochastic_volatility": {"veldmark_all_share": {
-        "kappa": FIT.kappa, "theta": FIT.theta,
+        "model": "heston", **FIT.as_dict(), "column": "equity_veldmark_all_share", "level": 1000.0,
+        "income_yield": 0.028,
         "prices_of_risk": {"equity": lam.equity, "variance": lam.variance,
-                           "kappa_real_world": lam.kappa_real_world, "theta_real_world": lam.theta_real_world}}}}
+                           "kappa_real_world": lam.kappa_real_world, "theta_real_world": lam.theta_real_world},
+        "loadings": [], "explained": EXPLAINED, "rates_correlation": -0.15, "substeps_per_year": 12}}}
 
 
 @pytest.mark.parametrize("real_world_vol", [None, 0.20, 0.15],
@@ -126,7 +129,8 @@ def test_size_and_power_on_heston_densities(real_world_vol, report_statistic) ->
         f"{PAIRS} pairs: false alarms lognormal identity {rate[LOGNORMAL]:.3f}, robust t {rate[ROBUST]:.3f} "
         f"(nominal {FAMILY_ALPHA:.2f}, limit {limit:.3f}); the check uses the {used}")
     assert used == ROBUST
-    unmeasured = unmeasured_heston_drivers(_parameters(real_world_vol)["stochastic_volatility"])
+    unmeasured = unmeasured_heston_drivers(
+        heston_indices_record(_parameters(real_world_vol)["stochastic_volatility"], "calibration.json"))
     line += f"; outside the measured range: {bool(unmeasured)}"
     if not unmeasured:  # within HESTON_MEASURED_SHIFT the rule judges, and holds its level
         assert rate[ROBUST] <= limit, line

@@ -59,7 +59,7 @@ PINNED: dict[str, list[str] | None] = {
         "resolve_target", "run_lock", "verify_run", "verify_target", "write_json_atomic", "write_part",
     ],
     "pqflow.validation": [
-        "CheckResult", "Moments", "RunInputs", "RunValidation", "ScenarioSetReader", "density_table",
+        "CheckResult", "Moments", "RunInputs", "RunValidation", "density_table",
         "load_run_inputs", "market_consistency_check", "martingale_table", "overall_verdict", "real_world_check",
         "reconciliation_check", "run_checks", "summarise", "validate_run", "wealth_ratio_benchmark",
     ],

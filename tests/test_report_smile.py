@@ -6,6 +6,7 @@ themselves and the vol-point convention (100 x the decimal volatility; common pr
 from __future__ import annotations
 
 from pqflow.report import smile
+from pqflow.storage.calibration_sections import HestonFitRowRecord, heston_fit_records
 
 FIT = {
     "veldmark_all_share": {
@@ -23,16 +24,16 @@ FIT = {
 
 
 def test_smile_rows_are_sorted_with_the_difference_in_vol_points() -> None:
-    rows = smile.smile_rows(FIT["veldmark_all_share"])
+    rows = smile.smile_rows(heston_fit_records(FIT, "calibration.json")["veldmark_all_share"].rows)
     assert [(r["expiry"], r["moneyness"]) for r in rows] == [(0.5, 0.6), (1.0, 1.1)]
     assert abs(rows[0]["difference"] - (-0.131)) < 1e-12
     # without the recorded difference it is 100 x (model - market)
-    no_diff = {"rows": [{"expiry": 1, "moneyness": 1, "kind": "call", "market_vol": 0.20, "model_vol": 0.2125}]}
+    no_diff = [HestonFitRowRecord(expiry=1, moneyness=1, kind="call", market_vol=0.20, model_vol=0.2125)]
     assert abs(smile.smile_rows(no_diff)[0]["difference"] - 1.25) < 1e-12
 
 
 def test_smile_fit_html_shows_parameters_feller_rmse_and_every_quote() -> None:
-    html = smile.smile_fit_html(FIT)
+    html = smile.smile_fit_html(heston_fit_records(FIT, "calibration.json"))
     for text in ("veldmark all share", "0.0291", "1.064", "0.302", "below 1", "0.150", "0.430",
                  "30.43", "30.30", "-0.13", "13.96", "13.90", "-0.06", "put", "call"):
         assert text in html, text

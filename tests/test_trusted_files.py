@@ -63,7 +63,7 @@ def edit_manifest(run: Path, change) -> None:
 # ------------------------------------------------------------------- 4. unlisted files
 
 def test_a_copied_in_part_is_reported_and_never_read(run_copy, tmp_path):
-    from pqflow.validation.reader import ScenarioSetReader
+    from pqflow.storage.scenario_set import ScenarioSet
 
     rw = run_copy / "scenarios" / "real_world"
     listed = sorted(p.name for p in rw.iterdir())
@@ -73,7 +73,7 @@ def test_a_copied_in_part_is_reported_and_never_read(run_copy, tmp_path):
         assert_clean_error(invoke(*reader_args(command, run_copy, tmp_path)), 2,
                            "scenarios/real_world/part-00004.parquet", "not listed")
     # Readers of a finished run take the manifest's list: 200 scenarios, not 250.
-    reader = ScenarioSetReader(run_dir=run_copy, measure="real_world")
+    reader = ScenarioSet(run_dir=run_copy, measure="real_world")
     assert [p.name for p in reader.parts()] == listed
     assert sum(arrays["short_rate"].shape[0] for _, arrays in reader.iter_arrays(["short_rate"])) == 200
     assert not (run_copy / "valuation").exists()

@@ -9,6 +9,7 @@ output directory), nothing written; 3 runtime fault (disk full, permissions); 13
 
 from __future__ import annotations
 
+import math
 import sys
 import time
 from pathlib import Path
@@ -35,6 +36,7 @@ from pqflow.storage.names import density_column
 
 if TYPE_CHECKING:
     from pqflow.storage.calibration_file import CalibrationRecord
+    from pqflow.storage.calibration_sections import CurveFitRecord, HestonFitRecord
 
 __all__ = ["app", "main"]
 
@@ -533,31 +535,31 @@ def calibrate(
     _caution()
 
 
-def _print_heston_fits(fits: dict[str, Any]) -> None:
+def _print_heston_fits(fits: dict[str, HestonFitRecord]) -> None:
     """Each Heston index's parameters, Feller ratio and per-quote fit in vol points."""
     for name, h in fits.items():
-        p = h["parameters"]
         console.print(
-            f"index {name} (Heston): v0 = {p['v0']:.5f}, kappa = {p['kappa']:.4f}, theta = {p['theta']:.5f}, "
-            f"xi = {p['xi']:.4f}, rho = {p['rho']:.4f}; Feller ratio 2 kappa theta / xi^2 = {h['feller_ratio']:.3f}"
-            f"{' (below 1: the variance reaches zero)' if h['feller_ratio'] < 1 else ''}; smile RMSE "
-            f"{h['rmse_vol_points']:.3f} vol points (max {h['max_abs_vol_points']:.3f}); {h['method']}"
-            + (f"; at bounds: {', '.join(h['at_bounds'])}" if h["at_bounds"] else ""),
+            f"index {name} (Heston): v0 = {h.v0:.5f}, kappa = {h.kappa:.4f}, theta = {h.theta:.5f}, "
+            f"xi = {h.xi:.4f}, rho = {h.rho:.4f}; Feller ratio 2 kappa theta / xi^2 = {h.feller_ratio:.3f}"
+            f"{' (below 1: the variance reaches zero)' if h.feller_ratio < 1 else ''}; smile RMSE "
+            f"{h.rmse_vol_points:.3f} vol points (max {h.max_abs_vol_points:.3f}); {h.method}"
+            + (f"; at bounds: {', '.join(h.at_bounds)}" if h.at_bounds else ""),
             highlight=False,
         )
         table = Table(title=f"{name}: smile fit (vol points; 1 = 0.01)")
         for col in ("expiry", "K/F", "weight", "market", "model", "model - market"):
             table.add_column(col, justify="right")
-        for r in h["rows"]:
-            table.add_row(f"{r['expiry']:g}", f"{r['moneyness']:g}", f"{r['weight']:g}", f"{100 * r['market_vol']:.2f}",
-                          f"{100 * r['model_vol']:.2f}", f"{r['vol_points']:+.2f}")
+        for r in h.rows:
+            diff = r.vol_points if r.vol_points is not None else 100.0 * (r.model_vol - r.market_vol)
+            table.add_row(f"{r.expiry:g}", f"{r.moneyness:g}", "" if r.weight is None else f"{r.weight:g}",
+                          f"{100 * r.market_vol:.2f}", f"{100 * r.model_vol:.2f}", f"{diff:+.2f}")
         console.print(table)
 
 
 def _print_fit(record: CalibrationRecord) -> None:
     model = record.rates_model
-    rates_fit = record.part_fit(model)
-    rmse = f"  (swaption fit RMSE {fmt.bp(rates_fit['rmse_bp'], 2)} normal vol)" if "rmse_bp" in rates_fit else ""
+    rates_fit = record.rates_fit
+    rmse = f"  (swaption fit RMSE {fmt.bp(rates_fit.rmse_bp, 2)} normal vol)" if rates_fit.rmse_bp is not None else ""
     g, hw = record.g2pp, record.hull_white
     if model == "g2pp" and g is not None:
         console.print(
@@ -568,7 +570,7 @@ def _print_fit(record: CalibrationRecord) -> None:
     elif hw is not None:
         console.print(f"Hull-White: a = {fmt.plain(hw.mean_reversion)}, sigma = {fmt.bp(1e4 * hw.volatility)} "
                       f"(normal){rmse}", highlight=False)
-    _print_curve_fit(record.part_fit("curve"))
+    _print_curve_fit(record.curve_fit)
     eq = record.part_fit("equity")
     if "bucket_volatilities" in eq:
         buckets = ", ".join(fmt.vol_points(v) for v in eq["bucket_volatilities"])
@@ -584,7 +586,7 @@ def _print_fit(record: CalibrationRecord) -> None:
             f"{fmt.percent(item['risk_premium'], 2)}",
             highlight=False,
         )
-    _print_heston_fits(dict(record.part_fit("heston")))
+    _print_heston_fits(record.heston_fits)
     inf = record.part_fit("inflation")
     p_inf = record.inflation
     if inf and p_inf is not None:
@@ -602,22 +604,22 @@ def _print_fit(record: CalibrationRecord) -> None:
                 f"price RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional",
                 highlight=False,
             )
-    for r in record.part_fit("credit").get("ratings", []):
+    for r in record.credit_fit.ratings:
         console.print(
-            f"credit {escape(str(r['rating']))}: spreads repriced to {fmt.bp(r['max_abs_error_bp'], 2)}; CIR++ shift "
+            f"credit {escape(r.rating)}: spreads repriced to {fmt.bp(r.max_abs_error_bp, 2)}; CIR++ shift "
             f"in "
-            f"[{fmt.percent(r['min_shift'])}, {fmt.percent(r['max_shift'])}]; Feller ratio {r['feller_ratio']:.2f}"
-            + (f"; fitted {', '.join(r['fitted'])}" if r["fitted"] else "")
-            + (f"; real world: theta {fmt.plain(r['price_of_risk'])}, long-run level "
-               f"{fmt.percent(r['real_world_long_run_mean'])} "
-               f"(market consistent {fmt.percent(r['market_consistent_long_run_mean'])})" if r.get("price_of_risk")
+            f"[{fmt.percent(r.min_shift)}, {fmt.percent(r.max_shift)}]; Feller ratio {r.feller_ratio:.2f}"
+            + (f"; fitted {', '.join(r.fitted)}" if r.fitted else "")
+            + (f"; real world: theta {fmt.plain(r.price_of_risk)}, long-run level "
+               f"{fmt.percent(r.real_world_long_run_mean)} "
+               f"(market consistent {fmt.percent(r.market_consistent_long_run_mean)})" if r.price_of_risk
                else ""),
             highlight=False,
         )
-    corr = record.part_fit("correlation")
-    if corr.get("repaired"):
+    corr = record.correlation_fit
+    if corr.repaired:
         console.print("correlation matrix repaired (Higham 2002), Frobenius distance "
-                      f"{fmt.number(corr['frobenius_distance'])}", style="yellow")
+                      f"{fmt.number(corr.frobenius_distance)}", style="yellow")
     paths = record.expected_short_rate
     if paths:
         target = paths.get("target")
@@ -640,42 +642,48 @@ def _print_fit(record: CalibrationRecord) -> None:
                 cells += ["", ""]
             table.add_row(*cells)
         console.print(table)
-    if rows := rates_fit.get("rows"):
+    if swaptions := rates_fit.swaptions:
         table = Table(title="Swaption fit (normal vols in bp)")
         for col in ("expiry", "tenor", "market", "model", "diff bp"):
             table.add_column(col, justify="right")
-        for r in rows:
-            table.add_row(fmt.years(r["expiry"]), fmt.years(r["tenor"]), fmt.bp(r["market_vol"]),
-                          fmt.bp(r["model_vol"]),
-                          fmt.bp(r["vol_difference_bp"], 2, sign=True))
+        for sw in swaptions:
+            table.add_row(fmt.years(sw.expiry), fmt.years(sw.tenor), fmt.bp(sw.market_vol),
+                          fmt.bp(sw.model_vol),
+                          fmt.bp(sw.vol_difference_bp, 2, sign=True))
         console.print(table)
 
 
-def _print_curve_fit(curve: dict[str, Any]) -> None:
-    if curve.get("method") == "last_liquid_forward":
-        freq = f", coupon frequency {curve['coupon_frequency']}" if curve.get("coupon_frequency") else ""
+def _print_curve_fit(curve: CurveFitRecord) -> None:
+    if curve.is_last_liquid_forward:
+        freq = f", coupon frequency {curve.coupon_frequency}" if curve.coupon_frequency else ""
         console.print(
-            f"last liquid forward (Solvency II review): {curve['input_kind']} inputs ({curve['inputs_used']}){freq}, "
-            f"CRA {curve['credit_risk_adjustment_bp']:g} bp; first smoothing point "
-            f"{curve['first_smoothing_point']:g}y, "
-            f"LLFR {curve['last_liquid_forward_rate']:.6%} (continuous), UFR {curve['ufr']:.4%} "
-            f"(omega {curve['omega']:.6%}), alpha = {curve['alpha']:g} ({curve['alpha_source']})",
+            f"last liquid forward (Solvency II review): {curve.input_kind} inputs ({curve.inputs_used}){freq}, "
+            f"CRA {_fit_value(curve.credit_risk_adjustment_bp):g} bp; first smoothing point "
+            f"{_fit_value(curve.first_smoothing_point):g}y, "
+            f"LLFR {_fit_value(curve.last_liquid_forward_rate):.6%} (continuous), UFR {_fit_value(curve.ufr):.4%} "
+            f"(omega {_fit_value(curve.omega):.6%}), alpha = {_fit_value(curve.alpha):g} ({curve.alpha_source})",
             highlight=False,
         )
         terms = ", ".join(
-            f"{t['weight']:g} x f({t['forward_from']:g},{t['maturity']:g}) = {t['forward']:.5%}"
-            for t in curve["llfr_terms"]
+            f"{t.weight:g} x f({t.forward_from:g},{t.maturity:g}) = {t.forward:.5%}"
+            for t in curve.llfr_terms
         )
         console.print(f"  LLFR = {terms}", highlight=False)
-    elif "alpha" in curve:
+    elif curve.alpha is not None:
         console.print(
-            f"Smith-Wilson: alpha = {curve['alpha']:.6f} (floor {curve['alpha_floor']:g}), forward at the "
-            f"convergence point {curve['convergence_point']:g}y = {curve['forward_at_convergence']:.6f} "
-            f"vs omega {curve['omega']:.6f} ({curve['gap_to_omega_bp']:+.3f} bp)",
+            f"Smith-Wilson: alpha = {curve.alpha:.6f} (floor {_fit_value(curve.alpha_floor):g}), forward at the "
+            f"convergence point {_fit_value(curve.convergence_point):g}y = "
+            f"{_fit_value(curve.forward_at_convergence):.6f} "
+            f"vs omega {_fit_value(curve.omega):.6f} ({_fit_value(curve.gap_to_omega_bp):+.3f} bp)",
             highlight=False,
         )
-    elif curve.get("method"):
-        console.print(f"curve: {curve['method']}", highlight=False)
+    elif curve.method:
+        console.print(f"curve: {curve.method}", highlight=False)
+
+
+def _fit_value(value: float | None) -> float:
+    """A value the fit record of its method always holds (NaN, shown as such, if it does not)."""
+    return math.nan if value is None else value
 
 
 @app.command("curve")
@@ -691,6 +699,7 @@ def curve_command(
     from pqflow.calibration.assemble import fit_curve
     from pqflow.config.loader import load_config
     from pqflow.market.curve_table import curve_table
+    from pqflow.storage.calibration_sections import curve_fit_record
     from pqflow.storage.curve_csv import write_curve_csv
 
     if out is not None and out.exists() and not overwrite:
@@ -700,8 +709,10 @@ def curve_command(
         table = curve_table(fitted)
     except PqflowError as exc:
         _fail(exc)
-    _print_curve_fit(fit)
-    grid = Table(title=f"Risk-free curve ({fit.get('method', 'typed in')}), whole maturities")
+    curve_fit = curve_fit_record(fit, "the curve fit")
+    _print_curve_fit(curve_fit)
+    grid = Table(title=f"Risk-free curve ({curve_fit.method if curve_fit.method is not None else 'typed in'}), "
+                       "whole maturities")
     for col in ("years", "zero (annual)", "zero (continuous)", "1y forward (annual)", "discount factor"):
         grid.add_column(col, justify="right")
     t = table["maturity_years"]

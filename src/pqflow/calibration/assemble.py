@@ -24,7 +24,7 @@ import numpy as np
 
 from pqflow import __version__
 from pqflow.calibration.g2pp_swaptions import calibrate_g2pp_to_swaptions
-from pqflow.calibration.heston_parts import fit_heston_indices, heston_from_json, heston_to_json
+from pqflow.calibration.heston_parts import fit_heston_indices, heston_indices_from_records, heston_to_json
 from pqflow.calibration.llfr_curve import fit_llfr_curve
 from pqflow.calibration.parts import (
     RATES_DRIVER,
@@ -32,7 +32,7 @@ from pqflow.calibration.parts import (
     calibrate_credit_part,
     calibrate_index,
     calibrate_inflation,
-    credit_from_json,
+    credit_from_record,
     credit_to_json,
     driver_correlation,
     fit_index_volatility,
@@ -84,6 +84,7 @@ from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.calibration_file import (
     CALIBRATION_FILE,
     PLUGIN_PARTS_KEY,
+    CalibrationRecord,
     calibration_document,
     calibration_path,
     plugin_part_entry,
@@ -278,12 +279,13 @@ def short_rate_correlation(rates: RatesModel, rho: float | tuple[float, float]) 
     return rates.short_rate_correlation(rho)
 
 
-def _parts_from_json(par: dict[str, Any], source: str | Path = CALIBRATION_FILE) -> dict[str, Any]:
+def _parts_from_json(par: dict[str, Any], record: CalibrationRecord,
+                     source: str | Path = CALIBRATION_FILE) -> dict[str, Any]:
     out: dict[str, Any] = {"extra_prices_of_risk": {}, "index_risk_premia": {}}
     if "correlation_with_rate_factors" in par["equity"]:
         out["rates_correlation"] = tuple(float(v) for v in par["equity"]["correlation_with_rate_factors"])
-    if "driver_correlation" in par:
-        out["correlation"] = DriverCorrelation.from_json(par["driver_correlation"])
+    if (dc := record.driver_correlation) is not None:
+        out["correlation"] = DriverCorrelation.from_record(dc)
     indices = []
     for item in par.get("indices", []):
         index, lam, premium = index_from_json(item)
@@ -295,10 +297,10 @@ def _parts_from_json(par: dict[str, Any], source: str | Path = CALIBRATION_FILE)
         out["inflation"] = inflation_from_json(par["inflation"])
         for k, v in par["inflation"]["market_prices_of_risk"].items():
             out["extra_prices_of_risk"][k] = _load_schedule(v)
-    if "credit" in par:
-        out["credit"], out["credit_substeps_per_year"] = credit_from_json(par["credit"])
-    if "stochastic_volatility" in par:
-        out["stochastic_volatility"] = heston_from_json(par["stochastic_volatility"])
+    if (credit := record.credit) is not None:
+        out["credit"], out["credit_substeps_per_year"] = credit_from_record(credit)
+    if record.stochastic_volatility:
+        out["stochastic_volatility"] = heston_indices_from_records(record.stochastic_volatility)
     plugged: dict[str, GaussianPart] = {}
     for name, entry in (par.get(PLUGIN_PARTS_KEY) or {}).items():
         form, lams = plugin_part_fields(entry, source, name)
@@ -338,7 +340,7 @@ def load_calibration(path: str | Path) -> Calibration:
             fit=dict(record.fit),
             instruments=dict(record.instruments) if record.has_instruments else {"swaptions": [], "equity_options": []},
             real_world_view=par.get("real_world_view", {}),
-            **_parts_from_json(par, path),
+            **_parts_from_json(par, record, path),
         )
     except FileNotFoundError:
         raise ConfigError(f"{path}: calibration file not found") from None

@@ -7,6 +7,7 @@ rates and each index's correlation with the rate driver(s) from the driver corre
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
@@ -18,12 +19,19 @@ from pqflow.market.curve import DiscountCurve
 from pqflow.market.data_files import read_equity_vols
 from pqflow.measure.heston_density import heston_prices_of_risk
 from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.heston import HestonIndex, heston_indices_from_json, heston_indices_to_json
+from pqflow.models.heston import (
+    HestonIndex,
+    HestonParams,
+    HestonPricesOfRisk,
+    heston_indices_to_json,
+)
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.schedule import as_schedule
+from pqflow.storage.calibration_sections import HestonIndexRecord
 from pqflow.storage.names import index_column
 
-__all__ = ["heston_indices", "fit_heston_indices", "heston_to_json", "heston_from_json"]
+__all__ = ["heston_indices", "fit_heston_indices", "heston_to_json", "heston_from_record",
+           "heston_indices_from_records"]
 
 RATES_DRIVER = "rates"
 
@@ -156,4 +164,23 @@ def fit_heston_indices(
 
 
 heston_to_json = heston_indices_to_json
-heston_from_json = heston_indices_from_json
+
+
+def heston_from_record(rec: HestonIndexRecord) -> HestonIndex:
+    """A Heston index from its typed ``calibration.json`` record (``CalibrationRecord.
+    stochastic_volatility``; ``ValueError`` if the values do not make a Heston index)."""
+    lam = rec.prices_of_risk
+    return HestonIndex(
+        name=rec.name, column=rec.column, level=rec.level, income_yield=rec.income_yield,
+        params=HestonParams(v0=rec.v0, kappa=rec.kappa, theta=rec.theta, xi=rec.xi, rho=rec.rho),
+        prices_of_risk=HestonPricesOfRisk(equity=lam.equity, variance=lam.variance,
+                                          kappa_real_world=lam.kappa_real_world,
+                                          theta_real_world=lam.theta_real_world),
+        loadings=rec.loadings, explained=rec.explained, rates_correlation=rec.rates_correlation,
+        substeps_per_year=rec.substeps_per_year,
+    )
+
+
+def heston_indices_from_records(records: Mapping[str, HestonIndexRecord]) -> dict[str, HestonIndex]:
+    """Every Heston index of ``CalibrationRecord.stochastic_volatility``, by name."""
+    return {name: heston_from_record(rec) for name, rec in records.items()}

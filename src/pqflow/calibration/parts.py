@@ -57,6 +57,10 @@ from pqflow.models.jarrow_yildirim import JarrowYildirimParams
 from pqflow.models.parts import PART_KINDS
 from pqflow.models.rates import RatesModel
 from pqflow.models.schedule import PiecewiseConstant
+from pqflow.storage.calibration_sections import (
+    CreditRecord,
+    DriverCorrelationRecord,
+)
 
 __all__ = [
     "RATES_DRIVER",
@@ -76,7 +80,7 @@ __all__ = [
     "inflation_to_json",
     "inflation_from_json",
     "credit_to_json",
-    "credit_from_json",
+    "credit_from_record",
 ]
 
 #: Name of the short-rate driver in a correlation matrix (Hull-White; G2++ has ``rates_x`` and
@@ -116,8 +120,9 @@ class DriverCorrelation:
         return {"drivers": list(self.names), "matrix": self.matrix.tolist()}
 
     @classmethod
-    def from_json(cls, data: dict[str, Any]) -> DriverCorrelation:
-        return cls(names=tuple(data["drivers"]), matrix=np.array(data["matrix"], dtype=float))
+    def from_record(cls, rec: DriverCorrelationRecord) -> DriverCorrelation:
+        """From ``CalibrationRecord.driver_correlation``."""
+        return cls(names=rec.drivers, matrix=np.array(rec.matrix, dtype=float))
 
 
 def driver_names(config: RunConfig) -> tuple[str, ...]:
@@ -595,17 +600,17 @@ def credit_to_json(model: CirCreditModel, substeps_per_year: int) -> dict[str, A
     }
 
 
-def credit_from_json(data: dict[str, Any]) -> tuple[CirCreditModel, int]:
+def credit_from_record(rec: CreditRecord) -> tuple[CirCreditModel, int]:
+    """The credit model and its Euler substeps per year from ``CalibrationRecord.credit``."""
     ratings = tuple(
         CreditRating(
-            name=r["name"], recovery=float(r["recovery"]), price_of_risk=float(r["price_of_risk"]),
-            cir=CirParams(**{k: float(v) for k, v in r["cir"].items()}),
-            hazard=HazardCurve(knots=np.array(r["hazard"]["knots"], float), hazards=np.array(r["hazard"]["hazards"],
-                                                                                             float)),
+            name=r.name, recovery=r.recovery, price_of_risk=r.price_of_risk,
+            cir=CirParams(mean_reversion=r.cir.mean_reversion, long_run_mean=r.cir.long_run_mean,
+                          volatility=r.cir.volatility, initial=r.cir.initial),
+            hazard=HazardCurve(knots=np.array(r.hazard.knots, float), hazards=np.array(r.hazard.hazards, float)),
         )
-        for r in data["ratings"]
+        for r in rec.ratings
     )
-    corr = data.get("correlation")
-    model = CirCreditModel(ratings=ratings, bond_maturities=tuple(float(m) for m in data["bond_maturities"]),
-                           correlation=None if corr is None else np.array(corr, dtype=float))
-    return model, int(data["substeps_per_year"])
+    model = CirCreditModel(ratings=ratings, bond_maturities=rec.bond_maturities,
+                           correlation=None if rec.correlation is None else np.array(rec.correlation, dtype=float))
+    return model, rec.substeps_per_year

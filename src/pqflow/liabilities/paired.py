@@ -29,8 +29,8 @@ from pqflow.liabilities.valuation import (
     inspect_run,
     portfolio_reads,
 )
+from pqflow.storage.scenario_set import ScenarioSet
 from pqflow.validation.moments import sampling_units
-from pqflow.validation.reader import ScenarioSetReader
 
 __all__ = ["UnitValues", "unit_values", "paired_difference"]
 
@@ -60,7 +60,7 @@ def unit_values(run_dir: str | Path, portfolio: Portfolio | str | Path,
     interp, bond_cols, columns = reads.interpolation, list(reads.bond_columns), list(reads.columns)
     groups = _groups(portfolio)
     member = _membership(groups, len(portfolio.model_points))
-    reader = ScenarioSetReader(run_dir=Path(run_dir), measure=measure)
+    reader = ScenarioSet(run_dir=Path(run_dir), measure=measure)
     chunks = []
     for times, cols in reader.iter_arrays(columns):
         scen = annual_scenarios(times, cols, last_year=last, equity_column=equity_col,

@@ -34,8 +34,8 @@ from pqflow.liabilities.valuation import QUANTITIES, RunInfo, check_portfolio_ag
 from pqflow.market.serialize import curve_from_json
 from pqflow.storage.calibration_file import calibration_path, read_calibration_file
 from pqflow.storage.jsonio import read_json
+from pqflow.storage.scenario_set import ScenarioSet
 from pqflow.validation.moments import Moments, sampling_units
-from pqflow.validation.reader import ScenarioSetReader
 
 __all__ = ["SENSITIVITY_COLUMNS", "sensitivity_names", "value_sensitivities", "sensitivity_summary"]
 
@@ -102,12 +102,12 @@ def value_sensitivities(run_dir: str | Path, portfolio: Portfolio, info: RunInfo
     interp, bond_cols, columns = reads.interpolation, list(reads.bond_columns), list(reads.columns)
     lines = _lines(portfolio)
     ce_base = _ce_values(portfolio, lines, run_dir, last, interp)
-    base_reader = ScenarioSetReader(run_dir=run_dir, measure=MEASURE)
+    base_reader = ScenarioSet(run_dir=run_dir, measure=MEASURE)
     antithetic = base_reader.antithetic
     rows: list[dict[str, Any]] = []
     for name in names:
         sens_dir = run_dir / "sensitivities" / name
-        reader = ScenarioSetReader(run_dir=sens_dir, measure=MEASURE)
+        reader = ScenarioSet(run_dir=sens_dir, measure=MEASURE)
         if reader.antithetic != antithetic or len(reader.parts()) != len(base_reader.parts()):
             raise RunDirectoryError(f"{sens_dir}: its market-consistent set does not pair with the base set's parts")
         acc: Moments | None = None

@@ -51,9 +51,9 @@ from pqflow.storage.names import (
     density_column,
     equity_column,
 )
+from pqflow.storage.scenario_set import ScenarioSet
 from pqflow.validation.control_variates import controlled_mean, summed
 from pqflow.validation.moments import Moments, sampling_units
-from pqflow.validation.reader import ScenarioSetReader
 
 __all__ = [
     "QUANTITIES",
@@ -97,7 +97,7 @@ def inspect_run(run_dir: str | Path) -> RunInfo:
     run_dir = Path(run_dir)
     if not calibration_path(run_dir).is_file():
         raise RunDirectoryError(f"{run_dir}: no calibration.json; not a pqflow run directory")
-    readers = {m: ScenarioSetReader(run_dir=run_dir, measure=m) for m in MEASURES}
+    readers = {m: ScenarioSet(run_dir=run_dir, measure=m) for m in MEASURES}
     names = {m: r.column_names() for m, r in readers.items()}
     times = {m: next(r.iter_arrays([]))[0] for m, r in readers.items()}
     if not np.array_equal(times["market_consistent"], times["real_world"]):
@@ -273,7 +273,7 @@ def _rates_drivers(run_dir: Path) -> tuple[str, ...]:
 
 
 def model_point_densities(
-    portfolio: Portfolio, reader: ScenarioSetReader, equity_col: str | None, rates: tuple[str, ...]
+    portfolio: Portfolio, reader: ScenarioSet, equity_col: str | None, rates: tuple[str, ...]
 ) -> tuple[str | None, ...]:
     """For each model point of a real-world set, the density its deflator carries: the smallest
     restricted block written that contains every driver the product reads (rates for the cash
@@ -344,7 +344,7 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
     reads = portfolio_reads(portfolio, info, equity_col, with_cash=measure == "real_world")
     interp, bond_cols = reads.interpolation, reads.bond_columns
     real_world = measure == "real_world"
-    reader = ScenarioSetReader(run_dir=Path(run_dir), measure=measure)
+    reader = ScenarioSet(run_dir=Path(run_dir), measure=measure)
     densities = model_point_densities(portfolio, reader, equity_col, _rates_drivers(Path(run_dir)))
     density_cols = sorted({d for d in densities if d is not None})
     columns = [*reads.columns, *density_cols]

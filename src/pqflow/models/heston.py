@@ -85,7 +85,6 @@ __all__ = [
     "HestonIndex",
     "real_world_log_excess_growth",
     "heston_indices_to_json",
-    "heston_indices_from_json",
 ]
 
 _GAUSS_NODES = 64  # Gauss-Legendre nodes of the H1-HW time integral (smooth integrand)
@@ -384,20 +383,3 @@ def heston_indices_to_json(indices: dict[str, HestonIndex]) -> dict[str, Any]:
                "rates_correlation": h.rates_correlation, "substeps_per_year": h.substeps_per_year}
         for name, h in indices.items()
     }
-
-
-def heston_indices_from_json(data: dict[str, Any]) -> dict[str, HestonIndex]:
-    """Inverse of :func:`heston_indices_to_json` (``ValueError`` naming the entry otherwise)."""
-    out = {}
-    for name, entry in data.items():
-        if entry.get("model") != "heston":
-            raise ValueError(f"stochastic_volatility.{name}: unknown model {entry.get('model')!r}")
-        out[name] = HestonIndex(
-            name=name, column=str(entry["column"]), level=float(entry["level"]),
-            income_yield=float(entry["income_yield"]),
-            params=HestonParams(**{k: float(entry[k]) for k in ("v0", "kappa", "theta", "xi", "rho")}),
-            prices_of_risk=HestonPricesOfRisk(**{k: float(v) for k, v in entry["prices_of_risk"].items()}),
-            loadings=tuple((str(d), float(b)) for d, b in entry["loadings"]), explained=float(entry["explained"]),
-            rates_correlation=float(entry["rates_correlation"]), substeps_per_year=int(entry["substeps_per_year"]),
-        )
-    return out

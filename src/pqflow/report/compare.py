@@ -243,10 +243,9 @@ def _inputs(cal: CalibrationRecord) -> dict[str, dict[str, tuple[Any, str]]]:
     fit = cal.fit
     for r in ((fit.get("inflation") or {}).get("rows") or []):
         out["inflation"][f"zero-coupon inflation swap {fmt.years(r.get('maturity'))}y"] = (r.get("market_rate"), "rate")
-    for rating in ((fit.get("credit") or {}).get("ratings") or []):
-        for r in rating.get("rows") or []:
-            label = f"{rating.get('rating')} spread {fmt.years(r.get('maturity'))}y"
-            out["credit"][label] = (r.get("market_spread"), "rate")
+    for rating in cal.credit_fit.ratings:
+        for pillar in rating.spreads:
+            out["credit"][f"{rating.rating} spread {fmt.years(pillar.maturity)}y"] = (pillar.market_spread, "rate")
     par = cal.parameters
     eq = par.get("equity") or {}
     if eq:
@@ -312,15 +311,13 @@ def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
     """Calibrated parameters under readable names (unit: rate, vol, plain, level)."""
     par = cal.parameters
     out: dict[str, tuple[Any, str]] = {}
-    if "hull_white" in par and par.get("rates_model", "hull_white") == "hull_white":
-        hw = par["hull_white"]
-        out["Hull-White mean reversion a"] = (hw.get("mean_reversion"), "plain")
-        out["Hull-White volatility sigma (normal)"] = (hw.get("volatility"), "rate")
-    if "g2pp" in par:
-        g = par["g2pp"]
-        out.update({"G2++ a": (g.get("a"), "plain"), "G2++ sigma": (g.get("sigma"), "rate"),
-                    "G2++ b": (g.get("b"), "plain"), "G2++ eta": (g.get("eta"), "rate"),
-                    "G2++ rho": (g.get("rho"), "plain")})
+    if (hw := cal.hull_white) is not None and cal.rates_model == "hull_white":
+        out["Hull-White mean reversion a"] = (hw.mean_reversion, "plain")
+        out["Hull-White volatility sigma (normal)"] = (hw.volatility, "rate")
+    if (g := cal.g2pp) is not None:
+        out.update({"G2++ a": (g.a, "plain"), "G2++ sigma": (g.sigma, "rate"),
+                    "G2++ b": (g.b, "plain"), "G2++ eta": (g.eta, "rate"),
+                    "G2++ rho": (g.rho, "plain")})
     eq = par.get("equity") or {}
     if eq:
         out.update(_schedule_items(f"equity {eq.get('name')} volatility", eq.get("volatility"), "vol"))
@@ -336,23 +333,19 @@ def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
         out["inflation real-rate mean reversion a_r"] = (inf.get("real_mean_reversion"), "plain")
         out["inflation real-rate volatility sigma_r"] = (inf.get("real_volatility"), "rate")
         out["inflation CPI volatility sigma_I"] = (inf.get("inflation_volatility"), "vol")
-    for r in ((par.get("credit") or {}).get("ratings") or []):
-        c = r.get("cir") or {}
-        n = r.get("name")
-        out.update({f"credit {n} mean reversion kappa": (c.get("mean_reversion"), "plain"),
-                    f"credit {n} long-run intensity mu": (c.get("long_run_mean"), "rate"),
-                    f"credit {n} volatility nu": (c.get("volatility"), "plain"),
-                    f"credit {n} initial intensity": (c.get("initial"), "rate"),
-                    f"credit {n} price of risk": (r.get("price_of_risk"), "plain")})
-    dc = par.get("driver_correlation") or {}
-    names, matrix = dc.get("drivers") or [], dc.get("matrix") or []
-    for i, a in enumerate(names):
-        for j in range(i + 1, len(names)):
-            if i < len(matrix) and j < len(matrix[i]):
-                out[f"correlation {a} / {names[j]}"] = (matrix[i][j], "plain")
-    cfit = (cal.fit).get("curve") or {}
-    if "alpha" in cfit:
-        out["Smith-Wilson convergence speed alpha"] = (cfit.get("alpha"), "plain")
+    credit = cal.credit
+    for r in credit.ratings if credit is not None else ():
+        c, n = r.cir, r.name
+        out.update({f"credit {n} mean reversion kappa": (c.mean_reversion, "plain"),
+                    f"credit {n} long-run intensity mu": (c.long_run_mean, "rate"),
+                    f"credit {n} volatility nu": (c.volatility, "plain"),
+                    f"credit {n} initial intensity": (c.initial, "rate"),
+                    f"credit {n} price of risk": (r.price_of_risk, "plain")})
+    dc = cal.driver_correlation
+    for a, b, rho in dc.pairs() if dc is not None else ():
+        out[f"correlation {a} / {b}"] = (rho, "plain")
+    if (alpha := cal.curve_fit.alpha) is not None:
+        out["Smith-Wilson convergence speed alpha"] = (alpha, "plain")
     return out
 
 

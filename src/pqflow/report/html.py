@@ -41,7 +41,7 @@ from pqflow.storage.calibration_file import (
 )
 from pqflow.storage.jsonio import read_json, write_text_atomic
 from pqflow.storage.names import bond_maturity_of, density_column, spread_prefix
-from pqflow.validation.reader import ScenarioSetReader
+from pqflow.storage.scenario_set import ScenarioSet
 from pqflow.validation.run_files import gather_at_times
 
 __all__ = [
@@ -529,19 +529,19 @@ def _curve_object(cal: CalibrationRecord) -> Any:
 def _curve_facts(cal: CalibrationRecord) -> dict[str, Any]:
     """Zero rates at standard maturities, the UFR, the last liquid point, the method."""
     curve = _curve_object(cal)
-    cfit = cal.part_fit("curve")
+    cfit = cal.curve_fit
     par = cal.stored_curve
     zeros = {}
     if curve is not None:
         for m in _CURVE_MATURITIES:
             if m <= float(curve.max_maturity):
                 zeros[m] = float(-np.log(curve.discount(m)) / m)
-    ufr = cfit.get("ufr", par.get("ultimate_forward_rate"))
-    method = cfit.get("method") or par.get("description") or par.get("kind") or "typed-in curve"
-    return {"curve": curve, "zeros": zeros, "ufr": ufr, "omega": cfit.get("omega"),
-            "llp": cfit.get("last_liquid_point"), "alpha": cfit.get("alpha", par.get("alpha")),
-            "method": str(method), "convergence_point": cfit.get("convergence_point"),
-            "gap_bp": cfit.get("gap_to_omega_bp"), "repricing": cfit.get("max_repricing_error")}
+    ufr = cfit.ufr if cfit.ufr is not None else par.get("ultimate_forward_rate")
+    method = cfit.method or par.get("description") or par.get("kind") or "typed-in curve"
+    return {"curve": curve, "zeros": zeros, "ufr": ufr, "omega": cfit.omega,
+            "llp": cfit.last_liquid_point, "alpha": cfit.alpha if cfit.alpha is not None else par.get("alpha"),
+            "method": str(method), "convergence_point": cfit.convergence_point,
+            "gap_bp": cfit.gap_to_omega_bp, "repricing": cfit.max_repricing_error}
 
 
 def _curve_section(cal: CalibrationRecord) -> str:
@@ -610,20 +610,20 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
     """Calibrated parameters with their fit error, one row per model part."""
     rows: list[dict[str, str]] = []
     if (g := cal.g2pp) is not None:
-        f = cal.part_fit("g2pp")
+        g_fit = cal.rates_fit_of("g2pp")
         rows.append({"part": "rates, G2++",
                      "values": f"a {fmt.plain(g.a)}, σ {fmt.bp(1e4 * g.sigma, 1)}, "
                                f"b {fmt.plain(g.b)}, η {fmt.bp(1e4 * g.eta, 1)}, "
                                f"ρ {fmt.plain(g.rho, 3)}",
-                     "fit": (f"swaption RMSE {fmt.bp(f['rmse_bp'], 2)} normal vol" if "rmse_bp" in f else "typed in")})
+                     "fit": (f"swaption RMSE {fmt.bp(g_fit.rmse_bp, 2)} normal vol" if g_fit.rmse_bp is not None
+                             else "typed in")})
     elif (hw := cal.hull_white) is not None:
-        f = cal.part_fit("hull_white")
-        n = len(f.get("rows") or [])
+        hw_fit = cal.rates_fit_of("hull_white")
         rows.append({"part": "rates, Hull-White",
                      "values": f"a {fmt.plain(hw.mean_reversion)}, σ {fmt.bp(1e4 * hw.volatility, 1)} "
                                "(normal, per year)",
-                     "fit": (f"swaption RMSE {fmt.bp(f['rmse_bp'], 2)} normal vol over {n} quotes"
-                             if "rmse_bp" in f else "typed in")})
+                     "fit": (f"swaption RMSE {fmt.bp(hw_fit.rmse_bp, 2)} normal vol over {len(hw_fit.rows)} quotes"
+                             if hw_fit.rmse_bp is not None else "typed in")})
     if cal.has_equity:
         eq = cal.equity
         f = cal.part_fit("equity")
@@ -655,15 +655,16 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
                                f"{fmt.bp(1e4 * float(inf.get('real_volatility', 'nan')), 1)}, "
                                f"σ_I {fmt.vol_points(inf.get('inflation_volatility'))} pts",
                      "fit": "; ".join(fit_text) or "typed in"})
-    cfits = {r.get("rating"): r for r in (cal.part_fit("credit").get("ratings") or [])}
-    for r in ((cal.credit or {}).get("ratings") or []):
-        c, f = r.get("cir") or {}, cfits.get(r.get("name")) or {}
-        rows.append({"part": f"credit {r.get('name')}, CIR++",
-                     "values": f"κ {fmt.plain(c.get('mean_reversion'))}, μ {fmt.percent(c.get('long_run_mean'), 2)}, "
-                               f"ν {fmt.plain(c.get('volatility'))}, y0 {fmt.percent(c.get('initial'), 2)}, "
-                               f"recovery {fmt.share(r.get('recovery'), 0)}",
-                     "fit": (f"spreads repriced to {fmt.bp(f['max_abs_error_bp'], 2)}"
-                             if "max_abs_error_bp" in f else "typed in")})
+    cfits = cal.credit_fit.by_rating()
+    credit = cal.credit
+    for r in credit.ratings if credit is not None else ():
+        c, rf = r.cir, cfits.get(r.name)
+        rows.append({"part": f"credit {r.name}, CIR++",
+                     "values": f"κ {fmt.plain(c.mean_reversion)}, μ {fmt.percent(c.long_run_mean, 2)}, "
+                               f"ν {fmt.plain(c.volatility)}, y0 {fmt.percent(c.initial, 2)}, "
+                               f"recovery {fmt.share(r.recovery, 0)}",
+                     "fit": (f"spreads repriced to {fmt.bp(rf.max_abs_error_bp, 2)}"
+                             if rf is not None else "typed in")})
     recorded_sections = cal.inputs.get("parts") or {}
     for name, entry in cal.plugin_parts.items():
         lams = plugin_part_fields(entry, CALIBRATION_FILE, name)[1]
@@ -749,44 +750,30 @@ def _calibration(cal: CalibrationRecord) -> str:
                    fmts={k: _text_cell(k) for k in ("part", "values", "fit")})]
     if (dc := cal.driver_correlation) is not None:
         html.append(f'<p class="note">Drivers (correlation matrix in calibration.json): '
-                    f'{escape(", ".join(map(str, dc.get("drivers", []))))}.</p>')
+                    f'{escape(", ".join(dc.drivers))}.</p>')
     charts: list[str] = []
-    fits: list[tuple[str, Any]] = []
-    for name, fit in cal.fit.items():
-        if name == "indices" and isinstance(fit, dict):
-            fits += [(f"index {k}", v) for k, v in fit.items()]
-        elif name == "heston":  # the smile fit: pqflow.report.smile
-            continue
-        elif name == "credit" and isinstance(fit, dict):
-            fits.append(("credit", {k: v for k, v in fit.items() if k != "ratings"}))
-            fits += [(f"credit {r.get('rating')}", r) for r in fit.get("ratings", [])]
-        else:
-            fits.append((name, fit))
-    for name, fit in fits:
-        if not isinstance(fit, dict):
-            continue
+    for entry in cal.fit_entries():  # the Heston smile fits: pqflow.report.smile, below
+        name = entry.name
         vols_in_bp = name in ("hull_white", "g2pp")
         html.append(f"<h3>Fit: {escape(name.replace('_', ' '))}</h3>")
-        scalars = [(k.replace("_", " "), _fit_scalar(k, v)) for k, v in fit.items() if k not in ("rows", "caps")]
-        html.append(_kv(scalars))
-        for rows_key in ("rows",):
-            rows = fit.get(rows_key)
-            if isinstance(rows, list) and rows and isinstance(rows[0], dict):
-                err = next((k for k in ("vol_error", "difference_bp", "error_bp") if k in rows[0]), None)
-                exact = err is not None and all(fmt.is_number(r.get(err)) and abs(float(r[err])) < 1e-8 for r in rows)
-                if exact:  # a bootstrap that reprices every quote: the rows are reference, folded
-                    html.append(f'<details class="all-rows"><summary>All {len(rows)} quotes, each repriced exactly '
-                                f"(largest error &lt; "
-                                f"1e-10)</summary>{_fit_table(rows, vols_in_bp=vols_in_bp)}</details>")
-                else:
-                    html.append(_fit_table(rows, vols_in_bp=vols_in_bp))
-                charts += _fit_chart(name, rows)
-        caps = fit.get("caps")
-        if isinstance(caps, dict) and isinstance(caps.get("rows"), list) and caps["rows"]:
+        html.append(_kv([(k.replace("_", " "), _fit_scalar(k, v)) for k, v in entry.fields.items()]))
+        rows = [dict(r) for r in entry.rows]
+        if rows:
+            err = next((k for k in ("vol_error", "difference_bp", "error_bp") if k in rows[0]), None)
+            exact = err is not None and all(fmt.is_number(r.get(err)) and abs(float(r[err])) < 1e-8 for r in rows)
+            if exact:  # a bootstrap that reprices every quote: the rows are reference, folded
+                html.append(f'<details class="all-rows"><summary>All {len(rows)} quotes, each repriced exactly '
+                            f"(largest error &lt; "
+                            f"1e-10)</summary>{_fit_table(rows, vols_in_bp=vols_in_bp)}</details>")
+            else:
+                html.append(_fit_table(rows, vols_in_bp=vols_in_bp))
+            charts += _fit_chart(name, rows)
+        caps = entry.caps
+        if caps is not None and caps.rows:
             html.append("<h3>Fit: year-on-year caps and floors</h3>")
-            html.append(_kv([(k.replace("_", " "), _fit_scalar(k, v)) for k, v in caps.items() if k != "rows"]))
-            html.append(_fit_table(caps["rows"], vols_in_bp=False))
-    html.append(smile.smile_fit_html(cal.part_fit("heston") or None))
+            html.append(_kv([(k.replace("_", " "), _fit_scalar(k, v)) for k, v in caps.fields.items()]))
+            html.append(_fit_table([dict(r) for r in caps.rows], vols_in_bp=False))
+    html.append(smile.smile_fit_html(cal.heston_fits))
     if not cal.fit:
         html.append('<p class="note">No fit record in calibration.json (parameters typed in).</p>')
     html.append(_grid(charts))
@@ -884,7 +871,7 @@ def _fan_data(run_dir: Path) -> tuple[list[_Driver], dict[str, dict[str, Any]]]:
     data: dict[str, dict[str, Any]] = {}
     drivers: list[_Driver] | None = None
     for measure in MEASURES:
-        reader = ScenarioSetReader(run_dir=run_dir, measure=measure)
+        reader = ScenarioSet(run_dir=run_dir, measure=measure)
         names = reader.column_names()
         mine = _drivers(names)
         drivers = mine if drivers is None else [d for d in drivers if d.label in {x.label for x in mine}]

@@ -15,6 +15,7 @@ from html import escape
 from typing import Any
 
 from pqflow.report import numbers as fmt
+from pqflow.storage.calibration_sections import HestonFitRecord, HestonFitRowRecord
 
 __all__ = ["smile_rows", "smile_fit_html", "wealth_ratio_pivot", "wealth_ratio_by_index_html"]
 
@@ -38,30 +39,28 @@ def _float(v: Any) -> float:
     return float(v) if fmt.is_number(v) else math.nan
 
 
-def smile_rows(fit: Mapping[str, Any]) -> list[dict[str, Any]]:
+def smile_rows(quotes: Sequence[HestonFitRowRecord]) -> list[dict[str, Any]]:
     """One index's quotes sorted by expiry and moneyness: expiry, moneyness (K/F), kind, market
     and model vol (decimals) and their difference in vol points (model - market)."""
     rows = []
-    for r in fit.get("rows") or []:
-        market, model = _float(r.get("market_vol")), _float(r.get("model_vol"))
-        diff = _float(r.get("vol_points")) if "vol_points" in r else 100.0 * (model - market)
-        rows.append({"expiry": _float(r.get("expiry")), "moneyness": _float(r.get("moneyness")),
-                     "kind": str(r.get("kind", "")), "market_vol": market, "model_vol": model, "difference": diff})
+    for r in quotes:
+        market, model = _float(r.market_vol), _float(r.model_vol)
+        diff = _float(r.vol_points) if r.vol_points is not None else 100.0 * (model - market)
+        rows.append({"expiry": _float(r.expiry), "moneyness": _float(r.moneyness),
+                     "kind": r.kind, "market_vol": market, "model_vol": model, "difference": diff})
     return sorted(rows, key=lambda r: (r["expiry"], r["moneyness"]))
 
 
-def smile_fit_html(heston_fits: Mapping[str, Any] | None) -> str:
-    """Per Heston index: the fitted parameters with the Feller ratio, the RMSE and the largest
-    miss in vol points, and every quote (market vol, model vol, difference)."""
-    if not isinstance(heston_fits, Mapping) or not heston_fits:
+def smile_fit_html(heston_fits: Mapping[str, HestonFitRecord] | None) -> str:
+    """Per Heston index (``CalibrationRecord.heston_fits``): the fitted parameters with the
+    Feller ratio, the RMSE and the largest miss in vol points, and every quote (market vol,
+    model vol, difference)."""
+    if not heston_fits:
         return ""
     out = []
     for name, fit in heston_fits.items():
-        if not isinstance(fit, Mapping):
-            continue
-        par = fit.get("parameters") or {}
-        feller = _float(fit.get("feller_ratio"))
-        pairs = [(label, fmt.number(par.get(key), 4)) for key, label in _PARAMETERS]
+        feller = _float(fit.feller_ratio)
+        pairs = [(label, fmt.number(getattr(fit, key), 4)) for key, label in _PARAMETERS]
         if not math.isfinite(feller):
             feller_note = ""
         elif feller >= 1.0:
@@ -70,12 +69,12 @@ def smile_fit_html(heston_fits: Mapping[str, Any] | None) -> str:
             feller_note = " (below 1: the variance touches 0; the scheme truncates)"
         pairs += [
             ("Feller ratio 2 kappa theta / xi^2", fmt.number(feller, 3) + feller_note),
-            ("RMSE (vol points)", fmt.number(fit.get("rmse_vol_points"), 3)),
-            ("largest miss (vol points)", fmt.number(fit.get("max_abs_vol_points"), 3)),
+            ("RMSE (vol points)", fmt.number(fit.rmse_vol_points, 3)),
+            ("largest miss (vol points)", fmt.number(fit.max_abs_vol_points, 3)),
         ]
         kv = "<table>" + "".join(f'<tr><th class="l">{escape(k)}</th><td class="l">{escape(v)}</td></tr>'
                                  for k, v in pairs) + "</table>"
-        rows = smile_rows(fit)
+        rows = smile_rows(fit.rows)
         body = [[escape(fmt.years(r["expiry"])), escape(fmt.number(r["moneyness"], 3)), escape(r["kind"]),
                  escape(fmt.vol_points(r["market_vol"])), escape(fmt.vol_points(r["model_vol"])),
                  escape(f"{r['difference']:+.2f}" if math.isfinite(r["difference"]) else fmt.DASH)]
@@ -83,7 +82,7 @@ def smile_fit_html(heston_fits: Mapping[str, Any] | None) -> str:
         table = _table(["expiry (y)", "strike K/F", "option", "market vol", "model vol", "model - market (pts)"],
                        body, left=1)
         out.append(f"<h3>Smile fit: {escape(str(name).replace('_', ' '))} (Heston)</h3>"
-                   f'<p class="note">{escape(str(fit.get("method", "")))}</p>{kv}{table}')
+                   f'<p class="note">{escape(fit.method)}</p>{kv}{table}')
     return "".join(out)
 
 

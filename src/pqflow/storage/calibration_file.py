@@ -20,6 +20,26 @@ from pathlib import Path
 from typing import Any
 
 from pqflow.errors import ConfigError
+from pqflow.storage.calibration_sections import (
+    CorrelationFitRecord,
+    CreditFitRecord,
+    CreditRecord,
+    CurveFitRecord,
+    DriverCorrelationRecord,
+    FitEntry,
+    HestonFitRecord,
+    HestonIndices,
+    RatesFitRecord,
+    correlation_fit_record,
+    credit_fit_record,
+    credit_record,
+    curve_fit_record,
+    driver_correlation_record,
+    fit_entry,
+    heston_fit_records,
+    heston_indices_record,
+    rates_fit_record,
+)
 from pqflow.storage.jsonio import read_json, write_json_atomic
 
 __all__ = [
@@ -253,13 +273,15 @@ class CalibrationRecord:
         return self.parameters.get("inflation")
 
     @property
-    def credit(self) -> dict[str, Any] | None:
-        return self.parameters.get("credit")
+    def credit(self) -> CreditRecord | None:
+        """The credit part (``None`` when the file has none)."""
+        data = self.parameters.get("credit")
+        return None if data is None else credit_record(data, self.source)
 
     @property
-    def stochastic_volatility(self) -> dict[str, Any]:
-        """Heston indices by name (``{}`` when none)."""
-        return self.parameters.get("stochastic_volatility") or {}
+    def stochastic_volatility(self) -> HestonIndices:
+        """Heston indices by name (empty when none)."""
+        return heston_indices_record(self.parameters.get("stochastic_volatility"), self.source)
 
     @property
     def plugin_parts(self) -> dict[str, dict[str, Any]]:
@@ -267,8 +289,55 @@ class CalibrationRecord:
         return dict(self.parameters.get(PLUGIN_PARTS_KEY) or {})
 
     @property
-    def driver_correlation(self) -> dict[str, Any] | None:
-        return self.parameters.get("driver_correlation")
+    def driver_correlation(self) -> DriverCorrelationRecord | None:
+        data = self.parameters.get("driver_correlation")
+        return None if data is None else driver_correlation_record(data, self.source)
+
+    # fit records of the credit, Heston, correlation, curve and rates parts
+
+    @property
+    def curve_fit(self) -> CurveFitRecord:
+        return curve_fit_record(self.fit.get("curve"), self.source)
+
+    @property
+    def rates_fit(self) -> RatesFitRecord:
+        """The fit of the recorded rates model (``fit.hull_white`` or ``fit.g2pp``)."""
+        model = self.rates_model
+        return rates_fit_record(self.fit.get(model), self.source, f"fit.{model}")
+
+    def rates_fit_of(self, model: str) -> RatesFitRecord:
+        """The swaption fit of ``hull_white`` or ``g2pp`` (empty when not recorded)."""
+        return rates_fit_record(self.fit.get(model), self.source, f"fit.{model}")
+
+    @property
+    def credit_fit(self) -> CreditFitRecord:
+        return credit_fit_record(self.fit.get("credit"), self.source)
+
+    @property
+    def heston_fits(self) -> dict[str, HestonFitRecord]:
+        return heston_fit_records(self.fit.get("heston"), self.source)
+
+    @property
+    def correlation_fit(self) -> CorrelationFitRecord:
+        return correlation_fit_record(self.fit.get("correlation"), self.source)
+
+    def fit_entries(self) -> list[FitEntry]:
+        """Every fit record as stored, in file order, for views that list them all: an index's
+        fit is one entry (``index <name>``), credit's summary and each rating's another
+        (``credit <rating>``); the Heston smile fits are left to :attr:`heston_fits`."""
+        out: list[FitEntry] = []
+        for name, fit in self.fit.items():
+            if name == "indices" and isinstance(fit, Mapping):
+                out += [fit_entry(f"index {k}", v) for k, v in fit.items() if isinstance(v, Mapping)]
+            elif name == "heston":
+                continue
+            elif name == "credit" and isinstance(fit, Mapping):
+                out.append(fit_entry("credit", {k: v for k, v in fit.items() if k != "ratings"}))
+                out += [fit_entry(f"credit {r.get('rating')}", r) for r in fit.get("ratings", [])
+                        if isinstance(r, Mapping)]
+            elif isinstance(fit, Mapping):
+                out.append(fit_entry(name, fit))
+        return out
 
     # ------------------------------------------------------------------ helpers
 

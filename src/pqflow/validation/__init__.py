@@ -8,7 +8,6 @@ from pqflow.validation.evidence import RunValidation, overall_verdict, run_check
 from pqflow.validation.market_consistency import market_consistency_check
 from pqflow.validation.martingale import martingale_table
 from pqflow.validation.moments import Moments
-from pqflow.validation.reader import ScenarioSetReader
 from pqflow.validation.real_world import real_world_check, wealth_ratio_benchmark
 from pqflow.validation.reconciliation import reconciliation_check
 from pqflow.validation.run_files import RunInputs, load_run_inputs
@@ -19,7 +18,6 @@ __all__ = [
     "Moments",
     "RunInputs",
     "RunValidation",
-    "ScenarioSetReader",
     "density_table",
     "load_run_inputs",
     "market_consistency_check",

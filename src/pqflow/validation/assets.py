@@ -46,8 +46,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from pqflow.calibration.parts import credit_from_json
-from pqflow.errors import IntegrityError
+from pqflow.calibration.parts import credit_from_record
+from pqflow.errors import ConfigError, IntegrityError
 from pqflow.market.serialize import curve_from_json
 from pqflow.models.cir_credit import CreditRating
 from pqflow.models.parts import PART_KINDS
@@ -154,10 +154,12 @@ def inflation_assets(inputs: RunInputs, columns: Sequence[str]) -> list[Martinga
 
 
 def _ratings(inputs: RunInputs) -> dict[str, CreditRating]:
-    par = calibration_record(inputs.calibration, calibration_path(inputs.run_dir)).credit or {}
     try:
-        model, _ = credit_from_json(par)
-    except (KeyError, TypeError, ValueError) as exc:
+        par = calibration_record(inputs.calibration, calibration_path(inputs.run_dir)).credit
+        if par is None:
+            raise ConfigError("no credit part")
+        model, _ = credit_from_record(par)
+    except (ConfigError, TypeError, ValueError) as exc:
         raise IntegrityError(
             f"{inputs.run_dir}: the files carry credit columns but calibration.json has no usable "
             f"parameters.credit: {exc!r}"

@@ -31,6 +31,7 @@ from typing import Any
 
 import pandas as pd
 
+from pqflow.errors import ConfigError
 from pqflow.storage.calibration_file import calibration_path, calibration_record
 from pqflow.validation.assets import martingale_assets
 from pqflow.validation.market_consistency import market_consistency_steps
@@ -127,7 +128,11 @@ def run_checks(
     """
     inputs = load_run_inputs(run_dir)
     record = calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
-    credit = credit_in_density(record.credit, inputs.reader("real_world").column_names())
+    try:
+        credit_part = record.credit
+    except ConfigError:  # unreadable: the credit columns of the files decide
+        credit_part = None
+    credit = credit_in_density(credit_part, inputs.reader("real_world").column_names())
     # every check registers what it reads of each set; each part is then read once for all of them
     passes = set_passes(inputs)
     (mart, dens, base), *results = run_steps(passes, all_steps([

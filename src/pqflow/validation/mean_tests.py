@@ -56,6 +56,8 @@ from typing import Any
 
 import numpy as np
 
+from pqflow.errors import ConfigError
+from pqflow.storage.calibration_sections import CreditRecord, HestonIndexRecord
 from pqflow.storage.names import INDEX_KINDS, density_block_or_none, index_column
 
 __all__ = [
@@ -353,17 +355,18 @@ def rule_for_density(
 HESTON_MEASURED_SHIFT = 0.06
 
 
-def unmeasured_heston_drivers(heston: Mapping[str, Any]) -> dict[str, str]:
+def unmeasured_heston_drivers(heston: Mapping[str, HestonIndexRecord]) -> dict[str, str]:
     """The stochastic-volatility indices (``CalibrationRecord.stochastic_volatility``: the Heston
     entries by name) whose real-world variance dynamics lie beyond the range in which the density
     rule's size is measured (:data:`HESTON_MEASURED_SHIFT`), each with the reason printed beside
-    its unjudged cells."""
+    its unjudged cells (an entry the file does not hold in full is left out)."""
     out: dict[str, str] = {}
-    for name, entry in heston.items():
-        lam = entry.get("prices_of_risk") or {} if isinstance(entry, dict) else {}
+    for name in heston:
         try:
-            shifts = [abs(float(lam[f"{k}_real_world"]) / float(entry[k]) - 1.0) for k in ("kappa", "theta")]
-        except (KeyError, TypeError, ValueError, ZeroDivisionError):
+            entry = heston[name]
+            lam = entry.prices_of_risk
+            shifts = [abs(lam.kappa_real_world / entry.kappa - 1.0), abs(lam.theta_real_world / entry.theta - 1.0)]
+        except (ConfigError, ZeroDivisionError):
             continue
         if max(shifts) > HESTON_MEASURED_SHIFT:
             out[name] = (f"{name}: real-world kappa and theta {shifts[0]:.0%} and {shifts[1]:.0%} from the "
@@ -389,13 +392,10 @@ def stochastic_volatility_assets(heston_indices: Iterable[str]) -> frozenset[str
     return frozenset(index_column(kind, str(name)) for name in heston_indices for kind in INDEX_KINDS)
 
 
-def credit_in_density(credit: Any, column_names: list[str] | None = None) -> bool:
+def credit_in_density(credit: CreditRecord | None, column_names: list[str] | None = None) -> bool:
     """Whether the full density carries a CIR credit part: a rating with a non-zero price of
     risk in the credit part of ``calibration.json`` (``CalibrationRecord.credit``; or, without
     a readable record, credit columns in the files)."""
-    if isinstance(credit, dict) and isinstance(credit.get("ratings"), list):
-        try:
-            return any(float(r.get("price_of_risk", 0.0)) != 0.0 for r in credit["ratings"])
-        except (TypeError, ValueError, AttributeError):
-            pass
+    if credit is not None:
+        return credit.priced
     return any(c.startswith(("cumulative_intensity_", "intensity_")) for c in (column_names or []))

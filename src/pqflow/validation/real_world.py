@@ -54,6 +54,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from pqflow.errors import ConfigError
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
 from pqflow.storage.names import INDEX_PREFIXES, bond_column, bond_maturity_of, equity_column, index_column
 from pqflow.storage.scenario_set import SetPass
@@ -273,15 +274,15 @@ def _gaussian_row(label: str, t: float, expected: float, mean: float, se: float,
 
 
 def _heston_premia(inputs: RunInputs) -> dict[str, Any]:
-    """For each Heston index (``parameters["stochastic_volatility"]``): its column and the
+    """For each Heston index (``CalibrationRecord.stochastic_volatility``): its column and the
     expected ``(1/t) ln E[S_t/(S_0 B_t)]`` as a function of ``t`` (the premium ``lambda_S v`` is
     stochastic, so the target moves with ``t``; :func:`pqflow.models.heston.real_world_log_excess_growth`)."""
-    from pqflow.models.heston import heston_indices_from_json as heston_from_json
+    from pqflow.calibration.heston_parts import heston_indices_from_records
     from pqflow.models.heston import real_world_log_excess_growth
 
     try:
-        specs = heston_from_json(dict(_record(inputs).stochastic_volatility))
-    except (KeyError, TypeError, ValueError):
+        specs = heston_indices_from_records(_record(inputs).stochastic_volatility)
+    except (ConfigError, TypeError, ValueError):
         return {}
     out: dict[str, Any] = {}
     for spec in specs.values():
@@ -435,7 +436,7 @@ def real_world_steps(
         bench_frame, bench = wealth_ratio_benchmark(wealth)
         tables["wealth_ratio_benchmark"] = bench_frame
         # every equity index beside the core one (e.g. a Heston index beside a deterministic one)
-        heston_cols = {h.get("column") for h in _record(inputs).stochastic_volatility.values()}
+        heston_cols = _record(inputs).stochastic_volatility.columns
         by_index, frames = {}, []
         wt_all, wdata_all = wealth_all()
         for col in equity:

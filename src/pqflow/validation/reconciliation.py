@@ -92,10 +92,10 @@ def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: floa
     g, hw = cal.g2pp, cal.hull_white
     sv = cal.stochastic_volatility.get(eq.name)
     if sv is not None:  # a Heston core equity: the semi-closed form (exact, or H1-HW when correlated)
-        from pqflow.models.heston import heston_indices_from_json as heston_from_json
+        from pqflow.calibration.heston_parts import heston_from_record
         from pqflow.models.heston import heston_option_price
 
-        spec = heston_from_json({eq.name: sv})[eq.name]
+        spec = heston_from_record(sv)
         rates_sv: HullWhiteParams | G2PlusPlusParams
         corr: float | tuple[float, ...]
         if cal.rates_model == "g2pp":

@@ -23,9 +23,10 @@ from typing import Any, TypeVar
 
 import numpy as np
 
-from pqflow.errors import IntegrityError
+from pqflow.errors import ConfigError, IntegrityError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.serialize import curve_from_json
+from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
 from pqflow.storage.jsonio import read_json
 from pqflow.storage.scenario_set import ScenarioSet, SetPass
 from pqflow.validation.mean_tests import CellMoments
@@ -66,25 +67,27 @@ class RunInputs:
         return ScenarioSet(run_dir=self.run_dir, measure=measure)
 
     @property
-    def parameters(self) -> dict[str, Any]:
-        return self.calibration.get("parameters", {})
+    def record(self) -> CalibrationRecord:
+        """The calibration record, read through storage (version checked, the file named)."""
+        return calibration_record(self.calibration, calibration_path(self.run_dir))
 
     @property
     def rates_drivers(self) -> tuple[str, ...]:
         """The rate drivers of the recorded model (G2++ has two)."""
-        return ("rates_x", "rates_y") if "g2pp" in self.parameters else ("rates",)
+        return ("rates_x", "rates_y") if self.record.g2pp is not None else ("rates",)
 
 
 def load_run_inputs(run_dir: str | Path) -> RunInputs:
     """Read ``calibration.json`` of a run; today's curve is rebuilt from its stored form."""
     run_dir = Path(run_dir)
-    path = run_dir / "calibration.json"
+    path = calibration_path(run_dir)
     if not path.is_file():
-        raise IntegrityError(f"{run_dir}: no calibration.json; not a pqflow run directory")
+        raise IntegrityError(f"{run_dir}: no {path.name}; not a pqflow run directory")
     data = read_json(path)
+    record = calibration_record(data, path)  # a version this pqflow does not read: ConfigError naming the file
     try:
-        curve = curve_from_json(data["parameters"]["curve"])
-    except (KeyError, TypeError, ValueError) as exc:
+        curve = curve_from_json(record.curve)
+    except (ConfigError, KeyError, TypeError, ValueError) as exc:
         raise IntegrityError(f"{path}: no usable parameters.curve ({exc!r})") from None
     return RunInputs(run_dir=run_dir, calibration=data, curve=curve)
 

@@ -13,6 +13,7 @@ from functools import partial
 from pathlib import Path
 
 from pqflow.storage.calibration_file import calibration_path, calibration_record
+from pqflow.storage.scenario_set import ScenarioSet
 from pqflow.validation.assets import martingale_assets
 from pqflow.validation.checks import not_applicable_entry
 from pqflow.validation.density import density_table
@@ -20,7 +21,6 @@ from pqflow.validation.evidence import _KINDS, RULE, RunValidation, overall_verd
 from pqflow.validation.market_consistency import market_consistency_check
 from pqflow.validation.martingale import martingale_table
 from pqflow.validation.mean_tests import stochastic_volatility_assets
-from pqflow.validation.reader import ScenarioSetReader
 from pqflow.validation.run_files import json_safe, load_run_inputs
 from pqflow.validation.summary import summarise
 
@@ -32,7 +32,7 @@ MEASURE = "market_consistent"
 def run_market_consistent_checks(run_dir: str | Path, *, ess_warning_share: float) -> RunValidation:
     """Every check that the market-consistent set alone allows (nothing is written here)."""
     inputs = load_run_inputs(run_dir)
-    reader = ScenarioSetReader(run_dir=Path(run_dir), measure=MEASURE)
+    reader = ScenarioSet(run_dir=Path(run_dir), measure=MEASURE)
     extra = partial(martingale_assets, inputs)(reader.column_names())
     mart = {MEASURE: martingale_table(reader, inputs.curve.discount, extra,
                                       non_lognormal=stochastic_volatility_assets(
