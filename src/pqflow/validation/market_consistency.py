@@ -191,14 +191,7 @@ def _record(inputs: RunInputs) -> CalibrationRecord:
 def _income_yields(inputs: RunInputs) -> dict[str, float]:
     """Index name -> recorded income yield: the core equity's dividend yield and each further
     index's income yield."""
-    cal = _record(inputs)
-    out: dict[str, float] = {}
-    for idx in cal.indices:
-        if isinstance(idx, dict) and "name" in idx and idx.get("income_yield") is not None:
-            out[str(idx["name"])] = float(idx["income_yield"])
-    if cal.equity_name is not None:
-        out[cal.equity_name] = cal.equity.dividend_yield
-    return out
+    return {idx.name: idx.income_yield for idx in _record(inputs).indices}
 
 
 def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) -> list[InstrumentSpec]:
@@ -241,7 +234,7 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
         ))
     for raw in cal.instrument_list("equity_options"):
         expiry, strike = float(raw["expiry"]), float(raw["strike"])
-        index = str(raw.get("index", cal.equity_name or ""))
+        index = str(raw.get("index", cal.core_index_name or ""))
         option = str(raw.get("kind", "call"))
         convention = str(raw.get("convention", "lognormal"))
         column_kind = str(raw.get("column_kind", "equity"))

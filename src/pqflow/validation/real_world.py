@@ -55,7 +55,7 @@ import numpy as np
 import pandas as pd
 
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
-from pqflow.storage.names import INDEX_PREFIXES, bond_column, bond_maturity_of, equity_column, index_column
+from pqflow.storage.names import INDEX_PREFIXES, bond_column, bond_maturity_of, equity_column
 from pqflow.storage.scenario_set import SetPass
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
 from pqflow.validation.mean_tests import LOGNORMAL, MARTINGALE_DEVIATION, MIN_UNITS, mean_test
@@ -248,14 +248,9 @@ def _index_premia(inputs: RunInputs, names: list[str], core: str | None) -> list
     """``(column, risk_premium)`` of each further index recorded in ``parameters["indices"]``
     whose column is in the files (the core equity's column left out)."""
     out = []
-    for idx in _record(inputs).indices:
-        try:
-            col = index_column(idx["kind"], idx["name"])
-            premium = float(idx["risk_premium"])
-        except (KeyError, TypeError, ValueError):
-            continue
-        if col in names and col != core:
-            out.append((col, premium))
+    for idx in _record(inputs).further_indices:
+        if idx.risk_premium is not None and idx.column in names and idx.column != core:
+            out.append((idx.column, idx.risk_premium))
     return out
 
 
@@ -332,7 +327,7 @@ def real_world_steps(
     reader = scan.scenario_set
     names = reader.column_names()
     equity = [c for c in names if c.startswith(INDEX_PREFIXES[0])]
-    eq_name = _record(inputs).equity_name
+    eq_name = _record(inputs).core_index_name
     core = None if eq_name is None else equity_column(eq_name)
     e_col = core if core in equity else (equity[0] if equity else None)
     premia = _index_premia(inputs, names, e_col)
