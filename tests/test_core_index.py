@@ -117,7 +117,7 @@ def test_every_index_reads_back_as_one_typed_record(tmp_path, demo_config_dict, 
         s, e, r = G2["sigma"], G2["eta"], G2["rho"]
         want = (-0.10 * s - 0.05 * e) / np.sqrt(s * s + e * e + 2 * r * s * e)
         assert core.correlation_with_rates == pytest.approx(want, rel=1e-14)
-        assert isinstance(cal.rates, G2PlusPlusParams) and cal.equity_rates_correlation == (-0.10, -0.05)
+        assert isinstance(cal.rates, G2PlusPlusParams) and cal.core_index.correlation == (-0.10, -0.05)
     else:
         assert core.correlation_with_rates == -0.15 and core.correlation_with_rate_factors is None
         assert (world.correlation_with_rates, prop.correlation_with_rates) == (-0.10, -0.20)

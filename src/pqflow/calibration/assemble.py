@@ -159,18 +159,6 @@ class Calibration:
         """The indices beside the core one (``[[indices]]``), in model order."""
         return self.indices[1:]
 
-    def index(self, name: str) -> TotalReturnIndex:
-        """The index of that name (error naming the run's indices)."""
-        for i in self.indices:
-            if i.name == name:
-                return i
-        raise ConfigError(f"no index {name!r} in the calibration (has: {', '.join(i.name for i in self.indices)})")
-
-    @property
-    def equity_rates_correlation(self) -> float | tuple[float, float]:
-        """The core index's correlation with the rate driver(s)."""
-        return self.core_index.rates_correlation
-
     @property
     def driver_correlation(self) -> DriverCorrelation:
         if self.correlation is not None:
@@ -284,13 +272,6 @@ def _registered(name: str) -> Any:
         raise ConfigError(f"part {name!r}: no part kind of that name is registered (known: "
                           f"{', '.join(sorted(PART_KINDS)) or 'none'})")
     return kind
-
-
-def short_rate_correlation(rates: RatesModel, rho: float | tuple[float, float]) -> float:
-    """Correlation of an index's shock with the short-rate shock: ``rho`` under Hull-White; under
-    G2++ ``(rho_x sigma + rho_y eta) / sqrt(sigma^2 + eta^2 + 2 rho sigma eta)`` (``dr`` loads
-    ``sigma dW1 + eta dW2``); :meth:`pqflow.models.rates.RatesModel.short_rate_correlation`."""
-    return rates.short_rate_correlation(rho)
 
 
 def _parts_from_json(par: dict[str, Any], source: str | Path = CALIBRATION_FILE,
