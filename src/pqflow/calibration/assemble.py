@@ -85,11 +85,10 @@ from pqflow.storage.calibration_file import (
     IndexRecord,
     calibration_document,
     calibration_path,
-    core_index_entry,
-    further_index_entry,
+    core_index_parameters,
+    further_index_parameters,
     plugin_part_entry,
     plugin_part_fields,
-    prices_of_risk_entry,
     read_calibration_file,
 )
 from pqflow.storage.parquet import file_sha256
@@ -227,8 +226,7 @@ class Calibration:
                 "curve": curve_to_json(self.curve),
                 "rates_model": self.rates_model,
                 **self.rates.to_json(),
-                "equity": core_index_entry(records[0]),
-                "market_prices_of_risk": prices_of_risk_entry(_schedule_json(self.prices_of_risk.rates), records[0]),
+                **core_index_parameters(records[0], _schedule_json(self.prices_of_risk.rates)),
                 "real_world_view": self.real_world_view,
                 **self._parts_json(records[1:]),
             },
@@ -242,8 +240,7 @@ class Calibration:
         out: dict[str, Any] = {}
         if self.correlation is not None:
             out["driver_correlation"] = self.correlation.to_json()
-        if further:
-            out["indices"] = [further_index_entry(i) for i in further]
+        out.update(further_index_parameters(further))
         if self.inflation is not None:
             out["inflation"] = {
                 **inflation_to_json(self.inflation),
@@ -320,7 +317,7 @@ def load_calibration(path: str | Path) -> Calibration:
             horizon_years=record.horizon_years,
             curve=curve_from_json(record.curve),
             rates=rates_from_json(par),
-            prices_of_risk=PricesOfRisk(rates=_load_schedule(par["market_prices_of_risk"]["rates"])),
+            prices_of_risk=PricesOfRisk(rates=_load_schedule(record.rates_price_of_risk)),
             inputs=record.required("inputs"),
             inputs_hash=record.required("inputs_sha256"),
             fit=dict(record.fit),

@@ -14,7 +14,7 @@ existed); a version this pqflow does not know is refused with the file's name, n
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -32,9 +32,8 @@ __all__ = [
     "HullWhiteRecord",
     "G2ppRecord",
     "IndexRecord",
-    "core_index_entry",
-    "further_index_entry",
-    "prices_of_risk_entry",
+    "core_index_parameters",
+    "further_index_parameters",
     "calibration_path",
     "calibration_content",
     "calibration_document",
@@ -108,8 +107,19 @@ class IndexRecord:
         return index_column(self.kind, self.name)
 
 
-def core_index_entry(index: IndexRecord) -> dict[str, Any]:
-    """The core index's ``parameters.equity`` entry."""
+def core_index_parameters(index: IndexRecord, rates_price_of_risk: Any) -> dict[str, Any]:
+    """The core index's part of ``parameters``, in file order: ``equity``, then
+    ``market_prices_of_risk`` (the rates' stored schedule and the core index's)."""
+    return {"equity": _core_index_entry(index), "market_prices_of_risk": _prices_of_risk_entry(rates_price_of_risk,
+                                                                                                index)}
+
+
+def further_index_parameters(indices: Sequence[IndexRecord]) -> dict[str, Any]:
+    """``parameters.indices`` for the further indices (nothing when there are none)."""
+    return {"indices": [_further_index_entry(i) for i in indices]} if indices else {}
+
+
+def _core_index_entry(index: IndexRecord) -> dict[str, Any]:
     return {
         "name": index.name,
         "level": index.level,
@@ -121,8 +131,7 @@ def core_index_entry(index: IndexRecord) -> dict[str, Any]:
     }
 
 
-def further_index_entry(index: IndexRecord) -> dict[str, Any]:
-    """A further index's entry of ``parameters.indices``."""
+def _further_index_entry(index: IndexRecord) -> dict[str, Any]:
     return {
         "name": index.name,
         "kind": index.kind,
@@ -134,8 +143,7 @@ def further_index_entry(index: IndexRecord) -> dict[str, Any]:
     }
 
 
-def prices_of_risk_entry(rates: Any, core: IndexRecord) -> dict[str, Any]:
-    """``parameters.market_prices_of_risk``: the rates' and the core index's (stored schedules)."""
+def _prices_of_risk_entry(rates: Any, core: IndexRecord) -> dict[str, Any]:
     return {
         "rates": rates,
         "equity": core.market_price_of_risk,
@@ -347,6 +355,12 @@ class CalibrationRecord:
     @property
     def market_prices_of_risk(self) -> dict[str, Any]:
         return self.parameters.get("market_prices_of_risk") or {}
+
+    @property
+    def rates_price_of_risk(self) -> Any:
+        """The rates' market price of risk as stored (a number or ``{knots, values}``)."""
+        mpr = self._need(self._need(self.data, "parameters"), "market_prices_of_risk", "parameters")
+        return self._need(mpr, "rates", "parameters.market_prices_of_risk")
 
     @property
     def real_world_view(self) -> dict[str, Any]:

@@ -18,9 +18,8 @@ Payoffs at the expiry ``T0``, from the columns of the files:
   of the premium, plus the Monte Carlo interval);
 * equity option on the price index ``S_T e^{-qT}``, with ``S`` the total-return column
   ``equity_{index}`` (or ``property_{index}``, as the instrument's ``column_kind`` says) and
-  ``q`` the recorded income yield: the core equity's ``dividend_yield``
-  (``parameters["equity"]``) or a further index's ``income_yield`` (``parameters["indices"]``):
-  ``max(+-(S_T e^{-qT} - K), 0)``.
+  ``q`` the index's recorded income yield (the core equity's dividend yield; the typed
+  index records of :mod:`pqflow.storage.calibration_file`): ``max(+-(S_T e^{-qT} - K), 0)``.
 
 In the real-world set each payoff is deflated with the density of the smallest written block
 that carries its columns (:mod:`pqflow.measure.blocks`: the rates for a swaption, the rates and

@@ -26,7 +26,7 @@ Tested (cells with z-scores, family-wise verdict of :mod:`pqflow.validation.chec
   (``ln(1.05) / t`` of premium) with 50% power at the family level. The ratio of expectations
   ``(1/t) ln(E[S_t/S_0] / E[B_t])`` is reported beside it: it differs from the ERP by the
   covariance of equity and cash.
-* **risk premium of each further index** (``parameters["indices"]``, equity or property): the
+* **risk premium of each further index** (its typed index record, equity or property): the
   same estimate on its column ``{kind}_{name}`` against its recorded ``risk_premium`` (its
   price of risk is ``risk_premium / sigma(t)``, so the same identity holds exactly).
 
@@ -245,8 +245,8 @@ def _erp_input(inputs: RunInputs) -> float | None:
 
 
 def _index_premia(inputs: RunInputs, names: list[str], core: str | None) -> list[tuple[str, float]]:
-    """``(column, risk_premium)`` of each further index recorded in ``parameters["indices"]``
-    whose column is in the files (the core equity's column left out)."""
+    """``(column, risk_premium)`` of each further index recorded (beside the core one) whose
+    column is in the files (the core equity's column left out)."""
     out = []
     for idx in _record(inputs).further_indices:
         if idx.risk_premium is not None and idx.column in names and idx.column != core:
