@@ -10,7 +10,7 @@ References used below:
 QuantLib's correlation convention, found by experiment (``test_quantlib_correlation_sign``
 below pins it): the engine's ``rho`` enters the variance as ``+2 rho sigma_S sigma (T - B(T))/a``,
 i.e. it is the correlation of the equity and *short-rate* shocks, the same sign as pqflow's
-``EquityParams.correlation``. (Equity against bond prices would be the opposite sign.) A Monte
+``TotalReturnIndex.correlation``. (Equity against bond prices would be the opposite sign.) A Monte
 Carlo price from pqflow's own simulation, where ``rho`` is the correlation of the simulated
 shocks, agrees with QuantLib at ``+rho`` and not at ``-rho``.
 """
