@@ -120,7 +120,8 @@ def inspect_run(run_dir: str | Path) -> RunInfo:
         missing -= set(names[m])
         if missing:
             raise LiabilityDataError(f"{run_dir}: the {m} set lacks columns {sorted(missing)}")
-    indices = read_calibration_file(calibration_path(run_dir)).indices  # the core index first
+    record = read_calibration_file(calibration_path(run_dir))
+    core, indices = record.core_index, record.indices  # the core index first (an error names a missing one)
     manifest = run_dir / "manifest.json"
     run_id = read_json(manifest).get("run_id") if manifest.exists() else None
     t = times["market_consistent"]
@@ -133,7 +134,7 @@ def inspect_run(run_dir: str | Path) -> RunInfo:
         bond_columns={float(k): v for k, v in sorted(bonds.items())},
         equity_columns=equities,
         index_levels={i.column: i.level for i in indices},
-        core_index=indices[0].name,
+        core_index=core.name,
         curve=curve_from_calibration_file(run_dir),
     )
 
