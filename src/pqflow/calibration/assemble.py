@@ -77,7 +77,7 @@ from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.heston import HestonIndex
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.parts import PART_KINDS, PartContext
-from pqflow.models.rates import RatesModel, as_short_rate_params, rates_from_json
+from pqflow.models.rates import RatesModel, rates_from_json
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.calibration_file import (
     CALIBRATION_FILE,
@@ -185,7 +185,7 @@ class Calibration:
         times = np.arange(0.0, np.floor(top) + 1.0)
         if times[-1] < top:
             times = np.append(times, top)
-        rates = as_short_rate_params(self.rates)
+        rates = self.rates
         out: dict[str, Any] = {
             "time": times.tolist(),
             "market_consistent": expected_short_rate(
@@ -593,7 +593,7 @@ def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G
 def _real_world(config: RunConfig, curve: DiscountCurve, rates: RatesModel) -> tuple[PricesOfRisk, dict[str, Any]]:
     """The rates price of risk from the house view, and the view as recorded (the indices'
     prices of risk come with their fit, :func:`pqflow.calibration.parts.calibrate_index`)."""
-    hw = as_short_rate_params(rates)
+    hw = rates
     rw = config.real_world
     horizon = config.simulation.max_horizon_years
     view: dict[str, Any]

@@ -34,17 +34,24 @@ and the means are carried forward. Under G2++ the factor mean passed to
 :func:`model_target_value` is the pair ``(E_P[x_t], E_P[y_t])``, as
 :func:`pqflow.measure.prices_of_risk.real_world_factor_mean` returns it (zeros for the
 market-consistent value); under Hull-White it stays one array.
+
+The functions never ask which model they hold: they are written over the factors of
+:class:`~pqflow.models.rates.RatesModel` (``factor_rates``: ``k_f``, ``s_f``;
+``price_of_risk_weights``: ``w_f``; ``short_rate_shift``; ``log_bond_constant``: ``ln A``).
+One factor (Hull-White) gives the closed form above; several (G2++) the monthly recursion,
+which for two factors is the one written out above.
 """
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 
 from pqflow.market.curve import DiscountCurve
-from pqflow.measure.prices_of_risk import g2_driver_weights
-from pqflow.models import g2pp
-from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.hull_white import HullWhiteParams, alpha, b_factor, integrated_variance
+from pqflow.measure.prices_of_risk import factor_means
+from pqflow.models.hull_white import b_factor
+from pqflow.models.rates import RatesModel
 from pqflow.models.schedule import PiecewiseConstant
 
 __all__ = [
@@ -63,33 +70,22 @@ def target_path(start: float, long_run_level: float, speed: float, t: np.ndarray
     return start + (long_run_level - start) * (-np.expm1(-speed * np.asarray(t, dtype=float)))
 
 
-def _log_a(curve: DiscountCurve, params: HullWhiteParams, t: np.ndarray, m: float) -> np.ndarray:
-    return (
-        np.log(curve.discount(t + m))
-        - np.log(curve.discount(t))
-        + 0.5 * (integrated_variance(params, m) - integrated_variance(params, t + m) + integrated_variance(params, t))
-    )
-
-
-def _g2_log_a(curve: DiscountCurve, params: G2PlusPlusParams, t: np.ndarray, m: float) -> np.ndarray:
-    """``ln A(t, M)`` of G2++: ``ln P(t, t + M)`` at ``x = y = 0``."""
-    return np.log(g2pp.zcb_price(curve, params, t, m, 0.0, 0.0))
-
-
-def _g2_combination(
-    curve: DiscountCurve, params: G2PlusPlusParams, t: np.ndarray, path: np.ndarray, *, target: str,
+def _combination(
+    curve: DiscountCurve, params: RatesModel, t: np.ndarray, path: np.ndarray, *, target: str,
     maturity: float | None
-) -> tuple[float, float, np.ndarray]:
-    """``(c_x, c_y, h(t))`` with ``c_x E x_t + c_y E y_t = h(t)`` putting the target on ``path``."""
+) -> tuple[tuple[float, ...], np.ndarray]:
+    """``(c, h(t))`` with ``sum_f c_f E f_t = h(t)`` putting the target on ``path``: ``c = 1``,
+    ``h = m - shift`` for the short rate; ``c_f = B_f(M)``, ``h = M m + ln A(t, M)`` for the zero
+    yield (module docstring)."""
+    factors = params.factor_rates()
     if target == "short_rate":
-        return 1.0, 1.0, path - g2pp.phi(curve, params, t)
+        return tuple(1.0 for _ in factors), path - params.short_rate_shift(curve, t)
     if target == "zero_yield":
         _need_maturity(maturity)
         if maturity is None:
             raise ValueError("a zero-yield target needs a positive maturity, got None")
-        c_x = float(b_factor(params.a, maturity))
-        c_y = float(b_factor(params.b, maturity))
-        return c_x, c_y, maturity * path + _g2_log_a(curve, params, t, maturity)
+        c = tuple(float(b_factor(k, maturity)) for k, _, _ in factors)
+        return c, maturity * path + params.log_bond_constant(curve, t, maturity)
     raise ValueError(f"unknown target {target!r}: use 'short_rate' or 'zero_yield'")
 
 
@@ -98,108 +94,93 @@ def _need_maturity(maturity: float | None) -> None:
         raise ValueError(f"a zero-yield target needs a positive maturity, got {maturity!r}")
 
 
-def _g2_pair(factor_mean: object) -> tuple[np.ndarray, np.ndarray]:
-    if not isinstance(factor_mean, (tuple, list)) or len(factor_mean) != 2:
-        raise ValueError(
-            "under G2++ the factor mean is the pair (E x_t, E y_t), as real_world_factor_mean "
-            "returns it (zeros for the market-consistent value), not one array"
-        )
-    return np.asarray(factor_mean[0], dtype=float), np.asarray(factor_mean[1], dtype=float)
-
-
 def model_target_value(
     curve: DiscountCurve,
-    params: HullWhiteParams | G2PlusPlusParams,
+    params: RatesModel,
     t: np.ndarray,
-    factor_mean: np.ndarray | tuple[np.ndarray, np.ndarray],
+    factor_mean: Any,
     *,
     target: str,
     maturity: float | None,
 ) -> np.ndarray:
-    """The target quantity at ``t`` when the factor equals ``factor_mean`` (its mean, by linearity).
+    """The target quantity at ``t`` when the factors equal ``factor_mean`` (their means, by linearity).
 
-    factor_mean: one array broadcasting with ``t`` (Hull-White), or the pair ``(E x_t, E y_t)``
-    (G2++)."""
+    factor_mean: one array broadcasting with ``t`` for a one-factor model (Hull-White), else one
+    per factor (G2++: ``(E x_t, E y_t)``), as :func:`~pqflow.measure.prices_of_risk.real_world_factor_mean`
+    returns it."""
     t = np.asarray(t, dtype=float)
-    if isinstance(params, G2PlusPlusParams):
-        mx, my = _g2_pair(factor_mean)
-        if target == "short_rate":
-            return g2pp.phi(curve, params, t) + mx + my
-        if target != "zero_yield":
-            raise ValueError(f"unknown target {target!r}: use 'short_rate' or 'zero_yield'")
-        _need_maturity(maturity)
-        if maturity is None:
-            raise ValueError("a zero-yield target needs a positive maturity, got None")
-        loadings = float(b_factor(params.a, maturity)) * mx + float(b_factor(params.b, maturity)) * my
-        return (-_g2_log_a(curve, params, t, maturity) + loadings) / maturity
+    means = factor_means(params, factor_mean)
     if target == "short_rate":
-        return factor_mean + alpha(curve, params, t)
+        value = params.short_rate_shift(curve, t)
+        for mean in means:
+            value = value + mean
+        return value
+    if target != "zero_yield":
+        raise ValueError(f"unknown target {target!r}: use 'short_rate' or 'zero_yield'")
+    _need_maturity(maturity)
     if maturity is None:
         raise ValueError("a zero-yield target needs a positive maturity, got None")
-    return (-_log_a(curve, params, t, maturity) + b_factor(params.mean_reversion, maturity) * factor_mean) / maturity
+    loads = [float(b_factor(k, maturity)) * mean for (k, _, _), mean in zip(params.factor_rates(), means, strict=True)]
+    return (-params.log_bond_constant(curve, t, maturity) + sum(loads[1:], start=loads[0])) / maturity
 
 
-def today_value(
-    curve: DiscountCurve, params: HullWhiteParams | G2PlusPlusParams, *, target: str, maturity: float | None
-) -> float:
+def today_value(curve: DiscountCurve, params: RatesModel, *, target: str, maturity: float | None) -> float:
     """``m0``: the target quantity today."""
     zero = np.array([0.0])
-    mean = (zero, zero) if isinstance(params, G2PlusPlusParams) else zero
+    mean = params.zero_factor_mean(zero)
     return float(model_target_value(curve, params, zero, mean, target=target, maturity=maturity)[0])
 
 
 def factor_mean_for_target(
-    curve: DiscountCurve, params: HullWhiteParams, t: np.ndarray, path: np.ndarray, *, target: str,
+    curve: DiscountCurve, params: RatesModel, t: np.ndarray, path: np.ndarray, *, target: str,
     maturity: float | None
 ) -> np.ndarray:
     """``g(t)``: the real-world factor mean that puts the target's expectation on ``path``
-    (Hull-White only: under G2++ the path fixes only a combination of the two factor means,
-    which :func:`rates_price_of_risk_for_path` solves for month by month)."""
-    if isinstance(params, G2PlusPlusParams):
+    (a one-factor model only, such as Hull-White: with more factors the path fixes only a
+    combination of their means, which :func:`rates_price_of_risk_for_path` solves for month by
+    month)."""
+    if len(params.factor_rates()) != 1:
         raise ValueError(
-            "under G2++ a target path fixes only a combination of the two factor means; use "
+            f"under {params.label} a target path fixes only a combination of the factor means; use "
             "rates_price_of_risk_for_path"
         )
-    t = np.asarray(t, dtype=float)
-    if target == "short_rate":
-        return path - alpha(curve, params, t)
-    if target == "zero_yield":
-        if maturity is None:
-            raise ValueError("a zero-yield target needs a positive maturity, got None")
-        return (maturity * path + _log_a(curve, params, t, maturity)) / b_factor(params.mean_reversion, maturity)
-    raise ValueError(f"unknown target {target!r}: use 'short_rate' or 'zero_yield'")
+    c, h = _combination(curve, params, np.asarray(t, dtype=float), path, target=target, maturity=maturity)
+    return h / c[0]
 
 
-def _g2_path_lambdas(
-    curve: DiscountCurve, params: G2PlusPlusParams, knots: np.ndarray, path: np.ndarray, *, target: str,
+def _path_lambdas(
+    curve: DiscountCurve, params: RatesModel, knots: np.ndarray, path: np.ndarray, *, target: str,
     maturity: float | None
 ) -> np.ndarray:
-    """Monthly ``lambda_j`` from the joint recursion of ``(E x, E y)`` (module docstring)."""
-    c_x, c_y, h = _g2_combination(curve, params, knots, path, target=target, maturity=maturity)
+    """Monthly ``lambda_j`` from the joint recursion of the factor means (module docstring)."""
+    c, h = _combination(curve, params, knots, path, target=target, maturity=maturity)
     dt = 1.0 / KNOTS_PER_YEAR
-    w_x, w_y = g2_driver_weights(params)
-    a, s, b, e = params.a, params.sigma * w_x, params.b, params.eta * w_y
-    decay_x, decay_y = np.exp(-a * dt), np.exp(-b * dt)
-    load_x, load_y = s * float(b_factor(a, dt)), e * float(b_factor(b, dt))
-    denominator = c_x * load_x + c_y * load_y
+    factors = params.factor_rates()
+    weights = params.price_of_risk_weights()
+    decay = [float(np.exp(-k * dt)) for k, _, _ in factors]
+    load = [s * w * float(b_factor(k, dt)) for (k, s, _), w in zip(factors, weights, strict=True)]
+    terms = [cf * lf for cf, lf in zip(c, load, strict=True)]
+    denominator = sum(terms[1:], start=terms[0])
     if not denominator > 0.0:
         raise ValueError(
-            "under these G2++ parameters a price of the short-rate shock does not move the target "
+            f"under these {params.label} parameters a price of the short-rate shock does not move the target "
             f"(loading {denominator:.3g}); choose the short rate as the target"
         )
     lam = np.empty(knots.size - 1)
-    ex = ey = 0.0  # exactly: x_0 = y_0 = 0
+    means = [0.0 for _ in factors]  # exactly: every factor starts at 0
     for j in range(lam.size):
-        ex, ey = decay_x * ex, decay_y * ey
-        lam[j] = (h[j + 1] - c_x * ex - c_y * ey) / denominator
-        ex += load_x * lam[j]
-        ey += load_y * lam[j]
+        means = [d * m for d, m in zip(decay, means, strict=True)]
+        gap = h[j + 1]
+        for cf, m in zip(c, means, strict=True):
+            gap = gap - cf * m
+        lam[j] = gap / denominator
+        means = [m + lf * lam[j] for m, lf in zip(means, load, strict=True)]
     return lam
 
 
 def rates_price_of_risk_for_path(
     curve: DiscountCurve,
-    params: HullWhiteParams | G2PlusPlusParams,
+    params: RatesModel,
     *,
     long_run_level: float,
     speed: float,
@@ -208,20 +189,26 @@ def rates_price_of_risk_for_path(
     maturity: float | None = None,
 ) -> PiecewiseConstant:
     """Monthly piecewise-constant ``lambda_r`` meeting the target path at every month end to
-    ``horizon`` (the last value holds beyond it). Under G2++ the schedule is the price of risk
-    of both factor drivers."""
-    if not isinstance(params, G2PlusPlusParams) and not params.volatility > 0.0:
-        raise ValueError("a real-world rate view needs a positive Hull-White volatility")
+    ``horizon`` (the last value holds beyond it). With several factors (G2++) the schedule is
+    the price of the short-rate shock, split over their drivers by the model's weights.
+
+    With one factor the path fixes the factor mean itself, ``g(t)``, and
+    ``lambda_j = (g_{j+1} - e^{-k D} g_j) / (s B(D))`` in closed form; with several it fixes
+    only a combination, solved month by month (:func:`_path_lambdas`)."""
+    factors = params.factor_rates()
+    if not all(s > 0.0 for _, s, _ in factors):
+        raise ValueError(f"a real-world rate view needs a positive {params.label} volatility")
     n = int(np.ceil(horizon * KNOTS_PER_YEAR - 1e-9))
     knots = np.arange(n + 1, dtype=float) / KNOTS_PER_YEAR
     start = today_value(curve, params, target=target, maturity=maturity)
     path = target_path(start, long_run_level, speed, knots)
-    if isinstance(params, G2PlusPlusParams):
-        lam = _g2_path_lambdas(curve, params, knots, path, target=target, maturity=maturity)
+    if len(factors) != 1:
+        lam = _path_lambdas(curve, params, knots, path, target=target, maturity=maturity)
         return PiecewiseConstant(knots=tuple(knots[:-1]), values=tuple(lam))
+    (k, s, _), = factors
     g = factor_mean_for_target(curve, params, knots, path, target=target, maturity=maturity)
     g[0] = 0.0  # exactly: x_0 = 0 (the formula gives it up to rounding)
     dt = 1.0 / KNOTS_PER_YEAR
-    decay = np.exp(-params.mean_reversion * dt)
-    lam = (g[1:] - decay * g[:-1]) / (params.volatility * float(b_factor(params.mean_reversion, dt)))
+    decay = np.exp(-k * dt)
+    lam = (g[1:] - decay * g[:-1]) / (s * float(b_factor(k, dt)))
     return PiecewiseConstant(knots=tuple(knots[:-1]), values=tuple(lam))

@@ -33,18 +33,22 @@ and a constant ``lambda`` gives ``E_P[r_t] = phi(t) + lambda (sigma w_x B_a(t) +
 function here takes either :class:`~pqflow.models.hull_white.HullWhiteParams` or
 :class:`~pqflow.models.g2pp.G2PlusPlusParams`; with G2++ :func:`real_world_factor_mean`
 returns the pair ``(E_P[x_t], E_P[y_t])`` (the Hull-White return, one array, is unchanged).
+Nothing here asks which model it holds: the formulas are written over the factors of
+:class:`~pqflow.models.rates.RatesModel` (rates ``k_f``, volatilities ``s_f``, price-of-risk
+weights ``w_f``), of which Hull-White has one and G2++ two.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
 from pqflow.market.curve import DiscountCurve
-from pqflow.models import g2pp
 from pqflow.models.g2pp import G2PlusPlusParams
-from pqflow.models.hull_white import HullWhiteParams, alpha, b_factor
+from pqflow.models.hull_white import b_factor
+from pqflow.models.rates import RatesModel
 from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
 
 __all__ = [
@@ -53,6 +57,7 @@ __all__ = [
     "equity_price_of_risk",
     "expected_short_rate",
     "real_world_factor_mean",
+    "factor_means",
     "g2_driver_weights",
 ]
 
@@ -73,34 +78,33 @@ class PricesOfRisk:
 
 def rates_price_of_risk_for_target(
     curve: DiscountCurve,
-    params: HullWhiteParams | G2PlusPlusParams,
+    params: RatesModel,
     *,
     target_short_rate: float,
     target_time: float,
 ) -> float:
     """``lambda_r`` such that the real-world expected short rate at ``target_time`` equals
-    ``target_short_rate``: ``(target - alpha(T)) / (sigma B(T))`` under Hull-White,
+    ``target_short_rate``: ``(target - shift(T)) / sum_f s_f w_f B_f(T)``, which is
+    ``(target - alpha(T)) / (sigma B(T))`` under Hull-White and
     ``(target - phi(T)) / (sigma w_x B_a(T) + eta w_y B_b(T))`` under G2++ (the price of the
     short-rate shock, :func:`g2_driver_weights`)."""
     if not target_time > 0.0:
         raise ValueError("target time must be positive")
-    if isinstance(params, G2PlusPlusParams):
-        gap = target_short_rate - float(g2pp.phi(curve, params, target_time))
-        w_x, w_y = g2_driver_weights(params)
-        loading = params.sigma * w_x * float(b_factor(params.a, target_time)) + params.eta * w_y * float(
-            b_factor(params.b, target_time)
-        )
-        return gap / loading
-    if not params.volatility > 0.0:
-        raise ValueError("a rate target needs a positive Hull-White volatility")
-    gap = target_short_rate - float(alpha(curve, params, target_time))
-    return gap / (params.volatility * float(b_factor(params.mean_reversion, target_time)))
+    factors = params.factor_rates()
+    if not all(s > 0.0 for _, s, _ in factors):
+        raise ValueError(f"a rate target needs a positive {params.label} volatility")
+    gap = target_short_rate - float(params.short_rate_shift(curve, target_time))
+    terms = [
+        s * w * float(b_factor(k, target_time))
+        for (k, s, _), w in zip(factors, params.price_of_risk_weights(), strict=True)
+    ]
+    return gap / sum(terms[1:], start=terms[0])
 
 
-def g2_driver_weights(params: G2PlusPlusParams) -> tuple[float, float]:
+def g2_driver_weights(params: G2PlusPlusParams) -> tuple[float, ...]:
     """``(w_x, w_y)``: the rates price of risk ``lambda`` shifts ``W1`` by ``w_x lambda`` and ``W2``
     by ``w_y lambda`` (module docstring: the price of the short-rate shock)."""
-    return params.driver_weights()
+    return params.price_of_risk_weights()
 
 
 def equity_price_of_risk(
@@ -130,40 +134,52 @@ def _ou_mean(a: float, s: float, rates_price_of_risk: PiecewiseConstant, t: np.n
 
 
 def real_world_factor_mean(
-    params: HullWhiteParams | G2PlusPlusParams,
+    params: RatesModel,
     rates_price_of_risk: PiecewiseConstant,
     t: np.ndarray | float,
-) -> np.ndarray | tuple[np.ndarray, np.ndarray]:
-    """Real-world factor mean(s) from zero at time 0, each of the shape of ``t``.
+) -> Any:
+    """Real-world factor mean(s) from zero at time 0, each of the shape of ``t``:
+    ``E_P[f_t] = s_f w_f int_0^t lambda_r(u) e^{-k_f (t - u)} du`` for each factor ``f``
+    (:meth:`~pqflow.models.rates.RatesModel.price_of_risk_weights`). One array for a one-factor
+    model (Hull-White), else the tuple over the factors (G2++: ``(E_P[x_t], E_P[y_t])``)."""
+    means = tuple(
+        _ou_mean(k, s * w, rates_price_of_risk, t)
+        for (k, s, _), w in zip(params.factor_rates(), params.price_of_risk_weights(), strict=True)
+    )
+    return means[0] if len(means) == 1 else means
 
-    Hull-White: ``E_P[x_t] = sigma int_0^t lambda_r(s) e^{-a (t - s)} ds``, one array.
-    G2++: the pair ``(E_P[x_t], E_P[y_t])``, the same integral with ``(a, sigma)`` and with
-    ``(b, eta)``, each scaled by its driver weight (:func:`g2_driver_weights`)."""
-    if isinstance(params, G2PlusPlusParams):
-        return (
-            _ou_mean(params.a, params.sigma * g2_driver_weights(params)[0], rates_price_of_risk, t),
-            _ou_mean(params.b, params.eta * g2_driver_weights(params)[1], rates_price_of_risk, t),
+
+def factor_means(params: RatesModel, factor_mean: Any) -> tuple[np.ndarray, ...]:
+    """``factor_mean`` in the form :func:`real_world_factor_mean` returns it (one array for a
+    one-factor model, one per factor otherwise) as the tuple over the factors, checked."""
+    n = len(params.factor_rates())
+    if n == 1 and not isinstance(factor_mean, (tuple, list)):
+        return (np.asarray(factor_mean, dtype=float),)
+    if not isinstance(factor_mean, (tuple, list)) or len(factor_mean) != n:
+        names = ", ".join(f"E {name}_t" for name in params.factor_names)
+        form = "pair" if n == 2 else f"{n}-tuple"
+        raise ValueError(
+            f"under {params.label} the factor mean is the {form} ({names}), one array per factor, as "
+            "real_world_factor_mean returns it (zeros for the market-consistent value), not one array"
         )
-    return _ou_mean(params.mean_reversion, params.volatility, rates_price_of_risk, t)
+    return tuple(np.asarray(m, dtype=float) for m in factor_mean)
 
 
 def expected_short_rate(
     curve: DiscountCurve,
-    params: HullWhiteParams | G2PlusPlusParams,
+    params: RatesModel,
     prices_of_risk: PricesOfRisk,
     t: np.ndarray | float,
     *,
     measure: str,
 ) -> np.ndarray:
-    """Closed-form expected short rate at ``t`` under ``measure``: ``alpha(t)`` (Hull-White) or
-    ``phi(t)`` (G2++) under Q, plus the real-world factor mean(s) under P."""
-    g2 = isinstance(params, G2PlusPlusParams)
-    base = g2pp.phi(curve, params, t) if isinstance(params, G2PlusPlusParams) else alpha(curve, params, t)
+    """Closed-form expected short rate at ``t`` under ``measure``: the shift ``alpha(t)``
+    (Hull-White) or ``phi(t)`` (G2++) under Q, plus the real-world factor means under P."""
+    base = params.short_rate_shift(curve, t)
     if measure == "market_consistent":
         return base
     if measure == "real_world":
-        mean = real_world_factor_mean(params, prices_of_risk.rates_schedule, t)
-        if g2:
-            return base + mean[0] + mean[1]
-        return base + mean
+        for mean in factor_means(params, real_world_factor_mean(params, prices_of_risk.rates_schedule, t)):
+            base = base + mean
+        return base
     raise ValueError(f"unknown measure {measure!r}")

@@ -191,6 +191,13 @@ class G2PlusPlusParams:
             for name, wi in zip(self.drivers, self.driver_weights(), strict=True)
         }
 
+    def price_of_risk_weights(self) -> tuple[float, ...]:
+        return self.driver_weights()
+
+    def log_bond_constant(self, curve: DiscountCurve, t: np.ndarray, maturity: float) -> np.ndarray:
+        """``ln A(t, M)``: ``ln P(t, t + M)`` at ``x = y = 0`` (:func:`zcb_price`)."""
+        return np.log(zcb_price(curve, self, t, maturity, 0.0, 0.0))
+
     def zero_factor_mean(self, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         z = np.zeros_like(t)
         return (z, z.copy())

@@ -111,6 +111,20 @@ class HullWhiteParams:
     def split_price_of_risk(self, lam: float | PiecewiseConstant) -> dict[str, float | PiecewiseConstant]:
         return {self.drivers[0]: lam}
 
+    def price_of_risk_weights(self) -> tuple[float, ...]:
+        return (1.0,)
+
+    def log_bond_constant(self, curve: DiscountCurve, t: np.ndarray, maturity: float) -> np.ndarray:
+        """``ln A(t, M) = ln P(0, t+M) / P(0, t) + (V(M) - V(t+M) + V(t)) / 2`` (the
+        Hull-White bond price of Brigo and Mercurio 2006, ch. 3.3, written with the integrated
+        variance ``V`` of ``int r``)."""
+        v = integrated_variance
+        return (
+            np.log(curve.discount(t + maturity))
+            - np.log(curve.discount(t))
+            + 0.5 * (v(self, maturity) - v(self, t + maturity) + v(self, t))
+        )
+
     def zero_factor_mean(self, t: np.ndarray) -> np.ndarray:
         return np.zeros_like(t)
 

@@ -11,7 +11,7 @@ Gaussian short-rate model is one class implementing it plus one line in :data:`R
 
 from __future__ import annotations
 
-from typing import Any, ClassVar, Protocol, cast
+from typing import Any, ClassVar, Protocol
 
 import numpy as np
 
@@ -20,7 +20,7 @@ from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.schedule import PiecewiseConstant
 
-__all__ = ["RatesModel", "RATES_MODELS", "RATES_DRIVERS", "rates_from_json", "as_short_rate_params"]
+__all__ = ["RatesModel", "RATES_MODELS", "RATES_DRIVERS", "rates_from_json"]
 
 
 class RatesModel(Protocol):
@@ -84,9 +84,19 @@ class RatesModel(Protocol):
         """The rates price of risk (of the short-rate shock) by driver."""
         ...
 
+    def price_of_risk_weights(self) -> tuple[float, ...]:
+        """``w_f`` per factor: the one rates price of risk ``lambda`` (of the short-rate shock)
+        shifts factor ``f``'s driver by ``w_f lambda`` (Hull-White: ``(1,)``; G2++:
+        :meth:`pqflow.models.g2pp.G2PlusPlusParams.driver_weights`)."""
+        ...
+
+    def log_bond_constant(self, curve: DiscountCurve, t: np.ndarray, maturity: float) -> np.ndarray:
+        """``ln A(t, M)``: ``ln P(t, t + M)`` with every factor at zero (shape of ``t``)."""
+        ...
+
     def zero_factor_mean(self, t: np.ndarray) -> Any:
         """The market-consistent factor mean (zero) in the form :mod:`pqflow.measure.house_view`
-        takes: one array, or one per factor."""
+        takes: one array for a one-factor model, else one per factor."""
         ...
 
     def to_json(self) -> dict[str, Any]:
@@ -102,13 +112,6 @@ RATES_MODELS: dict[str, type[HullWhiteParams] | type[G2PlusPlusParams]] = {
 
 #: The drivers of each rates model, by key.
 RATES_DRIVERS: dict[str, tuple[str, ...]] = {key: cls.drivers for key, cls in RATES_MODELS.items()}
-
-
-def as_short_rate_params(rates: RatesModel) -> HullWhiteParams | G2PlusPlusParams:
-    """``rates`` typed as one of the two parameter classes, for the functions of
-    :mod:`pqflow.measure.house_view` and :mod:`pqflow.measure.prices_of_risk`, which still solve
-    the real-world view model by model (a static type only: nothing is checked or converted)."""
-    return cast("HullWhiteParams | G2PlusPlusParams", rates)
 
 
 def rates_from_json(parameters: dict[str, Any]) -> RatesModel:

@@ -19,6 +19,7 @@ from pqflow.measure.cir_density import (
     cir_marginal_log_density_increment,
 )
 from pqflow.models.cir_credit import MEASURES, CirCreditModel, real_world_cir
+from pqflow.simulation.engine import run_substeps
 
 __all__ = ["CreditPaths", "simulate_credit"]
 
@@ -46,6 +47,71 @@ class CreditPaths:
     density: np.ndarray
     columns: dict[str, np.ndarray]
     rating_density: np.ndarray | None = None
+
+
+class _CreditScheme:
+    """The full-truncation Euler substep of every rating at once, with the density increments
+    from the same normals (:func:`pqflow.simulation.engine.run_substeps` drives it)."""
+
+    def __init__(self, params: CirCreditModel, times: np.ndarray, n: int, *, measure: str) -> None:
+        p_q = [r.cir for r in params.ratings]
+        d = len(p_q)
+        self.rows = d
+        self.measure = measure
+        self.kappa_mu = np.array([p.mean_reversion * p.long_run_mean for p in p_q])[:, None]
+        if measure == "market_consistent":
+            self.kappa_m = np.array([p.mean_reversion for p in p_q])[:, None]
+        else:
+            self.kappa_m = np.array([real_world_cir(r).mean_reversion for r in params.ratings])[:, None]
+        self.nu = np.array([p.volatility for p in p_q])[:, None]
+        self.theta = np.array([r.price_of_risk for r in params.ratings])
+        self.with_density = bool(np.any(self.theta != 0.0))
+        self.chol = params.chol
+        self.x = np.repeat(np.array([p.initial for p in p_q])[:, None], n, axis=1)  # (d, n)
+        self.yp = self.x.copy()
+        self.integ = np.zeros((d, n))
+        n_times, n_steps = times.size, times.size - 1
+        self.factor = np.empty((n, n_times, d))
+        self.integrated = np.empty((n, n_times, d))
+        self.log_inc = np.zeros((n, n_steps))
+        self.rating_inc = np.zeros((d, n, n_steps)) if self.with_density else None
+        self.factor[:, 0, :] = self.yp.T
+        self.integrated[:, 0, :] = 0.0
+        self.sq = np.empty((d, n))
+        self.dw = np.empty((d, n))
+        self.sqrt_h = 0.0
+        self.step_log = np.zeros(n)
+        self.rating_log: np.ndarray | None = None
+
+    def begin_step(self, k: int, h: float, block: np.ndarray) -> None:
+        self.sqrt_h = np.sqrt(h)
+        self.step_log = np.zeros(self.x.shape[1])
+        self.rating_log = np.zeros(self.x.shape) if self.rating_inc is not None else None
+
+    def substep(self, k: int, j: int, h: float, z: np.ndarray) -> None:
+        yp, sq, dw = self.yp, self.sq, self.dw
+        np.sqrt(yp, out=sq)
+        if self.chol is None:
+            dw[...] = z
+        else:
+            np.matmul(self.chol, z, out=dw)
+        if self.with_density:
+            eta = cir_density_coefficients(self.theta, yp, h, self.chol)
+            self.step_log += cir_log_density_increment(z, eta, measure=self.measure)
+            if self.rating_log is not None:
+                self.rating_log += cir_marginal_log_density_increment(dw, self.theta, yp, h, measure=self.measure)
+        # x += (kappa mu - kappa_m y^+) h + nu sqrt(y^+) sqrt(h) dw
+        self.x += (self.kappa_mu - self.kappa_m * yp) * h + (self.nu * self.sqrt_h) * sq * dw
+        y_new = np.maximum(self.x, 0.0)
+        self.integ += (0.5 * h) * (yp + y_new)
+        self.yp = y_new
+
+    def end_step(self, k: int) -> None:
+        self.factor[:, k + 1, :] = self.yp.T
+        self.integrated[:, k + 1, :] = self.integ.T
+        self.log_inc[:, k] = self.step_log
+        if self.rating_inc is not None and self.rating_log is not None:
+            self.rating_inc[:, :, k] = self.rating_log
 
 
 def simulate_credit(
@@ -90,60 +156,10 @@ def simulate_credit(
                 f"{(n_steps * substeps, d, n)}, not {normals.shape}"
             )
 
-    p_q = [r.cir for r in params.ratings]
-    kappa_mu = np.array([p.mean_reversion * p.long_run_mean for p in p_q])[:, None]
-    if measure == "market_consistent":
-        kappa_m = np.array([p.mean_reversion for p in p_q])[:, None]
-    else:
-        kappa_m = np.array([real_world_cir(r).mean_reversion for r in params.ratings])[:, None]
-    nu = np.array([p.volatility for p in p_q])[:, None]
-    theta = np.array([r.price_of_risk for r in params.ratings])
-    with_density = bool(np.any(theta != 0.0))
-    chol = params.chol
-
-    x = np.repeat(np.array([p.initial for p in p_q])[:, None], n, axis=1)  # (d, n)
-    yp = x.copy()
-    integ = np.zeros((d, n))
+    scheme = _CreditScheme(params, times, n, measure=measure)
+    run_substeps(scheme, times, substeps, rng if rng is not None else normals, n_paths=n)
+    factor, integrated, log_inc, rating_inc = scheme.factor, scheme.integrated, scheme.log_inc, scheme.rating_inc
     n_times = times.size
-    factor = np.empty((n, n_times, d))
-    integrated = np.empty((n, n_times, d))
-    log_inc = np.zeros((n, n_steps))
-    rating_inc = np.zeros((d, n, n_steps)) if with_density else None
-    factor[:, 0, :] = yp.T
-    integrated[:, 0, :] = 0.0
-    sq = np.empty((d, n))
-    dw = np.empty((d, n))
-    for k in range(n_steps):
-        h = (times[k + 1] - times[k]) / substeps
-        sqrt_h = np.sqrt(h)
-        if rng is not None:
-            block = rng.standard_normal((substeps, d, n))
-        else:
-            block = normals[k * substeps : (k + 1) * substeps]
-        step_log = np.zeros(n)
-        rating_log = np.zeros((d, n)) if rating_inc is not None else None
-        for j in range(substeps):
-            z = block[j]
-            np.sqrt(yp, out=sq)
-            if chol is None:
-                dw[...] = z
-            else:
-                np.matmul(chol, z, out=dw)
-            if with_density:
-                eta = cir_density_coefficients(theta, yp, h, chol)
-                step_log += cir_log_density_increment(z, eta, measure=measure)
-                if rating_log is not None:
-                    rating_log += cir_marginal_log_density_increment(dw, theta, yp, h, measure=measure)
-            # x += (kappa mu - kappa_m y^+) h + nu sqrt(y^+) sqrt(h) dw
-            x += (kappa_mu - kappa_m * yp) * h + (nu * sqrt_h) * sq * dw
-            y_new = np.maximum(x, 0.0)
-            integ += (0.5 * h) * (yp + y_new)
-            yp = y_new
-        factor[:, k + 1, :] = yp.T
-        integrated[:, k + 1, :] = integ.T
-        log_inc[:, k] = step_log
-        if rating_inc is not None:
-            rating_inc[:, :, k] = rating_log
     density = np.ones((n, n_times))
     if n_steps:
         density[:, 1:] = np.exp(np.cumsum(log_inc, axis=1))

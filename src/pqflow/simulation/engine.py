@@ -25,6 +25,13 @@ grid's bytes); results never depend on whether the cache was warm.
 Random numbers: batch ``b`` of measure ``m`` draws ``z`` of shape ``(n_steps, d, n)`` in C order
 (``n = n_paths``, or ``n_paths / 2`` with antithetic sampling) from its own stream
 (``pqflow.simulation.streams``).
+
+Parts that are not Gaussian (credit intensities, a Heston index) are simulated on substeps,
+conditionally on the economy's columns. Their schemes say what one substep does
+(:class:`SubstepScheme`); :func:`run_substeps` owns the loop over output steps and substeps and
+every draw: per output step ``(substeps, rows, n)`` standard normals from the part's own
+stream (mirrored in pairs with antithetic sampling), the same numbers as one C-order draw of
+shape ``(n_steps * substeps, rows, n)``.
 """
 
 from __future__ import annotations
@@ -35,6 +42,7 @@ import threading
 from collections import OrderedDict
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import Protocol, runtime_checkable
 
 import numpy as np
 
@@ -54,6 +62,8 @@ __all__ = [
     "block_laws",
     "simulate_states",
     "simulate_batch",
+    "SubstepScheme",
+    "run_substeps",
 ]
 
 
@@ -400,3 +410,67 @@ def simulate_batch(
         assert core.block_density is not None
         out[density_block_column(measure, name)] = core.block_density[i]
     return out
+
+
+@runtime_checkable
+class SubstepScheme(Protocol):
+    """One output step of a non-Gaussian part, as :func:`run_substeps` drives it: ``rows``
+    standard normals per path and substep; ``begin_step`` sees the step's whole block
+    ``(substeps, rows, n_paths)`` (for what is drawn once per step, such as a Brownian bridge),
+    ``substep`` advances the paths by one substep of length ``h`` with ``z`` ``(rows, n_paths)``,
+    ``end_step`` records the state at the step's end."""
+
+    @property
+    def rows(self) -> int: ...
+
+    def begin_step(self, k: int, h: float, block: np.ndarray) -> None: ...
+
+    def substep(self, k: int, j: int, h: float, z: np.ndarray) -> None: ...
+
+    def end_step(self, k: int) -> None: ...
+
+
+def run_substeps(
+    scheme: SubstepScheme,
+    times: np.ndarray,
+    substeps: int,
+    normals: np.random.Generator | np.ndarray,
+    *,
+    n_paths: int,
+    antithetic: bool = False,
+) -> None:
+    """Drive ``scheme`` over ``times`` with ``substeps`` equal substeps per output step.
+
+    normals: the part's own generator (per output step it draws ``(substeps, rows, n)``, ``n =
+    n_paths`` or ``n_paths / 2`` with antithetic sampling, whose partners ``(2j, 2j+1)`` get
+    ``z`` and ``-z``), or the numbers themselves, ``(n_steps * substeps, rows, n_paths)``."""
+    times = np.asarray(times, dtype=float)
+    n_steps, rows = times.size - 1, scheme.rows
+    if antithetic and n_paths % 2:
+        raise ValueError("antithetic sampling needs an even number of paths")
+    n_draw = n_paths // 2 if antithetic else n_paths
+    rng = normals if isinstance(normals, np.random.Generator) else None
+    given = np.empty((0, rows, n_paths))  # read only when the numbers are given
+    if rng is None:
+        given = np.asarray(normals, dtype=float)
+        if given.shape != (n_steps * substeps, rows, n_paths):
+            raise ValueError(
+                f"normals must have shape (n_steps * substeps, rows, n_paths) = {(n_steps * substeps, rows, n_paths)}, "
+                f"not {given.shape}"
+            )
+    for k in range(n_steps):
+        h = (times[k + 1] - times[k]) / substeps
+        if rng is None:
+            block = given[k * substeps : (k + 1) * substeps]
+        else:
+            draw = rng.standard_normal((substeps, rows, n_draw))
+            if antithetic:
+                block = np.empty((substeps, rows, n_paths))
+                block[:, :, 0::2] = draw
+                block[:, :, 1::2] = -draw
+            else:
+                block = draw
+        scheme.begin_step(k, h, block)
+        for j in range(substeps):
+            scheme.substep(k, j, h, block[j])
+        scheme.end_step(k)

@@ -11,10 +11,12 @@ A Heston index reads from the economy's batch what its scheme needs and nothing 
   (:mod:`pqflow.models.hull_white`). In the real-world set this is the real-world increment:
   ``int lambda_r dt`` (the rates price of risk) is taken off.
 
-Everything else comes from the part's own random stream (``heston_generator``, a child of the
-batch's seed sequence beside credit's), so the Gaussian drivers' numbers are the same with or
-without it. The part's density (:mod:`pqflow.measure.heston_density`) is the likelihood ratio of
-its own normals given the economy: it multiplies the economy's full density exactly.
+Everything else comes from the part's own random stream
+(:func:`pqflow.simulation.streams.heston_generator`, a child of the batch's seed sequence beside
+credit's; the engine's :func:`pqflow.simulation.engine.run_substeps` draws it), so the
+Gaussian drivers' numbers are the same with or without it. The part's density
+(:mod:`pqflow.measure.heston_density`) is the likelihood ratio of its own normals given the
+economy: it multiplies the economy's full density exactly.
 
 Density blocks. A block that holds the index's driver (with the rates: the index reads the cash
 account) sees the index, its variance and what the index reads from the economy: the block's
@@ -52,7 +54,6 @@ from pqflow.models.total_return import TotalReturnIndex
 from pqflow.simulation.heston_scheme import HestonPaths, simulate_heston_paths
 
 __all__ = [
-    "heston_generator",
     "heston_substeps",
     "rates_driver_increments",
     "index_driver_increments",
@@ -62,16 +63,6 @@ __all__ = [
 ]
 
 RATES_DRIVER = "rates"
-
-
-def heston_generator(root_seed: int, measure: str, batch: int, position: int) -> np.random.Generator:
-    """The stream of the ``position``-th Heston index of one batch: child ``(1, position)`` of the
-    batch's seed sequence (credit uses child 0)."""
-    from pqflow.simulation.streams import batch_seed_sequence
-
-    parent = batch_seed_sequence(root_seed, measure, batch)
-    seq = np.random.SeedSequence(root_seed, spawn_key=(*parent.spawn_key, 1, position))
-    return np.random.Generator(np.random.PCG64(seq))
 
 
 def heston_substeps(times: np.ndarray, substeps_per_year: int) -> int:

@@ -12,6 +12,7 @@ import numpy as np
 
 from pqflow.measure.heston_density import heston_density_coefficients, heston_log_density_increment
 from pqflow.models.heston import HestonParams
+from pqflow.simulation.engine import run_substeps
 
 __all__ = ["HestonPaths", "simulate_heston_paths"]
 
@@ -28,6 +29,79 @@ class HestonPaths:
     log_return: np.ndarray
     variance: np.ndarray
     log_density: np.ndarray
+
+
+class _HestonScheme:
+    """One substep of the index and its variance with the density increments from the same
+    normals (:func:`simulate_heston_paths` states the scheme; :func:`pqflow.simulation.engine.run_substeps`
+    drives it)."""
+
+    def __init__(
+        self, p: HestonParams, n_paths: int, n_times: int, *, measure: str, log_carry: np.ndarray,
+        prices_of_risk, explained: float, projection: np.ndarray, shift: np.ndarray,
+    ) -> None:
+        self.p = p
+        self.measure = measure
+        self.log_carry = log_carry
+        self.proj = projection
+        self.shift = shift
+        self.with_rates = explained != 0.0
+        lam = self.lam = prices_of_risk
+        self.real = measure == "real_world"
+        self.kappa_m = lam.kappa_real_world if (self.real and lam is not None) else p.kappa
+        self.lam_s = np.sqrt(1.0 - explained) * lam.equity if (self.real and lam is not None) else 0.0
+        self.kappa_theta = p.kappa * p.theta
+        self.s_perp = np.sqrt(1.0 - explained)
+        self.s_proj = np.sqrt(explained)
+        self.a_v = p.rho / self.s_perp
+        self.c_v = np.sqrt(1.0 - self.a_v * self.a_v)
+        self.rows = 3 if self.with_rates else 2
+        self.x = np.full(n_paths, p.v0)
+        self.vp = self.x.copy()
+        self.lnS = np.zeros(n_paths)
+        self.logw = np.zeros(n_paths)
+        self.out_s = np.zeros((n_paths, n_times))
+        self.out_v = np.empty((n_paths, n_times))
+        self.out_w = np.zeros((n_paths, n_times))
+        self.out_v[:, 0] = self.vp
+        self.sqrt_h = 0.0
+        self.carry = np.zeros(n_paths)
+        self.block = np.empty((0, self.rows, n_paths))
+        self.bridge = np.empty((0, n_paths))
+        self.c_shift = np.zeros(0)
+
+    def begin_step(self, k: int, h: float, block: np.ndarray) -> None:
+        substeps = block.shape[0]
+        self.sqrt_h = np.sqrt(h)
+        self.block = block
+        self.carry = self.log_carry[:, k] / substeps
+        if self.with_rates:
+            u = block[:, 2, :]
+            self.bridge = self.proj[:, k] / substeps + self.s_proj * self.sqrt_h * (u - u.mean(axis=0))
+            self.c_shift = self.shift[k] - self.shift[k].mean()  # the bridge's own shift between the measures
+
+    def substep(self, k: int, j: int, h: float, z: np.ndarray) -> None:
+        p, lam, measure, sqrt_h, vp = self.p, self.lam, self.measure, self.sqrt_h, self.vp
+        zp, zv = z[0], z[1]
+        sq = np.sqrt(vp)
+        if lam is not None:
+            es, ep = heston_density_coefficients(lam, vp, h)
+            self.logw += heston_log_density_increment(zp, zv, es, ep, measure=measure)
+            if self.with_rates and self.c_shift[j] != 0.0:
+                eu = self.c_shift[j] / (self.s_proj * sqrt_h)
+                self.logw += heston_log_density_increment(z[2], 0.0, eu, 0.0, measure=measure)
+        d_bs = self.s_perp * sqrt_h * zp
+        if self.with_rates:
+            d_bs = d_bs + self.bridge[j]
+        premium = (self.lam_s * vp + sq * (self.shift[k, j] / h)) * h if (self.real and lam is not None) else 0.0
+        self.lnS += self.carry + premium - 0.5 * vp * h + sq * d_bs
+        self.x += (self.kappa_theta - self.kappa_m * vp) * h + p.xi * sq * sqrt_h * (self.a_v * zp + self.c_v * zv)
+        self.vp = np.maximum(self.x, 0.0)
+
+    def end_step(self, k: int) -> None:
+        self.out_s[:, k + 1] = self.lnS
+        self.out_v[:, k + 1] = self.vp
+        self.out_w[:, k + 1] = self.logw
 
 
 def simulate_heston_paths(
@@ -99,58 +173,10 @@ def simulate_heston_paths(
         raise ValueError(f"projection_shift must have shape {(n_steps, substeps)}, not {shift.shape}")
     if not (0.0 <= explained < 1.0 and p.rho**2 < 1.0 - explained):
         raise ValueError(f"needs 0 <= explained < 1 - rho^2, got explained {explained!r} and rho {p.rho!r}")
-    n_draw = n_paths // 2 if antithetic else n_paths
-    lam = prices_of_risk
-    real = measure == "real_world"
-    kappa_m = lam.kappa_real_world if (real and lam is not None) else p.kappa
-    lam_s = np.sqrt(1.0 - explained) * lam.equity if (real and lam is not None) else 0.0
-    kappa_theta = p.kappa * p.theta
-    s_perp = np.sqrt(1.0 - explained)
-    s_proj = np.sqrt(explained)
-    a_v = p.rho / s_perp
-    c_v = np.sqrt(1.0 - a_v * a_v)
-    rows = 3 if with_rates else 2
-    x = np.full(n_paths, p.v0)
-    vp = x.copy()
-    lnS = np.zeros(n_paths)
-    logw = np.zeros(n_paths)
-    out_s = np.zeros((n_paths, times.size))
-    out_v = np.empty((n_paths, times.size))
-    out_w = np.zeros((n_paths, times.size))
-    out_v[:, 0] = vp
-    for k in range(n_steps):
-        dt = times[k + 1] - times[k]
-        h = dt / substeps
-        sqrt_h = np.sqrt(h)
-        draw = rng.standard_normal((substeps, rows, n_draw))
-        if antithetic:
-            z_all = np.empty((substeps, rows, n_paths))
-            z_all[:, :, 0::2] = draw
-            z_all[:, :, 1::2] = -draw
-        else:
-            z_all = draw
-        carry = log_carry[:, k] / substeps
-        if with_rates:
-            u = z_all[:, 2, :]
-            bridge = proj[:, k] / substeps + s_proj * sqrt_h * (u - u.mean(axis=0))
-            c_shift = shift[k] - shift[k].mean()  # the bridge's own shift between the measures
-        for j in range(substeps):
-            zp, zv = z_all[j, 0], z_all[j, 1]
-            sq = np.sqrt(vp)
-            if lam is not None:
-                es, ep = heston_density_coefficients(lam, vp, h)
-                logw += heston_log_density_increment(zp, zv, es, ep, measure=measure)
-                if with_rates and c_shift[j] != 0.0:
-                    eu = c_shift[j] / (s_proj * sqrt_h)
-                    logw += heston_log_density_increment(z_all[j, 2], 0.0, eu, 0.0, measure=measure)
-            d_bs = s_perp * sqrt_h * zp
-            if with_rates:
-                d_bs = d_bs + bridge[j]
-            premium = (lam_s * vp + sq * (shift[k, j] / h)) * h if (real and lam is not None) else 0.0
-            lnS += carry + premium - 0.5 * vp * h + sq * d_bs
-            x += (kappa_theta - kappa_m * vp) * h + p.xi * sq * sqrt_h * (a_v * zp + c_v * zv)
-            vp = np.maximum(x, 0.0)
-        out_s[:, k + 1] = lnS
-        out_v[:, k + 1] = vp
-        out_w[:, k + 1] = logw
+    scheme = _HestonScheme(
+        p, n_paths, n_steps + 1, measure=measure, log_carry=log_carry, prices_of_risk=prices_of_risk,
+        explained=explained, projection=proj, shift=shift,
+    )
+    run_substeps(scheme, times, substeps, rng, n_paths=n_paths, antithetic=antithetic)
+    out_s, out_v, out_w = scheme.out_s, scheme.out_v, scheme.out_w
     return HestonPaths(log_return=out_s, variance=out_v, log_density=out_w)

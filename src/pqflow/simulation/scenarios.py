@@ -27,8 +27,8 @@ from pqflow.models.cir_credit import CirCreditModel
 from pqflow.models.heston import HestonIndex
 from pqflow.simulation.credit import simulate_credit
 from pqflow.simulation.engine import Workspace, simulate_batch
-from pqflow.simulation.heston_part import heston_generator, projection_noise_rows, simulate_heston_index
-from pqflow.simulation.streams import batch_generator, credit_generator
+from pqflow.simulation.heston_part import projection_noise_rows, simulate_heston_index
+from pqflow.simulation.streams import batch_generator, credit_generator, heston_generator
 from pqflow.storage.names import DENSITY_COLUMN, bond_column, density_block_column, variance_column
 
 __all__ = ["credit_substeps", "simulate_part", "block_layout", "heston_block_rows"]
