@@ -487,7 +487,7 @@ def bench_heston(tmp: Path) -> dict[str, Any]:
 
     cfg, cal, model = _model(make_config(tmp / "heston.toml"))
     p = HestonParams(v0=0.03, kappa=1.2, theta=0.04, xi=0.5, rho=-0.5)
-    rho_r = cal.equity.correlation
+    rho_r = cal.rates.short_rate_correlation(cal.core_index.rates_correlation)  # with the short-rate shock
     lam = heston_prices_of_risk(kappa=p.kappa, theta=p.theta, xi=p.xi, equity_risk_premium=0.035,
                                 real_world_long_run_volatility=None, rho=p.rho, explained=rho_r**2)
     n = 2000

@@ -62,7 +62,7 @@ def test_typed_views_read_what_was_written(tmp_path):
     assert rec.rates_model == "g2pp" and rec.hull_white is None
     g = rec.g2pp
     assert g is not None and (g.a, g.sigma, g.b, g.eta, g.rho) == (0.5, 0.01, 0.05, 0.008, -0.7)
-    eq = rec.equity
+    eq = rec.core_index
     got = (eq.name, eq.level, eq.dividend_yield, eq.correlation_with_rate_factors)
     assert got == ("veld", 100.0, 0.02, (0.1, 0.05))
     assert eq.column == "equity_veld"
@@ -105,7 +105,7 @@ def test_a_missing_key_names_the_file_and_the_key(tmp_path):
     with pytest.raises(ConfigError, match=named + r"curve\)"):
         _ = rec.curve
     with pytest.raises(ConfigError, match=named + r"equity\.level\)"):
-        _ = rec.equity
+        _ = rec.core_index
 
 
 def test_not_json_and_not_found_are_named(tmp_path):

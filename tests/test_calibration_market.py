@@ -20,7 +20,8 @@ from pqflow.config import load_config
 from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.jobs import write_calibration
 from pqflow.market.data_files import read_curve_inputs
-from pqflow.models.equity import EquityParams, equity_option_price
+from pqflow.models.equity import equity_option_price
+from pqflow.models.total_return import TotalReturnIndex
 from pqflow.simulation import batch_generator, simulate_batch, time_grid
 
 
@@ -70,19 +71,19 @@ def test_equity_volatility_reprices_each_implied_vol(demo_calibration):
     # with the bucketed volatility; compare with Black's formula at the quoted vol.
     # The further index (world_equity) is bootstrapped the same way, with its own correlation.
     cal = demo_calibration
-    params = {cal.equity.name: cal.equity}
-    for idx in cal.indices:
-        params[idx.name] = EquityParams(
-            name=idx.name, level=idx.level, dividend_yield=idx.income_yield, volatility=idx.volatility,
+    params = {cal.core_index.name: cal.core_index}
+    for idx in cal.further_indices:
+        params[idx.name] = TotalReturnIndex(
+            kind="equity", name=idx.name, level=idx.level, income_yield=idx.income_yield, volatility=idx.volatility,
             correlation=cal.driver_correlation.pair("rates", idx.name),
         )
     seen = set()
     for inst in cal.instruments["equity_options"]:
-        eq = params[inst.get("index", cal.equity.name)]
+        eq = params[inst.get("index", cal.core_index.name)]
         seen.add(eq.name)
         t, k = inst["expiry"], inst["strike"]
         df = float(cal.curve.discount(t))
-        fwd = eq.level * np.exp(-eq.dividend_yield * t) / df
+        fwd = eq.level * np.exp(-eq.income_yield * t) / df
         assert k == pytest.approx(fwd, rel=1e-12)  # ATM forward
         model = equity_option_price(cal.curve, cal.rates, eq, expiry=t, strike=k, kind="call")
         assert model == pytest.approx(_bs_call(fwd, k, inst["market_vol"], t, df), rel=1e-10)
@@ -212,7 +213,7 @@ def test_non_psd_correlation_rejected_or_repaired(tmp_path):
     assert fit["repaired"] and fit["frobenius_distance"] > 0
     repaired = np.array(fit["repaired_matrix"])
     assert np.linalg.eigvalsh(repaired).min() >= -1e-10  # positive semi-definite (its definition)
-    assert cal.equity.correlation == pytest.approx(repaired[0, 1])
+    assert cal.core_index.correlation == pytest.approx(repaired[0, 1])
 
 
 def test_equity_vol_below_rate_variance_is_a_calibration_error(tmp_path):

@@ -23,16 +23,16 @@ import math
 
 import numpy as np
 import pytest
-from oracles.hull_white_equity import HullWhiteEquityModel
+from oracles.hull_white_equity import HullWhiteEquityModel, HullWhitePricesOfRisk
 from scipy.integrate import quad
 from scipy.stats import norm
 
 from pqflow.market.curve import LogDiscountCurve
 from pqflow.measure.density import density_coefficients, log_density_increments
-from pqflow.measure.prices_of_risk import PricesOfRisk, expected_short_rate
+from pqflow.measure.prices_of_risk import expected_short_rate
 from pqflow.models.base import StepLaw
-from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams, b_factor
+from pqflow.models.total_return import TotalReturnIndex
 from pqflow.simulation.engine import simulate_batch
 from pqflow.storage.names import bond_column, equity_column
 
@@ -162,10 +162,10 @@ def _full_model() -> HullWhiteEquityModel:
     return HullWhiteEquityModel(
         curve=LogDiscountCurve.from_zero_rates(pillars, zeros),
         rates=HullWhiteParams(mean_reversion=A, volatility=SIGMA),
-        equity=EquityParams(
-            name="eq", level=100.0, dividend_yield=0.0, volatility=0.18, correlation=-0.3
+        equity=TotalReturnIndex(
+            kind="equity", name="eq", level=100.0, income_yield=0.0, volatility=0.18, correlation=-0.3
         ),
-        prices_of_risk=PricesOfRisk(rates=LAMBDA_R, equity=LAMBDA_S),
+        prices_of_risk=HullWhitePricesOfRisk(rates=LAMBDA_R, equity=LAMBDA_S),
         bond_maturities=(10.0,),
     )
 

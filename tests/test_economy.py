@@ -11,14 +11,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from oracles.g2pp_equity import G2EquityParams, G2PlusPlusEquityModel, G2PricesOfRisk
-from oracles.hull_white_equity import HullWhiteEquityModel
+from oracles.hull_white_equity import HullWhiteEquityModel, HullWhitePricesOfRisk
 from oracles.jarrow_yildirim import InflationPricesOfRisk, JarrowYildirimModel
 from scipy.stats import norm
 
 from pqflow.market.curve import LogDiscountCurve
-from pqflow.measure.prices_of_risk import PricesOfRisk
 from pqflow.models.economy import EconomyModel, InflationPart, TotalReturnIndex
-from pqflow.models.equity import EquityParams
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.jarrow_yildirim import JarrowYildirimParams
@@ -58,8 +56,9 @@ def test_hull_white_with_one_index_is_the_hull_white_equity_model():
     rho = -0.25
     single = HullWhiteEquityModel(
         curve=NOMINAL, rates=HW,
-        equity=EquityParams(name="eq", level=100.0, dividend_yield=0.02, volatility=VOL, correlation=rho),
-        prices_of_risk=PricesOfRisk(rates=LAM_R, equity=LAM_S), bond_maturities=(1.0, 10.0),
+        equity=TotalReturnIndex(kind="equity", name="eq", level=100.0, income_yield=0.02,
+                                volatility=VOL, correlation=rho),
+        prices_of_risk=HullWhitePricesOfRisk(rates=LAM_R, equity=LAM_S), bond_maturities=(1.0, 10.0),
     )
     econ = EconomyModel(
         curve=NOMINAL, rates=HW,

@@ -10,7 +10,7 @@ References used below:
 QuantLib's correlation convention, found by experiment (``test_quantlib_correlation_sign``
 below pins it): the engine's ``rho`` enters the variance as ``+2 rho sigma_S sigma (T - B(T))/a``,
 i.e. it is the correlation of the equity and *short-rate* shocks, the same sign as pqflow's
-``EquityParams.correlation``. (Equity against bond prices would be the opposite sign.) A Monte
+``TotalReturnIndex.correlation``. (Equity against bond prices would be the opposite sign.) A Monte
 Carlo price from pqflow's own simulation, where ``rho`` is the correlation of the simulated
 shocks, agrees with QuantLib at ``+rho`` and not at ``-rho``.
 """
@@ -20,12 +20,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import QuantLib as ql
-from oracles.hull_white_equity import HullWhiteEquityModel
+from oracles.hull_white_equity import HullWhiteEquityModel, HullWhitePricesOfRisk
 
 from pqflow.market.curve import LogDiscountCurve
-from pqflow.measure.prices_of_risk import PricesOfRisk
-from pqflow.models.equity import EquityParams, equity_option_price
+from pqflow.models.equity import equity_option_price
 from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.total_return import TotalReturnIndex
 from pqflow.simulation.engine import simulate_batch
 from pqflow.storage.names import equity_column
 
@@ -84,8 +84,8 @@ def test_equity_option_matches_quantlib_bsm_hull_white(
 ) -> None:
     spot, rate, div, vol, a, sigma = 100.0, 0.03, 0.015, 0.2, 0.05, 0.01
     rates = HullWhiteParams(mean_reversion=a, volatility=sigma)
-    equity = EquityParams(
-        name="eq", level=spot, dividend_yield=div, volatility=vol, correlation=rho
+    equity = TotalReturnIndex(
+        kind="equity", name="eq", level=spot, income_yield=div, volatility=vol, correlation=rho
     )
     got = equity_option_price(
         _flat_curve(rate), rates, equity, expiry=days / 365.0, strike=strike, kind=kind
@@ -101,8 +101,8 @@ def test_quantlib_correlation_sign() -> None:
     # The experiment behind the module docstring: pqflow's rho equals QuantLib's +rho, and the
     # two signs give clearly different prices (so the equality above is not a coincidence).
     rates = HullWhiteParams(mean_reversion=0.05, volatility=0.01)
-    equity = EquityParams(
-        name="eq", level=100.0, dividend_yield=0.0, volatility=0.2, correlation=0.6
+    equity = TotalReturnIndex(
+        kind="equity", name="eq", level=100.0, income_yield=0.0, volatility=0.2, correlation=0.6
     )
     got = equity_option_price(_flat_curve(0.03), rates, equity, expiry=10.0, strike=100.0)
     common = dict(spot=100.0, rate=0.03, div=0.0, vol=0.2, a=0.05, sigma=0.01, days=3650,
@@ -122,10 +122,10 @@ def test_monte_carlo_price_agrees_with_positive_quantlib_correlation() -> None:
     model = HullWhiteEquityModel(
         curve=_flat_curve(rate),
         rates=HullWhiteParams(mean_reversion=a, volatility=sigma),
-        equity=EquityParams(
-            name="eq", level=spot, dividend_yield=div, volatility=vol, correlation=rho
+        equity=TotalReturnIndex(
+            kind="equity", name="eq", level=spot, income_yield=div, volatility=vol, correlation=rho
         ),
-        prices_of_risk=PricesOfRisk(rates=0.0, equity=0.0),
+        prices_of_risk=HullWhitePricesOfRisk(rates=0.0, equity=0.0),
         bond_maturities=(),
     )
     out = simulate_batch(
@@ -151,8 +151,8 @@ def test_tiny_rate_volatility_gives_hull_black_scholes_example(
     # in Black-Scholes): call 4.7594, put 0.8086 (from memory, four decimals). With a Hull-White
     # sigma of 1e-10 and a flat 10% continuously compounded curve the model is Black-Scholes.
     rates = HullWhiteParams(mean_reversion=0.1, volatility=1e-10)
-    equity = EquityParams(
-        name="eq", level=42.0, dividend_yield=0.0, volatility=0.2, correlation=0.3
+    equity = TotalReturnIndex(
+        kind="equity", name="eq", level=42.0, income_yield=0.0, volatility=0.2, correlation=0.3
     )
     got = equity_option_price(_flat_curve(0.10), rates, equity, expiry=0.5, strike=40.0, kind=kind)
     assert got == pytest.approx(hull_value, abs=5e-5)  # rounding of the four printed decimals
@@ -168,8 +168,8 @@ def test_put_call_parity(rho: float, expiry: float, strike: float) -> None:
         np.array([0.020, 0.022, 0.025, 0.030, 0.033, 0.034, 0.033]),
     )
     rates = HullWhiteParams(mean_reversion=0.04, volatility=0.009)
-    equity = EquityParams(
-        name="eq", level=100.0, dividend_yield=0.02, volatility=0.17, correlation=rho
+    equity = TotalReturnIndex(
+        kind="equity", name="eq", level=100.0, income_yield=0.02, volatility=0.17, correlation=rho
     )
     call = equity_option_price(curve, rates, equity, expiry=expiry, strike=strike, kind="call")
     put = equity_option_price(curve, rates, equity, expiry=expiry, strike=strike, kind="put")

@@ -35,10 +35,10 @@ from pqflow.calibration.swaptions import (
 )
 from pqflow.market.curve import LogDiscountCurve
 from pqflow.models import g2pp
-from pqflow.models.equity import EquityParams
 from pqflow.models.equity import equity_option_price as hw_equity_option_price
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.total_return import TotalReturnIndex
 
 __all__: list[str] = []
 
@@ -252,7 +252,7 @@ def test_equity_option_with_equal_mean_reversions_is_the_hull_white_one():
     s_eff = math.sqrt(p.sigma**2 + p.eta**2 + 2 * p.rho * p.sigma * p.eta)
     g2_eq = G2EquityParams(name="eq", level=100.0, dividend_yield=0.02, volatility=0.2,
                            correlation_x=0.3, correlation_y=-0.25)
-    hw_eq = EquityParams(name="eq", level=100.0, dividend_yield=0.02, volatility=0.2,
+    hw_eq = TotalReturnIndex(kind="equity", name="eq", level=100.0, income_yield=0.02, volatility=0.2,
                          correlation=(p.sigma * 0.3 + p.eta * -0.25) / s_eff)
     hw = HullWhiteParams(mean_reversion=0.08, volatility=s_eff)
     for expiry, strike, kind in [(1.0, 100.0, "call"), (10.0, 80.0, "put"), (25.0, 150.0, "call")]:

@@ -310,7 +310,7 @@ def test_g2_short_rate_path_is_met_at_every_month_end_and_by_simulation():
                                           measure="real_world")
     assert np.max(np.abs(ref - path)) < 1e-12
     # The functions the calibration reports with agree with that reference.
-    ours = expected_short_rate(CURVE, G2, PricesOfRisk(rates=lam, equity=0.0), knots, measure="real_world")
+    ours = expected_short_rate(CURVE, G2, PricesOfRisk(rates=lam), knots, measure="real_world")
     np.testing.assert_allclose(ours, ref, rtol=1e-13, atol=1e-16)
     mean = real_world_factor_mean(G2, lam, knots)  # the pair (E x, E y); each checked in the next test
     np.testing.assert_allclose(mean[0] + mean[1], ref - phi(CURVE, G2, knots), rtol=1e-12, atol=1e-16)
@@ -362,7 +362,7 @@ def test_g2_constant_price_of_risk_meets_the_short_rate_target():
     out = _simulate(lam, seed=20250303)
     r = out["short_rate"][:, int(year)]
     assert _within_4_se(r, target)
-    q_mean = float(expected_short_rate(CURVE, G2, PricesOfRisk(rates=lam, equity=0.0), year,
+    q_mean = float(expected_short_rate(CURVE, G2, PricesOfRisk(rates=lam), year,
                                        measure="market_consistent"))
     assert _within_4_se(out["q_density"][:, int(year)] * r, q_mean)
 

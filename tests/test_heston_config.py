@@ -58,13 +58,13 @@ def test_reader_refuses_bad_smile_rows(tmp_path, text, fragment) -> None:
 
 def _smile_text(cal, p: HestonParams, expiries=(1.0, 3.0, 7.0), moneyness=(0.8, 1.0, 1.25)) -> str:
     lines = ["index,expiry_years,implied_vol,strike,weight"]
-    eq = cal.equity
+    eq = cal.core_index
     for t in expiries:
         df = float(cal.curve.discount(t))
-        f = eq.level * np.exp(-eq.dividend_yield * t) / df
+        f = eq.level * np.exp(-eq.income_yield * t) / df
         for m in moneyness:
             kind = "call" if m >= 1 else "put"
-            pr = float(heston_option_price(p, level=eq.level, dividend_yield=eq.dividend_yield, discount=df, expiry=t,
+            pr = float(heston_option_price(p, level=eq.level, dividend_yield=eq.income_yield, discount=df, expiry=t,
                                            strike=m * f, kind=kind, rates=cal.rates, correlation=eq.correlation))
             v = float(black_implied_vol(pr, f, m * f, t, annuity=df, kind=kind))
             lines.append(f"{eq.name},{t:g},{v:.12f},{'ATMF' if m == 1.0 else m},1")

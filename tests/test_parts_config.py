@@ -548,3 +548,50 @@ def test_density_blocks_are_configured_by_name_and_drivers(tmp_path, small_confi
                 assemble.assemble_calibration = original
     empty = small_config(name="none.toml", density_blocks={})
     assert plan_run(load_config(empty)).density_blocks == ()
+
+
+def test_a_further_index_is_valued_by_name_as_the_core_one_is(full_run):
+    """Liabilities and the guarantee reconciliation name the index they use (default: the core
+    index), and each takes that index's own level, volatility and rate correlation."""
+    from pqflow.liabilities import inspect_run, parse_portfolio, value_run
+    from pqflow.models.equity import equity_option_price
+    from pqflow.models.total_return import TotalReturnIndex
+    from pqflow.validation.reconciliation import guarantee_values
+    from pqflow.validation.run_files import load_run_inputs
+
+    run, _ = full_run
+    info = inspect_run(run)
+    core_level = 1000.0  # scenario_configs/demo_typed.toml
+    assert info.index_levels == {"equity_veldmark_all_share": core_level, "equity_world_equity": 850.0,
+                                 "property_veldmark_property": 500.0}
+    assert info.core_index == "veldmark_all_share" and info.level_of(None) == core_level
+    assert info.level_of("equity_world_equity") == 850.0
+    # A guarantee on world_equity: Black on the forward with the Hull-White T-forward variance
+    # (Brigo and Mercurio 2006; models/equity.py), the index's own volatility and correlation.
+    inputs = load_run_inputs(run)
+    cal = load_calibration(run / "calibration.json")
+    got = guarantee_values(inputs, maturity=10.0, index="world_equity")
+    assert got is not None and got["level"] == pytest.approx(850.0, rel=1e-14)  # exp(log 850) in the file
+    world = TotalReturnIndex(name="world_equity", kind="equity", level=got["level"], income_yield=0.0,
+                             volatility=0.18, correlation=MATRIX[0][2])
+    closed = equity_option_price(cal.curve, cal.rates, world, expiry=got["maturity"], strike=got["guarantee"],
+                                 kind="put")
+    assert got["closed_form"] == pytest.approx(closed, rel=1e-12)
+    value, se = got["market_consistent"]
+    assert abs(value - closed) < 4.0 * se, (value, closed, se)  # 4 standard errors (two-sided size 6e-5)
+    core = guarantee_values(inputs, maturity=10.0)
+    assert core is not None and core["level"] == pytest.approx(core_level, rel=1e-14)
+    assert core["closed_form"] != got["closed_form"]
+    # A unit-linked guarantee on world_equity: the control variates' known means use that
+    # index's level, so the controlled value agrees with the plain mean within their errors
+    # (E[D_T S_T] = S_0 of the index the product holds; a wrong level would bias it by ~15%).
+    book = parse_portfolio({
+        "portfolio": {"insurer": "Larkspur Mutual Life (invented)", "currency": "VMK"},
+        "valuation": {"equity": "world_equity"},
+        "model_point": [{"id": "UL-W", "product": "unit_linked_gmmb", "policies": 10, "age": 40, "term": 5,
+                         "mortality": "none", "premium": 1000.0, "guarantee": 1000.0}],
+    }, source="book.toml")
+    mc = value_run(run, book, "market_consistent")
+    assert mc.plain_value is not None and mc.plain_std_error is not None
+    gap = abs(mc.value[-1, 0] - mc.plain_value[-1, 0])
+    assert gap < 4.0 * mc.plain_std_error[-1, 0], (mc.value[-1], mc.plain_value[-1], mc.plain_std_error[-1])

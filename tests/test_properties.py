@@ -13,13 +13,12 @@ from __future__ import annotations
 import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from oracles.hull_white_equity import HullWhiteEquityModel
+from oracles.hull_white_equity import HullWhiteEquityModel, HullWhitePricesOfRisk
 
 from pqflow.market.curve import LogDiscountCurve
-from pqflow.measure.prices_of_risk import PricesOfRisk
-from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.schedule import PiecewiseConstant
+from pqflow.models.total_return import TotalReturnIndex
 
 CURVE = LogDiscountCurve.from_zero_rates(
     np.array([1.0, 2, 5, 10, 20, 30, 50, 80]), np.array([0.02, 0.022, 0.026, 0.029, 0.031, 0.032, 0.033, 0.034])
@@ -35,9 +34,10 @@ def models(draw):
     return HullWhiteEquityModel(
         curve=CURVE,
         rates=HullWhiteParams(mean_reversion=draw(st.floats(1e-3, 1.0)), volatility=draw(st.floats(1e-3, 0.03))),
-        equity=EquityParams(name="eq", level=100.0, dividend_yield=0.02, volatility=schedule(0.05, 0.4),
+        equity=TotalReturnIndex(kind="equity", name="eq", level=100.0, income_yield=0.02,
+                                volatility=schedule(0.05, 0.4),
                             correlation=draw(st.floats(-0.9, 0.9))),
-        prices_of_risk=PricesOfRisk(rates=schedule(-0.5, 0.5), equity=schedule(-0.5, 0.8)),
+        prices_of_risk=HullWhitePricesOfRisk(rates=schedule(-0.5, 0.5), equity=schedule(-0.5, 0.8)),
         bond_maturities=(10.0,),
     )
 

@@ -14,11 +14,12 @@ import pytest
 from oracles import g2pp_equity
 
 from pqflow.models import g2pp, hull_white
-from pqflow.models.equity import EquityParams, equity_total_variance
+from pqflow.models.equity import equity_total_variance
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams, phi2
 from pqflow.models.rates import RATES_DRIVERS, RATES_MODELS, rates_from_json
 from pqflow.models.schedule import PiecewiseConstant, segments
+from pqflow.models.total_return import TotalReturnIndex
 
 HW = HullWhiteParams(mean_reversion=0.05, volatility=0.009)
 G2 = G2PlusPlusParams(a=0.6, sigma=0.011, b=0.04, eta=0.008, rho=-0.6)
@@ -62,7 +63,7 @@ def test_hull_white_forward_variance_matches_the_scalar_closed_form(expiry):
         ref += 2.0 * rho * vol * HW.volatility * float(
             phi2(HW.mean_reversion, expiry - u0) - phi2(HW.mean_reversion, expiry - u1)
         )
-    eq = EquityParams(name="eq", level=100.0, dividend_yield=0.0, volatility=VOL, correlation=rho)
+    eq = TotalReturnIndex(kind="equity", name="eq", level=100.0, income_yield=0.0, volatility=VOL, correlation=rho)
     assert equity_total_variance(HW, eq, expiry) == pytest.approx(ref, rel=1e-13)
 
 
@@ -74,5 +75,5 @@ def test_g2pp_forward_variance_matches_the_g2pp_oracle(expiry):
     oracle = g2pp_equity.equity_total_variance(
         G2, g2pp_equity.G2EquityParams(name="eq", level=100.0, dividend_yield=0.0, volatility=VOL,
                                        correlation_x=rx, correlation_y=ry), expiry)
-    eq = EquityParams(name="eq", level=100.0, dividend_yield=0.0, volatility=VOL, correlation=(rx, ry))
+    eq = TotalReturnIndex(kind="equity", name="eq", level=100.0, income_yield=0.0, volatility=VOL, correlation=(rx, ry))
     assert equity_total_variance(G2, eq, expiry) == pytest.approx(oracle, rel=1e-13)

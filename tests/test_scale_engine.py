@@ -10,14 +10,13 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from oracles.hull_white_equity import HullWhiteEquityModel
+from oracles.hull_white_equity import HullWhiteEquityModel, HullWhitePricesOfRisk
 
 from pqflow.market.curve import LogDiscountCurve
 from pqflow.measure.density import density_coefficients
-from pqflow.measure.prices_of_risk import PricesOfRisk
-from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams, cash_account, zcb_price
 from pqflow.models.schedule import PiecewiseConstant
+from pqflow.models.total_return import TotalReturnIndex
 from pqflow.simulation import engine
 from pqflow.simulation.engine import simulate_batch, simulate_states
 from pqflow.storage.names import bond_column, equity_column
@@ -30,8 +29,9 @@ def _model(schedule: bool = False) -> HullWhiteEquityModel:
     return HullWhiteEquityModel(
         curve=LogDiscountCurve.from_zero_rates(pillars, zeros),
         rates=HullWhiteParams(mean_reversion=0.07, volatility=0.011),
-        equity=EquityParams(name="eq", level=250.0, dividend_yield=0.0, volatility=vol, correlation=-0.25),
-        prices_of_risk=PricesOfRisk(rates=-0.2, equity=0.3),
+        equity=TotalReturnIndex(kind="equity", name="eq", level=250.0, income_yield=0.0,
+                                volatility=vol, correlation=-0.25),
+        prices_of_risk=HullWhitePricesOfRisk(rates=-0.2, equity=0.3),
         bond_maturities=(1.0, 5.0, 10.0),
     )
 

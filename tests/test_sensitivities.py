@@ -90,9 +90,9 @@ def test_layout_manifest_and_checks(run):
     vol_up = load_calibration(run / "sensitivities" / "equity_vol_up" / "calibration.json")
     base = load_calibration(run / "calibration.json")
     assert up.curve.discount(10.0) == pytest.approx(base.curve.discount(10.0) * np.exp(-0.1), rel=1e-14)
-    assert up.rates == base.rates and up.equity.volatility == base.equity.volatility
-    assert down.equity.level == pytest.approx(700.0) and down.equity.volatility == pytest.approx(0.17)
-    assert vol_up.equity.level == pytest.approx(1000.0) and vol_up.equity.volatility == pytest.approx(0.19)
+    assert up.rates == base.rates and up.core_index.volatility == base.core_index.volatility
+    assert down.core_index.level == pytest.approx(700.0) and down.core_index.volatility == pytest.approx(0.17)
+    assert vol_up.core_index.level == pytest.approx(1000.0) and vol_up.core_index.volatility == pytest.approx(0.19)
     assert down.curve.discount(10.0) == base.curve.discount(10.0)
 
 

@@ -31,13 +31,12 @@ import math
 import numpy as np
 import pytest
 from conftest import assert_gaussian_moments
-from oracles.hull_white_equity import HullWhiteEquityModel
+from oracles.hull_white_equity import HullWhiteEquityModel, HullWhitePricesOfRisk
 from scipy.integrate import quad
 
 from pqflow.market.curve import LogDiscountCurve
-from pqflow.measure.prices_of_risk import PricesOfRisk
-from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import HullWhiteParams
+from pqflow.models.total_return import TotalReturnIndex
 from pqflow.simulation.engine import simulate_batch
 from pqflow.storage.names import equity_column
 
@@ -70,10 +69,10 @@ def _model(rho: float = RHO) -> HullWhiteEquityModel:
     return HullWhiteEquityModel(
         curve=curve,
         rates=HullWhiteParams(mean_reversion=A, volatility=SIGMA),
-        equity=EquityParams(
-            name="eq", level=S0, dividend_yield=0.0, volatility=SIGMA_S, correlation=rho
+        equity=TotalReturnIndex(
+            kind="equity", name="eq", level=S0, income_yield=0.0, volatility=SIGMA_S, correlation=rho
         ),
-        prices_of_risk=PricesOfRisk(rates=LAMBDA_R, equity=LAMBDA_S),
+        prices_of_risk=HullWhitePricesOfRisk(rates=LAMBDA_R, equity=LAMBDA_S),
         bond_maturities=(),
     )
 

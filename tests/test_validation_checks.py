@@ -40,8 +40,9 @@ from pqflow.calibration import assemble_calibration
 from pqflow.config import load_config
 from pqflow.jobs import generate_part, plan_run, validate_staged_run, write_calibration, write_run_manifest
 from pqflow.market.curve import LogDiscountCurve
-from pqflow.models.equity import EquityParams, equity_option_price
+from pqflow.models.equity import equity_option_price
 from pqflow.models.hull_white import HullWhiteParams, zcb_price, zero_bond_option
+from pqflow.models.total_return import TotalReturnIndex
 from pqflow.storage.jsonio import read_json, write_json_atomic
 from pqflow.validation.evidence import run_checks
 from pqflow.validation.real_world import wealth_ratio_benchmark
@@ -117,7 +118,7 @@ def instrument_section(run_dir: Path) -> dict[str, Any]:
                           "shift": shift, "market_vol": vol, "market_price": price, "model_price": price,
                           "weight": 1.0})
     eq = cal["parameters"]["equity"]
-    params = EquityParams(name=eq["name"], level=eq["level"], dividend_yield=eq["dividend_yield"],
+    params = TotalReturnIndex(kind="equity", name=eq["name"], level=eq["level"], income_yield=eq["dividend_yield"],
                           volatility=eq["volatility"], correlation=eq["correlation_with_rates"])
     options = []
     for expiry, kind in ((5.0, "call"), (10.0, "put")):

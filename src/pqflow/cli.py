@@ -576,14 +576,14 @@ def _print_fit(record: CalibrationRecord) -> None:
         buckets = ", ".join(fmt.vol_points(v) for v in eq["bucket_volatilities"])
         ends = ", ".join(fmt.years(t) for t in eq["bucket_ends"])
         console.print(f"equity volatility by bucket (ends {ends} years), points: {buckets}", highlight=False)
-    for item in record.indices:
-        vol = item["volatility"]
+    for item in record.further_indices:
+        vol = item.volatility
         vol_text = (fmt.vol_points(vol) if isinstance(vol, (int, float))
                     else ", ".join(fmt.vol_points(v) for v in vol["values"])) + " pts"
         console.print(
-            f"{item['kind']} index {escape(str(item['name']))}: level {fmt.plain(item['level'], 6)}, income yield "
-            f"{fmt.percent(item['income_yield'], 2)}, volatility {vol_text}, risk premium "
-            f"{fmt.percent(item['risk_premium'], 2)}",
+            f"{item.kind} index {escape(item.name)}: level {fmt.plain(item.level, 6)}, income yield "
+            f"{fmt.percent(item.income_yield, 2)}, volatility {vol_text}, risk premium "
+            f"{fmt.percent(item.risk_premium, 2)}",
             highlight=False,
         )
     _print_heston_fits(record.heston_fits)

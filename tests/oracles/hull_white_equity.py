@@ -32,9 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from pqflow.market.curve import DiscountCurve
-from pqflow.measure.prices_of_risk import PricesOfRisk
 from pqflow.models.base import StepLaw
-from pqflow.models.equity import EquityParams
 from pqflow.models.hull_white import (
     HullWhiteParams,
     alpha,
@@ -44,10 +42,11 @@ from pqflow.models.hull_white import (
     phi2,
     zcb_price,
 )
-from pqflow.models.schedule import segments
+from pqflow.models.schedule import PiecewiseConstant, as_schedule, segments
+from pqflow.models.total_return import TotalReturnIndex
 from pqflow.storage.names import bond_column, equity_column
 
-__all__ = ["HullWhiteEquityModel", "bond_column", "equity_column", "rates_equity_units"]
+__all__ = ["HullWhiteEquityModel", "HullWhitePricesOfRisk", "bond_column", "equity_column", "rates_equity_units"]
 
 
 def rates_equity_units(bond_maturities: tuple[float, ...], equity_name: str) -> dict[str, str]:
@@ -64,13 +63,30 @@ def rates_equity_units(bond_maturities: tuple[float, ...], equity_name: str) -> 
 
 
 @dataclass(frozen=True, kw_only=True)
+class HullWhitePricesOfRisk:
+    """The two prices of risk of the single-part model: ``rates`` on the short-rate shock,
+    ``equity`` on the index's shock (the library holds an index's per driver)."""
+
+    rates: float | PiecewiseConstant
+    equity: float | PiecewiseConstant
+
+    @property
+    def rates_schedule(self) -> PiecewiseConstant:
+        return as_schedule(self.rates)
+
+    @property
+    def equity_schedule(self) -> PiecewiseConstant:
+        return as_schedule(self.equity)
+
+
+@dataclass(frozen=True, kw_only=True)
 class HullWhiteEquityModel:
     """The core pair: Hull-White one-factor rates fitted to ``curve`` and one equity index."""
 
     curve: DiscountCurve
     rates: HullWhiteParams
-    equity: EquityParams
-    prices_of_risk: PricesOfRisk
+    equity: TotalReturnIndex
+    prices_of_risk: HullWhitePricesOfRisk
     bond_maturities: tuple[float, ...]
 
     @property

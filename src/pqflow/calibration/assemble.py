@@ -2,8 +2,9 @@
 
 Each quantity has one source (the configuration's schema makes sure): the curve is typed in as
 pillars or fitted from par/zero rates with Smith-Wilson extrapolation; Hull-White ``(a, sigma)``
-is typed in or fitted to swaptions (Jamshidian); the equity volatility is typed in or
-bootstrapped bucket by bucket from implied volatilities under Hull-White rates; the correlation
+is typed in or fitted to swaptions (Jamshidian); every total-return index, the core equity
+first, is fitted by one path (:func:`pqflow.calibration.parts.calibrate_index`: its volatility
+typed in or bootstrapped bucket by bucket from implied volatilities under the run's rates); the correlation
 is typed in or read from a checked (optionally Higham-repaired) matrix. The volatility
 parameters are shared by both measures; the real-world set differs only in drift, through the
 market prices of risk derived from the house view. A configuration whose real-world
@@ -35,9 +36,8 @@ from pqflow.calibration.parts import (
     credit_from_record,
     credit_to_json,
     driver_correlation,
-    fit_index_volatility,
-    index_from_json,
-    index_to_json,
+    index_from_record,
+    index_record,
     inflation_from_json,
     inflation_to_json,
     load_schedule,
@@ -67,14 +67,12 @@ from pqflow.measure.house_view import (
 )
 from pqflow.measure.prices_of_risk import (
     PricesOfRisk,
-    equity_price_of_risk,
     expected_short_rate,
     rates_price_of_risk_for_target,
     real_world_factor_mean,
 )
 from pqflow.models.cir_credit import CirCreditModel
 from pqflow.models.economy import EconomyModel, GaussianPart, InflationPart, TotalReturnIndex
-from pqflow.models.equity import EquityParams
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.heston import HestonIndex
 from pqflow.models.hull_white import HullWhiteParams
@@ -85,8 +83,11 @@ from pqflow.storage.calibration_file import (
     CALIBRATION_FILE,
     PLUGIN_PARTS_KEY,
     CalibrationRecord,
+    IndexRecord,
     calibration_document,
     calibration_path,
+    core_index_parameters,
+    further_index_parameters,
     plugin_part_entry,
     plugin_part_fields,
     read_calibration_file,
@@ -111,7 +112,11 @@ class Calibration:
     valuation_date: str
     curve: DiscountCurve
     rates: RatesModel
-    equity: EquityParams
+    #: Every total-return index of the run, the core equity first (:attr:`core_index`), each
+    #: with its correlation with the rate driver(s); their real-world prices of risk are in
+    #: ``extra_prices_of_risk`` and their risk premia in ``index_risk_premia`` (by index name).
+    indices: tuple[TotalReturnIndex, ...]
+    #: The rates price of risk (the house view's); every other driver's is in ``extra_prices_of_risk``.
     prices_of_risk: PricesOfRisk
     inputs: dict[str, Any]
     inputs_hash: str
@@ -121,21 +126,16 @@ class Calibration:
         default_factory=lambda: {"swaptions": [], "equity_options": []}
     )
     real_world_view: dict[str, Any] = field(default_factory=dict)
-    #: Further total-return indices beside ``equity``, with their real-world prices of risk and
-    #: risk premia (by index name).
-    indices: tuple[TotalReturnIndex, ...] = ()
-    #: Real-world prices of risk of the drivers beyond rates and the core equity (indices,
-    #: ``real_rate``, ``inflation``), by driver name.
+    #: Real-world prices of risk of the drivers beyond rates (every index, ``real_rate``,
+    #: ``inflation``, part plug-ins), by driver name.
     extra_prices_of_risk: dict[str, float | PiecewiseConstant] = field(default_factory=dict)
     index_risk_premia: dict[str, float] = field(default_factory=dict)
-    #: Correlation of every driver (``None``: only rates and the core equity, ``equity.correlation``).
+    #: Correlation of every driver (``None``: only rates and the core index, whose
+    #: ``correlation`` it is).
     correlation: DriverCorrelation | None = None
     inflation: InflationPart | None = None
     credit: CirCreditModel | None = None
     credit_substeps_per_year: int = 12
-    #: Under G2++: the core equity's correlation with ``(rates_x, rates_y)`` (``equity.correlation``
-    #: is then its correlation with the short-rate shock, for display).
-    rates_correlation: tuple[float, float] | None = None
     #: Indices with stochastic (Heston) variance, by name (:mod:`pqflow.simulation.heston_part`).
     stochastic_volatility: dict[str, HestonIndex] = field(default_factory=dict)
     #: Registered part plug-ins (:mod:`pqflow.models.parts`) by section, in model order after
@@ -147,16 +147,33 @@ class Calibration:
         return self.rates.model
 
     @property
-    def equity_rates_correlation(self) -> float | tuple[float, float]:
-        """The core equity's correlation with the rate driver(s)."""
-        return self.rates_correlation if self.rates_correlation is not None else self.equity.correlation
+    def core_index(self) -> TotalReturnIndex:
+        """The core equity (``[equity]``): the first index, the default underlying of the
+        liabilities and the checks."""
+        if not self.indices:
+            raise RuntimeError("a calibration without its core index")
+        return self.indices[0]
+
+    @property
+    def further_indices(self) -> tuple[TotalReturnIndex, ...]:
+        """The indices beside the core one (``[[indices]]``), in model order."""
+        return self.indices[1:]
 
     @property
     def driver_correlation(self) -> DriverCorrelation:
         if self.correlation is not None:
             return self.correlation
-        rho = self.equity.correlation
-        return DriverCorrelation(names=(RATES_DRIVER, self.equity.name), matrix=np.array([[1.0, rho], [rho, 1.0]]))
+        core = self.core_index
+        rho = self.rates.short_rate_correlation(core.rates_correlation)
+        return DriverCorrelation(names=(RATES_DRIVER, core.name), matrix=np.array([[1.0, rho], [rho, 1.0]]))
+
+    def index_records(self) -> tuple[IndexRecord, ...]:
+        """Every index as its calibration record (core first)."""
+        return tuple(
+            index_record(i, self.extra_prices_of_risk[i.name], self.index_risk_premia.get(i.name), self.rates,
+                         core=k == 0)
+            for k, i in enumerate(self.indices)
+        )
 
     def _zero_factor_mean(self, t: np.ndarray) -> np.ndarray | tuple[np.ndarray, np.ndarray]:
         """The market-consistent mean of the rate factor(s) (zero), in the form the house-view
@@ -199,6 +216,7 @@ class Calibration:
 
     def to_json(self) -> dict[str, Any]:
         """The content of ``calibration.json``."""
+        records = self.index_records()
         return calibration_document(
             pqflow_version=__version__,
             valuation_date=self.valuation_date,
@@ -209,23 +227,9 @@ class Calibration:
                 "curve": curve_to_json(self.curve),
                 "rates_model": self.rates_model,
                 **self.rates.to_json(),
-                "equity": {
-                    "name": self.equity.name,
-                    "level": self.equity.level,
-                    "dividend_yield": self.equity.dividend_yield,
-                    "volatility": _schedule_json(self.equity.volatility),
-                    "correlation_with_rates": self.equity.correlation,
-                    **({"correlation_with_rate_factors": list(self.rates_correlation)} if self.rates_correlation
-                       else {}),
-                },
-                "market_prices_of_risk": {
-                    "rates": _schedule_json(self.prices_of_risk.rates),
-                    "equity": _schedule_json(self.prices_of_risk.equity),
-                    "note": "deterministic; W^Q = W^P + int lambda dt on each correlated driver; "
-                    "a schedule is {knots, values}: value i holds from knot i to knot i+1",
-                },
+                **core_index_parameters(records[0], _schedule_json(self.prices_of_risk.rates)),
                 "real_world_view": self.real_world_view,
-                **self._parts_json(),
+                **self._parts_json(records[1:]),
             },
             fit=self.fit,
             instruments=self.instruments,
@@ -233,15 +237,11 @@ class Calibration:
         )
 
 
-    def _parts_json(self) -> dict[str, Any]:
+    def _parts_json(self, further: tuple[IndexRecord, ...]) -> dict[str, Any]:
         out: dict[str, Any] = {}
         if self.correlation is not None:
             out["driver_correlation"] = self.correlation.to_json()
-        if self.indices:
-            out["indices"] = [
-                index_to_json(i, self.extra_prices_of_risk[i.name], self.index_risk_premia[i.name])
-                for i in self.indices
-            ]
+        out.update(further_index_parameters(further))
         if self.inflation is not None:
             out["inflation"] = {
                 **inflation_to_json(self.inflation),
@@ -272,26 +272,21 @@ def _registered(name: str) -> Any:
     return kind
 
 
-def short_rate_correlation(rates: RatesModel, rho: float | tuple[float, float]) -> float:
-    """Correlation of an index's shock with the short-rate shock: ``rho`` under Hull-White; under
-    G2++ ``(rho_x sigma + rho_y eta) / sqrt(sigma^2 + eta^2 + 2 rho sigma eta)`` (``dr`` loads
-    ``sigma dW1 + eta dW2``); :meth:`pqflow.models.rates.RatesModel.short_rate_correlation`."""
-    return rates.short_rate_correlation(rho)
-
-
 def _parts_from_json(par: dict[str, Any], record: CalibrationRecord,
                      source: str | Path = CALIBRATION_FILE) -> dict[str, Any]:
     out: dict[str, Any] = {"extra_prices_of_risk": {}, "index_risk_premia": {}}
-    if "correlation_with_rate_factors" in par["equity"]:
-        out["rates_correlation"] = tuple(float(v) for v in par["equity"]["correlation_with_rate_factors"])
-    if (dc := record.driver_correlation) is not None:
-        out["correlation"] = DriverCorrelation.from_record(dc)
+    dc = record.driver_correlation
+    correlation = DriverCorrelation.from_record(dc) if dc is not None else None
+    if correlation is not None:
+        out["correlation"] = correlation
     indices = []
-    for item in par.get("indices", []):
-        index, lam, premium = index_from_json(item)
+    for rec in record.indices:  # the core index first
+        index, lam = index_from_record(
+            rec, None if rec.core or correlation is None else correlation.with_rates(rec.name))
         indices.append(index)
         out["extra_prices_of_risk"][index.name] = lam
-        out["index_risk_premia"][index.name] = premium
+        if rec.risk_premium is not None:
+            out["index_risk_premia"][index.name] = rec.risk_premium
     out["indices"] = tuple(indices)
     if "inflation" in par:
         out["inflation"] = inflation_from_json(par["inflation"])
@@ -324,17 +319,7 @@ def load_calibration(path: str | Path) -> Calibration:
             horizon_years=record.horizon_years,
             curve=curve_from_json(record.curve),
             rates=rates_from_json(par),
-            equity=EquityParams(
-                name=par["equity"]["name"],
-                level=par["equity"]["level"],
-                dividend_yield=par["equity"]["dividend_yield"],
-                volatility=_load_schedule(par["equity"]["volatility"]),
-                correlation=par["equity"]["correlation_with_rates"],
-            ),
-            prices_of_risk=PricesOfRisk(
-                rates=_load_schedule(par["market_prices_of_risk"]["rates"]),
-                equity=_load_schedule(par["market_prices_of_risk"]["equity"]),
-            ),
+            prices_of_risk=PricesOfRisk(rates=_load_schedule(record.rates_price_of_risk)),
             inputs=record.required("inputs"),
             inputs_hash=record.required("inputs_sha256"),
             fit=dict(record.fit),
@@ -376,19 +361,19 @@ def _refuse_non_finite(path: Path, data: dict[str, Any]) -> None:
 
 
 def check_calibration_fits(calibration: Calibration, config: RunConfig, *, source: str) -> None:
-    """A stored calibration must cover the run: same equity index, a curve long enough."""
-    if calibration.equity.name != config.equity.name:
+    """A stored calibration must cover the run: same indices, a curve long enough."""
+    core, want_core = calibration.core_index.name, config.index_specs[0].name
+    if core != want_core:
         raise ConfigError(
-            f"{source}: calibration is for equity index {calibration.equity.name!r} but the "
-            f"configuration names {config.equity.name!r}"
+            f"{source}: calibration is for equity index {core!r} but the configuration names {want_core!r}"
         )
     if calibration.rates_model != config.rates.model:
         raise ConfigError(
             f"{source}: calibration is for rates model {calibration.rates_model!r} but the configuration "
             f"names {config.rates.model!r}"
         )
-    have = [i.name for i in calibration.indices]
-    want = [i.name for i in config.indices]
+    have = [i.name for i in calibration.further_indices]
+    want = [i.name for i in config.index_specs[1:]]
     if have != want:
         raise ConfigError(f"{source}: calibration has indices {have} but the configuration names {want}")
     if list(calibration.plugin_parts) != list(config.parts):
@@ -450,7 +435,7 @@ def _check_equivalence(config: RunConfig) -> None:
         ("real_world.rates_volatility", rw.rates_volatility, "hull_white.volatility",
          config.hull_white.volatility if config.hull_white else None),
         ("real_world.equity_volatility", rw.equity_volatility, "equity.volatility",
-         config.equity.volatility),
+         config.index_specs[0].volatility),
     ]
     for rw_key, rw_val, q_key, q_val in pairs:
         if rw_val is None:
@@ -607,37 +592,9 @@ def _rates(config: RunConfig, curve: DiscountCurve) -> tuple[HullWhiteParams | G
     return report.params, fit, instruments
 
 
-def _equity_spot(config: RunConfig) -> tuple[float, float]:
-    if config.equity.level is not None:
-        if config.equity.dividend_yield is None:
-            raise ConfigError("equity: level and dividend_yield go together")
-        return config.equity.level, config.equity.dividend_yield
-    path = config.market_file("equity_index")
-    if path is None:
-        raise ConfigError("equity: give level and dividend_yield, or market_data.equity_index")
-    rows = read_equity_indices(path)
-    if config.equity.name not in rows:
-        raise MarketDataError(f"{path}: no row for equity index {config.equity.name!r} (has: {', '.join(rows)})")
-    row = rows[config.equity.name]
-    return row.spot_level, row.dividend_yield
-
-
-def _equity_vol(
-    config: RunConfig, curve: DiscountCurve, hw: HullWhiteParams | G2PlusPlusParams, rho: float | tuple[float, float],
-    level: float, q: float
-) -> tuple[float | PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
-    if config.equity.volatility is not None:
-        return config.equity.volatility, {"method": "typed in"}, []
-    path = config.market_file("equity_vols")
-    if path is None:
-        raise ConfigError("equity: give volatility, or market_data.equity_vols")
-    rows = [r for r in read_equity_vols(path) if r.index == config.equity.name]
-    return fit_index_volatility(path, config.equity.name, "equity", rows, curve, hw, rho, level, q)
-
-
-def _real_world(
-    config: RunConfig, curve: DiscountCurve, rates: RatesModel, vol: float | PiecewiseConstant
-) -> tuple[PricesOfRisk, dict[str, Any]]:
+def _real_world(config: RunConfig, curve: DiscountCurve, rates: RatesModel) -> tuple[PricesOfRisk, dict[str, Any]]:
+    """The rates price of risk from the house view, and the view as recorded (the indices'
+    prices of risk come with their fit, :func:`pqflow.calibration.parts.calibrate_index`)."""
     hw = rates
     rw = config.real_world
     horizon = config.simulation.max_horizon_years
@@ -672,9 +629,8 @@ def _real_world(
             "speed": rw.speed,
             "half_life_years": float(np.log(2.0) / rw.speed),
         }
-    lam_s = equity_price_of_risk(rw.equity_risk_premium, vol)
     view["equity_risk_premium"] = rw.equity_risk_premium
-    return PricesOfRisk(rates=lam_r, equity=lam_s), view
+    return PricesOfRisk(rates=lam_r), view
 
 
 def _inputs(config: RunConfig) -> dict[str, Any]:
@@ -718,22 +674,26 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     curve, curve_fit = _curve(config)
     rates, rates_fit, swaptions = _rates(config, curve)
     correlation, corr_fit = driver_correlation(config, rates)
-    rho = correlation.with_rates(config.equity.name)
-    level, q = _equity_spot(config)
-    vol, equity_fit, equity_options = _equity_vol(config, curve, rates, rho, level, q)
-    prices_of_risk, view = _real_world(config, curve, rates, vol)
-    equity = EquityParams(name=config.equity.name, level=level, dividend_yield=q, volatility=vol,
-                          correlation=short_rate_correlation(rates, rho))
-    fit = {"curve": curve_fit, "correlation": corr_fit, config.rates.model: rates_fit, "equity": equity_fit}
-    indices, extra_lams, premia, index_fits = [], {}, {}, {}
-    for section in config.indices:
-        index, lam, index_fit, options = calibrate_index(config, section, curve, rates,
-                                                         correlation.with_rates(section.name))
+    fit: dict[str, Any] = {"curve": curve_fit, "correlation": corr_fit, config.rates.model: rates_fit}
+    indices: list[TotalReturnIndex] = []
+    extra_lams: dict[str, float | PiecewiseConstant] = {}
+    premia: dict[str, float] = {}
+    index_fits: dict[str, Any] = {}
+    equity_options: list[dict[str, Any]] = []
+    for spec in config.index_specs:  # the core equity first: one fitting path for every index
+        rho = correlation.with_rates(spec.name)
+        index, lam, index_fit, options = calibrate_index(config, spec, curve, rates, rho)
         indices.append(index)
-        extra_lams[section.name] = lam
-        premia[section.name] = section.risk_premium
-        index_fits[section.name] = index_fit
+        extra_lams[spec.name] = lam
+        premia[spec.name] = spec.risk_premium
+        if spec.core:
+            fit["equity"] = index_fit
+        else:  # a further index's fit record also carries its premium and rate correlation
+            index_fits[spec.name] = {**index_fit, "risk_premium": spec.risk_premium,
+                                     "correlation_with_rates": list(rho) if isinstance(rho, tuple) else rho}
         equity_options = [*equity_options, *options]
+    prices_of_risk, view = _real_world(config, curve, rates)
+    core = indices[0]
     if index_fits:
         fit["indices"] = index_fits
     inflation_caps: list[dict[str, Any]]
@@ -745,9 +705,8 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     credit = None
     if config.credit is not None:
         credit, fit["credit"] = calibrate_credit_part(config)
-    spots = {config.equity.name: (level, q, "equity"), **{i.name: (i.level, i.income_yield, i.kind) for i in indices}}
-    driver_lams = {**_rates_prices_of_risk(rates, prices_of_risk.rates), config.equity.name: prices_of_risk.equity,
-                   **extra_lams}
+    spots = {i.name: (i.level, i.income_yield, i.kind) for i in indices}
+    driver_lams = {**_rates_prices_of_risk(rates, prices_of_risk.rates), **extra_lams}
     heston, heston_fits, heston_options = fit_heston_indices(config, curve, rates, correlation, spots, driver_lams)
     if heston_fits:
         fit["heston"] = heston_fits
@@ -766,7 +725,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         horizon_years=config.simulation.max_horizon_years,
         curve=curve,
         rates=rates,
-        equity=equity,
+        indices=tuple(indices),
         prices_of_risk=prices_of_risk,
         inputs=inputs,
         inputs_hash=hashlib.sha256(canon).hexdigest(),
@@ -774,11 +733,9 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         instruments={"swaptions": swaptions, "equity_options": equity_options,
                      **({"inflation_caps": inflation_caps} if inflation_caps else {})},
         real_world_view=view,
-        indices=tuple(indices),
         extra_prices_of_risk=extra_lams,
         index_risk_premia=premia,
-        correlation=correlation if correlation.names != (RATES_DRIVER, config.equity.name) else None,
-        rates_correlation=rho if isinstance(rho, tuple) else None,
+        correlation=correlation if correlation.names != (RATES_DRIVER, core.name) else None,
         inflation=inflation,
         credit=credit,
         credit_substeps_per_year=config.credit.substeps_per_year if config.credit is not None else 12,
@@ -796,12 +753,8 @@ def _rates_prices_of_risk(rates: RatesModel, lam: float | PiecewiseConstant) -> 
 def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) -> EconomyModel:
     """The Gaussian scenario model both sets are simulated from (credit is simulated beside it,
     :mod:`pqflow.simulation.credit`)."""
-    eq = calibration.equity
-    core = TotalReturnIndex(name=eq.name, kind="equity", level=eq.level, income_yield=eq.dividend_yield,
-                            volatility=eq.volatility)
     lams = {
         **_rates_prices_of_risk(calibration.rates, calibration.prices_of_risk.rates),
-        eq.name: calibration.prices_of_risk.equity,
         **calibration.extra_prices_of_risk,
     }
     corr = calibration.driver_correlation
@@ -813,7 +766,7 @@ def build_model(calibration: Calibration, bond_maturities: tuple[float, ...]) ->
     return EconomyModel(
         curve=calibration.curve,
         rates=calibration.rates,
-        parts=(core, *calibration.indices, *((calibration.inflation,) if calibration.inflation is not None else ()),
+        parts=(*calibration.indices, *((calibration.inflation,) if calibration.inflation is not None else ()),
                *calibration.plugin_parts.values()),
         correlation=corr.matrix,
         prices_of_risk=lams,

@@ -121,7 +121,7 @@ class PiecewiseEquityVolatility:
 
     @classmethod
     def constant(cls, volatility: float, horizon: float = 1.0) -> PiecewiseEquityVolatility:
-        """One bucket: the constant volatility of :class:`pqflow.models.equity.EquityParams`."""
+        """One bucket: the constant volatility of :class:`pqflow.models.total_return.TotalReturnIndex`."""
         return cls(bucket_ends=np.array([horizon]), volatilities=np.array([volatility]))
 
     def __call__(self, t: np.ndarray | float) -> np.ndarray:

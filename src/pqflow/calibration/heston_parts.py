@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 
 from pqflow.calibration.heston_fit import HestonBounds, HestonQuote, calibrate_heston
-from pqflow.config.schema import EquitySection, IndexSection, RunConfig
+from pqflow.config.schema import RunConfig
 from pqflow.errors import CalibrationError, MarketDataError
 from pqflow.market.curve import DiscountCurve
 from pqflow.market.data_files import read_equity_vols
@@ -38,19 +38,14 @@ RATES_DRIVER = "rates"
 
 def heston_indices(config: RunConfig) -> tuple[str, ...]:
     """Names of the indices (core equity first) configured with ``volatility_model = "heston"``."""
-    out = [config.equity.name] if config.equity.volatility_model == "heston" else []
-    return tuple(out + [i.name for i in config.indices if i.volatility_model == "heston"])
+    return tuple(i.name for i in config.index_specs if i.volatility_model == "heston")
 
 
 def recoverable_drivers(config: RunConfig, rates) -> tuple[str, ...]:
     """The Gaussian drivers whose increments a Heston index can read from the economy's columns
     (:mod:`pqflow.simulation.heston_part`): the Hull-White driver and every deterministic-
     volatility index."""
-    out = list(rates.recoverable_drivers)
-    if config.equity.volatility_model != "heston":
-        out.append(config.equity.name)
-    out += [i.name for i in config.indices if i.volatility_model != "heston"]
-    return tuple(out)
+    return (*rates.recoverable_drivers, *(i.name for i in config.index_specs if i.volatility_model != "heston"))
 
 
 def projection(name: str, correlation, recoverable: tuple[str, ...], path_hint: str) -> tuple[tuple[tuple[str, float],
@@ -106,13 +101,12 @@ def fit_heston_indices(
         bounds = HestonBounds(lower=lower, upper=upper, initial=initial)  # type: ignore[arg-type]
     except ValueError as exc:
         raise CalibrationError(f"calibration.heston: {exc}") from None
-    sections: dict[str, tuple[EquitySection | IndexSection, float]] = {
-        config.equity.name: (config.equity, config.real_world.equity_risk_premium)}
-    sections.update({i.name: (i, i.risk_premium) for i in config.indices})
+    specs = {i.name: i for i in config.index_specs}
     corr_source = str(config.market_file("correlations") or "[correlations]")
     out, fits, instruments = {}, {}, []
     for name in names:
-        section, premium = sections[name]
+        section = specs[name]
+        premium = section.risk_premium
         mine = [r for r in rows if r.index == name]
         if not mine:
             raise MarketDataError(f"{path}: no implied volatilities for index {name!r} (volatility_model = \"heston\")")

@@ -1,10 +1,11 @@
-"""Calibration of the parts beside the core rates and equity: further indices, the full driver
+"""Calibration of the parts beside the rates: the total-return indices, the full driver
 correlation, inflation and credit; and their form in ``calibration.json``.
 
-* **Indices** (``[[indices]]``): level and income yield typed in or from the index file; the
-  volatility typed in or bootstrapped from the index's implied volatilities under Hull-White
-  rates (:func:`pqflow.calibration.equity_vol.calibrate_equity_volatility`, the same fit as the
-  core equity); real-world price of risk ``risk_premium / sigma(t)``.
+* **Indices** (the core equity ``[equity]`` and each ``[[indices]]`` entry alike, through
+  :attr:`pqflow.config.schema.RunConfig.index_specs`): level and income yield typed in or from
+  the index file; the volatility typed in or bootstrapped from the index's implied volatilities
+  under the run's rates (:func:`pqflow.calibration.equity_vol.calibrate_equity_volatility`);
+  real-world price of risk ``risk_premium / sigma(t)``.
 * **Correlation**: one matrix over every driver (``rates``, each index, ``real_rate``,
   ``inflation``), typed in or from the file, checked positive definite (or Higham-repaired on
   request), the sub-matrix of the configured drivers taken in model order.
@@ -34,7 +35,7 @@ from pqflow.calibration.inflation import (
     calibrate_jarrow_yildirim,
     real_curve_from_zc_inflation_swaps,
 )
-from pqflow.config.schema import IndexSection, RunConfig
+from pqflow.config.schema import IndexSpec, RunConfig
 from pqflow.errors import CalibrationError, ConfigError, MarketDataError
 from pqflow.market.correlation import check_correlation_matrix, nearest_correlation_matrix
 from pqflow.market.curve import DiscountCurve, LogDiscountCurve
@@ -57,6 +58,7 @@ from pqflow.models.jarrow_yildirim import JarrowYildirimParams
 from pqflow.models.parts import PART_KINDS
 from pqflow.models.rates import RatesModel
 from pqflow.models.schedule import PiecewiseConstant
+from pqflow.storage.calibration_file import IndexRecord
 from pqflow.storage.calibration_sections import (
     CreditRecord,
     DriverCorrelationRecord,
@@ -75,8 +77,8 @@ __all__ = [
     "credit_correlation",
     "schedule_json",
     "load_schedule",
-    "index_to_json",
-    "index_from_json",
+    "index_record",
+    "index_from_record",
     "inflation_to_json",
     "inflation_from_json",
     "credit_to_json",
@@ -127,7 +129,7 @@ class DriverCorrelation:
 
 def driver_names(config: RunConfig) -> tuple[str, ...]:
     """Drivers of the configured Gaussian parts, in model order."""
-    out = [*RATES_DRIVERS[config.rates.model], config.equity.name, *(i.name for i in config.indices)]
+    out = [*RATES_DRIVERS[config.rates.model], *(i.name for i in config.index_specs)]
     if config.inflation is not None:
         out += [REAL_RATE_DRIVER, INFLATION_DRIVER]
     for name, section in config.parts.items():  # registered part plug-ins, in section order
@@ -326,66 +328,80 @@ def fit_index_volatility(
 
 
 def calibrate_index(
-    config: RunConfig, section: IndexSection, curve: DiscountCurve, hw: RatesModel,
+    config: RunConfig, spec: IndexSpec, curve: DiscountCurve, rates: RatesModel,
     rho_rates: float | tuple[float, float],
 ) -> tuple[TotalReturnIndex, float | PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
-    """One further index: its parameters, real-world price of risk, fit report and option quotes."""
-    if section.level is not None:
-        if section.income_yield is None:
-            raise ConfigError(f"indices.{section.name}: level and income_yield go together")
-        level, q = section.level, section.income_yield
+    """One total-return index, the core equity or a further one: its parameters (with its
+    correlation ``rho_rates`` with the rate driver(s)), real-world price of risk, fit report and
+    option quotes."""
+    if spec.level is not None:
+        if spec.income_yield is None:
+            raise ConfigError(f"{spec.key}: level and {spec.yield_key} go together")
+        level, q = spec.level, spec.income_yield
     else:
         path = config.market_file("equity_index")
         if path is None:
-            raise ConfigError(f"indices.{section.name}: give level and income_yield, or market_data.equity_index")
+            raise ConfigError(f"{spec.key}: give level and {spec.yield_key}, or market_data.equity_index")
         rows = read_equity_indices(path)
-        if section.name not in rows:
-            raise MarketDataError(f"{path}: no row for index {section.name!r} (has: {', '.join(rows)})")
-        level, q = rows[section.name].spot_level, rows[section.name].dividend_yield
+        if spec.name not in rows:
+            what = "equity index" if spec.core else "index"
+            raise MarketDataError(f"{path}: no row for {what} {spec.name!r} (has: {', '.join(rows)})")
+        level, q = rows[spec.name].spot_level, rows[spec.name].dividend_yield
     vol_path = config.market_file("equity_vols")
-    quotes = [] if vol_path is None else [r for r in read_equity_vols(vol_path) if r.index == section.name]
+    quotes = [] if vol_path is None else [r for r in read_equity_vols(vol_path) if r.index == spec.name]
     fit: dict[str, Any]
     instruments: list[dict[str, Any]] = []
-    if section.volatility is not None:
+    if spec.volatility is not None:
         if quotes:
             raise MarketDataError(
-                f"{vol_path}: has implied volatilities for {section.name!r} and indices.volatility is typed "
+                f"{vol_path}: has implied volatilities for {spec.name!r} and {spec.key}.volatility is typed "
                 "in as well; give the volatility once"
             )
-        vol: float | PiecewiseConstant = section.volatility
+        vol: float | PiecewiseConstant = spec.volatility
         fit = {"method": "typed in"}
     else:
         if vol_path is None:
-            raise ConfigError(f"indices.{section.name}: give volatility, or market_data.equity_vols")
+            raise ConfigError(f"{spec.key}: give volatility, or market_data.equity_vols")
         vol, fit, instruments = fit_index_volatility(
-            vol_path, section.name, section.kind, quotes, curve, hw, rho_rates, level, q
+            vol_path, spec.name, spec.kind, quotes, curve, rates, rho_rates, level, q
         )
-    index = TotalReturnIndex(name=section.name, kind=section.kind, level=level, income_yield=q, volatility=vol)
-    lam = equity_price_of_risk(section.risk_premium, vol)
-    fit["risk_premium"] = section.risk_premium
-    fit["correlation_with_rates"] = list(rho_rates) if isinstance(rho_rates, tuple) else rho_rates
+    index = TotalReturnIndex(name=spec.name, kind=spec.kind, level=level, income_yield=q, volatility=vol,
+                             correlation=rho_rates)
+    lam = equity_price_of_risk(spec.risk_premium, vol)
     return index, lam, fit, instruments
 
 
-def index_to_json(index: TotalReturnIndex, price_of_risk: float | PiecewiseConstant, risk_premium: float) -> dict[str,
-                                                                                                                  Any]:
-    return {
-        "name": index.name,
-        "kind": index.kind,
-        "level": index.level,
-        "income_yield": index.income_yield,
-        "volatility": schedule_json(index.volatility),
-        "risk_premium": risk_premium,
-        "market_price_of_risk": schedule_json(price_of_risk),
-    }
-
-
-def index_from_json(data: dict[str, Any]) -> tuple[TotalReturnIndex, float | PiecewiseConstant, float]:
-    index = TotalReturnIndex(
-        name=data["name"], kind=data["kind"], level=float(data["level"]),
-        income_yield=float(data["income_yield"]), volatility=load_schedule(data["volatility"]),
+def index_record(
+    index: TotalReturnIndex, price_of_risk: float | PiecewiseConstant, risk_premium: float | None,
+    rates: RatesModel, *, core: bool,
+) -> IndexRecord:
+    """An index's calibration record (:class:`pqflow.storage.calibration_file.IndexRecord`):
+    the core index records its correlation with the short-rate shock (and under G2++ with the
+    rate factors); a further index's is in the driver correlation."""
+    rho = index.correlation if core else None
+    return IndexRecord(
+        name=index.name, kind=index.kind, level=index.level, income_yield=index.income_yield,
+        volatility=schedule_json(index.volatility), market_price_of_risk=schedule_json(price_of_risk),
+        risk_premium=risk_premium,
+        correlation_with_rates=None if rho is None else rates.short_rate_correlation(rho),
+        correlation_with_rate_factors=rho if isinstance(rho, tuple) else None,
+        core=core,
     )
-    return index, load_schedule(data["market_price_of_risk"]), float(data["risk_premium"])
+
+
+def index_from_record(
+    record: IndexRecord, correlation: float | tuple[float, float] | None = None
+) -> tuple[TotalReturnIndex, float | PiecewiseConstant]:
+    """The index of a record and its price of risk; ``correlation``: its correlation with the
+    rate driver(s) when the record does not hold it (a further index: the driver correlation's)."""
+    if record.core:
+        factors = record.correlation_with_rate_factors
+        correlation = (float(factors[0]), float(factors[1])) if factors else record.correlation_with_rates
+    index = TotalReturnIndex(
+        name=record.name, kind=record.kind, level=float(record.level), income_yield=float(record.income_yield),
+        volatility=load_schedule(record.volatility), correlation=correlation,
+    )
+    return index, load_schedule(record.market_price_of_risk)
 
 
 # ------------------------------------------------------------------------------- inflation

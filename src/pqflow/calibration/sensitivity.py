@@ -25,6 +25,7 @@ from pqflow.calibration.parts import calibrate_inflation
 from pqflow.calibration.swaptions import forward_swap_rate, hull_white_swaption_price
 from pqflow.config.schema import RunConfig
 from pqflow.market.curve import DiscountCurve
+from pqflow.measure.prices_of_risk import equity_price_of_risk
 from pqflow.models.parts import PART_KINDS, PartContext
 from pqflow.models.rates import RatesModel
 
@@ -34,8 +35,10 @@ __all__ = ["curve_only_calibration"]
 def curve_only_calibration(base: Calibration, config: RunConfig) -> Calibration:
     """``base`` with the curve of ``config`` (the shocked configuration) and what depends on it."""
     curve, curve_fit = fit_curve(config)
-    prices_of_risk, view = _real_world(config, curve, base.rates, base.equity.volatility)
+    prices_of_risk, view = _real_world(config, curve, base.rates)
     extra = dict(base.extra_prices_of_risk)
+    core = config.index_specs[0]  # the core index's premium as configured, on the base volatility
+    extra[core.name] = equity_price_of_risk(core.risk_premium, base.core_index.volatility)
     fit = {**base.fit, "curve": curve_fit}
     inflation = base.inflation
     if config.inflation is not None and base.inflation is not None:
@@ -68,6 +71,7 @@ def curve_only_calibration(base: Calibration, config: RunConfig) -> Calibration:
         inflation=inflation,
         plugin_parts=plugin_parts,
         extra_prices_of_risk=extra,
+        index_risk_premia={**base.index_risk_premia, core.name: core.risk_premium},
         fit=fit,
         inputs=inputs,
         inputs_hash=hashlib.sha256(canon).hexdigest(),

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 import re
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
@@ -47,6 +48,7 @@ __all__ = [
     "G2ppSection",
     "G2ppFitSection",
     "IndexSection",
+    "IndexSpec",
     "CorrelationsSection",
     "InflationSection",
     "CreditRatingSection",
@@ -230,6 +232,46 @@ class IndexSection(_Section):
         if self.name in RESERVED_DRIVERS:
             raise ValueError(f"{self.name!r} names a rates or inflation driver; choose another index name")
         return self
+
+
+@dataclass(frozen=True, kw_only=True)
+class IndexSpec:
+    """One total-return index of a run in the one form the calibration reads: ``[equity]``
+    (the core index, always first) and each ``[[indices]]`` entry, normalised at one place
+    (:attr:`RunConfig.index_specs`). ``risk_premium`` is the core equity's
+    ``real_world.equity_risk_premium``; ``key`` and ``yield_key`` name the configuration keys
+    in error messages (``equity`` / ``dividend_yield``, ``indices.<name>`` / ``income_yield``)."""
+
+    name: str
+    kind: str
+    level: float | None
+    income_yield: float | None
+    volatility: float | None
+    risk_premium: float
+    volatility_model: str
+    real_world_long_run_volatility: float | None
+    variance_substeps_per_year: int
+    core: bool
+    key: str
+    yield_key: str
+
+    @classmethod
+    def core_equity(cls, section: EquitySection, risk_premium: float) -> IndexSpec:
+        return cls(name=section.name, kind="equity", level=section.level, income_yield=section.dividend_yield,
+                   volatility=section.volatility, risk_premium=risk_premium,
+                   volatility_model=section.volatility_model,
+                   real_world_long_run_volatility=section.real_world_long_run_volatility,
+                   variance_substeps_per_year=section.variance_substeps_per_year, core=True, key="equity",
+                   yield_key="dividend_yield")
+
+    @classmethod
+    def further(cls, section: IndexSection) -> IndexSpec:
+        return cls(name=section.name, kind=section.kind, level=section.level, income_yield=section.income_yield,
+                   volatility=section.volatility, risk_premium=section.risk_premium,
+                   volatility_model=section.volatility_model,
+                   real_world_long_run_volatility=section.real_world_long_run_volatility,
+                   variance_substeps_per_year=section.variance_substeps_per_year, core=False,
+                   key=f"indices.{section.name}", yield_key="income_yield")
 
 
 class CorrelationsSection(_Section):
@@ -767,6 +809,13 @@ class RunConfig(_Section):
         if not data.get("parts"):
             data.pop("parts", None)
         return data
+
+    @property
+    def index_specs(self) -> tuple[IndexSpec, ...]:
+        """Every total-return index of the run, the core equity (``[equity]``) first, then the
+        ``[[indices]]`` in order: the one place ``[equity]`` joins the index list."""
+        return (IndexSpec.core_equity(self.equity, self.real_world.equity_risk_premium),
+                *(IndexSpec.further(i) for i in self.indices))
 
     @property
     def base_dir(self) -> Path:

@@ -128,8 +128,7 @@ def run_density_blocks(config: RunConfig) -> tuple[DensityBlock, ...]:
     from pqflow.models.parts import PART_KINDS
 
     rates = RATES_DRIVERS[config.rates.model]
-    indices = [(config.equity.name, names.equity_column(config.equity.name))]
-    indices += [(i.name, names.index_column(i.kind, i.name)) for i in config.indices]
+    indices = [(i.name, names.index_column(i.kind, i.name)) for i in config.index_specs]
     inflation = (REAL_RATE_DRIVER, INFLATION_DRIVER) if config.inflation is not None else None
     ratings = {r.name: credit_driver(r.name) for r in (config.credit.ratings if config.credit is not None else ())}
     plugged = {name: PART_KINDS[name].drivers(section) for name, section in config.parts.items()}

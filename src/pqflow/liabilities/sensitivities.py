@@ -79,10 +79,13 @@ def _path_values(portfolio: Portfolio, lines: _Lines, scen) -> np.ndarray:
     return np.einsum("lm,nmq->nlq", lines.member, disc).reshape(scen.n_paths, -1)
 
 
-def _ce_values(portfolio: Portfolio, lines: _Lines, run_dir: Path, last: int, interp: BondInterpolation) -> np.ndarray:
+def _ce_values(portfolio: Portfolio, lines: _Lines, run_dir: Path, last: int, interp: BondInterpolation,
+               equity_col: str | None = None) -> np.ndarray:
     cal = read_calibration_file(calibration_path(run_dir))
+    levels = {i.column: i.level for i in cal.indices}  # the core index first
+    level = levels[equity_col] if equity_col in levels else next(iter(levels.values()))
     scen = certainty_equivalent_scenario(
-        curve_from_json(cal.curve), last_year=last, interpolation=interp, equity_level=cal.equity.level
+        curve_from_json(cal.curve), last_year=last, interpolation=interp, equity_level=level
     )
     return _path_values(portfolio, lines, scen)[0]
 
@@ -101,7 +104,7 @@ def value_sensitivities(run_dir: str | Path, portfolio: Portfolio, info: RunInfo
     reads = portfolio_reads(portfolio, info, equity_col)
     interp, bond_cols, columns = reads.interpolation, list(reads.bond_columns), list(reads.columns)
     lines = _lines(portfolio)
-    ce_base = _ce_values(portfolio, lines, run_dir, last, interp)
+    ce_base = _ce_values(portfolio, lines, run_dir, last, interp, equity_col)
     base_reader = ScenarioSet(run_dir=run_dir, measure=MEASURE)
     antithetic = base_reader.antithetic
     rows: list[dict[str, Any]] = []
@@ -130,7 +133,7 @@ def value_sensitivities(run_dir: str | Path, portfolio: Portfolio, info: RunInfo
             raise RunDirectoryError(f"{sens_dir}: no scenario parts to value")
         k = len(lines.names) * len(QUANTITIES)
         mean, se = acc.mean, acc.std_error
-        ce_s = _ce_values(portfolio, lines, sens_dir, last, interp)
+        ce_s = _ce_values(portfolio, lines, sens_dir, last, interp, equity_col)
         for j, (level, line) in enumerate(lines.names):
             for q, quantity in enumerate(QUANTITIES):
                 i = j * len(QUANTITIES) + q

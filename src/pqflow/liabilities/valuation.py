@@ -83,13 +83,23 @@ class RunInfo:
     last_whole_year: int
     bond_columns: dict[float, str]
     equity_columns: tuple[str, ...]
-    equity_level: float
-    equity_name: str
+    #: Level at time 0 of every calibrated total-return index, by column (core index first).
+    index_levels: dict[str, float]
+    #: The core index's name: the underlying when a portfolio names none and the run has one.
+    core_index: str
     curve: DiscountCurve
 
     @property
     def bond_maturities(self) -> tuple[float, ...]:
         return tuple(sorted(self.bond_columns))
+
+    def level_of(self, column: str | None) -> float:
+        """Time-0 level of the index in ``column`` (``None``: the core index)."""
+        if column is None:
+            return next(iter(self.index_levels.values()))
+        if column not in self.index_levels:
+            raise LiabilityDataError(f"{self.run_dir}: no calibrated index writes column {column!r}")
+        return self.index_levels[column]
 
 
 def inspect_run(run_dir: str | Path) -> RunInfo:
@@ -110,7 +120,8 @@ def inspect_run(run_dir: str | Path) -> RunInfo:
         missing -= set(names[m])
         if missing:
             raise LiabilityDataError(f"{run_dir}: the {m} set lacks columns {sorted(missing)}")
-    equity = read_calibration_file(calibration_path(run_dir)).equity
+    record = read_calibration_file(calibration_path(run_dir))
+    core, indices = record.core_index, record.indices  # the core index first (an error names a missing one)
     manifest = run_dir / "manifest.json"
     run_id = read_json(manifest).get("run_id") if manifest.exists() else None
     t = times["market_consistent"]
@@ -122,8 +133,8 @@ def inspect_run(run_dir: str | Path) -> RunInfo:
         last_whole_year=int(np.floor(t[-1] + 1e-9)),
         bond_columns={float(k): v for k, v in sorted(bonds.items())},
         equity_columns=equities,
-        equity_level=equity.level,
-        equity_name=equity.name,
+        index_levels={i.column: i.level for i in indices},
+        core_index=core.name,
         curve=curve_from_calibration_file(run_dir),
     )
 
@@ -352,7 +363,7 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
     # Certainty-equivalent cash flows: the TVOG's other leg, and the timing weights of the
     # control variates (deflated CE cash flows have a known expectation: the CE value).
     ce_scen = certainty_equivalent_scenario(
-        info.curve, last_year=last, interpolation=interp, equity_level=info.equity_level
+        info.curve, last_year=last, interpolation=interp, equity_level=info.level_of(equity_col)
     )
     p0 = ce_scen.deflator[0]  # P(0, j)
     ce_raw = np.stack([np.stack(f, axis=1) for f in (project_model_point(mp, ce_scen)
@@ -393,7 +404,7 @@ def value_run(run_dir: str | Path, portfolio: Portfolio | str | Path, measure: s
         if np.any(reads_equity):
             if scen.equity is None:
                 raise RuntimeError("a model point reads the equity index, but it was not read")
-            growth = scen.equity / info.equity_level * p0[None, :]  # S_j P(0, j) / S_0
+            growth = scen.equity / info.level_of(equity_col) * p0[None, :]  # S_j P(0, j) / S_0
             ctrl.append(np.einsum("nmj,mj->nm", deflator * growth[:, None, :], timing / p0[None, :]) * reads_equity)
         if weight is not None:
             ctrl.append(np.einsum("nmj,mj->nm", weight, timing))

@@ -64,20 +64,16 @@ __all__ = [
 
 @dataclass(frozen=True, kw_only=True)
 class PricesOfRisk:
-    """Market prices of risk per square-root year, deterministic (a number, or piecewise
-    constant in time), one per correlated driver: ``rates`` on the short-rate shock ``W``,
-    ``equity`` on the equity shock ``Z``."""
+    """The rates market price of risk per square-root year, deterministic (a number, or
+    piecewise constant in time), on the short-rate shock ``W`` (the house view sets it). Every
+    other driver's price of risk (each total-return index's ``risk premium / sigma``,
+    :func:`equity_price_of_risk`, the core equity's included) is held per driver beside it."""
 
     rates: float | PiecewiseConstant
-    equity: float | PiecewiseConstant
 
     @property
     def rates_schedule(self) -> PiecewiseConstant:
         return as_schedule(self.rates)
-
-    @property
-    def equity_schedule(self) -> PiecewiseConstant:
-        return as_schedule(self.equity)
 
 
 def rates_price_of_risk_for_target(

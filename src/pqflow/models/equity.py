@@ -15,8 +15,6 @@ that variance is computed (its derivation: :mod:`pqflow.calibration.equity_vol`)
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 from scipy.stats import norm
 
@@ -24,9 +22,9 @@ from pqflow.market.curve import DiscountCurve
 from pqflow.models.hull_white import phi2
 from pqflow.models.rates import RatesModel
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
+from pqflow.models.total_return import TotalReturnIndex
 
 __all__ = [
-    "EquityParams",
     "RateParams",
     "EquityRateCorrelation",
     "black_on_forward",
@@ -39,33 +37,6 @@ __all__ = [
     "cross_variance",
     "rate_variance",
 ]
-
-
-@dataclass(frozen=True, kw_only=True)
-class EquityParams:
-    """One total-return index: ``level`` at time 0, ``dividend_yield`` q (continuous),
-    ``volatility`` sigma_S (a number, or piecewise constant in time) and ``correlation``: rho
-    with the short-rate shock under Hull-White rates, the pair ``(rho_xS, rho_yS)`` with the
-    factor shocks under G2++ (checked against the rates where the variance is computed)."""
-
-    name: str
-    level: float
-    dividend_yield: float
-    volatility: float | PiecewiseConstant
-    correlation: float | tuple[float, float]
-
-    def __post_init__(self) -> None:
-        if not self.level > 0.0:
-            raise ValueError("equity level must be positive")
-        if not all(v > 0.0 for v in self.vol_schedule.values):
-            raise ValueError("equity volatility must be positive")
-        pair = self.correlation if isinstance(self.correlation, tuple) else (self.correlation,)
-        if not all(-1.0 < c < 1.0 for c in pair):
-            raise ValueError("equity-rate correlation must lie strictly inside (-1, 1)")
-
-    @property
-    def vol_schedule(self) -> PiecewiseConstant:
-        return as_schedule(self.volatility)
 
 
 #: An index's correlation with the rate drivers: one number (with the short-rate shock) under
@@ -169,19 +140,19 @@ def schedule_buckets(volatility: float | PiecewiseConstant) -> tuple[np.ndarray,
     return ends, np.asarray(sched.values, dtype=float)
 
 
-def equity_total_variance(rates: RateParams, equity: EquityParams, expiry: float) -> float:
+def equity_total_variance(rates: RateParams, equity: TotalReturnIndex, expiry: float) -> float:
     """Variance of ``ln(S_T / P(T, T))`` under the T-forward measure (:func:`forward_variance`
     with the index's volatility schedule); under Hull-White and a constant ``sigma_S``,
 
         sigma_S^2 T + 2 rho sigma_S sigma (T - B(T)) / a + V(T)."""
     ends, vols = schedule_buckets(equity.volatility)
-    return float(forward_variance(rates, ends, vols, equity.correlation, expiry))
+    return float(forward_variance(rates, ends, vols, equity.rates_correlation, expiry))
 
 
 def equity_option_price(
     curve: DiscountCurve,
     rates: RateParams,
-    equity: EquityParams,
+    equity: TotalReturnIndex,
     *,
     expiry: float,
     strike: float,
@@ -191,7 +162,7 @@ def equity_option_price(
     if not expiry > 0.0 or not strike > 0.0:
         raise ValueError("expiry and strike must be positive")
     df = float(curve.discount(expiry))
-    forward = equity.level * np.exp(-equity.dividend_yield * expiry) / df
+    forward = equity.level * np.exp(-equity.income_yield * expiry) / df
     return black_on_forward(df, forward, strike, equity_total_variance(rates, equity, expiry), kind)
 
 

@@ -38,15 +38,21 @@ _NAME = re.compile(r"^[a-z][a-z0-9_]*$")
 
 @dataclass(frozen=True, kw_only=True)
 class TotalReturnIndex:
-    """A total-return index (income reinvested): ``kind`` equity or property, ``level`` at time
-    0, ``income_yield`` (dividend or rental, continuous; used for options on the price index),
-    ``volatility`` (a number or piecewise constant). Its driver is named ``name``."""
+    """A total-return index (income reinvested), the one parameter type of every index of a
+    run, the core equity included: ``kind`` equity or property, ``level`` at time 0,
+    ``income_yield`` (dividend or rental, continuous; used for options on the price index),
+    ``volatility`` (a number or piecewise constant) and ``correlation`` with the rate
+    driver(s): rho with the short-rate shock under Hull-White, the pair ``(rho_x, rho_y)`` with
+    the factor shocks under G2++ (``None`` where not known; the option closed forms of
+    :mod:`pqflow.models.equity` need it, the simulation takes it from the driver correlation).
+    Its driver is named ``name``."""
 
     name: str
     kind: str
     level: float
     income_yield: float
     volatility: float | PiecewiseConstant
+    correlation: float | tuple[float, float] | None = None
 
     def __post_init__(self) -> None:
         if not _NAME.match(self.name):
@@ -57,6 +63,17 @@ class TotalReturnIndex:
             raise ValueError(f"index {self.name}: level must be positive")
         if not all(v > 0.0 for v in self.vol_schedule.values):
             raise ValueError(f"index {self.name}: volatility must be positive")
+        if self.correlation is not None:
+            pair = self.correlation if isinstance(self.correlation, tuple) else (self.correlation,)
+            if not all(-1.0 < c < 1.0 for c in pair):
+                raise ValueError(f"index {self.name}: the index-rate correlation must lie strictly inside (-1, 1)")
+
+    @property
+    def rates_correlation(self) -> float | tuple[float, float]:
+        """``correlation``, which the option closed forms need (error when not known)."""
+        if self.correlation is None:
+            raise ValueError(f"index {self.name}: its correlation with the rate driver(s) is not known")
+        return self.correlation
 
     @property
     def vol_schedule(self) -> PiecewiseConstant:

@@ -30,9 +30,15 @@ from typing import Any, TypeGuard
 
 import numpy as np
 
-from pqflow.errors import IntegrityError, PqflowError
+from pqflow.errors import ConfigError, IntegrityError, PqflowError
 from pqflow.report import numbers as fmt
-from pqflow.storage.calibration_file import CALIBRATION_FILE, CalibrationRecord, calibration_path, read_calibration_file
+from pqflow.storage.calibration_file import (
+    CALIBRATION_FILE,
+    CalibrationRecord,
+    IndexRecord,
+    calibration_path,
+    read_calibration_file,
+)
 from pqflow.storage.jsonio import read_json
 
 __all__ = [
@@ -198,21 +204,21 @@ def _curve_points(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
             for m in _ZERO_MATURITIES if m <= float(curve.max_maturity)}
 
 
+def _indices(cal: CalibrationRecord) -> tuple[IndexRecord, ...]:
+    """The recorded indices, core first (none when the file's index entries are incomplete)."""
+    try:
+        return cal.indices
+    except ConfigError:
+        return ()
+
+
 def _forward(cal: CalibrationRecord, index: str, expiry: float) -> float | None:
     """Equity forward ``S e^{-qT} / P(0, T)`` of an index, from the run's own parameters."""
-    par = cal.parameters
     curve = _curve(cal)
-    eq = par.get("equity") or {}
-    if eq.get("name") == index:
-        level, q = eq.get("level"), eq.get("dividend_yield")
-    else:
-        item = next((i for i in par.get("indices", []) or [] if i.get("name") == index), None)
-        if item is None:
-            return None
-        level, q = item.get("level"), item.get("income_yield")
-    if curve is None or not _is_num(level) or not _is_num(q):
+    item = next((i for i in _indices(cal) if i.name == index), None)
+    if curve is None or item is None:
         return None
-    return float(level) * math.exp(-float(q) * expiry) / float(curve.discount(expiry))
+    return float(item.level) * math.exp(-float(item.income_yield) * expiry) / float(curve.discount(expiry))
 
 
 def _inputs(cal: CalibrationRecord) -> dict[str, dict[str, tuple[Any, str]]]:
@@ -246,14 +252,10 @@ def _inputs(cal: CalibrationRecord) -> dict[str, dict[str, tuple[Any, str]]]:
     for rating in cal.credit_fit.ratings:
         for pillar in rating.spreads:
             out["credit"][f"{rating.rating} spread {fmt.years(pillar.maturity)}y"] = (pillar.market_spread, "rate")
-    par = cal.parameters
-    eq = par.get("equity") or {}
-    if eq:
-        out["levels"][f"{eq.get('name')} level"] = (eq.get("level"), "level")
-        out["levels"][f"{eq.get('name')} dividend yield"] = (eq.get("dividend_yield"), "rate")
-    for item in par.get("indices", []) or []:
-        out["levels"][f"{item.get('name')} level"] = (item.get("level"), "level")
-        out["levels"][f"{item.get('name')} income yield"] = (item.get("income_yield"), "rate")
+    for item in _indices(cal):  # the core index first, with its dividend yield
+        out["levels"][f"{item.name} level"] = (item.level, "level")
+        yield_name = "dividend yield" if item.core else "income yield"
+        out["levels"][f"{item.name} {yield_name}"] = (item.income_yield, "rate")
     inputs = cal.inputs
     for kind, f in (inputs.get("files") or {}).items():  # by content: a moved folder is no change
         out["files"][f"{kind.replace('_', ' ')} ({Path(str(f.get('path'))).name}), sha256"] = \
@@ -318,16 +320,18 @@ def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
         out.update({"G2++ a": (g.a, "plain"), "G2++ sigma": (g.sigma, "rate"),
                     "G2++ b": (g.b, "plain"), "G2++ eta": (g.eta, "rate"),
                     "G2++ rho": (g.rho, "plain")})
-    eq = par.get("equity") or {}
-    if eq:
-        out.update(_schedule_items(f"equity {eq.get('name')} volatility", eq.get("volatility"), "vol"))
-        out[f"equity {eq.get('name')} correlation with the short rate"] = (eq.get("correlation_with_rates"), "plain")
-    for item in par.get("indices", []) or []:
-        out.update(_schedule_items(f"{item.get('kind')} {item.get('name')} volatility", item.get("volatility"), "vol"))
-        out.update(_schedule_items(f"{item.get('name')} price of risk", item.get("market_price_of_risk"), "plain"))
-    mpr = par.get("market_prices_of_risk") or {}
+    indices = _indices(cal)
+    core = next((i for i in indices if i.core), None)
+    for item in indices:  # the core index first: its volatility and correlation with the short rate
+        out.update(_schedule_items(f"{item.kind} {item.name} volatility", item.volatility, "vol"))
+        if item.core:
+            out[f"equity {item.name} correlation with the short rate"] = (item.correlation_with_rates, "plain")
+        else:
+            out.update(_schedule_items(f"{item.name} price of risk", item.market_price_of_risk, "plain"))
+    mpr = cal.market_prices_of_risk
     out.update(_schedule_items("rates price of risk", mpr.get("rates"), "plain"))
-    out.update(_schedule_items(f"equity {eq.get('name', '')} price of risk", mpr.get("equity"), "plain"))
+    out.update(_schedule_items(f"equity {core.name if core is not None else ''} price of risk",
+                               core.market_price_of_risk if core is not None else None, "plain"))
     if "inflation" in par:
         inf = par["inflation"]
         out["inflation real-rate mean reversion a_r"] = (inf.get("real_mean_reversion"), "plain")

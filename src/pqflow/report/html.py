@@ -624,22 +624,15 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
                                "(normal, per year)",
                      "fit": (f"swaption RMSE {fmt.bp(hw_fit.rmse_bp, 2)} normal vol over {len(hw_fit.rows)} quotes"
                              if hw_fit.rmse_bp is not None else "typed in")})
-    if cal.has_equity:
-        eq = cal.equity
-        f = cal.part_fit("equity")
-        rows.append({"part": f"equity {eq.name}",
-                     "values": f"level {fmt.plain(eq.level, 6)}, dividend yield {fmt.percent(eq.dividend_yield, 2)}, "
-                               f"vol {_sched_text(eq.volatility, fmt.vol_points)} pts",
-                     "fit": (f"max vol error {fmt.vol_points(f['max_abs_vol_error'])} pts"
-                             if "max_abs_vol_error" in f else "typed in")})
     ifit = cal.part_fit("indices")
-    for item in cal.indices:
-        f = ifit.get(str(item.get("name"))) or {}
-        rows.append({"part": f"{item.get('kind', 'index')} {item.get('name', '')}",
-                     "values": f"level {fmt.plain(item.get('level'), 6)}, income yield "
-                               f"{fmt.percent(item.get('income_yield'), 2)}, "
-                               f"vol {_sched_text(item.get('volatility'), fmt.vol_points)} pts, "
-                               f"risk premium {fmt.percent(item.get('risk_premium'), 2)}",
+    for item in cal.indices:  # the core index first, with its dividend yield (its premium is an input)
+        f = cal.part_fit("equity") if item.core else (ifit.get(item.name) or {})
+        values = (f"level {fmt.plain(item.level, 6)}, dividend yield {fmt.percent(item.income_yield, 2)}, "
+                  f"vol {_sched_text(item.volatility, fmt.vol_points)} pts" if item.core else
+                  f"level {fmt.plain(item.level, 6)}, income yield {fmt.percent(item.income_yield, 2)}, "
+                  f"vol {_sched_text(item.volatility, fmt.vol_points)} pts, "
+                  f"risk premium {fmt.percent(item.risk_premium, 2)}")
+        rows.append({"part": f"{item.kind} {item.name}", "values": values,
                      "fit": (f"max vol error {fmt.vol_points(f['max_abs_vol_error'])} pts"
                              if "max_abs_vol_error" in f else "typed in")})
     if (inf := cal.inflation) is not None:

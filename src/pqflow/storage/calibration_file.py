@@ -14,7 +14,7 @@ existed); a version this pqflow does not know is refused with the file's name, n
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -51,7 +51,9 @@ __all__ = [
     "CalibrationRecord",
     "HullWhiteRecord",
     "G2ppRecord",
-    "EquityRecord",
+    "IndexRecord",
+    "core_index_parameters",
+    "further_index_parameters",
     "calibration_path",
     "calibration_content",
     "calibration_document",
@@ -90,22 +92,84 @@ class G2ppRecord:
 
 
 @dataclass(frozen=True, kw_only=True)
-class EquityRecord:
-    """The core equity index as recorded (``parameters.equity``); ``volatility`` is the stored
-    schedule (a number or ``{knots, values}``)."""
+class IndexRecord:
+    """Every total-return index as recorded, the core equity and each further index alike.
+
+    The file keeps its layout: the core index is ``parameters.equity`` (``dividend_yield``,
+    ``correlation_with_rates`` and under G2++ ``correlation_with_rate_factors``) with its price of
+    risk at ``parameters.market_prices_of_risk.equity`` and its risk premium in the inputs
+    (``real_world.equity_risk_premium``); each further index is an entry of
+    ``parameters.indices`` (``kind``, ``income_yield``, ``risk_premium``,
+    ``market_price_of_risk``). ``volatility`` and ``market_price_of_risk`` are stored schedules
+    (a number or ``{knots, values}``). ``core`` marks the core index (first in
+    :attr:`CalibrationRecord.indices`)."""
 
     name: str
+    kind: str
     level: float
-    dividend_yield: float
+    income_yield: float
     volatility: Any
-    correlation_with_rates: float
+    market_price_of_risk: Any = None
+    risk_premium: float | None = None
+    correlation_with_rates: float | None = None
     correlation_with_rate_factors: tuple[float, ...] | None = None
+    core: bool = False
+
+    @property
+    def dividend_yield(self) -> float:
+        """The income yield (the core equity's ``dividend_yield``)."""
+        return self.income_yield
 
     @property
     def column(self) -> str:
-        from pqflow.storage.names import equity_column
+        from pqflow.storage.names import index_column
 
-        return equity_column(self.name)
+        return index_column(self.kind, self.name)
+
+
+def core_index_parameters(index: IndexRecord, rates_price_of_risk: Any) -> dict[str, Any]:
+    """The core index's part of ``parameters``, in file order: ``equity``, then
+    ``market_prices_of_risk`` (the rates' stored schedule and the core index's)."""
+    return {"equity": _core_index_entry(index), "market_prices_of_risk": _prices_of_risk_entry(rates_price_of_risk,
+                                                                                                index)}
+
+
+def further_index_parameters(indices: Sequence[IndexRecord]) -> dict[str, Any]:
+    """``parameters.indices`` for the further indices (nothing when there are none)."""
+    return {"indices": [_further_index_entry(i) for i in indices]} if indices else {}
+
+
+def _core_index_entry(index: IndexRecord) -> dict[str, Any]:
+    return {
+        "name": index.name,
+        "level": index.level,
+        "dividend_yield": index.income_yield,
+        "volatility": index.volatility,
+        "correlation_with_rates": index.correlation_with_rates,
+        **({"correlation_with_rate_factors": list(index.correlation_with_rate_factors)}
+           if index.correlation_with_rate_factors else {}),
+    }
+
+
+def _further_index_entry(index: IndexRecord) -> dict[str, Any]:
+    return {
+        "name": index.name,
+        "kind": index.kind,
+        "level": index.level,
+        "income_yield": index.income_yield,
+        "volatility": index.volatility,
+        "risk_premium": index.risk_premium,
+        "market_price_of_risk": index.market_price_of_risk,
+    }
+
+
+def _prices_of_risk_entry(rates: Any, core: IndexRecord) -> dict[str, Any]:
+    return {
+        "rates": rates,
+        "equity": core.market_price_of_risk,
+        "note": "deterministic; W^Q = W^P + int lambda dt on each correlated driver; "
+        "a schedule is {knots, values}: value i holds from knot i to knot i+1",
+    }
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -231,42 +295,98 @@ class CalibrationRecord:
         return self.parameters.get("g2pp") or self.parameters.get("hull_white") or {}
 
     @property
-    def has_equity(self) -> bool:
+    def has_core_index(self) -> bool:
         return bool(self.parameters.get("equity"))
 
     @property
-    def equity(self) -> EquityRecord:
+    def core_index(self) -> IndexRecord:
+        """The core index (``parameters.equity``, its price of risk and risk premium)."""
         eq = self._need(self._need(self.data, "parameters"), "equity", "parameters")
         where = "parameters.equity"
         factors = eq.get("correlation_with_rate_factors")
-        return EquityRecord(
+        return IndexRecord(
             name=str(self._need(eq, "name", where)),
+            kind="equity",
             level=float(self._need(eq, "level", where)),
-            dividend_yield=float(self._need(eq, "dividend_yield", where)),
+            income_yield=float(self._need(eq, "dividend_yield", where)),
             volatility=self._need(eq, "volatility", where),
+            market_price_of_risk=self.market_prices_of_risk.get("equity"),
+            risk_premium=self.equity_risk_premium,
             correlation_with_rates=float(self._need(eq, "correlation_with_rates", where)),
             correlation_with_rate_factors=None if factors is None else tuple(float(v) for v in factors),
+            core=True,
         )
 
     @property
-    def equity_name(self) -> str | None:
-        """The core equity's name, or ``None`` when the file records no equity."""
+    def core_index_name(self) -> str | None:
+        """The core index's name, or ``None`` when the file records none."""
         name = (self.parameters.get("equity") or {}).get("name")
         return None if name is None else str(name)
+
+    @property
+    def further_indices(self) -> tuple[IndexRecord, ...]:
+        """The indices beside the core one (``parameters.indices``), in model order."""
+        out = []
+        for i, item in enumerate(self.parameters.get("indices") or []):
+            where = f"parameters.indices[{i}]"
+            out.append(IndexRecord(
+                name=str(self._need(item, "name", where)),
+                kind=str(self._need(item, "kind", where)),
+                level=float(self._need(item, "level", where)),
+                income_yield=float(self._need(item, "income_yield", where)),
+                volatility=self._need(item, "volatility", where),
+                market_price_of_risk=self._need(item, "market_price_of_risk", where),
+                risk_premium=float(self._need(item, "risk_premium", where)),
+                **self._rate_correlation(str(item["name"])),
+            ))
+        return tuple(out)
+
+    def _rate_correlation(self, name: str) -> dict[str, Any]:
+        """A further index's correlation with the rate driver(s), from the driver correlation:
+        ``correlation_with_rates`` (Hull-White) or ``correlation_with_rate_factors`` (G2++)."""
+        corr = self.driver_correlation
+        if corr is None or name not in corr.drivers:
+            return {}
+        drivers, matrix = list(corr.drivers), corr.matrix
+        row = matrix[drivers.index(name)]
+        if "rates" in drivers:
+            return {"correlation_with_rates": float(row[drivers.index("rates")])}
+        if "rates_x" in drivers and "rates_y" in drivers:
+            return {"correlation_with_rate_factors": (float(row[drivers.index("rates_x")]),
+                                                      float(row[drivers.index("rates_y")]))}
+        return {}
+
+    def index(self, name: str | None = None) -> IndexRecord:
+        """The index of that name (default: the core index); an error names the recorded ones."""
+        if name is None:
+            return self.core_index
+        for rec in self.indices:
+            if rec.name == name:
+                return rec
+        raise ConfigError(f"{self.source}: no index {name!r} recorded (has: "
+                          f"{', '.join(r.name for r in self.indices) or 'none'})")
+
+    @property
+    def indices(self) -> tuple[IndexRecord, ...]:
+        """Every total-return index of the run, typed: the core one first (when recorded), then
+        the further ones in model order."""
+        return ((self.core_index,) if self.has_core_index else ()) + self.further_indices
 
     @property
     def market_prices_of_risk(self) -> dict[str, Any]:
         return self.parameters.get("market_prices_of_risk") or {}
 
     @property
+    def rates_price_of_risk(self) -> Any:
+        """The rates' market price of risk as stored (a number or ``{knots, values}``)."""
+        mpr = self._need(self._need(self.data, "parameters"), "market_prices_of_risk", "parameters")
+        return self._need(mpr, "rates", "parameters.market_prices_of_risk")
+
+    @property
     def real_world_view(self) -> dict[str, Any]:
         return self.parameters.get("real_world_view") or {}
 
     # model parts: the nested object their owner in calibration/ wrote (None when absent)
-
-    @property
-    def indices(self) -> list[dict[str, Any]]:
-        return list(self.parameters.get("indices") or [])
 
     @property
     def inflation(self) -> dict[str, Any] | None:

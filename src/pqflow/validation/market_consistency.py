@@ -18,9 +18,8 @@ Payoffs at the expiry ``T0``, from the columns of the files:
   of the premium, plus the Monte Carlo interval);
 * equity option on the price index ``S_T e^{-qT}``, with ``S`` the total-return column
   ``equity_{index}`` (or ``property_{index}``, as the instrument's ``column_kind`` says) and
-  ``q`` the recorded income yield: the core equity's ``dividend_yield``
-  (``parameters["equity"]``) or a further index's ``income_yield`` (``parameters["indices"]``):
-  ``max(+-(S_T e^{-qT} - K), 0)``.
+  ``q`` the index's recorded income yield (the core equity's dividend yield; the typed
+  index records of :mod:`pqflow.storage.calibration_file`): ``max(+-(S_T e^{-qT} - K), 0)``.
 
 In the real-world set each payoff is deflated with the density of the smallest written block
 that carries its columns (:mod:`pqflow.measure.blocks`: the rates for a swaption, the rates and
@@ -191,14 +190,7 @@ def _record(inputs: RunInputs) -> CalibrationRecord:
 def _income_yields(inputs: RunInputs) -> dict[str, float]:
     """Index name -> recorded income yield: the core equity's dividend yield and each further
     index's income yield."""
-    cal = _record(inputs)
-    out: dict[str, float] = {}
-    for idx in cal.indices:
-        if isinstance(idx, dict) and "name" in idx and idx.get("income_yield") is not None:
-            out[str(idx["name"])] = float(idx["income_yield"])
-    if cal.equity_name is not None:
-        out[cal.equity_name] = cal.equity.dividend_yield
-    return out
+    return {idx.name: idx.income_yield for idx in _record(inputs).indices}
 
 
 def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) -> list[InstrumentSpec]:
@@ -241,7 +233,7 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
         ))
     for raw in cal.instrument_list("equity_options"):
         expiry, strike = float(raw["expiry"]), float(raw["strike"])
-        index = str(raw.get("index", cal.equity_name or ""))
+        index = str(raw.get("index", cal.core_index_name or ""))
         option = str(raw.get("kind", "call"))
         convention = str(raw.get("convention", "lognormal"))
         column_kind = str(raw.get("column_kind", "equity"))

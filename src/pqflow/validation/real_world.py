@@ -26,7 +26,7 @@ Tested (cells with z-scores, family-wise verdict of :mod:`pqflow.validation.chec
   (``ln(1.05) / t`` of premium) with 50% power at the family level. The ratio of expectations
   ``(1/t) ln(E[S_t/S_0] / E[B_t])`` is reported beside it: it differs from the ERP by the
   covariance of equity and cash.
-* **risk premium of each further index** (``parameters["indices"]``, equity or property): the
+* **risk premium of each further index** (its typed index record, equity or property): the
   same estimate on its column ``{kind}_{name}`` against its recorded ``risk_premium`` (its
   price of risk is ``risk_premium / sigma(t)``, so the same identity holds exactly).
 
@@ -56,7 +56,7 @@ import pandas as pd
 
 from pqflow.errors import ConfigError
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
-from pqflow.storage.names import INDEX_PREFIXES, bond_column, bond_maturity_of, equity_column, index_column
+from pqflow.storage.names import INDEX_PREFIXES, bond_column, bond_maturity_of, equity_column
 from pqflow.storage.scenario_set import SetPass
 from pqflow.validation.checks import CheckResult, cells_entry, not_applicable_entry
 from pqflow.validation.mean_tests import LOGNORMAL, MARTINGALE_DEVIATION, MIN_UNITS, mean_test
@@ -246,17 +246,12 @@ def _erp_input(inputs: RunInputs) -> float | None:
 
 
 def _index_premia(inputs: RunInputs, names: list[str], core: str | None) -> list[tuple[str, float]]:
-    """``(column, risk_premium)`` of each further index recorded in ``parameters["indices"]``
-    whose column is in the files (the core equity's column left out)."""
+    """``(column, risk_premium)`` of each further index recorded (beside the core one) whose
+    column is in the files (the core equity's column left out)."""
     out = []
-    for idx in _record(inputs).indices:
-        try:
-            col = index_column(idx["kind"], idx["name"])
-            premium = float(idx["risk_premium"])
-        except (KeyError, TypeError, ValueError):
-            continue
-        if col in names and col != core:
-            out.append((col, premium))
+    for idx in _record(inputs).further_indices:
+        if idx.risk_premium is not None and idx.column in names and idx.column != core:
+            out.append((idx.column, idx.risk_premium))
     return out
 
 
@@ -333,7 +328,7 @@ def real_world_steps(
     reader = scan.scenario_set
     names = reader.column_names()
     equity = [c for c in names if c.startswith(INDEX_PREFIXES[0])]
-    eq_name = _record(inputs).equity_name
+    eq_name = _record(inputs).core_index_name
     core = None if eq_name is None else equity_column(eq_name)
     e_col = core if core in equity else (equity[0] if equity else None)
     premia = _index_premia(inputs, names, e_col)

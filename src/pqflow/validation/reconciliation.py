@@ -51,10 +51,11 @@ import pandas as pd
 
 from pqflow.errors import ConfigError
 from pqflow.measure.blocks import column_drivers, smallest_block
-from pqflow.models.equity import EquityParams, equity_option_price
+from pqflow.models.equity import equity_option_price
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.schedule import PiecewiseConstant
+from pqflow.models.total_return import TotalReturnIndex
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
 from pqflow.storage.names import CPI, bond_maturity_of, density_column, equity_column, index_columns
 from pqflow.storage.scenario_set import PartFeed, ScenarioSet, SetPass
@@ -81,14 +82,16 @@ MATERIAL_SHARE = 0.02
 _CPI = CPI
 
 
-def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: float, level: float) -> float:
+def guarantee_closed_form(
+    inputs: RunInputs, *, maturity: float, guarantee: float, level: float, index: str | None = None
+) -> float:
     """Closed-form value of ``max(G - S_T, 0)`` on the total-return index (``q = 0``), from
     the rates (Hull-White or G2++) and equity parameters recorded in ``calibration.json`` (the
     equity volatility a number or a piecewise-constant schedule): Black on the forward with the
     T-forward variance of :func:`pqflow.models.equity.equity_total_variance` (Hull-White or
-    G2++ rates)."""
+    G2++ rates). ``index``: the index's name (default: the core index)."""
     cal = _record(inputs)
-    eq = cal.equity
+    eq = cal.index(index)
     g, hw = cal.g2pp, cal.hull_white
     sv = cal.stochastic_volatility.get(eq.name)
     if sv is not None:  # a Heston core equity: the semi-closed form (exact, or H1-HW when correlated)
@@ -107,6 +110,8 @@ def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: floa
             if hw is None:
                 raise KeyError("hull_white")
             rates_sv = HullWhiteParams(mean_reversion=hw.mean_reversion, volatility=hw.volatility)
+            if eq.correlation_with_rates is None:
+                raise KeyError("correlation_with_rates")
             corr = eq.correlation_with_rates
         return float(heston_option_price(spec.params, level=level, dividend_yield=0.0,
                                          discount=float(inputs.curve.discount(maturity)), expiry=maturity,
@@ -118,16 +123,16 @@ def guarantee_closed_form(inputs: RunInputs, *, maturity: float, guarantee: floa
             raise KeyError("correlation_with_rate_factors")
         rx, ry = eq.correlation_with_rate_factors
         g2 = G2PlusPlusParams(a=g.a, sigma=g.sigma, b=g.b, eta=g.eta, rho=g.rho)
-        g2_equity = EquityParams(name=eq.name, level=level, dividend_yield=0.0, volatility=volatility,
-                                 correlation=(rx, ry))
+        g2_equity = TotalReturnIndex(name=eq.name, kind=eq.kind, level=level, income_yield=0.0,
+                                     volatility=volatility, correlation=(rx, ry))
         return equity_option_price(inputs.curve, g2, g2_equity, expiry=maturity, strike=guarantee, kind="put")
     if hw is None:
         raise KeyError("hull_white")
     rates = HullWhiteParams(mean_reversion=hw.mean_reversion, volatility=hw.volatility)
-    equity = EquityParams(
-        name=eq.name, level=level, dividend_yield=0.0, volatility=volatility,
-        correlation=eq.correlation_with_rates,
-    )
+    if eq.correlation_with_rates is None:
+        raise KeyError("correlation_with_rates")
+    equity = TotalReturnIndex(name=eq.name, kind=eq.kind, level=level, income_yield=0.0, volatility=volatility,
+                              correlation=eq.correlation_with_rates)
     return equity_option_price(inputs.curve, rates, equity, expiry=maturity, strike=guarantee, kind="put")
 
 
@@ -135,9 +140,14 @@ def _record(inputs: RunInputs) -> CalibrationRecord:
     return calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
 
 
-def _equity_column(inputs: RunInputs, names: list[str]) -> str | None:
-    name = _record(inputs).equity_name
-    col = None if name is None else equity_column(name)
+def _index_column(inputs: RunInputs, names: list[str], index: str | None = None) -> str | None:
+    """The column of the named index (default: the core index) when the files carry it."""
+    record = _record(inputs)
+    if index is None:  # the core index: its name is all the column needs
+        name = record.core_index_name
+        col = None if name is None else equity_column(name)
+    else:
+        col = record.index(index).column
     return col if col in names else None
 
 
@@ -152,12 +162,13 @@ def density_for(reader: ScenarioSet, columns: Sequence[str], rates_drivers: Sequ
 
 
 def guarantee_values(
-    inputs: RunInputs, *, maturity: float = 10.0, guarantee: float | None = None
+    inputs: RunInputs, *, maturity: float = 10.0, guarantee: float | None = None, index: str | None = None
 ) -> dict[str, Any] | None:
     """Values of the guarantee three ways, or ``None`` when the files cannot value it.
 
     maturity: years; when not an output time, the longest output time below it is used.
     guarantee: the guaranteed amount in index units (default: the index level at time 0).
+    index: the total-return index the put is written on, by name (default: the core index).
 
     The real-world value uses the density of the smallest block that carries the rates and the
     index (the put depends on nothing else), and both sets' values use control variates from
@@ -166,7 +177,8 @@ def guarantee_values(
     set, the density itself (``E[w_T] = 1``). The plain estimates are kept beside them.
     """
     passes = set_passes(inputs)
-    return run_steps(passes, guarantee_values_steps(inputs, passes, maturity=maturity, guarantee=guarantee))
+    return run_steps(passes, guarantee_values_steps(inputs, passes, maturity=maturity, guarantee=guarantee,
+                                                           index=index))
 
 
 def _put_units(
@@ -188,7 +200,8 @@ def _put_units(
 
 
 def guarantee_values_steps(
-    inputs: RunInputs, passes: Mapping[str, SetPass], *, maturity: float = 10.0, guarantee: float | None = None
+    inputs: RunInputs, passes: Mapping[str, SetPass], *, maturity: float = 10.0, guarantee: float | None = None,
+    index: str | None = None,
 ) -> Steps[dict[str, Any] | None]:
     """:func:`guarantee_values` as steps on the sets' shared passes."""
     out: dict[str, Any] = {}
@@ -196,7 +209,7 @@ def guarantee_values_steps(
     setup = []
     for measure in ("market_consistent", "real_world"):
         reader = passes[measure].scenario_set
-        col = _equity_column(inputs, reader.column_names())
+        col = _index_column(inputs, reader.column_names(), index)
         if col is None:
             return None
         times0, first = reader.head([col])
@@ -247,7 +260,7 @@ def guarantee_values_steps(
     out["real_world_plain"] = (plain_value, float(plain_se * inflate))
     try:
         out["closed_form"] = guarantee_closed_form(
-            inputs, maturity=out["maturity"], guarantee=out["guarantee"], level=out["level"])
+            inputs, maturity=out["maturity"], guarantee=out["guarantee"], level=out["level"], index=index)
     except (KeyError, TypeError, ValueError, ConfigError):  # a model without a rates + equity record
         out["closed_form"] = None
     return out
