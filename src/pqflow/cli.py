@@ -614,6 +614,12 @@ def _print_fit(record: CalibrationRecord) -> None:
                else ""),
             highlight=False,
         )
+    from pqflow.models.parts import PART_KINDS, part_fit_key, part_fit_text
+
+    for name in record.plugin_parts:  # a part plug-in its kind fitted: the kind's own words
+        if (kind := PART_KINDS.get(name)) is not None and (text := part_fit_text(kind, record.part_fit(
+                part_fit_key(kind)))):
+            console.print(Text(f"part {name}: {text}"), highlight=False)
     corr = record.part_fit("correlation")
     if corr.get("repaired"):
         console.print("correlation matrix repaired (Higham 2002), Frobenius distance "

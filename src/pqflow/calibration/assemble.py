@@ -78,7 +78,14 @@ from pqflow.models.equity import EquityParams
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.heston import HestonIndex
 from pqflow.models.hull_white import HullWhiteParams
-from pqflow.models.parts import PART_KINDS, PartContext
+from pqflow.models.parts import (
+    PART_KINDS,
+    PartContext,
+    calibrate_part,
+    part_fit_key,
+    part_instruments_key,
+    part_market_files,
+)
 from pqflow.models.rates import RatesModel, as_short_rate_params, rates_from_json
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.calibration_file import (
@@ -697,6 +704,12 @@ def _inputs(config: RunConfig) -> dict[str, Any]:
                 if not path.is_file():
                     raise MarketDataError(f"{path}: market-data file not found (market_data.{kind})")
                 files[kind] = {"path": getattr(config.market_data, kind), "sha256": file_sha256(path)}
+    for name, section in config.parts.items():  # a part plug-in's own files, named in its section
+        for key, rel in part_market_files(PART_KINDS[name], section).items():
+            path = config.base_dir / rel
+            if not path.is_file():
+                raise MarketDataError(f"{path}: market-data file not found (parts.{name}.{key})")
+            files[f"{name}.{key}"] = {"path": rel, "sha256": file_sha256(path)}
     inputs["files"] = files
     return inputs
 
@@ -752,11 +765,18 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         # a Heston index is repriced at every quoted strike, not at its ATMF quotes
         equity_options = [o for o in equity_options if o["index"] not in heston] + heston_options
     plugin_parts: dict[str, GaussianPart] = {}
+    part_instruments: dict[str, list[dict[str, Any]]] = {}
     if config.parts:
         context = PartContext(curve=curve, rates=rates, correlation=correlation.pair)
         for name, part_section in config.parts.items():
             part_kind = PART_KINDS[name]
-            plugin_parts[name] = part_kind.build(part_section, context)
+            part_files = {key: config.base_dir / rel for key, rel in part_market_files(part_kind, part_section).items()}
+            part_fit = calibrate_part(part_kind, part_section, part_files, context)
+            plugin_parts[name] = part_fit.part
+            if part_fit.fit:
+                fit[part_fit_key(part_kind)] = part_fit.fit
+            if part_fit.instruments:
+                part_instruments[part_instruments_key(part_kind)] = part_fit.instruments
             extra_lams.update(part_kind.prices_of_risk(part_section))
     canon = json.dumps(inputs, sort_keys=True, separators=(",", ":")).encode("utf-8")
     return Calibration(
@@ -770,7 +790,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         inputs_hash=hashlib.sha256(canon).hexdigest(),
         fit=fit,
         instruments={"swaptions": swaptions, "equity_options": equity_options,
-                     **({"inflation_caps": inflation_caps} if inflation_caps else {})},
+                     **({"inflation_caps": inflation_caps} if inflation_caps else {}), **part_instruments},
         real_world_view=view,
         indices=tuple(indices),
         extra_prices_of_risk=extra_lams,

@@ -9,12 +9,30 @@ the configuration's table); the configuration, the calibration and its file, the
 and the martingale test consult the registry, so the engine, the densities and the storage need
 no code of the part. The existing parts (indices, inflation, credit, Heston) predate the
 registry and keep their own code paths.
+
+Optional hooks (a kind without them has no market file, no fit record and no instruments; the
+defaults are the functions below, so a kind written before them still plugs in):
+
+* ``market_files(section) -> {name: path}``: its market-data files, paths as written in its
+  section (relative to the configuration file); the calibration checks that each exists, records
+  its sha256 in ``inputs.files`` (as ``<section>.<name>``) and passes the resolved paths on;
+* ``calibrate(section, files, context) -> PartFit``: its own fit (the part, a fit record stored
+  under ``calibration.json`` ``fit.<fit_key>``, its instruments under
+  ``instruments.<instruments_key>``, both keys defaulting to the section name); without it the
+  part is :meth:`PartKind.build` from its section;
+* ``instruments(records, context) -> [PartInstrument]``: its recorded instruments as the
+  market-consistency check reprices them from the files (one cell per instrument and reference,
+  judged by the check's one rule);
+* ``fit_text(fit) -> str``: the report's fit column; ``compare_quotes(instruments, fit)`` and
+  ``compare_parameters(parameters)``: ``{label: (value, unit)}`` rows for ``pqflow compare``
+  (units as :mod:`pqflow.report.compare` knows them: rate, bp, vol, plain, level, text).
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
@@ -29,8 +47,19 @@ __all__ = [
     "PART_KINDS",
     "PartAsset",
     "PartContext",
+    "PartFit",
+    "PartInstrument",
+    "PartInstrumentContext",
     "PartKind",
+    "calibrate_part",
     "describe_part",
+    "part_compare_parameters",
+    "part_compare_quotes",
+    "part_fit_key",
+    "part_fit_text",
+    "part_instruments",
+    "part_instruments_key",
+    "part_market_files",
     "part_column_drivers",
     "register_part",
     "unregister_part",
@@ -58,6 +87,55 @@ class PartAsset:
     columns: tuple[str, ...]
     value: Callable[[dict[str, np.ndarray]], np.ndarray]
     reference: Callable[[np.ndarray], np.ndarray]
+
+
+@dataclass(frozen=True, kw_only=True)
+class PartFit:
+    """What a kind's calibration gives: the part, its fit record (``{}``: none; stored under
+    ``calibration.json`` ``fit``) and its instruments (stored under ``instruments``), each a JSON
+    object the kind's :func:`part_instruments` hook reads back."""
+
+    part: GaussianPart
+    fit: dict[str, Any] = field(default_factory=dict)
+    instruments: list[dict[str, Any]] = field(default_factory=list)
+
+
+@dataclass(frozen=True, kw_only=True)
+class PartInstrumentContext:
+    """What the repricing of a part's instruments may look at: today's curve, the set's column
+    names and output times."""
+
+    curve: DiscountCurve
+    columns: tuple[str, ...]
+    times: np.ndarray
+
+
+@dataclass(frozen=True, kw_only=True)
+class PartInstrument:
+    """One of a part's calibration instruments, repriced from a scenario set.
+
+    ``value(times, columns, deflator)``: the deflated payoff per path ``(n_paths,)`` from the
+    columns it names ``(n_paths, n_times)`` each and a deflator ``(n_paths, n_times)`` (the
+    written one, or a density block over the cash account in the real-world set); the check
+    averages it. ``market_price``: the quote's price; ``model_price``: the kind's closed form at
+    the fitted parameters; ``tolerance``: the stated tolerance of the quote in price;
+    ``material``: the material deviation in price (the power rule's effect). ``untestable``:
+    why the files cannot reprice it (``None``: they can); ``expiry``: the last output time the
+    payoff reads (an output time when testable)."""
+
+    label: str
+    kind: str
+    option: str
+    expiry: float
+    strike: float
+    columns: tuple[str, ...]
+    value: Callable[[np.ndarray, dict[str, np.ndarray], np.ndarray], np.ndarray]
+    market_price: float | None
+    model_price: float | None
+    tolerance: float
+    material: float | None
+    untestable: str | None = None
+    convention: str = "premium"
 
 
 @runtime_checkable
@@ -142,3 +220,62 @@ def describe_part(section: str, recorded: Any) -> str:
     except ValueError as exc:
         return f"part {section!r}: its recorded section does not validate ({exc.__class__.__name__})"
     return kind.describe(validated)
+
+
+# ---------------------------------------------------------------------- optional hooks, defaulted
+
+
+def part_market_files(kind: PartKind, section: Any) -> dict[str, str]:
+    """Its market-data files by name, paths as written in its section (``{}``: none)."""
+    hook = getattr(kind, "market_files", None)
+    return dict(hook(section)) if hook is not None else {}
+
+
+def calibrate_part(kind: PartKind, section: Any, files: dict[str, Path], context: PartContext) -> PartFit:
+    """The kind's own fit, or its part built from its section (no fit record, no instruments)."""
+    hook = getattr(kind, "calibrate", None)
+    if hook is None:
+        return PartFit(part=kind.build(section, context))
+    return hook(section, files, context)
+
+
+def part_fit_key(kind: PartKind) -> str:
+    """Where its fit record lives under ``calibration.json`` ``fit`` (default: its section)."""
+    return str(getattr(kind, "fit_key", kind.section))
+
+
+def part_instruments_key(kind: PartKind) -> str:
+    """Where its instruments live under ``calibration.json`` ``instruments`` (default: its section)."""
+    return str(getattr(kind, "instruments_key", kind.section))
+
+
+def part_instruments(kind: PartKind, records: list[dict[str, Any]],
+                     context: PartInstrumentContext) -> list[PartInstrument]:
+    """Its recorded instruments as the market-consistency check reprices them (``[]``: none)."""
+    hook = getattr(kind, "instruments", None)
+    return list(hook(records, context)) if hook is not None and records else []
+
+
+def part_fit_text(kind: PartKind | None, fit: dict[str, Any]) -> str | None:
+    """The report's fit column for the part (``None``: the kind says nothing of its fit)."""
+    hook = getattr(kind, "fit_text", None)
+    return None if hook is None or not fit else str(hook(fit))
+
+
+def part_compare_quotes(kind: PartKind | None, instruments: list[dict[str, Any]],
+                        fit: dict[str, Any]) -> dict[str, tuple[Any, str]]:
+    """Its market inputs for ``pqflow compare``, ``{label: (value, unit)}`` (``{}``: none)."""
+    hook = getattr(kind, "compare_quotes", None)
+    return dict(hook(instruments, fit)) if hook is not None else {}
+
+
+def part_compare_parameters(kind: PartKind | None, parameters: dict[str, Any]) -> dict[str, tuple[Any, str]]:
+    """Its calibrated parameters for ``pqflow compare``; default: every number of its
+    ``calibration.json`` form, labelled ``<section> <key>`` (unit plain)."""
+    hook = getattr(kind, "compare_parameters", None)
+    if hook is not None:
+        return dict(hook(parameters))
+    if kind is None:
+        return {}
+    return {f"{kind.section} {k.replace('_', ' ')}": (v, "plain") for k, v in parameters.items()
+            if isinstance(v, int | float) and not isinstance(v, bool)}

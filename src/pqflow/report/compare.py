@@ -31,8 +31,21 @@ from typing import Any, TypeGuard
 import numpy as np
 
 from pqflow.errors import IntegrityError, PqflowError
+from pqflow.models.parts import (
+    PART_KINDS,
+    part_compare_parameters,
+    part_compare_quotes,
+    part_fit_key,
+    part_instruments_key,
+)
 from pqflow.report import numbers as fmt
-from pqflow.storage.calibration_file import CALIBRATION_FILE, CalibrationRecord, calibration_path, read_calibration_file
+from pqflow.storage.calibration_file import (
+    CALIBRATION_FILE,
+    CalibrationRecord,
+    calibration_path,
+    plugin_part_fields,
+    read_calibration_file,
+)
 from pqflow.storage.jsonio import read_json
 
 __all__ = [
@@ -54,6 +67,7 @@ GROUPS = (
     ("levels", "Index levels and yields"),
     ("inflation", "Inflation quotes"),
     ("credit", "Credit spreads"),
+    ("parts", "Part plug-in quotes"),
     ("settings", "Other inputs and settings"),
     ("files", "Market-data files"),
 )
@@ -247,6 +261,11 @@ def _inputs(cal: CalibrationRecord) -> dict[str, dict[str, tuple[Any, str]]]:
         for r in rating.get("rows") or []:
             label = f"{rating.get('rating')} spread {fmt.years(r.get('maturity'))}y"
             out["credit"][label] = (r.get("market_spread"), "rate")
+    for name in cal.plugin_parts:  # a part plug-in's quotes, labelled by its kind
+        part_kind = PART_KINDS.get(name)
+        if part_kind is not None:
+            quotes = list(inst.get(part_instruments_key(part_kind)) or [])
+            out["parts"].update(part_compare_quotes(part_kind, quotes, fit.get(part_fit_key(part_kind)) or {}))
     par = cal.parameters
     eq = par.get("equity") or {}
     if eq:
@@ -344,6 +363,8 @@ def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
                     f"credit {n} volatility nu": (c.get("volatility"), "plain"),
                     f"credit {n} initial intensity": (c.get("initial"), "rate"),
                     f"credit {n} price of risk": (r.get("price_of_risk"), "plain")})
+    for name, entry in cal.plugin_parts.items():  # a part plug-in's parameters, through its kind
+        out.update(part_compare_parameters(PART_KINDS.get(name), plugin_part_fields(entry, cal.source, name)[0]))
     dc = par.get("driver_correlation") or {}
     names, matrix = dc.get("drivers") or [], dc.get("matrix") or []
     for i, a in enumerate(names):

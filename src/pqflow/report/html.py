@@ -29,7 +29,7 @@ import pandas as pd
 
 from pqflow import CAUTION, __version__
 from pqflow.errors import IntegrityError, PqflowError
-from pqflow.models.parts import describe_part
+from pqflow.models.parts import PART_KINDS, describe_part, part_fit_key, part_fit_text
 from pqflow.report import numbers as fmt
 from pqflow.report import smile, svg
 from pqflow.storage.calibration_file import (
@@ -667,8 +667,10 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
     recorded_sections = cal.inputs.get("parts") or {}
     for name, entry in cal.plugin_parts.items():
         lams = plugin_part_fields(entry, CALIBRATION_FILE, name)[1]
+        kind = PART_KINDS.get(name)
+        fitted = part_fit_text(kind, cal.part_fit(part_fit_key(kind))) if kind is not None else None
         rows.append({"part": f"{name} (part plug-in)", "values": describe_part(name, recorded_sections.get(name)),
-                     "fit": "built from its section" + (
+                     "fit": (fitted or "built from its section") + (
                          "; prices of risk " + ", ".join(f"{d} {_sched_text(v, lambda x: fmt.plain(x, 3))}"
                                                          for d, v in lams.items()) if lams else "")})
     mpr = cal.market_prices_of_risk

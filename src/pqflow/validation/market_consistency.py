@@ -75,7 +75,7 @@ inconclusive with the count shown (``paying_units``; its raw score stays in
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -84,6 +84,7 @@ import pandas as pd
 
 from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_price
 from pqflow.errors import MarketDataError
+from pqflow.models.parts import PART_KINDS, PartInstrumentContext, part_instruments, part_instruments_key
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
 from pqflow.storage.names import bond_column, density_block_column, density_column, index_columns
 from pqflow.storage.scenario_set import SetPass
@@ -157,6 +158,12 @@ class InstrumentSpec:
     untestable: str | None
     note: str | None = None
     income_yield: float | None = None
+    #: a part plug-in's instrument (:class:`pqflow.models.parts.PartInstrument`): its deflated
+    #: payoff ``(times, columns, deflator) -> (n_paths,)``, its tolerance and material deviation
+    #: in price (``None`` for the built-in instruments)
+    part_value: Callable[[np.ndarray, dict[str, np.ndarray], np.ndarray], np.ndarray] | None = None
+    part_tolerance: float | None = None
+    part_material: float | None = None
 
 
 def _num(x: Any) -> float | None:
@@ -282,6 +289,39 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
             stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
             column_names=("cpi",), untestable=reason,
         ))
+    out += _part_instrument_specs(cal, curve, columns, times)
+    return out
+
+
+def _part_instrument_lists(cal: CalibrationRecord) -> list[list[dict[str, Any]]]:
+    """The recorded instruments of each registered part plug-in of the run."""
+    return [cal.instrument_list(part_instruments_key(PART_KINDS[name]))
+            for name in cal.plugin_parts if name in PART_KINDS]
+
+
+def _part_instrument_specs(cal: CalibrationRecord, curve: Any, columns: list[str],
+                           times: np.ndarray) -> list[InstrumentSpec]:
+    """A part plug-in's instruments through its kind (:func:`pqflow.models.parts.part_instruments`)."""
+    out: list[InstrumentSpec] = []
+    context = PartInstrumentContext(curve=curve, columns=tuple(columns), times=times)
+    for name in cal.plugin_parts:
+        kind = PART_KINDS.get(name)
+        if kind is None:
+            continue
+        for inst in part_instruments(kind, cal.instrument_list(part_instruments_key(kind)), context):
+            reason = inst.untestable
+            missing = [c for c in inst.columns if c not in columns]
+            if reason is None and missing:
+                reason = f"not testable from the files (missing {', '.join(missing)})"
+            if reason is None and time_index(times, inst.expiry) is None:
+                reason = f"not testable from the files (expiry {inst.expiry:g} is not an output time)"
+            out.append(InstrumentSpec(
+                label=inst.label, kind=inst.kind, option=inst.option, expiry=inst.expiry, strike=inst.strike,
+                convention=inst.convention, shift=0.0, tenor=None, index=None, forward=None, annuity=None,
+                market_vol=None, market_price=inst.market_price, stated_market_price=inst.market_price,
+                model_price=inst.model_price, column_names=inst.columns, untestable=reason,
+                part_value=inst.value, part_tolerance=inst.tolerance, part_material=inst.material,
+            ))
     return out
 
 
@@ -309,6 +349,9 @@ def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.
         k = time_index(times, s.expiry)
         if k is None:
             raise RuntimeError(f"instrument expiry {s.expiry:g} is not an output time (a testable instrument must be)")
+        if s.part_value is not None:  # a part plug-in's instrument: its kind's payoff
+            out[:, j] = s.part_value(times, cols, deflator)
+            continue
         if s.kind == "yoy_option":  # annual caplets tau (I_i / I_{i-1} - 1 - K)^+ paid at i, tau = 1
             cpi = cols["cpi"]
             w = 1.0 if s.option == "cap" else -1.0
@@ -359,6 +402,8 @@ def _implied(s: InstrumentSpec, price: float) -> float | None:
 
 def _material_price(s: InstrumentSpec, vega: float | None, tol: dict[str, float]) -> float | None:
     """The material deviation in price (module docstring), ``None`` without a price to scale."""
+    if s.part_value is not None:  # a part plug-in's instrument states its own
+        return s.part_material
     if vega is not None and s.kind != "yoy_option":
         vol = max(MATERIAL_VOL.get(s.convention, MATERIAL_VOL["lognormal"]), 2.0 * tol.get(s.convention, 0.0))
         if s.market_vol is None or s.forward is None or s.annuity is None:
@@ -509,6 +554,8 @@ def market_consistency_table_steps(
             tol_price = abs(vega) * tol_vol if vega is not None else 0.0
             if s.kind == "yoy_option" and s.market_price is not None:
                 tol_price = max(PREMIUM_TOLERANCE["absolute"], PREMIUM_TOLERANCE["relative"] * s.market_price)
+            if s.part_tolerance is not None:
+                tol_price = s.part_tolerance
             mc_vol = _implied(s, mc)
             material = _material_price(s, vega, tol)
             row: dict[str, Any] = {
@@ -557,7 +604,7 @@ def market_consistency_steps(
     (:func:`pqflow.validation.run_files.run_steps`)."""
     cal = _record(inputs)
     if not (cal.instrument_list("swaptions") or cal.instrument_list("equity_options")
-            or cal.instrument_list("inflation_caps")):
+            or cal.instrument_list("inflation_caps") or any(_part_instrument_lists(cal))):
         return CheckResult(name=CHECK, summary=not_applicable_entry(
             kind=KIND, reason="not applicable: no instruments in calibration.json"))
     table, specs = yield from market_consistency_table_steps(inputs, passes, vol_tolerance=vol_tolerance,
@@ -602,6 +649,9 @@ def market_consistency_steps(
     entry = cells_entry(cell_table, ["instrument", "measure", "reference", "z_score"], kind=KIND, rule=rule)
     weak = inconclusive_mask(cell_table, crit) if len(cell_table) else pd.Series(dtype=bool)
     entry["material_deviation"] = MATERIAL_TEXT
+    if any(s.part_value is not None for s in specs):
+        entry["material_deviation"] += ("; part plug-in instruments: the tolerance and material deviation their "
+                                        "kind records")
     entry["power_rule"] = (
         "a cell is inconclusive when its payoff is non-zero on fewer than "
         f"{MIN_PAYING_UNITS} sampling units (no normal approximation), or when its test would detect the "
