@@ -23,6 +23,10 @@ defaults are the functions below, so a kind written before them still plugs in):
 * ``instruments(records, context) -> [PartInstrument]``: its recorded instruments as the
   market-consistency check reprices them from the files (one cell per instrument and reference,
   judged by the check's one rule);
+* ``config_key``, ``json_key``, ``market_data_keys``, ``compare_group`` (attributes): where a
+  part that predates the plug-ins keeps its pieces - a top-level configuration table instead of
+  ``[parts.<section>]``, its own key under ``calibration.json`` ``parameters`` instead of the
+  plug-in entries, ``[market_data]`` keys of its files, its group in ``pqflow compare``;
 * ``fit_text(fit) -> str``: the report's fit column; ``compare_quotes(instruments, fit)`` and
   ``compare_parameters(parameters)``: ``{label: (value, unit)}`` rows for ``pqflow compare``
   (units as :mod:`pqflow.report.compare` knows them: rate, bp, vol, plain, level, text).
@@ -30,7 +34,7 @@ defaults are the functions below, so a kind written before them still plugs in):
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Protocol, runtime_checkable
@@ -60,6 +64,7 @@ __all__ = [
     "part_instruments",
     "part_instruments_key",
     "part_market_files",
+    "recorded_parts",
     "part_column_drivers",
     "register_part",
     "unregister_part",
@@ -98,6 +103,9 @@ class PartFit:
     part: GaussianPart
     fit: dict[str, Any] = field(default_factory=dict)
     instruments: list[dict[str, Any]] = field(default_factory=list)
+    #: its real-world prices of risk by driver when the fit decides them (``None``: the kind's
+    #: :meth:`PartKind.prices_of_risk` of its section)
+    prices_of_risk: dict[str, float] | None = None
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -108,6 +116,9 @@ class PartInstrumentContext:
     curve: DiscountCurve
     columns: tuple[str, ...]
     times: np.ndarray
+    #: ``time_index(times, t)``: the index of output time ``t`` in ``times``, ``None`` when ``t``
+    #: is not one (the validation's rule)
+    time_index: Callable[[np.ndarray, float], int | None]
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -190,13 +201,25 @@ def register_part(kind: PartKind) -> PartKind:
     if name in PART_KINDS and PART_KINDS[name] is not kind:
         raise ValueError(f"a part kind named {name!r} is already registered")
     PART_KINDS[name] = kind
-    register_part_section(name, kind.config_model)
+    if getattr(kind, "config_key", None) is None:  # a kind with a legacy top-level table has no [parts.<name>]
+        register_part_section(name, kind.config_model)
     return kind
 
 
 def unregister_part(section: str) -> None:
     PART_KINDS.pop(section, None)
     unregister_part_section(section)
+
+
+def recorded_parts(parameters: Mapping[str, Any], plugin_entries: Mapping[str, Any]) -> list[tuple[str, PartKind]]:
+    """The registered kinds a run's ``calibration.json`` records, ``(section, kind)``: first those
+    whose entry has a place of its own under ``parameters`` (a kind's ``json_key``, in
+    registration order), then the plug-in entries (``plugin_entries``, by section)."""
+    out: list[tuple[str, PartKind]] = [
+        (name, kind) for name, kind in PART_KINDS.items()
+        if (key := getattr(kind, "json_key", None)) is not None and parameters.get(key) is not None]
+    out += [(name, PART_KINDS[name]) for name in plugin_entries if name in PART_KINDS]
+    return out
 
 
 def part_column_drivers(column: str) -> frozenset[str] | None:
