@@ -238,11 +238,12 @@ class SpreadKind:
             model_price=float(r["model_price"]), tolerance=float(r["tolerance_price"]),
             material=float(r["material_price"])) for r in records]
 
-    def fit_text(self, fit: dict[str, Any]) -> str:
-        return f"fitted to {fit['quotes']} spread-option premiums, RMSE {fit['rmse_price']:.2e}"
+    def fit_text(self, fit: dict[str, Any], fmt: Any) -> str:
+        return f"fitted to {fit['quotes']} spread-option premiums, RMSE {fmt.number(fit['rmse_price'])}"
 
-    def compare_quotes(self, instruments: list[dict[str, Any]], fit: dict[str, Any]) -> dict[str, tuple[Any, str]]:
-        return {f"spread call {float(r['expiry']):g}y strike {float(r['strike']):.2%} (premium)":
+    def compare_quotes(self, instruments: list[dict[str, Any]], fit: dict[str, Any],
+                       fmt: Any) -> dict[str, tuple[Any, str]]:
+        return {f"spread call {fmt.years(r['expiry'])}y strike {fmt.percent(r['strike'], 2)} (premium)":
                 (1e4 * float(r["market_price"]), "bp") for r in instruments}
 
     def compare_parameters(self, parameters: dict[str, Any]) -> dict[str, tuple[Any, str]]:

@@ -585,23 +585,11 @@ def _print_fit(record: CalibrationRecord) -> None:
             highlight=False,
         )
     _print_heston_fits(dict(record.part_fit("heston")))
-    inf = record.part_fit("inflation")
-    p_inf = record.inflation
-    if inf and p_inf is not None:
-        console.print(
-            f"inflation (Jarrow-Yildirim): real curve from {len(inf['rows'])} zero-coupon inflation swaps, "
-            f"max repricing error {fmt.bp(inf['max_abs_difference_bp'], 2)}; a_r = "
-            f"{fmt.plain(p_inf['real_mean_reversion'])}, "
-            f"sigma_r = {fmt.bp(1e4 * p_inf['real_volatility'])}, sigma_I = "
-            f"{fmt.vol_points(p_inf['inflation_volatility'])} pts",
-            highlight=False,
-        )
-        if caps := inf.get("caps"):
-            console.print(
-                f"  fitted {', '.join(caps['fitted'])} to {len(caps['rows'])} year-on-year caps/floors: "
-                f"price RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional",
-                highlight=False,
-            )
+    from pqflow.models.parts import PART_KINDS, part_fit_key, part_fit_lines, part_fit_text, recorded_parts
+
+    for _, legacy, entry in recorded_parts(record.parameters, {}):  # kinds with an entry of their own (inflation)
+        for line in part_fit_lines(legacy, entry, record.part_fit(part_fit_key(legacy)), fmt):
+            console.print(line, highlight=False)
     for r in record.part_fit("credit").get("ratings", []):
         console.print(
             f"credit {escape(str(r['rating']))}: spreads repriced to {fmt.bp(r['max_abs_error_bp'], 2)}; CIR++ shift "
@@ -614,11 +602,9 @@ def _print_fit(record: CalibrationRecord) -> None:
                else ""),
             highlight=False,
         )
-    from pqflow.models.parts import PART_KINDS, part_fit_key, part_fit_text
-
     for name in record.plugin_parts:  # a part plug-in its kind fitted: the kind's own words
         if (kind := PART_KINDS.get(name)) is not None and (text := part_fit_text(kind, record.part_fit(
-                part_fit_key(kind)))):
+                part_fit_key(kind)), fmt)):
             console.print(Text(f"part {name}: {text}"), highlight=False)
     corr = record.part_fit("correlation")
     if corr.get("repaired"):

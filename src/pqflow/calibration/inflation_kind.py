@@ -306,3 +306,46 @@ class InflationKind:
                 untestable=reason,
             ))
         return out
+
+    # -- its rows in the report, ``pqflow calibrate`` and ``pqflow compare`` (fmt: report.numbers)
+
+    def report_rows(self, entry: dict[str, Any], fit: dict[str, Any], fmt: Any) -> list[dict[str, str]]:
+        caps = fit.get("caps") or {}
+        fit_text = []
+        if "max_abs_difference_bp" in fit:
+            fit_text.append(f"swaps repriced to {fmt.bp(fit['max_abs_difference_bp'], 2)}")
+        if "price_rmse_bp" in caps:
+            fit_text.append(f"caps/floors RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional")
+        return [{"part": "inflation, Jarrow-Yildirim",
+                 "values": f"a_r {fmt.plain(entry.get('real_mean_reversion'))}, σ_r "
+                           f"{fmt.bp(1e4 * float(entry.get('real_volatility', 'nan')), 1)}, "
+                           f"σ_I {fmt.vol_points(entry.get('inflation_volatility'))} pts",
+                 "fit": "; ".join(fit_text) or "typed in"}]
+
+    def fit_lines(self, entry: dict[str, Any], fit: dict[str, Any], fmt: Any) -> list[str]:
+        if not fit:
+            return []
+        out = [f"inflation (Jarrow-Yildirim): real curve from {len(fit['rows'])} zero-coupon inflation swaps, "
+               f"max repricing error {fmt.bp(fit['max_abs_difference_bp'], 2)}; a_r = "
+               f"{fmt.plain(entry['real_mean_reversion'])}, "
+               f"sigma_r = {fmt.bp(1e4 * entry['real_volatility'])}, sigma_I = "
+               f"{fmt.vol_points(entry['inflation_volatility'])} pts"]
+        if caps := fit.get("caps"):
+            out.append(f"  fitted {', '.join(caps['fitted'])} to {len(caps['rows'])} year-on-year caps/floors: "
+                       f"price RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional")
+        return out
+
+    def compare_quotes(self, instruments: list[dict[str, Any]], fit: dict[str, Any],
+                       fmt: Any) -> dict[str, tuple[Any, str]]:
+        out: dict[str, tuple[Any, str]] = {}
+        for c in instruments:
+            out[f"year-on-year {c.get('kind')} {fmt.years(c.get('maturity'))}y strike "
+                f"{fmt.percent(c.get('strike'), 2)} (premium)"] = (1e4 * float(c["market_price"]), "bp")
+        for r in fit.get("rows") or []:
+            out[f"zero-coupon inflation swap {fmt.years(r.get('maturity'))}y"] = (r.get("market_rate"), "rate")
+        return out
+
+    def compare_parameters(self, parameters: dict[str, Any]) -> dict[str, tuple[Any, str]]:
+        return {"inflation real-rate mean reversion a_r": (parameters.get("real_mean_reversion"), "plain"),
+                "inflation real-rate volatility sigma_r": (parameters.get("real_volatility"), "rate"),
+                "inflation CPI volatility sigma_I": (parameters.get("inflation_volatility"), "vol")}

@@ -27,9 +27,13 @@ defaults are the functions below, so a kind written before them still plugs in):
   part that predates the plug-ins keeps its pieces - a top-level configuration table instead of
   ``[parts.<section>]``, its own key under ``calibration.json`` ``parameters`` instead of the
   plug-in entries, ``[market_data]`` keys of its files, its group in ``pqflow compare``;
-* ``fit_text(fit) -> str``: the report's fit column; ``compare_quotes(instruments, fit)`` and
-  ``compare_parameters(parameters)``: ``{label: (value, unit)}`` rows for ``pqflow compare``
+* ``fit_text(fit, fmt) -> str``: the report's fit column of a plug-in; ``report_rows(entry,
+  fit, fmt)``: the report's parameter rows of a kind with its own entry; ``fit_lines(entry, fit,
+  fmt)``: what ``pqflow calibrate`` prints of its fit; ``compare_quotes(instruments, fit, fmt)``
+  and ``compare_parameters(parameters)``: ``{label: (value, unit)}`` rows for ``pqflow compare``
   (units as :mod:`pqflow.report.compare` knows them: rate, bp, vol, plain, level, text).
+  ``fmt`` is :mod:`pqflow.report.numbers`, handed down by the caller (every number a user reads
+  is formatted by it; the kinds sit below the report).
 """
 
 from __future__ import annotations
@@ -59,11 +63,14 @@ __all__ = [
     "describe_part",
     "part_compare_parameters",
     "part_compare_quotes",
+    "part_compare_group",
     "part_fit_key",
+    "part_fit_lines",
     "part_fit_text",
     "part_instruments",
     "part_instruments_key",
     "part_market_files",
+    "part_report_rows",
     "recorded_parts",
     "part_column_drivers",
     "register_part",
@@ -211,14 +218,15 @@ def unregister_part(section: str) -> None:
     unregister_part_section(section)
 
 
-def recorded_parts(parameters: Mapping[str, Any], plugin_entries: Mapping[str, Any]) -> list[tuple[str, PartKind]]:
-    """The registered kinds a run's ``calibration.json`` records, ``(section, kind)``: first those
-    whose entry has a place of its own under ``parameters`` (a kind's ``json_key``, in
+def recorded_parts(parameters: Mapping[str, Any],
+                   plugin_entries: Mapping[str, Any]) -> list[tuple[str, PartKind, Any]]:
+    """The registered kinds a run's ``calibration.json`` records, ``(section, kind, entry)``:
+    first those whose entry has a place of its own under ``parameters`` (a kind's ``json_key``, in
     registration order), then the plug-in entries (``plugin_entries``, by section)."""
-    out: list[tuple[str, PartKind]] = [
-        (name, kind) for name, kind in PART_KINDS.items()
+    out: list[tuple[str, PartKind, Any]] = [
+        (name, kind, parameters[key]) for name, kind in PART_KINDS.items()
         if (key := getattr(kind, "json_key", None)) is not None and parameters.get(key) is not None]
-    out += [(name, PART_KINDS[name]) for name in plugin_entries if name in PART_KINDS]
+    out += [(name, PART_KINDS[name], entry) for name, entry in plugin_entries.items() if name in PART_KINDS]
     return out
 
 
@@ -279,17 +287,37 @@ def part_instruments(kind: PartKind, records: list[dict[str, Any]],
     return list(hook(records, context)) if hook is not None and records else []
 
 
-def part_fit_text(kind: PartKind | None, fit: dict[str, Any]) -> str | None:
-    """The report's fit column for the part (``None``: the kind says nothing of its fit)."""
+def part_fit_text(kind: PartKind | None, fit: dict[str, Any], fmt: Any) -> str | None:
+    """The report's fit column for a plug-in (``None``: the kind says nothing of its fit);
+    ``fmt``: the report's number formatting (:mod:`pqflow.report.numbers`, handed down: the
+    kinds sit below the report)."""
     hook = getattr(kind, "fit_text", None)
-    return None if hook is None or not fit else str(hook(fit))
+    return None if hook is None or not fit else str(hook(fit, fmt))
+
+
+def part_report_rows(kind: PartKind, entry: dict[str, Any], fit: dict[str, Any], fmt: Any) -> list[dict[str, str]]:
+    """Rows ``{part, values, fit}`` of the report's parameter table for a kind with its own entry
+    (``json_key``); ``[]`` when the kind gives none."""
+    hook = getattr(kind, "report_rows", None)
+    return list(hook(entry, fit, fmt)) if hook is not None else []
+
+
+def part_fit_lines(kind: PartKind, entry: dict[str, Any], fit: dict[str, Any], fmt: Any) -> list[str]:
+    """Lines ``pqflow calibrate`` prints of the part's fit (``[]``: none)."""
+    hook = getattr(kind, "fit_lines", None)
+    return list(hook(entry, fit, fmt)) if hook is not None else []
+
+
+def part_compare_group(kind: PartKind) -> str:
+    """The group of ``pqflow compare`` its quotes are listed in (default ``parts``)."""
+    return str(getattr(kind, "compare_group", "parts"))
 
 
 def part_compare_quotes(kind: PartKind | None, instruments: list[dict[str, Any]],
-                        fit: dict[str, Any]) -> dict[str, tuple[Any, str]]:
+                        fit: dict[str, Any], fmt: Any) -> dict[str, tuple[Any, str]]:
     """Its market inputs for ``pqflow compare``, ``{label: (value, unit)}`` (``{}``: none)."""
     hook = getattr(kind, "compare_quotes", None)
-    return dict(hook(instruments, fit)) if hook is not None else {}
+    return dict(hook(instruments, fit, fmt)) if hook is not None else {}
 
 
 def part_compare_parameters(kind: PartKind | None, parameters: dict[str, Any]) -> dict[str, tuple[Any, str]]:

@@ -33,10 +33,12 @@ import numpy as np
 from pqflow.errors import IntegrityError, PqflowError
 from pqflow.models.parts import (
     PART_KINDS,
+    part_compare_group,
     part_compare_parameters,
     part_compare_quotes,
     part_fit_key,
     part_instruments_key,
+    recorded_parts,
 )
 from pqflow.report import numbers as fmt
 from pqflow.storage.calibration_file import (
@@ -251,12 +253,10 @@ def _inputs(cal: CalibrationRecord) -> dict[str, dict[str, tuple[Any, str]]]:
             money = f"strike {fmt.plain(o.get('strike'), 6)}"
         kind = f" {o['kind']}" if o.get("kind") not in (None, "call") else ""
         out["equity_options"][f"{o.get('index')} {fmt.years(t)}y{kind}, {money}"] = (o.get("market_vol"), "vol")
-    for c in inst.get("inflation_caps", []) or []:
-        out["inflation"][f"year-on-year {c.get('kind')} {fmt.years(c.get('maturity'))}y strike "
-                         f"{fmt.percent(c.get('strike'), 2)} (premium)"] = (1e4 * float(c["market_price"]), "bp")
     fit = cal.fit
-    for r in ((fit.get("inflation") or {}).get("rows") or []):
-        out["inflation"][f"zero-coupon inflation swap {fmt.years(r.get('maturity'))}y"] = (r.get("market_rate"), "rate")
+    for _, legacy, _ in recorded_parts(cal.parameters, {}):  # kinds with an entry of their own (inflation)
+        out[part_compare_group(legacy)].update(part_compare_quotes(
+            legacy, list(inst.get(part_instruments_key(legacy)) or []), fit.get(part_fit_key(legacy)) or {}, fmt))
     for rating in ((fit.get("credit") or {}).get("ratings") or []):
         for r in rating.get("rows") or []:
             label = f"{rating.get('rating')} spread {fmt.years(r.get('maturity'))}y"
@@ -265,7 +265,8 @@ def _inputs(cal: CalibrationRecord) -> dict[str, dict[str, tuple[Any, str]]]:
         part_kind = PART_KINDS.get(name)
         if part_kind is not None:
             quotes = list(inst.get(part_instruments_key(part_kind)) or [])
-            out["parts"].update(part_compare_quotes(part_kind, quotes, fit.get(part_fit_key(part_kind)) or {}))
+            out[part_compare_group(part_kind)].update(
+                part_compare_quotes(part_kind, quotes, fit.get(part_fit_key(part_kind)) or {}, fmt))
     par = cal.parameters
     eq = par.get("equity") or {}
     if eq:
@@ -350,11 +351,8 @@ def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
     mpr = par.get("market_prices_of_risk") or {}
     out.update(_schedule_items("rates price of risk", mpr.get("rates"), "plain"))
     out.update(_schedule_items(f"equity {eq.get('name', '')} price of risk", mpr.get("equity"), "plain"))
-    if "inflation" in par:
-        inf = par["inflation"]
-        out["inflation real-rate mean reversion a_r"] = (inf.get("real_mean_reversion"), "plain")
-        out["inflation real-rate volatility sigma_r"] = (inf.get("real_volatility"), "rate")
-        out["inflation CPI volatility sigma_I"] = (inf.get("inflation_volatility"), "vol")
+    for _, legacy, entry in recorded_parts(par, {}):  # kinds with an entry of their own (inflation)
+        out.update(part_compare_parameters(legacy, entry))
     for r in ((par.get("credit") or {}).get("ratings") or []):
         c = r.get("cir") or {}
         n = r.get("name")

@@ -280,7 +280,7 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
 def _part_instrument_lists(cal: CalibrationRecord) -> list[list[dict[str, Any]]]:
     """The recorded instruments of each registered part kind of the run (inflation's caps and
     floors, a plug-in's own)."""
-    return [cal.instrument_list(part_instruments_key(kind)) for _, kind in recorded_parts(cal.parameters,
+    return [cal.instrument_list(part_instruments_key(kind)) for _, kind, _ in recorded_parts(cal.parameters,
                                                                                          cal.plugin_parts)]
 
 
@@ -290,7 +290,7 @@ def _part_instrument_specs(cal: CalibrationRecord, curve: Any, columns: list[str
     inflation's year-on-year caps and floors, a plug-in's own."""
     out: list[InstrumentSpec] = []
     context = PartInstrumentContext(curve=curve, columns=tuple(columns), times=times, time_index=time_index)
-    for _, kind in recorded_parts(cal.parameters, cal.plugin_parts):
+    for _, kind, _ in recorded_parts(cal.parameters, cal.plugin_parts):
         for inst in part_instruments(kind, cal.instrument_list(part_instruments_key(kind)), context):
             reason = inst.untestable
             missing = [c for c in inst.columns if c not in columns]
@@ -617,7 +617,7 @@ def market_consistency_steps(
     entry = cells_entry(cell_table, ["instrument", "measure", "reference", "z_score"], kind=KIND, rule=rule)
     weak = inconclusive_mask(cell_table, crit) if len(cell_table) else pd.Series(dtype=bool)
     entry["material_deviation"] = MATERIAL_TEXT
-    if any(s.part_value is not None for s in specs):
+    if any(cal.instrument_list(part_instruments_key(kind)) for _, kind, _ in recorded_parts({}, cal.plugin_parts)):
         entry["material_deviation"] += ("; part plug-in instruments: the tolerance and material deviation their "
                                         "kind records")
     entry["power_rule"] = (
