@@ -53,6 +53,13 @@ err_console = Console(stderr=True)
 PIPED_WIDTH = 200  # columns of output that is not a terminal (a log, a pipe), unless COLUMNS says
 
 
+
+def _register_part_kinds() -> None:
+    """The shipped part kinds (:mod:`pqflow.calibration.part_kinds`), registered before a
+    configuration is read (a ``[parts.<name>]`` section of a shipped kind must validate); the
+    import stays inside the commands that read one, so that ``pqflow --version`` stays quick."""
+    import pqflow.calibration.part_kinds  # noqa: F401
+
 def _fit_width() -> None:
     """Rich draws to 80 columns when output is not a terminal and truncates table cells to fit;
     a log gets PIPED_WIDTH columns instead (COLUMNS, if set, still decides)."""
@@ -247,6 +254,7 @@ def run(
 
     from pqflow.calibration.assemble import assemble_calibration, check_calibration_fits, load_calibration
     from pqflow.config.loader import apply_overrides, load_config
+    _register_part_kinds()
     from pqflow.jobs.steps import plan_run
     from pqflow.pipeline.home import check_prefect_home
     from pqflow.storage.calibration_file import calibration_path, write_calibration_file
@@ -455,6 +463,7 @@ def check(
     """Validate a configuration and show the parameters and columns it gives, without simulating."""
     from pqflow.calibration.assemble import assemble_calibration
     from pqflow.config.loader import load_config
+    _register_part_kinds()
     from pqflow.jobs.steps import plan_run, written_columns
 
     try:
@@ -518,6 +527,7 @@ def calibrate(
     """
     from pqflow.calibration.assemble import assemble_calibration
     from pqflow.config.loader import load_config
+    _register_part_kinds()
     from pqflow.storage.calibration_file import calibration_record, write_calibration_file
 
     if out.exists() and not overwrite:
@@ -682,6 +692,7 @@ def curve_command(
     discount factors)."""
     from pqflow.calibration.assemble import fit_curve
     from pqflow.config.loader import load_config
+    _register_part_kinds()
     from pqflow.market.curve_table import curve_table
     from pqflow.storage.curve_csv import write_curve_csv
 

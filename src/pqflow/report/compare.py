@@ -30,6 +30,7 @@ from typing import Any, TypeGuard
 
 import numpy as np
 
+import pqflow.calibration.part_kinds  # noqa: F401  (the shipped part kinds, registered)
 from pqflow.errors import IntegrityError, PqflowError
 from pqflow.models.parts import (
     PART_KINDS,

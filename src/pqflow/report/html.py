@@ -27,6 +27,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+import pqflow.calibration.part_kinds  # noqa: F401  (the shipped part kinds, registered)
 from pqflow import CAUTION, __version__
 from pqflow.errors import IntegrityError, PqflowError
 from pqflow.models.parts import (
