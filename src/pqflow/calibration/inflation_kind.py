@@ -16,6 +16,7 @@ The closed forms are in :mod:`pqflow.models.jarrow_yildirim` and
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable, Mapping
 from pathlib import Path
 from typing import Any
@@ -29,7 +30,7 @@ from pqflow.calibration.inflation import (
     real_curve_from_zc_inflation_swaps,
 )
 from pqflow.config.schema import InflationSection, RunConfig
-from pqflow.errors import CalibrationError, ConfigError, MarketDataError
+from pqflow.errors import CalibrationError, ConfigError, IntegrityError, MarketDataError
 from pqflow.market.curve import DiscountCurve, LogDiscountCurve
 from pqflow.market.data_files import read_inflation_caps, read_inflation_swaps
 from pqflow.market.serialize import curve_from_json, curve_to_json
@@ -39,7 +40,7 @@ from pqflow.models.inflation import INFLATION_DRIVER, REAL_RATE_DRIVER, Inflatio
 from pqflow.models.jarrow_yildirim import JarrowYildirimParams
 from pqflow.models.parts import PartAsset, PartContext, PartFit, PartInstrument, PartInstrumentContext
 from pqflow.models.rates import RatesModel
-from pqflow.storage.names import CPI
+from pqflow.storage.names import CPI, REAL_BOND_PREFIX
 
 __all__ = [
     "InflationKind",
@@ -50,6 +51,7 @@ __all__ = [
     "calibrate_inflation_section",
     "inflation_from_json",
     "inflation_to_json",
+    "real_bond_maturity_of",
 ]
 
 #: The ``[market_data]`` keys of the inflation part's files.
@@ -61,6 +63,7 @@ YOY_TOLERANCE = {"absolute": 5e-4, "relative": 0.03}
 #: floors; an option without a volatility has none) and 10% of the premium.
 MATERIAL_PREMIUM = {"absolute": 1e-3, "relative": 0.10}
 RATES_DRIVER = HullWhiteParams.drivers[0]
+_REAL_BOND = re.compile(rf"^{REAL_BOND_PREFIX}(?P<m>[0-9.eE+-]+)y$")
 
 
 def _flat_breakeven_curve(nominal: DiscountCurve, maturities: np.ndarray, rates: np.ndarray) -> LogDiscountCurve:
@@ -203,6 +206,12 @@ def inflation_from_json(data: dict[str, Any]) -> InflationPart:
 # ------------------------------------------------------------------------------- the kind
 
 
+def real_bond_maturity_of(column: str) -> float | None:
+    """``real_zcb_10y`` -> 10.0; ``None`` for any other column."""
+    match = _REAL_BOND.match(column)
+    return float(match.group("m")) if match else None
+
+
 def _num(x: Any) -> float | None:
     return None if x is None else float(x)
 
@@ -272,9 +281,47 @@ class InflationKind:
         return None
 
     def martingale_assets(self, part: GaussianPart, curve: DiscountCurve, columns: Any) -> list[PartAsset]:
-        """``[]`` here: its assets (the CPI and the real bonds in currency) are listed by
-        :mod:`pqflow.validation.assets`, which asks this hook of the plug-in entries only."""
-        return []
+        """The CPI and each real zero bond in ``columns`` (none without a ``cpi`` column): ``I_t``
+        is the currency value of a claim on the index, ``E[D_t I_t] = I_0 P_r(0, t)``; a real
+        zero bond's currency price is ``I_t P_r(t, t + m)``, ``E[D_t I_t P_r(t, t + m)] =
+        I_0 P_r(0, t + m)`` (Jarrow and Yildirim 2003)."""
+        if not isinstance(part, InflationPart):
+            raise TypeError(f"not an inflation part: {type(part).__name__}")
+        real_bonds = sorted((m, c) for c in columns if (m := real_bond_maturity_of(c)) is not None)
+        if CPI not in columns:
+            if real_bonds:
+                raise IntegrityError(
+                    f"the files carry real bonds ({', '.join(c for _, c in real_bonds)}) but no {CPI!r} "
+                    "column: their currency prices cannot be formed"
+                )
+            return []
+        real_curve, cpi_base = part.real_curve, part.cpi_base
+
+        def cpi_value(cols: dict[str, np.ndarray]) -> np.ndarray:
+            return cols[CPI]
+
+        out = [PartAsset(
+            name=CPI,
+            description="consumer price index: E[D_t I_t] = I_0 P_r(0, t)",
+            columns=(CPI,),
+            value=cpi_value,
+            reference=lambda t: cpi_base * np.asarray(real_curve.discount(t)),
+        )]
+        for m, col in real_bonds:
+            def value(cols: dict[str, np.ndarray], col: str = col) -> np.ndarray:
+                return cols[CPI] * cols[col]
+
+            def reference(t: np.ndarray, m: float = m) -> np.ndarray:
+                return cpi_base * np.asarray(real_curve.discount(np.asarray(t) + m))
+
+            out.append(PartAsset(
+                name=col,
+                description=f"real zero bond in currency (cpi x {col}), {m:g} years to run",
+                columns=(CPI, col),
+                value=value,
+                reference=reference,
+            ))
+        return out
 
     def describe(self, section: InflationSection) -> str:
         return (f"Jarrow-Yildirim inflation (a_r {section.real_mean_reversion:g}, sigma_r {section.real_volatility:g}, "
