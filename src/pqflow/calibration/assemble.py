@@ -31,15 +31,12 @@ from pqflow.calibration.parts import (
     DriverCorrelation,
     calibrate_credit_part,
     calibrate_index,
-    calibrate_inflation,
     credit_from_json,
     credit_to_json,
     driver_correlation,
     fit_index_volatility,
     index_from_json,
     index_to_json,
-    inflation_from_json,
-    inflation_to_json,
     load_schedule,
     schedule_json,
 )
@@ -85,6 +82,7 @@ from pqflow.models.parts import (
     part_fit_key,
     part_instruments_key,
     part_market_files,
+    recorded_parts,
 )
 from pqflow.models.rates import RatesModel, as_short_rate_params, rates_from_json
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
@@ -239,6 +237,12 @@ class Calibration:
         )
 
 
+    def _own_entry_parts(self) -> dict[str, GaussianPart]:
+        """The parts of the kinds with an entry of their own (``json_key``; today inflation), by
+        section; their ``Calibration`` field is the one binding left here (``_OWN_ENTRY_FIELDS``)."""
+        return {name: part for name, field_name in _OWN_ENTRY_FIELDS.items()
+                if (part := getattr(self, field_name)) is not None}
+
     def _parts_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {}
         if self.correlation is not None:
@@ -248,12 +252,12 @@ class Calibration:
                 index_to_json(i, self.extra_prices_of_risk[i.name], self.index_risk_premia[i.name])
                 for i in self.indices
             ]
-        if self.inflation is not None:
-            out["inflation"] = {
-                **inflation_to_json(self.inflation),
-                "market_prices_of_risk": {
-                    k: _schedule_json(self.extra_prices_of_risk.get(k, 0.0)) for k in ("real_rate", "inflation")
-                },
+        for name, part in self._own_entry_parts().items():  # kinds with an entry of their own (inflation)
+            kind = _registered(name)
+            out[kind.json_key] = {
+                **kind.to_json(part),
+                "market_prices_of_risk": {d: _schedule_json(self.extra_prices_of_risk.get(d, 0.0))
+                                          for d in part.drivers},
             }
         if self.credit is not None:
             out["credit"] = credit_to_json(self.credit, self.credit_substeps_per_year)
@@ -268,6 +272,10 @@ class Calibration:
                 for name, part in self.plugin_parts.items()
             }
         return out
+
+
+#: A kind with an entry of its own (``json_key``) by section -> the ``Calibration`` field holding its part.
+_OWN_ENTRY_FIELDS = {"inflation": "inflation"}
 
 
 def _registered(name: str) -> Any:
@@ -298,9 +306,9 @@ def _parts_from_json(par: dict[str, Any], source: str | Path = CALIBRATION_FILE)
         out["extra_prices_of_risk"][index.name] = lam
         out["index_risk_premia"][index.name] = premium
     out["indices"] = tuple(indices)
-    if "inflation" in par:
-        out["inflation"] = inflation_from_json(par["inflation"])
-        for k, v in par["inflation"]["market_prices_of_risk"].items():
+    for name, kind, entry in recorded_parts(par, {}):  # kinds with an entry of their own (inflation)
+        out[_OWN_ENTRY_FIELDS[name]] = kind.from_json(entry)
+        for k, v in entry["market_prices_of_risk"].items():
             out["extra_prices_of_risk"][k] = _load_schedule(v)
     if "credit" in par:
         out["credit"], out["credit_substeps_per_year"] = credit_from_json(par["credit"])
@@ -747,12 +755,26 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         equity_options = [*equity_options, *options]
     if index_fits:
         fit["indices"] = index_fits
-    inflation_caps: list[dict[str, Any]]
-    inflation, inflation_caps = None, []
-    if config.inflation is not None:
-        inflation, inflation_lams, fit["inflation"], inflation_caps = calibrate_inflation(config, curve, rates,
-                                                                                          correlation)
-        extra_lams.update(inflation_lams)
+    context = PartContext(curve=curve, rates=rates, correlation=correlation.pair)
+    own_parts: dict[str, GaussianPart] = {}
+    own_instruments: dict[str, list[dict[str, Any]]] = {}
+    for name, own_kind in PART_KINDS.items():  # kinds with a configuration table of their own (inflation)
+        config_key = getattr(own_kind, "config_key", None)
+        own_section = getattr(config, config_key) if config_key is not None else None
+        if own_section is None:
+            continue
+        own_files = {key: path for key in getattr(own_kind, "market_data_keys", ())
+                     if (path := config.market_file(key)) is not None}
+        own_fit = calibrate_part(own_kind, own_section, own_files, context)
+        own_parts[name] = own_fit.part
+        fit[part_fit_key(own_kind)] = own_fit.fit
+        if own_fit.instruments:
+            own_instruments[part_instruments_key(own_kind)] = own_fit.instruments
+        extra_lams.update(own_fit.prices_of_risk if own_fit.prices_of_risk is not None
+                          else own_kind.prices_of_risk(own_section))
+    inflation = own_parts.get("inflation")
+    if inflation is not None and not isinstance(inflation, InflationPart):
+        raise TypeError(f"the inflation kind built a {type(inflation).__name__}")
     credit = None
     if config.credit is not None:
         credit, fit["credit"] = calibrate_credit_part(config)
@@ -767,7 +789,6 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     plugin_parts: dict[str, GaussianPart] = {}
     part_instruments: dict[str, list[dict[str, Any]]] = {}
     if config.parts:
-        context = PartContext(curve=curve, rates=rates, correlation=correlation.pair)
         for name, part_section in config.parts.items():
             part_kind = PART_KINDS[name]
             part_files = {key: config.base_dir / rel for key, rel in part_market_files(part_kind, part_section).items()}
@@ -790,7 +811,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         inputs_hash=hashlib.sha256(canon).hexdigest(),
         fit=fit,
         instruments={"swaptions": swaptions, "equity_options": equity_options,
-                     **({"inflation_caps": inflation_caps} if inflation_caps else {}), **part_instruments},
+                     **own_instruments, **part_instruments},
         real_world_view=view,
         indices=tuple(indices),
         extra_prices_of_risk=extra_lams,
