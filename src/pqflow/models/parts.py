@@ -7,8 +7,9 @@ drivers each of its columns depends on, its martingale assets (possibly none) an
 description. :func:`register_part` puts a kind in :data:`PART_KINDS` (and its section model in
 the configuration's table); the configuration, the calibration and its file, the density blocks
 and the martingale test consult the registry, so the engine, the densities and the storage need
-no code of the part. The existing parts (indices, inflation, credit, Heston) predate the
-registry and keep their own code paths.
+no code of the part. The shipped kinds are registered in one place,
+:mod:`pqflow.calibration.part_kinds` (inflation is one, with its legacy locations); the indices,
+credit and Heston predate the registry and keep their own code paths.
 
 Optional hooks (a kind without them has no market file, no fit record and no instruments; the
 defaults are the functions below, so a kind written before them still plugs in):
