@@ -666,3 +666,21 @@ def test_pqflow_compare_shows_the_part_quotes_and_parameters(fitted_run, tmp_pat
     print("compare rows:", sorted(quotes), vol)
     assert vol.status != "same"
     assert any(m.group == "files" and m.item.startswith("spread.quotes") and m.status == "moved" for m in c.inputs)
+
+
+def test_a_sensitivity_set_carries_the_part_quote_file(spread_kind, tmp_path):
+    """A sensitivity's configuration (sensitivities/shocks.py) copies the plug-in's own file
+    beside its shocked inputs and points the section at the copy, so the set calibrates."""
+    from pqflow.config.schema import SensitivitySection
+    from pqflow.sensitivities.shocks import INPUTS_DIR, shocked_config
+
+    cfg = load_config(_fitted_config(tmp_path))
+    set_dir = tmp_path / "set"
+    shocked = shocked_config(cfg, SensitivitySection(name="up10", curve_shift_bp=10.0), set_dir, source="test")
+    rel = shocked.parts["spread"].quotes
+    assert rel == f"{INPUTS_DIR}/spread.quotes.csv" and (set_dir / rel).is_file()
+    original = read_number_table(tmp_path / "veldmark_spread_options.csv", ("expiry_years", "strike", "premium"))
+    assert read_number_table(set_dir / rel, ("expiry_years", "strike", "premium")) == original  # unshocked
+    cal = assemble_calibration(shocked)
+    assert cal.inputs["files"]["spread.quotes"]["path"] == rel and len(cal.instruments["spread"]) == len(QUOTES)
+    assert cal.curve.discount(10.0) < assemble_calibration(cfg).curve.discount(10.0)  # the shock took effect

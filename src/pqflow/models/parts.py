@@ -14,9 +14,11 @@ credit and Heston predate the registry and keep their own code paths.
 Optional hooks (a kind without them has no market file, no fit record and no instruments; the
 defaults are the functions below, so a kind written before them still plugs in):
 
-* ``market_files(section) -> {name: path}``: its market-data files, paths as written in its
-  section (relative to the configuration file); the calibration checks that each exists, records
-  its sha256 in ``inputs.files`` (as ``<section>.<name>``) and passes the resolved paths on;
+* ``market_files(section) -> {key: path}``: its market-data files, ``key`` the section's field
+  that names the file and ``path`` as written there (relative to the configuration file); the
+  calibration checks that each exists, records its sha256 in ``inputs.files`` (as
+  ``<section>.<key>``) and passes the resolved paths on; a sensitivity set copies each file
+  unshocked beside its shocked inputs and points the field at the copy;
 * ``calibrate(section, files, context) -> PartFit``: its own fit (the part, a fit record stored
   under ``calibration.json`` ``fit.<fit_key>``, its instruments under
   ``instruments.<instruments_key>``, both keys defaulting to the section name); without it the
