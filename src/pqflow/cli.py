@@ -55,6 +55,13 @@ err_console = Console(stderr=True)
 PIPED_WIDTH = 200  # columns of output that is not a terminal (a log, a pipe), unless COLUMNS says
 
 
+
+def _register_part_kinds() -> None:
+    """The shipped part kinds (:mod:`pqflow.calibration.part_kinds`), registered before a
+    configuration is read (a ``[parts.<name>]`` section of a shipped kind must validate); the
+    import stays inside the commands that read one, so that ``pqflow --version`` stays quick."""
+    import pqflow.calibration.part_kinds  # noqa: F401
+
 def _fit_width() -> None:
     """Rich draws to 80 columns when output is not a terminal and truncates table cells to fit;
     a log gets PIPED_WIDTH columns instead (COLUMNS, if set, still decides)."""
@@ -249,6 +256,7 @@ def run(
 
     from pqflow.calibration.assemble import assemble_calibration, check_calibration_fits, load_calibration
     from pqflow.config.loader import apply_overrides, load_config
+    _register_part_kinds()
     from pqflow.jobs.steps import plan_run
     from pqflow.pipeline.home import check_prefect_home
     from pqflow.storage.calibration_file import calibration_path, write_calibration_file
@@ -457,6 +465,7 @@ def check(
     """Validate a configuration and show the parameters and columns it gives, without simulating."""
     from pqflow.calibration.assemble import assemble_calibration
     from pqflow.config.loader import load_config
+    _register_part_kinds()
     from pqflow.jobs.steps import plan_run, written_columns
 
     try:
@@ -520,6 +529,7 @@ def calibrate(
     """
     from pqflow.calibration.assemble import assemble_calibration
     from pqflow.config.loader import load_config
+    _register_part_kinds()
     from pqflow.storage.calibration_file import calibration_record, write_calibration_file
 
     if out.exists() and not overwrite:
@@ -587,23 +597,11 @@ def _print_fit(record: CalibrationRecord) -> None:
             highlight=False,
         )
     _print_heston_fits(record.heston_fits)
-    inf = record.part_fit("inflation")
-    p_inf = record.inflation
-    if inf and p_inf is not None:
-        console.print(
-            f"inflation (Jarrow-Yildirim): real curve from {len(inf['rows'])} zero-coupon inflation swaps, "
-            f"max repricing error {fmt.bp(inf['max_abs_difference_bp'], 2)}; a_r = "
-            f"{fmt.plain(p_inf['real_mean_reversion'])}, "
-            f"sigma_r = {fmt.bp(1e4 * p_inf['real_volatility'])}, sigma_I = "
-            f"{fmt.vol_points(p_inf['inflation_volatility'])} pts",
-            highlight=False,
-        )
-        if caps := inf.get("caps"):
-            console.print(
-                f"  fitted {', '.join(caps['fitted'])} to {len(caps['rows'])} year-on-year caps/floors: "
-                f"price RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional",
-                highlight=False,
-            )
+    from pqflow.models.parts import PART_KINDS, part_fit_key, part_fit_lines, part_fit_text, recorded_parts
+
+    for _, legacy, entry in recorded_parts(record.parameters, {}):  # kinds with an entry of their own (inflation)
+        for line in part_fit_lines(legacy, entry, record.part_fit(part_fit_key(legacy)), fmt):
+            console.print(line, highlight=False)
     for r in record.credit_fit.ratings:
         console.print(
             f"credit {escape(r.rating)}: spreads repriced to {fmt.bp(r.max_abs_error_bp, 2)}; CIR++ shift "
@@ -616,6 +614,10 @@ def _print_fit(record: CalibrationRecord) -> None:
                else ""),
             highlight=False,
         )
+    for name in record.plugin_parts:  # a part plug-in its kind fitted: the kind's own words
+        if (kind := PART_KINDS.get(name)) is not None and (text := part_fit_text(kind, record.part_fit(
+                part_fit_key(kind)), fmt)):
+            console.print(Text(f"part {name}: {text}"), highlight=False)
     corr = record.correlation_fit
     if corr.repaired:
         console.print("correlation matrix repaired (Higham 2002), Frobenius distance "
@@ -698,6 +700,7 @@ def curve_command(
     discount factors)."""
     from pqflow.calibration.assemble import fit_curve
     from pqflow.config.loader import load_config
+    _register_part_kinds()
     from pqflow.market.curve_table import curve_table
     from pqflow.storage.calibration_sections import curve_fit_record
     from pqflow.storage.curve_csv import write_curve_csv

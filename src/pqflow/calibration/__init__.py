@@ -9,5 +9,6 @@ from pqflow.calibration.assemble import (
     build_model,
     load_calibration,
 )
+from pqflow.calibration.part_kinds import SHIPPED_KINDS as _SHIPPED_KINDS  # noqa: F401  (registers the shipped kinds)
 
 __all__ = ["Calibration", "assemble_calibration", "build_model", "load_calibration"]

@@ -32,14 +32,11 @@ from pqflow.calibration.parts import (
     DriverCorrelation,
     calibrate_credit_part,
     calibrate_index,
-    calibrate_inflation,
     credit_from_record,
     credit_to_json,
     driver_correlation,
     index_from_record,
     index_record,
-    inflation_from_json,
-    inflation_to_json,
     load_schedule,
     schedule_json,
 )
@@ -76,7 +73,15 @@ from pqflow.models.economy import EconomyModel, GaussianPart, InflationPart, Tot
 from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.heston import HestonIndex
 from pqflow.models.hull_white import HullWhiteParams
-from pqflow.models.parts import PART_KINDS, PartContext
+from pqflow.models.parts import (
+    PART_KINDS,
+    PartContext,
+    calibrate_part,
+    part_fit_key,
+    part_instruments_key,
+    part_market_files,
+    recorded_parts,
+)
 from pqflow.models.rates import RatesModel, rates_from_json
 from pqflow.models.schedule import PiecewiseConstant, as_schedule
 from pqflow.storage.calibration_file import (
@@ -237,17 +242,23 @@ class Calibration:
         )
 
 
+    def _own_entry_parts(self) -> dict[str, GaussianPart]:
+        """The parts of the kinds with an entry of their own (``json_key``; today inflation), by
+        section; their ``Calibration`` field is the one binding left here (``_OWN_ENTRY_FIELDS``)."""
+        return {name: part for name, field_name in _OWN_ENTRY_FIELDS.items()
+                if (part := getattr(self, field_name)) is not None}
+
     def _parts_json(self, further: tuple[IndexRecord, ...]) -> dict[str, Any]:
         out: dict[str, Any] = {}
         if self.correlation is not None:
             out["driver_correlation"] = self.correlation.to_json()
         out.update(further_index_parameters(further))
-        if self.inflation is not None:
-            out["inflation"] = {
-                **inflation_to_json(self.inflation),
-                "market_prices_of_risk": {
-                    k: _schedule_json(self.extra_prices_of_risk.get(k, 0.0)) for k in ("real_rate", "inflation")
-                },
+        for name, part in self._own_entry_parts().items():  # kinds with an entry of their own (inflation)
+            kind = _registered(name)
+            out[kind.json_key] = {
+                **kind.to_json(part),
+                "market_prices_of_risk": {d: _schedule_json(self.extra_prices_of_risk.get(d, 0.0))
+                                          for d in part.drivers},
             }
         if self.credit is not None:
             out["credit"] = credit_to_json(self.credit, self.credit_substeps_per_year)
@@ -262,6 +273,10 @@ class Calibration:
                 for name, part in self.plugin_parts.items()
             }
         return out
+
+
+#: A kind with an entry of its own (``json_key``) by section -> the ``Calibration`` field holding its part.
+_OWN_ENTRY_FIELDS = {"inflation": "inflation"}
 
 
 def _registered(name: str) -> Any:
@@ -288,9 +303,9 @@ def _parts_from_json(par: dict[str, Any], record: CalibrationRecord,
         if rec.risk_premium is not None:
             out["index_risk_premia"][index.name] = rec.risk_premium
     out["indices"] = tuple(indices)
-    if "inflation" in par:
-        out["inflation"] = inflation_from_json(par["inflation"])
-        for k, v in par["inflation"]["market_prices_of_risk"].items():
+    for name, kind, entry in recorded_parts(par, {}):  # kinds with an entry of their own (inflation)
+        out[_OWN_ENTRY_FIELDS[name]] = kind.from_json(entry)
+        for k, v in entry["market_prices_of_risk"].items():
             out["extra_prices_of_risk"][k] = _load_schedule(v)
     if (credit := record.credit) is not None:
         out["credit"], out["credit_substeps_per_year"] = credit_from_record(credit)
@@ -655,6 +670,12 @@ def _inputs(config: RunConfig) -> dict[str, Any]:
                 if not path.is_file():
                     raise MarketDataError(f"{path}: market-data file not found (market_data.{kind})")
                 files[kind] = {"path": getattr(config.market_data, kind), "sha256": file_sha256(path)}
+    for name, section in config.parts.items():  # a part plug-in's own files, named in its section
+        for key, rel in part_market_files(PART_KINDS[name], section).items():
+            path = config.base_dir / rel
+            if not path.is_file():
+                raise MarketDataError(f"{path}: market-data file not found (parts.{name}.{key})")
+            files[f"{name}.{key}"] = {"path": rel, "sha256": file_sha256(path)}
     inputs["files"] = files
     return inputs
 
@@ -696,12 +717,26 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     core = indices[0]
     if index_fits:
         fit["indices"] = index_fits
-    inflation_caps: list[dict[str, Any]]
-    inflation, inflation_caps = None, []
-    if config.inflation is not None:
-        inflation, inflation_lams, fit["inflation"], inflation_caps = calibrate_inflation(config, curve, rates,
-                                                                                          correlation)
-        extra_lams.update(inflation_lams)
+    context = PartContext(curve=curve, rates=rates, correlation=correlation.pair)
+    own_parts: dict[str, GaussianPart] = {}
+    own_instruments: dict[str, list[dict[str, Any]]] = {}
+    for name, own_kind in PART_KINDS.items():  # kinds with a configuration table of their own (inflation)
+        config_key = getattr(own_kind, "config_key", None)
+        own_section = getattr(config, config_key) if config_key is not None else None
+        if own_section is None:
+            continue
+        own_files = {key: path for key in getattr(own_kind, "market_data_keys", ())
+                     if (path := config.market_file(key)) is not None}
+        own_fit = calibrate_part(own_kind, own_section, own_files, context)
+        own_parts[name] = own_fit.part
+        fit[part_fit_key(own_kind)] = own_fit.fit
+        if own_fit.instruments:
+            own_instruments[part_instruments_key(own_kind)] = own_fit.instruments
+        extra_lams.update(own_fit.prices_of_risk if own_fit.prices_of_risk is not None
+                          else own_kind.prices_of_risk(own_section))
+    inflation = own_parts.get("inflation")
+    if inflation is not None and not isinstance(inflation, InflationPart):
+        raise TypeError(f"the inflation kind built a {type(inflation).__name__}")
     credit = None
     if config.credit is not None:
         credit, fit["credit"] = calibrate_credit_part(config)
@@ -713,11 +748,17 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         # a Heston index is repriced at every quoted strike, not at its ATMF quotes
         equity_options = [o for o in equity_options if o["index"] not in heston] + heston_options
     plugin_parts: dict[str, GaussianPart] = {}
+    part_instruments: dict[str, list[dict[str, Any]]] = {}
     if config.parts:
-        context = PartContext(curve=curve, rates=rates, correlation=correlation.pair)
         for name, part_section in config.parts.items():
             part_kind = PART_KINDS[name]
-            plugin_parts[name] = part_kind.build(part_section, context)
+            part_files = {key: config.base_dir / rel for key, rel in part_market_files(part_kind, part_section).items()}
+            part_fit = calibrate_part(part_kind, part_section, part_files, context)
+            plugin_parts[name] = part_fit.part
+            if part_fit.fit:
+                fit[part_fit_key(part_kind)] = part_fit.fit
+            if part_fit.instruments:
+                part_instruments[part_instruments_key(part_kind)] = part_fit.instruments
             extra_lams.update(part_kind.prices_of_risk(part_section))
     canon = json.dumps(inputs, sort_keys=True, separators=(",", ":")).encode("utf-8")
     return Calibration(
@@ -731,7 +772,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         inputs_hash=hashlib.sha256(canon).hexdigest(),
         fit=fit,
         instruments={"swaptions": swaptions, "equity_options": equity_options,
-                     **({"inflation_caps": inflation_caps} if inflation_caps else {})},
+                     **own_instruments, **part_instruments},
         real_world_view=view,
         extra_prices_of_risk=extra_lams,
         index_risk_premia=premia,

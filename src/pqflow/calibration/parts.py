@@ -29,32 +29,22 @@ import numpy as np
 
 from pqflow.calibration.credit import ZeroSpreadCurve, calibrate_credit
 from pqflow.calibration.equity_vol import EquityVolQuote, calibrate_equity_volatility
-from pqflow.calibration.inflation import (
-    YoYCapFloorQuote,
-    ZeroCouponInflationSwapQuote,
-    calibrate_jarrow_yildirim,
-    real_curve_from_zc_inflation_swaps,
-)
+from pqflow.calibration.inflation_kind import calibrate_inflation, inflation_from_json, inflation_to_json
 from pqflow.config.schema import IndexSpec, RunConfig
 from pqflow.errors import CalibrationError, ConfigError, MarketDataError
 from pqflow.market.correlation import check_correlation_matrix, nearest_correlation_matrix
-from pqflow.market.curve import DiscountCurve, LogDiscountCurve
+from pqflow.market.curve import DiscountCurve
 from pqflow.market.data_files import (
     EquityVolRow,
     read_correlation_matrix,
     read_credit_spreads,
     read_equity_indices,
     read_equity_vols,
-    read_inflation_caps,
-    read_inflation_swaps,
 )
-from pqflow.market.serialize import curve_from_json, curve_to_json
 from pqflow.measure.cir_density import price_of_risk_for_long_run_mean
 from pqflow.measure.prices_of_risk import equity_price_of_risk
 from pqflow.models.cir_credit import CirCreditModel, CirParams, CreditRating, HazardCurve, real_world_cir
-from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER, InflationPart, TotalReturnIndex
-from pqflow.models.hull_white import HullWhiteParams
-from pqflow.models.jarrow_yildirim import JarrowYildirimParams
+from pqflow.models.economy import INFLATION_DRIVER, RATES_DRIVERS, REAL_RATE_DRIVER, TotalReturnIndex
 from pqflow.models.parts import PART_KINDS
 from pqflow.models.rates import RatesModel
 from pqflow.models.schedule import PiecewiseConstant
@@ -405,128 +395,8 @@ def index_from_record(
 
 
 # ------------------------------------------------------------------------------- inflation
-
-
-def _flat_breakeven_curve(nominal: DiscountCurve, maturities: np.ndarray, rates: np.ndarray) -> LogDiscountCurve:
-    """Real curve through the quotes, and beyond the last one with its breakeven held flat,
-    yearly pillars to the end of the nominal curve."""
-    last = float(maturities[-1])
-    extra = np.arange(np.floor(last) + 1.0, np.floor(nominal.max_maturity) + 1.0)
-    if extra.size and extra[-1] < nominal.max_maturity:
-        extra = np.append(extra, nominal.max_maturity)
-    t = np.concatenate([maturities, extra])
-    k = np.concatenate([rates, np.full(extra.size, rates[-1])])
-    return LogDiscountCurve(maturities=t, discount_factors=np.asarray(nominal.discount(t)) * (1.0 + k) ** t)
-
-
-def calibrate_inflation(
-    config: RunConfig,
-    curve: DiscountCurve,
-    rates: RatesModel,
-    correlation: DriverCorrelation,
-) -> tuple[InflationPart, dict[str, float], dict[str, Any], list[dict[str, Any]]]:
-    """The inflation part, its prices of risk (by driver), the fit report and the year-on-year
-    cap/floor instruments (empty when the volatilities are typed in)."""
-    sec = config.inflation
-    if sec is None:
-        raise RuntimeError("the inflation part asked for a configuration without [inflation]")
-    if sec.swap_maturities is not None:
-        if sec.swap_rates is None:
-            raise ConfigError("inflation: swap_maturities and swap_rates go together")
-        mats, zc, source = np.array(sec.swap_maturities, float), np.array(sec.swap_rates, float), "typed in"
-    else:
-        path = config.market_file("inflation_swaps")
-        if path is None:
-            raise ConfigError("inflation: give swap_maturities and swap_rates, or market_data.inflation_swaps")
-        rows = read_inflation_swaps(path)
-        mats, zc, source = np.array([r.maturity for r in rows]), np.array([r.rate for r in rows]), str(path)
-    try:
-        quoted = real_curve_from_zc_inflation_swaps(
-            curve, [ZeroCouponInflationSwapQuote(maturity=float(t), rate=float(k)) for t, k in zip(mats, zc,
-                                                                                                   strict=True)]
-        )
-    except MarketDataError as exc:
-        raise MarketDataError(f"{source}: {exc}") from None
-    real_curve = _flat_breakeven_curve(curve, mats, zc)
-    real = HullWhiteParams(mean_reversion=sec.real_mean_reversion, volatility=sec.real_volatility)
-    sigma_i = sec.inflation_volatility
-    fit: dict[str, Any] = {
-        "method": "real curve P_r(0,T) = P_n(0,T) (1 + k(T))^T at each zero-coupon inflation swap; breakeven "
-        "flat beyond the last quote; Jarrow-Yildirim volatilities "
-        + (f"{', '.join(sec.fit)} fitted to year-on-year caps and floors (closed form), the rest typed in" if sec.fit
-           else "typed in"),
-        "source": source,
-        "max_abs_difference_bp": quoted.max_abs_difference_bp,
-        "rows": quoted.as_records(),
-        "inflation_drift_adjustment": sec.inflation_drift_adjustment,
-    }
-    instruments: list[dict[str, Any]] = []
-    if sec.fit:
-        if not isinstance(rates, HullWhiteParams):  # the schema refuses a fit under G2++
-            raise ConfigError("inflation.fit: the inflation volatilities are fitted under Hull-White rates only")
-        cap_path = config.market_file("inflation_caps")
-        if cap_path is None:
-            raise ConfigError("inflation.fit: needs market_data.inflation_caps")
-        caps = read_inflation_caps(cap_path)
-        initial = JarrowYildirimParams(
-            nominal=rates, real=real, inflation_volatility=sigma_i,
-            correlation_nominal_real=correlation.pair(RATES_DRIVER, REAL_RATE_DRIVER),
-            correlation_nominal_inflation=correlation.pair(RATES_DRIVER, INFLATION_DRIVER),
-            correlation_real_inflation=correlation.pair(REAL_RATE_DRIVER, INFLATION_DRIVER),
-        )
-        try:
-            report = calibrate_jarrow_yildirim(
-                curve, real_curve,
-                [YoYCapFloorQuote(maturity=c.maturity, strike=c.strike, kind=c.kind, price=c.premium, weight=c.weight)
-                 for c in caps],
-                initial=initial, fit=tuple(sec.fit),
-            )
-        except (MarketDataError, CalibrationError) as exc:
-            raise CalibrationError(f"{cap_path}: {exc}") from None
-        if not report.success:
-            raise CalibrationError(f"{cap_path}: the inflation volatility fit did not converge ({report.message})")
-        real, sigma_i = report.params.real, report.params.inflation_volatility
-        fit["caps"] = {
-            "fitted": list(report.fitted), "at_bound": list(report.at_bound), "price_rmse_bp": report.price_rmse_bp,
-            "inflation_volatility": sigma_i, "real_mean_reversion": real.mean_reversion,
-            "real_volatility": real.volatility, "rows": [dict(vars(r)) for r in report.rows],
-        }
-        instruments = [
-            {"maturity": r.maturity, "strike": r.strike, "kind": r.kind, "market_price": r.market_price,
-             "model_price": r.model_price}
-            for r in report.rows
-        ]
-    part = InflationPart(
-        real_curve=real_curve,
-        real=real,
-        inflation_volatility=sigma_i,
-        cpi_base=sec.cpi_base,
-        real_bond_maturities=tuple(sorted(sec.real_bond_maturities)),
-    )
-    lams = {REAL_RATE_DRIVER: sec.real_rate_price_of_risk, INFLATION_DRIVER: sec.inflation_drift_adjustment / sigma_i}
-    return part, lams, fit, instruments
-
-
-def inflation_to_json(part: InflationPart) -> dict[str, Any]:
-    return {
-        "real_curve": curve_to_json(part.real_curve),
-        "real_mean_reversion": part.real.mean_reversion,
-        "real_volatility": part.real.volatility,
-        "inflation_volatility": part.inflation_volatility,
-        "cpi_base": part.cpi_base,
-        "real_bond_maturities": list(part.real_bond_maturities),
-    }
-
-
-def inflation_from_json(data: dict[str, Any]) -> InflationPart:
-    return InflationPart(
-        real_curve=curve_from_json(data["real_curve"]),
-        real=HullWhiteParams(mean_reversion=float(data["real_mean_reversion"]),
-                             volatility=float(data["real_volatility"])),
-        inflation_volatility=float(data["inflation_volatility"]),
-        cpi_base=float(data["cpi_base"]),
-        real_bond_maturities=tuple(float(m) for m in data["real_bond_maturities"]),
-    )
+# The inflation part's calibration and calibration.json form live with its kind
+# (pqflow.calibration.inflation_kind); the names stay importable from here.
 
 
 # ------------------------------------------------------------------------------- credit

@@ -8,7 +8,9 @@ index prices of risk are the base ones. The volatilities were not fitted to this
 market, so its market quotes are not recorded as instruments; the base swaptions are recorded
 at the money on the new curve with the kept model's closed-form price only (no market quote),
 so the market-consistency check still tests that the set reprices the rates model it was
-simulated from. Equity options and inflation caps are not recorded for such a set.
+simulated from. Equity options, inflation caps and a part plug-in's instruments are not recorded for such a set;
+a part plug-in its kind fitted (a fit record) keeps the base part, one built from its section is
+rebuilt on the new curve.
 """
 
 from __future__ import annotations
@@ -26,7 +28,7 @@ from pqflow.calibration.swaptions import forward_swap_rate, hull_white_swaption_
 from pqflow.config.schema import RunConfig
 from pqflow.market.curve import DiscountCurve
 from pqflow.measure.prices_of_risk import equity_price_of_risk
-from pqflow.models.parts import PART_KINDS, PartContext
+from pqflow.models.parts import PART_KINDS, PartContext, part_fit_key
 from pqflow.models.rates import RatesModel
 
 __all__ = ["curve_only_calibration"]
@@ -53,9 +55,12 @@ def curve_only_calibration(base: Calibration, config: RunConfig) -> Calibration:
         )
         extra.update(lams)
     plugin_parts = dict(base.plugin_parts)
-    if config.parts:  # a part plug-in is built from its (typed-in) section on the shocked curve
+    if config.parts:  # a part plug-in is built from its (typed-in) section on the shocked curve; a
+        # part its kind fits keeps the base calibration's fitted part (its volatility parameters)
         context = PartContext(curve=curve, rates=base.rates, correlation=base.driver_correlation.pair)
-        plugin_parts = {name: PART_KINDS[name].build(section, context) for name, section in config.parts.items()}
+        plugin_parts = {name: base.plugin_parts[name] if base.fit.get(part_fit_key(PART_KINDS[name]))
+                        and name in base.plugin_parts else PART_KINDS[name].build(section, context)
+                        for name, section in config.parts.items()}
     fit["volatility_parameters"] = {
         "kept_from_base_calibration": base.inputs_hash,
         "note": "rates, index, inflation and credit volatility parameters are the base calibration's; only the "

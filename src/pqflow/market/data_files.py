@@ -115,6 +115,8 @@ __all__ = [
     "read_credit_spreads",
     "InflationCapRow",
     "read_inflation_caps",
+    "NumberRow",
+    "read_number_table",
 ]
 
 MATURITY_COLUMN = "maturity_years"
@@ -694,4 +696,28 @@ def read_inflation_caps(path: str | PathLike[str]) -> tuple[InflationCapRow, ...
             raise MarketDataError(f"{_at(name, row, 'weight')}: weight {w:g} must not be negative")
         out.append(InflationCapRow(maturity=float(round(t)), strike=k, kind=kind, premium=p * 1e-4, weight=w,
                                    row=row.number))
+    return tuple(out)
+
+
+@dataclass(frozen=True, kw_only=True)
+class NumberRow:
+    """One data row of a table of numbers: its values by column, its data row number."""
+
+    values: dict[str, float]
+    row: int
+
+
+def read_number_table(path: str | PathLike[str], required: tuple[str, ...],
+                      optional: dict[str, float] | None = None) -> tuple[NumberRow, ...]:
+    """Read and check a CSV of numbers with the named columns (a part plug-in's quote file):
+    every cell a finite number, ``optional`` columns filled with their default when left out;
+    a bad cell names file, data row, line and column. The kind checks what the numbers mean."""
+    defaults = dict(optional or {})
+    name, header, header_line, rows = _read_rows(path)
+    idx = _header_index(name, header, header_line, required, tuple(defaults))
+    out: list[NumberRow] = []
+    for row in rows:
+        values = {c: _number(row.cells[idx[c]], _at(name, row, c)) if c in idx else float(defaults[c])
+                  for c in (*required, *defaults)}
+        out.append(NumberRow(values=values, row=row.number))
     return tuple(out)

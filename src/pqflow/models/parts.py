@@ -7,14 +7,43 @@ drivers each of its columns depends on, its martingale assets (possibly none) an
 description. :func:`register_part` puts a kind in :data:`PART_KINDS` (and its section model in
 the configuration's table); the configuration, the calibration and its file, the density blocks
 and the martingale test consult the registry, so the engine, the densities and the storage need
-no code of the part. The existing parts (indices, inflation, credit, Heston) predate the
-registry and keep their own code paths.
+no code of the part. The shipped kinds are registered in one place,
+:mod:`pqflow.calibration.part_kinds` (inflation is one, with its legacy locations); the indices,
+credit and Heston predate the registry and keep their own code paths.
+
+Optional hooks (a kind without them has no market file, no fit record and no instruments; the
+defaults are the functions below, so a kind written before them still plugs in):
+
+* ``market_files(section) -> {key: path}``: its market-data files, ``key`` the section's field
+  that names the file and ``path`` as written there (relative to the configuration file); the
+  calibration checks that each exists, records its sha256 in ``inputs.files`` (as
+  ``<section>.<key>``) and passes the resolved paths on; a sensitivity set copies each file
+  unshocked beside its shocked inputs and points the field at the copy;
+* ``calibrate(section, files, context) -> PartFit``: its own fit (the part, a fit record stored
+  under ``calibration.json`` ``fit.<fit_key>``, its instruments under
+  ``instruments.<instruments_key>``, both keys defaulting to the section name); without it the
+  part is :meth:`PartKind.build` from its section;
+* ``instruments(records, context) -> [PartInstrument]``: its recorded instruments as the
+  market-consistency check reprices them from the files (one cell per instrument and reference,
+  judged by the check's one rule);
+* ``config_key``, ``json_key``, ``market_data_keys``, ``compare_group`` (attributes): where a
+  part that predates the plug-ins keeps its pieces - a top-level configuration table instead of
+  ``[parts.<section>]``, its own key under ``calibration.json`` ``parameters`` instead of the
+  plug-in entries, ``[market_data]`` keys of its files, its group in ``pqflow compare``;
+* ``fit_text(fit, fmt) -> str``: the report's fit column of a plug-in; ``report_rows(entry,
+  fit, fmt)``: the report's parameter rows of a kind with its own entry; ``fit_lines(entry, fit,
+  fmt)``: what ``pqflow calibrate`` prints of its fit; ``compare_quotes(instruments, fit, fmt)``
+  and ``compare_parameters(parameters)``: ``{label: (value, unit)}`` rows for ``pqflow compare``
+  (units as :mod:`pqflow.report.compare` knows them: rate, bp, vol, plain, level, text).
+  ``fmt`` is :mod:`pqflow.report.numbers`, handed down by the caller (every number a user reads
+  is formatted by it; the kinds sit below the report).
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any, Protocol, runtime_checkable
 
 import numpy as np
@@ -29,8 +58,23 @@ __all__ = [
     "PART_KINDS",
     "PartAsset",
     "PartContext",
+    "PartFit",
+    "PartInstrument",
+    "PartInstrumentContext",
     "PartKind",
+    "calibrate_part",
     "describe_part",
+    "part_compare_parameters",
+    "part_compare_quotes",
+    "part_compare_group",
+    "part_fit_key",
+    "part_fit_lines",
+    "part_fit_text",
+    "part_instruments",
+    "part_instruments_key",
+    "part_market_files",
+    "part_report_rows",
+    "recorded_parts",
     "part_column_drivers",
     "register_part",
     "unregister_part",
@@ -58,6 +102,61 @@ class PartAsset:
     columns: tuple[str, ...]
     value: Callable[[dict[str, np.ndarray]], np.ndarray]
     reference: Callable[[np.ndarray], np.ndarray]
+
+
+@dataclass(frozen=True, kw_only=True)
+class PartFit:
+    """What a kind's calibration gives: the part, its fit record (``{}``: none; stored under
+    ``calibration.json`` ``fit``) and its instruments (stored under ``instruments``), each a JSON
+    object the kind's :func:`part_instruments` hook reads back."""
+
+    part: GaussianPart
+    fit: dict[str, Any] = field(default_factory=dict)
+    instruments: list[dict[str, Any]] = field(default_factory=list)
+    #: its real-world prices of risk by driver when the fit decides them (``None``: the kind's
+    #: :meth:`PartKind.prices_of_risk` of its section)
+    prices_of_risk: dict[str, float] | None = None
+
+
+@dataclass(frozen=True, kw_only=True)
+class PartInstrumentContext:
+    """What the repricing of a part's instruments may look at: today's curve, the set's column
+    names and output times."""
+
+    curve: DiscountCurve
+    columns: tuple[str, ...]
+    times: np.ndarray
+    #: ``time_index(times, t)``: the index of output time ``t`` in ``times``, ``None`` when ``t``
+    #: is not one (the validation's rule)
+    time_index: Callable[[np.ndarray, float], int | None]
+
+
+@dataclass(frozen=True, kw_only=True)
+class PartInstrument:
+    """One of a part's calibration instruments, repriced from a scenario set.
+
+    ``value(times, columns, deflator)``: the deflated payoff per path ``(n_paths,)`` from the
+    columns it names ``(n_paths, n_times)`` each and a deflator ``(n_paths, n_times)`` (the
+    written one, or a density block over the cash account in the real-world set); the check
+    averages it. ``market_price``: the quote's price; ``model_price``: the kind's closed form at
+    the fitted parameters; ``tolerance``: the stated tolerance of the quote in price;
+    ``material``: the material deviation in price (the power rule's effect). ``untestable``:
+    why the files cannot reprice it (``None``: they can); ``expiry``: the last output time the
+    payoff reads (an output time when testable)."""
+
+    label: str
+    kind: str
+    option: str
+    expiry: float
+    strike: float
+    columns: tuple[str, ...]
+    value: Callable[[np.ndarray, dict[str, np.ndarray], np.ndarray], np.ndarray]
+    market_price: float | None
+    model_price: float | None
+    tolerance: float
+    material: float | None
+    untestable: str | None = None
+    convention: str = "premium"
 
 
 @runtime_checkable
@@ -112,13 +211,26 @@ def register_part(kind: PartKind) -> PartKind:
     if name in PART_KINDS and PART_KINDS[name] is not kind:
         raise ValueError(f"a part kind named {name!r} is already registered")
     PART_KINDS[name] = kind
-    register_part_section(name, kind.config_model)
+    if getattr(kind, "config_key", None) is None:  # a kind with a legacy top-level table has no [parts.<name>]
+        register_part_section(name, kind.config_model)
     return kind
 
 
 def unregister_part(section: str) -> None:
     PART_KINDS.pop(section, None)
     unregister_part_section(section)
+
+
+def recorded_parts(parameters: Mapping[str, Any],
+                   plugin_entries: Mapping[str, Any]) -> list[tuple[str, PartKind, Any]]:
+    """The registered kinds a run's ``calibration.json`` records, ``(section, kind, entry)``:
+    first those whose entry has a place of its own under ``parameters`` (a kind's ``json_key``, in
+    registration order), then the plug-in entries (``plugin_entries``, by section)."""
+    out: list[tuple[str, PartKind, Any]] = [
+        (name, kind, parameters[key]) for name, kind in PART_KINDS.items()
+        if (key := getattr(kind, "json_key", None)) is not None and parameters.get(key) is not None]
+    out += [(name, PART_KINDS[name], entry) for name, entry in plugin_entries.items() if name in PART_KINDS]
+    return out
 
 
 def part_column_drivers(column: str) -> frozenset[str] | None:
@@ -142,3 +254,82 @@ def describe_part(section: str, recorded: Any) -> str:
     except ValueError as exc:
         return f"part {section!r}: its recorded section does not validate ({exc.__class__.__name__})"
     return kind.describe(validated)
+
+
+# ---------------------------------------------------------------------- optional hooks, defaulted
+
+
+def part_market_files(kind: PartKind, section: Any) -> dict[str, str]:
+    """Its market-data files by name, paths as written in its section (``{}``: none)."""
+    hook = getattr(kind, "market_files", None)
+    return dict(hook(section)) if hook is not None else {}
+
+
+def calibrate_part(kind: PartKind, section: Any, files: dict[str, Path], context: PartContext) -> PartFit:
+    """The kind's own fit, or its part built from its section (no fit record, no instruments)."""
+    hook = getattr(kind, "calibrate", None)
+    if hook is None:
+        return PartFit(part=kind.build(section, context))
+    return hook(section, files, context)
+
+
+def part_fit_key(kind: PartKind) -> str:
+    """Where its fit record lives under ``calibration.json`` ``fit`` (default: its section)."""
+    return str(getattr(kind, "fit_key", kind.section))
+
+
+def part_instruments_key(kind: PartKind) -> str:
+    """Where its instruments live under ``calibration.json`` ``instruments`` (default: its section)."""
+    return str(getattr(kind, "instruments_key", kind.section))
+
+
+def part_instruments(kind: PartKind, records: list[dict[str, Any]],
+                     context: PartInstrumentContext) -> list[PartInstrument]:
+    """Its recorded instruments as the market-consistency check reprices them (``[]``: none)."""
+    hook = getattr(kind, "instruments", None)
+    return list(hook(records, context)) if hook is not None and records else []
+
+
+def part_fit_text(kind: PartKind | None, fit: dict[str, Any], fmt: Any) -> str | None:
+    """The report's fit column for a plug-in (``None``: the kind says nothing of its fit);
+    ``fmt``: the report's number formatting (:mod:`pqflow.report.numbers`, handed down: the
+    kinds sit below the report)."""
+    hook = getattr(kind, "fit_text", None)
+    return None if hook is None or not fit else str(hook(fit, fmt))
+
+
+def part_report_rows(kind: PartKind, entry: dict[str, Any], fit: dict[str, Any], fmt: Any) -> list[dict[str, str]]:
+    """Rows ``{part, values, fit}`` of the report's parameter table for a kind with its own entry
+    (``json_key``); ``[]`` when the kind gives none."""
+    hook = getattr(kind, "report_rows", None)
+    return list(hook(entry, fit, fmt)) if hook is not None else []
+
+
+def part_fit_lines(kind: PartKind, entry: dict[str, Any], fit: dict[str, Any], fmt: Any) -> list[str]:
+    """Lines ``pqflow calibrate`` prints of the part's fit (``[]``: none)."""
+    hook = getattr(kind, "fit_lines", None)
+    return list(hook(entry, fit, fmt)) if hook is not None else []
+
+
+def part_compare_group(kind: PartKind) -> str:
+    """The group of ``pqflow compare`` its quotes are listed in (default ``parts``)."""
+    return str(getattr(kind, "compare_group", "parts"))
+
+
+def part_compare_quotes(kind: PartKind | None, instruments: list[dict[str, Any]],
+                        fit: dict[str, Any], fmt: Any) -> dict[str, tuple[Any, str]]:
+    """Its market inputs for ``pqflow compare``, ``{label: (value, unit)}`` (``{}``: none)."""
+    hook = getattr(kind, "compare_quotes", None)
+    return dict(hook(instruments, fit, fmt)) if hook is not None else {}
+
+
+def part_compare_parameters(kind: PartKind | None, parameters: dict[str, Any]) -> dict[str, tuple[Any, str]]:
+    """Its calibrated parameters for ``pqflow compare``; default: every number of its
+    ``calibration.json`` form, labelled ``<section> <key>`` (unit plain)."""
+    hook = getattr(kind, "compare_parameters", None)
+    if hook is not None:
+        return dict(hook(parameters))
+    if kind is None:
+        return {}
+    return {f"{kind.section} {k.replace('_', ' ')}": (v, "plain") for k, v in parameters.items()
+            if isinstance(v, int | float) and not isinstance(v, bool)}

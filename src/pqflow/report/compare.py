@@ -30,13 +30,24 @@ from typing import Any, TypeGuard
 
 import numpy as np
 
+import pqflow.calibration.part_kinds  # noqa: F401  (the shipped part kinds, registered)
 from pqflow.errors import ConfigError, IntegrityError, PqflowError
+from pqflow.models.parts import (
+    PART_KINDS,
+    part_compare_group,
+    part_compare_parameters,
+    part_compare_quotes,
+    part_fit_key,
+    part_instruments_key,
+    recorded_parts,
+)
 from pqflow.report import numbers as fmt
 from pqflow.storage.calibration_file import (
     CALIBRATION_FILE,
     CalibrationRecord,
     IndexRecord,
     calibration_path,
+    plugin_part_fields,
     read_calibration_file,
 )
 from pqflow.storage.jsonio import read_json
@@ -60,6 +71,7 @@ GROUPS = (
     ("levels", "Index levels and yields"),
     ("inflation", "Inflation quotes"),
     ("credit", "Credit spreads"),
+    ("parts", "Part plug-in quotes"),
     ("settings", "Other inputs and settings"),
     ("files", "Market-data files"),
 )
@@ -243,15 +255,19 @@ def _inputs(cal: CalibrationRecord) -> dict[str, dict[str, tuple[Any, str]]]:
             money = f"strike {fmt.plain(o.get('strike'), 6)}"
         kind = f" {o['kind']}" if o.get("kind") not in (None, "call") else ""
         out["equity_options"][f"{o.get('index')} {fmt.years(t)}y{kind}, {money}"] = (o.get("market_vol"), "vol")
-    for c in inst.get("inflation_caps", []) or []:
-        out["inflation"][f"year-on-year {c.get('kind')} {fmt.years(c.get('maturity'))}y strike "
-                         f"{fmt.percent(c.get('strike'), 2)} (premium)"] = (1e4 * float(c["market_price"]), "bp")
     fit = cal.fit
-    for r in ((fit.get("inflation") or {}).get("rows") or []):
-        out["inflation"][f"zero-coupon inflation swap {fmt.years(r.get('maturity'))}y"] = (r.get("market_rate"), "rate")
+    for _, legacy, _ in recorded_parts(cal.parameters, {}):  # kinds with an entry of their own (inflation)
+        out[part_compare_group(legacy)].update(part_compare_quotes(
+            legacy, list(inst.get(part_instruments_key(legacy)) or []), fit.get(part_fit_key(legacy)) or {}, fmt))
     for rating in cal.credit_fit.ratings:
         for pillar in rating.spreads:
             out["credit"][f"{rating.rating} spread {fmt.years(pillar.maturity)}y"] = (pillar.market_spread, "rate")
+    for name in cal.plugin_parts:  # a part plug-in's quotes, labelled by its kind
+        part_kind = PART_KINDS.get(name)
+        if part_kind is not None:
+            quotes = list(inst.get(part_instruments_key(part_kind)) or [])
+            out[part_compare_group(part_kind)].update(
+                part_compare_quotes(part_kind, quotes, fit.get(part_fit_key(part_kind)) or {}, fmt))
     for item in _indices(cal):  # the core index first, with its dividend yield
         out["levels"][f"{item.name} level"] = (item.level, "level")
         yield_name = "dividend yield" if item.core else "income yield"
@@ -332,11 +348,8 @@ def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
     out.update(_schedule_items("rates price of risk", mpr.get("rates"), "plain"))
     out.update(_schedule_items(f"equity {core.name if core is not None else ''} price of risk",
                                core.market_price_of_risk if core is not None else None, "plain"))
-    if "inflation" in par:
-        inf = par["inflation"]
-        out["inflation real-rate mean reversion a_r"] = (inf.get("real_mean_reversion"), "plain")
-        out["inflation real-rate volatility sigma_r"] = (inf.get("real_volatility"), "rate")
-        out["inflation CPI volatility sigma_I"] = (inf.get("inflation_volatility"), "vol")
+    for _, legacy, entry in recorded_parts(par, {}):  # kinds with an entry of their own (inflation)
+        out.update(part_compare_parameters(legacy, entry))
     credit = cal.credit
     for r in credit.ratings if credit is not None else ():
         c, n = r.cir, r.name
@@ -345,6 +358,8 @@ def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
                     f"credit {n} volatility nu": (c.volatility, "plain"),
                     f"credit {n} initial intensity": (c.initial, "rate"),
                     f"credit {n} price of risk": (r.price_of_risk, "plain")})
+    for name, entry in cal.plugin_parts.items():  # a part plug-in's parameters, through its kind
+        out.update(part_compare_parameters(PART_KINDS.get(name), plugin_part_fields(entry, cal.source, name)[0]))
     dc = cal.driver_correlation
     for a, b, rho in dc.pairs() if dc is not None else ():
         out[f"correlation {a} / {b}"] = (rho, "plain")

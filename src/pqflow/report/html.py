@@ -27,9 +27,17 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+import pqflow.calibration.part_kinds  # noqa: F401  (the shipped part kinds, registered)
 from pqflow import CAUTION, __version__
 from pqflow.errors import IntegrityError, PqflowError
-from pqflow.models.parts import describe_part
+from pqflow.models.parts import (
+    PART_KINDS,
+    describe_part,
+    part_fit_key,
+    part_fit_text,
+    part_report_rows,
+    recorded_parts,
+)
 from pqflow.report import numbers as fmt
 from pqflow.report import smile, svg
 from pqflow.storage.calibration_file import (
@@ -635,19 +643,8 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
         rows.append({"part": f"{item.kind} {item.name}", "values": values,
                      "fit": (f"max vol error {fmt.vol_points(f['max_abs_vol_error'])} pts"
                              if "max_abs_vol_error" in f else "typed in")})
-    if (inf := cal.inflation) is not None:
-        f = cal.part_fit("inflation")
-        caps = f.get("caps") or {}
-        fit_text = []
-        if "max_abs_difference_bp" in f:
-            fit_text.append(f"swaps repriced to {fmt.bp(f['max_abs_difference_bp'], 2)}")
-        if "price_rmse_bp" in caps:
-            fit_text.append(f"caps/floors RMSE {fmt.bp(caps['price_rmse_bp'], 2)} of notional")
-        rows.append({"part": "inflation, Jarrow-Yildirim",
-                     "values": f"a_r {fmt.plain(inf.get('real_mean_reversion'))}, σ_r "
-                               f"{fmt.bp(1e4 * float(inf.get('real_volatility', 'nan')), 1)}, "
-                               f"σ_I {fmt.vol_points(inf.get('inflation_volatility'))} pts",
-                     "fit": "; ".join(fit_text) or "typed in"})
+    for _, legacy, entry in recorded_parts(cal.parameters, {}):  # kinds with an entry of their own (inflation)
+        rows += part_report_rows(legacy, entry, cal.part_fit(part_fit_key(legacy)), fmt)
     cfits = cal.credit_fit.by_rating()
     credit = cal.credit
     for r in credit.ratings if credit is not None else ():
@@ -661,8 +658,10 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
     recorded_sections = cal.inputs.get("parts") or {}
     for name, entry in cal.plugin_parts.items():
         lams = plugin_part_fields(entry, CALIBRATION_FILE, name)[1]
+        kind = PART_KINDS.get(name)
+        fitted = part_fit_text(kind, cal.part_fit(part_fit_key(kind)), fmt) if kind is not None else None
         rows.append({"part": f"{name} (part plug-in)", "values": describe_part(name, recorded_sections.get(name)),
-                     "fit": "built from its section" + (
+                     "fit": (fitted or "built from its section") + (
                          "; prices of risk " + ", ".join(f"{d} {_sched_text(v, lambda x: fmt.plain(x, 3))}"
                                                          for d, v in lams.items()) if lams else "")})
     mpr = cal.market_prices_of_risk

@@ -30,6 +30,7 @@ import numpy as np
 from pqflow.config.loader import parse_config
 from pqflow.config.schema import RunConfig, SensitivitySection
 from pqflow.errors import ConfigError, MarketDataError
+from pqflow.models.parts import PART_KINDS, part_market_files
 from pqflow.storage.csvtable import read_csv_table, write_csv_table
 
 __all__ = ["INPUTS_DIR", "shocked_config", "relative_shift_function"]
@@ -209,6 +210,15 @@ def shocked_config(config: RunConfig, sens: SensitivitySection, set_dir: str | P
         name = f"{kind}.csv"
         write_csv_table(set_dir / INPUTS_DIR / name, header, rows)
         md[kind] = f"{INPUTS_DIR}/{name}"
+    for part_name, section in config.parts.items():  # a part plug-in's own files, copied unshocked
+        for key, rel in part_market_files(PART_KINDS[part_name], section).items():
+            path = config.base_dir / rel
+            if not path.is_file():
+                raise MarketDataError(f"{path}: market-data file not found (parts.{part_name}.{key})")
+            header, rows = read_csv_table(path)
+            name = f"{part_name}.{key}.csv"
+            write_csv_table(set_dir / INPUTS_DIR / name, header, rows)
+            data["parts"][part_name][key] = f"{INPUTS_DIR}/{name}"
     if sens.curve_relative_shift is not None:  # kept beside the shocked files, for the record
         header, rows = read_csv_table(config.base_dir / sens.curve_relative_shift)
         write_csv_table(set_dir / INPUTS_DIR / "curve_relative_shift.csv", header, rows)

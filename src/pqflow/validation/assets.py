@@ -46,11 +46,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from pqflow.calibration.inflation_kind import real_bond_maturity_of
 from pqflow.calibration.parts import credit_from_record
 from pqflow.errors import ConfigError, IntegrityError
-from pqflow.market.serialize import curve_from_json
 from pqflow.models.cir_credit import CreditRating
-from pqflow.models.parts import PART_KINDS
+from pqflow.models.parts import PART_KINDS, recorded_parts
 from pqflow.storage.calibration_file import (
     PLUGIN_PARTS_KEY,
     calibration_path,
@@ -71,7 +71,6 @@ __all__ = [
     "defaultable_bond_of",
 ]
 
-_REAL_BOND = re.compile(r"^real_zcb_(?P<m>[0-9.eE+-]+)y$")
 _DEFAULTABLE_BOND = re.compile(r"^dzcb_(?P<r>.+)_(?P<m>[0-9.eE+-]+)y$")
 _CUMULATIVE = re.compile(r"^cumulative_intensity_(?P<r>.+)$")
 
@@ -94,12 +93,6 @@ class MartingaleAsset:
     reference: Callable[[np.ndarray], np.ndarray]
 
 
-def real_bond_maturity_of(column: str) -> float | None:
-    """``real_zcb_10y`` -> 10.0; ``None`` for any other column."""
-    match = _REAL_BOND.match(column)
-    return float(match.group("m")) if match else None
-
-
 def defaultable_bond_of(column: str) -> tuple[str, float] | None:
     """``dzcb_BBB_5y`` -> ``("BBB", 5.0)``; ``None`` for any other column."""
     match = _DEFAULTABLE_BOND.match(column)
@@ -107,49 +100,39 @@ def defaultable_bond_of(column: str) -> tuple[str, float] | None:
 
 
 def inflation_assets(inputs: RunInputs, columns: Sequence[str]) -> list[MartingaleAsset]:
-    """The CPI and each real zero bond in ``columns`` (none without a ``cpi`` column)."""
-    real_bonds = sorted((m, c) for c in columns if (m := real_bond_maturity_of(c)) is not None)
-    if CPI_COLUMN not in columns:
+    """The CPI and each real zero bond in ``columns`` (none without a ``cpi`` column), from the
+    inflation kind (:meth:`pqflow.calibration.inflation_kind.InflationKind.martingale_assets`)
+    through the generic path of the kinds with an entry of their own."""
+    record = calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
+    if CPI_COLUMN in columns and record.inflation is None:
+        raise IntegrityError(
+            f"{inputs.run_dir}: the files carry {CPI_COLUMN!r} but calibration.json has no usable "
+            "parameters.inflation (real_curve, cpi_base)"
+        )
+    if record.inflation is None:
+        real_bonds = sorted((m, c) for c in columns if (m := real_bond_maturity_of(c)) is not None)
         if real_bonds:
             raise IntegrityError(
                 f"the files carry real bonds ({', '.join(c for _, c in real_bonds)}) but no {CPI_COLUMN!r} "
                 "column: their currency prices cannot be formed"
             )
         return []
-    par = calibration_record(inputs.calibration, calibration_path(inputs.run_dir)).inflation or {}
-    try:
-        real_curve = curve_from_json(par["real_curve"])
-        cpi_base = float(par["cpi_base"])
-    except (KeyError, TypeError, ValueError) as exc:
-        raise IntegrityError(
-            f"{inputs.run_dir}: the files carry {CPI_COLUMN!r} but calibration.json has no usable "
-            f"parameters.inflation (real_curve, cpi_base): {exc!r}"
-        ) from None
+    return _own_entry_assets(inputs, columns)  # the kind refuses real bonds without the CPI column too
 
-    def cpi_value(cols: dict[str, np.ndarray]) -> np.ndarray:
-        return cols[CPI_COLUMN]
 
-    out = [MartingaleAsset(
-        name=CPI_COLUMN,
-        description="consumer price index: E[D_t I_t] = I_0 P_r(0, t)",
-        columns=(CPI_COLUMN,),
-        value=cpi_value,
-        reference=lambda t: cpi_base * np.asarray(real_curve.discount(t)),
-    )]
-    for m, col in real_bonds:
-        def value(cols: dict[str, np.ndarray], col: str = col) -> np.ndarray:
-            return cols[CPI_COLUMN] * cols[col]
-
-        def reference(t: np.ndarray, m: float = m) -> np.ndarray:
-            return cpi_base * np.asarray(real_curve.discount(np.asarray(t) + m))
-
-        out.append(MartingaleAsset(
-            name=col,
-            description=f"real zero bond in currency (cpi x {col}), {m:g} years to run",
-            columns=(CPI_COLUMN, col),
-            value=value,
-            reference=reference,
-        ))
+def _own_entry_assets(inputs: RunInputs, columns: Sequence[str]) -> list[MartingaleAsset]:
+    """The assets of the registered kinds whose entry has a place of its own in
+    ``calibration.json`` (:func:`pqflow.models.parts.recorded_parts`; today inflation)."""
+    record = calibration_record(inputs.calibration, calibration_path(inputs.run_dir))
+    out = []
+    for name, kind, entry in recorded_parts(record.parameters, {}):
+        try:
+            part = kind.from_json(entry)
+        except (KeyError, TypeError, ValueError) as exc:
+            raise IntegrityError(f"{inputs.run_dir}: calibration.json has no usable parameters.{name}: {exc!r}") \
+                from None
+        out += [MartingaleAsset(name=a.name, description=a.description, columns=a.columns, value=a.value,
+                                reference=a.reference) for a in kind.martingale_assets(part, inputs.curve, columns)]
     return out
 
 

@@ -74,7 +74,7 @@ inconclusive with the count shown (``paying_units``; its raw score stays in
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -82,7 +82,9 @@ import numpy as np
 import pandas as pd
 
 from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_price
+from pqflow.calibration.inflation_kind import MATERIAL_PREMIUM, YOY_TOLERANCE
 from pqflow.errors import MarketDataError
+from pqflow.models.parts import PartInstrumentContext, part_instruments, part_instruments_key, recorded_parts
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
 from pqflow.storage.names import bond_column, density_block_column, density_column, index_columns
 from pqflow.storage.scenario_set import SetPass
@@ -109,12 +111,12 @@ CHECK = "market_consistency"
 KIND = "calibration instruments repriced from the files against their market quotes"
 DEFAULT_VOL_TOLERANCE = {"normal": 5e-4, "lognormal": 5e-3, "shifted_lognormal": 5e-3}
 #: Stated tolerance of quotes given as premiums (year-on-year inflation caps and floors): the
-#: larger of 5 bp of notional and 3% of the premium.
-PREMIUM_TOLERANCE = {"absolute": 5e-4, "relative": 0.03}
+#: larger of 5 bp of notional and 3% of the premium (the inflation kind states it).
+PREMIUM_TOLERANCE = YOY_TOLERANCE
 #: Material deviation of a volatility quote (decimal volatility): twice the stated tolerance.
 MATERIAL_VOL = {"normal": 1e-3, "lognormal": 1e-2, "shifted_lognormal": 1e-2}
-#: Material deviation of a premium quote: the larger of 10 bp of notional and 10% of the premium.
-MATERIAL_PREMIUM = {"absolute": 1e-3, "relative": 0.10}
+#: Material deviation of a premium quote: the larger of 10 bp of notional and 10% of the premium
+#: (``MATERIAL_PREMIUM``, stated by the inflation kind, whose caps and floors are such quotes).
 #: Fewer sampling units with a non-zero payoff than this: the cell is not judged (inconclusive).
 MIN_PAYING_UNITS = 20
 MATERIAL_TEXT = ("10 bp normal vol (normal quotes); 1 vol point (lognormal and shifted-lognormal quotes); "
@@ -156,6 +158,12 @@ class InstrumentSpec:
     untestable: str | None
     note: str | None = None
     income_yield: float | None = None
+    #: a part plug-in's instrument (:class:`pqflow.models.parts.PartInstrument`): its deflated
+    #: payoff ``(times, columns, deflator) -> (n_paths,)``, its tolerance and material deviation
+    #: in price (``None`` for the built-in instruments)
+    part_value: Callable[[np.ndarray, dict[str, np.ndarray], np.ndarray], np.ndarray] | None = None
+    part_tolerance: float | None = None
+    part_material: float | None = None
 
 
 def _num(x: Any) -> float | None:
@@ -257,23 +265,38 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
             stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
             column_names=(col,), untestable=reason, income_yield=q,
         ))
-    for raw in cal.instrument_list("inflation_caps"):
-        n, strike, option = int(round(float(raw["maturity"]))), float(raw["strike"]), str(raw["kind"])
-        label = f"year-on-year inflation {option} {n}y K={strike:.2%}"
-        reason = None
-        if "cpi" not in columns:
-            reason = "not testable from the files (missing cpi)"
-        else:
-            off_grid = [i for i in range(n + 1) if time_index(times, float(i)) is None]
-            if off_grid:
-                reason = f"not testable from the files (years {off_grid[:3]} are not output times)"
-        out.append(InstrumentSpec(
-            label=label, kind="yoy_option", option=option, expiry=float(n), strike=strike,
-            convention="premium", shift=0.0, tenor=None, index=None, forward=None, annuity=None,
-            market_vol=None, market_price=_num(raw.get("market_price")),
-            stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
-            column_names=("cpi",), untestable=reason,
-        ))
+    out += _part_instrument_specs(cal, curve, columns, times)
+    return out
+
+
+def _part_instrument_lists(cal: CalibrationRecord) -> list[list[dict[str, Any]]]:
+    """The recorded instruments of each registered part kind of the run (inflation's caps and
+    floors, a plug-in's own)."""
+    return [cal.instrument_list(part_instruments_key(kind)) for _, kind, _ in recorded_parts(cal.parameters,
+                                                                                         cal.plugin_parts)]
+
+
+def _part_instrument_specs(cal: CalibrationRecord, curve: Any, columns: list[str],
+                           times: np.ndarray) -> list[InstrumentSpec]:
+    """A part kind's instruments through its kind (:func:`pqflow.models.parts.part_instruments`):
+    inflation's year-on-year caps and floors, a plug-in's own."""
+    out: list[InstrumentSpec] = []
+    context = PartInstrumentContext(curve=curve, columns=tuple(columns), times=times, time_index=time_index)
+    for _, kind, _ in recorded_parts(cal.parameters, cal.plugin_parts):
+        for inst in part_instruments(kind, cal.instrument_list(part_instruments_key(kind)), context):
+            reason = inst.untestable
+            missing = [c for c in inst.columns if c not in columns]
+            if reason is None and missing:
+                reason = f"not testable from the files (missing {', '.join(missing)})"
+            if reason is None and time_index(times, inst.expiry) is None:
+                reason = f"not testable from the files (expiry {inst.expiry:g} is not an output time)"
+            out.append(InstrumentSpec(
+                label=inst.label, kind=inst.kind, option=inst.option, expiry=inst.expiry, strike=inst.strike,
+                convention=inst.convention, shift=0.0, tenor=None, index=None, forward=None, annuity=None,
+                market_vol=None, market_price=inst.market_price, stated_market_price=inst.market_price,
+                model_price=inst.model_price, column_names=inst.columns, untestable=reason,
+                part_value=inst.value, part_tolerance=inst.tolerance, part_material=inst.material,
+            ))
     return out
 
 
@@ -301,17 +324,8 @@ def _payoffs(specs: list[InstrumentSpec], times: np.ndarray, cols: dict[str, np.
         k = time_index(times, s.expiry)
         if k is None:
             raise RuntimeError(f"instrument expiry {s.expiry:g} is not an output time (a testable instrument must be)")
-        if s.kind == "yoy_option":  # annual caplets tau (I_i / I_{i-1} - 1 - K)^+ paid at i, tau = 1
-            cpi = cols["cpi"]
-            w = 1.0 if s.option == "cap" else -1.0
-            ks = [time_index(times, float(i)) for i in range(int(round(s.expiry)) + 1)]
-            total = np.zeros(deflator.shape[0])
-            for k0, k1 in zip(ks[:-1], ks[1:], strict=True):
-                if k0 is None or k1 is None:
-                    raise RuntimeError(f"a caplet date of the {s.expiry:g}-year cap is not an output time "
-                                       "(a testable cap has all of them)")
-                total += deflator[:, k1] * np.maximum(w * (cpi[:, k1] / cpi[:, k0] - 1.0 - s.strike), 0.0)
-            out[:, j] = total
+        if s.part_value is not None:  # a part kind's instrument (a year-on-year cap, a plug-in's): its payoff
+            out[:, j] = s.part_value(times, cols, deflator)
             continue
         if s.kind == "swaption":
             bonds = np.stack([cols[c][:, k] for c in s.column_names], axis=1)
@@ -351,7 +365,9 @@ def _implied(s: InstrumentSpec, price: float) -> float | None:
 
 def _material_price(s: InstrumentSpec, vega: float | None, tol: dict[str, float]) -> float | None:
     """The material deviation in price (module docstring), ``None`` without a price to scale."""
-    if vega is not None and s.kind != "yoy_option":
+    if s.part_value is not None:  # a part plug-in's instrument states its own
+        return s.part_material
+    if vega is not None:
         vol = max(MATERIAL_VOL.get(s.convention, MATERIAL_VOL["lognormal"]), 2.0 * tol.get(s.convention, 0.0))
         if s.market_vol is None or s.forward is None or s.annuity is None:
             raise RuntimeError("an instrument with a vega has a market volatility, a forward and an annuity")
@@ -365,8 +381,7 @@ def _material_price(s: InstrumentSpec, vega: float | None, tol: dict[str, float]
     price = s.market_price if s.market_price is not None else s.model_price
     if price is None:
         return None
-    return max(MATERIAL_PREMIUM["absolute"] if s.kind == "yoy_option" else 0.0,
-               MATERIAL_PREMIUM["relative"] * abs(price))
+    return MATERIAL_PREMIUM["relative"] * abs(price)
 
 
 def quote_cells(
@@ -499,8 +514,8 @@ def market_consistency_table_steps(
             vega = _vega(s)
             tol_vol = tol.get(s.convention, 0.0)
             tol_price = abs(vega) * tol_vol if vega is not None else 0.0
-            if s.kind == "yoy_option" and s.market_price is not None:
-                tol_price = max(PREMIUM_TOLERANCE["absolute"], PREMIUM_TOLERANCE["relative"] * s.market_price)
+            if s.part_tolerance is not None:  # a part kind's instrument states its tolerance
+                tol_price = s.part_tolerance
             mc_vol = _implied(s, mc)
             material = _material_price(s, vega, tol)
             row: dict[str, Any] = {
@@ -549,7 +564,7 @@ def market_consistency_steps(
     (:func:`pqflow.validation.run_files.run_steps`)."""
     cal = _record(inputs)
     if not (cal.instrument_list("swaptions") or cal.instrument_list("equity_options")
-            or cal.instrument_list("inflation_caps")):
+            or any(_part_instrument_lists(cal))):
         return CheckResult(name=CHECK, summary=not_applicable_entry(
             kind=KIND, reason="not applicable: no instruments in calibration.json"))
     table, specs = yield from market_consistency_table_steps(inputs, passes, vol_tolerance=vol_tolerance,
@@ -594,6 +609,9 @@ def market_consistency_steps(
     entry = cells_entry(cell_table, ["instrument", "measure", "reference", "z_score"], kind=KIND, rule=rule)
     weak = inconclusive_mask(cell_table, crit) if len(cell_table) else pd.Series(dtype=bool)
     entry["material_deviation"] = MATERIAL_TEXT
+    if any(cal.instrument_list(part_instruments_key(kind)) for _, kind, _ in recorded_parts({}, cal.plugin_parts)):
+        entry["material_deviation"] += ("; part plug-in instruments: the tolerance and material deviation their "
+                                        "kind records")
     entry["power_rule"] = (
         "a cell is inconclusive when its payoff is non-zero on fewer than "
         f"{MIN_PAYING_UNITS} sampling units (no normal approximation), or when its test would detect the "
