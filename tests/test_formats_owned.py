@@ -10,7 +10,12 @@ The check reads the source of every module of ``src/pqflow`` outside ``storage/`
   ``f"q_density_{block}"`` ...): the naming functions of ``pqflow.storage.names`` do that;
 * a subscript or ``.get`` of a top-level key only ``calibration.json`` has (``parameters``,
   ``instruments``, ``expected_short_rate``, ``inputs_sha256``, ``format_version``): readers use
-  ``pqflow.storage.calibration_file.CalibrationRecord``.
+  ``pqflow.storage.calibration_file.CalibrationRecord``;
+* a subscript or ``.get`` of a key only the run's other JSON files have (``validation/summary.json``:
+  ``counts_toward_verdict``, ``inconclusive_from_time`` ...; ``manifest.json``: ``root_seed``,
+  ``config_sha256`` ...): readers use the records of ``pqflow.storage.validation_summary``,
+  ``pqflow.storage.manifest`` and ``pqflow.storage.valuation_summary``. Writing such a key
+  (a subscript on the left of ``=``) is the builder's and is not flagged.
 
 Common practice (a single owner per format, enforced by a source scan) rather than a published
 source. Each check below is shown to fire on a planted line, so the scan cannot pass vacuously.
@@ -37,6 +42,16 @@ COLUMN_PREFIXES = (
     "spread_", "q_density_", "p_density_",
 )
 CALIBRATION_KEYS = frozenset({"parameters", "instruments", "expected_short_rate", "inputs_sha256", "format_version"})
+#: keys only the run's JSON files besides calibration.json use (validation/summary.json, manifest.json);
+#: generic keys such as "verdict", "cells" or "name" are left out: other dicts use them too
+RUN_FILE_KEYS = frozenset({
+    # validation/summary.json, a check's entry
+    "counts_toward_verdict", "inconclusive_from_time", "inconclusive_cells", "family_critical_z",
+    "ess_warning_share", "power_rule", "expected_outside_95_by_chance", "expected_outside_99_by_chance",
+    "ess_below_warning_from_time", "density_budget", "wealth_ratio_benchmark",
+    # manifest.json, its header
+    "root_seed", "config_sha256", "created_utc", "output_times", "revalidated_utc", "run_name", "pqflow_version",
+})
 
 #: Files outside storage/ allowed to keep a spelled format, each with its reason.
 ALLOWED: dict[str, str] = {
@@ -101,9 +116,14 @@ def violations(source: str, rel: str) -> list[str]:
             key = node.slice
             if isinstance(key, ast.Constant) and key.value in CALIBRATION_KEYS:
                 found.append(f"{rel}:{node.lineno}: calibration.json key [{key.value!r}]")
+            elif isinstance(key, ast.Constant) and key.value in RUN_FILE_KEYS:
+                found.append(f"{rel}:{node.lineno}: run file key [{key.value!r}]")
         elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.func.attr == "get"
               and node.args and isinstance(node.args[0], ast.Constant) and node.args[0].value in CALIBRATION_KEYS):
             found.append(f"{rel}:{node.lineno}: calibration.json key .get({node.args[0].value!r})")
+        elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.func.attr == "get"
+              and node.args and isinstance(node.args[0], ast.Constant) and node.args[0].value in RUN_FILE_KEYS):
+            found.append(f"{rel}:{node.lineno}: run file key .get({node.args[0].value!r})")
     return found
 
 
@@ -138,10 +158,20 @@ def test_every_allowed_entry_still_exists():
     ('col = f"p_density_{block}"', 'f"p_density_{...}"'),
     ('curve = cal["parameters"]["curve"]', "key ['parameters']"),
     ('quotes = cal.get("instruments") or {}', "key .get('instruments')"),
+    ('counts = c.get("counts_toward_verdict", True)', "run file key .get('counts_toward_verdict')"),
+    ('share = summary["checks"]["density_real_world"]["ess_warning_share"]', "run file key ['ess_warning_share']"),
+    ('seed = (manifest.get("seeds") or {}).get("root_seed")', "run file key .get('root_seed')"),
+    ('want = manifest["config_sha256"]', "run file key ['config_sha256']"),
 ])
 def test_the_scan_fires_on_a_planted_line(line, what):
     found = violations(f"def f(cal, run, m, name, block):\n    {line}\n", "planted.py")
     assert len(found) == 1 and what in found[0], found
+
+
+def test_the_scan_leaves_the_builders_writes_alone():
+    # the builder writes a summary entry by key; only reads outside storage/ are the readers' business
+    source = 'def f(entry, share):\n    entry["ess_warning_share"] = share\n    entry["power_rule"] = "text"\n'
+    assert violations(source, "builder.py") == []
 
 
 def test_the_scan_leaves_prose_and_other_strings_alone():

@@ -23,7 +23,7 @@ from pqflow import CAUTION, __version__
 from pqflow.calibration.assemble import Calibration, build_model
 from pqflow.config.loader import config_hash
 from pqflow.config.schema import RunConfig
-from pqflow.errors import ConfigError
+from pqflow.errors import ConfigError, IntegrityError
 from pqflow.measure.blocks import DensityBlock, check_blocks, default_blocks, economy_structure
 from pqflow.models.economy import EconomyModel
 from pqflow.simulation.engine import time_grid
@@ -32,8 +32,8 @@ from pqflow.simulation.scenarios import simulate_part
 from pqflow.simulation.streams import MEASURE_STREAM
 from pqflow.storage import names
 from pqflow.storage.calibration_file import calibration_path, write_calibration_file
-from pqflow.storage.jsonio import read_json, write_json_atomic
-from pqflow.storage.manifest import MANIFEST, build_manifest
+from pqflow.storage.jsonio import write_json_atomic
+from pqflow.storage.manifest import MANIFEST, build_manifest, manifest_record
 from pqflow.storage.names import (
     DENSITY_UNIT,
     MEASURES,
@@ -43,6 +43,7 @@ from pqflow.storage.names import (
     variance_column,
 )
 from pqflow.storage.parquet import batch_table, part_name, units_metadata, write_part_hashed
+from pqflow.storage.validation_summary import VALIDATION_SUMMARY, read_validation_summary
 
 __all__ = [
     "RunPlan",
@@ -326,15 +327,17 @@ def revalidate_run(run_dir: str | Path, *, ess_warning_share: float | None = Non
     manifest = verify_run(run_dir)
     if ess_warning_share is None:
         ess_warning_share = 0.10
-        earlier = run_dir / "validation" / "summary.json"
+        earlier = run_dir / VALIDATION_SUMMARY
         if earlier.is_file():
             try:
-                recorded = read_json(earlier)["checks"]["density_real_world"]["ess_warning_share"]
-                ess_warning_share = float(recorded)
-            except (KeyError, TypeError, ValueError):
+                density = read_validation_summary(earlier).check("density_real_world")
+                recorded = density.ess_warning_share if density is not None else None
+                if recorded is not None:
+                    ess_warning_share = float(recorded)
+            except (IntegrityError, TypeError, ValueError):
                 pass
     summary = write_validation(run_dir, ess_warning_share=ess_warning_share)
-    header = {k: v for k, v in manifest.items() if k != "files"}
+    header = manifest_record(manifest).header()
     header["revalidated_utc"] = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
     write_json_atomic(run_dir / MANIFEST, build_manifest(run_dir, header=header))
     return summary
@@ -383,10 +386,10 @@ def write_run_manifest(
     # staging folder is the run's own, under its lock); every other file is hashed
     written = {rec.path: (rec.sha256, int(rec.bytes)) for rec in parts if rec.bytes is not None}
     manifest = build_manifest(run_dir, header=header, known=written)
-    by_path = {f["path"]: f for f in manifest["files"]}
+    by_path = manifest_record(manifest).file_entries()
     for rec in parts:
         entry = by_path.get(rec.path)
-        if entry is None or entry["sha256"] != rec.sha256 or entry["rows"] != rec.rows:
+        if entry is None or entry.sha256 != rec.sha256 or entry.rows != rec.rows:
             raise RuntimeError(f"{rec.path}: changed between writing and the manifest")
     write_json_atomic(run_dir / MANIFEST, manifest)
     return manifest

@@ -43,7 +43,7 @@ from pqflow.liabilities.scenarios import (
 from pqflow.market.curve import DiscountCurve
 from pqflow.measure.blocks import column_drivers, smallest_block
 from pqflow.storage.calibration_file import calibration_path, read_calibration_file
-from pqflow.storage.jsonio import read_json
+from pqflow.storage.manifest import MANIFEST, read_manifest
 from pqflow.storage.names import (
     META_VALUATION_DATE,
     bond_maturity_of,
@@ -111,8 +111,7 @@ def inspect_run(run_dir: str | Path) -> RunInfo:
         if missing:
             raise LiabilityDataError(f"{run_dir}: the {m} set lacks columns {sorted(missing)}")
     equity = read_calibration_file(calibration_path(run_dir)).equity
-    manifest = run_dir / "manifest.json"
-    run_id = read_json(manifest).get("run_id") if manifest.exists() else None
+    run_id = read_manifest(run_dir).run_id if (run_dir / MANIFEST).exists() else None
     t = times["market_consistent"]
     return RunInfo(
         run_dir=str(run_dir),

@@ -27,7 +27,9 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
+from pqflow.storage import validation_summary as vs
 from pqflow.storage.scenario_set import ScenarioSet, SetPass
+from pqflow.storage.validation_summary import check_counts_toward_verdict
 from pqflow.validation.assets import MartingaleAsset
 from pqflow.validation.density import density_steps, usable_horizons
 from pqflow.validation.martingale import martingale_steps
@@ -160,24 +162,25 @@ def summarise(
         ]
         checks[f"density_{measure}"] = entry
     summary = {
-        "verdict": combine_verdicts([c["verdict"] for c in checks.values()]),
-        "rule": VERDICT_RULE,
-        "checks": checks,
-        "densities": densities,
+        vs.VERDICT: combine_verdicts([c[vs.VERDICT] for c in checks.values()]),
+        vs.RULE: VERDICT_RULE,
+        vs.CHECKS: checks,
+        vs.DENSITIES: densities,
     }
-    summary["inconclusive"] = inconclusive_totals(checks)
+    summary[vs.INCONCLUSIVE] = inconclusive_totals(checks)
     return summary
 
 
 def inconclusive_totals(checks: dict[str, dict[str, Any]]) -> dict[str, Any]:
     """``{"cells", "from_time", "checks"}`` over the checks that count toward the verdict."""
     names = [n for n, c in checks.items()
-             if c.get("counts_toward_verdict", True) and int(c.get("inconclusive_cells", 0) or 0) > 0]
-    times = [checks[n]["inconclusive_from_time"] for n in names if checks[n].get("inconclusive_from_time") is not None]
+             if check_counts_toward_verdict(c) and int(c.get(vs.INCONCLUSIVE_CELLS, 0) or 0) > 0]
+    times = [checks[n][vs.INCONCLUSIVE_FROM_TIME] for n in names
+             if checks[n].get(vs.INCONCLUSIVE_FROM_TIME) is not None]
     return {
-        "cells": int(sum(int(checks[n]["inconclusive_cells"]) for n in names)),
-        "from_time": float(min(times)) if times else None,
-        "checks": names,
+        vs.CELLS: int(sum(int(checks[n][vs.INCONCLUSIVE_CELLS]) for n in names)),
+        vs.FROM_TIME: float(min(times)) if times else None,
+        vs.CHECKS: names,
     }
 
 
