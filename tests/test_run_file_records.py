@@ -20,7 +20,11 @@ import pytest
 from pqflow.errors import IntegrityError
 from pqflow.storage.jsonio import read_json, write_json_atomic
 from pqflow.storage.manifest import ManifestRecord, read_manifest
-from pqflow.storage.sensitivity_index import read_sensitivity_index, sensitivity_index_document
+from pqflow.storage.sensitivity_index import (
+    read_sensitivity_index,
+    sensitivity_index_document,
+    sensitivity_index_entry,
+)
 from pqflow.storage.validation_summary import (
     ValidationSummary,
     read_validation_summary,
@@ -213,6 +217,11 @@ def test_the_sensitivity_index_reads_what_its_document_wrote(tmp_path):
     assert read_sensitivity_index(tmp_path) is None  # a run without sensitivities
     entries = [{"name": "up", "description": "d", "path": "sensitivities/up", "measures": ["market_consistent"],
                 "keep_volatility_parameters": True, "shocks": {"curve_shift_bp": 100.0}, "verdict": "pass"}]
+    assert sensitivity_index_entry(name="up", description="d", measures=("market_consistent",),
+                                   keep_volatility_parameters=True, shocks={"curve_shift_bp": 100.0},
+                                   verdict="pass") == entries[0]
+    assert list(sensitivity_index_entry(name="up", description="d", measures=(), keep_volatility_parameters=True,
+                                        shocks={}, verdict="pass")) == list(entries[0])  # key order as written
     document = sensitivity_index_document(entries)
     assert list(document) == ["note", "sensitivities"] and document["sensitivities"] == entries
     _write(tmp_path / "sensitivities" / "index.json", document)

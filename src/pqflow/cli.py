@@ -181,7 +181,7 @@ def _density_table(densities: list[Mapping[str, Any]]) -> Table:
     return table
 
 
-def _print_validation(result: dict[str, Any]) -> None:
+def _print_validation(result: dict[str, Any]) -> ValidationSummary:
     """The verdict table, the rule, each density's usable horizon, the density budget at the
     horizon, the warnings and the inconclusive cells (values escaped: rich would take text in
     brackets for markup). ``result``: the summary as the run or ``validate`` wrote it."""
@@ -209,6 +209,7 @@ def _print_validation(result: dict[str, Any]) -> None:
             "density would make them conclusive)",
             highlight=False,
         )
+    return summary
 
 
 def _verdict_line(verdict: str) -> str:
@@ -348,15 +349,14 @@ def run(
             release_lock(lock)
     if resume:
         console.print(_resume_line(result), highlight=False, markup=False)
-    summary = result["summary"]
-    _print_validation(summary)
-    for name, sens in summary.get("sensitivities", {}).items():
+    summary = _print_validation(result["summary"])
+    for name, sens in (summary.sensitivities or {}).items():
         console.print(
             f"sensitivity {escape(name)}: {_verdict_cell(sens['verdict'], True)} ({escape(str(sens['summary']))})",
             highlight=False,
         )
     console.print(
-        f"overall verdict: {_verdict_line(summary['verdict'])}; run written to "
+        f"overall verdict: {_verdict_line(summary.verdict)}; run written to "
         f"{escape(str(result['out_dir']))} in {time.perf_counter() - started:.1f} s",
         highlight=False,
     )
@@ -367,7 +367,7 @@ def run(
         style="dim", highlight=False, markup=False, soft_wrap=True,
     )
     _caution()
-    if summary["verdict"] == "fail":
+    if summary.verdict == "fail":
         raise typer.Exit(code=1)
 
 
@@ -414,15 +414,15 @@ def validate(
         summary = revalidate_run(run_dir, ess_warning_share=ess_warning_share)
     except PqflowError as exc:
         _fail(exc)
-    _print_validation(summary)
+    record = _print_validation(summary)
     if (run_dir / "validation" / "report.html").is_file():
         from pqflow.report import write_report
 
         console.print(f"report updated: {escape(str(write_report(run_dir)))}", style="dim", highlight=False)
-    console.print(f"overall verdict: {_verdict_line(summary['verdict'])}; validation/ rewritten in "
+    console.print(f"overall verdict: {_verdict_line(record.verdict)}; validation/ rewritten in "
                   f"{escape(str(run_dir))}", highlight=False)
     _caution()
-    if summary["verdict"] == "fail":
+    if record.verdict == "fail":
         raise typer.Exit(code=1)
 
 

@@ -25,7 +25,12 @@ from pqflow.sensitivities.shocks import shocked_config
 from pqflow.simulation.engine import MEASURES
 from pqflow.simulation.plan import Batch
 from pqflow.storage.jsonio import write_json_atomic
-from pqflow.storage.sensitivity_index import SENSITIVITY_DIR, sensitivity_index_document, sensitivity_index_path
+from pqflow.storage.sensitivity_index import (
+    SENSITIVITY_DIR,
+    sensitivity_index_document,
+    sensitivity_index_entry,
+    sensitivity_index_path,
+)
 from pqflow.storage.validation_summary import VALIDATION_SUMMARY, record_sensitivity_verdicts
 
 __all__ = [
@@ -127,16 +132,15 @@ def record_sensitivities(run_dir: str | Path, config: RunConfig, summaries: dict
     the run's) and write ``sensitivities/index.json``; return the updated run summary."""
     run_dir = Path(run_dir)
     index = sensitivity_index_document([
-        {
-            "name": s.name,
-            "description": s.description,
-            "path": f"{SENSITIVITY_DIR}/{s.name}",
-            "measures": list(sensitivity_measures(s)),
-            "keep_volatility_parameters": s.keep_volatility_parameters,
-            "shocks": {k: v for k, v in s.model_dump(mode="json", exclude_none=True).items()
-                       if k not in ("name", "description", "keep_volatility_parameters", "real_world")},
-            "verdict": summaries[s.name]["verdict"],
-        }
+        sensitivity_index_entry(
+            name=s.name,
+            description=s.description,
+            measures=sensitivity_measures(s),
+            keep_volatility_parameters=s.keep_volatility_parameters,
+            shocks={k: v for k, v in s.model_dump(mode="json", exclude_none=True).items()
+                    if k not in ("name", "description", "keep_volatility_parameters", "real_world")},
+            verdict=summaries[s.name]["verdict"],
+        )
         for s in config.sensitivities
     ])
     write_json_atomic(sensitivity_index_path(run_dir), index)

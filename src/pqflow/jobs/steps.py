@@ -30,6 +30,7 @@ from pqflow.simulation.engine import time_grid
 from pqflow.simulation.plan import Batch, plan_batches
 from pqflow.simulation.scenarios import simulate_part
 from pqflow.simulation.streams import MEASURE_STREAM
+from pqflow.storage import manifest as mf
 from pqflow.storage import names
 from pqflow.storage.calibration_file import calibration_path, write_calibration_file
 from pqflow.storage.jsonio import write_json_atomic
@@ -338,7 +339,7 @@ def revalidate_run(run_dir: str | Path, *, ess_warning_share: float | None = Non
                 pass
     summary = write_validation(run_dir, ess_warning_share=ess_warning_share)
     header = manifest_record(manifest).header()
-    header["revalidated_utc"] = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+    header[mf.REVALIDATED_UTC] = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
     write_json_atomic(run_dir / MANIFEST, build_manifest(run_dir, header=header))
     return summary
 
@@ -358,30 +359,30 @@ def write_run_manifest(
     ``extra_header``: further header entries (the sensitivity sets)."""
     run_dir = Path(run_dir)
     header = {
-        "run_id": run_id,
-        "run_name": config.run.name,
-        "created_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
-        "pqflow_version": __version__,
-        "python": platform.python_version(),
-        "numpy": np.__version__,
-        "pyarrow": pa.__version__,
-        "valuation_date": config.run.valuation_date.isoformat(),
-        "config_sha256": config_hash(config),
-        "seeds": {
-            "root_seed": plan.seed,
-            "scheme": "numpy SeedSequence(root_seed, spawn_key=(measure_stream, batch)), PCG64",
-            "measure_streams": MEASURE_STREAM,
-            "batches": {m: len(p.batches) for m, p in plan.sets.items()},
+        mf.RUN_ID: run_id,
+        mf.RUN_NAME: config.run.name,
+        mf.CREATED_UTC: dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
+        mf.PQFLOW_VERSION: __version__,
+        mf.PYTHON: platform.python_version(),
+        mf.NUMPY: np.__version__,
+        mf.PYARROW: pa.__version__,
+        mf.VALUATION_DATE: config.run.valuation_date.isoformat(),
+        mf.CONFIG_SHA256: config_hash(config),
+        mf.SEEDS: {
+            mf.ROOT_SEED: plan.seed,
+            mf.SEED_SCHEME: "numpy SeedSequence(root_seed, spawn_key=(measure_stream, batch)), PCG64",
+            mf.MEASURE_STREAMS: MEASURE_STREAM,
+            mf.BATCHES: {m: len(p.batches) for m, p in plan.sets.items()},
         },
-        "scenarios": {m: int(sum(b.size for b in p.batches)) for m, p in plan.sets.items()},
-        "output_times": {m: int(p.times.size) for m, p in plan.sets.items()},
-        "horizon_years": {m: float(p.times[-1]) for m, p in plan.sets.items()},
-        "antithetic": plan.antithetic,
-        "caution": CAUTION,
+        mf.SCENARIOS: {m: int(sum(b.size for b in p.batches)) for m, p in plan.sets.items()},
+        mf.OUTPUT_TIMES: {m: int(p.times.size) for m, p in plan.sets.items()},
+        mf.HORIZON_YEARS: {m: float(p.times[-1]) for m, p in plan.sets.items()},
+        mf.ANTITHETIC: plan.antithetic,
+        mf.CAUTION: CAUTION,
         **(extra_header or {}),
     }
     if config.signoff is not None:  # names for the report's sign-off page
-        header["signoff"] = config.signoff.model_dump(mode="json")
+        header[mf.SIGNOFF] = config.signoff.model_dump(mode="json")
     # a part's digest as its writer took it, trusted while the file keeps the size written (the
     # staging folder is the run's own, under its lock); every other file is hashed
     written = {rec.path: (rec.sha256, int(rec.bytes)) for rec in parts if rec.bytes is not None}

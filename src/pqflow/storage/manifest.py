@@ -180,6 +180,13 @@ HORIZON_YEARS = "horizon_years"
 ANTITHETIC = "antithetic"
 SIGNOFF = "signoff"
 FILES = "files"
+PYTHON = "python"
+NUMPY = "numpy"
+PYARROW = "pyarrow"
+MEASURE_STREAMS = "measure_streams"
+BATCHES = "batches"
+CAUTION = "caution"
+REVALIDATED_UTC = "revalidated_utc"
 
 
 @dataclass(frozen=True)
@@ -250,7 +257,7 @@ class ManifestRecord:
         g = data.get
         return cls(
             files=tuple(data[FILES]), run_id=g(RUN_ID), run_name=g(RUN_NAME), created_utc=g(CREATED_UTC),
-            pqflow_version=g(PQFLOW_VERSION), python=g("python"), numpy=g("numpy"), pyarrow=g("pyarrow"),
+            pqflow_version=g(PQFLOW_VERSION), python=g(PYTHON), numpy=g(NUMPY), pyarrow=g(PYARROW),
             valuation_date=g(VALUATION_DATE), config_sha256=g(CONFIG_SHA256), seeds=g(SEEDS),
             scenarios=g(SCENARIOS), output_times=g(OUTPUT_TIMES), horizon_years=g(HORIZON_YEARS),
             antithetic=g(ANTITHETIC), signoff=g(SIGNOFF), document=MappingProxyType(dict(data)),

@@ -18,7 +18,7 @@ from pqflow.storage.jsonio import read_json
 
 __all__ = [
     "SENSITIVITY_DIR", "SENSITIVITY_INDEX", "SensitivityIndex", "SensitivityEntry", "read_sensitivity_index",
-    "sensitivity_index_document", "sensitivity_index_path",
+    "sensitivity_index_document", "sensitivity_index_entry", "sensitivity_index_path",
 ]
 
 #: the folder of a run holding one sub-folder per sensitivity set
@@ -27,6 +27,8 @@ SENSITIVITY_INDEX = "index.json"
 NOTE = "note"
 SENSITIVITIES = "sensitivities"
 NAME = "name"
+PATH = "path"
+MEASURES = "measures"
 VERDICT = "verdict"
 INDEX_NOTE = "one set per [[sensitivities]] entry, simulated with the base run's seeds (common random numbers)"
 
@@ -63,15 +65,30 @@ class SensitivityIndex:
         for i, s in enumerate(data[SENSITIVITIES]):
             if not isinstance(s, Mapping) or NAME not in s:
                 raise IntegrityError(f"{where}: {SENSITIVITIES}[{i}] has no key {NAME!r}")
-            entries.append(SensitivityEntry(name=s[NAME], path=s.get("path"), measures=tuple(s.get("measures") or ()),
+            entries.append(SensitivityEntry(name=s[NAME], path=s.get(PATH), measures=tuple(s.get(MEASURES) or ()),
                                             verdict=s.get(VERDICT), entry=MappingProxyType(dict(s))))
         return cls(sensitivities=tuple(entries), note=data.get(NOTE))
+
+
+def sensitivity_index_entry(*, name: str, description: str | None, measures: Sequence[str],
+                            keep_volatility_parameters: bool, shocks: Mapping[str, Any], verdict: str
+                            ) -> dict[str, Any]:
+    """One set's object in the index, its folder ``sensitivities/<name>`` relative to the run."""
+    return {
+        NAME: name,
+        "description": description,
+        PATH: f"{SENSITIVITY_DIR}/{name}",
+        MEASURES: list(measures),
+        "keep_volatility_parameters": keep_volatility_parameters,
+        "shocks": dict(shocks),
+        VERDICT: verdict,
+    }
 
 
 def sensitivity_index_document(entries: Sequence[Mapping[str, Any]]) -> dict[str, Any]:
     """The file's content: the note, then one object per set in configuration order, each with
     ``name``, ``description``, ``path``, ``measures``, ``keep_volatility_parameters``, ``shocks``
-    and ``verdict`` (as given: the job builds them)."""
+    and ``verdict`` (:func:`sensitivity_index_entry`)."""
     return {NOTE: INDEX_NOTE, SENSITIVITIES: [dict(e) for e in entries]}
 
 
