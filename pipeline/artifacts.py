@@ -15,6 +15,7 @@ import re
 from typing import Any
 
 from pqflow import CAUTION
+from pqflow.storage.validation_summary import check_counts_toward_verdict, validation_summary_from_json
 
 __all__ = [
     "publish_artifacts",
@@ -51,22 +52,22 @@ def _num(v: Any, digits: int = 4) -> Any:
 def verdict_table(summary: dict[str, Any]) -> list[dict[str, Any]]:
     """One row per check (and the nested wealth-ratio benchmark)."""
     rows = []
-    for name, c in (summary.get("checks") or {}).items():
+    for name, c in validation_summary_from_json(summary).checks.items():
         rows.append({
             "check": slug(name),
-            "verdict": c.get("verdict"),
-            "counts-toward-verdict": bool(c.get("counts_toward_verdict", True)),
-            "cells": c.get("cells"),
-            "max-abs-z": _num(c.get("max_abs_z")),
-            "limit": _num(c.get("family_critical_z")),
-            "warnings": len(c.get("warnings") or []),
+            "verdict": c.verdict,
+            "counts-toward-verdict": c.counts_toward_verdict,
+            "cells": c.cells,
+            "max-abs-z": _num(c.max_abs_z),
+            "limit": _num(c.family_critical_z),
+            "warnings": len(c.warnings),
         })
-        bench = c.get("wealth_ratio_benchmark")
+        bench = c.wealth_ratio_benchmark
         if isinstance(bench, dict):
             rows.append({
                 "check": f"{slug(name)}-wealth-ratio-benchmark",
                 "verdict": bench.get("verdict"),
-                "counts-toward-verdict": bool(bench.get("counts_toward_verdict", False)),
+                "counts-toward-verdict": check_counts_toward_verdict(bench, default=False),
                 "cells": bench.get("comparisons"),
                 "max-abs-z": None,
                 "limit": None,
@@ -77,7 +78,7 @@ def verdict_table(summary: dict[str, Any]) -> list[dict[str, Any]]:
 
 def instrument_table(summary: dict[str, Any]) -> list[dict[str, Any]]:
     """Market-consistency rows: each instrument in each set."""
-    c = (summary.get("checks") or {}).get("market_consistency") or {}
+    c = validation_summary_from_json(summary).check_entry("market_consistency") or {}
     return [
         {
             "instrument": r.get("instrument"),
@@ -94,7 +95,7 @@ def instrument_table(summary: dict[str, Any]) -> list[dict[str, Any]]:
 
 def reconciliation_table(summary: dict[str, Any]) -> list[dict[str, Any]]:
     """The guarantee's three values with their standard errors."""
-    c = (summary.get("checks") or {}).get("reconciliation") or {}
+    c = validation_summary_from_json(summary).check_entry("reconciliation") or {}
     v = c.get("values") or {}
     if not v:
         return []

@@ -17,6 +17,11 @@ The check reads the source of every module of ``src/pqflow`` outside ``storage/`
   ``pqflow.storage.calibration_sections`` (``record.credit.ratings``, ``record.heston_fits``
   ...); and a string subscript or ``.get`` directly on a record's section attribute
   (``record.credit["ratings"]``, ``record.parameters.get("credit")``).
+* a subscript or ``.get`` of a key only the run's other JSON files have (``validation/summary.json``:
+  ``counts_toward_verdict``, ``inconclusive_from_time`` ...; ``manifest.json``: ``root_seed``,
+  ``config_sha256`` ...): readers use the records of ``pqflow.storage.validation_summary``,
+  ``pqflow.storage.manifest`` and ``pqflow.storage.valuation_summary``. Writing such a key
+  (a subscript on the left of ``=``) is the builder's and is not flagged.
 
 Common practice (a single owner per format, enforced by a source scan) rather than a published
 source. Each check below is shown to fire on a planted line, so the scan cannot pass vacuously.
@@ -67,6 +72,17 @@ SECTION_KEYS = frozenset({
 #: attributes of CalibrationRecord holding a section: a string key read directly on them is a
 #: raw read of the file's form
 SECTION_ATTRIBUTES = frozenset({"parameters", "fit", "credit", "stochastic_volatility", "driver_correlation"})
+
+#: keys only the run's JSON files besides calibration.json use (validation/summary.json, manifest.json);
+#: generic keys such as "verdict", "cells" or "name" are left out: other dicts use them too
+RUN_FILE_KEYS = frozenset({
+    # validation/summary.json, a check's entry
+    "counts_toward_verdict", "inconclusive_from_time", "inconclusive_cells", "family_critical_z",
+    "ess_warning_share", "power_rule", "expected_outside_95_by_chance", "expected_outside_99_by_chance",
+    "ess_below_warning_from_time", "density_budget", "wealth_ratio_benchmark",
+    # manifest.json, its header
+    "root_seed", "config_sha256", "created_utc", "output_times", "revalidated_utc", "run_name", "pqflow_version",
+})
 
 #: Files outside storage/ allowed to keep a spelled format, each with its reason.
 ALLOWED: dict[str, str] = {
@@ -128,6 +144,8 @@ def violations(source: str, rel: str) -> list[str]:
                 found.append(f"{rel}:{node.lineno}: calibration.json section key [{key.value!r}]")
             elif isinstance(key, ast.Constant) and isinstance(key.value, str) and _on_section(node.value):
                 found.append(f"{rel}:{node.lineno}: string key [{key.value!r}] on a calibration.json section")
+            elif isinstance(key, ast.Constant) and key.value in RUN_FILE_KEYS:
+                found.append(f"{rel}:{node.lineno}: run file key [{key.value!r}]")
         elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.func.attr == "get"
               and node.args and isinstance(node.args[0], ast.Constant)):
             key_value = node.args[0].value
@@ -137,6 +155,8 @@ def violations(source: str, rel: str) -> list[str]:
                 found.append(f"{rel}:{node.lineno}: calibration.json section key .get({key_value!r})")
             elif isinstance(key_value, str) and _on_section(node.func.value):
                 found.append(f"{rel}:{node.lineno}: string key .get({key_value!r}) on a calibration.json section")
+            elif key_value in RUN_FILE_KEYS:
+                found.append(f"{rel}:{node.lineno}: run file key .get({key_value!r})")
     return found
 
 
@@ -190,10 +210,20 @@ def test_every_allowed_entry_still_exists():
     ('aa = cal.credit["AA"]', "string key ['AA'] on a calibration.json section"),
     ('eq = cal.parameters.get("equity")', "string key .get('equity') on a calibration.json section"),
     ('rows = cal.part_fit("hull_white")["rows"]', "string key ['rows'] on a calibration.json section"),
+    ('counts = c.get("counts_toward_verdict", True)', "run file key .get('counts_toward_verdict')"),
+    ('share = summary["checks"]["density_real_world"]["ess_warning_share"]', "run file key ['ess_warning_share']"),
+    ('seed = (manifest.get("seeds") or {}).get("root_seed")', "run file key .get('root_seed')"),
+    ('want = manifest["config_sha256"]', "run file key ['config_sha256']"),
 ])
 def test_the_scan_fires_on_a_planted_line(line, what):
     found = violations(f"def f(cal, run, m, name, block):\n    {line}\n", "planted.py")
     assert len(found) == 1 and what in found[0], found
+
+
+def test_the_scan_leaves_the_builders_writes_alone():
+    # the builder writes a summary entry by key; only reads outside storage/ are the readers' business
+    source = 'def f(entry, share):\n    entry["ess_warning_share"] = share\n    entry["power_rule"] = "text"\n'
+    assert violations(source, "builder.py") == []
 
 
 def test_the_scan_leaves_prose_and_other_strings_alone():

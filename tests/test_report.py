@@ -158,3 +158,43 @@ def test_artifact_builders_and_publish(finished_run, monkeypatch):
     ids = mod.publish_artifacts(summary, "validation/report.html")
     assert [c[0] for c in calls] == ["md", "table", "table", "table"]
     assert all(key_rule.match(k) for k in ids)
+
+
+def test_the_run_file_records_read_a_real_runs_files_as_written(finished_run):
+    # common practice for one owner per format: the typed readers give back what the run wrote
+    import json
+
+    from pqflow.storage.manifest import read_manifest
+    from pqflow.storage.validation_summary import read_validation_summary
+    from pqflow.storage.valuation_summary import read_valuation_summary
+
+    raw = json.loads((finished_run / "validation" / "summary.json").read_text(encoding="utf-8"))
+    summary = read_validation_summary(finished_run / "validation" / "summary.json")
+    assert summary.to_json() == raw and summary.verdict == raw["verdict"]
+    assert list(summary.checks) == list(raw["checks"])
+    for name, c in summary.checks.items():
+        entry = raw["checks"][name]
+        assert (c.verdict, c.cells, c.family_critical_z, c.inconclusive_cells, c.power_rule) == (
+            entry["verdict"], entry.get("cells"), entry.get("family_critical_z"), entry.get("inconclusive_cells"),
+            entry.get("power_rule"))
+        assert c.counts_toward_verdict == entry.get("counts_toward_verdict", True)
+        assert {**c.extras, **{k: v for k, v in entry.items() if k not in c.extras}} == entry
+    assert summary.inconclusive is not None and summary.inconclusive.cells == raw["inconclusive"]["cells"]
+    assert [dict(d) for d in summary.densities or ()] == raw["densities"]
+    density = summary.check("density_real_world")
+    assert density is not None and density.ess_warning_share == raw["checks"]["density_real_world"]["ess_warning_share"]
+
+    manifest_raw = json.loads((finished_run / "manifest.json").read_text(encoding="utf-8"))
+    manifest = read_manifest(finished_run)
+    assert {**manifest.header(), "files": list(manifest.files)} == manifest_raw
+    assert manifest.root_seed == manifest_raw["seeds"]["root_seed"]
+    assert (manifest.run_name, manifest.config_sha256) == (manifest_raw["run_name"], manifest_raw["config_sha256"])
+    assert set(manifest.file_entries()) == {f["path"] for f in manifest_raw["files"]}
+
+    val_raw = json.loads((finished_run / "valuation" / "summary.json").read_text(encoding="utf-8"))
+    val = read_valuation_summary(finished_run / "valuation" / "summary.json")
+    assert dict(val.document) == val_raw and [dict(e) for e in val.line_entries()] == val_raw["lines"]
+    total = {line["name"]: line for line in val_raw["lines"]
+             if line["quantity"] == "best_estimate" and line["level"] in ("product", "total")}
+    assert val.best_estimates("market_consistent", plain=False) == {
+        n: line["market_consistent_value"] for n, line in total.items()}

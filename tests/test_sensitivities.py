@@ -238,3 +238,18 @@ def test_report_shows_the_sensitivities_table_and_bar_chart(run, tmp_path):
     assert "Change in the total best estimate by sensitivity" in section and "<svg" in section
     for name in ("rates_up_100bp", "equity_down", "equity_vol_up"):
         assert name in section
+
+
+def test_the_sensitivity_index_and_verdicts_read_as_written(run):
+    # common practice for one owner per format: the typed readers give back what the run wrote
+    from pqflow.storage.sensitivity_index import read_sensitivity_index
+    from pqflow.storage.validation_summary import read_validation_summary
+
+    raw = json.loads((run / "sensitivities" / "index.json").read_text(encoding="utf-8"))
+    index = read_sensitivity_index(run)
+    assert index is not None and index.names == [s["name"] for s in raw["sensitivities"]]
+    assert [dict(s.entry) for s in index.sensitivities] == raw["sensitivities"] and index.note == raw["note"]
+    summary = read_validation_summary(run / "validation" / "summary.json")
+    assert summary.sensitivities == {s.name: {"verdict": s.verdict,
+                                              "summary": f"sensitivities/{s.name}/validation/summary.json"}
+                                     for s in index.sensitivities}

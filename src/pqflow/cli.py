@@ -12,6 +12,7 @@ from __future__ import annotations
 import math
 import sys
 import time
+from collections.abc import Mapping
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
 
@@ -33,6 +34,13 @@ from pqflow.cli_errors import (
 from pqflow.errors import PqflowError
 from pqflow.report import numbers as fmt
 from pqflow.storage.names import density_column
+from pqflow.storage.validation_summary import (
+    CheckSummary,
+    ValidationSummary,
+    check_counts_toward_verdict,
+    validation_summary_from_json,
+)
+from pqflow.storage.valuation_summary import valuation_summary_from_json
 
 if TYPE_CHECKING:
     from pqflow.storage.calibration_file import CalibrationRecord
@@ -119,7 +127,7 @@ def _verdict_cell(verdict: str, counts: bool) -> str:
     return f"[{colour}]{label}[/]"
 
 
-def _summary_table(summary: dict[str, Any]) -> Table:
+def _summary_table(summary: ValidationSummary) -> Table:
     table = Table(title="Validation of the written files")
     table.add_column("check")
     table.add_column("cells", justify="right")
@@ -128,40 +136,40 @@ def _summary_table(summary: dict[str, Any]) -> Table:
     table.add_column("max |z| / limit", justify="right")
     table.add_column("inconclusive", justify="right")
     table.add_column("verdict")
-    for name, c in summary["checks"].items():
-        counts = bool(c.get("counts_toward_verdict", True))
-        if "cells" not in c:
-            table.add_row(name.replace("_", " "), "", "", "", "", "", _verdict_cell(c["verdict"], counts))
+    for name, c in summary.checks.items():
+        counts = c.counts_toward_verdict
+        if c.cells is None:
+            table.add_row(name.replace("_", " "), "", "", "", "", "", _verdict_cell(c.verdict or "", counts))
             continue
         table.add_row(
             name.replace("_", " "),
-            fmt.count(c["cells"]),
-            f"{fmt.count(c['outside_95'])} / {fmt.number(c['expected_outside_95_by_chance'], 3)}",
-            f"{fmt.count(c['outside_99'])} / {fmt.number(c['expected_outside_99_by_chance'], 3)}",
-            f"{fmt.zscore(c['max_abs_z'])} / {fmt.zscore(c['family_critical_z'])}",
+            fmt.count(c.cells),
+            f"{fmt.count(c.outside_95)} / {fmt.number(c.expected_outside_95_by_chance, 3)}",
+            f"{fmt.count(c.outside_99)} / {fmt.number(c.expected_outside_99_by_chance, 3)}",
+            f"{fmt.zscore(c.max_abs_z)} / {fmt.zscore(c.family_critical_z)}",
             _inconclusive_cell(c),
-            _verdict_cell(c["verdict"], counts),
+            _verdict_cell(c.verdict or "", counts),
         )
-        bench = c.get("wealth_ratio_benchmark")
+        bench = c.wealth_ratio_benchmark
         if isinstance(bench, dict) and "verdict" in bench:
             table.add_row(
                 "  equity wealth ratios vs AAA (2005)",
                 str(bench.get("comparisons", "")),
                 "", "", f"{bench.get('failed', 0)} missed", "",
-                _verdict_cell(bench["verdict"], bool(bench.get("counts_toward_verdict", False))),
+                _verdict_cell(bench["verdict"], check_counts_toward_verdict(bench, default=False)),
             )
     return table
 
 
-def _inconclusive_cell(c: dict[str, Any]) -> str:
-    n = int(c.get("inconclusive_cells", 0) or 0)
+def _inconclusive_cell(c: CheckSummary) -> str:
+    n = int(c.inconclusive_cells or 0)
     if not n:
         return ""
-    start = c.get("inconclusive_from_time")
+    start = c.inconclusive_from_time
     return f"{n}" + (f" from {start:g}y" if start is not None else "")
 
 
-def _density_table(densities: list[dict[str, Any]]) -> Table:
+def _density_table(densities: list[Mapping[str, Any]]) -> Table:
     """One row per written density: where its effective sample size stays usable, and its
     state at the horizon (the full density first in each set, then its restricted blocks)."""
     table = Table(title="Density weights: usable horizon (ESS share above the warning level)")
@@ -182,33 +190,35 @@ def _density_table(densities: list[dict[str, Any]]) -> Table:
     return table
 
 
-def _print_validation(summary: dict[str, Any]) -> None:
+def _print_validation(result: dict[str, Any]) -> ValidationSummary:
     """The verdict table, the rule, each density's usable horizon, the density budget at the
     horizon, the warnings and the inconclusive cells (values escaped: rich would take text in
-    brackets for markup)."""
+    brackets for markup). ``result``: the summary as the run or ``validate`` wrote it."""
+    summary = validation_summary_from_json(result)
     console.print(_summary_table(summary))
-    console.print(f"rule: {escape(str(summary['rule']))}", style="dim", highlight=False)
-    densities = summary.get("densities", []) or []
+    console.print(f"rule: {escape(str(summary.rule))}", style="dim", highlight=False)
+    densities = list(summary.densities or [])
     if densities:
         console.print(_density_table(densities))
-    for measure, shares in (summary.get("density_budget") or {}).items():
+    for measure, shares in (summary.density_budget or {}).items():
         if shares:
             parts = ", ".join(f"{escape(k)} {v:.0%}" for k, v in sorted(shares.items(), key=lambda kv: -abs(kv[1])))
             console.print(f"density budget at the horizon, {escape(measure)} (share of log-density variance): {parts}",
                           highlight=False)
-    for check in summary["checks"].values():
-        for warning in check.get("warnings", []):
+    for check in summary.checks.values():
+        for warning in check.warnings:
             console.print(f"[yellow]warning:[/] {escape(str(warning))}", highlight=False)
-    inc = summary.get("inconclusive") or {}
-    if inc.get("cells"):
-        start = inc.get("from_time")
+    inc = summary.inconclusive
+    if inc is not None and inc.cells:
+        start = inc.from_time
         console.print(
-            f"[yellow]inconclusive:[/] {inc['cells']} cells in {', '.join(escape(c) for c in inc.get('checks', []))} "
+            f"[yellow]inconclusive:[/] {inc.cells} cells in {', '.join(escape(c) for c in inc.checks)} "
             + (f"from t = {start:g} years " if start is not None else "")
             + "could not detect a material deviation with 50% power (more scenarios or a restricted "
             "density would make them conclusive)",
             highlight=False,
         )
+    return summary
 
 
 def _verdict_line(verdict: str) -> str:
@@ -349,15 +359,14 @@ def run(
             release_lock(lock)
     if resume:
         console.print(_resume_line(result), highlight=False, markup=False)
-    summary = result["summary"]
-    _print_validation(summary)
-    for name, sens in summary.get("sensitivities", {}).items():
+    summary = _print_validation(result["summary"])
+    for name, sens in (summary.sensitivities or {}).items():
         console.print(
             f"sensitivity {escape(name)}: {_verdict_cell(sens['verdict'], True)} ({escape(str(sens['summary']))})",
             highlight=False,
         )
     console.print(
-        f"overall verdict: {_verdict_line(summary['verdict'])}; run written to "
+        f"overall verdict: {_verdict_line(summary.verdict)}; run written to "
         f"{escape(str(result['out_dir']))} in {time.perf_counter() - started:.1f} s",
         highlight=False,
     )
@@ -368,7 +377,7 @@ def run(
         style="dim", highlight=False, markup=False, soft_wrap=True,
     )
     _caution()
-    if summary["verdict"] == "fail":
+    if summary.verdict == "fail":
         raise typer.Exit(code=1)
 
 
@@ -415,15 +424,15 @@ def validate(
         summary = revalidate_run(run_dir, ess_warning_share=ess_warning_share)
     except PqflowError as exc:
         _fail(exc)
-    _print_validation(summary)
+    record = _print_validation(summary)
     if (run_dir / "validation" / "report.html").is_file():
         from pqflow.report import write_report
 
         console.print(f"report updated: {escape(str(write_report(run_dir)))}", style="dim", highlight=False)
-    console.print(f"overall verdict: {_verdict_line(summary['verdict'])}; validation/ rewritten in "
+    console.print(f"overall verdict: {_verdict_line(record.verdict)}; validation/ rewritten in "
                   f"{escape(str(run_dir))}", highlight=False)
     _caution()
-    if summary["verdict"] == "fail":
+    if record.verdict == "fail":
         raise typer.Exit(code=1)
 
 
@@ -760,43 +769,45 @@ def value(
         summary = value_liabilities_cli(run_dir, liabilities, out, overwrite=overwrite)
     except PqflowError as exc:
         _fail(exc)
-    currency = summary.get("currency", "")
+    val = valuation_summary_from_json(summary)
+    currency = val.currency if val.currency is not None else ""
     table = Table(title=Text(f"Liability values, {currency} thousands (real world discounted with deflators)"))
     for col in ("line", "", "market consistent", "cert. equiv.", "TVOG", "real world", "diff/SE"):
         table.add_column(col, justify="left" if col in ("line", "quantity") else "right")
 
-    def k(value: float, se: float | None = None) -> str:
+    def k(value: float | None, se: float | None = None) -> str:
         return fmt.money(value, scale=1e3) if se is None else fmt.money_se(value, se, scale=1e3)
 
-    for line in summary["lines"]:
-        if line.get("level") not in ("product", "total"):
+    for line in val.lines:
+        if line.level not in ("product", "total"):
             continue
         table.add_row(
-            Text(str(_LINE_LABEL.get(line["name"], line["name"]))),
-            {"best_estimate": "BE"}.get(line["quantity"], line["quantity"]),
-            k(line["market_consistent_value"], line["market_consistent_se"]),
-            k(line["certainty_equivalent_value"]), k(line["tvog"]),
-            k(line["real_world_value"], line["real_world_se"]),
-            fmt.signed(line["difference_in_se"], 3),
+            Text(str(_LINE_LABEL.get(line.name, line.name))),
+            {"best_estimate": "BE"}.get(str(line.quantity), line.quantity),
+            k(line.market_consistent_value, line.market_consistent_se),
+            k(line.certainty_equivalent_value), k(line.tvog),
+            k(line.real_world_value, line.real_world_se),
+            fmt.signed(line.difference_in_se, 3),
         )
     console.print(table)
     products: dict[str, list[str]] = {}
-    for line in summary["lines"]:
-        if line.get("level") == "product" and line.get("quantity") == "best_estimate":
-            density = str(line.get("real_world_density", density_column("real_world")))
-            products.setdefault(density, []).append(line["name"])
+    for line in val.lines:
+        if line.level == "product" and line.quantity == "best_estimate":
+            density = str(line.real_world_density if line.real_world_density is not None
+                          else density_column("real_world"))
+            products.setdefault(density, []).append(line.name)
     for density, names in products.items():
         used = [f"{d} / cash_account" for d in density.split(", ")]
         which = used[0] if len(used) == 1 else " or ".join(used) + " (by model point)"
         console.print(f"real-world deflators of {', '.join(names)}: {which}", highlight=False, markup=False)
     console.print("values and standard errors use control variates from known martingales "
                   "(plain means in the CSV as *_without_controls)", style="dim", highlight=False)
-    if summary.get("sensitivities"):
+    if val.sensitivities:
         sens_table = Table(title=f"Sensitivities, {currency} thousands: change from the base, its SE on the common "
                            "scenarios and the SE independent sets would give")
         for col in ("sensitivity", "BE", "BE change", "SE", "SE indep.", "guarantee change", "TVOG change"):
             sens_table.add_column(col, justify="left" if col == "sensitivity" else "right")
-        for entry in summary["sensitivities"]:
+        for entry in val.sensitivities:
             be = entry["best_estimate"]
             sens_table.add_row(
                 entry["sensitivity"], k(be["value"]), f"{be['change'] / 1e3:+,.0f}", k(be["change_se_paired"]),
@@ -804,9 +815,9 @@ def value(
                 f"{entry['tvog']['change'] / 1e3:+,.0f}",
             )
         console.print(sens_table)
-    verdict = summary.get("reconciliation", {}).get("verdict")
+    verdict = (val.reconciliation or {}).get("verdict")
     if verdict:
-        rec = summary["reconciliation"]
+        rec = val.reconciliation or {}
         colour = {"agree": "green", "inconclusive": "dark_orange"}.get(verdict, "red")
         console.print(f"reconciliation of the two sets: [{colour}]{verdict.upper()}[/]", highlight=False)
         console.print(f"rule: {escape(str(rec.get('rule', '')))}", style="dim", highlight=False)
@@ -815,7 +826,7 @@ def value(
                           f"{rec.get('material_share', 0.02):.0%} difference would be seen less than half the time; "
                           "more scenarios would judge them)", highlight=False)
     target = out if out is not None else run_dir / "valuation"
-    console.print(f"written to {target}: {', '.join(summary.get('files', []))} (checked by pqflow verify)",
+    console.print(f"written to {target}: {', '.join(val.files or [])} (checked by pqflow verify)",
                   style="dim", highlight=False)
     if out is None and (run_dir / "validation" / "summary.json").is_file():
         from pqflow.report import write_report
@@ -973,17 +984,17 @@ def _print_attribution(result: dict[str, Any]) -> None:
 @guarded(err_console)
 def verify(run_dir: Annotated[Path, typer.Argument(help="A finished run directory.")]) -> None:
     """Check every file of a run against its manifest (sizes and sha256)."""
-    from pqflow.storage.manifest import verify_run
+    from pqflow.storage.manifest import manifest_record, verify_run
     from pqflow.storage.valuation_files import verify_valuation
 
     try:
-        manifest = verify_run(run_dir)
+        manifest = manifest_record(verify_run(run_dir))
         valuation = verify_valuation(run_dir)
     except PqflowError as exc:
         _fail(exc)
-    console.print(f"{run_dir}: {len(manifest['files'])} files match manifest.json", style="green", markup=False)
+    console.print(f"{run_dir}: {len(manifest.files)} files match manifest.json", style="green", markup=False)
     if valuation is not None:
-        console.print(f"{run_dir / 'valuation'}: {len(valuation['files'])} files match its manifest.json "
+        console.print(f"{run_dir / 'valuation'}: {len(manifest_record(valuation).files)} files match its manifest.json "
                       "and belong to this run", style="green", markup=False)
 
 

@@ -24,7 +24,14 @@ from pqflow.jobs.steps import PartRecord, RunPlan, generate_part, plan_run, writ
 from pqflow.sensitivities.shocks import shocked_config
 from pqflow.simulation.engine import MEASURES
 from pqflow.simulation.plan import Batch
-from pqflow.storage.jsonio import read_json, write_json_atomic
+from pqflow.storage.jsonio import write_json_atomic
+from pqflow.storage.sensitivity_index import (
+    SENSITIVITY_DIR,
+    sensitivity_index_document,
+    sensitivity_index_entry,
+    sensitivity_index_path,
+)
+from pqflow.storage.validation_summary import VALIDATION_SUMMARY, record_sensitivity_verdicts
 
 __all__ = [
     "SENSITIVITY_DIR",
@@ -39,7 +46,6 @@ __all__ = [
     "check_sensitivity_inputs",
 ]
 
-SENSITIVITY_DIR = "sensitivities"
 
 
 def sensitivity_dir(run_dir: str | Path, name: str) -> Path:
@@ -125,34 +131,22 @@ def record_sensitivities(run_dir: str | Path, config: RunConfig, summaries: dict
     """Add the sensitivities to the run's ``validation/summary.json`` (their verdicts count toward
     the run's) and write ``sensitivities/index.json``; return the updated run summary."""
     run_dir = Path(run_dir)
-    index = {
-        "note": "one set per [[sensitivities]] entry, simulated with the base run's seeds (common random numbers)",
-        "sensitivities": [
-            {
-                "name": s.name,
-                "description": s.description,
-                "path": f"{SENSITIVITY_DIR}/{s.name}",
-                "measures": list(sensitivity_measures(s)),
-                "keep_volatility_parameters": s.keep_volatility_parameters,
-                "shocks": {k: v for k, v in s.model_dump(mode="json", exclude_none=True).items()
-                           if k not in ("name", "description", "keep_volatility_parameters", "real_world")},
-                "verdict": summaries[s.name]["verdict"],
-            }
-            for s in config.sensitivities
-        ],
-    }
-    write_json_atomic(run_dir / SENSITIVITY_DIR / "index.json", index)
-    path = run_dir / "validation" / "summary.json"
-    summary = read_json(path)
-    summary["sensitivities"] = {
-        s.name: {"verdict": summaries[s.name]["verdict"],
-                 "summary": f"{SENSITIVITY_DIR}/{s.name}/validation/summary.json"}
+    index = sensitivity_index_document([
+        sensitivity_index_entry(
+            name=s.name,
+            description=s.description,
+            measures=sensitivity_measures(s),
+            keep_volatility_parameters=s.keep_volatility_parameters,
+            shocks={k: v for k, v in s.model_dump(mode="json", exclude_none=True).items()
+                    if k not in ("name", "description", "keep_volatility_parameters", "real_world")},
+            verdict=summaries[s.name]["verdict"],
+        )
         for s in config.sensitivities
-    }
-    if any(v["verdict"] == "fail" for v in summary["sensitivities"].values()):
-        summary["verdict"] = "fail"
-    write_json_atomic(path, summary)
-    return summary
+    ])
+    write_json_atomic(sensitivity_index_path(run_dir), index)
+    return record_sensitivity_verdicts(
+        run_dir / VALIDATION_SUMMARY, {s.name: summaries[s.name]["verdict"] for s in config.sensitivities},
+        {s.name: f"{SENSITIVITY_DIR}/{s.name}/{VALIDATION_SUMMARY}" for s in config.sensitivities})
 
 
 def manifest_entry(config: RunConfig) -> dict[str, Any]:

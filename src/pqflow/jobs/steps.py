@@ -23,17 +23,18 @@ from pqflow import CAUTION, __version__
 from pqflow.calibration.assemble import Calibration, build_model
 from pqflow.config.loader import config_hash
 from pqflow.config.schema import RunConfig
-from pqflow.errors import ConfigError
+from pqflow.errors import ConfigError, IntegrityError
 from pqflow.measure.blocks import DensityBlock, check_blocks, default_blocks, economy_structure
 from pqflow.models.economy import EconomyModel
 from pqflow.simulation.engine import time_grid
 from pqflow.simulation.plan import Batch, plan_batches
 from pqflow.simulation.scenarios import simulate_part
 from pqflow.simulation.streams import MEASURE_STREAM
+from pqflow.storage import manifest as mf
 from pqflow.storage import names
 from pqflow.storage.calibration_file import calibration_path, write_calibration_file
-from pqflow.storage.jsonio import read_json, write_json_atomic
-from pqflow.storage.manifest import MANIFEST, build_manifest
+from pqflow.storage.jsonio import write_json_atomic
+from pqflow.storage.manifest import MANIFEST, build_manifest, manifest_record
 from pqflow.storage.names import (
     DENSITY_UNIT,
     MEASURES,
@@ -43,6 +44,7 @@ from pqflow.storage.names import (
     variance_column,
 )
 from pqflow.storage.parquet import batch_table, part_name, units_metadata, write_part_hashed
+from pqflow.storage.validation_summary import VALIDATION_SUMMARY, read_validation_summary
 
 __all__ = [
     "RunPlan",
@@ -325,16 +327,18 @@ def revalidate_run(run_dir: str | Path, *, ess_warning_share: float | None = Non
     manifest = verify_run(run_dir)
     if ess_warning_share is None:
         ess_warning_share = 0.10
-        earlier = run_dir / "validation" / "summary.json"
+        earlier = run_dir / VALIDATION_SUMMARY
         if earlier.is_file():
             try:
-                recorded = read_json(earlier)["checks"]["density_real_world"]["ess_warning_share"]
-                ess_warning_share = float(recorded)
-            except (KeyError, TypeError, ValueError):
+                density = read_validation_summary(earlier).check("density_real_world")
+                recorded = density.ess_warning_share if density is not None else None
+                if recorded is not None:
+                    ess_warning_share = float(recorded)
+            except (IntegrityError, TypeError, ValueError):
                 pass
     summary = write_validation(run_dir, ess_warning_share=ess_warning_share)
-    header = {k: v for k, v in manifest.items() if k != "files"}
-    header["revalidated_utc"] = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+    header = manifest_record(manifest).header()
+    header[mf.REVALIDATED_UTC] = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
     write_json_atomic(run_dir / MANIFEST, build_manifest(run_dir, header=header))
     return summary
 
@@ -354,38 +358,38 @@ def write_run_manifest(
     ``extra_header``: further header entries (the sensitivity sets)."""
     run_dir = Path(run_dir)
     header = {
-        "run_id": run_id,
-        "run_name": config.run.name,
-        "created_utc": dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
-        "pqflow_version": __version__,
-        "python": platform.python_version(),
-        "numpy": np.__version__,
-        "pyarrow": pa.__version__,
-        "valuation_date": config.run.valuation_date.isoformat(),
-        "config_sha256": config_hash(config),
-        "seeds": {
-            "root_seed": plan.seed,
-            "scheme": "numpy SeedSequence(root_seed, spawn_key=(measure_stream, batch)), PCG64",
-            "measure_streams": MEASURE_STREAM,
-            "batches": {m: len(p.batches) for m, p in plan.sets.items()},
+        mf.RUN_ID: run_id,
+        mf.RUN_NAME: config.run.name,
+        mf.CREATED_UTC: dt.datetime.now(dt.UTC).isoformat(timespec="seconds"),
+        mf.PQFLOW_VERSION: __version__,
+        mf.PYTHON: platform.python_version(),
+        mf.NUMPY: np.__version__,
+        mf.PYARROW: pa.__version__,
+        mf.VALUATION_DATE: config.run.valuation_date.isoformat(),
+        mf.CONFIG_SHA256: config_hash(config),
+        mf.SEEDS: {
+            mf.ROOT_SEED: plan.seed,
+            mf.SEED_SCHEME: "numpy SeedSequence(root_seed, spawn_key=(measure_stream, batch)), PCG64",
+            mf.MEASURE_STREAMS: MEASURE_STREAM,
+            mf.BATCHES: {m: len(p.batches) for m, p in plan.sets.items()},
         },
-        "scenarios": {m: int(sum(b.size for b in p.batches)) for m, p in plan.sets.items()},
-        "output_times": {m: int(p.times.size) for m, p in plan.sets.items()},
-        "horizon_years": {m: float(p.times[-1]) for m, p in plan.sets.items()},
-        "antithetic": plan.antithetic,
-        "caution": CAUTION,
+        mf.SCENARIOS: {m: int(sum(b.size for b in p.batches)) for m, p in plan.sets.items()},
+        mf.OUTPUT_TIMES: {m: int(p.times.size) for m, p in plan.sets.items()},
+        mf.HORIZON_YEARS: {m: float(p.times[-1]) for m, p in plan.sets.items()},
+        mf.ANTITHETIC: plan.antithetic,
+        mf.CAUTION: CAUTION,
         **(extra_header or {}),
     }
     if config.signoff is not None:  # names for the report's sign-off page
-        header["signoff"] = config.signoff.model_dump(mode="json")
+        header[mf.SIGNOFF] = config.signoff.model_dump(mode="json")
     # a part's digest as its writer took it, trusted while the file keeps the size written (the
     # staging folder is the run's own, under its lock); every other file is hashed
     written = {rec.path: (rec.sha256, int(rec.bytes)) for rec in parts if rec.bytes is not None}
     manifest = build_manifest(run_dir, header=header, known=written)
-    by_path = {f["path"]: f for f in manifest["files"]}
+    by_path = manifest_record(manifest).file_entries()
     for rec in parts:
         entry = by_path.get(rec.path)
-        if entry is None or entry["sha256"] != rec.sha256 or entry["rows"] != rec.rows:
+        if entry is None or entry.sha256 != rec.sha256 or entry.rows != rec.rows:
             raise RuntimeError(f"{rec.path}: changed between writing and the manifest")
     write_json_atomic(run_dir / MANIFEST, manifest)
     return manifest

@@ -33,8 +33,8 @@ from pqflow.liabilities.scenarios import BondInterpolation, annual_scenarios, ce
 from pqflow.liabilities.valuation import QUANTITIES, RunInfo, check_portfolio_against_run, portfolio_reads
 from pqflow.market.serialize import curve_from_json
 from pqflow.storage.calibration_file import calibration_path, read_calibration_file
-from pqflow.storage.jsonio import read_json
 from pqflow.storage.scenario_set import ScenarioSet
+from pqflow.storage.sensitivity_index import read_sensitivity_index
 from pqflow.validation.moments import Moments, sampling_units
 
 __all__ = ["SENSITIVITY_COLUMNS", "sensitivity_names", "value_sensitivities", "sensitivity_summary"]
@@ -48,10 +48,8 @@ SENSITIVITY_COLUMNS = (
 
 def sensitivity_names(run_dir: str | Path) -> list[str]:
     """The sensitivity sets of a run, from ``sensitivities/index.json`` (none: empty)."""
-    index = Path(run_dir) / "sensitivities" / "index.json"
-    if not index.is_file():
-        return []
-    return [s["name"] for s in read_json(index)["sensitivities"]]
+    index = read_sensitivity_index(run_dir)
+    return [] if index is None else index.names
 
 
 @dataclass(frozen=True)

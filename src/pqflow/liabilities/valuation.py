@@ -43,7 +43,7 @@ from pqflow.liabilities.scenarios import (
 from pqflow.market.curve import DiscountCurve
 from pqflow.measure.blocks import column_drivers, smallest_block
 from pqflow.storage.calibration_file import calibration_path, read_calibration_file
-from pqflow.storage.jsonio import read_json
+from pqflow.storage.manifest import MANIFEST, read_manifest
 from pqflow.storage.names import (
     META_VALUATION_DATE,
     bond_maturity_of,
@@ -122,8 +122,7 @@ def inspect_run(run_dir: str | Path) -> RunInfo:
             raise LiabilityDataError(f"{run_dir}: the {m} set lacks columns {sorted(missing)}")
     record = read_calibration_file(calibration_path(run_dir))
     core, indices = record.core_index, record.indices  # the core index first (an error names a missing one)
-    manifest = run_dir / "manifest.json"
-    run_id = read_json(manifest).get("run_id") if manifest.exists() else None
+    run_id = read_manifest(run_dir).run_id if (run_dir / MANIFEST).exists() else None
     t = times["market_consistent"]
     return RunInfo(
         run_dir=str(run_dir),

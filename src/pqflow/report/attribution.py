@@ -34,6 +34,7 @@ import numpy as np
 from pqflow.config.loader import apply_overrides, config_hash, load_config
 from pqflow.config.schema import RunConfig
 from pqflow.errors import PqflowError
+from pqflow.storage.manifest import ManifestRecord
 from pqflow.storage.parquet import file_sha256
 
 __all__ = ["STEPS", "Step", "step_configs", "attribution_rows", "load_run_config", "check_attribution",
@@ -65,18 +66,18 @@ _CLAIMED = {"run", "simulation", "execution", "signoff", "market_data", "indices
             *(s.split(".")[0] for st in STEPS for s in st.sections)}
 
 
-def load_run_config(config_path: str | Path, manifest: dict[str, Any]) -> RunConfig:
+def load_run_config(config_path: str | Path, manifest: ManifestRecord) -> RunConfig:
     """The configuration a run was made with: the file, with the scenario count and seed the
     manifest records (a run may have overridden them), checked against the manifest's hash."""
     cfg = load_config(config_path)
-    scen = (manifest.get("scenarios") or {}).get("market_consistent")
-    seed = (manifest.get("seeds") or {}).get("root_seed")
+    scen = (manifest.scenarios or {}).get("market_consistent")
+    seed = manifest.root_seed
     if (scen is not None and scen != cfg.simulation.scenarios) or (seed is not None and seed != cfg.simulation.seed):
         cfg = apply_overrides(cfg, scenarios=scen, seed=seed, source=str(config_path))
-    want = manifest.get("config_sha256")
+    want = manifest.config_sha256
     if want is not None and config_hash(cfg) != want:
         raise PqflowError(
-            f"{config_path}: this configuration did not make run {manifest.get('run_name')!r} (its sha256 differs "
+            f"{config_path}: this configuration did not make run {manifest.run_name!r} (its sha256 differs "
             "from the run's manifest); give the configuration file the run was made with"
         )
     return cfg
@@ -223,7 +224,7 @@ def check_attribution(old_run: str | Path, new_run: str | Path, old_config: str 
                       out_dir: str | Path) -> tuple[RunConfig, RunConfig]:
     """Every input error of an attribution, before anything runs: both runs finished, each
     configuration the one its run was made with, the output folder new."""
-    from pqflow.storage.jsonio import read_json
+    from pqflow.storage.manifest import MANIFEST, read_manifest
 
     out = Path(out_dir)
     if out.exists():
@@ -231,10 +232,10 @@ def check_attribution(old_run: str | Path, new_run: str | Path, old_config: str 
                           "(an attribution is not written over another)")
     manifests = []
     for run in (old_run, new_run):
-        path = Path(run) / "manifest.json"
+        path = Path(run) / MANIFEST
         if not path.is_file():
             raise PqflowError(f"{run}: no manifest.json; attribution needs two finished runs")
-        manifests.append(read_json(path))
+        manifests.append(read_manifest(run))
     old = load_run_config(old_config, manifests[0])
     new = load_run_config(new_config, manifests[1])
     from pqflow.config.loader import parse_config
@@ -271,13 +272,14 @@ def prepare_attribution(old_run: str | Path, new_run: str | Path, old_config: st
     return planned
 
 
-def _line_values(valuation: dict[str, Any], key: str) -> dict[str, float]:
-    """Best estimate per line. The attribution works with plain means (its steps are paired
-    differences of them), so it compares with the valuation's plain mean where one is recorded
-    (``<key>_without_controls``; the published value then carries control variates)."""
-    plain = f"{key}_without_controls"
-    return {line["name"]: float(line[plain] if plain in line else line[key]) for line in valuation.get("lines", [])
-            if line.get("quantity") == "best_estimate" and line.get("level") in ("product", "total")}
+def _line_values(valuation: Path, kind: str) -> dict[str, float]:
+    """Best estimate per line of the valuation summary at ``valuation``. The attribution works
+    with plain means (its steps are paired differences of them), so it compares with the
+    valuation's plain mean where one is recorded (the published value then carries control
+    variates)."""
+    from pqflow.storage.valuation_summary import read_valuation_summary
+
+    return read_valuation_summary(valuation).best_estimates(kind, plain=True)
 
 
 def summarise_attribution(old_run: str | Path, new_run: str | Path, planned: list[PlannedStep],
@@ -287,18 +289,18 @@ def summarise_attribution(old_run: str | Path, new_run: str | Path, planned: lis
     import pandas as pd
 
     from pqflow.liabilities.paired import unit_values
-    from pqflow.storage.jsonio import read_json, write_json_atomic
+    from pqflow.storage.jsonio import write_json_atomic
     from pqflow.storage.results import write_csv_atomic
+    from pqflow.storage.valuation_summary import CERTAINTY_EQUIVALENT, MARKET_CONSISTENT, VALUATION_SUMMARY
 
     units = [unit_values(p.run_dir, liabilities) for p in planned]
-    ce = [_line_values(read_json(p.run_dir / "valuation" / "summary.json"), "certainty_equivalent_value")
-          for p in planned]
-    old_val = Path(old_run) / "valuation" / "summary.json"
-    new_val = Path(new_run) / "valuation" / "summary.json"
+    ce = [_line_values(p.run_dir / VALUATION_SUMMARY, CERTAINTY_EQUIVALENT) for p in planned]
+    old_val = Path(old_run) / VALUATION_SUMMARY
+    new_val = Path(new_run) / VALUATION_SUMMARY
     result = attribution_rows(
         [(p.name, p.title) for p in planned], units, ce,
-        old_value=_line_values(read_json(old_val), "market_consistent_value") if old_val.is_file() else None,
-        new_value=_line_values(read_json(new_val), "market_consistent_value") if new_val.is_file() else None,
+        old_value=_line_values(old_val, MARKET_CONSISTENT) if old_val.is_file() else None,
+        new_value=_line_values(new_val, MARKET_CONSISTENT) if new_val.is_file() else None,
     )
     result["order"] = [s.name for s in STEPS]
     result["folder"] = {"configs": "configs", "steps": [f"steps/{p.run_dir.name}" for p in planned]}

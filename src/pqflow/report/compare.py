@@ -50,7 +50,9 @@ from pqflow.storage.calibration_file import (
     plugin_part_fields,
     read_calibration_file,
 )
-from pqflow.storage.jsonio import read_json
+from pqflow.storage.manifest import MANIFEST, read_manifest
+from pqflow.storage.validation_summary import VALIDATION_SUMMARY, ValidationSummary, read_validation_summary
+from pqflow.storage.valuation_summary import VALUATION_SUMMARY, ValuationSummary, read_valuation_summary
 
 __all__ = [
     "Move",
@@ -173,10 +175,9 @@ def _load(run: Path) -> dict[str, Any]:
     if not cal_path.is_file():
         raise IntegrityError(f"{run}: no {CALIBRATION_FILE}; not a pqflow run directory")
     out: dict[str, Any] = {"cal": read_calibration_file(cal_path)}
-    for key, rel in (("summary", "validation/summary.json"), ("manifest", "manifest.json"),
-                     ("valuation", "valuation/summary.json")):
-        path = run / rel
-        out[key] = read_json(path) if path.is_file() else {}
+    out["summary"] = read_validation_summary(run / VALIDATION_SUMMARY) if (run / VALIDATION_SUMMARY).is_file() else None
+    out["manifest"] = read_manifest(run) if (run / MANIFEST).is_file() else None
+    out["valuation"] = read_valuation_summary(run / VALUATION_SUMMARY) if (run / VALUATION_SUMMARY).is_file() else None
     return out
 
 
@@ -368,51 +369,57 @@ def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
     return out
 
 
-def _verdicts(summary: dict[str, Any]) -> dict[str, tuple[Any, str]]:
+def _verdicts(summary: ValidationSummary | None) -> dict[str, tuple[Any, str]]:
     out: dict[str, tuple[Any, str]] = {}
-    for name, c in (summary.get("checks") or {}).items():
-        out[name.replace("_", " ")] = (c.get("verdict"), "text")
-        bench = c.get("wealth_ratio_benchmark")
+    if summary is None:
+        return out
+    for name, c in summary.checks.items():
+        out[name.replace("_", " ")] = (c.verdict, "text")
+        bench = c.wealth_ratio_benchmark
         if isinstance(bench, dict) and "verdict" in bench:
             out["equity wealth ratios vs 2005 benchmark (reported)"] = (bench.get("verdict"), "text")
-    if summary:
-        out["overall verdict"] = (summary.get("verdict"), "text")
+    out["overall verdict"] = (summary.verdict, "text")
     return out
 
 
-def _liabilities(val: dict[str, Any]) -> dict[str, tuple[Any, str]]:
+def _liabilities(val: ValuationSummary | None) -> dict[str, tuple[Any, str]]:
     from pqflow.report.html import liability_rows
 
     out: dict[str, tuple[Any, str]] = {}
-    for r in liability_rows(val) if val else []:
+    for r in liability_rows(val) if val is not None else []:
         for key, label in (("be", "best estimate"), ("guarantee", "guarantee value"), ("tvog", "TVOG")):
             out[f"{r['label']}: {label}"] = (r.get(key), "money")
     return out
 
 
-def _liability_se(val: dict[str, Any]) -> dict[str, float | None]:
+def _liability_se(val: ValuationSummary | None) -> dict[str, float | None]:
     from pqflow.report.html import liability_rows
 
     out: dict[str, float | None] = {}
-    for r in liability_rows(val) if val else []:
+    for r in liability_rows(val) if val is not None else []:
         for key, label in (("be", "best estimate"), ("guarantee", "guarantee value"), ("tvog", "TVOG")):
             out[f"{r['label']}: {label}"] = r.get(f"{key}_se")
     return out
 
 
+def _currency(val: ValuationSummary | None) -> str:
+    return str(val.currency if val is not None and val.currency is not None else "")
+
+
 def _identity(run: dict[str, Any]) -> dict[str, tuple[Any, str]]:
     cal, man = run["cal"], run["manifest"]
     return {
-        "run name": (man.get("run_name"), "text"),
-        "run id": (man.get("run_id"), "text"),
+        "run name": (man.run_name if man else None, "text"),
+        "run id": (man.run_id if man else None, "text"),
         "valuation date": (cal.valuation_date, "text"),
-        "configuration sha256": (man.get("config_sha256"), "text"),
+        "configuration sha256": (man.config_sha256 if man else None, "text"),
         "calibration inputs sha256": (cal.inputs_sha256, "text"),
-        "root seed": (str((man.get("seeds") or {}).get("root_seed")) if man else None, "text"),
-        "scenarios per set": (", ".join(f"{k.replace('_', ' ')} {fmt.count(v)}" for k, v in (man.get("scenarios")
-                                                                                             or {}).items())
+        "root seed": (str(man.root_seed) if man else None, "text"),
+        "scenarios per set": (", ".join(f"{k.replace('_', ' ')} {fmt.count(v)}" for k, v in ((man.scenarios if man
+                                                                                              else None) or {}).items())
                               or None, "text"),
-        "pqflow version": (man.get("pqflow_version", cal.pqflow_version), "text"),
+        "pqflow version": (man.pqflow_version if man and man.pqflow_version is not None else cal.pqflow_version,
+                           "text"),
     }
 
 
@@ -450,7 +457,7 @@ def compare_runs(old_run: str | Path, new_run: str | Path) -> Comparison:
     checks = _pairwise("checks", _verdicts(a["summary"]), _verdicts(b["summary"]), sort=False)
     liab: list[Move] = []
     se: dict[str, tuple[float | None, float | None]] = {}
-    if a["valuation"] and b["valuation"]:
+    if a["valuation"] is not None and b["valuation"] is not None:
         liab = _pairwise("liabilities", _liabilities(a["valuation"]), _liabilities(b["valuation"]), sort=False)
         sa, sb = _liability_se(a["valuation"]), _liability_se(b["valuation"])
         se = {k: (sa.get(k), sb.get(k)) for k in dict.fromkeys([*sa, *sb])}
@@ -458,7 +465,7 @@ def compare_runs(old_run: str | Path, new_run: str | Path) -> Comparison:
         old_run=str(old_run), new_run=str(new_run), identity=tuple(identity), inputs=tuple(inputs),
         parameters=tuple(params), checks=tuple(checks), liabilities=tuple(liab),
         curves={"old": _curve_series(a), "new": _curve_series(b)},
-        currency=str((b["valuation"] or a["valuation"] or {}).get("currency", "")), liability_se=se,
+        currency=_currency(b["valuation"] or a["valuation"]), liability_se=se,
     )
 
 

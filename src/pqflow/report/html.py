@@ -47,9 +47,18 @@ from pqflow.storage.calibration_file import (
     plugin_part_fields,
     read_calibration_file,
 )
-from pqflow.storage.jsonio import read_json, write_text_atomic
+from pqflow.storage.jsonio import write_text_atomic
+from pqflow.storage.manifest import MANIFEST, ManifestRecord, read_manifest
 from pqflow.storage.names import bond_maturity_of, density_column, spread_prefix
 from pqflow.storage.scenario_set import ScenarioSet
+from pqflow.storage.validation_summary import (
+    VALIDATION_SUMMARY,
+    CheckSummary,
+    ValidationSummary,
+    check_counts_toward_verdict,
+    read_validation_summary,
+)
+from pqflow.storage.valuation_summary import VALUATION_SUMMARY, ValuationSummary, read_valuation_summary
 from pqflow.validation.run_files import gather_at_times
 
 __all__ = [
@@ -322,52 +331,56 @@ def _short(text: Any) -> str:
     return t[:12] if len(t) >= 32 else t or fmt.DASH
 
 
-def _one_line(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRecord) -> str:
+def _or(value: Any, default: Any) -> Any:
+    """``value``, or ``default`` where the file does not record it."""
+    return default if value is None else value
+
+
+def _one_line(run_dir: Path, manifest: ManifestRecord | None, cal: CalibrationRecord) -> str:
     """The run's identity in one line."""
-    m = manifest or {}
-    scen = m.get("scenarios")
+    m = manifest
+    scen = m.scenarios if m else None
     scen_text = (" + ".join(fmt.count(v) for v in scen.values()) + " scenarios (Q + P)") if isinstance(scen, dict) \
         else ""
-    horizon = m.get("horizon_years")
+    horizon = m.horizon_years if m else None
     h = max(horizon.values()) if isinstance(horizon, dict) and horizon else None
     parts = [
-        f"<strong>{escape(str(m.get('run_name', run_dir.name)))}</strong>",
+        f"<strong>{escape(str(_or(m.run_name if m else None, run_dir.name)))}</strong>",
         f"valuation date {escape(str(cal.valuation_date or fmt.DASH))}",
-        f"run {escape(_short(m.get('run_id')))}" if m else "manifest not written yet",
-        f"created {escape(str(m.get('created_utc', fmt.DASH)).replace('T', ' ').replace('+00:00', ' UTC'))}" if m
+        f"run {escape(_short(m.run_id))}" if m else "manifest not written yet",
+        f"created {escape(str(_or(m.created_utc, fmt.DASH)).replace('T', ' ').replace('+00:00', ' UTC'))}" if m
         else "",
-        f"configuration {escape(_short(m.get('config_sha256')))}" if m else "",
-        f"seed {escape(str((m.get('seeds') or {}).get('root_seed', fmt.DASH)))}" if m else "",
+        f"configuration {escape(_short(m.config_sha256))}" if m else "",
+        f"seed {escape(str(_or(m.root_seed, fmt.DASH)))}" if m else "",
         escape(scen_text) if scen_text else "",
         f"{fmt.years(h)} years" if h is not None else "",
-        f"pqflow {escape(str(m.get('pqflow_version', cal.pqflow_version or '?')))}",
+        f"pqflow {escape(str(_or(m.pqflow_version if m else None, cal.pqflow_version or '?')))}",
     ]
     return '<p class="oneline">' + " · ".join(p for p in parts if p) + "</p>"
 
 
-def _identity(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRecord) -> str:
+def _identity(run_dir: Path, manifest: ManifestRecord | None, cal: CalibrationRecord) -> str:
     if manifest is None:
         pairs: list[tuple[str, Any]] = [
             ("manifest", "not written yet: identity from calibration.json only"),
             ("valuation date", str(cal.valuation_date or fmt.DASH)),
         ]
     else:
-        seeds = manifest.get("seeds", {})
         pairs = [
-            ("run name", str(manifest.get("run_name", fmt.DASH))),
-            ("run id", str(manifest.get("run_id", fmt.DASH))),
-            ("valuation date", str(manifest.get("valuation_date", fmt.DASH))),
-            ("created (UTC)", str(manifest.get("created_utc", fmt.DASH))),
-            ("configuration sha256", str(manifest.get("config_sha256", fmt.DASH))),
-            ("root seed", str(seeds.get("root_seed", fmt.DASH))),
-            ("seed scheme", str(seeds.get("scheme", fmt.DASH))),
-            ("scenarios per set", _per_set(manifest.get("scenarios"))),
-            ("output times", _per_set(manifest.get("output_times"))),
-            ("horizon (years)", _per_set(manifest.get("horizon_years"))),
-            ("antithetic", "yes" if manifest.get("antithetic") else "no"),
-            ("versions", f"pqflow {manifest.get('pqflow_version', '?')}, Python {manifest.get('python', '?')}, "
-                         f"numpy {manifest.get('numpy', '?')}, pyarrow {manifest.get('pyarrow', '?')}"),
-            ("files in manifest", len(manifest.get("files", []))),
+            ("run name", str(_or(manifest.run_name, fmt.DASH))),
+            ("run id", str(_or(manifest.run_id, fmt.DASH))),
+            ("valuation date", str(_or(manifest.valuation_date, fmt.DASH))),
+            ("created (UTC)", str(_or(manifest.created_utc, fmt.DASH))),
+            ("configuration sha256", str(_or(manifest.config_sha256, fmt.DASH))),
+            ("root seed", str(_or(manifest.root_seed, fmt.DASH))),
+            ("seed scheme", str(_or(manifest.seed_scheme, fmt.DASH))),
+            ("scenarios per set", _per_set(manifest.scenarios)),
+            ("output times", _per_set(manifest.output_times)),
+            ("horizon (years)", _per_set(manifest.horizon_years)),
+            ("antithetic", "yes" if manifest.antithetic else "no"),
+            ("versions", f"pqflow {_or(manifest.pqflow_version, '?')}, Python {_or(manifest.python, '?')}, "
+                         f"numpy {_or(manifest.numpy, '?')}, pyarrow {_or(manifest.pyarrow, '?')}"),
+            ("files in manifest", len(manifest.files)),
         ]
     pairs.append(("calibration inputs sha256", str(cal.inputs_sha256 or fmt.DASH)))
     return _kv(pairs)
@@ -375,28 +388,28 @@ def _identity(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRe
 
 # -- verdicts and warnings --------------------------------------------------------------------
 
-def _check_figure(c: dict[str, Any]) -> str:
+def _check_figure(c: CheckSummary) -> str:
     """The key number of a check: its largest |z| against the family limit, and what is
     inconclusive."""
     bits = []
-    if fmt.is_number(c.get("max_abs_z")):
-        bits.append(f"max |z| {fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}")
-    if c.get("inconclusive_cells"):
-        when = c.get("inconclusive_from_time")
-        bits.append(f"{fmt.count(c['inconclusive_cells'])} cells inconclusive"
+    if fmt.is_number(c.max_abs_z):
+        bits.append(f"max |z| {fmt.zscore(c.max_abs_z)} / {fmt.zscore(c.family_critical_z)}")
+    if c.inconclusive_cells:
+        when = c.inconclusive_from_time
+        bits.append(f"{fmt.count(c.inconclusive_cells)} cells inconclusive"
                     + (f" from t = {fmt.years(when)}" if fmt.is_number(when) else ""))
     return "; ".join(bits) or fmt.DASH
 
 
-def _densities(summary: dict[str, Any], manifest: dict[str, Any] | None) -> list[dict[str, Any]]:
+def _densities(summary: ValidationSummary, manifest: ManifestRecord | None) -> list[dict[str, Any]]:
     """Usable horizon of each density: from ``summary["densities"]`` when the run has it; an
     older run without it gets the time its ESS fell below the warning share, marked as such."""
     horizon = None
-    if manifest and isinstance(manifest.get("horizon_years"), dict) and manifest["horizon_years"]:
-        horizon = max(manifest["horizon_years"].values())
+    if manifest and isinstance(manifest.horizon_years, dict) and manifest.horizon_years:
+        horizon = max(manifest.horizon_years.values())
     rows = []
-    if isinstance(summary.get("densities"), list):
-        for d in summary["densities"]:
+    if summary.densities is not None:
+        for d in summary.densities:
             usable = d.get("usable_horizon")
             rows.append({
                 "density": f"{d.get('column', '')}, {MEASURE_NAME.get(d.get('measure'), d.get('measure'))} set",
@@ -408,19 +421,20 @@ def _densities(summary: dict[str, Any], manifest: dict[str, Any] | None) -> list
             })
         return rows
     for measure in MEASURES:
-        c = (summary.get("checks") or {}).get(f"density_{measure}")
-        if not c:
+        chk = summary.check(f"density_{measure}")
+        if not chk:
             continue
-        below = c.get("ess_below_warning_from_time")
+        c = chk.extras
+        below = chk.ess_below_warning_from_time
         at = c.get("at_horizon") or {}
         col = density_column(measure)
         rows.append({
             "density": f"{col}, {MEASURE_NAME[measure]} set",
             "block": "full density",
             "usable": ("not assessed in this run; ESS above "
-                       f"{fmt.share(c.get('ess_warning_share'), 0)} throughout" if below is None else
+                       f"{fmt.share(chk.ess_warning_share, 0)} throughout" if below is None else
                        f"not assessed in this run; ESS below "
-                       f"{fmt.share(c.get('ess_warning_share'), 0)} from t = {fmt.years(below)}"),
+                       f"{fmt.share(chk.ess_warning_share, 0)} from t = {fmt.years(below)}"),
             "limited": below is not None and (horizon is None or below < horizon),
             "ess": fmt.share(at.get("ess_share")),
             "max_w": fmt.share(at.get("max_weight_share")),
@@ -428,31 +442,31 @@ def _densities(summary: dict[str, Any], manifest: dict[str, Any] | None) -> list
     return rows
 
 
-def _warnings(summary: dict[str, Any], valuation: dict[str, Any] | None) -> list[str]:
+def _warnings(summary: ValidationSummary, valuation: ValuationSummary | None) -> list[str]:
     out: list[str] = []
-    horizons = isinstance(summary.get("densities"), list)  # then one line per density says it, below
-    for name, c in (summary.get("checks") or {}).items():
-        for w in c.get("warnings", []) or []:
+    horizons = summary.densities is not None  # then one line per density says it, below
+    for name, c in summary.checks.items():
+        for w in c.warnings:
             if horizons and "effective sample size" in str(w):
                 continue
             for m in MEASURES:  # "real_world: ..." reads as "real world (P): ..."
                 w = w.replace(f"{m}:", f"{MEASURE_NAME[m]}:")
             out.append(str(w))
-        if c.get("verdict") == "inconclusive":
+        if c.verdict == "inconclusive":
             out.append(f"{name.replace('_', ' ')} is inconclusive: {_check_figure(c)}")
-    inc = summary.get("inconclusive")
-    if isinstance(inc, dict) and inc.get("cells"):
-        when = inc.get("from_time")
-        out.append(f"{fmt.count(inc['cells'])} cells cannot be judged"
+    inc = summary.inconclusive
+    if inc is not None and inc.cells:
+        when = inc.from_time
+        out.append(f"{fmt.count(inc.cells)} cells cannot be judged"
                    + (f" from t = {fmt.years(when)}" if fmt.is_number(when) else "")
-                   + (f" ({', '.join(map(str, inc.get('checks') or []))})" if inc.get("checks") else ""))
-    for d in summary.get("densities", []) if isinstance(summary.get("densities"), list) else []:
+                   + (f" ({', '.join(map(str, inc.checks))})" if inc.checks else ""))
+    for d in summary.densities or ():
         if d.get("usable_horizon") is not None:
             out.append(f"density {d.get('column')} ({MEASURE_NAME.get(d.get('measure'), d.get('measure'))}"
                        f"{', ' + str(d['block']) if d.get('block') else ''}) usable only to "
                        f"t = {fmt.years(d['usable_horizon'])} years")
-    if valuation:
-        rec = valuation.get("reconciliation") or {}
+    if valuation is not None:
+        rec = valuation.reconciliation or {}
         if rec.get("verdict") == "differ":
             out.append(f"liability valuation: market-consistent and deflated real-world values differ "
                        f"(worst {rec.get('worst_line')}: {fmt.zscore(rec.get('max_abs_difference_in_se'))} SE)")
@@ -463,46 +477,46 @@ def _warnings(summary: dict[str, Any], valuation: dict[str, Any] | None) -> list
     return out
 
 
-def _verdict_rows(summary: dict[str, Any]) -> list[tuple[str, str, str, str]]:
+def _verdict_rows(summary: ValidationSummary) -> list[tuple[str, str, str, str]]:
     """(check anchor name, label, figure, badge) for every check and informational result."""
     rows = []
-    for name, c in (summary.get("checks") or {}).items():
-        counts = c.get("counts_toward_verdict", True)
-        rows.append((name, name.replace("_", " "), _check_figure(c), _badge(c.get("verdict"), counts)))
-        bench = c.get("wealth_ratio_benchmark")
+    for name, c in summary.checks.items():
+        counts = c.counts_toward_verdict
+        rows.append((name, name.replace("_", " "), _check_figure(c), _badge(c.verdict, counts)))
+        bench = c.wealth_ratio_benchmark
         if isinstance(bench, dict) and "verdict" in bench:
             rows.append((name, "equity wealth ratios vs 2005 benchmark",
                          f"{fmt.count(bench.get('failed'))} of {fmt.count(bench.get('comparisons'))} "
                          "percentiles missed",
-                         _badge(bench.get("verdict"), bench.get("counts_toward_verdict", False))))
+                         _badge(bench.get("verdict"), check_counts_toward_verdict(bench, default=False))))
     return rows
 
 
-def _verdicts(run_dir: Path, summary: dict[str, Any], valuation: dict[str, Any] | None) -> str:
+def _verdicts(run_dir: Path, summary: ValidationSummary, valuation: ValuationSummary | None) -> str:
     rows = []
-    for name, c in (summary.get("checks") or {}).items():
-        counts = c.get("counts_toward_verdict", True)
+    for name, c in summary.checks.items():
+        counts = c.counts_toward_verdict
         rows.append(
             f'<tr><td class="l"><a href="#check-{escape(name)}">{escape(name.replace("_", " "))}</a></td>'
-            f'<td class="l">{escape(str(c.get("kind", "")))}</td><td class="num">{_num(c.get("cells"))}</td>'
+            f'<td class="l">{escape(str(_or(c.kind, "")))}</td><td class="num">{_num(c.cells)}</td>'
             f'<td class="num">{escape(_check_figure(c))}</td>'
-            f"<td>{_badge(c.get('verdict'), counts)}</td></tr>"
+            f"<td>{_badge(c.verdict, counts)}</td></tr>"
         )
-        bench = c.get("wealth_ratio_benchmark")
+        bench = c.wealth_ratio_benchmark
         if isinstance(bench, dict):
             rows.append(
                 f'<tr><td class="l">&nbsp;&nbsp;equity wealth ratios (2005 benchmark)</td><td class="l">'
                 f'{escape(str(bench.get("source", "")))}</td><td class="num">{_num(bench.get("comparisons"))}</td>'
                 f'<td class="num">{escape(fmt.count(bench.get("failed")))} missed</td>'
-                f'<td>{_badge(bench.get("verdict"), bench.get("counts_toward_verdict", False))}</td></tr>'
+                f'<td>{_badge(bench.get("verdict"), check_counts_toward_verdict(bench, default=False))}</td></tr>'
             )
     power = [{"check": name.replace("_", " "),
-              "deviation": (fmt.number(c["material_deviation"]) if fmt.is_number(c.get("material_deviation"))
-                            else str(c.get("material_deviation") if c.get("material_deviation") is not None
+              "deviation": (fmt.number(c.material_deviation) if fmt.is_number(c.material_deviation)
+                            else str(c.material_deviation if c.material_deviation is not None
                                      else fmt.DASH)),
-              "rule": str(c.get("power_rule") or fmt.DASH)}
-             for name, c in (summary.get("checks") or {}).items() if c.get("power_rule")
-             or c.get("material_deviation") is not None]
+              "rule": str(c.power_rule or fmt.DASH)}
+             for name, c in summary.checks.items() if c.power_rule
+             or c.material_deviation is not None]
     power_html = ("<h3>What each check can detect</h3>" + _table(
         power, [("check", "check"), ("deviation", "material deviation"), ("rule", "power rule")],
         fmts={k: _text_cell(k) for k in ("check", "deviation", "rule")})) if power else ""
@@ -510,8 +524,8 @@ def _verdicts(run_dir: Path, summary: dict[str, Any], valuation: dict[str, Any] 
     warn_html = ("<h3>Warnings</h3><ul class=\"warn\">" + "".join(f"<li>{escape(w)}</li>" for w in warnings)
                  + "</ul>") if warnings else '<p class="note">No warnings.</p>'
     return (
-        f"<p class=\"verdict-line\">Overall verdict: {_badge(summary.get('verdict'))}</p>"
-        f"<p class=\"note\">{escape(str(summary.get('rule', '')))}</p>"
+        f"<p class=\"verdict-line\">Overall verdict: {_badge(summary.verdict)}</p>"
+        f"<p class=\"note\">{escape(str(_or(summary.rule, '')))}</p>"
         + warn_html +
         "<table><thead><tr><th class=\"l\">check</th><th class=\"l\">what it tests</th><th>cells</th>"
         "<th>key figure</th><th>verdict</th></tr></thead><tbody>" + "".join(rows) + "</tbody></table>"
@@ -933,21 +947,21 @@ def _scenarios(run_dir: Path) -> str:
 
 # -- checks ------------------------------------------------------------------------------------
 
-def _martingale(run_dir: Path, summary: dict[str, Any]) -> str:
+def _martingale(run_dir: Path, summary: ValidationSummary) -> str:
     table = _csv(run_dir, "martingale")
     html = []
     for measure in MEASURES:
-        c = summary.get("checks", {}).get(f"martingale_{measure}", {})
+        c = summary.check_or_absent(f"martingale_{measure}")
         html.append(f'<h3 id="check-martingale_{measure}">{escape(MEASURE_NAME[measure])} '
-                    f"{_badge(c.get('verdict'))}</h3>")
-        worst = c.get("worst_cell") or {}
+                    f"{_badge(c.verdict)}</h3>")
+        worst = c.extras.get("worst_cell") or {}
         html.append(_kv([
-            ("cells", fmt.count(c.get("cells"))),
+            ("cells", fmt.count(c.cells)),
             ("outside 95% / by chance",
-             f"{fmt.count(c.get('outside_95'))} / {fmt.number(c.get('expected_outside_95_by_chance'), 3)}"),
+             f"{fmt.count(c.outside_95)} / {fmt.number(c.expected_outside_95_by_chance, 3)}"),
             ("outside 99% / by chance",
-             f"{fmt.count(c.get('outside_99'))} / {fmt.number(c.get('expected_outside_99_by_chance'), 3)}"),
-            ("max |z| / family limit", f"{fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}"),
+             f"{fmt.count(c.outside_99)} / {fmt.number(c.expected_outside_99_by_chance, 3)}"),
+            ("max |z| / family limit", f"{fmt.zscore(c.max_abs_z)} / {fmt.zscore(c.family_critical_z)}"),
             ("worst cell",
              ", ".join(f"{k} {fmt.zscore(v) if k == 'z_score' else fmt.number(v, 6) if not isinstance(v, str) else v}"
                                      for k, v in worst.items())),
@@ -967,8 +981,7 @@ def _martingale(run_dir: Path, summary: dict[str, Any]) -> str:
                     "1 ± z SE at the family limit; Q and P panels of one asset share the y-axis.</p>")
         for a in chosen:
             subs = {m: table[(table["measure"] == m) & (table["asset"] == a)] for m in MEASURES}
-            zs = {m: float(summary.get("checks", {}).get(f"martingale_{m}", {}).get("family_critical_z", 2.58) or 2.58)
-                  for m in MEASURES}
+            zs = {m: summary.check_or_absent(f"martingale_{m}").critical_z(2.58) for m in MEASURES}
             lo, hi = _span(*[np.r_[s["ratio"].to_numpy(), 1 - zs[m] * s["ratio_std_error"].to_numpy(),
                                    1 + zs[m] * s["ratio_std_error"].to_numpy()] for m, s in subs.items()])
             charts = []
@@ -986,34 +999,35 @@ def _martingale(run_dir: Path, summary: dict[str, Any]) -> str:
     return "".join(html)
 
 
-def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | None) -> str:
+def _density(run_dir: Path, summary: ValidationSummary, manifest: ManifestRecord | None) -> str:
     table = _csv(run_dir, "density")
     html = []
     share = None
     for measure in MEASURES:
-        c = summary.get("checks", {}).get(f"density_{measure}", {})
-        share = c.get("ess_warning_share", share)
+        c = summary.check_or_absent(f"density_{measure}")
+        share = c.ess_warning_share_or(share)
+        extra = c.extras
         col = "q_density (dQ/dP)" if measure == "real_world" else "p_density (dP/dQ)"
         html.append(f'<h3 id="check-density_{measure}">{escape(MEASURE_NAME[measure])}: {col} '
-                    f"{_badge(c.get('verdict'))}</h3>")
-        at = c.get("at_horizon") or {}
+                    f"{_badge(c.verdict)}</h3>")
+        at = extra.get("at_horizon") or {}
         pairs = [
             ("max |z| of the mean weight / family limit",
-             f"{fmt.zscore(c.get('max_abs_z'))} / {fmt.zscore(c.get('family_critical_z'))}"),
-            ("lowest ESS share", fmt.share(c.get("min_ess_share"))),
-            ("largest single-path weight share", fmt.share(c.get("max_weight_share"))),
-            ("ESS below warning share from", "never" if c.get("ess_below_warning_from_time") is None
-             else f"t = {fmt.years(c['ess_below_warning_from_time'])} years"),
+             f"{fmt.zscore(c.max_abs_z)} / {fmt.zscore(c.family_critical_z)}"),
+            ("lowest ESS share", fmt.share(extra.get("min_ess_share"))),
+            ("largest single-path weight share", fmt.share(extra.get("max_weight_share"))),
+            ("ESS below warning share from", "never" if c.ess_below_warning_from_time is None
+             else f"t = {fmt.years(c.ess_below_warning_from_time)} years"),
             ("at the horizon: mean weight ± SE", fmt.price_se(at.get("mean_weight"), at.get("std_error"))),
         ]
-        if c.get("inconclusive_cells"):
+        if c.inconclusive_cells:
             pairs.append(("cells that cannot be judged", _check_figure(c)))
-        if c.get("power_rule"):
-            pairs.append(("power rule", str(c["power_rule"])))
-        if c.get("material_deviation") is not None:
-            pairs.append(("material deviation", fmt.number(c["material_deviation"])
-                          if fmt.is_number(c["material_deviation"])
-                          else str(c["material_deviation"])))
+        if c.power_rule:
+            pairs.append(("power rule", str(c.power_rule)))
+        if c.material_deviation is not None:
+            pairs.append(("material deviation", fmt.number(c.material_deviation)
+                          if fmt.is_number(c.material_deviation)
+                          else str(c.material_deviation)))
         html.append(_kv(pairs))
     dens = _densities(summary, manifest)
     if dens:
@@ -1022,7 +1036,7 @@ def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | 
                                   ("ess", "ESS share at horizon"), ("max_w", "largest weight share at horizon")],
                            fmts={k: _str_cell(k) for k in ("density", "block", "usable", "ess",
                                                                                  "max_w")}))
-    budget = summary.get("density_budget")
+    budget = summary.density_budget
     if isinstance(budget, dict) and budget:
         html.append("<h3>Density budget: share of the log-density variance by price of risk</h3>")
         rows = [{"measure": MEASURE_NAME.get(m, m), "price": p, "share": v}
@@ -1038,8 +1052,7 @@ def _density(run_dir: Path, summary: dict[str, Any], manifest: dict[str, Any] | 
             x = t["time"].to_numpy()
             series_ess.append(svg.Series(label=MEASURE_NAME[measure], x=x, y=t["ess_share"].to_numpy(),
                                          colour=svg.PALETTE[i]))
-            c = summary.get("checks", {}).get(f"density_{measure}", {})
-            z = float(c.get("family_critical_z", 2.58) or 2.58)
+            z = summary.check_or_absent(f"density_{measure}").critical_z(2.58)
             se = t["std_error"].to_numpy()
             series_w.append(svg.Series(label=MEASURE_NAME[measure], x=x, y=t["mean_weight"].to_numpy(),
                                        colour=svg.PALETTE[i]))
@@ -1066,8 +1079,8 @@ def _vol_text(v: Any, r: dict[str, Any]) -> str:
     return fmt.bp(1e4 * float(v), 1) if _is_normal(r) else fmt.vol_points(v) + " pts"
 
 
-def _market_consistency(run_dir: Path, summary: dict[str, Any]) -> str:
-    c = summary.get("checks", {}).get("market_consistency")
+def _market_consistency(run_dir: Path, summary: ValidationSummary) -> str:
+    c = summary.check_entry("market_consistency")
     if c is None:
         return '<p class="note">This run predates the market-consistency check.</p>'
     html = [f'<h3 id="check-market_consistency">Calibration instruments repriced from the files '
@@ -1146,11 +1159,12 @@ def _pct_format(quantity: str) -> Callable[[Any], str]:
     return lambda v: fmt.number(v, 4)
 
 
-def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
-    c = summary.get("checks", {}).get("real_world")
-    if c is None:
+def _real_world(run_dir: Path, summary: ValidationSummary) -> str:
+    chk = summary.check("real_world")
+    if chk is None:
         return '<p class="note">This run predates the real-world check.</p>'
-    html = [f'<h3 id="check-real_world">Targets {_badge(c.get("verdict"))}</h3>',
+    c = chk.entry
+    html = [f'<h3 id="check-real_world">Targets {_badge(chk.verdict)}</h3>',
             f'<p class="note">{escape(str(c.get("rule", "")))}</p>']
     fit = c.get("house_view_fit")
     if fit:
@@ -1160,7 +1174,7 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
     targets = _csv(run_dir, "real_world_targets")
     charts = []
     if targets is not None and len(targets):
-        z = float(c.get("family_critical_z", 2.58) or 2.58)
+        z = chk.critical_z(2.58)
         for name, t in targets.groupby("target", sort=False):
             x = t["time"].to_numpy()
             se = t["std_error"].to_numpy()
@@ -1185,9 +1199,9 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
                     "and in real_world_targets.csv.</p>")
     html.append(_grid(charts))
     html.append(_files(run_dir, ["real_world_targets.csv"]))
-    bench = c.get("wealth_ratio_benchmark") or {}
+    bench = chk.wealth_ratio_benchmark or {}
     html.append(f"<h3>Equity gross wealth ratios against the 2005 benchmark "
-                f"{_badge(bench.get('verdict'), bench.get('counts_toward_verdict', False))}</h3>")
+                f"{_badge(bench.get('verdict'), check_counts_toward_verdict(bench, default=False))}</h3>")
     html.append(f'<p class="note">Reported beside the verdict, not part of it. {escape(str(bench.get("source", "")))}; '
                 f'{escape(str(bench.get("rule", "")))}. The benchmark numbers were written into the project '
                 "from memory.</p>")
@@ -1243,8 +1257,8 @@ def _real_world(run_dir: Path, summary: dict[str, Any]) -> str:
     return "".join(html)
 
 
-def _reconciliation(run_dir: Path, summary: dict[str, Any]) -> str:
-    c = summary.get("checks", {}).get("reconciliation")
+def _reconciliation(run_dir: Path, summary: ValidationSummary) -> str:
+    c = summary.check_entry("reconciliation")
     if c is None:
         return '<p class="note">This run predates the reconciliation check.</p>'
     html = [f'<h3 id="check-reconciliation">Maturity guarantee three ways {_badge(c.get("verdict"))}</h3>',
@@ -1296,45 +1310,44 @@ _LINE_NAME = {"unit_linked_gmmb": "unit-linked with maturity guarantee",
               "deferred_annuity_gao": "deferred annuity with GAO", "total": "total"}
 
 
-def _valuation(run_dir: Path) -> dict[str, Any] | None:
-    path = run_dir / "valuation" / "summary.json"
-    return read_json(path) if path.is_file() else None
+def _valuation(run_dir: Path) -> ValuationSummary | None:
+    path = run_dir / VALUATION_SUMMARY
+    return read_valuation_summary(path) if path.is_file() else None
 
 
-def liability_rows(val: dict[str, Any]) -> list[dict[str, Any]]:
+def liability_rows(val: ValuationSummary) -> list[dict[str, Any]]:
     """One row per product line and the total: best estimate, guarantee and TVOG, each with its
     SE (market-consistent values). Used by the sign-off page, the CLI and compare."""
     by: dict[str, dict[str, Any]] = {}
-    for line in val.get("lines", []):
-        if line.get("level") not in ("product", "total"):
+    for line in val.lines:
+        if line.level not in ("product", "total"):
             continue
-        row = by.setdefault(line["name"], {"line": line["name"], "label": _LINE_NAME.get(line["name"], line["name"])})
-        if line.get("quantity") == "best_estimate":
-            row.update(be=line.get("market_consistent_value"), be_se=line.get("market_consistent_se"),
-                       tvog=line.get("tvog"), tvog_se=line.get("tvog_se", line.get("market_consistent_se")),
-                       ce=line.get("certainty_equivalent_value"))
-        elif line.get("quantity") == "guarantee":
-            row.update(guarantee=line.get("market_consistent_value"), guarantee_se=line.get("market_consistent_se"))
+        row = by.setdefault(line.name, {"line": line.name, "label": _LINE_NAME.get(line.name, line.name)})
+        if line.quantity == "best_estimate":
+            row.update(be=line.market_consistent_value, be_se=line.market_consistent_se,
+                       tvog=line.tvog, tvog_se=line.tvog_se, ce=line.certainty_equivalent_value)
+        elif line.quantity == "guarantee":
+            row.update(guarantee=line.market_consistent_value, guarantee_se=line.market_consistent_se)
     return list(by.values())
 
 
-def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
+def _liabilities(run_dir: Path, val: ValuationSummary | None) -> str:
     if val is None:
         return ('<p class="note">No liability valuation in this run directory. Run '
                 "<code>pqflow value RUN_DIR --liabilities FILE</code> and then <code>pqflow report RUN_DIR</code>.</p>")
-    rec = val.get("reconciliation", {})
+    rec = val.reconciliation if val.reconciliation is not None else {}
     verdict = {"agree": "pass", "differ": "fail"}.get(str(rec.get("verdict")), rec.get("verdict"))
     rule = (f'<p class="note">Rule: {escape(str(rec["rule"]))}.'
             + (f' Inconclusive: {escape(", ".join(rec["inconclusive_lines"]))}.'
                if rec.get("inconclusive_lines") else "")
             + "</p>") if rec.get("rule") else ""
-    cur = str(val.get("currency", ""))
-    html = [f"<h3>{escape(str(val.get('insurer', '')))}: best estimate and TVOG {_badge(verdict)}</h3>",
-            f'<p class="note">Portfolio {escape(str(val.get("portfolio_file", "")))}; values in {escape(cur)} '
-            f'(whole units) at {escape(str(val.get("valuation_date", "")))}. Real-world values use the deflator '
+    cur = str(_or(val.currency, ""))
+    html = [f"<h3>{escape(str(_or(val.insurer, '')))}: best estimate and TVOG {_badge(verdict)}</h3>",
+            f'<p class="note">Portfolio {escape(str(_or(val.portfolio_file, "")))}; values in {escape(cur)} '
+            f'(whole units) at {escape(str(_or(val.valuation_date, "")))}. Real-world values use the deflator '
             "(density over cash account); the difference from the market-consistent value is shown in "
             "standard errors of the difference.</p>"]
-    lines = [line for line in val.get("lines", []) if line.get("level") in ("product", "total")]
+    lines = [dict(line.entry) for line in val.lines if line.level in ("product", "total")]
     money = lambda k, se: (lambda r: escape(fmt.money_se(r.get(k), r.get(se)) if se else fmt.money(r.get(k))))  # noqa: E731
     html.append(_table(lines, [
         ("name", "line"), ("quantity", "quantity"),
@@ -1353,11 +1366,11 @@ def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
     }))
     if rule:
         html.append(rule)
-    html.append('<p class="note">' + " ".join(escape(c) for c in val.get("conventions", [])) + "</p>")
+    html.append('<p class="note">' + " ".join(escape(c) for c in val.conventions) + "</p>")
     html.append(_files(run_dir, ["../valuation/liability_values.csv", "../valuation/liability_cash_flows.csv",
                                  "../valuation/summary.json"]))
     sens = [{"sensitivity": e["sensitivity"], "quantity": q, **e[q]}
-            for e in val.get("sensitivities", []) for q in ("best_estimate", "guarantee", "tvog") if q in e]
+            for e in val.sensitivities or [] for q in ("best_estimate", "guarantee", "tvog") if q in e]
     if sens:
         html.append('<h3>Sensitivities (total)</h3><p class="note">Change from the base on the same scenarios '
                     "(common random numbers), its standard error, and the one independently seeded sets would give "
@@ -1383,10 +1396,10 @@ def _liabilities(run_dir: Path, val: dict[str, Any] | None) -> str:
 
 # -- the sign-off page -------------------------------------------------------------------------
 
-def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRecord, summary: dict[str, Any],
-             val: dict[str, Any] | None, signoff: SignOff, today: str) -> str:
+def _signoff(run_dir: Path, manifest: ManifestRecord | None, cal: CalibrationRecord, summary: ValidationSummary,
+             val: ValuationSummary | None, signoff: SignOff, today: str) -> str:
     html = [_one_line(run_dir, manifest, cal)]
-    html.append(f'<p class="verdict-line">Overall verdict {_badge(summary.get("verdict"))}</p>')
+    html.append(f'<p class="verdict-line">Overall verdict {_badge(summary.verdict)}</p>')
     warnings = _warnings(summary, val)
     if warnings:
         html.append('<ul class="warn">' + "".join(f"<li>{escape(w)}</li>" for w in warnings) + "</ul>")
@@ -1417,7 +1430,7 @@ def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRec
                 f'<h3>Density weights</h3>{dens_table}</div></div>')
     html.append(f"<h3>Calibrated parameters</h3>{params}")
     if val is not None:
-        cur = str(val.get("currency", ""))
+        cur = str(_or(val.currency, ""))
         lrows = liability_rows(val)
         html.append(f"<h3>Liabilities, market consistent ({escape(cur)}, ± one standard error)</h3>")
         html.append(_table(lrows, [("label", "line"), ("be", "best estimate"), ("guarantee", "guarantee value"),
@@ -1449,10 +1462,10 @@ def _signoff(run_dir: Path, manifest: dict[str, Any] | None, cal: CalibrationRec
 
 # -- the page ---------------------------------------------------------------------------------
 
-def signoff_from_manifest(manifest: dict[str, Any] | None, override: SignOff | None = None) -> SignOff:
+def signoff_from_manifest(manifest: ManifestRecord | None, override: SignOff | None = None) -> SignOff:
     """Names from the command line where given, else from the run's ``[signoff]`` table (kept
     in the manifest header), else blank."""
-    stored = (manifest or {}).get("signoff") or {}
+    stored = (manifest.signoff if manifest is not None else None) or {}
     o = override or SignOff()
     return SignOff(prepared_by=o.prepared_by or str(stored.get("prepared_by") or ""),
                    reviewed_by=o.reviewed_by or str(stored.get("reviewed_by") or ""))
@@ -1461,16 +1474,15 @@ def signoff_from_manifest(manifest: dict[str, Any] | None, override: SignOff | N
 def build_report_html(run_dir: str | Path, signoff: SignOff | None = None, *, today: str | None = None) -> str:
     """The report of a run directory as one HTML string (reads the run's files only)."""
     run_dir = Path(run_dir)
-    summary_path = run_dir / "validation" / "summary.json"
+    summary_path = run_dir / VALIDATION_SUMMARY
     cal_path = calibration_path(run_dir)
     if not summary_path.is_file() or not cal_path.is_file():
         raise IntegrityError(f"{run_dir}: needs {CALIBRATION_FILE} and validation/summary.json to write a report")
-    summary = read_json(summary_path)
+    summary = read_validation_summary(summary_path)
     cal = read_calibration_file(cal_path)
-    manifest_path = run_dir / "manifest.json"
-    manifest = read_json(manifest_path) if manifest_path.is_file() else None
+    manifest = read_manifest(run_dir) if (run_dir / MANIFEST).is_file() else None
     val = _valuation(run_dir)
-    name = (manifest or {}).get("run_name", run_dir.name)
+    name = _or(manifest.run_name if manifest is not None else None, run_dir.name)
     today = today or dt.date.today().isoformat()
     sections = {
         "signoff": _signoff(run_dir, manifest, cal, summary, val, signoff_from_manifest(manifest, signoff), today),

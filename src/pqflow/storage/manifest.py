@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 from collections.abc import Mapping
+from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
+from types import MappingProxyType
 from typing import Any
 
 import pyarrow.parquet as pq
@@ -14,6 +16,7 @@ from pqflow.storage.parquet import file_sha256
 
 __all__ = [
     "build_manifest", "verify_run", "load_manifest", "listed_parts", "MANIFEST", "DERIVED_VIEWS",
+    "ManifestRecord", "FileEntry", "manifest_record", "read_manifest",
 ]
 
 MANIFEST = "manifest.json"
@@ -158,3 +161,123 @@ def verify_run(root: str | Path) -> dict[str, Any]:
     if problems:
         raise IntegrityError(f"{root}: files do not match {MANIFEST}:\n  " + "\n  ".join(problems))
     return manifest
+
+
+# -- the manifest as a typed record ------------------------------------------------------------
+# The header keys are spelled here only; readers outside storage/ use :class:`ManifestRecord`.
+RUN_ID = "run_id"
+RUN_NAME = "run_name"
+CREATED_UTC = "created_utc"
+PQFLOW_VERSION = "pqflow_version"
+VALUATION_DATE = "valuation_date"
+CONFIG_SHA256 = "config_sha256"
+SEEDS = "seeds"
+ROOT_SEED = "root_seed"
+SEED_SCHEME = "scheme"
+SCENARIOS = "scenarios"
+OUTPUT_TIMES = "output_times"
+HORIZON_YEARS = "horizon_years"
+ANTITHETIC = "antithetic"
+SIGNOFF = "signoff"
+FILES = "files"
+PYTHON = "python"
+NUMPY = "numpy"
+PYARROW = "pyarrow"
+MEASURE_STREAMS = "measure_streams"
+BATCHES = "batches"
+CAUTION = "caution"
+REVALIDATED_UTC = "revalidated_utc"
+
+
+@dataclass(frozen=True)
+class FileEntry:
+    """One entry of the manifest's file list."""
+
+    path: str
+    bytes: int
+    sha256: str
+    rows: int | None = None  # Parquet files
+
+
+@dataclass(frozen=True)
+class ManifestRecord:
+    """``manifest.json`` of a run: the header typed (``None`` where an older run lacks a field),
+    the file entries as written, the whole document as :attr:`document`."""
+
+    files: tuple[Mapping[str, Any], ...]
+    run_id: str | None = None
+    run_name: str | None = None
+    created_utc: str | None = None
+    pqflow_version: str | None = None
+    python: str | None = None
+    numpy: str | None = None
+    pyarrow: str | None = None
+    valuation_date: str | None = None
+    config_sha256: str | None = None
+    #: ``{"root_seed", "scheme", "measure_streams", "batches"}`` as written
+    seeds: dict[str, Any] | None = None
+    #: per set (measure name -> value), as written
+    scenarios: dict[str, Any] | None = None
+    output_times: dict[str, Any] | None = None
+    horizon_years: dict[str, Any] | None = None
+    antithetic: bool | None = None
+    #: names for the report's sign-off page (``[signoff]`` of the configuration)
+    signoff: dict[str, Any] | None = None
+    document: Mapping[str, Any] = field(default_factory=lambda: MappingProxyType({}), repr=False)
+
+    @property
+    def root_seed(self) -> Any:
+        """The run's root seed, ``None`` when the manifest does not record it."""
+        return (self.seeds or {}).get(ROOT_SEED)
+
+    @property
+    def seed_scheme(self) -> Any:
+        return (self.seeds or {}).get(SEED_SCHEME)
+
+    def header(self) -> dict[str, Any]:
+        """Every header entry (all but the file list), in file order: what a rewritten manifest
+        keeps (``pqflow validate``)."""
+        return {k: v for k, v in self.document.items() if k != FILES}
+
+    def file_entries(self) -> dict[str, FileEntry]:
+        """The listed files by path."""
+        return {e["path"]: FileEntry(path=e["path"], bytes=e["bytes"], sha256=e["sha256"], rows=e.get("rows"))
+                for e in self.files}
+
+    def field_or(self, name: str, default: Any) -> Any:
+        """A header entry as written, ``default`` when absent (the report shows a dash)."""
+        return self.document.get(name, default)
+
+    @classmethod
+    def from_json(cls, data: Any, *, where: str = MANIFEST) -> ManifestRecord:
+        if not isinstance(data, Mapping):
+            raise IntegrityError(f"{where}: not a JSON object")
+        if not isinstance(data.get(FILES), list):
+            raise IntegrityError(f"{where}: key {FILES!r} (the list of the run's files) is missing or not a list")
+        g = data.get
+        return cls(
+            files=tuple(data[FILES]), run_id=g(RUN_ID), run_name=g(RUN_NAME), created_utc=g(CREATED_UTC),
+            pqflow_version=g(PQFLOW_VERSION), python=g(PYTHON), numpy=g(NUMPY), pyarrow=g(PYARROW),
+            valuation_date=g(VALUATION_DATE), config_sha256=g(CONFIG_SHA256), seeds=g(SEEDS),
+            scenarios=g(SCENARIOS), output_times=g(OUTPUT_TIMES), horizon_years=g(HORIZON_YEARS),
+            antithetic=g(ANTITHETIC), signoff=g(SIGNOFF), document=MappingProxyType(dict(data)),
+        )
+
+
+def manifest_record(manifest: Mapping[str, Any], *, where: str = MANIFEST) -> ManifestRecord:
+    """The record of a manifest already read (:func:`load_manifest`, :func:`verify_run`)."""
+    return ManifestRecord.from_json(manifest, where=where)
+
+
+def read_manifest(root: str | Path, name: str = MANIFEST) -> ManifestRecord:
+    """``root/name`` as a :class:`ManifestRecord` (``IntegrityError`` when it is missing, damaged or
+    lacks its file list; the entries themselves are checked by :func:`load_manifest` and
+    :func:`verify_run`)."""
+    path = Path(root) / name
+    if not path.is_file():
+        raise IntegrityError(f"{Path(root)}: no {name}; not a finished pqflow run")
+    try:
+        data = read_json(path)
+    except (ValueError, UnicodeDecodeError) as exc:
+        raise IntegrityError(f"{path}: not valid JSON, truncated or damaged ({exc})") from None
+    return manifest_record(data, where=str(path))

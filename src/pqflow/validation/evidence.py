@@ -33,6 +33,7 @@ import pandas as pd
 
 from pqflow.errors import ConfigError
 from pqflow.storage.calibration_file import calibration_path, calibration_record
+from pqflow.storage.validation_summary import VERDICT, check_counts_toward_verdict
 from pqflow.validation.assets import martingale_assets
 from pqflow.validation.market_consistency import market_consistency_steps
 from pqflow.validation.mean_tests import (
@@ -81,7 +82,7 @@ class RunValidation:
 def overall_verdict(checks: dict[str, dict[str, Any]]) -> str:
     """``"fail"`` if a check counting toward the verdict failed, else ``"inconclusive"`` if one
     is inconclusive, else ``"pass"``."""
-    return combine_verdicts([c.get("verdict", "") for c in checks.values() if c.get("counts_toward_verdict", True)])
+    return combine_verdicts([c.get(VERDICT, "") for c in checks.values() if check_counts_toward_verdict(c)])
 
 
 def density_budget_for_run(inputs) -> tuple[pd.DataFrame | None, dict[str, dict[str, float]]]:

@@ -27,7 +27,9 @@ import numpy as np
 import pandas as pd
 from scipy.stats import norm
 
+from pqflow.storage import validation_summary as vs
 from pqflow.storage.scenario_set import ScenarioSet, SetPass
+from pqflow.storage.validation_summary import check_counts_toward_verdict
 from pqflow.validation.assets import MartingaleAsset
 from pqflow.validation.density import density_steps, usable_horizons
 from pqflow.validation.martingale import martingale_steps
@@ -100,21 +102,21 @@ def cells_summary(table: pd.DataFrame, label_cols: list[str], *, deviation: floa
     if weak.any() and "time" in table.columns:
         from_time = float(table.loc[weak, "time"].min())
     out: dict[str, Any] = {
-        "cells": n,
-        "outside_95": int((z > norm.ppf(0.975)).sum()),
-        "expected_outside_95_by_chance": 0.05 * n,
-        "outside_99": int((z > norm.ppf(0.995)).sum()),
-        "expected_outside_99_by_chance": 0.01 * n,
-        "max_abs_z": float(z.max()) if n else 0.0,
+        vs.CELLS: n,
+        vs.OUTSIDE_95: int((z > norm.ppf(0.975)).sum()),
+        vs.EXPECTED_OUTSIDE_95: 0.05 * n,
+        vs.OUTSIDE_99: int((z > norm.ppf(0.995)).sum()),
+        vs.EXPECTED_OUTSIDE_99: 0.01 * n,
+        vs.MAX_ABS_Z: float(z.max()) if n else 0.0,
         "worst_cell": {c: (worst[c].item() if hasattr(worst[c], "item") else worst[c]) for c in label_cols}
         if worst is not None else None,
         "family_level": 1.0 - FAMILY_ALPHA,
-        "family_critical_z": crit,
-        "verdict": "fail" if failed else ("inconclusive" if weak.any() else "pass"),
-        "inconclusive_cells": int(weak.sum()),
-        "inconclusive_from_time": from_time,
-        "material_deviation": deviation,
-        "power_rule": power_rule_text(deviation) if deviation is not None else
+        vs.FAMILY_CRITICAL_Z: crit,
+        vs.VERDICT: "fail" if failed else ("inconclusive" if weak.any() else "pass"),
+        vs.INCONCLUSIVE_CELLS: int(weak.sum()),
+        vs.INCONCLUSIVE_FROM_TIME: from_time,
+        vs.MATERIAL_DEVIATION: deviation,
+        vs.POWER_RULE: power_rule_text(deviation) if deviation is not None else
         "no power rule: the cells pass or fail on their tolerance",
     }
     return out
@@ -142,8 +144,8 @@ def summarise(
         low = full[full["ess_share"] < ess_warning_share]
         entry["min_ess_share"] = float(full["ess_share"].min()) if len(full) else 1.0
         entry["max_weight_share"] = float(full["max_weight_share"].max()) if len(full) else 0.0
-        entry["ess_warning_share"] = ess_warning_share
-        entry["ess_below_warning_from_time"] = float(low["time"].iloc[0]) if len(low) else None
+        entry[vs.ESS_WARNING_SHARE] = ess_warning_share
+        entry[vs.ESS_BELOW_WARNING_FROM_TIME] = float(low["time"].iloc[0]) if len(low) else None
         if len(full):
             last = full.iloc[-1]
             entry["at_horizon"] = {
@@ -153,31 +155,32 @@ def summarise(
                 "ess_share": float(last["ess_share"]),
                 "max_weight_share": float(last["max_weight_share"]),
             }
-        entry["warnings"] = [
+        entry[vs.WARNINGS] = [
             f"{measure}: effective sample size of {h['column']} falls below {ess_warning_share:.0%} of the "
             f"paths from t = {h['usable_horizon']:g} years (its usable horizon)"
             for h in horizons if h["usable_horizon"] is not None
         ]
         checks[f"density_{measure}"] = entry
     summary = {
-        "verdict": combine_verdicts([c["verdict"] for c in checks.values()]),
-        "rule": VERDICT_RULE,
-        "checks": checks,
-        "densities": densities,
+        vs.VERDICT: combine_verdicts([c[vs.VERDICT] for c in checks.values()]),
+        vs.RULE: VERDICT_RULE,
+        vs.CHECKS: checks,
+        vs.DENSITIES: densities,
     }
-    summary["inconclusive"] = inconclusive_totals(checks)
+    summary[vs.INCONCLUSIVE] = inconclusive_totals(checks)
     return summary
 
 
 def inconclusive_totals(checks: dict[str, dict[str, Any]]) -> dict[str, Any]:
     """``{"cells", "from_time", "checks"}`` over the checks that count toward the verdict."""
     names = [n for n, c in checks.items()
-             if c.get("counts_toward_verdict", True) and int(c.get("inconclusive_cells", 0) or 0) > 0]
-    times = [checks[n]["inconclusive_from_time"] for n in names if checks[n].get("inconclusive_from_time") is not None]
+             if check_counts_toward_verdict(c) and int(c.get(vs.INCONCLUSIVE_CELLS, 0) or 0) > 0]
+    times = [checks[n][vs.INCONCLUSIVE_FROM_TIME] for n in names
+             if checks[n].get(vs.INCONCLUSIVE_FROM_TIME) is not None]
     return {
-        "cells": int(sum(int(checks[n]["inconclusive_cells"]) for n in names)),
-        "from_time": float(min(times)) if times else None,
-        "checks": names,
+        vs.CELLS: int(sum(int(checks[n][vs.INCONCLUSIVE_CELLS]) for n in names)),
+        vs.FROM_TIME: float(min(times)) if times else None,
+        vs.CHECKS: names,
     }
 
 
