@@ -43,7 +43,7 @@ def test_the_command_line_registers_them_before_it_reads_a_configuration():
     code = ("import pqflow.cli as c; from pqflow.models.parts import PART_KINDS; before = sorted(PART_KINDS); "
             "c._register_part_kinds(); print(before, sorted(PART_KINDS))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=REPO, check=True)
-    assert out.stdout.strip() == "[] ['inflation']", out.stdout + out.stderr
+    assert out.stdout.strip() == "[] ['indices', 'inflation']", out.stdout + out.stderr
     source = (REPO / "src" / "pqflow" / "cli.py").read_text(encoding="utf-8")
     imports = source.count("import load_config\n") + source.count("import apply_overrides, load_config\n")
     assert imports == source.count("\n    _register_part_kinds()\n") == 4  # each reading command registers

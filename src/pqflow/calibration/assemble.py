@@ -26,17 +26,15 @@ import numpy as np
 from pqflow import __version__
 from pqflow.calibration.g2pp_swaptions import calibrate_g2pp_to_swaptions
 from pqflow.calibration.heston_parts import fit_heston_indices, heston_indices_from_records, heston_to_json
+from pqflow.calibration.index_kind import INDEX_SECTION
 from pqflow.calibration.llfr_curve import fit_llfr_curve
 from pqflow.calibration.parts import (
     RATES_DRIVER,
     DriverCorrelation,
     calibrate_credit_part,
-    calibrate_index,
     credit_from_record,
     credit_to_json,
     driver_correlation,
-    index_from_record,
-    index_record,
     load_schedule,
     schedule_json,
 )
@@ -77,7 +75,9 @@ from pqflow.models.parts import (
     PART_KINDS,
     PartContext,
     calibrate_part,
+    part_entry_list,
     part_fit_key,
+    part_fit_records,
     part_instruments_key,
     part_market_files,
     recorded_parts,
@@ -91,8 +91,6 @@ from pqflow.storage.calibration_file import (
     IndexRecord,
     calibration_document,
     calibration_path,
-    core_index_parameters,
-    further_index_parameters,
     plugin_part_entry,
     plugin_part_fields,
     read_calibration_file,
@@ -173,12 +171,9 @@ class Calibration:
         return DriverCorrelation(names=(RATES_DRIVER, core.name), matrix=np.array([[1.0, rho], [rho, 1.0]]))
 
     def index_records(self) -> tuple[IndexRecord, ...]:
-        """Every index as its calibration record (core first)."""
-        return tuple(
-            index_record(i, self.extra_prices_of_risk[i.name], self.index_risk_premia.get(i.name), self.rates,
-                         core=k == 0)
-            for k, i in enumerate(self.indices)
-        )
+        """Every index as its calibration record (core first), by the index kind."""
+        return _registered(INDEX_SECTION).records(self.indices, self.extra_prices_of_risk, self.index_risk_premia,
+                                                  self.rates)
 
     def _zero_factor_mean(self, t: np.ndarray) -> np.ndarray | tuple[np.ndarray, np.ndarray]:
         """The market-consistent mean of the rate factor(s) (zero), in the form the house-view
@@ -221,7 +216,8 @@ class Calibration:
 
     def to_json(self) -> dict[str, Any]:
         """The content of ``calibration.json``."""
-        records = self.index_records()
+        core_json, further_json = _registered(INDEX_SECTION).parameters_json(self.index_records(),
+                                                                             self.prices_of_risk.rates)
         return calibration_document(
             pqflow_version=__version__,
             valuation_date=self.valuation_date,
@@ -232,9 +228,9 @@ class Calibration:
                 "curve": curve_to_json(self.curve),
                 "rates_model": self.rates_model,
                 **self.rates.to_json(),
-                **core_index_parameters(records[0], _schedule_json(self.prices_of_risk.rates)),
+                **core_json,
                 "real_world_view": self.real_world_view,
-                **self._parts_json(records[1:]),
+                **self._parts_json(further_json),
             },
             fit=self.fit,
             instruments=self.instruments,
@@ -248,11 +244,11 @@ class Calibration:
         return {name: part for name, field_name in _OWN_ENTRY_FIELDS.items()
                 if (part := getattr(self, field_name)) is not None}
 
-    def _parts_json(self, further: tuple[IndexRecord, ...]) -> dict[str, Any]:
+    def _parts_json(self, further_indices: dict[str, Any]) -> dict[str, Any]:
         out: dict[str, Any] = {}
         if self.correlation is not None:
             out["driver_correlation"] = self.correlation.to_json()
-        out.update(further_index_parameters(further))
+        out.update(further_indices)
         for name, part in self._own_entry_parts().items():  # kinds with an entry of their own (inflation)
             kind = _registered(name)
             out[kind.json_key] = {
@@ -279,6 +275,16 @@ class Calibration:
 _OWN_ENTRY_FIELDS = {"inflation": "inflation"}
 
 
+def _indices_of(parts: tuple[GaussianPart, ...]) -> tuple[TotalReturnIndex, ...]:
+    """The index kind's parts (the core first), checked to be indices."""
+    if not parts:
+        raise RuntimeError("the index kind built no index (a run always has its core equity)")
+    for part in parts:
+        if not isinstance(part, TotalReturnIndex):
+            raise TypeError(f"the index kind built a {type(part).__name__}")
+    return tuple(p for p in parts if isinstance(p, TotalReturnIndex))
+
+
 def _registered(name: str) -> Any:
     kind = PART_KINDS.get(name)
     if kind is None:
@@ -294,15 +300,10 @@ def _parts_from_json(par: dict[str, Any], record: CalibrationRecord,
     correlation = DriverCorrelation.from_record(dc) if dc is not None else None
     if correlation is not None:
         out["correlation"] = correlation
-    indices = []
-    for rec in record.indices:  # the core index first
-        index, lam = index_from_record(
-            rec, None if rec.core or correlation is None else correlation.with_rates(rec.name))
-        indices.append(index)
-        out["extra_prices_of_risk"][index.name] = lam
-        if rec.risk_premium is not None:
-            out["index_risk_premia"][index.name] = rec.risk_premium
-    out["indices"] = tuple(indices)
+    out["indices"], index_lams, index_premia = _registered(INDEX_SECTION).from_records(
+        record.indices, None if correlation is None else correlation.with_rates)  # the core index first
+    out["extra_prices_of_risk"].update(index_lams)
+    out["index_risk_premia"].update(index_premia)
     for name, kind, entry in recorded_parts(par, {}):  # kinds with an entry of their own (inflation)
         out[_OWN_ENTRY_FIELDS[name]] = kind.from_json(entry)
         for k, v in entry["market_prices_of_risk"].items():
@@ -696,37 +697,30 @@ def assemble_calibration(config: RunConfig) -> Calibration:
     rates, rates_fit, swaptions = _rates(config, curve)
     correlation, corr_fit = driver_correlation(config, rates)
     fit: dict[str, Any] = {"curve": curve_fit, "correlation": corr_fit, config.rates.model: rates_fit}
-    indices: list[TotalReturnIndex] = []
     extra_lams: dict[str, float | PiecewiseConstant] = {}
     premia: dict[str, float] = {}
-    index_fits: dict[str, Any] = {}
-    equity_options: list[dict[str, Any]] = []
-    for spec in config.index_specs:  # the core equity first: one fitting path for every index
-        rho = correlation.with_rates(spec.name)
-        index, lam, index_fit, options = calibrate_index(config, spec, curve, rates, rho)
-        indices.append(index)
-        extra_lams[spec.name] = lam
-        premia[spec.name] = spec.risk_premium
-        if spec.core:
-            fit["equity"] = index_fit
-        else:  # a further index's fit record also carries its premium and rate correlation
-            index_fits[spec.name] = {**index_fit, "risk_premium": spec.risk_premium,
-                                     "correlation_with_rates": list(rho) if isinstance(rho, tuple) else rho}
-        equity_options = [*equity_options, *options]
     prices_of_risk, view = _real_world(config, curve, rates)
-    core = indices[0]
-    if index_fits:
-        fit["indices"] = index_fits
     context = PartContext(curve=curve, rates=rates, correlation=correlation.pair)
     own_parts: dict[str, GaussianPart] = {}
+    listed_parts: dict[str, tuple[GaussianPart, ...]] = {}
     own_instruments: dict[str, list[dict[str, Any]]] = {}
-    for name, own_kind in PART_KINDS.items():  # kinds with a configuration table of their own (inflation)
+    for name, own_kind in PART_KINDS.items():  # kinds with a configuration of their own (indices, inflation)
         config_key = getattr(own_kind, "config_key", None)
         own_section = getattr(config, config_key) if config_key is not None else None
         if own_section is None:
             continue
         own_files = {key: path for key in getattr(own_kind, "market_data_keys", ())
                      if (path := config.market_file(key)) is not None}
+        if part_entry_list(own_kind):  # one part per element (the indices, the core first)
+            fits = [calibrate_part(own_kind, element, own_files, context) for element in own_section]
+            listed_parts[name] = tuple(f.part for f in fits)
+            fit.update(part_fit_records(own_kind, own_section, [f.fit for f in fits]))
+            own_instruments[part_instruments_key(own_kind)] = [i for f in fits for i in f.instruments]
+            for element, f in zip(own_section, fits, strict=True):
+                extra_lams.update(f.prices_of_risk if f.prices_of_risk is not None
+                                  else own_kind.prices_of_risk(element))
+                premia.update(f.risk_premia or {})
+            continue
         own_fit = calibrate_part(own_kind, own_section, own_files, context)
         own_parts[name] = own_fit.part
         fit[part_fit_key(own_kind)] = own_fit.fit
@@ -734,6 +728,9 @@ def assemble_calibration(config: RunConfig) -> Calibration:
             own_instruments[part_instruments_key(own_kind)] = own_fit.instruments
         extra_lams.update(own_fit.prices_of_risk if own_fit.prices_of_risk is not None
                           else own_kind.prices_of_risk(own_section))
+    indices = _indices_of(listed_parts.get(INDEX_SECTION, ()))
+    core = indices[0]
+    equity_options = own_instruments.pop(part_instruments_key(_registered(INDEX_SECTION)))
     inflation = own_parts.get("inflation")
     if inflation is not None and not isinstance(inflation, InflationPart):
         raise TypeError(f"the inflation kind built a {type(inflation).__name__}")
@@ -766,7 +763,7 @@ def assemble_calibration(config: RunConfig) -> Calibration:
         horizon_years=config.simulation.max_horizon_years,
         curve=curve,
         rates=rates,
-        indices=tuple(indices),
+        indices=indices,
         prices_of_risk=prices_of_risk,
         inputs=inputs,
         inputs_hash=hashlib.sha256(canon).hexdigest(),

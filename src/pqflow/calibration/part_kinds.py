@@ -10,6 +10,7 @@ A new kind is its file, its test and one ``register_part`` line here.
 
 from __future__ import annotations
 
+from pqflow.calibration.index_kind import IndexKind
 from pqflow.calibration.inflation_kind import InflationKind
 from pqflow.models.parts import register_part
 
@@ -17,5 +18,6 @@ __all__ = ["SHIPPED_KINDS"]
 
 #: the sections of the kinds registered here, in registration order
 SHIPPED_KINDS: tuple[str, ...] = (
+    register_part(IndexKind()).section,  # first: the indices lead the drivers beyond rates
     register_part(InflationKind()).section,
 )

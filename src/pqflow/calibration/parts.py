@@ -22,7 +22,9 @@ correlation, inflation and credit; and their form in ``calibration.json``.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, replace
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -60,6 +62,8 @@ __all__ = [
     "driver_names",
     "driver_correlation",
     "calibrate_index",
+    "calibrate_index_from_files",
+    "INDEX_MARKET_DATA_KEYS",
     "fit_index_volatility",
     "calibrate_inflation",
     "calibrate_credit_part",
@@ -324,12 +328,26 @@ def calibrate_index(
     """One total-return index, the core equity or a further one: its parameters (with its
     correlation ``rho_rates`` with the rate driver(s)), real-world price of risk, fit report and
     option quotes."""
+    files = {key: path for key in INDEX_MARKET_DATA_KEYS if (path := config.market_file(key)) is not None}
+    return calibrate_index_from_files(spec, files, curve, rates, rho_rates)
+
+
+#: The ``[market_data]`` keys of the indices' files (levels and yields; implied volatilities).
+INDEX_MARKET_DATA_KEYS = ("equity_index", "equity_vols")
+
+
+def calibrate_index_from_files(
+    spec: IndexSpec, files: Mapping[str, Path], curve: DiscountCurve, rates: RatesModel,
+    rho_rates: float | tuple[float, float],
+) -> tuple[TotalReturnIndex, float | PiecewiseConstant, dict[str, Any], list[dict[str, Any]]]:
+    """:func:`calibrate_index` from the index's files by ``[market_data]`` key
+    (:data:`INDEX_MARKET_DATA_KEYS`)."""
     if spec.level is not None:
         if spec.income_yield is None:
             raise ConfigError(f"{spec.key}: level and {spec.yield_key} go together")
         level, q = spec.level, spec.income_yield
     else:
-        path = config.market_file("equity_index")
+        path = files.get("equity_index")
         if path is None:
             raise ConfigError(f"{spec.key}: give level and {spec.yield_key}, or market_data.equity_index")
         rows = read_equity_indices(path)
@@ -337,7 +355,7 @@ def calibrate_index(
             what = "equity index" if spec.core else "index"
             raise MarketDataError(f"{path}: no row for {what} {spec.name!r} (has: {', '.join(rows)})")
         level, q = rows[spec.name].spot_level, rows[spec.name].dividend_yield
-    vol_path = config.market_file("equity_vols")
+    vol_path = files.get("equity_vols")
     quotes = [] if vol_path is None else [r for r in read_equity_vols(vol_path) if r.index == spec.name]
     fit: dict[str, Any]
     instruments: list[dict[str, Any]] = []

@@ -26,6 +26,10 @@ defaults are the functions below, so a kind written before them still plugs in):
 * ``instruments(records, context) -> [PartInstrument]``: its recorded instruments as the
   market-consistency check reprices them from the files (one cell per instrument and reference,
   judged by the check's one rule);
+* ``entry_list`` (attribute) and ``fit_records(sections, fits)``: a kind whose configuration
+  section is a sequence (one part per element, each calibrated by ``calibrate``) and where its
+  fit records go (the total-return indices: ``fit.equity`` for the core, ``fit.indices`` for the
+  others);
 * ``config_key``, ``json_key``, ``market_data_keys``, ``compare_group`` (attributes): where a
   part that predates the plug-ins keeps its pieces - a top-level configuration table instead of
   ``[parts.<section>]``, its own key under ``calibration.json`` ``parameters`` instead of the
@@ -67,7 +71,9 @@ __all__ = [
     "part_compare_parameters",
     "part_compare_quotes",
     "part_compare_group",
+    "part_entry_list",
     "part_fit_key",
+    "part_fit_records",
     "part_fit_lines",
     "part_fit_text",
     "part_instruments",
@@ -116,6 +122,8 @@ class PartFit:
     #: its real-world prices of risk by driver when the fit decides them (``None``: the kind's
     #: :meth:`PartKind.prices_of_risk` of its section)
     prices_of_risk: dict[str, float] | None = None
+    #: its real-world risk premia by driver, recorded beside the prices of risk (``None``: none)
+    risk_premia: dict[str, float] | None = None
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -271,6 +279,23 @@ def calibrate_part(kind: PartKind, section: Any, files: dict[str, Path], context
     if hook is None:
         return PartFit(part=kind.build(section, context))
     return hook(section, files, context)
+
+
+def part_entry_list(kind: PartKind) -> bool:
+    """Whether its configuration section is a sequence of sections, one part each (the
+    total-return indices: ``[equity]`` and each ``[[indices]]`` entry); such a kind's parts are
+    kept in order and its instruments are one list under its ``instruments_key``, written even
+    when empty."""
+    return bool(getattr(kind, "entry_list", False))
+
+
+def part_fit_records(kind: PartKind, sections: Sequence[Any], fits: Sequence[dict[str, Any]]) -> dict[str, Any]:
+    """Where the fit records of a list kind's parts go under ``calibration.json`` ``fit``:
+    ``{key: record}`` (default: ``{fit_key: [record, ...]}``)."""
+    hook = getattr(kind, "fit_records", None)
+    if hook is not None:
+        return dict(hook(sections, fits))
+    return {part_fit_key(kind): list(fits)}
 
 
 def part_fit_key(kind: PartKind) -> str:
