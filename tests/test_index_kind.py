@@ -124,3 +124,35 @@ def test_round_trip_of_its_entries(tmp_path, demo_config_dict, rates):
     back = load_calibration(path)
     assert back.indices == cal.indices and back.index_risk_premia == cal.index_risk_premia
     assert back.to_json()["parameters"] == cal.to_json()["parameters"]
+
+
+def test_index_and_inflation_columns_take_their_drivers_from_their_kinds():
+    """An index's log level integrates the short rate and carries its own shock, so its column
+    depends on the rate driver(s) and its own driver; the CPI's drift is the nominal minus the
+    real short rate, so inflation columns depend on the rates and both inflation drivers
+    (Jarrow and Yildirim 2003; the structure of ``measure/blocks.economy_structure``)."""
+    from pqflow.measure.blocks import column_drivers
+
+    kind = PART_KINDS[INDEX_SECTION]
+    assert kind.column_drivers_on("equity_world_equity", ("rates",)) == {"rates", "world_equity"}
+    assert kind.column_drivers_on("property_veldmark_property", ("rates_x", "rates_y")) == {
+        "rates_x", "rates_y", "veldmark_property"}
+    assert kind.column_drivers_on("zcb_10y", ("rates",)) is None
+    assert column_drivers("equity_eq", ("rates_x", "rates_y")) == {"rates_x", "rates_y", "eq"}
+    for col in ("cpi", "real_short_rate", "real_zcb_10y"):
+        assert PART_KINDS["inflation"].column_drivers_on(col, ("rates",)) == {"rates", "real_rate", "inflation"}
+        assert column_drivers(col, ("rates",), ("real_rate", "inflation")) == {"rates", "real_rate", "inflation"}
+    assert PART_KINDS["inflation"].column_drivers_on("equity_eq", ("rates",)) is None
+    with pytest.raises(ValueError, match="no driver is known"):
+        column_drivers("unknown_column", ("rates",))
+
+
+@pytest.mark.parametrize("module", ["pqflow.validation.martingale", "pqflow.validation.reconciliation",
+                                    "pqflow.liabilities.valuation"])
+def test_every_caller_of_column_drivers_has_the_kinds(module):
+    """The index and inflation rows of the column table live with their kinds: a fresh process
+    importing only a module that asks for a column's drivers has them registered."""
+    code = (f"import {module}; from pqflow.measure.blocks import column_drivers; "
+            "print(sorted(column_drivers('equity_eq', ('rates',))), sorted(column_drivers('cpi', ('rates',))))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=REPO, check=True)
+    assert out.stdout.strip() == "['eq', 'rates'] ['inflation', 'rates', 'real_rate']", out.stdout + out.stderr

@@ -35,6 +35,7 @@ from pqflow.models.parts import PartAsset, PartContext, PartFit
 from pqflow.models.rates import RatesModel
 from pqflow.models.schedule import PiecewiseConstant
 from pqflow.storage.calibration_file import IndexRecord, core_index_parameters, further_index_parameters
+from pqflow.storage.names import INDEX_PREFIXES
 
 __all__ = ["IndexKind", "INDEX_SECTION"]
 
@@ -137,8 +138,15 @@ class IndexKind:
         raise NotImplementedError("the indices' entries are read by IndexKind.from_records")
 
     def column_drivers(self, column: str) -> frozenset[str] | None:
-        """``None``: an index column loads on the rate drivers too, which this hook does not
-        know; :func:`pqflow.measure.blocks.column_drivers` keeps them in its table."""
+        """``None``: an index column loads on the rate drivers too; :meth:`column_drivers_on`."""
+        return None
+
+    def column_drivers_on(self, column: str, rates_drivers: Sequence[str]) -> frozenset[str] | None:
+        """An index column ``<kind>_<name>`` loads on the rate drivers (its log level integrates
+        the short rate) and on its own driver ``<name>``; ``None``: not an index column."""
+        for prefix in INDEX_PREFIXES:
+            if column.startswith(prefix):
+                return frozenset(rates_drivers) | {column[len(prefix):]}
         return None
 
     def martingale_assets(self, part: GaussianPart, curve: DiscountCurve, columns: Any) -> list[PartAsset]:

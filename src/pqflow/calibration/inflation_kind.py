@@ -17,7 +17,7 @@ The closed forms are in :mod:`pqflow.models.jarrow_yildirim` and
 from __future__ import annotations
 
 import re
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -40,7 +40,7 @@ from pqflow.models.inflation import INFLATION_DRIVER, REAL_RATE_DRIVER, Inflatio
 from pqflow.models.jarrow_yildirim import JarrowYildirimParams
 from pqflow.models.parts import PartAsset, PartContext, PartFit, PartInstrument, PartInstrumentContext
 from pqflow.models.rates import RatesModel
-from pqflow.storage.names import CPI, REAL_BOND_PREFIX
+from pqflow.storage.names import CPI, REAL_BOND_PREFIX, REAL_SHORT_RATE
 
 __all__ = [
     "InflationKind",
@@ -275,9 +275,15 @@ class InflationKind:
         return inflation_from_json(data)
 
     def column_drivers(self, column: str) -> frozenset[str] | None:
-        """``None``: its columns (``cpi``, ``real_short_rate``, ``real_zcb_<m>y``) load on the rate
-        drivers too, which this hook does not know; :func:`pqflow.measure.blocks.column_drivers`
-        keeps them in its table."""
+        """``None``: its columns load on the rate drivers too; :meth:`column_drivers_on`."""
+        return None
+
+    def column_drivers_on(self, column: str, rates_drivers: Sequence[str]) -> frozenset[str] | None:
+        """Its columns (``cpi``, ``real_short_rate``, ``real_zcb_<m>y``) load on the rate drivers
+        (the CPI's drift is the nominal minus the real short rate) and on both inflation drivers;
+        ``None``: not one of its columns."""
+        if column in (CPI, REAL_SHORT_RATE) or column.startswith(REAL_BOND_PREFIX):
+            return frozenset(rates_drivers) | {REAL_RATE_DRIVER, INFLATION_DRIVER}
         return None
 
     def martingale_assets(self, part: GaussianPart, curve: DiscountCurve, columns: Any) -> list[PartAsset]:

@@ -257,30 +257,22 @@ def observed_block_coefficients(
     return np.einsum("kbd,kb->kd", m_rows, solved)
 
 
-_INDEX_PREFIXES = ("equity_", "property_")
-
-
 def column_drivers(
     column: str, rates_drivers: Sequence[str], inflation_drivers: Sequence[str] | None = None
 ) -> frozenset[str]:
     """The drivers the value of an output column depends on (the states it is a function of):
-    rates columns on the rate drivers; an index on the rates and its own driver; inflation
-    columns on the rates and both inflation drivers; a rating's columns on its driver (and its
-    defaultable bonds on the rates too); a registered part plug-in's column on what its kind
-    says (:func:`pqflow.models.parts.part_column_drivers`, asked first)."""
-    plugged = part_column_drivers(column)
+    rates columns on the rate drivers; a rating's columns on its driver (and its defaultable
+    bonds on the rates too); a column of a registered part kind on what its kind says, asked
+    first with the rate drivers (:func:`pqflow.models.parts.part_column_drivers`): an index on
+    the rates and its own driver, inflation columns on the rates and both inflation drivers
+    (the kind names them; ``inflation_drivers`` is kept for callers and no longer consulted),
+    a plug-in's on its own."""
+    plugged = part_column_drivers(column, rates_drivers)
     if plugged is not None:
         return plugged
     rates = frozenset(rates_drivers)
     if column in ("short_rate", "cash_account", "deflator") or column.startswith("zcb_"):
         return rates
-    for p in _INDEX_PREFIXES:
-        if column.startswith(p):
-            return rates | {column[len(p):]}
-    if column in ("cpi", "real_short_rate") or column.startswith("real_zcb_"):
-        if not inflation_drivers:
-            raise ValueError(f"column {column!r} needs inflation drivers")
-        return rates | set(inflation_drivers)
     for p in ("cumulative_intensity_", "intensity_"):
         if column.startswith(p):
             return frozenset({f"credit_{column[len(p):]}"})

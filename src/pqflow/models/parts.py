@@ -8,8 +8,8 @@ description. :func:`register_part` puts a kind in :data:`PART_KINDS` (and its se
 the configuration's table); the configuration, the calibration and its file, the density blocks
 and the martingale test consult the registry, so the engine, the densities and the storage need
 no code of the part. The shipped kinds are registered in one place,
-:mod:`pqflow.calibration.part_kinds` (inflation is one, with its legacy locations); the indices,
-credit and Heston predate the registry and keep their own code paths.
+:mod:`pqflow.calibration.part_kinds` (the total-return indices and inflation are two, with their
+legacy locations); credit and Heston predate the registry and keep their own code paths.
 
 Optional hooks (a kind without them has no market file, no fit record and no instruments; the
 defaults are the functions below, so a kind written before them still plugs in):
@@ -26,6 +26,8 @@ defaults are the functions below, so a kind written before them still plugs in):
 * ``instruments(records, context) -> [PartInstrument]``: its recorded instruments as the
   market-consistency check reprices them from the files (one cell per instrument and reference,
   judged by the check's one rule);
+* ``column_drivers_on(column, rates_drivers)``: the drivers of its column when they include the
+  run's rate drivers (asked instead of ``column_drivers``);
 * ``entry_list`` (attribute) and ``fit_records(sections, fits)``: a kind whose configuration
   section is a sequence (one part per element, each calibrated by ``calibrate``) and where its
   fit records go (the total-return indices: ``fit.equity`` for the core, ``fit.indices`` for the
@@ -241,12 +243,15 @@ def recorded_parts(parameters: Mapping[str, Any],
     return out
 
 
-def part_column_drivers(column: str) -> frozenset[str] | None:
-    """The drivers of a column some registered kind owns, or ``None``."""
+def part_column_drivers(column: str, rates_drivers: Sequence[str] = ()) -> frozenset[str] | None:
+    """The drivers of a column some registered kind owns, or ``None``. A kind whose columns load
+    on the rate drivers too (the indices, inflation) answers through its optional hook
+    ``column_drivers_on(column, rates_drivers)``; any other through ``column_drivers(column)``."""
     for kind in PART_KINDS.values():
-        found = kind.column_drivers(column)
+        hook = getattr(kind, "column_drivers_on", None)
+        found = hook(column, tuple(rates_drivers)) if hook is not None else kind.column_drivers(column)
         if found is not None:
-            return found
+            return frozenset(found)
     return None
 
 
