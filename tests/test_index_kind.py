@@ -156,3 +156,25 @@ def test_every_caller_of_column_drivers_has_the_kinds(module):
             "print(sorted(column_drivers('equity_eq', ('rates',))), sorted(column_drivers('cpi', ('rates',))))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=REPO, check=True)
     assert out.stdout.strip() == "['eq', 'rates'] ['inflation', 'rates', 'real_rate']", out.stdout + out.stderr
+
+
+def test_a_kind_must_say_how_its_parts_are_written():
+    # Common practice: a kind is refused at registration, with its name, unless its parts have a
+    # calibration.json form: one entry each (to_json / from_json) or an entry list with hooks of
+    # its own, as the indices (which therefore carry no to_json / from_json).
+    from pqflow.models.parts import EntryPartKind, entry_kind, register_part
+
+    kind = PART_KINDS[INDEX_SECTION]
+    assert part_entry_list(kind) and not isinstance(kind, EntryPartKind)
+    with pytest.raises(TypeError, match="no single calibration.json entry"):
+        entry_kind(kind)
+    assert isinstance(PART_KINDS["inflation"], EntryPartKind)
+
+    class NoForm:  # an index kind without its entry list: nothing would write its parts
+        section = "no_form"
+        config_model = IndexKind().config_model
+        drivers = build = prices_of_risk = column_drivers = martingale_assets = describe = IndexKind.drivers
+
+    with pytest.raises(TypeError, match="NoForm writes no calibration.json entry"):
+        register_part(NoForm())  # type: ignore[arg-type]
+    assert "no_form" not in PART_KINDS

@@ -75,6 +75,7 @@ from pqflow.models.parts import (
     PART_KINDS,
     PartContext,
     calibrate_part,
+    entry_kind,
     part_entry_list,
     part_fit_key,
     part_fit_records,
@@ -252,7 +253,7 @@ class Calibration:
         for name, part in self._own_entry_parts().items():  # kinds with an entry of their own (inflation)
             kind = _registered(name)
             out[kind.json_key] = {
-                **kind.to_json(part),
+                **entry_kind(kind).to_json(part),
                 "market_prices_of_risk": {d: _schedule_json(self.extra_prices_of_risk.get(d, 0.0))
                                           for d in part.drivers},
             }
@@ -263,7 +264,7 @@ class Calibration:
         if self.plugin_parts:
             out[PLUGIN_PARTS_KEY] = {
                 name: plugin_part_entry(
-                    _registered(name).to_json(part),
+                    entry_kind(_registered(name)).to_json(part),
                     {d: _schedule_json(self.extra_prices_of_risk.get(d, 0.0)) for d in part.drivers},
                 )
                 for name, part in self.plugin_parts.items()
@@ -305,7 +306,7 @@ def _parts_from_json(par: dict[str, Any], record: CalibrationRecord,
     out["extra_prices_of_risk"].update(index_lams)
     out["index_risk_premia"].update(index_premia)
     for name, kind, entry in recorded_parts(par, {}):  # kinds with an entry of their own (inflation)
-        out[_OWN_ENTRY_FIELDS[name]] = kind.from_json(entry)
+        out[_OWN_ENTRY_FIELDS[name]] = entry_kind(kind).from_json(entry)
         for k, v in entry["market_prices_of_risk"].items():
             out["extra_prices_of_risk"][k] = _load_schedule(v)
     if (credit := record.credit) is not None:
@@ -315,7 +316,7 @@ def _parts_from_json(par: dict[str, Any], record: CalibrationRecord,
     plugged: dict[str, GaussianPart] = {}
     for name, entry in (par.get(PLUGIN_PARTS_KEY) or {}).items():
         form, lams = plugin_part_fields(entry, source, name)
-        plugged[name] = _registered(name).from_json(form)
+        plugged[name] = entry_kind(_registered(name)).from_json(form)
         for d, v in lams.items():
             out["extra_prices_of_risk"][d] = _load_schedule(v)
     if plugged:

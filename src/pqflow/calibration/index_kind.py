@@ -129,13 +129,7 @@ class IndexKind:
                 premia[index.name] = rec.risk_premium
         return tuple(indices), lams, premia
 
-    # -- the generic hooks its pieces do not use yet (its own code paths answer)
-
-    def to_json(self, part: GaussianPart) -> dict[str, Any]:
-        raise NotImplementedError("the indices' entries are written by IndexKind.parameters_json")
-
-    def from_json(self, data: dict[str, Any]) -> GaussianPart:
-        raise NotImplementedError("the indices' entries are read by IndexKind.from_records")
+    # -- the generic hooks
 
     def column_drivers(self, column: str) -> frozenset[str] | None:
         """``None``: an index column loads on the rate drivers too; :meth:`column_drivers_on`."""

@@ -68,6 +68,8 @@ __all__ = [
     "PartInstrument",
     "PartInstrumentContext",
     "PartKind",
+    "EntryPartKind",
+    "entry_kind",
     "calibrate_part",
     "describe_part",
     "part_compare_parameters",
@@ -192,10 +194,6 @@ class PartKind(Protocol):
         drivers correlated with it)."""
         ...
 
-    def to_json(self, part: GaussianPart) -> dict[str, Any]: ...
-
-    def from_json(self, data: dict[str, Any]) -> GaussianPart: ...
-
     def column_drivers(self, column: str) -> frozenset[str] | None:
         """The drivers a column of this kind depends on; ``None``: not one of its columns."""
         ...
@@ -209,6 +207,24 @@ class PartKind(Protocol):
     def describe(self, section: Any) -> str: ...
 
 
+@runtime_checkable
+class EntryPartKind(PartKind, Protocol):
+    """A part kind whose part is written to ``calibration.json`` as one entry (a plug-in's
+    ``parameters.plugin_parts.<section>``, or its own ``json_key``): every kind except one whose
+    section is a sequence (``entry_list``), which writes its parts through hooks of its own."""
+
+    def to_json(self, part: GaussianPart) -> dict[str, Any]: ...
+
+    def from_json(self, data: dict[str, Any]) -> GaussianPart: ...
+
+
+def entry_kind(kind: PartKind) -> EntryPartKind:
+    """``kind`` as a kind with one ``calibration.json`` entry (an error names one without)."""
+    if not isinstance(kind, EntryPartKind):
+        raise TypeError(f"part kind {kind.section!r} has no single calibration.json entry (to_json / from_json)")
+    return kind
+
+
 #: section name -> the registered kind
 PART_KINDS: dict[str, PartKind] = {}
 
@@ -217,6 +233,9 @@ def register_part(kind: PartKind) -> PartKind:
     """Plug a part kind in (its section becomes valid configuration); returns it."""
     if not isinstance(kind, PartKind):
         raise TypeError(f"{type(kind).__name__} is not a PartKind")
+    if not (isinstance(kind, EntryPartKind) or part_entry_list(kind)):
+        raise TypeError(f"{type(kind).__name__} writes no calibration.json entry: give it to_json / from_json, "
+                        "or entry_list with hooks of its own")
     name = kind.section
     if name in PART_KINDS and PART_KINDS[name] is not kind:
         raise ValueError(f"a part kind named {name!r} is already registered")

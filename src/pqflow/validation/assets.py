@@ -50,7 +50,7 @@ from pqflow.calibration.inflation_kind import real_bond_maturity_of
 from pqflow.calibration.parts import credit_from_record
 from pqflow.errors import ConfigError, IntegrityError
 from pqflow.models.cir_credit import CreditRating
-from pqflow.models.parts import PART_KINDS, recorded_parts
+from pqflow.models.parts import PART_KINDS, entry_kind, recorded_parts
 from pqflow.storage.calibration_file import (
     PLUGIN_PARTS_KEY,
     calibration_path,
@@ -127,7 +127,7 @@ def _own_entry_assets(inputs: RunInputs, columns: Sequence[str]) -> list[Marting
     out = []
     for name, kind, entry in recorded_parts(record.parameters, {}):
         try:
-            part = kind.from_json(entry)
+            part = entry_kind(kind).from_json(entry)
         except (KeyError, TypeError, ValueError) as exc:
             raise IntegrityError(f"{inputs.run_dir}: calibration.json has no usable parameters.{name}: {exc!r}") \
                 from None
@@ -229,7 +229,7 @@ def plugin_assets(inputs: RunInputs, columns: Sequence[str]) -> list[MartingaleA
             raise IntegrityError(f"{source}: parameters.{PLUGIN_PARTS_KEY}.{name}: no part kind {name!r} is "
                                  "registered, so its martingale assets cannot be formed")
         form, _ = plugin_part_fields(entry, source, name)
-        for a in kind.martingale_assets(kind.from_json(form), inputs.curve, columns):
+        for a in kind.martingale_assets(entry_kind(kind).from_json(form), inputs.curve, columns):
             out.append(MartingaleAsset(name=a.name, description=a.description, columns=a.columns, value=a.value,
                                        reference=a.reference))
     return out
