@@ -154,6 +154,61 @@ def test_a_missing_required_value_names_the_file_and_the_key(drop, read, key):
     assert SOURCE in str(info.value) and key in str(info.value), str(info.value)
 
 
+def _real_world(content: dict) -> dict:
+    # the real-world side as the calibration writes it for a house-view path (shape of
+    # Calibration.expected_paths and the stored real_world_view / market_prices_of_risk)
+    content = copy.deepcopy(content)
+    content["parameters"]["real_world_view"] = {"kind": "path", "target": "zero_yield", "target_maturity": 10,
+                                                "start": 0.02, "long_run_level": 0.034}
+    content["parameters"]["market_prices_of_risk"] = {"rates": {"knots": [1.0], "values": [0.1, 0.2]},
+                                                      "equity": 0.25, "note": "text"}
+    content["expected_short_rate"] = {
+        "time": [0.0, 1.0], "market_consistent": [0.02, 0.021], "real_world": [0.02, 0.024],
+        "target": {"quantity": "zero yield, 10 years (continuous)", "time": [0.0, 1.0],
+                   "house_view": [0.025, 0.026], "real_world": [0.025, 0.0261]}}
+    return content
+
+
+def test_the_real_world_records_read_back_what_was_written():
+    rec = calibration_record(_real_world(_content()), SOURCE)
+    esr = rec.expected_short_rate
+    assert esr is not None and esr.time == (0.0, 1.0) and esr.real_world == (0.02, 0.024)
+    assert esr.market_consistent == (0.02, 0.021)
+    assert esr.target is not None and esr.target.house_view == (0.025, 0.026)
+    assert esr.target.real_world == (0.025, 0.0261) and esr.target.market_consistent is None
+    assert esr.target.quantity == "zero yield, 10 years (continuous)"
+    view = rec.real_world_view
+    assert (view.kind, view.target, view.target_maturity) == ("path", "zero_yield", 10.0)
+    mpr = rec.market_prices_of_risk
+    assert mpr is not None and mpr.rates == {"knots": [1.0], "values": [0.1, 0.2]} and mpr.equity == 0.25
+    assert mpr.note == "text" and rec.rates_price_of_risk == mpr.rates
+
+
+def test_a_file_without_the_real_world_side_reads_it_as_absent():
+    # a run without a house-view path (typed-in real world) or an older file without the sections
+    rec = calibration_record(_content(), SOURCE)
+    assert rec.expected_short_rate is None and rec.market_prices_of_risk is None
+    assert (rec.real_world_view.kind, rec.real_world_view.target, rec.real_world_view.target_maturity) == (
+        None, None, None)
+    content = _real_world(_content())
+    content["expected_short_rate"].pop("target")
+    assert calibration_record(content, SOURCE).expected_short_rate.target is None
+
+
+@pytest.mark.parametrize("drop, key", [
+    (lambda c: c["expected_short_rate"].pop("real_world"), "expected_short_rate.real_world"),
+    (lambda c: c["expected_short_rate"].pop("time"), "expected_short_rate.time"),
+    (lambda c: c["expected_short_rate"]["target"].pop("house_view"), "expected_short_rate.target.house_view"),
+    (lambda c: c["expected_short_rate"]["target"].pop("time"), "expected_short_rate.target.time"),
+])
+def test_a_missing_real_world_value_names_the_file_and_the_key(drop, key):
+    content = _real_world(_content())
+    drop(content)
+    with pytest.raises(ConfigError) as info:
+        _ = calibration_record(content, SOURCE).expected_short_rate
+    assert SOURCE in str(info.value) and key in str(info.value), str(info.value)
+
+
 def test_a_listed_heston_index_is_read_only_when_asked_for():
     # the names (which columns are stochastic-volatility ones) do not need a complete entry
     content = _content()

@@ -15,8 +15,10 @@ The check reads the source of every module of ``src/pqflow`` outside ``storage/`
   sections (``ratings``, ``cir``, ``prices_of_risk``, ``drivers``, ``rmse_bp``,
   ``feller_ratio`` ...): readers use the typed records of
   ``pqflow.storage.calibration_sections`` (``record.credit.ratings``, ``record.heston_fits``
-  ...); and a string subscript or ``.get`` directly on a record's section attribute
-  (``record.credit["ratings"]``, ``record.parameters.get("credit")``).
+  ...), the real-world side (``house_view``): ``record.expected_short_rate``,
+  ``record.real_world_view``; and a string subscript or ``.get`` directly on a record's section
+  attribute (``record.credit["ratings"]``, ``record.parameters.get("credit")``,
+  ``record.market_prices_of_risk.get("rates")``).
 * a subscript or ``.get`` of a key only the run's other JSON files have (``validation/summary.json``:
   ``counts_toward_verdict``, ``inconclusive_from_time`` ...; ``manifest.json``: ``root_seed``,
   ``config_sha256`` ...): readers use the records of ``pqflow.storage.validation_summary``,
@@ -64,14 +66,18 @@ SECTION_KEYS = frozenset({
     "real_world_long_run_mean", "market_consistent_long_run_mean", "market_spread", "rmse_vol_points",
     "max_abs_vol_points", "at_bounds", "vol_points", "repaired", "frobenius_distance", "gap_to_omega_bp",
     "llfr_terms", "alpha_floor", "alpha_source", "forward_at_convergence", "max_repricing_error",
+    # expected_short_rate.target
+    "house_view",
 })
 # not listed although the sections hold them: "credit" (compare's group of the same name),
 # "convergence_point" (the report's curve facts), "vol_difference_bp" (a column of the
 # market-consistency table), "last_liquid_forward_rate" and "first_smoothing_point" (also keys
-# of the stored curve that market/serialize.py owns)
+# of the stored curve that market/serialize.py owns), "target_maturity" (also a key of the
+# real-world view the calibration builds from the configuration and writes)
 #: attributes of CalibrationRecord holding a section: a string key read directly on them is a
 #: raw read of the file's form
-SECTION_ATTRIBUTES = frozenset({"parameters", "fit", "credit", "stochastic_volatility", "driver_correlation"})
+SECTION_ATTRIBUTES = frozenset({"parameters", "fit", "credit", "stochastic_volatility", "driver_correlation",
+                                "expected_short_rate", "real_world_view", "market_prices_of_risk"})
 
 #: keys only the run's JSON files besides calibration.json use (validation/summary.json, manifest.json);
 #: generic keys such as "verdict", "cells" or "name" are left out: other dicts use them too
@@ -210,6 +216,12 @@ def test_every_allowed_entry_still_exists():
     ('aa = cal.credit["AA"]', "string key ['AA'] on a calibration.json section"),
     ('eq = cal.parameters.get("equity")', "string key .get('equity') on a calibration.json section"),
     ('rows = cal.part_fit("hull_white")["rows"]', "string key ['rows'] on a calibration.json section"),
+    # the real-world side: expected short rate, its house-view target, the view, the prices of risk
+    ('lam = cal.market_prices_of_risk.get("rates")', "string key .get('rates') on a calibration.json section"),
+    ('times = cal.expected_short_rate["time"]', "string key ['time'] on a calibration.json section"),
+    ('kind = cal.real_world_view.get("kind")', "string key .get('kind') on a calibration.json section"),
+    ('path = target["house_view"]', "section key ['house_view']"),
+    ('m = cal.real_world_view["target_maturity"]', "string key ['target_maturity'] on a calibration.json section"),
     ('counts = c.get("counts_toward_verdict", True)', "run file key .get('counts_toward_verdict')"),
     ('share = summary["checks"]["density_real_world"]["ess_warning_share"]', "run file key ['ess_warning_share']"),
     ('seed = (manifest.get("seeds") or {}).get("root_seed")', "run file key .get('root_seed')"),

@@ -632,23 +632,23 @@ def _print_fit(record: CalibrationRecord) -> None:
         console.print("correlation matrix repaired (Higham 2002), Frobenius distance "
                       f"{fmt.number(corr.frobenius_distance)}", style="yellow")
     paths = record.expected_short_rate
-    if paths:
-        target = paths.get("target")
+    if paths is not None:
+        target = paths.target
         table = Table(title="Expected short rate by measure (and the house-view target)")
         table.add_column("year", justify="right")
         table.add_column("market-consistent", justify="right")
         table.add_column("real-world", justify="right")
         if target:
-            table.add_column(f"house view: {target['quantity']}", justify="right")
+            table.add_column(f"house view: {target.quantity}", justify="right")
             table.add_column("real-world model", justify="right")
         for year in (1.0, 5.0, 10.0, 20.0, 30.0, 50.0):
-            if year not in paths["time"]:
+            if year not in paths.time:
                 continue
-            i = paths["time"].index(year)
-            cells = [f"{year:g}", fmt.percent(paths["market_consistent"][i]), fmt.percent(paths["real_world"][i])]
-            if target and year in target["time"]:
-                j = target["time"].index(year)
-                cells += [fmt.percent(target["house_view"][j]), fmt.percent(target["real_world"][j])]
+            i = paths.time.index(year)
+            cells = [f"{year:g}", fmt.percent(paths.market_consistent[i]), fmt.percent(paths.real_world[i])]
+            if target and year in target.time:
+                j = target.time.index(year)
+                cells += [fmt.percent(target.house_view[j]), fmt.percent(target.real_world[j])]
             elif target:
                 cells += ["", ""]
             table.add_row(*cells)

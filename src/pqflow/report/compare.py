@@ -346,7 +346,7 @@ def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
         else:
             out.update(_schedule_items(f"{item.name} price of risk", item.market_price_of_risk, "plain"))
     mpr = cal.market_prices_of_risk
-    out.update(_schedule_items("rates price of risk", mpr.get("rates"), "plain"))
+    out.update(_schedule_items("rates price of risk", mpr.rates if mpr is not None else None, "plain"))
     out.update(_schedule_items(f"equity {core.name if core is not None else ''} price of risk",
                                core.market_price_of_risk if core is not None else None, "plain"))
     for _, legacy, entry in recorded_parts(par, {}):  # kinds with an entry of their own (inflation)

@@ -679,10 +679,10 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
                          "; prices of risk " + ", ".join(f"{d} {_sched_text(v, lambda x: fmt.plain(x, 3))}"
                                                          for d, v in lams.items()) if lams else "")})
     mpr = cal.market_prices_of_risk
-    if mpr:
+    if mpr is not None:
         rows.append({"part": "real world: prices of risk",
-                     "values": f"rates {_sched_text(mpr.get('rates'), lambda x: fmt.plain(x, 3))}; "
-                               f"equity {_sched_text(mpr.get('equity'), lambda x: fmt.plain(x, 3))}",
+                     "values": f"rates {_sched_text(mpr.rates, lambda x: fmt.plain(x, 3))}; "
+                               f"equity {_sched_text(mpr.equity, lambda x: fmt.plain(x, 3))}",
                      "fit": "from the house view"})
     return rows
 

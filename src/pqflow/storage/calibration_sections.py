@@ -1,6 +1,8 @@
 """Typed records of the nested sections of ``calibration.json`` that the checks, the report and
-the command line read: the credit part, the Heston indices, the driver correlation, and the fit
-records of the curve, the rates model, credit, the Heston smile and the correlation.
+the command line read: the credit part, the Heston indices, the driver correlation, the fit
+records of the curve, the rates model, credit, the Heston smile and the correlation, and the
+real-world side (``expected_short_rate``, ``parameters.real_world_view``,
+``parameters.market_prices_of_risk``).
 
 Each record is read from the stored form by a ``*_record`` function given the file's name
 (``source``) and the key path of the section (``where``): a value the record needs and the file
@@ -51,6 +53,13 @@ __all__ = [
     "heston_fit_records",
     "correlation_fit_record",
     "fit_entry",
+    "HouseViewTargetRecord",
+    "ExpectedShortRateRecord",
+    "RealWorldViewRecord",
+    "PricesOfRiskRecord",
+    "expected_short_rate_record",
+    "real_world_view_record",
+    "prices_of_risk_record",
 ]
 
 
@@ -570,3 +579,88 @@ def correlation_fit_record(data: Any, source: str, where: str = "fit.correlation
         repaired=repaired,
         frobenius_distance=_num(source, obj, "frobenius_distance", where) if repaired else None,
     )
+
+
+# ---------------------------------------------------------------------------------- real world
+
+@dataclass(frozen=True, kw_only=True)
+class HouseViewTargetRecord:
+    """The house-view target of the expected paths (``expected_short_rate.target``): the targeted
+    ``quantity`` (``short_rate`` or ``zero_yield``), its times, the house view's path and the
+    real-world model's (and the market-consistent one's, when recorded)."""
+
+    quantity: str | None
+    time: tuple[float, ...]
+    house_view: tuple[float, ...]
+    real_world: tuple[float, ...]
+    market_consistent: tuple[float, ...] | None = None
+
+
+@dataclass(frozen=True, kw_only=True)
+class ExpectedShortRateRecord:
+    """The model's expected short rate by measure at whole years (``expected_short_rate``) and,
+    when the real world follows a house-view path, that path's target."""
+
+    time: tuple[float, ...]
+    market_consistent: tuple[float, ...]
+    real_world: tuple[float, ...]
+    target: HouseViewTargetRecord | None = None
+
+
+def expected_short_rate_record(data: Any, source: str,
+                               where: str = "expected_short_rate") -> ExpectedShortRateRecord:
+    obj = _obj(source, data, where)
+    target = None
+    raw = obj.get("target")
+    if raw:  # a view without a path (a short rate at one year) records no target
+        tw = f"{where}.target"
+        t = _obj(source, raw, tw)
+        mc = t.get("market_consistent")
+        target = HouseViewTargetRecord(
+            quantity=_opt_str(t, "quantity"),
+            time=_floats(source, _list(source, t, "time", tw), f"{tw}.time"),
+            house_view=_floats(source, _list(source, t, "house_view", tw), f"{tw}.house_view"),
+            real_world=_floats(source, _list(source, t, "real_world", tw), f"{tw}.real_world"),
+            market_consistent=None if mc is None else _floats(source, mc, f"{tw}.market_consistent"),
+        )
+    return ExpectedShortRateRecord(
+        time=_floats(source, _list(source, obj, "time", where), f"{where}.time"),
+        market_consistent=_floats(source, _list(source, obj, "market_consistent", where),
+                                  f"{where}.market_consistent"),
+        real_world=_floats(source, _list(source, obj, "real_world", where), f"{where}.real_world"),
+        target=target,
+    )
+
+
+@dataclass(frozen=True, kw_only=True)
+class RealWorldViewRecord:
+    """How the real-world rates were set (``parameters.real_world_view``): its ``kind`` (``path``
+    or ``short_rate_at_year``), the targeted quantity (``short_rate`` or ``zero_yield``) and, for
+    a zero yield, its maturity. Every field is optional: each kind writes its own."""
+
+    kind: str | None = None
+    target: str | None = None
+    target_maturity: float | None = None
+
+
+def real_world_view_record(data: Any, source: str,
+                           where: str = "parameters.real_world_view") -> RealWorldViewRecord:
+    obj = _obj(source, data, where)
+    return RealWorldViewRecord(kind=_opt_str(obj, "kind"), target=_opt_str(obj, "target"),
+                               target_maturity=_opt_num(obj, "target_maturity"))
+
+
+@dataclass(frozen=True, kw_only=True)
+class PricesOfRiskRecord:
+    """The rates' and the core index's market prices of risk (``parameters.market_prices_of_risk``),
+    each as stored: a number or a ``{knots, values}`` schedule (``None`` when not recorded)."""
+
+    rates: Any = None
+    equity: Any = None
+    note: str | None = None
+
+
+def prices_of_risk_record(data: Any, source: str,
+                          where: str = "parameters.market_prices_of_risk") -> PricesOfRiskRecord:
+    obj = _obj(source, data, where)
+    return PricesOfRiskRecord(rates=obj.get("rates"), equity=obj.get("equity"), note=_opt_str(obj, "note"))
