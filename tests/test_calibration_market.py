@@ -113,6 +113,21 @@ def test_the_real_world_records_read_back_what_the_calibration_wrote(demo_calibr
     assert mpr is not None and mpr.rates == stored_mpr["rates"] == rec.rates_price_of_risk
     assert mpr.equity == stored_mpr["equity"] == rec.core_index.market_price_of_risk
     assert mpr.note == stored_mpr["note"]
+    # the calibration swaptions and index options, field by field as written
+    stored_sw, stored_eq = written["instruments"]["swaptions"], written["instruments"]["equity_options"]
+    assert len(rec.swaptions) == len(stored_sw) > 0 and len(rec.equity_options) == len(stored_eq) > 0
+    for got, raw in zip(rec.swaptions, stored_sw, strict=True):
+        assert (got.expiry, got.tenor, got.strike, got.convention, got.shift) == (
+            raw["expiry"], raw["tenor"], raw["strike"], raw["convention"], raw["shift"])
+        assert (got.market_vol, got.market_price, got.model_price, got.weight) == (
+            raw["market_vol"], raw["market_price"], raw["model_price"], raw["weight"])
+        assert got.kind == raw.get("kind", "payer")
+    for got, raw in zip(rec.equity_options, stored_eq, strict=True):
+        assert (got.expiry, got.strike, got.index, got.kind, got.column_kind) == (
+            raw["expiry"], raw["strike"], raw["index"], raw["kind"], raw["column_kind"])
+        assert (got.market_vol, got.market_price, got.model_price) == (
+            raw["market_vol"], raw["market_price"], raw["model_price"])
+        assert got.convention == raw.get("convention", "lognormal")
 
 
 def test_real_world_expected_short_rate_meets_the_house_view(demo_calibration):

@@ -209,6 +209,46 @@ def test_a_missing_real_world_value_names_the_file_and_the_key(drop, key):
     assert SOURCE in str(info.value) and key in str(info.value), str(info.value)
 
 
+def test_the_instrument_quotes_read_back_what_was_written_with_their_defaults():
+    content = copy.deepcopy(_content())
+    content["instruments"] = {
+        "swaptions": [{"expiry": 1.0, "tenor": 5.0, "strike": 0.025, "convention": "normal", "shift": 0.0,
+                       "market_vol": 0.0085, "market_price": 0.004, "model_price": 0.0041, "weight": 0.5},
+                      {"expiry": 2.0, "tenor": 3.0, "strike": 0.02, "market_vol": None, "market_price": None}],
+        "equity_options": [{"expiry": 1.0, "strike": 1000.0, "index": "veld", "kind": "put", "column_kind": "equity",
+                            "market_vol": 0.2, "market_price": 70.0, "model_price": 71.0},
+                           {"expiry": 2.0, "strike": 900.0}],
+        "inflation_caps": [{"whatever": "the inflation kind's own form"}],
+    }
+    rec = calibration_record(content, SOURCE)
+    first, second = rec.swaptions
+    assert (first.expiry, first.tenor, first.strike, first.market_vol, first.weight) == (1.0, 5.0, 0.025, 0.0085, 0.5)
+    assert (first.market_price, first.model_price, first.kind) == (0.004, 0.0041, "payer")
+    # a sensitivity's model-only quote: no market volatility or price; the documented defaults
+    assert (second.convention, second.shift, second.market_vol, second.market_price, second.weight) == (
+        "normal", 0.0, None, None, 1.0)
+    put, bare = rec.equity_options
+    assert (put.index, put.kind, put.market_vol, put.market_price, put.model_price) == ("veld", "put", 0.2, 70.0, 71.0)
+    assert (bare.index, bare.kind, bare.convention, bare.column_kind, bare.market_vol) == (
+        None, "call", "lognormal", "equity", None)
+    # the part kind's own instruments are its content, handed over as stored
+    assert rec.instrument_list("inflation_caps") == [{"whatever": "the inflation kind's own form"}]
+    assert calibration_record(_content(), SOURCE).swaptions == ()
+
+
+@pytest.mark.parametrize("kind, item, key", [
+    ("swaptions", {"expiry": 1.0, "strike": 0.02}, "instruments.swaptions[0].tenor"),
+    ("equity_options", {"expiry": 1.0}, "instruments.equity_options[0].strike"),
+])
+def test_a_quote_without_a_required_value_names_the_file_and_the_key(kind, item, key):
+    content = copy.deepcopy(_content())
+    content["instruments"] = {kind: [item]}
+    rec = calibration_record(content, SOURCE)
+    with pytest.raises(ConfigError) as info:
+        _ = rec.swaptions if kind == "swaptions" else rec.equity_options
+    assert SOURCE in str(info.value) and key in str(info.value), str(info.value)
+
+
 def test_a_listed_heston_index_is_read_only_when_asked_for():
     # the names (which columns are stochastic-volatility ones) do not need a complete entry
     content = _content()

@@ -18,7 +18,9 @@ The check reads the source of every module of ``src/pqflow`` outside ``storage/`
   ...), the real-world side (``house_view``): ``record.expected_short_rate``,
   ``record.real_world_view``; and a string subscript or ``.get`` directly on a record's section
   attribute (``record.credit["ratings"]``, ``record.parameters.get("credit")``,
-  ``record.market_prices_of_risk.get("rates")``).
+  ``record.market_prices_of_risk.get("rates")``, ``record.instruments.get("swaptions")``), or
+  the swaptions and index options read as dicts (``record.instrument_list("swaptions")``):
+  readers use ``record.swaptions`` and ``record.equity_options``.
 * a subscript or ``.get`` of a key only the run's other JSON files have (``validation/summary.json``:
   ``counts_toward_verdict``, ``inconclusive_from_time`` ...; ``manifest.json``: ``root_seed``,
   ``config_sha256`` ...): readers use the records of ``pqflow.storage.validation_summary``,
@@ -77,7 +79,10 @@ SECTION_KEYS = frozenset({
 #: attributes of CalibrationRecord holding a section: a string key read directly on them is a
 #: raw read of the file's form
 SECTION_ATTRIBUTES = frozenset({"parameters", "fit", "credit", "stochastic_volatility", "driver_correlation",
-                                "expected_short_rate", "real_world_view", "market_prices_of_risk"})
+                                "expected_short_rate", "real_world_view", "market_prices_of_risk", "instruments"})
+#: the instrument lists storage/calibration_sections.py types (``record.swaptions``,
+#: ``record.equity_options``); a part kind's own list (``inflation_caps``) is its kind's content
+TYPED_INSTRUMENTS = frozenset({"swaptions", "equity_options"})
 
 #: keys only the run's JSON files besides calibration.json use (validation/summary.json, manifest.json);
 #: generic keys such as "verdict", "cells" or "name" are left out: other dicts use them too
@@ -152,6 +157,11 @@ def violations(source: str, rel: str) -> list[str]:
                 found.append(f"{rel}:{node.lineno}: string key [{key.value!r}] on a calibration.json section")
             elif isinstance(key, ast.Constant) and key.value in RUN_FILE_KEYS:
                 found.append(f"{rel}:{node.lineno}: run file key [{key.value!r}]")
+        elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute)
+              and node.func.attr == "instrument_list" and node.args and isinstance(node.args[0], ast.Constant)
+              and node.args[0].value in TYPED_INSTRUMENTS):
+            kind = node.args[0].value
+            found.append(f"{rel}:{node.lineno}: typed instruments read as dicts: instrument_list({kind!r})")
         elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.func.attr == "get"
               and node.args and isinstance(node.args[0], ast.Constant)):
             key_value = node.args[0].value
@@ -222,6 +232,11 @@ def test_every_allowed_entry_still_exists():
     ('kind = cal.real_world_view.get("kind")', "string key .get('kind') on a calibration.json section"),
     ('path = target["house_view"]', "section key ['house_view']"),
     ('m = cal.real_world_view["target_maturity"]', "string key ['target_maturity'] on a calibration.json section"),
+    # the rates' and indices' calibration instruments
+    ('quotes = cal.instrument_list("swaptions")', "instrument_list('swaptions')"),
+    ('quotes = cal.instrument_list("equity_options")', "instrument_list('equity_options')"),
+    ('quotes = base.instruments.get("swaptions", [])', "string key .get('swaptions') on a calibration.json section"),
+    ('opts = cal.instruments["equity_options"]', "string key ['equity_options'] on a calibration.json section"),
     ('counts = c.get("counts_toward_verdict", True)', "run file key .get('counts_toward_verdict')"),
     ('share = summary["checks"]["density_real_world"]["ess_warning_share"]', "run file key ['ess_warning_share']"),
     ('seed = (manifest.get("seeds") or {}).get("root_seed")', "run file key .get('root_seed')"),
@@ -236,6 +251,18 @@ def test_the_scan_leaves_the_builders_writes_alone():
     # the builder writes a summary entry by key; only reads outside storage/ are the readers' business
     source = 'def f(entry, share):\n    entry["ess_warning_share"] = share\n    entry["power_rule"] = "text"\n'
     assert violations(source, "builder.py") == []
+
+
+def test_the_scan_leaves_unrelated_dicts_and_the_kinds_own_instruments_alone():
+    # compare's groups share the instrument lists' names; a part kind reads its own list; the
+    # market-consistency table's rows carry prices by key; the real-world view the calibration builds
+    source = (
+        'def f(cal, out, r, key, kind, view, target):\n'
+        '    out["swaptions"][key] = (1.0, "bp")\n'
+        '    caps = cal.instrument_list(part_instruments_key(kind)) + cal.instrument_list("inflation_caps")\n'
+        '    return r["market_price"], r.get("model_price"), view.get("target_maturity"), target.get("time")\n'
+    )
+    assert violations(source, "unrelated.py") == []
 
 
 def test_the_scan_leaves_prose_and_other_strings_alone():

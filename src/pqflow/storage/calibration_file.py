@@ -26,6 +26,7 @@ from pqflow.storage.calibration_sections import (
     CreditRecord,
     CurveFitRecord,
     DriverCorrelationRecord,
+    EquityOptionQuoteRecord,
     ExpectedShortRateRecord,
     FitEntry,
     HestonFitRecord,
@@ -33,6 +34,7 @@ from pqflow.storage.calibration_sections import (
     PricesOfRiskRecord,
     RatesFitRecord,
     RealWorldViewRecord,
+    SwaptionQuoteRecord,
     correlation_fit_record,
     credit_fit_record,
     credit_record,
@@ -42,6 +44,7 @@ from pqflow.storage.calibration_sections import (
     fit_entry,
     heston_fit_records,
     heston_indices_record,
+    instrument_quotes,
     prices_of_risk_record,
     rates_fit_record,
     real_world_view_record,
@@ -240,8 +243,20 @@ class CalibrationRecord:
         return self.data.get("instruments") or {}
 
     def instrument_list(self, kind: str) -> list[dict[str, Any]]:
-        """``swaptions``, ``equity_options`` or ``inflation_caps`` as recorded (empty if none)."""
+        """A part kind's instruments as recorded (inflation's ``inflation_caps``; empty if none):
+        their content is the kind's. The rates' and indices' quotes are :attr:`swaptions` and
+        :attr:`equity_options`."""
         return list(self.instruments.get(kind) or [])
+
+    @property
+    def swaptions(self) -> tuple[SwaptionQuoteRecord, ...]:
+        """The calibration swaptions (``instruments.swaptions``), typed; empty if none."""
+        return instrument_quotes(self.instruments, self.source)[0]
+
+    @property
+    def equity_options(self) -> tuple[EquityOptionQuoteRecord, ...]:
+        """The calibration index options (``instruments.equity_options``), typed; empty if none."""
+        return instrument_quotes(self.instruments, self.source)[1]
 
     @property
     def expected_short_rate(self) -> ExpectedShortRateRecord | None:

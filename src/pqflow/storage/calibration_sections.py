@@ -2,7 +2,9 @@
 the command line read: the credit part, the Heston indices, the driver correlation, the fit
 records of the curve, the rates model, credit, the Heston smile and the correlation, and the
 real-world side (``expected_short_rate``, ``parameters.real_world_view``,
-``parameters.market_prices_of_risk``).
+``parameters.market_prices_of_risk``), and the rates' and indices' calibration instruments
+(``instruments.swaptions``, ``instruments.equity_options``; a part kind's own instruments, such
+as inflation's caps, stay its kind's content).
 
 Each record is read from the stored form by a ``*_record`` function given the file's name
 (``source``) and the key path of the section (``where``): a value the record needs and the file
@@ -60,6 +62,11 @@ __all__ = [
     "expected_short_rate_record",
     "real_world_view_record",
     "prices_of_risk_record",
+    "SwaptionQuoteRecord",
+    "EquityOptionQuoteRecord",
+    "swaption_quote_records",
+    "equity_option_quote_records",
+    "instrument_quotes",
 ]
 
 
@@ -664,3 +671,88 @@ def prices_of_risk_record(data: Any, source: str,
                           where: str = "parameters.market_prices_of_risk") -> PricesOfRiskRecord:
     obj = _obj(source, data, where)
     return PricesOfRiskRecord(rates=obj.get("rates"), equity=obj.get("equity"), note=_opt_str(obj, "note"))
+
+
+# ---------------------------------------------------------------------------------- instruments
+
+def _instrument_list(source: str, data: Any, where: str) -> list[Mapping[str, Any]]:
+    if data is None:
+        return []
+    if not isinstance(data, list):
+        raise ConfigError(f"{source}: {where} is not a list")
+    return [_obj(source, item, f"{where}[{i}]") for i, item in enumerate(data)]
+
+
+@dataclass(frozen=True, kw_only=True)
+class SwaptionQuoteRecord:
+    """One calibration swaption (``instruments.swaptions[i]``): expiry, tenor and strike, the
+    quote's volatility convention (``normal`` unless stated), shift and payer/receiver kind, the
+    market volatility and prices (``None`` when not recorded: a sensitivity's model-only quote)."""
+
+    expiry: float
+    tenor: float
+    strike: float
+    convention: str = "normal"
+    shift: float = 0.0
+    kind: str = "payer"
+    market_vol: float | None = None
+    market_price: float | None = None
+    model_price: float | None = None
+    #: the fit's weight as recorded (a sensitivity's model-only quote carries it over unchanged)
+    weight: float = 1.0
+
+
+def swaption_quote_records(data: Any, source: str,
+                           where: str = "instruments.swaptions") -> tuple[SwaptionQuoteRecord, ...]:
+    out = []
+    for i, q in enumerate(_instrument_list(source, data, where)):
+        w = f"{where}[{i}]"
+        out.append(SwaptionQuoteRecord(
+            expiry=_num(source, q, "expiry", w), tenor=_num(source, q, "tenor", w), strike=_num(source, q, "strike", w),
+            convention=str(q.get("convention", "normal")), shift=float(q.get("shift", 0.0) or 0.0),
+            kind=str(q.get("kind", "payer")), market_vol=_opt_num(q, "market_vol"),
+            market_price=_opt_num(q, "market_price"), model_price=_opt_num(q, "model_price"),
+            weight=q.get("weight", 1.0),
+        ))
+    return tuple(out)
+
+
+@dataclass(frozen=True, kw_only=True)
+class EquityOptionQuoteRecord:
+    """One calibration index option (``instruments.equity_options[i]``): expiry and strike, the
+    index it is written on (``None``: the core index), call or put, the volatility convention,
+    the column kind of its index (``equity`` or ``property``), the market volatility and prices."""
+
+    expiry: float
+    strike: float
+    index: str | None = None
+    kind: str = "call"
+    convention: str = "lognormal"
+    column_kind: str = "equity"
+    market_vol: float | None = None
+    market_price: float | None = None
+    model_price: float | None = None
+
+
+def equity_option_quote_records(data: Any, source: str,
+                                where: str = "instruments.equity_options") -> tuple[EquityOptionQuoteRecord, ...]:
+    out = []
+    for i, q in enumerate(_instrument_list(source, data, where)):
+        w = f"{where}[{i}]"
+        out.append(EquityOptionQuoteRecord(
+            expiry=_num(source, q, "expiry", w), strike=_num(source, q, "strike", w), index=_opt_str(q, "index"),
+            kind=str(q.get("kind", "call")), convention=str(q.get("convention", "lognormal")),
+            column_kind=str(q.get("column_kind", "equity")), market_vol=_opt_num(q, "market_vol"),
+            market_price=_opt_num(q, "market_price"), model_price=_opt_num(q, "model_price"),
+        ))
+    return tuple(out)
+
+
+def instrument_quotes(
+    instruments: Mapping[str, Any], source: str, where: str = "instruments"
+) -> tuple[tuple[SwaptionQuoteRecord, ...], tuple[EquityOptionQuoteRecord, ...]]:
+    """The swaptions and index options of an ``instruments`` mapping (the file's section, or a
+    calibration's own before it is written), typed."""
+    obj = _obj(source, instruments, where)
+    return (swaption_quote_records(obj.get("swaptions"), source, f"{where}.swaptions"),
+            equity_option_quote_records(obj.get("equity_options"), source, f"{where}.equity_options"))
