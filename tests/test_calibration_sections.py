@@ -249,6 +249,21 @@ def test_a_quote_without_a_required_value_names_the_file_and_the_key(kind, item,
     assert SOURCE in str(info.value) and key in str(info.value), str(info.value)
 
 
+def test_the_inflation_kind_reads_its_caps_typed_and_names_a_missing_key():
+    # the inflation kind's own instruments (instruments.inflation_caps): the form its calibration writes
+    from pqflow.calibration.inflation_kind import yoy_option_quotes
+
+    caps = [{"maturity": 2.0, "strike": 0.03, "kind": "cap", "market_price": 0.006064, "model_price": 0.00602},
+            {"maturity": 5.0, "strike": 0.01, "kind": "floor"}]
+    cap, floor = yoy_option_quotes(caps)
+    assert (cap.maturity, cap.strike, cap.kind, cap.market_price, cap.model_price) == (
+        2.0, 0.03, "cap", 0.006064, 0.00602)
+    assert (floor.kind, floor.market_price, floor.model_price) == ("floor", None, None)
+    with pytest.raises(ConfigError) as info:
+        yoy_option_quotes([caps[0], {"maturity": 3.0, "kind": "cap"}])
+    assert "calibration.json" in str(info.value) and "instruments.inflation_caps[1].strike" in str(info.value)
+
+
 def test_a_listed_heston_index_is_read_only_when_asked_for():
     # the names (which columns are stochastic-volatility ones) do not need a complete entry
     content = _content()
