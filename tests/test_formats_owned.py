@@ -22,9 +22,11 @@ The check reads the source of every module of ``src/pqflow`` outside ``storage/`
   the swaptions and index options read as dicts (``record.instrument_list("swaptions")``):
   readers use ``record.swaptions`` and ``record.equity_options``.
 * a subscript or ``.get`` of a key only the run's other JSON files have (``validation/summary.json``:
-  ``counts_toward_verdict``, ``inconclusive_from_time`` ...; ``manifest.json``: ``root_seed``,
-  ``config_sha256`` ...): readers use the records of ``pqflow.storage.validation_summary``,
-  ``pqflow.storage.manifest`` and ``pqflow.storage.valuation_summary``. Writing such a key
+  ``counts_toward_verdict``, ``inconclusive_from_time``, ``at_horizon``, ``house_view_fit`` ...;
+  ``manifest.json``: ``root_seed``, ``config_sha256`` ...; ``valuation/summary.json``:
+  ``inconclusive_lines``, ``change_se_independent`` ...): readers use the records of
+  ``pqflow.storage.validation_summary``, ``pqflow.storage.manifest`` and
+  ``pqflow.storage.valuation_summary``. Writing such a key
   (a subscript on the left of ``=``) is the builder's and is not flagged.
 
 Common practice (a single owner per format, enforced by a source scan) rather than a published
@@ -91,6 +93,10 @@ RUN_FILE_KEYS = frozenset({
     "counts_toward_verdict", "inconclusive_from_time", "inconclusive_cells", "family_critical_z",
     "ess_warning_share", "power_rule", "expected_outside_95_by_chance", "expected_outside_99_by_chance",
     "ess_below_warning_from_time", "density_budget", "wealth_ratio_benchmark",
+    # validation/summary.json, check-specific fields the report reads (CheckSummary's named properties)
+    "worst_cell", "min_ess_share", "at_horizon", "not_testable", "house_view_fit",
+    # valuation/summary.json, its reconciliation and sensitivity totals
+    "inconclusive_lines", "material_share", "worst_line", "max_abs_difference_in_se", "change_se_independent",
     # manifest.json, its header
     "root_seed", "config_sha256", "created_utc", "output_times", "revalidated_utc", "run_name", "pqflow_version",
 })
@@ -241,6 +247,10 @@ def test_every_allowed_entry_still_exists():
     ('share = summary["checks"]["density_real_world"]["ess_warning_share"]', "run file key ['ess_warning_share']"),
     ('seed = (manifest.get("seeds") or {}).get("root_seed")', "run file key .get('root_seed')"),
     ('want = manifest["config_sha256"]', "run file key ['config_sha256']"),
+    ('at = c.extras.get("at_horizon") or {}', "run file key .get('at_horizon')"),
+    ('fit = c.entry["house_view_fit"]', "run file key ['house_view_fit']"),
+    ('lines = rec.get("inconclusive_lines", [])', "run file key .get('inconclusive_lines')"),
+    ('se = be["change_se_independent"]', "run file key ['change_se_independent']"),
 ])
 def test_the_scan_fires_on_a_planted_line(line, what):
     found = violations(f"def f(cal, run, m, name, block):\n    {line}\n", "planted.py")

@@ -807,23 +807,24 @@ def value(
                            "scenarios and the SE independent sets would give")
         for col in ("sensitivity", "BE", "BE change", "SE", "SE indep.", "guarantee change", "TVOG change"):
             sens_table.add_column(col, justify="left" if col == "sensitivity" else "right")
-        for entry in val.sensitivities:
-            be = entry["best_estimate"]
+        for entry in val.sensitivity_totals:
+            be = entry.change("best_estimate", val.source)
             sens_table.add_row(
-                entry["sensitivity"], k(be["value"]), f"{be['change'] / 1e3:+,.0f}", k(be["change_se_paired"]),
-                k(be["change_se_independent"]), f"{entry['guarantee']['change'] / 1e3:+,.0f}",
-                f"{entry['tvog']['change'] / 1e3:+,.0f}",
+                entry.sensitivity, k(be.value), f"{be.change / 1e3:+,.0f}", k(be.change_se_paired),
+                k(be.change_se_independent), f"{entry.change('guarantee', val.source).change / 1e3:+,.0f}",
+                f"{entry.change('tvog', val.source).change / 1e3:+,.0f}",
             )
         console.print(sens_table)
-    verdict = (val.reconciliation or {}).get("verdict")
-    if verdict:
-        rec = val.reconciliation or {}
+    rec = val.reconciled
+    verdict = rec.verdict if rec is not None else None
+    if rec is not None and verdict:
         colour = {"agree": "green", "inconclusive": "dark_orange"}.get(verdict, "red")
         console.print(f"reconciliation of the two sets: [{colour}]{verdict.upper()}[/]", highlight=False)
-        console.print(f"rule: {escape(str(rec.get('rule', '')))}", style="dim", highlight=False)
-        if rec.get("inconclusive_lines"):
-            console.print(f"[yellow]inconclusive:[/] {escape(', '.join(rec['inconclusive_lines']))} (a "
-                          f"{rec.get('material_share', 0.02):.0%} difference would be seen less than half the time; "
+        console.print(f"rule: {escape(str(rec.rule if rec.rule is not None else ''))}", style="dim", highlight=False)
+        if rec.inconclusive_lines:
+            share = rec.material_share if rec.material_share is not None else 0.02
+            console.print(f"[yellow]inconclusive:[/] {escape(', '.join(rec.inconclusive_lines))} (a "
+                          f"{share:.0%} difference would be seen less than half the time; "
                           "more scenarios would judge them)", highlight=False)
     target = out if out is not None else run_dir / "valuation"
     console.print(f"written to {target}: {', '.join(val.files or [])} (checked by pqflow verify)",
