@@ -30,7 +30,7 @@ __all__ = [
     "ESS_WARNING_SHARE", "POWER_RULE", "WEALTH_RATIO_BENCHMARK",
     "DensityAtHorizon", "UntestableInstrument", "HouseViewFit", "GuaranteeSummary",
     "WORST_CELL", "MIN_ESS_SHARE", "MAX_WEIGHT_SHARE", "AT_HORIZON", "NOT_TESTABLE", "HOUSE_VIEW_FIT", "GUARANTEE",
-    "VALUES", "REAL_WORLD_SAMPLE_SE",
+    "VALUES", "REAL_WORLD_SAMPLE_SE", "FAMILY_LEVEL", "KIND", "SOURCE", "WARNINGS", "REASON",
 ]
 
 #: the file's path inside a run (and inside each sensitivity set)
@@ -69,6 +69,9 @@ WEALTH_RATIO_BENCHMARK = "wealth_ratio_benchmark"
 # weight shares and their state at the horizon; the market-consistency check's untestable
 # instruments; the real-world check's house-view fit; the reconciliation's guarantee and values
 WORST_CELL = "worst_cell"
+FAMILY_LEVEL = "family_level"
+#: why a check could not run (a not-applicable entry)
+REASON = "reason"
 MIN_ESS_SHARE = "min_ess_share"
 MAX_WEIGHT_SHARE = "max_weight_share"
 AT_HORIZON = "at_horizon"

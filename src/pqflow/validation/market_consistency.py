@@ -85,6 +85,7 @@ from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_pri
 from pqflow.calibration.inflation_kind import MATERIAL_PREMIUM, YOY_TOLERANCE
 from pqflow.errors import MarketDataError
 from pqflow.models.parts import PartInstrumentContext, part_instruments, part_instruments_key, recorded_parts
+from pqflow.storage import validation_summary as vs
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
 from pqflow.storage.names import bond_column, density_block_column, density_column, index_columns
 from pqflow.storage.scenario_set import SetPass
@@ -565,7 +566,7 @@ def market_consistency_steps(
     untestable = [{"instrument": s.label, "reason": s.untestable} for s in specs if s.untestable]
     if table.empty:
         entry = not_applicable_entry(kind=KIND, reason="no instrument is testable from the files")
-        entry["not_testable"] = untestable
+        entry[vs.NOT_TESTABLE] = untestable
         return CheckResult(name=CHECK, summary=entry)
     cells = []
     for r in table.to_dict(orient="records"):
@@ -623,7 +624,7 @@ def market_consistency_steps(
         for r in cell_table[weak].to_dict(orient="records")] if len(cell_table) else []
     entry["instruments"] = len(specs)
     entry["instruments_tested"] = len(specs) - len(untestable)
-    entry["not_testable"] = untestable
+    entry[vs.NOT_TESTABLE] = untestable
     entry["vol_tolerance"] = tol
     entry["rows"] = [
         {k: r[k] for k in ("instrument", "measure", "mc_price", "std_error", "market_price",

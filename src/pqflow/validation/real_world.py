@@ -55,6 +55,7 @@ import numpy as np
 import pandas as pd
 
 from pqflow.errors import ConfigError
+from pqflow.storage import validation_summary as vs
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
 from pqflow.storage.names import INDEX_PREFIXES, bond_column, bond_maturity_of, equity_column
 from pqflow.storage.scenario_set import SetPass
@@ -456,8 +457,8 @@ def real_world_steps(
         )
         entry = cells_entry(targets, ["target", "time", "estimate", "expected", "z_score"],
                             kind=KIND, rule=rule, deviation=MARTINGALE_DEVIATION)
-    entry["wealth_ratio_benchmark"] = bench
-    entry["house_view_fit"] = house_fit
+    entry[vs.WEALTH_RATIO_BENCHMARK] = bench
+    entry[vs.HOUSE_VIEW_FIT] = house_fit
     if wealth_benchmark_gating and bench["verdict"] == "fail":
         entry["verdict"] = "fail"
     entry["warnings"] = list(entry.get("warnings", []))
