@@ -90,6 +90,46 @@ def test_equity_volatility_reprices_each_implied_vol(demo_calibration):
     assert seen == {"veldmark_all_share", "world_equity"}
 
 
+def test_the_real_world_records_read_back_what_the_calibration_wrote(demo_calibration):
+    # Round trip through calibration.json's reader (common practice for a file format: what the
+    # writer wrote, the typed reader gives back, value for value)
+    from pqflow.storage.calibration_file import calibration_record
+
+    cal = demo_calibration
+    written = cal.to_json()
+    rec = calibration_record(written, "demo/calibration.json")
+    paths, esr = written["expected_short_rate"], rec.expected_short_rate
+    assert esr is not None and esr.target is not None
+    assert esr.time == tuple(paths["time"]) and esr.real_world == tuple(paths["real_world"])
+    assert esr.market_consistent == tuple(paths["market_consistent"])
+    target = paths["target"]
+    assert esr.target.quantity == target["quantity"] == "short_rate"
+    assert esr.target.time == tuple(target["time"]) and esr.target.house_view == tuple(target["house_view"])
+    assert esr.target.real_world == tuple(target["real_world"])
+    assert esr.target.market_consistent == tuple(target["market_consistent"])
+    view, stored_view = rec.real_world_view, written["parameters"]["real_world_view"]
+    assert (view.kind, view.target, view.target_maturity) == ("path", stored_view["target"], None)
+    mpr, stored_mpr = rec.market_prices_of_risk, written["parameters"]["market_prices_of_risk"]
+    assert mpr is not None and mpr.rates == stored_mpr["rates"] == rec.rates_price_of_risk
+    assert mpr.equity == stored_mpr["equity"] == rec.core_index.market_price_of_risk
+    assert mpr.note == stored_mpr["note"]
+    # the calibration swaptions and index options, field by field as written
+    stored_sw, stored_eq = written["instruments"]["swaptions"], written["instruments"]["equity_options"]
+    assert len(rec.swaptions) == len(stored_sw) > 0 and len(rec.equity_options) == len(stored_eq) > 0
+    for got, raw in zip(rec.swaptions, stored_sw, strict=True):
+        assert (got.expiry, got.tenor, got.strike, got.convention, got.shift) == (
+            raw["expiry"], raw["tenor"], raw["strike"], raw["convention"], raw["shift"])
+        assert (got.market_vol, got.market_price, got.model_price, got.weight) == (
+            raw["market_vol"], raw["market_price"], raw["model_price"], raw["weight"])
+        assert got.kind == raw.get("kind", "payer")
+    for got, raw in zip(rec.equity_options, stored_eq, strict=True):
+        assert (got.expiry, got.strike, got.index, got.kind, got.column_kind) == (
+            raw["expiry"], raw["strike"], raw["index"], raw["kind"], raw["column_kind"])
+        assert (got.market_vol, got.market_price, got.model_price) == (
+            raw["market_vol"], raw["market_price"], raw["model_price"])
+        assert got.convention == raw.get("convention", "lognormal")
+
+
 def test_real_world_expected_short_rate_meets_the_house_view(demo_calibration):
     cal = demo_calibration
     path = cal.expected_paths()["target"]

@@ -154,6 +154,116 @@ def test_a_missing_required_value_names_the_file_and_the_key(drop, read, key):
     assert SOURCE in str(info.value) and key in str(info.value), str(info.value)
 
 
+def _real_world(content: dict) -> dict:
+    # the real-world side as the calibration writes it for a house-view path (shape of
+    # Calibration.expected_paths and the stored real_world_view / market_prices_of_risk)
+    content = copy.deepcopy(content)
+    content["parameters"]["real_world_view"] = {"kind": "path", "target": "zero_yield", "target_maturity": 10,
+                                                "start": 0.02, "long_run_level": 0.034}
+    content["parameters"]["market_prices_of_risk"] = {"rates": {"knots": [1.0], "values": [0.1, 0.2]},
+                                                      "equity": 0.25, "note": "text"}
+    content["expected_short_rate"] = {
+        "time": [0.0, 1.0], "market_consistent": [0.02, 0.021], "real_world": [0.02, 0.024],
+        "target": {"quantity": "zero yield, 10 years (continuous)", "time": [0.0, 1.0],
+                   "house_view": [0.025, 0.026], "real_world": [0.025, 0.0261]}}
+    return content
+
+
+def test_the_real_world_records_read_back_what_was_written():
+    rec = calibration_record(_real_world(_content()), SOURCE)
+    esr = rec.expected_short_rate
+    assert esr is not None and esr.time == (0.0, 1.0) and esr.real_world == (0.02, 0.024)
+    assert esr.market_consistent == (0.02, 0.021)
+    assert esr.target is not None and esr.target.house_view == (0.025, 0.026)
+    assert esr.target.real_world == (0.025, 0.0261) and esr.target.market_consistent is None
+    assert esr.target.quantity == "zero yield, 10 years (continuous)"
+    view = rec.real_world_view
+    assert (view.kind, view.target, view.target_maturity) == ("path", "zero_yield", 10.0)
+    mpr = rec.market_prices_of_risk
+    assert mpr is not None and mpr.rates == {"knots": [1.0], "values": [0.1, 0.2]} and mpr.equity == 0.25
+    assert mpr.note == "text" and rec.rates_price_of_risk == mpr.rates
+
+
+def test_a_file_without_the_real_world_side_reads_it_as_absent():
+    # a run without a house-view path (typed-in real world) or an older file without the sections
+    rec = calibration_record(_content(), SOURCE)
+    assert rec.expected_short_rate is None and rec.market_prices_of_risk is None
+    assert (rec.real_world_view.kind, rec.real_world_view.target, rec.real_world_view.target_maturity) == (
+        None, None, None)
+    content = _real_world(_content())
+    content["expected_short_rate"].pop("target")
+    assert calibration_record(content, SOURCE).expected_short_rate.target is None
+
+
+@pytest.mark.parametrize("drop, key", [
+    (lambda c: c["expected_short_rate"].pop("real_world"), "expected_short_rate.real_world"),
+    (lambda c: c["expected_short_rate"].pop("time"), "expected_short_rate.time"),
+    (lambda c: c["expected_short_rate"]["target"].pop("house_view"), "expected_short_rate.target.house_view"),
+    (lambda c: c["expected_short_rate"]["target"].pop("time"), "expected_short_rate.target.time"),
+])
+def test_a_missing_real_world_value_names_the_file_and_the_key(drop, key):
+    content = _real_world(_content())
+    drop(content)
+    with pytest.raises(ConfigError) as info:
+        _ = calibration_record(content, SOURCE).expected_short_rate
+    assert SOURCE in str(info.value) and key in str(info.value), str(info.value)
+
+
+def test_the_instrument_quotes_read_back_what_was_written_with_their_defaults():
+    content = copy.deepcopy(_content())
+    content["instruments"] = {
+        "swaptions": [{"expiry": 1.0, "tenor": 5.0, "strike": 0.025, "convention": "normal", "shift": 0.0,
+                       "market_vol": 0.0085, "market_price": 0.004, "model_price": 0.0041, "weight": 0.5},
+                      {"expiry": 2.0, "tenor": 3.0, "strike": 0.02, "market_vol": None, "market_price": None}],
+        "equity_options": [{"expiry": 1.0, "strike": 1000.0, "index": "veld", "kind": "put", "column_kind": "equity",
+                            "market_vol": 0.2, "market_price": 70.0, "model_price": 71.0},
+                           {"expiry": 2.0, "strike": 900.0}],
+        "inflation_caps": [{"whatever": "the inflation kind's own form"}],
+    }
+    rec = calibration_record(content, SOURCE)
+    first, second = rec.swaptions
+    assert (first.expiry, first.tenor, first.strike, first.market_vol, first.weight) == (1.0, 5.0, 0.025, 0.0085, 0.5)
+    assert (first.market_price, first.model_price, first.kind) == (0.004, 0.0041, "payer")
+    # a sensitivity's model-only quote: no market volatility or price; the documented defaults
+    assert (second.convention, second.shift, second.market_vol, second.market_price, second.weight) == (
+        "normal", 0.0, None, None, 1.0)
+    put, bare = rec.equity_options
+    assert (put.index, put.kind, put.market_vol, put.market_price, put.model_price) == ("veld", "put", 0.2, 70.0, 71.0)
+    assert (bare.index, bare.kind, bare.convention, bare.column_kind, bare.market_vol) == (
+        None, "call", "lognormal", "equity", None)
+    # the part kind's own instruments are its content, handed over as stored
+    assert rec.instrument_list("inflation_caps") == [{"whatever": "the inflation kind's own form"}]
+    assert calibration_record(_content(), SOURCE).swaptions == ()
+
+
+@pytest.mark.parametrize("kind, item, key", [
+    ("swaptions", {"expiry": 1.0, "strike": 0.02}, "instruments.swaptions[0].tenor"),
+    ("equity_options", {"expiry": 1.0}, "instruments.equity_options[0].strike"),
+])
+def test_a_quote_without_a_required_value_names_the_file_and_the_key(kind, item, key):
+    content = copy.deepcopy(_content())
+    content["instruments"] = {kind: [item]}
+    rec = calibration_record(content, SOURCE)
+    with pytest.raises(ConfigError) as info:
+        _ = rec.swaptions if kind == "swaptions" else rec.equity_options
+    assert SOURCE in str(info.value) and key in str(info.value), str(info.value)
+
+
+def test_the_inflation_kind_reads_its_caps_typed_and_names_a_missing_key():
+    # the inflation kind's own instruments (instruments.inflation_caps): the form its calibration writes
+    from pqflow.calibration.inflation_kind import yoy_option_quotes
+
+    caps = [{"maturity": 2.0, "strike": 0.03, "kind": "cap", "market_price": 0.006064, "model_price": 0.00602},
+            {"maturity": 5.0, "strike": 0.01, "kind": "floor"}]
+    cap, floor = yoy_option_quotes(caps)
+    assert (cap.maturity, cap.strike, cap.kind, cap.market_price, cap.model_price) == (
+        2.0, 0.03, "cap", 0.006064, 0.00602)
+    assert (floor.kind, floor.market_price, floor.model_price) == ("floor", None, None)
+    with pytest.raises(ConfigError) as info:
+        yoy_option_quotes([caps[0], {"maturity": 3.0, "kind": "cap"}])
+    assert "calibration.json" in str(info.value) and "instruments.inflation_caps[1].strike" in str(info.value)
+
+
 def test_a_listed_heston_index_is_read_only_when_asked_for():
     # the names (which columns are stochastic-volatility ones) do not need a complete entry
     content = _content()

@@ -15,12 +15,18 @@ The check reads the source of every module of ``src/pqflow`` outside ``storage/`
   sections (``ratings``, ``cir``, ``prices_of_risk``, ``drivers``, ``rmse_bp``,
   ``feller_ratio`` ...): readers use the typed records of
   ``pqflow.storage.calibration_sections`` (``record.credit.ratings``, ``record.heston_fits``
-  ...); and a string subscript or ``.get`` directly on a record's section attribute
-  (``record.credit["ratings"]``, ``record.parameters.get("credit")``).
+  ...), the real-world side (``house_view``): ``record.expected_short_rate``,
+  ``record.real_world_view``; and a string subscript or ``.get`` directly on a record's section
+  attribute (``record.credit["ratings"]``, ``record.parameters.get("credit")``,
+  ``record.market_prices_of_risk.get("rates")``, ``record.instruments.get("swaptions")``), or
+  the swaptions and index options read as dicts (``record.instrument_list("swaptions")``):
+  readers use ``record.swaptions`` and ``record.equity_options``.
 * a subscript or ``.get`` of a key only the run's other JSON files have (``validation/summary.json``:
-  ``counts_toward_verdict``, ``inconclusive_from_time`` ...; ``manifest.json``: ``root_seed``,
-  ``config_sha256`` ...): readers use the records of ``pqflow.storage.validation_summary``,
-  ``pqflow.storage.manifest`` and ``pqflow.storage.valuation_summary``. Writing such a key
+  ``counts_toward_verdict``, ``inconclusive_from_time``, ``at_horizon``, ``house_view_fit`` ...;
+  ``manifest.json``: ``root_seed``, ``config_sha256`` ...; ``valuation/summary.json``:
+  ``inconclusive_lines``, ``change_se_independent`` ...): readers use the records of
+  ``pqflow.storage.validation_summary``, ``pqflow.storage.manifest`` and
+  ``pqflow.storage.valuation_summary``. Writing such a key
   (a subscript on the left of ``=``) is the builder's and is not flagged.
 
 Common practice (a single owner per format, enforced by a source scan) rather than a published
@@ -64,14 +70,21 @@ SECTION_KEYS = frozenset({
     "real_world_long_run_mean", "market_consistent_long_run_mean", "market_spread", "rmse_vol_points",
     "max_abs_vol_points", "at_bounds", "vol_points", "repaired", "frobenius_distance", "gap_to_omega_bp",
     "llfr_terms", "alpha_floor", "alpha_source", "forward_at_convergence", "max_repricing_error",
+    # expected_short_rate.target
+    "house_view",
 })
 # not listed although the sections hold them: "credit" (compare's group of the same name),
 # "convergence_point" (the report's curve facts), "vol_difference_bp" (a column of the
 # market-consistency table), "last_liquid_forward_rate" and "first_smoothing_point" (also keys
-# of the stored curve that market/serialize.py owns)
+# of the stored curve that market/serialize.py owns), "target_maturity" (also a key of the
+# real-world view the calibration builds from the configuration and writes)
 #: attributes of CalibrationRecord holding a section: a string key read directly on them is a
 #: raw read of the file's form
-SECTION_ATTRIBUTES = frozenset({"parameters", "fit", "credit", "stochastic_volatility", "driver_correlation"})
+SECTION_ATTRIBUTES = frozenset({"parameters", "fit", "credit", "stochastic_volatility", "driver_correlation",
+                                "expected_short_rate", "real_world_view", "market_prices_of_risk", "instruments"})
+#: the instrument lists storage/calibration_sections.py types (``record.swaptions``,
+#: ``record.equity_options``); a part kind's own list (``inflation_caps``) is its kind's content
+TYPED_INSTRUMENTS = frozenset({"swaptions", "equity_options"})
 
 #: keys only the run's JSON files besides calibration.json use (validation/summary.json, manifest.json);
 #: generic keys such as "verdict", "cells" or "name" are left out: other dicts use them too
@@ -80,6 +93,10 @@ RUN_FILE_KEYS = frozenset({
     "counts_toward_verdict", "inconclusive_from_time", "inconclusive_cells", "family_critical_z",
     "ess_warning_share", "power_rule", "expected_outside_95_by_chance", "expected_outside_99_by_chance",
     "ess_below_warning_from_time", "density_budget", "wealth_ratio_benchmark",
+    # validation/summary.json, check-specific fields the report reads (CheckSummary's named properties)
+    "worst_cell", "min_ess_share", "at_horizon", "not_testable", "house_view_fit",
+    # valuation/summary.json, its reconciliation and sensitivity totals
+    "inconclusive_lines", "material_share", "worst_line", "max_abs_difference_in_se", "change_se_independent",
     # manifest.json, its header
     "root_seed", "config_sha256", "created_utc", "output_times", "revalidated_utc", "run_name", "pqflow_version",
 })
@@ -146,6 +163,11 @@ def violations(source: str, rel: str) -> list[str]:
                 found.append(f"{rel}:{node.lineno}: string key [{key.value!r}] on a calibration.json section")
             elif isinstance(key, ast.Constant) and key.value in RUN_FILE_KEYS:
                 found.append(f"{rel}:{node.lineno}: run file key [{key.value!r}]")
+        elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute)
+              and node.func.attr == "instrument_list" and node.args and isinstance(node.args[0], ast.Constant)
+              and node.args[0].value in TYPED_INSTRUMENTS):
+            kind = node.args[0].value
+            found.append(f"{rel}:{node.lineno}: typed instruments read as dicts: instrument_list({kind!r})")
         elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.func.attr == "get"
               and node.args and isinstance(node.args[0], ast.Constant)):
             key_value = node.args[0].value
@@ -210,10 +232,25 @@ def test_every_allowed_entry_still_exists():
     ('aa = cal.credit["AA"]', "string key ['AA'] on a calibration.json section"),
     ('eq = cal.parameters.get("equity")', "string key .get('equity') on a calibration.json section"),
     ('rows = cal.part_fit("hull_white")["rows"]', "string key ['rows'] on a calibration.json section"),
+    # the real-world side: expected short rate, its house-view target, the view, the prices of risk
+    ('lam = cal.market_prices_of_risk.get("rates")', "string key .get('rates') on a calibration.json section"),
+    ('times = cal.expected_short_rate["time"]', "string key ['time'] on a calibration.json section"),
+    ('kind = cal.real_world_view.get("kind")', "string key .get('kind') on a calibration.json section"),
+    ('path = target["house_view"]', "section key ['house_view']"),
+    ('m = cal.real_world_view["target_maturity"]', "string key ['target_maturity'] on a calibration.json section"),
+    # the rates' and indices' calibration instruments
+    ('quotes = cal.instrument_list("swaptions")', "instrument_list('swaptions')"),
+    ('quotes = cal.instrument_list("equity_options")', "instrument_list('equity_options')"),
+    ('quotes = base.instruments.get("swaptions", [])', "string key .get('swaptions') on a calibration.json section"),
+    ('opts = cal.instruments["equity_options"]', "string key ['equity_options'] on a calibration.json section"),
     ('counts = c.get("counts_toward_verdict", True)', "run file key .get('counts_toward_verdict')"),
     ('share = summary["checks"]["density_real_world"]["ess_warning_share"]', "run file key ['ess_warning_share']"),
     ('seed = (manifest.get("seeds") or {}).get("root_seed")', "run file key .get('root_seed')"),
     ('want = manifest["config_sha256"]', "run file key ['config_sha256']"),
+    ('at = c.extras.get("at_horizon") or {}', "run file key .get('at_horizon')"),
+    ('fit = c.entry["house_view_fit"]', "run file key ['house_view_fit']"),
+    ('lines = rec.get("inconclusive_lines", [])', "run file key .get('inconclusive_lines')"),
+    ('se = be["change_se_independent"]', "run file key ['change_se_independent']"),
 ])
 def test_the_scan_fires_on_a_planted_line(line, what):
     found = violations(f"def f(cal, run, m, name, block):\n    {line}\n", "planted.py")
@@ -224,6 +261,18 @@ def test_the_scan_leaves_the_builders_writes_alone():
     # the builder writes a summary entry by key; only reads outside storage/ are the readers' business
     source = 'def f(entry, share):\n    entry["ess_warning_share"] = share\n    entry["power_rule"] = "text"\n'
     assert violations(source, "builder.py") == []
+
+
+def test_the_scan_leaves_unrelated_dicts_and_the_kinds_own_instruments_alone():
+    # compare's groups share the instrument lists' names; a part kind reads its own list; the
+    # market-consistency table's rows carry prices by key; the real-world view the calibration builds
+    source = (
+        'def f(cal, out, r, key, kind, view, target):\n'
+        '    out["swaptions"][key] = (1.0, "bp")\n'
+        '    caps = cal.instrument_list(part_instruments_key(kind)) + cal.instrument_list("inflation_caps")\n'
+        '    return r["market_price"], r.get("model_price"), view.get("target_maturity"), target.get("time")\n'
+    )
+    assert violations(source, "unrelated.py") == []
 
 
 def test_the_scan_leaves_prose_and_other_strings_alone():

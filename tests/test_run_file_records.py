@@ -238,3 +238,66 @@ def test_validation_summary_from_json_names_where_it_came_from():
     with pytest.raises(IntegrityError, match="in memory: no key 'checks'"):
         ValidationSummary.from_json({"verdict": "pass"}, where="in memory")
     assert json.loads(json.dumps(ValidationSummary.from_json(SUMMARY).to_json())) == SUMMARY
+
+
+# check-specific entries as the density, market-consistency, real-world and reconciliation checks
+# write them (values invented)
+DENSITY = {**CHECK, "min_ess_share": 0.04, "max_weight_share": 0.08, "ess_below_warning_from_time": 20.0,
+           "at_horizon": {"time": 50.0, "mean_weight": 0.65, "std_error": 0.06, "ess_share": 0.05,
+                          "max_weight_share": 0.05}}
+MARKET = {"verdict": "pass", "rule": "quotes within tolerance",
+          "not_testable": [{"instrument": "swaption 30y x 30y", "reason": "beyond the curve"}]}
+REAL_WORLD = {"verdict": "pass", "rule": "targets", "house_view_fit": {"quantity": "short_rate",
+                                                                      "max_abs_gap_bp": 1e-12, "note": "n"}}
+RECONCILIATION = {"verdict": "pass", "guarantee": {"product": "put", "maturity": 10.0, "guaranteed_amount": 1000.0,
+                                                   "index_level": 1000.0},
+                  "values": {"real_world_sample_se": 2.5}}
+
+
+def test_the_check_specific_fields_the_report_reads_are_named_properties():
+    s = ValidationSummary.from_json({"verdict": "pass", "checks": {
+        "density_real_world": DENSITY, "market_consistency": MARKET, "real_world": REAL_WORLD,
+        "reconciliation": RECONCILIATION, "martingale_real_world": CHECK}})
+    d = s.checks["density_real_world"]
+    assert (d.min_ess_share, d.max_weight_share) == (0.04, 0.08)
+    at = d.at_horizon
+    assert (at.time, at.mean_weight, at.std_error, at.ess_share, at.max_weight_share) == (50.0, 0.65, 0.06, 0.05, 0.05)
+    assert dict(s.checks["martingale_real_world"].worst_cell) == {"asset": "deflator", "time": 5.0}
+    m = s.checks["market_consistency"]
+    assert [(u.instrument, u.reason) for u in m.not_testable] == [("swaption 30y x 30y", "beyond the curve")]
+    assert m.rule_text == "quotes within tolerance"
+    fit = s.checks["real_world"].house_view_fit
+    assert fit is not None and (fit.quantity, fit.max_abs_gap_bp, fit.note) == ("short_rate", 1e-12, "n")
+    r = s.checks["reconciliation"]
+    assert r.guarantee is not None and (r.guarantee.product, r.guarantee.maturity, r.guarantee.guaranteed_amount,
+                                        r.guarantee.index_level) == ("put", 10.0, 1000.0, 1000.0)
+    assert r.real_world_sample_se == 2.5 and r.rule_text == ""
+    # an older entry without them: empty, absent or None, as the report showed dashes
+    old = s.checks["martingale_real_world"]
+    assert (old.min_ess_share, old.at_horizon.ess_share, old.not_testable, old.house_view_fit, old.guarantee,
+            old.real_world_sample_se) == (None, None, (), None, None, None)
+
+
+def test_the_valuation_reconciliation_and_sensitivity_totals_are_typed(tmp_path):
+    change = {"value": 1000.0, "change": 20.0, "change_se_paired": 1.5, "change_se_independent": 9.0}
+    data = {**VALUATION, "reconciliation": {"verdict": "inconclusive", "rule": "r", "inconclusive_lines": ["total"],
+                                            "material_share": 0.02, "worst_line": "total",
+                                            "max_abs_difference_in_se": 1.2},
+            "sensitivities": [{"sensitivity": "rates_up", "best_estimate": change, "guarantee": {**change},
+                               "tvog": {"value": 5.0, "change": -1.0}}]}
+    record = read_valuation_summary(_write(tmp_path / "summary.json", data))
+    rec = record.reconciled
+    assert rec is not None and (rec.verdict, rec.rule, rec.inconclusive_lines, rec.material_share, rec.worst_line,
+                                rec.max_abs_difference_in_se) == ("inconclusive", "r", ("total",), 0.02, "total", 1.2)
+    (totals,) = record.sensitivity_totals
+    assert totals.sensitivity == "rates_up" and list(totals.changes) == ["best_estimate", "guarantee", "tvog"]
+    be = totals.change("best_estimate")
+    assert (be.value, be.change, be.change_se_paired, be.change_se_independent) == (1000.0, 20.0, 1.5, 9.0)
+    assert (totals.change("tvog").change, totals.change("tvog").change_se_paired) == (-1.0, None)
+    assert read_valuation_summary(_write(tmp_path / "old.json", VALUATION)).sensitivity_totals == ()
+    # a missing change is named with the file and key
+    data["sensitivities"][0]["guarantee"].pop("change")
+    path = _write(tmp_path / "bad.json", data)
+    with pytest.raises(IntegrityError) as err:
+        _ = read_valuation_summary(path).sensitivity_totals
+    assert str(path) in str(err.value) and "sensitivities[0].guarantee has no key 'change'" in str(err.value)

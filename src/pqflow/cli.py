@@ -632,23 +632,23 @@ def _print_fit(record: CalibrationRecord) -> None:
         console.print("correlation matrix repaired (Higham 2002), Frobenius distance "
                       f"{fmt.number(corr.frobenius_distance)}", style="yellow")
     paths = record.expected_short_rate
-    if paths:
-        target = paths.get("target")
+    if paths is not None:
+        target = paths.target
         table = Table(title="Expected short rate by measure (and the house-view target)")
         table.add_column("year", justify="right")
         table.add_column("market-consistent", justify="right")
         table.add_column("real-world", justify="right")
         if target:
-            table.add_column(f"house view: {target['quantity']}", justify="right")
+            table.add_column(f"house view: {target.quantity}", justify="right")
             table.add_column("real-world model", justify="right")
         for year in (1.0, 5.0, 10.0, 20.0, 30.0, 50.0):
-            if year not in paths["time"]:
+            if year not in paths.time:
                 continue
-            i = paths["time"].index(year)
-            cells = [f"{year:g}", fmt.percent(paths["market_consistent"][i]), fmt.percent(paths["real_world"][i])]
-            if target and year in target["time"]:
-                j = target["time"].index(year)
-                cells += [fmt.percent(target["house_view"][j]), fmt.percent(target["real_world"][j])]
+            i = paths.time.index(year)
+            cells = [f"{year:g}", fmt.percent(paths.market_consistent[i]), fmt.percent(paths.real_world[i])]
+            if target and year in target.time:
+                j = target.time.index(year)
+                cells += [fmt.percent(target.house_view[j]), fmt.percent(target.real_world[j])]
             elif target:
                 cells += ["", ""]
             table.add_row(*cells)
@@ -807,23 +807,24 @@ def value(
                            "scenarios and the SE independent sets would give")
         for col in ("sensitivity", "BE", "BE change", "SE", "SE indep.", "guarantee change", "TVOG change"):
             sens_table.add_column(col, justify="left" if col == "sensitivity" else "right")
-        for entry in val.sensitivities:
-            be = entry["best_estimate"]
+        for entry in val.sensitivity_totals:
+            be = entry.change("best_estimate", val.source)
             sens_table.add_row(
-                entry["sensitivity"], k(be["value"]), f"{be['change'] / 1e3:+,.0f}", k(be["change_se_paired"]),
-                k(be["change_se_independent"]), f"{entry['guarantee']['change'] / 1e3:+,.0f}",
-                f"{entry['tvog']['change'] / 1e3:+,.0f}",
+                entry.sensitivity, k(be.value), f"{be.change / 1e3:+,.0f}", k(be.change_se_paired),
+                k(be.change_se_independent), f"{entry.change('guarantee', val.source).change / 1e3:+,.0f}",
+                f"{entry.change('tvog', val.source).change / 1e3:+,.0f}",
             )
         console.print(sens_table)
-    verdict = (val.reconciliation or {}).get("verdict")
-    if verdict:
-        rec = val.reconciliation or {}
+    rec = val.reconciled
+    verdict = rec.verdict if rec is not None else None
+    if rec is not None and verdict:
         colour = {"agree": "green", "inconclusive": "dark_orange"}.get(verdict, "red")
         console.print(f"reconciliation of the two sets: [{colour}]{verdict.upper()}[/]", highlight=False)
-        console.print(f"rule: {escape(str(rec.get('rule', '')))}", style="dim", highlight=False)
-        if rec.get("inconclusive_lines"):
-            console.print(f"[yellow]inconclusive:[/] {escape(', '.join(rec['inconclusive_lines']))} (a "
-                          f"{rec.get('material_share', 0.02):.0%} difference would be seen less than half the time; "
+        console.print(f"rule: {escape(str(rec.rule if rec.rule is not None else ''))}", style="dim", highlight=False)
+        if rec.inconclusive_lines:
+            share = rec.material_share if rec.material_share is not None else 0.02
+            console.print(f"[yellow]inconclusive:[/] {escape(', '.join(rec.inconclusive_lines))} (a "
+                          f"{share:.0%} difference would be seen less than half the time; "
                           "more scenarios would judge them)", highlight=False)
     target = out if out is not None else run_dir / "valuation"
     console.print(f"written to {target}: {', '.join(val.files or [])} (checked by pqflow verify)",

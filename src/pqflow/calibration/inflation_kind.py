@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import re
 from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -40,6 +41,7 @@ from pqflow.models.inflation import INFLATION_DRIVER, REAL_RATE_DRIVER, Inflatio
 from pqflow.models.jarrow_yildirim import JarrowYildirimParams
 from pqflow.models.parts import PartAsset, PartContext, PartFit, PartInstrument, PartInstrumentContext
 from pqflow.models.rates import RatesModel
+from pqflow.storage.calibration_file import CALIBRATION_FILE
 from pqflow.storage.names import CPI, REAL_BOND_PREFIX, REAL_SHORT_RATE
 
 __all__ = [
@@ -52,6 +54,8 @@ __all__ = [
     "inflation_from_json",
     "inflation_to_json",
     "real_bond_maturity_of",
+    "YoYOptionQuote",
+    "yoy_option_quotes",
 ]
 
 #: The ``[market_data]`` keys of the inflation part's files.
@@ -216,6 +220,35 @@ def _num(x: Any) -> float | None:
     return None if x is None else float(x)
 
 
+@dataclass(frozen=True, kw_only=True)
+class YoYOptionQuote:
+    """One recorded year-on-year cap or floor (``instruments.inflation_caps[i]``, this kind's
+    own form): maturity in years, strike, ``cap`` or ``floor``, the market premium and the
+    model's (``None`` when not recorded)."""
+
+    maturity: float
+    strike: float
+    kind: str
+    market_price: float | None = None
+    model_price: float | None = None
+
+
+def yoy_option_quotes(records: list[dict[str, Any]],
+                      where: str = "instruments.inflation_caps") -> tuple[YoYOptionQuote, ...]:
+    """The recorded caps and floors, typed; a missing maturity, strike or kind names the file and key."""
+    out = []
+    for i, raw in enumerate(records):
+        def need(key: str, raw: Mapping[str, Any] = raw, i: int = i) -> Any:
+            if not isinstance(raw, Mapping) or raw.get(key) is None:
+                raise ConfigError(f"{CALIBRATION_FILE}: not a pqflow calibration file (no {where}[{i}].{key})")
+            return raw[key]
+
+        out.append(YoYOptionQuote(maturity=float(need("maturity")), strike=float(need("strike")),
+                                  kind=str(need("kind")), market_price=_num(raw.get("market_price")),
+                                  model_price=_num(raw.get("model_price"))))
+    return tuple(out)
+
+
 def _yoy_value(n: int, strike: float, option: str, time_index: Callable[[np.ndarray, float], int | None]):
     """The deflated payoff of a year-on-year cap (floor): annual caplets
     ``tau (I_i / I_{i-1} - 1 - K)^+`` paid at ``i = 1..n``, ``tau = 1`` (Mercurio 2005's
@@ -337,8 +370,8 @@ class InflationKind:
 
     def instruments(self, records: list[dict[str, Any]], context: PartInstrumentContext) -> list[PartInstrument]:
         out = []
-        for raw in records:
-            n, strike, option = int(round(float(raw["maturity"]))), float(raw["strike"]), str(raw["kind"])
+        for quote in yoy_option_quotes(records, f"instruments.{self.instruments_key}"):
+            n, strike, option = int(round(quote.maturity)), quote.strike, quote.kind
             reason = None
             if CPI not in context.columns:
                 reason = f"not testable from the files (missing {CPI})"
@@ -346,7 +379,7 @@ class InflationKind:
                 off_grid = [i for i in range(n + 1) if context.time_index(context.times, float(i)) is None]
                 if off_grid:
                     reason = f"not testable from the files (years {off_grid[:3]} are not output times)"
-            market, model = _num(raw.get("market_price")), _num(raw.get("model_price"))
+            market, model = quote.market_price, quote.model_price
             price = market if market is not None else model
             out.append(PartInstrument(
                 label=f"year-on-year inflation {option} {n}y K={strike:.2%}", kind="yoy_option", option=option,
@@ -391,9 +424,9 @@ class InflationKind:
     def compare_quotes(self, instruments: list[dict[str, Any]], fit: dict[str, Any],
                        fmt: Any) -> dict[str, tuple[Any, str]]:
         out: dict[str, tuple[Any, str]] = {}
-        for c in instruments:
-            out[f"year-on-year {c.get('kind')} {fmt.years(c.get('maturity'))}y strike "
-                f"{fmt.percent(c.get('strike'), 2)} (premium)"] = (1e4 * float(c["market_price"]), "bp")
+        for c in yoy_option_quotes(instruments, f"instruments.{self.instruments_key}"):
+            out[f"year-on-year {c.kind} {fmt.years(c.maturity)}y strike "
+                f"{fmt.percent(c.strike, 2)} (premium)"] = (1e4 * float(c.market_price), "bp")  # type: ignore[arg-type]
         for r in fit.get("rows") or []:
             out[f"zero-coupon inflation swap {fmt.years(r.get('maturity'))}y"] = (r.get("market_rate"), "rate")
         return out

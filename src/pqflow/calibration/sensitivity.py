@@ -30,6 +30,7 @@ from pqflow.market.curve import DiscountCurve
 from pqflow.measure.prices_of_risk import equity_price_of_risk
 from pqflow.models.parts import PART_KINDS, PartContext, part_fit_key
 from pqflow.models.rates import RatesModel
+from pqflow.storage.calibration_sections import SwaptionQuoteRecord, instrument_quotes
 
 __all__ = ["curve_only_calibration"]
 
@@ -80,7 +81,8 @@ def curve_only_calibration(base: Calibration, config: RunConfig) -> Calibration:
         fit=fit,
         inputs=inputs,
         inputs_hash=hashlib.sha256(canon).hexdigest(),
-        instruments={"swaptions": _model_swaptions(base.instruments.get("swaptions", []), curve, base.rates),
+        instruments={"swaptions": _model_swaptions(instrument_quotes(base.instruments, "the base calibration")[0],
+                                                   curve, base.rates),
                      "equity_options": []},
     )
 
@@ -93,22 +95,22 @@ _SWAPTION_PRICE: dict[str, Callable[..., float]] = {
 
 
 def _model_swaptions(
-    quotes: list[dict[str, Any]], curve: DiscountCurve, rates: RatesModel
+    quotes: tuple[SwaptionQuoteRecord, ...], curve: DiscountCurve, rates: RatesModel
 ) -> list[dict[str, Any]]:
     """The base swaptions at the money on ``curve``, priced by the kept rates model (Jamshidian's
     decomposition, or G2++'s integral); no market quote."""
     price = _SWAPTION_PRICE[rates.model]
     out = []
     for q in quotes:
-        expiry, tenor = float(q["expiry"]), float(q["tenor"])
+        expiry, tenor = q.expiry, q.tenor
         if expiry + tenor > curve.max_maturity:
             continue
         strike = forward_swap_rate(curve, expiry, tenor)
         out.append({
-            "expiry": expiry, "tenor": tenor, "strike": strike, "convention": q.get("convention", "normal"),
-            "shift": q.get("shift", 0.0), "market_vol": None, "market_price": None,
+            "expiry": expiry, "tenor": tenor, "strike": strike, "convention": q.convention,
+            "shift": q.shift, "market_vol": None, "market_price": None,
             "model_price": float(price(curve, rates, expiry=expiry, tenor=tenor, strike=strike)),
-            "weight": q.get("weight", 1.0),
+            "weight": q.weight,
             "note": "model price only: volatility parameters kept from the base calibration",
         })
     return out

@@ -239,23 +239,23 @@ def _inputs(cal: CalibrationRecord) -> dict[str, dict[str, tuple[Any, str]]]:
     out: dict[str, dict[str, tuple[Any, str]]] = {g: {} for g, _ in GROUPS}
     out["curve"] = _curve_points(cal)
     inst = cal.instruments
-    for s in inst.get("swaptions", []) or []:
-        key = f"swaption {fmt.years(s.get('expiry'))}y x {fmt.years(s.get('tenor'))}y"
-        conv = str(s.get("convention", "normal"))
+    for s in cal.swaptions:
+        key = f"swaption {fmt.years(s.expiry)}y x {fmt.years(s.tenor)}y"
+        conv = s.convention
         if conv == "normal":
-            out["swaptions"][key] = (1e4 * float(s["market_vol"]), "bp")
+            out["swaptions"][key] = (1e4 * float(s.market_vol), "bp")  # type: ignore[arg-type]
         else:
-            out["swaptions"][f"{key} ({conv})"] = (s.get("market_vol"), "vol")
-    for o in inst.get("equity_options", []) or []:
-        t = float(o.get("expiry", 0.0))
-        f = _forward(cal, str(o.get("index")), t)
-        if f and _is_num(o.get("strike")):
-            m = 100.0 * float(o["strike"]) / f  # whole percent where it is one (ATM forward: 100%)
+            out["swaptions"][f"{key} ({conv})"] = (s.market_vol, "vol")
+    for o in cal.equity_options:
+        t = o.expiry
+        f = _forward(cal, str(o.index), t)
+        if f and _is_num(o.strike):
+            m = 100.0 * o.strike / f  # whole percent where it is one (ATM forward: 100%)
             money = f"moneyness {m:.0f}%" if abs(m - round(m)) < 0.05 else f"moneyness {m:.1f}%"
         else:
-            money = f"strike {fmt.plain(o.get('strike'), 6)}"
-        kind = f" {o['kind']}" if o.get("kind") not in (None, "call") else ""
-        out["equity_options"][f"{o.get('index')} {fmt.years(t)}y{kind}, {money}"] = (o.get("market_vol"), "vol")
+            money = f"strike {fmt.plain(o.strike, 6)}"
+        kind = f" {o.kind}" if o.kind != "call" else ""
+        out["equity_options"][f"{o.index} {fmt.years(t)}y{kind}, {money}"] = (o.market_vol, "vol")
     fit = cal.fit
     for _, legacy, _ in recorded_parts(cal.parameters, {}):  # kinds with an entry of their own (inflation)
         out[part_compare_group(legacy)].update(part_compare_quotes(
@@ -346,7 +346,7 @@ def _parameters(cal: CalibrationRecord) -> dict[str, tuple[Any, str]]:
         else:
             out.update(_schedule_items(f"{item.name} price of risk", item.market_price_of_risk, "plain"))
     mpr = cal.market_prices_of_risk
-    out.update(_schedule_items("rates price of risk", mpr.get("rates"), "plain"))
+    out.update(_schedule_items("rates price of risk", mpr.rates if mpr is not None else None, "plain"))
     out.update(_schedule_items(f"equity {core.name if core is not None else ''} price of risk",
                                core.market_price_of_risk if core is not None else None, "plain"))
     for _, legacy, entry in recorded_parts(par, {}):  # kinds with an entry of their own (inflation)

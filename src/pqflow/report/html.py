@@ -424,9 +424,8 @@ def _densities(summary: ValidationSummary, manifest: ManifestRecord | None) -> l
         chk = summary.check(f"density_{measure}")
         if not chk:
             continue
-        c = chk.extras
         below = chk.ess_below_warning_from_time
-        at = c.get("at_horizon") or {}
+        at = chk.at_horizon
         col = density_column(measure)
         rows.append({
             "density": f"{col}, {MEASURE_NAME[measure]} set",
@@ -436,8 +435,8 @@ def _densities(summary: ValidationSummary, manifest: ManifestRecord | None) -> l
                        f"not assessed in this run; ESS below "
                        f"{fmt.share(chk.ess_warning_share, 0)} from t = {fmt.years(below)}"),
             "limited": below is not None and (horizon is None or below < horizon),
-            "ess": fmt.share(at.get("ess_share")),
-            "max_w": fmt.share(at.get("max_weight_share")),
+            "ess": fmt.share(at.ess_share),
+            "max_w": fmt.share(at.max_weight_share),
         })
     return rows
 
@@ -466,13 +465,13 @@ def _warnings(summary: ValidationSummary, valuation: ValuationSummary | None) ->
                        f"{', ' + str(d['block']) if d.get('block') else ''}) usable only to "
                        f"t = {fmt.years(d['usable_horizon'])} years")
     if valuation is not None:
-        rec = valuation.reconciliation or {}
-        if rec.get("verdict") == "differ":
+        rec = valuation.reconciled
+        if rec is not None and rec.verdict == "differ":
             out.append(f"liability valuation: market-consistent and deflated real-world values differ "
-                       f"(worst {rec.get('worst_line')}: {fmt.zscore(rec.get('max_abs_difference_in_se'))} SE)")
-        elif rec.get("verdict") == "inconclusive":
-            out.append(f"liability valuation: the two sets' values of {', '.join(rec.get('inconclusive_lines', []))} "
-                       f"cannot be compared at the material size ({fmt.share(rec.get('material_share'))} of the "
+                       f"(worst {rec.worst_line}: {fmt.zscore(rec.max_abs_difference_in_se)} SE)")
+        elif rec is not None and rec.verdict == "inconclusive":
+            out.append(f"liability valuation: the two sets' values of {', '.join(rec.inconclusive_lines)} "
+                       f"cannot be compared at the material size ({fmt.share(rec.material_share)} of the "
                        "value): inconclusive, not agreed")
     return out
 
@@ -679,10 +678,10 @@ def _key_parameters(cal: CalibrationRecord) -> list[dict[str, str]]:
                          "; prices of risk " + ", ".join(f"{d} {_sched_text(v, lambda x: fmt.plain(x, 3))}"
                                                          for d, v in lams.items()) if lams else "")})
     mpr = cal.market_prices_of_risk
-    if mpr:
+    if mpr is not None:
         rows.append({"part": "real world: prices of risk",
-                     "values": f"rates {_sched_text(mpr.get('rates'), lambda x: fmt.plain(x, 3))}; "
-                               f"equity {_sched_text(mpr.get('equity'), lambda x: fmt.plain(x, 3))}",
+                     "values": f"rates {_sched_text(mpr.rates, lambda x: fmt.plain(x, 3))}; "
+                               f"equity {_sched_text(mpr.equity, lambda x: fmt.plain(x, 3))}",
                      "fit": "from the house view"})
     return rows
 
@@ -954,7 +953,7 @@ def _martingale(run_dir: Path, summary: ValidationSummary) -> str:
         c = summary.check_or_absent(f"martingale_{measure}")
         html.append(f'<h3 id="check-martingale_{measure}">{escape(MEASURE_NAME[measure])} '
                     f"{_badge(c.verdict)}</h3>")
-        worst = c.extras.get("worst_cell") or {}
+        worst = c.worst_cell
         html.append(_kv([
             ("cells", fmt.count(c.cells)),
             ("outside 95% / by chance",
@@ -1006,19 +1005,18 @@ def _density(run_dir: Path, summary: ValidationSummary, manifest: ManifestRecord
     for measure in MEASURES:
         c = summary.check_or_absent(f"density_{measure}")
         share = c.ess_warning_share_or(share)
-        extra = c.extras
         col = "q_density (dQ/dP)" if measure == "real_world" else "p_density (dP/dQ)"
         html.append(f'<h3 id="check-density_{measure}">{escape(MEASURE_NAME[measure])}: {col} '
                     f"{_badge(c.verdict)}</h3>")
-        at = extra.get("at_horizon") or {}
+        at = c.at_horizon
         pairs = [
             ("max |z| of the mean weight / family limit",
              f"{fmt.zscore(c.max_abs_z)} / {fmt.zscore(c.family_critical_z)}"),
-            ("lowest ESS share", fmt.share(extra.get("min_ess_share"))),
-            ("largest single-path weight share", fmt.share(extra.get("max_weight_share"))),
+            ("lowest ESS share", fmt.share(c.min_ess_share)),
+            ("largest single-path weight share", fmt.share(c.max_weight_share)),
             ("ESS below warning share from", "never" if c.ess_below_warning_from_time is None
              else f"t = {fmt.years(c.ess_below_warning_from_time)} years"),
-            ("at the horizon: mean weight ± SE", fmt.price_se(at.get("mean_weight"), at.get("std_error"))),
+            ("at the horizon: mean weight ± SE", fmt.price_se(at.mean_weight, at.std_error)),
         ]
         if c.inconclusive_cells:
             pairs.append(("cells that cannot be judged", _check_figure(c)))
@@ -1080,13 +1078,13 @@ def _vol_text(v: Any, r: dict[str, Any]) -> str:
 
 
 def _market_consistency(run_dir: Path, summary: ValidationSummary) -> str:
-    c = summary.check_entry("market_consistency")
+    c = summary.check("market_consistency")
     if c is None:
         return '<p class="note">This run predates the market-consistency check.</p>'
     html = [f'<h3 id="check-market_consistency">Calibration instruments repriced from the files '
-            f"{_badge(c.get('verdict'))}</h3>", f'<p class="note">{escape(str(c.get("rule", "")))}</p>']
-    for u in c.get("not_testable", []) or []:
-        html.append(f'<p class="note">{escape(str(u.get("instrument")))}: {escape(str(u.get("reason")))}</p>')
+            f"{_badge(c.verdict)}</h3>", f'<p class="note">{escape(c.rule_text)}</p>']
+    for u in c.not_testable:
+        html.append(f'<p class="note">{escape(str(u.instrument))}: {escape(str(u.reason))}</p>')
     rows = _records(_csv(run_dir, "market_consistency"))
     if rows:
         for measure in MEASURES:
@@ -1163,13 +1161,12 @@ def _real_world(run_dir: Path, summary: ValidationSummary) -> str:
     chk = summary.check("real_world")
     if chk is None:
         return '<p class="note">This run predates the real-world check.</p>'
-    c = chk.entry
     html = [f'<h3 id="check-real_world">Targets {_badge(chk.verdict)}</h3>',
-            f'<p class="note">{escape(str(c.get("rule", "")))}</p>']
-    fit = c.get("house_view_fit")
-    if fit:
-        html.append(f'<p class="note">House view ({escape(str(fit.get("quantity")))}): the model\'s real-world '
-                    f'expectation lies within {escape(fmt.bp(fit.get("max_abs_gap_bp"), 2))} of the house-view '
+            f'<p class="note">{escape(chk.rule_text)}</p>']
+    fit = chk.house_view_fit
+    if fit is not None:
+        html.append(f'<p class="note">House view ({escape(str(fit.quantity))}): the model\'s real-world '
+                    f'expectation lies within {escape(fmt.bp(fit.max_abs_gap_bp, 2))} of the house-view '
                     f'path.</p>')
     targets = _csv(run_dir, "real_world_targets")
     charts = []
@@ -1258,17 +1255,16 @@ def _real_world(run_dir: Path, summary: ValidationSummary) -> str:
 
 
 def _reconciliation(run_dir: Path, summary: ValidationSummary) -> str:
-    c = summary.check_entry("reconciliation")
+    c = summary.check("reconciliation")
     if c is None:
         return '<p class="note">This run predates the reconciliation check.</p>'
-    html = [f'<h3 id="check-reconciliation">Maturity guarantee three ways {_badge(c.get("verdict"))}</h3>',
-            f'<p class="note">{escape(str(c.get("rule", "")))}</p>']
-    g = c.get("guarantee") or {}
-    v = c.get("values") or {}
-    if g:
-        html.append(_kv([("product", str(g.get("product", ""))), ("maturity", f"{fmt.years(g.get('maturity'))} years"),
-                         ("guaranteed amount", fmt.plain(g.get("guaranteed_amount"), 6)),
-                         ("index level today", fmt.plain(g.get("index_level"), 6))]))
+    html = [f'<h3 id="check-reconciliation">Maturity guarantee three ways {_badge(c.verdict)}</h3>',
+            f'<p class="note">{escape(c.rule_text)}</p>']
+    g = c.guarantee
+    if g is not None:
+        html.append(_kv([("product", str(g.product)), ("maturity", f"{fmt.years(g.maturity)} years"),
+                         ("guaranteed amount", fmt.plain(g.guaranteed_amount, 6)),
+                         ("index level today", fmt.plain(g.index_level, 6))]))
     rows = _records(_csv(run_dir, "reconciliation"))
     if rows:
         values = [r for r in rows if r.get("kind") == "value"]
@@ -1281,9 +1277,9 @@ def _reconciliation(run_dir: Path, summary: ValidationSummary) -> str:
             "comparison": lambda r: escape(str(r["comparison"])),
             "difference": lambda r: escape(fmt.price_se(r.get("difference"), r.get("std_error"))),
             "z_score": lambda r: escape(fmt.zscore(r.get("z_score")))}))
-    if v.get("real_world_sample_se") is not None:
+    if c.real_world_sample_se is not None:
         html.append(f'<p class="note">Real-world SE: the larger of the sample value '
-                    f'({escape(fmt.number(v["real_world_sample_se"]))}) '
+                    f'({escape(fmt.number(c.real_world_sample_se))}) '
                     "and the value implied by the market-consistent set's second moment.</p>")
     html.append(_files(run_dir, ["reconciliation.csv"]))
     ret = _records(_csv(run_dir, "expected_returns"))
@@ -1335,12 +1331,13 @@ def _liabilities(run_dir: Path, val: ValuationSummary | None) -> str:
     if val is None:
         return ('<p class="note">No liability valuation in this run directory. Run '
                 "<code>pqflow value RUN_DIR --liabilities FILE</code> and then <code>pqflow report RUN_DIR</code>.</p>")
-    rec = val.reconciliation if val.reconciliation is not None else {}
-    verdict = {"agree": "pass", "differ": "fail"}.get(str(rec.get("verdict")), rec.get("verdict"))
-    rule = (f'<p class="note">Rule: {escape(str(rec["rule"]))}.'
-            + (f' Inconclusive: {escape(", ".join(rec["inconclusive_lines"]))}.'
-               if rec.get("inconclusive_lines") else "")
-            + "</p>") if rec.get("rule") else ""
+    rec = val.reconciled
+    recorded = rec.verdict if rec is not None else None
+    verdict = {"agree": "pass", "differ": "fail"}.get(str(recorded), recorded)
+    rule = (f'<p class="note">Rule: {escape(str(rec.rule))}.'
+            + (f' Inconclusive: {escape(", ".join(rec.inconclusive_lines))}.'
+               if rec.inconclusive_lines else "")
+            + "</p>") if rec is not None and rec.rule else ""
     cur = str(_or(val.currency, ""))
     html = [f"<h3>{escape(str(_or(val.insurer, '')))}: best estimate and TVOG {_badge(verdict)}</h3>",
             f'<p class="note">Portfolio {escape(str(_or(val.portfolio_file, "")))}; values in {escape(cur)} '
@@ -1369,8 +1366,8 @@ def _liabilities(run_dir: Path, val: ValuationSummary | None) -> str:
     html.append('<p class="note">' + " ".join(escape(c) for c in val.conventions) + "</p>")
     html.append(_files(run_dir, ["../valuation/liability_values.csv", "../valuation/liability_cash_flows.csv",
                                  "../valuation/summary.json"]))
-    sens = [{"sensitivity": e["sensitivity"], "quantity": q, **e[q]}
-            for e in val.sensitivities or [] for q in ("best_estimate", "guarantee", "tvog") if q in e]
+    sens = [{"sensitivity": e.sensitivity, "quantity": q, **vars(c)}
+            for e in val.sensitivity_totals for q, c in e.changes.items()]
     if sens:
         html.append('<h3>Sensitivities (total)</h3><p class="note">Change from the base on the same scenarios '
                     "(common random numbers), its standard error, and the one independently seeded sets would give "

@@ -26,19 +26,28 @@ from pqflow.storage.calibration_sections import (
     CreditRecord,
     CurveFitRecord,
     DriverCorrelationRecord,
+    EquityOptionQuoteRecord,
+    ExpectedShortRateRecord,
     FitEntry,
     HestonFitRecord,
     HestonIndices,
+    PricesOfRiskRecord,
     RatesFitRecord,
+    RealWorldViewRecord,
+    SwaptionQuoteRecord,
     correlation_fit_record,
     credit_fit_record,
     credit_record,
     curve_fit_record,
     driver_correlation_record,
+    expected_short_rate_record,
     fit_entry,
     heston_fit_records,
     heston_indices_record,
+    instrument_quotes,
+    prices_of_risk_record,
     rates_fit_record,
+    real_world_view_record,
 )
 from pqflow.storage.jsonio import read_json, write_json_atomic
 
@@ -234,13 +243,27 @@ class CalibrationRecord:
         return self.data.get("instruments") or {}
 
     def instrument_list(self, kind: str) -> list[dict[str, Any]]:
-        """``swaptions``, ``equity_options`` or ``inflation_caps`` as recorded (empty if none)."""
+        """A part kind's instruments as recorded (inflation's ``inflation_caps``; empty if none):
+        their content is the kind's. The rates' and indices' quotes are :attr:`swaptions` and
+        :attr:`equity_options`."""
         return list(self.instruments.get(kind) or [])
 
     @property
-    def expected_short_rate(self) -> dict[str, Any]:
-        """The model's expected short rate under both measures (and the house-view target)."""
-        return self.data.get("expected_short_rate") or {}
+    def swaptions(self) -> tuple[SwaptionQuoteRecord, ...]:
+        """The calibration swaptions (``instruments.swaptions``), typed; empty if none."""
+        return instrument_quotes(self.instruments, self.source)[0]
+
+    @property
+    def equity_options(self) -> tuple[EquityOptionQuoteRecord, ...]:
+        """The calibration index options (``instruments.equity_options``), typed; empty if none."""
+        return instrument_quotes(self.instruments, self.source)[1]
+
+    @property
+    def expected_short_rate(self) -> ExpectedShortRateRecord | None:
+        """The model's expected short rate under both measures (and the house-view target);
+        ``None`` when the file records none."""
+        data = self.data.get("expected_short_rate")
+        return expected_short_rate_record(data, self.source) if data else None
 
     @property
     def equity_risk_premium(self) -> float | None:
@@ -310,7 +333,7 @@ class CalibrationRecord:
             level=float(self._need(eq, "level", where)),
             income_yield=float(self._need(eq, "dividend_yield", where)),
             volatility=self._need(eq, "volatility", where),
-            market_price_of_risk=self.market_prices_of_risk.get("equity"),
+            market_price_of_risk=self._core_price_of_risk(),
             risk_premium=self.equity_risk_premium,
             correlation_with_rates=float(self._need(eq, "correlation_with_rates", where)),
             correlation_with_rate_factors=None if factors is None else tuple(float(v) for v in factors),
@@ -372,9 +395,15 @@ class CalibrationRecord:
         the further ones in model order."""
         return ((self.core_index,) if self.has_core_index else ()) + self.further_indices
 
+    def _core_price_of_risk(self) -> Any:
+        mpr = self.market_prices_of_risk
+        return None if mpr is None else mpr.equity
+
     @property
-    def market_prices_of_risk(self) -> dict[str, Any]:
-        return self.parameters.get("market_prices_of_risk") or {}
+    def market_prices_of_risk(self) -> PricesOfRiskRecord | None:
+        """The rates' and the core index's prices of risk, ``None`` when the file records none."""
+        data = self.parameters.get("market_prices_of_risk")
+        return prices_of_risk_record(data, self.source) if data else None
 
     @property
     def rates_price_of_risk(self) -> Any:
@@ -383,8 +412,10 @@ class CalibrationRecord:
         return self._need(mpr, "rates", "parameters.market_prices_of_risk")
 
     @property
-    def real_world_view(self) -> dict[str, Any]:
-        return self.parameters.get("real_world_view") or {}
+    def real_world_view(self) -> RealWorldViewRecord:
+        """How the real-world rates were set (every field ``None`` when the file records no view)."""
+        data = self.parameters.get("real_world_view")
+        return real_world_view_record(data, self.source) if data else RealWorldViewRecord()
 
     # model parts: the nested object their owner in calibration/ wrote (None when absent)
 

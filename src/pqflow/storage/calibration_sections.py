@@ -1,6 +1,10 @@
 """Typed records of the nested sections of ``calibration.json`` that the checks, the report and
-the command line read: the credit part, the Heston indices, the driver correlation, and the fit
-records of the curve, the rates model, credit, the Heston smile and the correlation.
+the command line read: the credit part, the Heston indices, the driver correlation, the fit
+records of the curve, the rates model, credit, the Heston smile and the correlation, and the
+real-world side (``expected_short_rate``, ``parameters.real_world_view``,
+``parameters.market_prices_of_risk``), and the rates' and indices' calibration instruments
+(``instruments.swaptions``, ``instruments.equity_options``; a part kind's own instruments, such
+as inflation's caps, stay its kind's content).
 
 Each record is read from the stored form by a ``*_record`` function given the file's name
 (``source``) and the key path of the section (``where``): a value the record needs and the file
@@ -51,6 +55,18 @@ __all__ = [
     "heston_fit_records",
     "correlation_fit_record",
     "fit_entry",
+    "HouseViewTargetRecord",
+    "ExpectedShortRateRecord",
+    "RealWorldViewRecord",
+    "PricesOfRiskRecord",
+    "expected_short_rate_record",
+    "real_world_view_record",
+    "prices_of_risk_record",
+    "SwaptionQuoteRecord",
+    "EquityOptionQuoteRecord",
+    "swaption_quote_records",
+    "equity_option_quote_records",
+    "instrument_quotes",
 ]
 
 
@@ -570,3 +586,173 @@ def correlation_fit_record(data: Any, source: str, where: str = "fit.correlation
         repaired=repaired,
         frobenius_distance=_num(source, obj, "frobenius_distance", where) if repaired else None,
     )
+
+
+# ---------------------------------------------------------------------------------- real world
+
+@dataclass(frozen=True, kw_only=True)
+class HouseViewTargetRecord:
+    """The house-view target of the expected paths (``expected_short_rate.target``): the targeted
+    ``quantity`` (``short_rate`` or ``zero_yield``), its times, the house view's path and the
+    real-world model's (and the market-consistent one's, when recorded)."""
+
+    quantity: str | None
+    time: tuple[float, ...]
+    house_view: tuple[float, ...]
+    real_world: tuple[float, ...]
+    market_consistent: tuple[float, ...] | None = None
+
+
+@dataclass(frozen=True, kw_only=True)
+class ExpectedShortRateRecord:
+    """The model's expected short rate by measure at whole years (``expected_short_rate``) and,
+    when the real world follows a house-view path, that path's target."""
+
+    time: tuple[float, ...]
+    market_consistent: tuple[float, ...]
+    real_world: tuple[float, ...]
+    target: HouseViewTargetRecord | None = None
+
+
+def expected_short_rate_record(data: Any, source: str,
+                               where: str = "expected_short_rate") -> ExpectedShortRateRecord:
+    obj = _obj(source, data, where)
+    target = None
+    raw = obj.get("target")
+    if raw:  # a view without a path (a short rate at one year) records no target
+        tw = f"{where}.target"
+        t = _obj(source, raw, tw)
+        mc = t.get("market_consistent")
+        target = HouseViewTargetRecord(
+            quantity=_opt_str(t, "quantity"),
+            time=_floats(source, _list(source, t, "time", tw), f"{tw}.time"),
+            house_view=_floats(source, _list(source, t, "house_view", tw), f"{tw}.house_view"),
+            real_world=_floats(source, _list(source, t, "real_world", tw), f"{tw}.real_world"),
+            market_consistent=None if mc is None else _floats(source, mc, f"{tw}.market_consistent"),
+        )
+    return ExpectedShortRateRecord(
+        time=_floats(source, _list(source, obj, "time", where), f"{where}.time"),
+        market_consistent=_floats(source, _list(source, obj, "market_consistent", where),
+                                  f"{where}.market_consistent"),
+        real_world=_floats(source, _list(source, obj, "real_world", where), f"{where}.real_world"),
+        target=target,
+    )
+
+
+@dataclass(frozen=True, kw_only=True)
+class RealWorldViewRecord:
+    """How the real-world rates were set (``parameters.real_world_view``): its ``kind`` (``path``
+    or ``short_rate_at_year``), the targeted quantity (``short_rate`` or ``zero_yield``) and, for
+    a zero yield, its maturity. Every field is optional: each kind writes its own."""
+
+    kind: str | None = None
+    target: str | None = None
+    target_maturity: float | None = None
+
+
+def real_world_view_record(data: Any, source: str,
+                           where: str = "parameters.real_world_view") -> RealWorldViewRecord:
+    obj = _obj(source, data, where)
+    return RealWorldViewRecord(kind=_opt_str(obj, "kind"), target=_opt_str(obj, "target"),
+                               target_maturity=_opt_num(obj, "target_maturity"))
+
+
+@dataclass(frozen=True, kw_only=True)
+class PricesOfRiskRecord:
+    """The rates' and the core index's market prices of risk (``parameters.market_prices_of_risk``),
+    each as stored: a number or a ``{knots, values}`` schedule (``None`` when not recorded)."""
+
+    rates: Any = None
+    equity: Any = None
+    note: str | None = None
+
+
+def prices_of_risk_record(data: Any, source: str,
+                          where: str = "parameters.market_prices_of_risk") -> PricesOfRiskRecord:
+    obj = _obj(source, data, where)
+    return PricesOfRiskRecord(rates=obj.get("rates"), equity=obj.get("equity"), note=_opt_str(obj, "note"))
+
+
+# ---------------------------------------------------------------------------------- instruments
+
+def _instrument_list(source: str, data: Any, where: str) -> list[Mapping[str, Any]]:
+    if data is None:
+        return []
+    if not isinstance(data, list):
+        raise ConfigError(f"{source}: {where} is not a list")
+    return [_obj(source, item, f"{where}[{i}]") for i, item in enumerate(data)]
+
+
+@dataclass(frozen=True, kw_only=True)
+class SwaptionQuoteRecord:
+    """One calibration swaption (``instruments.swaptions[i]``): expiry, tenor and strike, the
+    quote's volatility convention (``normal`` unless stated), shift and payer/receiver kind, the
+    market volatility and prices (``None`` when not recorded: a sensitivity's model-only quote)."""
+
+    expiry: float
+    tenor: float
+    strike: float
+    convention: str = "normal"
+    shift: float = 0.0
+    kind: str = "payer"
+    market_vol: float | None = None
+    market_price: float | None = None
+    model_price: float | None = None
+    #: the fit's weight as recorded (a sensitivity's model-only quote carries it over unchanged)
+    weight: float = 1.0
+
+
+def swaption_quote_records(data: Any, source: str,
+                           where: str = "instruments.swaptions") -> tuple[SwaptionQuoteRecord, ...]:
+    out = []
+    for i, q in enumerate(_instrument_list(source, data, where)):
+        w = f"{where}[{i}]"
+        out.append(SwaptionQuoteRecord(
+            expiry=_num(source, q, "expiry", w), tenor=_num(source, q, "tenor", w), strike=_num(source, q, "strike", w),
+            convention=str(q.get("convention", "normal")), shift=float(q.get("shift", 0.0) or 0.0),
+            kind=str(q.get("kind", "payer")), market_vol=_opt_num(q, "market_vol"),
+            market_price=_opt_num(q, "market_price"), model_price=_opt_num(q, "model_price"),
+            weight=q.get("weight", 1.0),
+        ))
+    return tuple(out)
+
+
+@dataclass(frozen=True, kw_only=True)
+class EquityOptionQuoteRecord:
+    """One calibration index option (``instruments.equity_options[i]``): expiry and strike, the
+    index it is written on (``None``: the core index), call or put, the volatility convention,
+    the column kind of its index (``equity`` or ``property``), the market volatility and prices."""
+
+    expiry: float
+    strike: float
+    index: str | None = None
+    kind: str = "call"
+    convention: str = "lognormal"
+    column_kind: str = "equity"
+    market_vol: float | None = None
+    market_price: float | None = None
+    model_price: float | None = None
+
+
+def equity_option_quote_records(data: Any, source: str,
+                                where: str = "instruments.equity_options") -> tuple[EquityOptionQuoteRecord, ...]:
+    out = []
+    for i, q in enumerate(_instrument_list(source, data, where)):
+        w = f"{where}[{i}]"
+        out.append(EquityOptionQuoteRecord(
+            expiry=_num(source, q, "expiry", w), strike=_num(source, q, "strike", w), index=_opt_str(q, "index"),
+            kind=str(q.get("kind", "call")), convention=str(q.get("convention", "lognormal")),
+            column_kind=str(q.get("column_kind", "equity")), market_vol=_opt_num(q, "market_vol"),
+            market_price=_opt_num(q, "market_price"), model_price=_opt_num(q, "model_price"),
+        ))
+    return tuple(out)
+
+
+def instrument_quotes(
+    instruments: Mapping[str, Any], source: str, where: str = "instruments"
+) -> tuple[tuple[SwaptionQuoteRecord, ...], tuple[EquityOptionQuoteRecord, ...]]:
+    """The swaptions and index options of an ``instruments`` mapping (the file's section, or a
+    calibration's own before it is written), typed."""
+    obj = _obj(source, instruments, where)
+    return (swaption_quote_records(obj.get("swaptions"), source, f"{where}.swaptions"),
+            equity_option_quote_records(obj.get("equity_options"), source, f"{where}.equity_options"))

@@ -28,6 +28,9 @@ __all__ = [
     "VERDICT", "RULE", "CAUTION", "CHECKS", "INCONCLUSIVE", "DENSITIES", "DENSITY_BUDGET", "SENSITIVITIES",
     "CELLS", "INCONCLUSIVE_CELLS", "INCONCLUSIVE_FROM_TIME", "COUNTS_TOWARD_VERDICT", "FAMILY_CRITICAL_Z",
     "ESS_WARNING_SHARE", "POWER_RULE", "WEALTH_RATIO_BENCHMARK",
+    "DensityAtHorizon", "UntestableInstrument", "HouseViewFit", "GuaranteeSummary",
+    "WORST_CELL", "MIN_ESS_SHARE", "MAX_WEIGHT_SHARE", "AT_HORIZON", "NOT_TESTABLE", "HOUSE_VIEW_FIT", "GUARANTEE",
+    "VALUES", "REAL_WORLD_SAMPLE_SE", "FAMILY_LEVEL", "KIND", "SOURCE", "WARNINGS", "REASON",
 ]
 
 #: the file's path inside a run (and inside each sensitivity set)
@@ -62,6 +65,21 @@ WARNINGS = "warnings"
 ESS_WARNING_SHARE = "ess_warning_share"
 ESS_BELOW_WARNING_FROM_TIME = "ess_below_warning_from_time"
 WEALTH_RATIO_BENCHMARK = "wealth_ratio_benchmark"
+# check-specific keys the report reads: every check's worst cell; the density checks' ESS and
+# weight shares and their state at the horizon; the market-consistency check's untestable
+# instruments; the real-world check's house-view fit; the reconciliation's guarantee and values
+WORST_CELL = "worst_cell"
+FAMILY_LEVEL = "family_level"
+#: why a check could not run (a not-applicable entry)
+REASON = "reason"
+MIN_ESS_SHARE = "min_ess_share"
+MAX_WEIGHT_SHARE = "max_weight_share"
+AT_HORIZON = "at_horizon"
+NOT_TESTABLE = "not_testable"
+HOUSE_VIEW_FIT = "house_view_fit"
+GUARANTEE = "guarantee"
+VALUES = "values"
+REAL_WORLD_SAMPLE_SE = "real_world_sample_se"
 
 _COMMON = (
     VERDICT, CELLS, OUTSIDE_95, OUTSIDE_99, EXPECTED_OUTSIDE_95, EXPECTED_OUTSIDE_99, MAX_ABS_Z, FAMILY_CRITICAL_Z,
@@ -74,6 +92,49 @@ def check_counts_toward_verdict(entry: Mapping[str, Any], default: bool = True) 
     """Whether a check's entry (or a nested result such as the wealth-ratio benchmark, whose
     default is ``False``) counts toward the verdict; ``default`` when the entry does not say."""
     return bool(entry.get(COUNTS_TOWARD_VERDICT, default))
+
+
+@dataclass(frozen=True)
+class DensityAtHorizon:
+    """A density check's state at the horizon (``at_horizon``), each value as written (``None``
+    when absent)."""
+
+    time: Any = None
+    mean_weight: Any = None
+    std_error: Any = None
+    ess_share: Any = None
+    max_weight_share: Any = None
+
+
+@dataclass(frozen=True)
+class UntestableInstrument:
+    """An instrument the market-consistency check could not test from the files, and why."""
+
+    instrument: Any = None
+    reason: Any = None
+
+
+@dataclass(frozen=True)
+class HouseViewFit:
+    """How far the model's real-world expectation lies from the house-view path (``house_view_fit``)."""
+
+    quantity: Any = None
+    max_abs_gap_bp: Any = None
+    note: Any = None
+
+
+@dataclass(frozen=True)
+class GuaranteeSummary:
+    """The reconciliation's maturity guarantee (``guarantee``), each value as written."""
+
+    product: Any = ""
+    maturity: Any = None
+    guaranteed_amount: Any = None
+    index_level: Any = None
+
+
+def _mapping(value: Any) -> Mapping[str, Any]:
+    return value if isinstance(value, Mapping) else {}
 
 
 @dataclass(frozen=True)
@@ -122,6 +183,63 @@ class CheckSummary:
     def ess_below_warning_from_time(self) -> float | None:
         """When the full density's ESS share fell below the warning share (density checks)."""
         return self.entry.get(ESS_BELOW_WARNING_FROM_TIME)
+
+    @property
+    def worst_cell(self) -> Mapping[str, Any]:
+        """The cell furthest from its reference (its columns depend on the check); empty if none."""
+        return _mapping(self.entry.get(WORST_CELL))
+
+    @property
+    def min_ess_share(self) -> float | None:
+        """The lowest effective-sample-size share over time (density checks)."""
+        return self.entry.get(MIN_ESS_SHARE)
+
+    @property
+    def max_weight_share(self) -> float | None:
+        """The largest single-path weight share over time (density checks)."""
+        return self.entry.get(MAX_WEIGHT_SHARE)
+
+    @property
+    def at_horizon(self) -> DensityAtHorizon:
+        """A density check's state at the horizon (every value ``None`` when not recorded)."""
+        at = _mapping(self.entry.get(AT_HORIZON))
+        return DensityAtHorizon(time=at.get("time"), mean_weight=at.get("mean_weight"),
+                                std_error=at.get("std_error"), ess_share=at.get("ess_share"),
+                                max_weight_share=at.get(MAX_WEIGHT_SHARE))
+
+    @property
+    def not_testable(self) -> tuple[UntestableInstrument, ...]:
+        """The instruments the market-consistency check could not test, with the reason."""
+        return tuple(UntestableInstrument(instrument=u.get("instrument"), reason=u.get("reason"))
+                     for u in (self.entry.get(NOT_TESTABLE) or []) if isinstance(u, Mapping))
+
+    @property
+    def house_view_fit(self) -> HouseViewFit | None:
+        """The real-world check's house-view fit, ``None`` when not recorded."""
+        fit = self.entry.get(HOUSE_VIEW_FIT)
+        if not fit or not isinstance(fit, Mapping):
+            return None
+        return HouseViewFit(quantity=fit.get("quantity"), max_abs_gap_bp=fit.get("max_abs_gap_bp"),
+                            note=fit.get("note"))
+
+    @property
+    def guarantee(self) -> GuaranteeSummary | None:
+        """The reconciliation's guarantee, ``None`` when not recorded."""
+        g = self.entry.get(GUARANTEE)
+        if not g or not isinstance(g, Mapping):
+            return None
+        return GuaranteeSummary(product=g.get("product", ""), maturity=g.get("maturity"),
+                                guaranteed_amount=g.get("guaranteed_amount"), index_level=g.get("index_level"))
+
+    @property
+    def real_world_sample_se(self) -> float | None:
+        """The reconciliation's real-world sample standard error (``values``), ``None`` if absent."""
+        return _mapping(self.entry.get(VALUES)).get(REAL_WORLD_SAMPLE_SE)
+
+    @property
+    def rule_text(self) -> str:
+        """The check's rule as the report prints it (``""`` when the entry has none)."""
+        return str(self.entry.get(RULE, ""))
 
     def ess_warning_share_or(self, default: Any) -> Any:
         """The entry's ESS warning share as written, ``default`` when the entry has none."""

@@ -21,6 +21,7 @@ from pqflow.storage.jsonio import read_json
 __all__ = [
     "VALUATION_SUMMARY", "ValuationSummary", "ValuationLine", "read_valuation_summary",
     "valuation_summary_from_json", "MARKET_CONSISTENT", "CERTAINTY_EQUIVALENT",
+    "ValuationReconciliation", "SensitivityChange", "SensitivityTotals", "SENSITIVITY_QUANTITIES",
 ]
 
 #: the file's path inside a run
@@ -80,6 +81,73 @@ class ValuationLine:
 
 
 @dataclass(frozen=True)
+class ValuationReconciliation:
+    """``reconciliation``: whether the two sets' values of each line agree (``verdict``: agree,
+    differ or inconclusive), the rule, the lines that cannot be judged and the material share."""
+
+    verdict: str | None = None
+    rule: str | None = None
+    inconclusive_lines: tuple[str, ...] = ()
+    material_share: float | None = None
+    worst_line: str | None = None
+    max_abs_difference_in_se: float | None = None
+
+    @classmethod
+    def from_json(cls, rec: Mapping[str, Any]) -> ValuationReconciliation:
+        return cls(verdict=rec.get("verdict"), rule=rec.get("rule"),
+                   inconclusive_lines=tuple(rec.get("inconclusive_lines") or ()),
+                   material_share=rec.get("material_share"), worst_line=rec.get("worst_line"),
+                   max_abs_difference_in_se=rec.get("max_abs_difference_in_se"))
+
+
+#: the quantities a sensitivity's total line records, in the order the tables show them
+SENSITIVITY_QUANTITIES = ("best_estimate", "guarantee", "tvog")
+
+
+@dataclass(frozen=True)
+class SensitivityChange:
+    """One quantity of a sensitivity's total line: its value, the change from the base, and the
+    change's standard error on the common scenarios and from independent sets."""
+
+    value: float
+    change: float
+    change_se_paired: float | None = None
+    change_se_independent: float | None = None
+
+
+@dataclass(frozen=True)
+class SensitivityTotals:
+    """``sensitivities[i]``: the total line's changes of one sensitivity, by quantity (a
+    quantity the entry lacks is absent from :attr:`changes`)."""
+
+    sensitivity: str
+    changes: Mapping[str, SensitivityChange]
+
+    def change(self, quantity: str, where: str = VALUATION_SUMMARY) -> SensitivityChange:
+        """The change of ``quantity``; ``IntegrityError`` naming the file and key when absent."""
+        if quantity not in self.changes:
+            raise IntegrityError(f"{where}: sensitivities.{self.sensitivity} has no key {quantity!r}")
+        return self.changes[quantity]
+
+    @classmethod
+    def from_json(cls, entry: Any, where: str, i: int) -> SensitivityTotals:
+        if not isinstance(entry, Mapping) or "sensitivity" not in entry:
+            raise IntegrityError(f"{where}: {SENSITIVITIES}[{i}] has no key 'sensitivity'")
+        changes = {}
+        for q in SENSITIVITY_QUANTITIES:
+            if q not in entry:
+                continue
+            c = entry[q]
+            for key in ("value", "change"):
+                if not isinstance(c, Mapping) or key not in c:
+                    raise IntegrityError(f"{where}: {SENSITIVITIES}[{i}].{q} has no key {key!r}")
+            changes[q] = SensitivityChange(value=c["value"], change=c["change"],
+                                           change_se_paired=c.get("change_se_paired"),
+                                           change_se_independent=c.get("change_se_independent"))
+        return cls(sensitivity=str(entry["sensitivity"]), changes=MappingProxyType(changes))
+
+
+@dataclass(frozen=True)
 class ValuationSummary:
     """``valuation/summary.json``."""
 
@@ -98,12 +166,26 @@ class ValuationSummary:
     #: the conventions the values follow, one sentence each
     conventions: tuple[str, ...] = ()
     document: Mapping[str, Any] = field(default_factory=lambda: MappingProxyType({}), repr=False)
+    #: the file (or the in-memory summary) errors name
+    source: str = VALUATION_SUMMARY
 
     def best_estimates(self, kind: str, *, plain: bool = True) -> dict[str, float]:
         """Best estimate per product and total line (``kind`` as :meth:`ValuationLine.value`);
         ``plain``: the plain means (:meth:`ValuationLine.plain_value`)."""
         return {line.name: (line.plain_value(kind) if plain else line.value(kind)) for line in self.lines
                 if line.quantity == "best_estimate" and line.level in ("product", "total")}
+
+    @property
+    def reconciled(self) -> ValuationReconciliation | None:
+        """The reconciliation, typed (``None`` when the valuation records none)."""
+        rec = self.reconciliation
+        return None if not isinstance(rec, Mapping) else ValuationReconciliation.from_json(rec)
+
+    @property
+    def sensitivity_totals(self) -> tuple[SensitivityTotals, ...]:
+        """Each sensitivity's total-line changes, typed (empty when none); a missing value or
+        change raises ``IntegrityError`` naming the file and the key."""
+        return tuple(SensitivityTotals.from_json(e, self.source, i) for i, e in enumerate(self.sensitivities or []))
 
     def line_entries(self) -> list[Mapping[str, Any]]:
         """Every line as written (the report's tables show them column by column)."""
@@ -125,7 +207,7 @@ class ValuationSummary:
                    valuation_date=g("valuation_date"), portfolio_file=g("portfolio_file"),
                    reconciliation=g(RECONCILIATION), sensitivities=g(SENSITIVITIES), files=g("files"),
                    conventions=tuple(g("conventions") or ()),
-                   document=MappingProxyType(dict(data)))
+                   document=MappingProxyType(dict(data)), source=where)
 
 
 def valuation_summary_from_json(data: Any, *, where: str = VALUATION_SUMMARY) -> ValuationSummary:

@@ -19,6 +19,8 @@ from typing import Any
 
 import pandas as pd
 
+from pqflow.storage import validation_summary as vs
+
 __all__ = ["CheckResult", "VERDICTS", "cells_entry", "not_applicable_entry"]
 
 VERDICTS = ("pass", "inconclusive", "fail", "not_applicable")
@@ -49,9 +51,9 @@ def cells_entry(
 
     entry = cells_summary(cells.reset_index(drop=True), label_cols, deviation=deviation)
     if len(cells) == 0:
-        entry["verdict"] = "not_applicable"
-    entry.update(kind=kind, rule=rule, counts_toward_verdict=counts_toward_verdict)
-    entry.setdefault("warnings", [])
+        entry[vs.VERDICT] = "not_applicable"
+    entry.update({vs.KIND: kind, vs.RULE: rule, vs.COUNTS_TOWARD_VERDICT: counts_toward_verdict})
+    entry.setdefault(vs.WARNINGS, [])
     return entry
 
 
@@ -61,5 +63,5 @@ def not_applicable_entry(*, kind: str, reason: str, counts_toward_verdict: bool 
         pd.DataFrame({"z_score": []}), [], kind=kind, rule=reason,
         counts_toward_verdict=counts_toward_verdict,
     )
-    entry["reason"] = reason
+    entry[vs.REASON] = reason
     return entry

@@ -32,6 +32,7 @@ from typing import Any
 import pandas as pd
 
 from pqflow.errors import ConfigError
+from pqflow.storage import validation_summary as vs
 from pqflow.storage.calibration_file import calibration_path, calibration_record
 from pqflow.storage.validation_summary import VERDICT, check_counts_toward_verdict
 from pqflow.validation.assets import martingale_assets
@@ -161,11 +162,11 @@ def run_checks(
     if budget_table is not None:
         tables["density_budget"] = budget_table
     summary = {
-        "verdict": overall_verdict(checks),
-        "rule": RULE,
-        "inconclusive": inconclusive_totals(checks),
-        "checks": checks,
-        "densities": base["densities"],
-        "density_budget": budget,
+        vs.VERDICT: overall_verdict(checks),
+        vs.RULE: RULE,
+        vs.INCONCLUSIVE: inconclusive_totals(checks),
+        vs.CHECKS: checks,
+        vs.DENSITIES: base[vs.DENSITIES],
+        vs.DENSITY_BUDGET: budget,
     }
     return RunValidation(martingale=mart, density=dens, tables=tables, summary=json_safe(summary))

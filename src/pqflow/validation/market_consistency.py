@@ -85,6 +85,7 @@ from pqflow.calibration.formulas import VOL_CONVENTIONS, implied_vol, option_pri
 from pqflow.calibration.inflation_kind import MATERIAL_PREMIUM, YOY_TOLERANCE
 from pqflow.errors import MarketDataError
 from pqflow.models.parts import PartInstrumentContext, part_instruments, part_instruments_key, recorded_parts
+from pqflow.storage import validation_summary as vs
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
 from pqflow.storage.names import bond_column, density_block_column, density_column, index_columns
 from pqflow.storage.scenario_set import SetPass
@@ -174,14 +175,12 @@ def _bond(k: float) -> str:
     return bond_column(k)
 
 
-def _quote_price(spec: dict[str, Any], convention: str, forward, annuity, option, shift) -> tuple[float | None,
-                                                                                                  str | None]:
+def _quote_price(vol: float | None, stated: float | None, strike: float, expiry: float, convention: str, forward,
+                 annuity, option, shift) -> tuple[float | None, str | None]:
     """The quote's price from its volatility, and a note when a stated price disagrees."""
-    vol = _num(spec.get("market_vol"))
-    stated = _num(spec.get("market_price"))
     if vol is None or forward is None:
         return stated, None
-    price = float(option_price(convention, forward, spec["strike"], vol, spec["expiry"],
+    price = float(option_price(convention, forward, strike, vol, expiry,
                                annuity=annuity, kind=option, shift=shift))
     note = None
     if stated is not None and abs(stated - price) > 1e-6 * max(abs(price), 1e-12):
@@ -207,12 +206,9 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
     curve = inputs.curve
     out: list[InstrumentSpec] = []
     yields = _income_yields(inputs)
-    for raw in cal.instrument_list("swaptions"):
-        expiry, tenor = float(raw["expiry"]), float(raw["tenor"])
-        strike = float(raw["strike"])
-        convention = str(raw.get("convention", "normal"))
-        shift = float(raw.get("shift", 0.0) or 0.0)
-        option = str(raw.get("kind", "payer"))
+    for sw in cal.swaptions:
+        expiry, tenor, strike = sw.expiry, sw.tenor, sw.strike
+        convention, shift, option = sw.convention, sw.shift, sw.kind
         label = f"swaption {expiry:g}y x {tenor:g}y K={strike:.4%} {option} ({convention})"
         reason = None
         n = int(round(tenor))
@@ -231,20 +227,19 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
             pay = expiry + np.arange(1, n + 1, dtype=float)
             annuity = float(np.sum(curve.discount(pay)))
             forward = float((curve.discount(expiry) - curve.discount(pay[-1])) / annuity)
-        market_price, note = _quote_price(raw, convention, forward, annuity, option, shift)
+        market_price, note = _quote_price(sw.market_vol, sw.market_price, strike, expiry, convention, forward,
+                                          annuity, option, shift)
         out.append(InstrumentSpec(
             label=label, kind="swaption", option=option, expiry=expiry, strike=strike,
             convention=convention, shift=shift, tenor=tenor, index=None, forward=forward,
-            annuity=annuity, market_vol=_num(raw.get("market_vol")), market_price=market_price,
-            stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
+            annuity=annuity, market_vol=sw.market_vol, market_price=market_price,
+            stated_market_price=sw.market_price, model_price=sw.model_price,
             column_names=needed, untestable=reason, note=note,
         ))
-    for raw in cal.instrument_list("equity_options"):
-        expiry, strike = float(raw["expiry"]), float(raw["strike"])
-        index = str(raw.get("index", cal.core_index_name or ""))
-        option = str(raw.get("kind", "call"))
-        convention = str(raw.get("convention", "lognormal"))
-        column_kind = str(raw.get("column_kind", "equity"))
+    for opt in cal.equity_options:
+        expiry, strike = opt.expiry, opt.strike
+        index = opt.index if opt.index is not None else (cal.core_index_name or "")
+        option, convention, column_kind = opt.kind, opt.convention, opt.column_kind
         label = f"{column_kind} {option} {index} {expiry:g}y K={strike:g}"
         col = f"{column_kind}_{index}"
         q = yields.get(index)
@@ -260,9 +255,9 @@ def parse_instruments(inputs: RunInputs, columns: list[str], times: np.ndarray) 
         out.append(InstrumentSpec(
             label=label, kind="equity_option", option=option, expiry=expiry, strike=strike,
             convention=convention, shift=0.0, tenor=None, index=index, forward=None,
-            annuity=None, market_vol=_num(raw.get("market_vol")),
-            market_price=_num(raw.get("market_price")),
-            stated_market_price=_num(raw.get("market_price")), model_price=_num(raw.get("model_price")),
+            annuity=None, market_vol=opt.market_vol,
+            market_price=opt.market_price,
+            stated_market_price=opt.market_price, model_price=opt.model_price,
             column_names=(col,), untestable=reason, income_yield=q,
         ))
     out += _part_instrument_specs(cal, curve, columns, times)
@@ -307,9 +302,8 @@ def _with_equity_forward(spec: InstrumentSpec, inputs: RunInputs, level: float) 
         return spec
     df = float(inputs.curve.discount(spec.expiry))
     forward = level * np.exp(-q * spec.expiry) / df
-    raw = {"market_vol": spec.market_vol, "market_price": spec.stated_market_price,
-           "strike": spec.strike, "expiry": spec.expiry}
-    price, note = _quote_price(raw, spec.convention, forward, df, spec.option, 0.0)
+    price, note = _quote_price(spec.market_vol, spec.stated_market_price, spec.strike, spec.expiry, spec.convention,
+                               forward, df, spec.option, 0.0)
     return InstrumentSpec(**{**vars(spec), "forward": forward, "annuity": df,
                              "market_price": price, "note": note})
 
@@ -563,7 +557,7 @@ def market_consistency_steps(
     """:func:`market_consistency_check` as steps on the sets' shared passes
     (:func:`pqflow.validation.run_files.run_steps`)."""
     cal = _record(inputs)
-    if not (cal.instrument_list("swaptions") or cal.instrument_list("equity_options")
+    if not (cal.swaptions or cal.equity_options
             or any(_part_instrument_lists(cal))):
         return CheckResult(name=CHECK, summary=not_applicable_entry(
             kind=KIND, reason="not applicable: no instruments in calibration.json"))
@@ -572,7 +566,7 @@ def market_consistency_steps(
     untestable = [{"instrument": s.label, "reason": s.untestable} for s in specs if s.untestable]
     if table.empty:
         entry = not_applicable_entry(kind=KIND, reason="no instrument is testable from the files")
-        entry["not_testable"] = untestable
+        entry[vs.NOT_TESTABLE] = untestable
         return CheckResult(name=CHECK, summary=entry)
     cells = []
     for r in table.to_dict(orient="records"):
@@ -630,7 +624,7 @@ def market_consistency_steps(
         for r in cell_table[weak].to_dict(orient="records")] if len(cell_table) else []
     entry["instruments"] = len(specs)
     entry["instruments_tested"] = len(specs) - len(untestable)
-    entry["not_testable"] = untestable
+    entry[vs.NOT_TESTABLE] = untestable
     entry["vol_tolerance"] = tol
     entry["rows"] = [
         {k: r[k] for k in ("instrument", "measure", "mc_price", "std_error", "market_price",

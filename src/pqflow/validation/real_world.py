@@ -55,6 +55,7 @@ import numpy as np
 import pandas as pd
 
 from pqflow.errors import ConfigError
+from pqflow.storage import validation_summary as vs
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
 from pqflow.storage.names import INDEX_PREFIXES, bond_column, bond_maturity_of, equity_column
 from pqflow.storage.scenario_set import SetPass
@@ -346,12 +347,13 @@ def real_world_steps(
         lambda t, cols: {c: cols[c] / cols[c][:, :1] / cols["cash_account"] for c in premium_cols},
     ) if premium_cols else None
     # everything below reads the same pass: register it all before the parts are read
-    view = _record(inputs).real_world_view or {}
-    target = (_record(inputs).expected_short_rate or {}).get("target") or {}
-    maturity = view.get("target_maturity")
-    y_col = bond_column(float(maturity)) if view.get("target") == "zero_yield" and maturity else None
+    view = _record(inputs).real_world_view
+    esr = _record(inputs).expected_short_rate
+    target = esr.target if esr is not None else None
+    maturity = view.target_maturity
+    y_col = bond_column(float(maturity)) if view.target == "zero_yield" and maturity else None
     yields = None
-    if y_col is not None and maturity and y_col in names and target.get("real_world"):
+    if y_col is not None and maturity and y_col in names and target is not None and target.real_world:
         yields = add_moments(scan, [y_col], _zero_yield(y_col, float(maturity)))
     statistics = real_world_statistics_steps(inputs, passes)
     next(statistics)
@@ -363,9 +365,9 @@ def real_world_steps(
     excess_cells: dict[str, Any] = cells()[1] if cells is not None else {}
 
     target_rows = []
-    esr = _record(inputs).expected_short_rate
     skipped = []
-    for t, target in zip(esr.get("time", []) or [], esr.get("real_world", []) or [], strict=True):
+    for t, target_rate in zip(esr.time if esr is not None else (), esr.real_world if esr is not None else (),
+                              strict=True):
         k = time_index(times, float(t))
         if k == 0:
             continue
@@ -373,20 +375,17 @@ def real_world_steps(
             skipped.append(float(t))
             continue
         mean, se = float(acc["short_rate"].mean[k]), float(acc["short_rate"].std_error[k])
-        target_rows.append(_gaussian_row("expected short rate", float(times[k]), float(target), mean, se,
+        target_rows.append(_gaussian_row("expected short rate", float(times[k]), float(target_rate), mean, se,
                                          acc["short_rate"].count))
-    target = esr.get("target") or {}
-    view = _record(inputs).real_world_view
     house_fit = None
-    if target.get("house_view") and target.get("real_world"):
-        gap = np.abs(np.array(target["house_view"], dtype=float) - np.array(target["real_world"], dtype=float))
-        house_fit = {"quantity": target.get("quantity"), "max_abs_gap_bp": float(gap.max() / 1e-4),
+    if target is not None and target.house_view and target.real_world:
+        gap = np.abs(np.array(target.house_view, dtype=float) - np.array(target.real_world, dtype=float))
+        house_fit = {"quantity": target.quantity, "max_abs_gap_bp": float(gap.max() / 1e-4),
                      "note": "the model's real-world expectation against the house-view path (no sampling error)"}
-    maturity = view.get("target_maturity")
-    if yields is not None and maturity:
+    if yields is not None and maturity and target is not None:
         m = float(maturity)
         yt, yacc = yields()
-        for t, value in zip(target.get("time", []), target["real_world"], strict=True):
+        for t, value in zip(target.time, target.real_world, strict=True):
             k = time_index(yt, float(t))
             if k is None or k == 0:
                 continue
@@ -458,8 +457,8 @@ def real_world_steps(
         )
         entry = cells_entry(targets, ["target", "time", "estimate", "expected", "z_score"],
                             kind=KIND, rule=rule, deviation=MARTINGALE_DEVIATION)
-    entry["wealth_ratio_benchmark"] = bench
-    entry["house_view_fit"] = house_fit
+    entry[vs.WEALTH_RATIO_BENCHMARK] = bench
+    entry[vs.HOUSE_VIEW_FIT] = house_fit
     if wealth_benchmark_gating and bench["verdict"] == "fail":
         entry["verdict"] = "fail"
     entry["warnings"] = list(entry.get("warnings", []))

@@ -56,6 +56,7 @@ from pqflow.models.g2pp import G2PlusPlusParams
 from pqflow.models.hull_white import HullWhiteParams
 from pqflow.models.schedule import PiecewiseConstant
 from pqflow.models.total_return import TotalReturnIndex
+from pqflow.storage import validation_summary as vs
 from pqflow.storage.calibration_file import CalibrationRecord, calibration_path, calibration_record
 from pqflow.storage.names import CPI, bond_maturity_of, density_column, equity_column, index_columns
 from pqflow.storage.scenario_set import PartFeed, ScenarioSet, SetPass
@@ -396,16 +397,16 @@ def reconciliation_steps(
     if cf is None:
         entry["warnings"].append("no closed form: calibration.json has no rates (Hull-White or G2++) and equity "
                                  "parameters")
-    entry["guarantee"] = {
+    entry[vs.GUARANTEE] = {
         "product": "unit-linked maturity guarantee: put on the equity total-return index",
         "maturity": values["maturity"], "guaranteed_amount": values["guarantee"],
         "index_level": values["level"],
     }
-    entry["values"] = {
+    entry[vs.VALUES] = {
         "closed_form": cf,
         "market_consistent": q, "market_consistent_se": q_se,
         "real_world": p, "real_world_se": p_se,
-        "real_world_sample_se": values["real_world_sample_se"],
+        vs.REAL_WORLD_SAMPLE_SE: values["real_world_sample_se"],
         "market_consistent_without_controls": values["market_consistent_plain"][0],
         "market_consistent_se_without_controls": values["market_consistent_plain"][1],
         "real_world_without_controls": values["real_world_plain"][0],

@@ -12,6 +12,7 @@ from __future__ import annotations
 from functools import partial
 from pathlib import Path
 
+from pqflow.storage import validation_summary as vs
 from pqflow.storage.calibration_file import calibration_path, calibration_record
 from pqflow.storage.scenario_set import ScenarioSet
 from pqflow.validation.assets import martingale_assets
@@ -43,12 +44,12 @@ def run_market_consistent_checks(run_dir: str | Path, *, ess_warning_share: floa
     checks = {}
     for name, entry in base["checks"].items():
         kind, source = _KINDS[name.split("_", 1)[0]]
-        checks[name] = {**entry, "kind": kind, "source": source, "counts_toward_verdict": True,
-                        "warnings": list(entry.get("warnings", []))}
+        checks[name] = {**entry, vs.KIND: kind, vs.SOURCE: source, vs.COUNTS_TOWARD_VERDICT: True,
+                        vs.WARNINGS: list(entry.get(vs.WARNINGS, []))}
     result = market_consistency_check(inputs, measures=(MEASURE,))
     checks[result.name] = result.summary
     reason = "not applicable: this sensitivity has no real-world set (real_world = false)"
     checks["real_world"] = not_applicable_entry(kind="real-world targets", reason=reason)
     checks["reconciliation"] = not_applicable_entry(kind="reconciliation of the two sets", reason=reason)
-    summary = {"verdict": overall_verdict(checks), "rule": RULE, "checks": checks}
+    summary = {vs.VERDICT: overall_verdict(checks), vs.RULE: RULE, vs.CHECKS: checks}
     return RunValidation(martingale=mart, density=dens, tables=dict(result.tables), summary=json_safe(summary))

@@ -108,9 +108,9 @@ def cells_summary(table: pd.DataFrame, label_cols: list[str], *, deviation: floa
         vs.OUTSIDE_99: int((z > norm.ppf(0.995)).sum()),
         vs.EXPECTED_OUTSIDE_99: 0.01 * n,
         vs.MAX_ABS_Z: float(z.max()) if n else 0.0,
-        "worst_cell": {c: (worst[c].item() if hasattr(worst[c], "item") else worst[c]) for c in label_cols}
+        vs.WORST_CELL: {c: (worst[c].item() if hasattr(worst[c], "item") else worst[c]) for c in label_cols}
         if worst is not None else None,
-        "family_level": 1.0 - FAMILY_ALPHA,
+        vs.FAMILY_LEVEL: 1.0 - FAMILY_ALPHA,
         vs.FAMILY_CRITICAL_Z: crit,
         vs.VERDICT: "fail" if failed else ("inconclusive" if weak.any() else "pass"),
         vs.INCONCLUSIVE_CELLS: int(weak.sum()),
@@ -142,13 +142,13 @@ def summarise(
         densities.extend(horizons)
         full = body[body["column"] == horizons[0]["column"]] if horizons else body
         low = full[full["ess_share"] < ess_warning_share]
-        entry["min_ess_share"] = float(full["ess_share"].min()) if len(full) else 1.0
-        entry["max_weight_share"] = float(full["max_weight_share"].max()) if len(full) else 0.0
+        entry[vs.MIN_ESS_SHARE] = float(full["ess_share"].min()) if len(full) else 1.0
+        entry[vs.MAX_WEIGHT_SHARE] = float(full["max_weight_share"].max()) if len(full) else 0.0
         entry[vs.ESS_WARNING_SHARE] = ess_warning_share
         entry[vs.ESS_BELOW_WARNING_FROM_TIME] = float(low["time"].iloc[0]) if len(low) else None
         if len(full):
             last = full.iloc[-1]
-            entry["at_horizon"] = {
+            entry[vs.AT_HORIZON] = {
                 "time": float(last["time"]),
                 "mean_weight": float(last["mean_weight"]),
                 "std_error": float(last["std_error"]),
