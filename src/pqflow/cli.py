@@ -213,7 +213,7 @@ def _print_validation(result: dict[str, Any]) -> ValidationSummary:
         start = inc.from_time
         console.print(
             f"[yellow]inconclusive:[/] {inc.cells} cells in {', '.join(escape(c) for c in inc.checks)} "
-            + (f"from t = {start:g} years " if start is not None else "")
+            + (f"from t = {start:g} {'year' if start == 1 else 'years'} " if start is not None else "")
             + "could not detect a material deviation with 50% power (more scenarios or a restricted "
             "density would make them conclusive)",
             highlight=False,
