@@ -7,7 +7,9 @@ import os
 from pathlib import Path
 from typing import Any
 
-__all__ = ["write_json_atomic", "write_text_atomic", "read_json"]
+from pqflow.errors import IntegrityError
+
+__all__ = ["write_json_atomic", "write_text_atomic", "read_json", "read_json_checked"]
 
 
 def write_json_atomic(path: str | Path, obj: Any) -> Path:
@@ -51,3 +53,14 @@ def write_text_atomic(path: str | Path, text: str) -> Path:
 def read_json(path: str | Path) -> Any:
     with open(path, encoding="utf-8") as fh:
         return json.load(fh)
+
+
+def read_json_checked(path: str | Path) -> Any:
+    """A run's JSON file, read: a missing, damaged or truncated file raises ``IntegrityError``
+    naming it (the run files' readers in storage/ share this)."""
+    try:
+        return read_json(path)
+    except FileNotFoundError:
+        raise IntegrityError(f"{path}: missing") from None
+    except (ValueError, UnicodeDecodeError) as exc:
+        raise IntegrityError(f"{path}: not valid JSON, truncated or damaged ({exc})") from None

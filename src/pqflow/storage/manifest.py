@@ -11,7 +11,7 @@ from typing import Any
 import pyarrow.parquet as pq
 
 from pqflow.errors import IntegrityError
-from pqflow.storage.jsonio import read_json
+from pqflow.storage.jsonio import read_json_checked
 from pqflow.storage.parquet import file_sha256
 
 __all__ = [
@@ -90,10 +90,7 @@ def load_manifest(root: str | Path, name: str = MANIFEST) -> dict[str, Any]:
     mpath = root / name
     if not mpath.is_file():
         raise IntegrityError(f"{root}: no {name}; not a finished pqflow run")
-    try:
-        manifest = read_json(mpath)
-    except (ValueError, UnicodeDecodeError) as exc:
-        raise IntegrityError(f"{mpath}: not valid JSON, truncated or damaged ({exc})") from None
+    manifest = read_json_checked(mpath)
     if not isinstance(manifest, dict) or not isinstance(manifest.get("files"), list):
         raise IntegrityError(f"{mpath}: key 'files' (the list of the run's files) is missing or not a list")
     for i, entry in enumerate(manifest["files"]):
@@ -276,8 +273,5 @@ def read_manifest(root: str | Path, name: str = MANIFEST) -> ManifestRecord:
     path = Path(root) / name
     if not path.is_file():
         raise IntegrityError(f"{Path(root)}: no {name}; not a finished pqflow run")
-    try:
-        data = read_json(path)
-    except (ValueError, UnicodeDecodeError) as exc:
-        raise IntegrityError(f"{path}: not valid JSON, truncated or damaged ({exc})") from None
+    data = read_json_checked(path)
     return manifest_record(data, where=str(path))

@@ -14,7 +14,7 @@ from types import MappingProxyType
 from typing import Any
 
 from pqflow.errors import IntegrityError
-from pqflow.storage.jsonio import read_json
+from pqflow.storage.jsonio import read_json_checked
 
 __all__ = [
     "SENSITIVITY_DIR", "SENSITIVITY_INDEX", "SensitivityIndex", "SensitivityEntry", "read_sensitivity_index",
@@ -97,8 +97,5 @@ def read_sensitivity_index(run_dir: str | Path) -> SensitivityIndex | None:
     path = sensitivity_index_path(run_dir)
     if not path.is_file():
         return None
-    try:
-        data = read_json(path)
-    except (ValueError, UnicodeDecodeError) as exc:
-        raise IntegrityError(f"{path}: not valid JSON, truncated or damaged ({exc})") from None
+    data = read_json_checked(path)
     return SensitivityIndex.from_json(data, where=str(path))

@@ -19,7 +19,7 @@ from types import MappingProxyType
 from typing import Any
 
 from pqflow.errors import IntegrityError
-from pqflow.storage.jsonio import read_json
+from pqflow.storage.jsonio import read_json, read_json_checked
 
 __all__ = [
     "VALIDATION_SUMMARY", "ValidationSummary", "CheckSummary", "InconclusiveSummary",
@@ -355,12 +355,7 @@ def read_validation_summary(path: str | Path) -> ValidationSummary:
     """Read a ``summary.json`` of a run's validation (``IntegrityError`` naming the file and the key
     when it is damaged or lacks a required key)."""
     path = Path(path)
-    try:
-        data = read_json(path)
-    except FileNotFoundError:
-        raise IntegrityError(f"{path}: missing") from None
-    except (ValueError, UnicodeDecodeError) as exc:
-        raise IntegrityError(f"{path}: not valid JSON, truncated or damaged ({exc})") from None
+    data = read_json_checked(path)
     return ValidationSummary.from_json(data, where=str(path))
 
 

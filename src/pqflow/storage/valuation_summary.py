@@ -16,7 +16,7 @@ from types import MappingProxyType
 from typing import Any
 
 from pqflow.errors import IntegrityError
-from pqflow.storage.jsonio import read_json
+from pqflow.storage.jsonio import read_json_checked
 
 __all__ = [
     "VALUATION_SUMMARY", "ValuationSummary", "ValuationLine", "read_valuation_summary",
@@ -219,10 +219,5 @@ def read_valuation_summary(path: str | Path) -> ValuationSummary:
     """Read a run's ``valuation/summary.json`` (``IntegrityError`` naming the file and the key
     when it is damaged or lacks a required key)."""
     path = Path(path)
-    try:
-        data = read_json(path)
-    except FileNotFoundError:
-        raise IntegrityError(f"{path}: missing") from None
-    except (ValueError, UnicodeDecodeError) as exc:
-        raise IntegrityError(f"{path}: not valid JSON, truncated or damaged ({exc})") from None
+    data = read_json_checked(path)
     return ValuationSummary.from_json(data, where=str(path))
