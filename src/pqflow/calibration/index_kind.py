@@ -77,7 +77,7 @@ class IndexKind:
         if not section.core:  # a further index's fit record also carries its premium and rate correlation
             fit = {**fit, "risk_premium": section.risk_premium,
                    "correlation_with_rates": list(rho) if isinstance(rho, tuple) else rho}
-        return PartFit(part=index, fit=fit, instruments=options, prices_of_risk={section.name: lam},  # type: ignore[dict-item]
+        return PartFit(part=index, fit=fit, instruments=options, prices_of_risk={section.name: lam},
                        risk_premia={section.name: section.risk_premium})
 
     def fit_records(self, sections: Sequence[IndexSpec], fits: Sequence[dict[str, Any]]) -> dict[str, Any]:

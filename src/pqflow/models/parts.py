@@ -59,6 +59,7 @@ from pqflow.config.part_sections import register_part_section, unregister_part_s
 from pqflow.market.curve import DiscountCurve
 from pqflow.models.economy import GaussianPart
 from pqflow.models.rates import RatesModel
+from pqflow.models.schedule import PiecewiseConstant
 
 __all__ = [
     "PART_KINDS",
@@ -124,8 +125,9 @@ class PartFit:
     fit: dict[str, Any] = field(default_factory=dict)
     instruments: list[dict[str, Any]] = field(default_factory=list)
     #: its real-world prices of risk by driver when the fit decides them (``None``: the kind's
-    #: :meth:`PartKind.prices_of_risk` of its section)
-    prices_of_risk: dict[str, float] | None = None
+    #: :meth:`PartKind.prices_of_risk` of its section); piecewise constant where the fitted
+    #: volatility is (an index's ``premium / sigma(t)``)
+    prices_of_risk: Mapping[str, float | PiecewiseConstant] | None = None
     #: its real-world risk premia by driver, recorded beside the prices of risk (``None``: none)
     risk_premia: dict[str, float] | None = None
 

@@ -144,20 +144,16 @@ def simulate_credit(
     if times.ndim != 1 or times.size < 1 or times[0] != 0.0 or np.any(np.diff(times) <= 0.0):
         raise ValueError("times must be a 1-d array that starts at 0 and increases")
     d, n, n_steps = len(params.ratings), int(n_paths), times.size - 1
-    normals = np.empty((0, d, n))  # read only when no generator is given
-    if isinstance(rng_normals_or_generator, np.random.Generator):
-        rng = rng_normals_or_generator
-    else:
-        rng = None
-        normals = np.asarray(rng_normals_or_generator, dtype=float)
-        if normals.shape != (n_steps * substeps, d, n):
+    if not isinstance(rng_normals_or_generator, np.random.Generator):
+        shape = np.shape(rng_normals_or_generator)
+        if shape != (n_steps * substeps, d, n):
             raise ValueError(
                 f"normals must have shape (n_steps * substeps, n_ratings, n_paths) = "
-                f"{(n_steps * substeps, d, n)}, not {normals.shape}"
+                f"{(n_steps * substeps, d, n)}, not {shape}"
             )
 
     scheme = _CreditScheme(params, times, n, measure=measure)
-    run_substeps(scheme, times, substeps, rng if rng is not None else normals, n_paths=n)
+    run_substeps(scheme, times, substeps, rng_normals_or_generator, n_paths=n)
     factor, integrated, log_inc, rating_inc = scheme.factor, scheme.integrated, scheme.log_inc, scheme.rating_inc
     n_times = times.size
     density = np.ones((n, n_times))
